@@ -1,0 +1,3 @@
+from regbench.cli import main
+
+raise SystemExit(main())

@@ -1,0 +1,1 @@
+"""Comparisons built on fitted models: agreement, structure, stress, stability (no Qt)."""

@@ -1,0 +1,272 @@
+"""The headless front door: ``regbench fit | stress | new | inspect | report | bench | open | snapshot``.
+
+Every number the GUI shows can be produced here from the same table or project
+file.  A problem a person can fix ends the command with status 2 and one line
+on stderr naming it (no traceback).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+from typing import Optional, Sequence
+
+from regbench import __version__
+from regbench.errors import RegbenchError
+
+EXIT_OK = 0
+EXIT_USAGE = 2
+
+
+def _csv_list(text: Optional[str]) -> tuple:
+    if not text:
+        return ()
+    return tuple(s.strip() for s in text.split(",") if s.strip())
+
+
+def _float_list(text: Optional[str]) -> tuple:
+    out = []
+    for s in _csv_list(text):
+        try:
+            out.append(float(s))
+        except ValueError:
+            raise RegbenchError(f"--l1-ratio: '{s}' is not a number; give values between 0 and 1, e.g. 0.5,0.9") from None
+    return tuple(out)
+
+
+def _add_table_options(p: argparse.ArgumentParser, table: bool = True) -> None:
+    if table:
+        p.add_argument("table", help="CSV, TSV, XLSX or Parquet file")
+    p.add_argument("--target", required=True, help="column to predict")
+    p.add_argument("--predictors", help="comma-separated predictor columns (default: every other usable column)")
+    p.add_argument("--categorical", help="comma-separated numeric columns to treat as category codes")
+    p.add_argument("--weights", help="column of row weights (a count or frequency per row)")
+    p.add_argument("--groups", help="column whose groups stay together in held-out checks")
+    p.add_argument("--encoding", help="text encoding of a CSV/TSV file (default UTF-8)")
+    p.add_argument("--sheet", help="Excel sheet (default: the first)")
+    p.add_argument("--folds", type=int, default=5, help="cross-validation folds (default 5)")
+    p.add_argument("--seed", type=int, default=0, help="seed for folds and random draws (default 0)")
+    p.add_argument("--penalties", type=int, default=100, help="α values on each path (default 100)")
+    p.add_argument("--alpha", type=float, help="fix α for ridge, lasso and elastic net instead of the CV choice")
+    p.add_argument("--alpha-rule", choices=("cv_min", "cv_1se"), default="cv_min",
+                   help="CV choice of α: the minimum or the one-standard-error rule (default cv_min)")
+    p.add_argument("--l1-ratio", default="0.5", help="elastic-net L1 ratio(s), comma-separated (default 0.5)")
+    p.add_argument("--pin", help="comma-separated columns OLS must keep when it sets columns aside")
+
+
+def _json_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--json", metavar="PATH", help="write the result as JSON to PATH, or - for standard output")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="regbench",
+        description="Compare OLS, ridge, lasso and elastic net on tables whose predictors overlap.",
+    )
+    parser.add_argument("--version", action="version", version=f"regbench {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    p = sub.add_parser("fit", help="fit OLS, ridge, lasso and elastic net; print a summary or JSON")
+    _add_table_options(p)
+    _json_option(p)
+
+    p = sub.add_parser("stress", help="damage one input column and measure how each model's predictions move")
+    _add_table_options(p)
+    p.add_argument("--column", help="predictor column to damage (omit with --all-columns)")
+    p.add_argument("--all-columns", action="store_true", help="damage every predictor in turn and rank them")
+    p.add_argument("--kind", required=True, choices=("shuffle", "noise", "constant", "rescale", "wild", "missing"))
+    p.add_argument("--strength", type=float, help="kind-specific strength (noise: SDs; rescale: factor; wild: share)")
+    p.add_argument("--tolerance", type=float, help="a prediction 'moved' when it shifts by more than this (default: 0.1 × target SD)")
+    _json_option(p)
+
+    p = sub.add_parser("new", help="fit everything on a table and save a project file")
+    _add_table_options(p)
+    p.add_argument("-o", "--output", required=True, help="project file to write (.regbench)")
+    p.add_argument("--bootstrap", type=int, default=200, help="stability refits (default 200; 0 to skip)")
+
+    p = sub.add_parser("inspect", help="show what a project file holds and check its table hash")
+    p.add_argument("project")
+    _json_option(p)
+
+    p = sub.add_parser("report", help="render a project as a self-contained HTML report")
+    p.add_argument("project")
+    p.add_argument("-o", "--output", required=True, help="HTML file to write")
+
+    p = sub.add_parser("bench", help="time regbench against the scripted statsmodels/scikit-learn route")
+    p.add_argument("--rows", type=int, default=100_000)
+    p.add_argument("--cols", type=int, default=100)
+    p.add_argument("--quick", action="store_true", help="a small run to check the benchmark works")
+
+    p = sub.add_parser("open", help="open a table or project in the desktop window")
+    p.add_argument("path", nargs="?")
+
+    p = sub.add_parser("snapshot", help="render every panel of a project's window to PNG files")
+    p.add_argument("project")
+    p.add_argument("--out", required=True, help="folder for the PNG files")
+    return parser
+
+
+def settings_from_args(args):
+    from regbench.models.results import FitSettings
+
+    ratios = _float_list(args.l1_ratio) or (0.5,)
+    for r in ratios:
+        if not 0.0 < r < 1.0:
+            raise RegbenchError(f"--l1-ratio: {r:g} is outside (0, 1); ridge (0) and lasso (1) are always fitted")
+    if args.folds < 2:
+        raise RegbenchError(f"--folds: {args.folds} is too few; cross-validation needs at least 2 folds")
+    if args.penalties < 2:
+        raise RegbenchError(f"--penalties: {args.penalties} is too few; a path needs at least 2 α values")
+    if args.alpha is not None and not (args.alpha > 0 and math.isfinite(args.alpha)):
+        raise RegbenchError(f"--alpha: {args.alpha:g} must be a positive number")
+    return FitSettings(
+        folds=args.folds, seed=args.seed, n_penalties=args.penalties, l1_ratios=ratios,
+        alpha=args.alpha, alpha_rule=args.alpha_rule, pins=_csv_list(args.pin),
+    )
+
+
+def roles_from_args(args):
+    from regbench.data import Roles
+
+    return Roles(
+        target=args.target, predictors=_csv_list(args.predictors), categorical=_csv_list(args.categorical),
+        weights=args.weights, groups=args.groups,
+    )
+
+
+def load_design(args):
+    from regbench.data import build_design, read_table
+
+    table = read_table(args.table, encoding=args.encoding, sheet=args.sheet)
+    return table, build_design(table, roles_from_args(args))
+
+
+def write_json(obj, where: Optional[str]) -> None:
+    text = json.dumps(obj, indent=2, allow_nan=False, default=_json_default)
+    if where in (None, "-"):
+        sys.stdout.write(text + "\n")
+    else:
+        from regbench.project.atomic import atomic_write_bytes
+
+        atomic_write_bytes(where, (text + "\n").encode("utf-8"))
+
+
+def _json_default(o):
+    import numpy as np
+
+    if isinstance(o, np.generic):
+        return o.item()
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    raise TypeError(f"cannot write {type(o).__name__} as JSON")
+
+
+def _progress_to_stderr(done: int, total: int, message: str) -> None:
+    if sys.stderr.isatty():
+        sys.stderr.write(f"\r[{done}/{total}] {message[:60]:<60}")
+        if done >= total:
+            sys.stderr.write("\n")
+
+
+def cmd_fit(args) -> int:
+    from regbench.models.engine import fit_all
+    from regbench.models.export import fit_summary_text, fit_to_json
+
+    _, design = load_design(args)
+    results = fit_all(design, settings_from_args(args), progress=_progress_to_stderr)
+    if args.json:
+        write_json(fit_to_json(design, results), args.json)
+    else:
+        sys.stdout.write(fit_summary_text(design, results) + "\n")
+    return EXIT_OK
+
+
+def cmd_stress(args) -> int:
+    from regbench.analysis.stress import stress_command
+
+    _, design = load_design(args)
+    out = stress_command(design, settings_from_args(args), column=args.column, all_columns=args.all_columns,
+                         kind=args.kind, strength=args.strength, seed=args.seed, tolerance=args.tolerance,
+                         progress=_progress_to_stderr)
+    if args.json:
+        write_json(out["json"], args.json)
+    else:
+        sys.stdout.write(out["text"] + "\n")
+    return EXIT_OK
+
+
+def cmd_new(args) -> int:
+    from regbench.session import Session
+    from regbench.project import save_project
+
+    session = Session.from_table_file(args.table, roles_from_args(args), settings_from_args(args),
+                                      encoding=args.encoding, sheet=args.sheet)
+    session.compute(progress=_progress_to_stderr, bootstrap=args.bootstrap)
+    save_project(session, args.output)
+    sys.stdout.write(f"saved {args.output}: {session.design.n} rows used, {len(session.design.excluded)} excluded\n")
+    return EXIT_OK
+
+
+def cmd_inspect(args) -> int:
+    from regbench.project import inspect_project, inspect_text
+
+    info = inspect_project(args.project)
+    if args.json:
+        write_json(info, args.json)
+    else:
+        sys.stdout.write(inspect_text(info) + "\n")
+    return EXIT_OK
+
+
+def cmd_report(args) -> int:
+    from regbench.project import load_project
+    from regbench.report import render_report
+
+    session = load_project(args.project)
+    render_report(session, args.output)
+    sys.stdout.write(f"wrote {args.output}\n")
+    return EXIT_OK
+
+
+def cmd_bench(args) -> int:
+    from regbench.bench import main as bench_main
+
+    return bench_main(rows=args.rows, cols=args.cols, quick=args.quick)
+
+
+def cmd_open(args) -> int:
+    from regbench.gui.app import run
+
+    return run(args.path)
+
+
+def cmd_snapshot(args) -> int:
+    from regbench.gui.snapshot import snapshot
+
+    paths = snapshot(args.project, args.out)
+    for p in paths:
+        sys.stdout.write(f"{p}\n")
+    return EXIT_OK
+
+
+COMMANDS = {
+    "fit": cmd_fit, "stress": cmd_stress, "new": cmd_new, "inspect": cmd_inspect, "report": cmd_report,
+    "bench": cmd_bench, "open": cmd_open, "snapshot": cmd_snapshot,
+}
+
+
+def main(argv: Optional[Sequence[str]] = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        return cmd_open(argparse.Namespace(path=None))
+    try:
+        return COMMANDS[args.command](args)
+    except RegbenchError as exc:
+        sys.stderr.write(f"regbench {args.command}: {exc}\n")
+        return EXIT_USAGE
+    except KeyboardInterrupt:
+        sys.stderr.write(f"regbench {args.command}: interrupted\n")
+        return 130

@@ -1,0 +1,390 @@
+"""Column roles and the design matrix the engine fits.
+
+Categorical predictors are one-hot coded against their first level in sorted
+order, one column per other level, named ``COLUMN=LEVEL``.  Rows that cannot be
+used are excluded and reported one by one; predictors that cannot be used
+(constant, all missing) are set aside before fitting, each with a reason.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+from typing import Optional, Sequence
+
+import numpy as np
+
+from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC, Table
+from regbench.errors import DataError
+
+
+@dataclass(frozen=True)
+class Roles:
+    """Which column plays which part.
+
+    Attributes
+    ----------
+    target : str
+    predictors : tuple of str, optional
+        Empty means every other usable column (not weights, not groups).
+    categorical : tuple of str
+        Numeric columns the person marked as category codes.
+    weights : str or None
+        Row weights (a count or frequency per row); must be finite and >= 0.
+    groups : str or None
+        Rows of one group stay on the same side of every held-out check.
+    """
+
+    target: str
+    predictors: tuple = ()
+    categorical: tuple = ()
+    weights: Optional[str] = None
+    groups: Optional[str] = None
+
+    def to_dict(self) -> dict:
+        return {
+            "target": self.target,
+            "predictors": list(self.predictors),
+            "categorical": list(self.categorical),
+            "weights": self.weights,
+            "groups": self.groups,
+        }
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "Roles":
+        return cls(
+            target=d["target"],
+            predictors=tuple(d.get("predictors") or ()),
+            categorical=tuple(d.get("categorical") or ()),
+            weights=d.get("weights"),
+            groups=d.get("groups"),
+        )
+
+
+@dataclass(frozen=True)
+class ExcludedRow:
+    """A row left out of the fit. ``row`` is 1-based among the table's data rows."""
+
+    row: int
+    column: str
+    reason: str
+
+    def to_dict(self) -> dict:
+        return {"row": self.row, "column": self.column, "reason": self.reason}
+
+
+@dataclass(frozen=True)
+class UnusableColumn:
+    """A predictor set aside before fitting because it carries no usable information."""
+
+    column: str
+    reason: str
+
+    def to_dict(self) -> dict:
+        return {"column": self.column, "reason": self.reason}
+
+
+@dataclass(frozen=True)
+class Design:
+    """The numbers the engine fits.
+
+    Attributes
+    ----------
+    X : ndarray of shape (n, p), float64
+        Predictors in original units (categoricals one-hot coded).
+    y : ndarray of shape (n,)
+    weights : ndarray of shape (n,)
+        Ones when no weight column is set.
+    groups : ndarray of shape (n,) of int, or None
+        Group codes (0..g-1) when a group column is set.
+    columns : tuple of str
+        Design column names, ``COLUMN=LEVEL`` for coded levels.
+    sources : tuple of str
+        For each design column, the table column it came from.
+    target : str
+    row_numbers : ndarray of shape (n,) of int
+        1-based table row of each design row.
+    excluded : tuple of ExcludedRow
+    unusable : tuple of UnusableColumn
+    group_labels : tuple of str
+        The text of each group code.
+    weights_column, groups_column : str or None
+    """
+
+    X: np.ndarray
+    y: np.ndarray
+    weights: np.ndarray
+    groups: Optional[np.ndarray]
+    columns: tuple
+    sources: tuple
+    target: str
+    row_numbers: np.ndarray
+    excluded: tuple = ()
+    unusable: tuple = ()
+    group_labels: tuple = ()
+    weights_column: Optional[str] = None
+    groups_column: Optional[str] = None
+    n_table_rows: int = 0
+
+    @property
+    def n(self) -> int:
+        return self.X.shape[0]
+
+    @property
+    def p(self) -> int:
+        return self.X.shape[1]
+
+    @property
+    def weighted(self) -> bool:
+        return self.weights_column is not None
+
+    def index(self, column: str) -> int:
+        try:
+            return self.columns.index(column)
+        except ValueError:
+            raise DataError(
+                f"'{column}' is not a column of the design; design columns are: {', '.join(self.columns)}"
+            ) from None
+
+    def subset(self, rows) -> "Design":
+        """The design restricted to some rows (a boolean mask or index array)."""
+        rows = np.asarray(rows)
+        return replace(
+            self,
+            X=self.X[rows],
+            y=self.y[rows],
+            weights=self.weights[rows],
+            groups=None if self.groups is None else self.groups[rows],
+            row_numbers=self.row_numbers[rows],
+        )
+
+    def with_column(self, column: str, values: np.ndarray) -> "Design":
+        """A copy with one design column replaced (the stress test's damaged input)."""
+        j = self.index(column)
+        X = self.X.copy()
+        X[:, j] = values
+        return replace(self, X=X)
+
+    def standardized(self):
+        """Weighted mean and weighted population SD of each column, and the standardized X.
+
+        Returns
+        -------
+        Xs : ndarray (n, p)
+        mean : ndarray (p,)
+        sd : ndarray (p,)
+            Zero-variance columns get sd 1 so they stay at zero.
+        """
+        w = self.weights / self.weights.sum()
+        mean = w @ self.X
+        sd = np.sqrt(w @ (self.X - mean) ** 2)
+        sd_safe = np.where(sd > 0, sd, 1.0)
+        return (self.X - mean) / sd_safe, mean, sd
+
+    def summary(self) -> dict:
+        return {
+            "rows_in_table": self.n_table_rows,
+            "rows_used": int(self.n),
+            "rows_excluded": len(self.excluded),
+            "predictor_columns": list(self.columns),
+            "unusable": [u.to_dict() for u in self.unusable],
+        }
+
+
+def default_predictors(table: Table, roles: Roles) -> tuple:
+    """Every column that is not the target, the weights or the groups, and is not empty."""
+    skip = {roles.target, roles.weights, roles.groups}
+    return tuple(c for c in table.names if c not in skip and table.columns[c].kind != EMPTY)
+
+
+def build_design(table: Table, roles: Roles) -> Design:
+    """Build the design matrix for ``roles`` from ``table``.
+
+    Raises
+    ------
+    DataError
+        Unknown column, a target that is not numeric or is constant, a bad weight
+        column, more predictors than usable rows, or no usable rows.
+    """
+    src = table.source or "the table"
+    for label, col in (("target", roles.target), ("weights", roles.weights), ("groups", roles.groups)):
+        if col is not None:
+            table.info(col)
+    for col in roles.predictors + roles.categorical:
+        table.info(col)
+    if roles.weights is not None and roles.weights == roles.target:
+        raise DataError(f"column '{roles.target}' cannot be both the target and the weights")
+    tinfo = table.info(roles.target)
+    if tinfo.kind not in (NUMERIC, BOOLEAN):
+        numeric = [c for c in table.names if table.columns[c].kind == NUMERIC]
+        raise DataError(
+            f"{src}: target '{roles.target}' is {tinfo.kind}, not numeric; choose a numeric target"
+            + (f" (numeric columns: {', '.join(numeric)})" if numeric else " (the table has no numeric column)")
+        )
+    predictors = roles.predictors or default_predictors(table, roles)
+    predictors = tuple(c for c in predictors if c not in {roles.target, roles.weights, roles.groups})
+    if not predictors:
+        raise DataError(f"{src}: no predictor columns; choose at least one column besides the target")
+    frame = table.frame
+    n = len(frame)
+    reasons: dict = {}
+
+    def exclude(mask, column, why):
+        for i in np.flatnonzero(mask):
+            if i not in reasons:
+                reasons[i] = (column, why(i) if callable(why) else why)
+
+    y_all = frame[roles.target].to_numpy(dtype=float)
+    bad_text = dict(tinfo.bad_cells)
+    exclude(~np.isfinite(y_all), roles.target,
+            lambda i: f"text '{bad_text[i + 1]}' where a number was expected" if (i + 1) in bad_text
+            else ("target is infinite" if np.isinf(y_all[i]) else "target is missing"))
+
+    if roles.weights is not None:
+        winfo = table.info(roles.weights)
+        if winfo.kind not in (NUMERIC, BOOLEAN):
+            raise DataError(f"{src}: weights column '{roles.weights}' is {winfo.kind}; weights must be numbers >= 0")
+        w_all = frame[roles.weights].to_numpy(dtype=float)
+        wbad = dict(winfo.bad_cells)
+
+        def wreason(i):
+            v = w_all[i]
+            if (i + 1) in wbad:
+                return f"weight is text '{wbad[i + 1]}'"
+            if np.isnan(v):
+                return "weight is missing"
+            if np.isinf(v):
+                return "weight is infinite"
+            return f"weight is negative ({v:g})"
+
+        exclude(~np.isfinite(w_all) | (w_all < 0), roles.weights, wreason)
+    else:
+        w_all = np.ones(n)
+
+    if roles.groups is not None:
+        g_raw = frame[roles.groups]
+        g_missing = g_raw.isna().to_numpy()
+        exclude(g_missing, roles.groups, "group is missing")
+
+    # Predictors: numeric (or boolean) columns as they are, categoricals one-hot.
+    blocks = []  # (design names, source, matrix)
+    unusable = []
+    categorical_marked = set(roles.categorical)
+    for col in predictors:
+        info = table.columns[col]
+        if info.kind == EMPTY:
+            unusable.append(UnusableColumn(col, "every cell is missing"))
+            continue
+        is_cat = info.kind == CATEGORICAL or col in categorical_marked
+        raw = frame[col]
+        if is_cat:
+            present = raw.notna().to_numpy()
+            exclude(~present, col, "value is missing")
+            blocks.append(("cat", col, raw))
+        else:
+            x = raw.to_numpy(dtype=float)
+            bad = dict(info.bad_cells)
+            exclude(~np.isfinite(x), col,
+                    lambda i, x=x, bad=bad: f"text '{bad[i + 1]}' where a number was expected" if (i + 1) in bad
+                    else ("value is infinite" if np.isinf(x[i]) else "value is missing"))
+            blocks.append(("num", col, x))
+
+    keep = np.ones(n, dtype=bool)
+    if reasons:
+        keep[list(reasons)] = False
+    # Zero weight is allowed: such a row contributes nothing to the fit but is still predicted.
+    rows = np.flatnonzero(keep)
+    excluded = tuple(ExcludedRow(int(i) + 1, c, r) for i, (c, r) in sorted(reasons.items()))
+    if rows.size == 0:
+        raise DataError(
+            f"{src}: every row was excluded (first reason: row {excluded[0].row}, "
+            f"column '{excluded[0].column}': {excluded[0].reason}); check the roles and the missing values"
+        )
+    y = y_all[rows]
+    w = w_all[rows]
+    if roles.weights is not None and not np.any(w > 0):
+        raise DataError(f"{src}: weights column '{roles.weights}' is zero on every usable row; weights must add up to more than 0")
+    if np.ptp(y[w > 0]) == 0:
+        raise DataError(
+            f"{src}: target '{roles.target}' has the same value ({y[0]:g}) on every usable row, "
+            "so there is nothing to explain; choose another target"
+        )
+
+    names, sources, mats = [], [], []
+    for kind, col, raw in blocks:
+        if kind == "num":
+            x = raw[rows]
+            if np.ptp(x[w > 0]) == 0 if np.any(w > 0) else True:
+                unusable.append(UnusableColumn(col, f"constant ({x[0]:g}) on every usable row"))
+                continue
+            names.append(col)
+            sources.append(col)
+            mats.append(x[:, None])
+        else:
+            vals = raw.to_numpy(dtype=object)[rows]
+            texts = np.array([_level_text(v) for v in vals], dtype=object)
+            levels = sorted(set(texts))
+            if len(levels) < 2:
+                unusable.append(UnusableColumn(col, f"only one level ('{levels[0]}') on every usable row"))
+                continue
+            for lev in levels[1:]:
+                names.append(f"{col}={lev}")
+                sources.append(col)
+                mats.append((texts == lev).astype(float)[:, None])
+    if not mats:
+        reasons_txt = "; ".join(f"{u.column}: {u.reason}" for u in unusable)
+        raise DataError(f"{src}: no usable predictor remains ({reasons_txt}); choose other predictors")
+    X = np.hstack(mats)
+    if len(names) >= int(np.count_nonzero(w > 0)):
+        raise DataError(
+            f"{src}: {len(names)} predictor columns but only {int(np.count_nonzero(w > 0))} usable rows; "
+            "a linear model needs more rows than predictors. Choose fewer predictors or add rows"
+        )
+    groups = None
+    labels = ()
+    if roles.groups is not None:
+        gtext = np.array([_level_text(v) for v in frame[roles.groups].to_numpy(dtype=object)[rows]], dtype=object)
+        labels = tuple(sorted(set(gtext)))
+        code = {g: k for k, g in enumerate(labels)}
+        groups = np.array([code[g] for g in gtext], dtype=np.int64)
+    return Design(
+        X=np.ascontiguousarray(X, dtype=np.float64),
+        y=y.astype(np.float64),
+        weights=w.astype(np.float64),
+        groups=groups,
+        columns=tuple(names),
+        sources=tuple(sources),
+        target=roles.target,
+        row_numbers=rows + 1,
+        excluded=excluded,
+        unusable=tuple(unusable),
+        group_labels=labels,
+        weights_column=roles.weights,
+        groups_column=roles.groups,
+        n_table_rows=n,
+    )
+
+
+def design_from_arrays(X, y, columns: Sequence[str] = None, weights=None, groups=None, target: str = "y") -> Design:
+    """A design straight from arrays, for tests and benchmarks (no table, no exclusions)."""
+    X = np.ascontiguousarray(np.asarray(X, dtype=np.float64))
+    if X.ndim == 1:
+        X = X[:, None]
+    n, p = X.shape
+    y = np.asarray(y, dtype=np.float64).ravel()
+    if columns is None:
+        columns = tuple(f"x{j + 1}" for j in range(p))
+    columns = tuple(columns)
+    w = np.ones(n) if weights is None else np.asarray(weights, dtype=np.float64).ravel()
+    g = None if groups is None else np.unique(np.asarray(groups), return_inverse=True)[1].astype(np.int64)
+    labels = () if groups is None else tuple(str(v) for v in np.unique(np.asarray(groups)))
+    return Design(
+        X=X, y=y, weights=w, groups=g, columns=columns, sources=columns, target=target,
+        row_numbers=np.arange(1, n + 1), weights_column=None if weights is None else "weights",
+        groups_column=None if groups is None else "groups", group_labels=labels, n_table_rows=n,
+    )
+
+
+def _level_text(v) -> str:
+    if isinstance(v, float) and v == int(v):
+        return str(int(v))
+    return str(v)

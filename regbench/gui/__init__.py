@@ -1,0 +1,1 @@
+"""Qt views over a headless Session. The only package that imports Qt."""

@@ -1,0 +1,1 @@
+"""The numerical engine: OLS with set-aside explanations, diagnostics, penalized paths, CV (no Qt)."""

@@ -1,0 +1,305 @@
+"""Result objects of the engine.
+
+Immutable dataclasses holding numpy arrays; each carries the names of the
+design columns it refers to.  Everything later (analyses, session, report,
+GUI) reads these and nothing else from the engine.
+
+Penalty objective (the one parametrization for every penalized model)::
+
+    minimise  1/(2W) * sum_i w_i (y_i - b0 - x~_i . beta)^2
+              + alpha * (rho * ||beta||_1 + (1 - rho)/2 * ||beta||_2^2)
+
+with x~ the predictors standardized by weighted mean and weighted population
+SD and W = sum_i w_i; rho = 0 is ridge, rho = 1 lasso, in between elastic net.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Optional
+
+import numpy as np
+
+#: Names of the four model families, in the order every view lists them.
+MODEL_NAMES = ("ols", "ridge", "lasso", "elastic_net")
+MODEL_LABELS = {"ols": "OLS", "ridge": "Ridge", "lasso": "Lasso", "elastic_net": "Elastic net"}
+ALPHA_RULES = ("fixed", "cv_min", "cv_1se")
+
+
+def model_label(name: str) -> str:
+    """Human label for a model key ('elastic_net_0.8' -> 'Elastic net (L1 ratio 0.8)')."""
+    if name in MODEL_LABELS:
+        return MODEL_LABELS[name]
+    if name.startswith("elastic_net_"):
+        return f"Elastic net (L1 ratio {name[len('elastic_net_'):]})"
+    return name
+
+
+@dataclass(frozen=True)
+class FitSettings:
+    """Engine settings.
+
+    Attributes
+    ----------
+    folds : int
+        Number of cross-validation folds (grouped when the design has groups).
+    seed : int
+        Seed for fold assignment.
+    n_penalties : int
+        Number of α values on each path.
+    penalty_ratio : float
+        Smallest α on the path as a share of the largest.
+    l1_ratios : tuple of float
+        L1 ratios for elastic net; the first is the model 'elastic_net', further
+        ones are 'elastic_net_<ratio>'.
+    alpha : float or None
+        Fixed α for every penalized model instead of the CV choice.
+    alpha_rule : {'cv_min', 'cv_1se'}
+        Which CV choice to use when ``alpha`` is None.
+    pins : tuple of str
+        Columns OLS must keep when deciding what to set aside.
+    rank_tol : float or None
+        Relative rank tolerance for OLS (None: the engine's stated default).
+    """
+
+    folds: int = 5
+    seed: int = 0
+    n_penalties: int = 100
+    penalty_ratio: float = 1e-3
+    l1_ratios: tuple = (0.5,)
+    alpha: Optional[float] = None
+    alpha_rule: str = "cv_min"
+    pins: tuple = ()
+    rank_tol: Optional[float] = None
+
+    def to_dict(self) -> dict:
+        return {
+            "folds": self.folds, "seed": self.seed, "n_penalties": self.n_penalties,
+            "penalty_ratio": self.penalty_ratio, "l1_ratios": list(self.l1_ratios),
+            "alpha": self.alpha, "alpha_rule": self.alpha_rule, "pins": list(self.pins),
+            "rank_tol": self.rank_tol,
+        }
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "FitSettings":
+        return cls(
+            folds=int(d.get("folds", 5)), seed=int(d.get("seed", 0)),
+            n_penalties=int(d.get("n_penalties", 100)),
+            penalty_ratio=float(d.get("penalty_ratio", 1e-3)),
+            l1_ratios=tuple(float(r) for r in d.get("l1_ratios", (0.5,))),
+            alpha=None if d.get("alpha") is None else float(d["alpha"]),
+            alpha_rule=str(d.get("alpha_rule", "cv_min")),
+            pins=tuple(d.get("pins", ())),
+            rank_tol=None if d.get("rank_tol") is None else float(d["rank_tol"]),
+        )
+
+
+@dataclass(frozen=True)
+class LinearModel:
+    """A fitted linear predictor in original units: ``intercept + X @ coef``.
+
+    Attributes
+    ----------
+    name : str
+        'ols', 'ridge', 'lasso', 'elastic_net' or 'elastic_net_<ratio>'.
+    columns : tuple of str
+        Design columns, in design order.
+    intercept : float
+    coef : ndarray (p,)
+        Original units; exactly 0.0 for a column the model does not use.
+    coef_std : ndarray (p,)
+        The same on standardized columns (coef * weighted SD).
+    alpha, l1_ratio : float or None
+        None for OLS.
+    """
+
+    name: str
+    columns: tuple
+    intercept: float
+    coef: np.ndarray
+    coef_std: np.ndarray
+    alpha: Optional[float] = None
+    l1_ratio: Optional[float] = None
+
+    @property
+    def used(self) -> np.ndarray:
+        """Boolean mask of the columns with a non-zero coefficient."""
+        return self.coef != 0.0
+
+    def predict(self, X: np.ndarray) -> np.ndarray:
+        """Predictions for rows of design columns.
+
+        Only used columns enter the product, so a column the model does not use
+        cannot change a prediction even when it holds NaN or inf.
+        """
+        used = np.flatnonzero(self.used)
+        X = np.asarray(X, dtype=np.float64)
+        if used.size == 0:
+            return np.full(X.shape[0], self.intercept)
+        return self.intercept + X[:, used] @ self.coef[used]
+
+
+@dataclass(frozen=True)
+class SetAside:
+    """A column OLS set aside because the kept columns reproduce it.
+
+    ``column ≈ intercept + Σ combination[c] · c`` over kept columns c, with
+    ``residual`` the weighted RMS of what is left over (0 up to round-off for an
+    exact alias).  ``alternatives`` are the kept columns in the combination:
+    any one of them could have been set aside instead.
+    """
+
+    column: str
+    combination: dict
+    intercept: float
+    residual: float
+    alternatives: tuple
+
+    def sentence(self) -> str:  # implemented by the OLS module
+        from regbench.models.ols import set_aside_sentence
+
+        return set_aside_sentence(self)
+
+    def to_dict(self) -> dict:
+        return {
+            "column": self.column,
+            "combination": {k: float(v) for k, v in self.combination.items()},
+            "intercept": float(self.intercept),
+            "residual": float(self.residual),
+            "alternatives": list(self.alternatives),
+        }
+
+
+@dataclass(frozen=True)
+class OLSResult:
+    """Weighted OLS by column-pivoted QR, with inference on the kept columns.
+
+    Arrays are over all design ``columns``; set-aside columns hold coef 0.0 and
+    NaN in std_errors, t_values, p_values, ci_low, ci_high.
+    """
+
+    columns: tuple
+    kept: tuple
+    set_aside: tuple  # of SetAside
+    intercept: float
+    intercept_se: float
+    coef: np.ndarray
+    std_errors: np.ndarray
+    t_values: np.ndarray
+    p_values: np.ndarray
+    ci_low: np.ndarray
+    ci_high: np.ndarray
+    r_squared: float
+    adj_r_squared: float
+    residual_sd: float
+    df_resid: float
+    n_obs: int
+    rank: int
+    rank_tol: float
+    model: LinearModel
+
+
+@dataclass(frozen=True)
+class NearDependency:
+    """A strongly collinear column and the few others that explain it."""
+
+    column: str
+    vif: float
+    explained_by: tuple  # column names
+    r_squared: float  # R² those columns reach when predicting ``column``
+    sentence: str
+
+
+@dataclass(frozen=True)
+class Diagnostics:
+    """Collinearity diagnostics on the kept columns.
+
+    Attributes
+    ----------
+    columns : tuple of str
+        Kept columns (OLS), the order of ``vif``.
+    vif : ndarray (k,)
+    condition_indices : ndarray (k+1,)
+        Of the column-scaled design with intercept, ascending.
+    variance_proportions : ndarray (k+1, k+1)
+        Row i: dimension i (same order as condition_indices); column j: term j
+        ('(intercept)' then ``columns``).
+    terms : tuple of str
+        '(intercept)' followed by ``columns``.
+    near_dependencies : tuple of NearDependency
+        For each column with VIF above 10 (common practice).
+    damaging : tuple of dict
+        Dimensions with condition index > 30 and two or more proportions > 0.5
+        (Belsley, Kuh & Welsch 1980): {'index': float, 'terms': [names]}.
+    sentences : tuple of str
+        Plain-language summary.
+    """
+
+    columns: tuple
+    vif: np.ndarray
+    condition_indices: np.ndarray
+    variance_proportions: np.ndarray
+    terms: tuple
+    near_dependencies: tuple
+    damaging: tuple
+    sentences: tuple
+
+
+@dataclass(frozen=True)
+class PathResult:
+    """Coefficients along a penalty path (α descending)."""
+
+    name: str
+    l1_ratio: float
+    alphas: np.ndarray  # (k,)
+    coef: np.ndarray  # (k, p) original units
+    coef_std: np.ndarray  # (k, p) standardized
+    intercepts: np.ndarray  # (k,)
+    columns: tuple
+
+
+@dataclass(frozen=True)
+class CVResult:
+    """Cross-validated error per α: weighted mean squared error over held-out rows."""
+
+    alphas: np.ndarray
+    mean: np.ndarray
+    se: np.ndarray
+    alpha_min: float
+    alpha_1se: float
+    n_folds: int
+    grouped: bool
+
+
+@dataclass(frozen=True)
+class PenalizedFit:
+    """One penalized model family: its path, its CV curve and the chosen model."""
+
+    name: str
+    l1_ratio: float
+    path: PathResult
+    cv: Optional[CVResult]
+    alpha: float
+    alpha_rule: str
+    model: LinearModel
+
+
+@dataclass(frozen=True)
+class FitResults:
+    """Everything one ``fit_all`` produced on one design."""
+
+    columns: tuple
+    settings: FitSettings
+    ols: OLSResult
+    diagnostics: Diagnostics
+    penalized: dict  # name -> PenalizedFit
+    fold_ids: np.ndarray  # (n,) fold of each design row, 0..K-1
+    n_obs: int
+    gram: object = field(default=None, repr=False, compare=False)  # models.gram.GramStats
+
+    def models(self) -> dict:
+        """name -> LinearModel for OLS and every penalized model, in display order."""
+        out = {"ols": self.ols.model}
+        for name, pf in self.penalized.items():
+            out[name] = pf.model
+        return out
