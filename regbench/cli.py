@@ -171,11 +171,12 @@ def _progress_to_stderr(done: int, total: int, message: str) -> None:
 
 
 def cmd_fit(args) -> int:
+    settings = settings_from_args(args)
+    _, design = load_design(args)
     from regbench.models.engine import fit_all
     from regbench.models.export import fit_summary_text, fit_to_json
 
-    _, design = load_design(args)
-    results = fit_all(design, settings_from_args(args), progress=_progress_to_stderr)
+    results = fit_all(design, settings, progress=_progress_to_stderr)
     if args.json:
         write_json(fit_to_json(design, results), args.json)
     else:
