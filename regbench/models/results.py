@@ -146,7 +146,10 @@ class SetAside:
     ``column ≈ intercept + Σ combination[c] · c`` over kept columns c, with
     ``residual`` the weighted RMS of what is left over (0 up to round-off for an
     exact alias).  ``alternatives`` are the kept columns in the combination:
-    any one of them could have been set aside instead.
+    any one of them could have been set aside instead.  ``relative_residual``
+    is ``residual`` over the column's weighted SD; ``exact`` says whether that
+    is at round-off level (False: an almost-exact dependency that a larger
+    rank tolerance set aside).
     """
 
     column: str
@@ -154,6 +157,8 @@ class SetAside:
     intercept: float
     residual: float
     alternatives: tuple
+    relative_residual: float = 0.0
+    exact: bool = True
 
     def sentence(self) -> str:  # implemented by the OLS module
         from regbench.models.ols import set_aside_sentence
@@ -167,6 +172,8 @@ class SetAside:
             "intercept": float(self.intercept),
             "residual": float(self.residual),
             "alternatives": list(self.alternatives),
+            "relative_residual": float(self.relative_residual),
+            "exact": bool(self.exact),
         }
 
 
