@@ -1,0 +1,133 @@
+"""Agreement between fitted models, checked against direct numpy computations."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from regbench.analysis.agreement import TINY_SHARE, compare_models
+from regbench.data import design_from_arrays
+from regbench.errors import DataError
+from regbench.models.results import LinearModel
+
+
+def lm(name, intercept, coef, columns):
+    coef = np.asarray(coef, dtype=float)
+    return LinearModel(name=name, columns=tuple(columns), intercept=float(intercept), coef=coef, coef_std=coef.copy())
+
+
+@pytest.fixture
+def case():
+    rng = np.random.default_rng(3)
+    n = 400
+    X = rng.normal(size=(n, 3))
+    y = 1.0 + X @ [2.0, -1.0, 0.5] + rng.normal(0, 0.3, n)
+    w = rng.uniform(0.2, 3.0, n)
+    cols = ("a", "b", "c")
+    d = design_from_arrays(X, y, cols, weights=w, target="growth")
+    models = {
+        "ols": lm("ols", 1.0, [2.0, -1.0, 0.5], cols),
+        "ridge": lm("ridge", 1.001, [1.999, -0.999, 0.5], cols),
+        "lasso": lm("lasso", 1.2, [1.5, -0.5, 0.0], cols),
+    }
+    held = {k: m.predict(X) + rng.normal(0, 0.05, n) for k, m in models.items()}
+    return d, models, held
+
+
+def test_pair_numbers_match_direct_numpy(case):
+    d, models, held = case
+    ag = compare_models(d, models, held)
+    w = d.weights
+    for split, preds in (("training", {k: m.predict(d.X) for k, m in models.items()}), ("held_out", held)):
+        p = ag.pair("ols", "lasso", split)
+        diff = preds["ols"] - preds["lasso"]
+        # Direct weighted formulas (numpy): average with weights, cov with aweights.
+        mean = np.average(diff, weights=w)
+        sd = np.sqrt(np.average((diff - mean) ** 2, weights=w))
+        assert p.rmse == pytest.approx(np.sqrt(np.average(diff**2, weights=w)), rel=1e-12)
+        assert p.max_abs == pytest.approx(np.abs(diff).max(), rel=1e-12)
+        assert p.mean_diff == pytest.approx(mean, rel=1e-12)
+        assert p.loa_low == pytest.approx(mean - 1.96 * sd, rel=1e-12)
+        assert p.loa_high == pytest.approx(mean + 1.96 * sd, rel=1e-12)
+        c = np.cov(preds["ols"], preds["lasso"], aweights=w)
+        assert p.corr == pytest.approx(c[0, 1] / np.sqrt(c[0, 0] * c[1, 1]), rel=1e-12)
+    for k in models:
+        assert ag.own_error[k]["training"] == pytest.approx(
+            np.sqrt(np.average((models[k].predict(d.X) - d.y) ** 2, weights=w)), rel=1e-12)
+        assert ag.own_error[k]["held_out"] == pytest.approx(
+            np.sqrt(np.average((held[k] - d.y) ** 2, weights=w)), rel=1e-12)
+
+
+def test_every_pair_in_model_order_on_both_splits(case):
+    d, models, held = case
+    ag = compare_models(d, models, held)
+    assert ag.models == ("ols", "ridge", "lasso")
+    assert [(p.a, p.b, p.split) for p in ag.pairs] == [
+        ("ols", "ridge", "training"), ("ols", "ridge", "held_out"),
+        ("ols", "lasso", "training"), ("ols", "lasso", "held_out"),
+        ("ridge", "lasso", "training"), ("ridge", "lasso", "held_out"),
+    ]
+
+
+def test_sentences_call_near_identical_models_interchangeable(case):
+    d, models, _ = case
+    # Held-out predictions equal to training ones: the OLS/ridge gap is tiny against their error.
+    held = {k: m.predict(d.X) for k, m in models.items()}
+    ag = compare_models(d, models, held)
+    p = ag.pair("ols", "ridge")
+    assert p.rmse < TINY_SHARE * min(ag.own_error["ols"]["held_out"], ag.own_error["ridge"]["held_out"])
+    first = [s for s in ag.sentences if s.startswith("OLS and ridge")]
+    assert len(first) == 1 and "interchangeable" in first[0] and "growth" in first[0]
+    assert "held-out rows" in first[0]
+    lasso = [s for s in ag.sentences if s.startswith("OLS and lasso")][0]
+    assert "interchangeable" not in lasso and "changes the predictions" in lasso
+
+
+def test_units_and_group_words_in_sentences(case):
+    d, models, held = case
+    from dataclasses import replace
+
+    d = replace(d, groups=np.arange(d.n) % 4, groups_column="house")
+    ag = compare_models(d, models, held, units="kg/m²")
+    assert any("kg/m² RMS on held-out house groups" in s for s in ag.sentences)
+
+
+def test_without_heldout_only_training_and_a_caution(case):
+    d, models, _ = case
+    ag = compare_models(d, models, None)
+    assert all(p.split == "training" for p in ag.pairs)
+    assert all(np.isnan(e["held_out"]) for e in ag.own_error.values())
+    assert "held-out" in ag.sentences[-1]
+    js = ag.to_dict()
+    assert js["own_error"]["ols"]["held_out"] is None
+
+
+def test_constant_predictions_give_undefined_correlation(case):
+    d, models, held = case
+    models = dict(models, lasso=lm("lasso", 1.0, [0, 0, 0], d.columns))
+    ag = compare_models(d, models)
+    # A model that uses no column predicts a constant: correlation is undefined (0/0).
+    assert np.isnan(ag.pair("ols", "lasso", "training").corr)
+    assert ag.to_dict()["pairs"][2]["corr"] is None
+
+
+def test_bad_heldout_shape_names_model(case):
+    d, models, held = case
+    held["ridge"] = held["ridge"][:10]
+    with pytest.raises(DataError, match="ridge"):
+        compare_models(d, models, held)
+
+
+def test_zero_weight_rows_do_not_count(case):
+    d, models, held = case
+    from dataclasses import replace
+
+    w = d.weights.copy()
+    w[:50] = 0.0
+    d0 = replace(d, weights=w)
+    ag = compare_models(d0, models, held)
+    sub = compare_models(d.subset(np.arange(50, d.n)), models, {k: v[50:] for k, v in held.items()})
+    # A zero-weight row adds nothing to a weighted statistic: same as dropping it (definition).
+    for p, q in zip(ag.pairs, sub.pairs):
+        for f in ("rmse", "max_abs", "corr", "mean_diff", "loa_low", "loa_high"):
+            assert getattr(p, f) == pytest.approx(getattr(q, f), rel=1e-10)
