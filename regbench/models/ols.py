@@ -1,0 +1,440 @@
+"""Weighted OLS that says which columns it set aside and why.
+
+The fit works on the scaled problem::
+
+    a_ij = sqrt(w_i / W) * (x_ij - m_j) / s_j        z_i = sqrt(w_i / W) * (y_i - m_y)
+
+with ``m`` the weighted means, ``s`` the weighted population SDs and
+``W = sum(w)``.  Every column of ``a`` has length 1, so the rank tolerance is
+relative and does not depend on units.  Rows of weight 0 are left out of the
+fit (they contribute nothing) but are still predicted by the model.
+
+Rank tolerance
+--------------
+A column is set aside when its length left over after removing the columns
+kept before it is at most ``tol``; in the column-pivoted QR of ``a`` this is
+``|R_kk| <= tol * |R_00|`` (``|R_00| = 1`` here).  Left-over length ``tol``
+means the kept columns explain all but a share ``tol**2`` of the column's
+weighted variance (R² >= 1 - tol²).  The default is
+``tol = 100 * max(n, p) * eps`` (n rows with weight > 0, p columns, eps the
+float64 machine epsilon; about 1e-12 for a few hundred rows): the round-off
+of a Householder QR grows at most like ``max(n, p) * eps``, and a derived
+column computed from others with a few float operations (a mean of two
+columns, °C to °F) leaves about ``eps`` of its length, so the factor 100 is a
+safety margin for round-off only.  Measured near-dependencies, however
+strong, stay in the fit (the diagnostics report them) unless the caller
+passes a larger ``rank_tol``; a column set aside under such a tolerance is
+reported as *almost* reproduced, with the size of what is left over.
+
+Which columns are kept
+----------------------
+The pivoted QR fixes the rank.  The choice among dependent columns follows
+a stated order so that it is predictable and can be steered: pinned columns
+first, then the design order; a column is set aside when the columns kept
+before it reproduce it.  This walk runs on the p×p factor ``R P^T`` (same
+lengths and angles as the scaled columns).  In the rare borderline case where
+that walk keeps a different number of columns than the pivoted QR's rank, the
+choice falls back to pivoted QR on the pinned block first and then on the
+rest with the pinned part removed.
+"""
+
+from __future__ import annotations
+
+from typing import Optional, Sequence
+
+import numpy as np
+
+from regbench.errors import ModelError
+from regbench.models.results import LinearModel, OLSResult, SetAside
+
+EPS = np.finfo(np.float64).eps
+#: Multiple of max(n, p) * eps in the default rank tolerance (see the module docstring).
+ROUNDOFF_FACTOR = 100.0
+#: A term of a set-aside combination whose standardized weight is below this share of the
+#: largest is round-off, provided dropping it does not leave more over (checked).
+NEGLIGIBLE_TERM = 1e-6
+
+
+def default_rank_tol(n: int, p: int) -> float:
+    """The default relative rank tolerance, ``100 * max(n, p) * eps``."""
+    return ROUNDOFF_FACTOR * max(int(n), int(p), 1) * EPS
+
+
+def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) -> OLSResult:
+    """Weighted least squares with intercept, setting aside columns the others reproduce.
+
+    Parameters
+    ----------
+    design : regbench.data.Design
+    pins : sequence of str
+        Columns to keep whenever possible; when a dependency forces a choice,
+        a column that is not pinned is set aside.
+    rank_tol : float, optional
+        Relative rank tolerance (see the module docstring).  Default
+        ``100 * max(n, p) * eps``.
+
+    Returns
+    -------
+    OLSResult
+        Coefficients and inference (weighted, as weighted least squares with
+        weights ``w``: residual variance ``sum(w e²) / (n - rank - 1)``) over all
+        design columns; set-aside columns hold coef 0.0 and NaN inference, and
+        each has a :class:`SetAside` explaining the combination of kept
+        columns that reproduces it.
+
+    Raises
+    ------
+    ModelError
+        Pinned columns that are not design columns, pinned columns that
+        depend on each other (named), non-finite values or bad weights.
+    """
+    from scipy import linalg, stats
+
+    columns = tuple(design.columns)
+    X_all = np.asarray(design.X, dtype=np.float64)
+    y_all = np.asarray(design.y, dtype=np.float64)
+    w_all = np.asarray(design.weights, dtype=np.float64)
+    n_all, p = X_all.shape
+    _check_inputs(design, X_all, y_all, w_all)
+    pins = tuple(dict.fromkeys(pins))
+    for c in pins:
+        if c not in columns:
+            raise ModelError(
+                f"pinned column '{c}' is not a design column; design columns are: {', '.join(columns)}"
+            )
+    pin_idx = [columns.index(c) for c in pins]
+
+    pos = w_all > 0
+    X, y, w = X_all[pos], y_all[pos], w_all[pos]
+    n = X.shape[0]
+    W = w.sum()
+    tol = default_rank_tol(n, p) if rank_tol is None else float(rank_tol)
+    if not (np.isfinite(tol) and tol >= 0):
+        raise ModelError(f"rank tolerance must be a number >= 0, got {rank_tol!r}")
+    roundoff = default_rank_tol(n, p)
+
+    mean = (w @ X) / W
+    Xc = X - mean
+    sd = np.sqrt((w @ (Xc * Xc)) / W)
+    sqw = np.sqrt(w / W)
+    scale = np.where(sd > 0, sd, 1.0)
+    A = (sqw[:, None] * Xc) / scale
+    A[:, sd == 0] = 0.0
+    ybar = (w @ y) / W
+    z = sqw * (y - ybar)
+
+    # Coordinates of the scaled columns in an orthonormal basis of their span.
+    if p:
+        Q, R, piv = linalg.qr(A, mode="economic", pivoting=True, check_finite=False)
+        diag = np.abs(np.diag(R))
+        rank_qr = int(np.count_nonzero(diag > tol * max(diag[0] if diag.size else 0.0, 1.0)))
+        if np.all(sd == 0):
+            rank_qr = 0
+        C = np.empty_like(R)
+        C[:, piv] = R
+    else:
+        Q = np.zeros((n, 0))
+        C = np.zeros((0, 0))
+        rank_qr = 0
+
+    _check_pins(C, pin_idx, columns, tol, sd)
+    kept = _ordered_choice(C, pin_idx, tol, sd)
+    if len(kept) != rank_qr:
+        kept = _pivoted_choice(C, pin_idx, tol, sd)
+    kept = sorted(kept)
+    k = len(kept)
+    aside = [j for j in range(p) if j not in set(kept)]
+
+    # Solve on the kept columns through a QR of their coordinates (no normal equations),
+    # then one refinement step on residuals computed in original units.
+    qz = Q.T @ z if p else np.zeros(0)
+    if k:
+        Qk, Rk = linalg.qr(C[:, kept], mode="economic", check_finite=False)
+        b = linalg.solve_triangular(Rk, Qk.T @ qz, check_finite=False)
+        beta_k = b / scale[kept]
+        icpt = ybar - mean[kept] @ beta_k
+        for _ in range(2):
+            e = y - icpt - X[:, kept] @ beta_k
+            ebar = (w @ e) / W
+            ez = sqw * (e - ebar)
+            db = linalg.solve_triangular(Rk, Qk.T @ (Q.T @ ez), check_finite=False)
+            beta_k = beta_k + db / scale[kept]
+            icpt = icpt + ebar - mean[kept] @ (db / scale[kept])
+    else:
+        beta_k = np.zeros(0)
+        icpt = ybar
+
+    resid = y - icpt - (X[:, kept] @ beta_k if k else 0.0)
+    ssr = float(w @ (resid * resid))
+    tss = float(w @ ((y - ybar) ** 2))
+    df = n - k - 1
+    r2 = 1.0 - ssr / tss if tss > 0 else float("nan")
+    adj = 1.0 - (n - 1) / df * (1.0 - r2) if df > 0 else float("nan")
+    sigma2 = ssr / df if df > 0 else float("nan")
+
+    coef = np.zeros(p)
+    se = np.full(p, np.nan)
+    coef[kept] = beta_k
+    if k:
+        Rinv = linalg.solve_triangular(Rk, np.eye(k), check_finite=False)
+        cov_scaled = Rinv @ Rinv.T  # (A_k' A_k)^-1 on the scaled columns
+        cov = sigma2 * cov_scaled / (W * np.outer(scale[kept], scale[kept]))
+        se[kept] = np.sqrt(np.diag(cov))
+        m = mean[kept]
+        icpt_se = float(np.sqrt(sigma2 / W + m @ cov @ m))
+    else:
+        icpt_se = float(np.sqrt(sigma2 / W))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tval = coef / se
+    tval[aside] = np.nan
+    if df > 0:
+        pval = 2.0 * stats.t.sf(np.abs(tval), df)
+        q = stats.t.ppf(0.975, df)
+    else:
+        pval = np.full(p, np.nan)
+        q = np.nan
+    ci_low = coef - q * se
+    ci_high = coef + q * se
+    for arr in (pval, ci_low, ci_high):
+        arr[aside] = np.nan
+
+    set_aside = tuple(
+        _explain(j, kept, C, columns, X, w, W, mean, sd, scale, roundoff) for j in aside
+    )
+    model = LinearModel(
+        name="ols", columns=columns, intercept=float(icpt), coef=coef.copy(),
+        coef_std=coef * sd,
+    )
+    return OLSResult(
+        columns=columns,
+        kept=tuple(columns[j] for j in kept),
+        set_aside=set_aside,
+        intercept=float(icpt),
+        intercept_se=icpt_se,
+        coef=coef,
+        std_errors=se,
+        t_values=tval,
+        p_values=pval,
+        ci_low=ci_low,
+        ci_high=ci_high,
+        r_squared=float(r2),
+        adj_r_squared=float(adj),
+        residual_sd=float(np.sqrt(sigma2)),
+        df_resid=float(df),
+        n_obs=int(n),
+        rank=int(k),
+        rank_tol=float(tol),
+        model=model,
+    )
+
+
+def _check_inputs(design, X, y, w) -> None:
+    if w.shape[0] != X.shape[0] or y.shape[0] != X.shape[0]:
+        raise ModelError("the design's target, weights and predictors have different numbers of rows")
+    bad = ~np.isfinite(w) | (w < 0)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise ModelError(
+            f"row {int(design.row_numbers[i])}: weight {w[i]!r} is not a finite number >= 0; fix or exclude the row"
+        )
+    if not np.any(w > 0):
+        raise ModelError("every weight is zero; at least one row must have a weight above 0")
+    pos = w > 0
+    if not np.all(np.isfinite(y[pos])):
+        i = int(np.flatnonzero(pos & ~np.isfinite(y))[0])
+        raise ModelError(f"row {int(design.row_numbers[i])}: target '{design.target}' is not a finite number")
+    finite = np.isfinite(X[pos])
+    if not finite.all():
+        r, c = np.argwhere(~finite)[0]
+        i = int(np.flatnonzero(pos)[r])
+        raise ModelError(
+            f"row {int(design.row_numbers[i])}: column '{design.columns[c]}' is not a finite number"
+        )
+
+
+def _residual_length(v: np.ndarray, basis: list) -> np.ndarray:
+    """``v`` with its projection on the orthonormal ``basis`` removed (twice, for accuracy)."""
+    if not basis:
+        return v.copy()
+    B = np.column_stack(basis)
+    r = v - B @ (B.T @ v)
+    return r - B @ (B.T @ r)
+
+
+def _ordered_choice(C, pin_idx, tol, sd) -> list:
+    """Walk pins then design order; keep a column when it adds more than ``tol`` of new length."""
+    p = C.shape[1]
+    order = list(pin_idx) + [j for j in range(p) if j not in set(pin_idx)]
+    basis, kept = [], []
+    for j in order:
+        if sd[j] == 0:
+            continue
+        r = _residual_length(C[:, j], basis)
+        nr = float(np.linalg.norm(r))
+        if nr > tol:
+            basis.append(r / nr)
+            kept.append(j)
+    return kept
+
+
+def _pivoted_choice(C, pin_idx, tol, sd) -> list:
+    """Pivoted QR on the pinned block, then on the rest with the pinned part removed."""
+    from scipy import linalg
+
+    p = C.shape[1]
+    pinned = [j for j in pin_idx if sd[j] > 0]
+    rest = [j for j in range(p) if j not in set(pin_idx) and sd[j] > 0]
+    if not rest:
+        return pinned
+    B = C[:, rest]
+    if pinned:
+        Qp, _ = linalg.qr(C[:, pinned], mode="economic")
+        B = B - Qp @ (Qp.T @ B)
+        B = B - Qp @ (Qp.T @ B)
+    _, R2, piv2 = linalg.qr(B, mode="economic", pivoting=True)
+    d = np.abs(np.diag(R2))
+    r2 = int(np.count_nonzero(d > tol))
+    return pinned + [rest[i] for i in piv2[:r2]]
+
+
+def _check_pins(C, pin_idx, columns, tol, sd) -> None:
+    """Pinned columns must be independent of each other (and not constant)."""
+    basis, kept = [], []
+    for j in pin_idx:
+        if sd[j] == 0:
+            raise ModelError(
+                f"pinned column '{columns[j]}' is constant on every row with weight, so the intercept "
+                "already carries it; unpin it"
+            )
+        r = _residual_length(C[:, j], basis)
+        nr = float(np.linalg.norm(r))
+        if nr <= tol:
+            # Which earlier pins reproduce it: least squares on their coordinates.
+            coef, *_ = np.linalg.lstsq(C[:, kept], C[:, j], rcond=None)
+            big = np.abs(coef) > NEGLIGIBLE_TERM * max(np.abs(coef).max(), 1e-300)
+            names = [columns[kept[i]] for i in np.flatnonzero(big)] or [columns[i] for i in kept]
+            raise ModelError(
+                f"pinned columns {_join([*names, columns[j]], 'and')} depend on each other "
+                f"('{columns[j]}' is reproduced by {_join(names, 'and')}), so they cannot all be kept; "
+                "unpin one of them"
+            )
+        basis.append(r / nr)
+        kept.append(j)
+
+
+def _explain(j, kept, C, columns, X, w, W, mean, sd, scale, roundoff) -> SetAside:
+    """The combination of kept columns (and intercept) that reproduces column ``j``."""
+    name = columns[j]
+    if sd[j] == 0 or not kept:
+        value = float(mean[j])
+        left = X[:, j] - value
+        res = float(np.sqrt((w @ (left * left)) / W))
+        rel = res / sd[j] if sd[j] > 0 else 0.0
+        return SetAside(column=name, combination={}, intercept=value, residual=res,
+                        alternatives=(), relative_residual=float(rel), exact=bool(rel <= roundoff))
+
+    def solve(support):
+        cs, *_ = np.linalg.lstsq(C[:, support], C[:, j], rcond=None)
+        coef = cs * scale[j] / scale[support]
+        icpt = float(mean[j] - mean[support] @ coef)
+        left = X[:, j] - icpt - X[:, support] @ coef
+        res = float(np.sqrt((w @ (left * left)) / W))
+        return cs, coef, icpt, res
+
+    cs, coef, icpt, res = solve(kept)
+    big = np.abs(cs) > NEGLIGIBLE_TERM * np.abs(cs).max()
+    support = [kept[i] for i in np.flatnonzero(big)]
+    if len(support) < len(kept):
+        cs2, coef2, icpt2, res2 = solve(support)
+        if res2 <= max(2.0 * res, res + roundoff * sd[j]):
+            coef, icpt, res = coef2, icpt2, res2
+        else:
+            support = list(kept)
+    else:
+        support = list(kept)
+    rel = res / sd[j]
+    return SetAside(
+        column=name,
+        combination={columns[s]: float(c) for s, c in zip(support, coef)},
+        intercept=icpt,
+        residual=res,
+        alternatives=tuple(columns[s] for s in support),
+        relative_residual=float(rel),
+        exact=bool(rel <= roundoff),
+    )
+
+
+# --- plain-language sentences -------------------------------------------------------------
+
+def format_number(v: float) -> str:
+    """A readable number: 4 significant digits, no exponent between 1e-4 and 1e7."""
+    v = float(v)
+    if v == 0 or not np.isfinite(v):
+        return "0" if v == 0 else str(v)
+    a = abs(v)
+    if 1e4 <= a < 1e7:
+        return f"{v:.0f}"
+    if 1e-4 <= a < 1e4:
+        return f"{v:.4g}"
+    mant, exp = f"{v:.3e}".split("e")
+    mant = mant.rstrip("0").rstrip(".")
+    return f"{mant}e{int(exp)}"
+
+
+def _small(v: float) -> str:
+    v = float(v)
+    if v == 0:
+        return "0"
+    if 1e-3 <= abs(v) < 1e4:
+        return f"{v:.2g}"
+    mant, exp = f"{v:.0e}".split("e")
+    return f"{mant}e{int(exp)}"
+
+
+def _join(names, word: str = "or") -> str:
+    names = list(names)
+    if len(names) <= 1:
+        return "".join(names)
+    return ", ".join(names[:-1]) + f" {word} " + names[-1]
+
+
+def combination_text(sa: SetAside) -> str:
+    """``'32 + 1.8 × day_temp_c'``: the intercept (when not negligible) and the weighted terms."""
+    parts = []
+    scale = max([abs(sa.intercept)] + [abs(c) for c in sa.combination.values()] + [1e-300])
+    if sa.combination:
+        show_icpt = abs(sa.intercept) > 1e-9 * max(abs(sa.intercept) + sa.residual, 1.0) and \
+            abs(sa.intercept) > 1e-12 * scale
+    else:
+        show_icpt = True
+    terms = []
+    if show_icpt:
+        terms.append((sa.intercept, None))
+    terms.extend((c, name) for name, c in sa.combination.items())
+    for i, (c, name) in enumerate(terms):
+        mag = format_number(abs(c))
+        body = mag if name is None else (name if mag == "1" else f"{mag} × {name}")
+        if i == 0:
+            parts.append(("−" if c < 0 else "") + body)
+        else:
+            parts.append(("− " if c < 0 else "+ ") + body)
+    return " ".join(parts)
+
+
+def set_aside_sentence(sa: SetAside) -> str:
+    """One plain sentence saying why ``sa.column`` was set aside and what could replace it."""
+    if not sa.combination:
+        if sa.exact:
+            return (f"{sa.column} was set aside: it is constant ({format_number(sa.intercept)}) on every "
+                    "row with weight, so the intercept already carries it.")
+        return (f"{sa.column} was set aside: it is almost constant ({format_number(sa.intercept)}, "
+                f"left over: {_small(sa.residual)}), so the intercept nearly carries it.")
+    alts = _join(sa.alternatives, "or")
+    expr = combination_text(sa)
+    if sa.exact:
+        return (f"{sa.column} was set aside: it equals {expr} exactly (left over: {_small(sa.residual)}); "
+                f"keeping it instead of {alts} gives the same predictions.")
+    share = 100.0 * sa.relative_residual
+    return (f"{sa.column} was set aside: it almost equals {expr} (left over: {_small(sa.residual)}, "
+            f"{_small(share)}% of its spread, within the rank tolerance); keeping it instead of {alts} "
+            "gives almost the same predictions.")
