@@ -1,0 +1,207 @@
+"""Collinearity diagnostics on the columns OLS kept.
+
+* VIF per column: ``1 / (1 - R²_j)`` with ``R²_j`` from the weighted regression of
+  column j on the other kept columns and an intercept; computed as the diagonal
+  of the inverse weighted correlation matrix through a QR of the scaled columns.
+* Condition indices and variance-decomposition proportions (Belsley, Kuh &
+  Welsch 1980, *Regression Diagnostics*): the design with its intercept column,
+  rows scaled by ``sqrt(w)``, every column (intercept included) scaled to unit
+  length, not centered.  With singular values ``s`` and right singular vectors
+  ``V``, the condition index of dimension k is ``s_max / s_k`` and the share of
+  term j's coefficient variance that belongs to dimension k is
+  ``(V_jk / s_k)² / sum_k (V_jk / s_k)²``.  A dimension with condition index
+  above 30 where two or more terms have a share above 0.5 is damaging (their
+  rule).
+* Near-dependencies: for each column with VIF above 10 (common practice, no
+  single source), the few other kept columns that explain it, found by greedy
+  forward selection until their R² is within 0.01 of what all other kept
+  columns reach (at most 4 columns).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from regbench.models.ols import format_number
+from regbench.models.results import Diagnostics, NearDependency
+
+INTERCEPT = "(intercept)"
+#: VIF above which a column is reported as strongly collinear (common practice).
+VIF_SERIOUS = 10.0
+#: Belsley, Kuh & Welsch (1980): condition index and variance-share thresholds.
+CONDITION_DAMAGING = 30.0
+PROPORTION_HIGH = 0.5
+#: Near-dependency search: stop within this much R² of all other columns, or at this many columns.
+R2_SLACK = 0.01
+MAX_EXPLAINERS = 4
+
+
+def diagnose(design, ols_result) -> Diagnostics:
+    """VIF, condition indices, variance proportions and near-dependencies on the kept columns.
+
+    Parameters
+    ----------
+    design : regbench.data.Design
+        The design ``ols_result`` was fitted on (same weights).
+    ols_result : OLSResult
+
+    Returns
+    -------
+    Diagnostics
+    """
+    from scipy import linalg
+
+    kept = tuple(ols_result.kept)
+    idx = [design.columns.index(c) for c in kept]
+    w_all = np.asarray(design.weights, dtype=np.float64)
+    pos = w_all > 0
+    w = w_all[pos]
+    X = np.asarray(design.X, dtype=np.float64)[pos][:, idx]
+    W = w.sum()
+    k = len(kept)
+    terms = (INTERCEPT,) + kept
+
+    # VIF and coordinates of the centered, scaled kept columns.
+    if k:
+        mean = (w @ X) / W
+        Xc = X - mean
+        sd = np.sqrt((w @ (Xc * Xc)) / W)
+        A = np.sqrt(w / W)[:, None] * Xc / np.where(sd > 0, sd, 1.0)
+        R = linalg.qr(A, mode="r", check_finite=False)[0][:k]
+        Rinv = linalg.solve_triangular(R, np.eye(k), check_finite=False)
+        vif = np.sum(Rinv * Rinv, axis=1)
+        if k == 1:
+            vif = np.ones(1)
+    else:
+        R = np.zeros((0, 0))
+        vif = np.zeros(0)
+
+    # Condition indices and variance-decomposition proportions (uncentered, with intercept).
+    Z = np.sqrt(w)[:, None] * np.column_stack([np.ones(X.shape[0]), X])
+    Z = Z / np.linalg.norm(Z, axis=0)
+    Rz = linalg.qr(Z, mode="r", check_finite=False)[0][: k + 1]
+    _, s, Vt = np.linalg.svd(Rz)
+    with np.errstate(divide="ignore"):
+        cond = s[0] / s
+        phi = (Vt.T / s) ** 2  # phi[j, d]: term j, dimension d
+    props = (phi / phi.sum(axis=1, keepdims=True)).T  # rows: dimensions, columns: terms
+
+    damaging = []
+    for d in range(k + 1):
+        high = [terms[j] for j in range(k + 1) if props[d, j] > PROPORTION_HIGH]
+        if cond[d] > CONDITION_DAMAGING and len(high) >= 2:
+            damaging.append({"index": float(cond[d]), "dimension": int(d), "terms": high})
+
+    near = []
+    for j in np.argsort(-vif, kind="stable"):
+        if vif[j] > VIF_SERIOUS:
+            near.append(_near_dependency(j, R, kept, float(vif[j])))
+
+    sentences = _summary(ols_result, kept, vif, cond, damaging)
+    return Diagnostics(
+        columns=kept,
+        vif=vif,
+        condition_indices=cond,
+        variance_proportions=props,
+        terms=terms,
+        near_dependencies=tuple(near),
+        damaging=tuple(damaging),
+        sentences=tuple(sentences),
+    )
+
+
+def _r2_on(R, j, support) -> float:
+    """R² of scaled column j on the scaled columns in ``support`` (plus intercept)."""
+    if not support:
+        return 0.0
+    B = R[:, support]
+    coef, *_ = np.linalg.lstsq(B, R[:, j], rcond=None)
+    left = R[:, j] - B @ coef
+    return float(1.0 - left @ left / (R[:, j] @ R[:, j]))
+
+
+def _near_dependency(j, R, kept, vif) -> NearDependency:
+    others = [i for i in range(len(kept)) if i != j]
+    r2_all = 1.0 - 1.0 / vif
+    chosen, r2 = [], 0.0
+    while others and len(chosen) < MAX_EXPLAINERS and r2 < r2_all - R2_SLACK:
+        gains = [(_r2_on(R, j, chosen + [i]), -pos, i) for pos, i in enumerate(others)]
+        best_r2, _, best = max(gains)
+        chosen.append(best)
+        others.remove(best)
+        r2 = best_r2
+    names = tuple(kept[i] for i in chosen)
+    col = kept[j]
+    sentence = (f"{col} is {percent(r2)} explained by {_join(names)} (R² {r2_text(r2)}, VIF "
+                f"{_vif_text(vif)}); their separate coefficients are poorly determined.")
+    if r2 < r2_all - R2_SLACK:
+        sentence = sentence[:-1] + f"; all other kept columns together explain {percent(r2_all)}."
+    return NearDependency(column=col, vif=vif, explained_by=names, r_squared=r2, sentence=sentence)
+
+
+def _summary(ols_result, kept, vif, cond, damaging) -> list:
+    out = []
+    aside = [sa.column for sa in ols_result.set_aside]
+    if not aside:
+        out.append("No column was set aside: each column adds something the others do not carry.")
+    else:
+        noun = "column was" if len(aside) == 1 else "columns were"
+        out.append(f"{len(aside)} {noun} set aside because kept columns reproduce them: {', '.join(aside)}.")
+    high = [i for i in np.argsort(-vif, kind="stable") if vif[i] > VIF_SERIOUS]
+    if not kept:
+        out.append("No column was kept, so the model is the weighted mean of the target.")
+        return out
+    if not high:
+        out.append(f"No kept column has a VIF above {VIF_SERIOUS:g} (a common rule of thumb).")
+    else:
+        listed = ", ".join(f"{kept[i]} ({_vif_text(vif[i])})" for i in high[:5])
+        more = f" and {len(high) - 5} more" if len(high) > 5 else ""
+        noun = "column has" if len(high) == 1 else "columns have"
+        out.append(f"{len(high)} kept {noun} a VIF above {VIF_SERIOUS:g} (a common rule of thumb): {listed}{more}.")
+    worst = float(cond.max())
+    if worst < 10:
+        meaning = "the kept columns are close to independent, so their coefficients are well determined"
+    elif worst <= CONDITION_DAMAGING:
+        meaning = "the kept columns overlap moderately, which widens the uncertainty of some coefficients"
+    else:
+        meaning = "the kept columns overlap strongly: small changes in the data can move some coefficients a lot"
+    out.append(f"The worst condition index is {format_number(round(worst, 1) if worst < 1e4 else worst)}; {meaning}.")
+    for dmg in damaging:
+        out.append(
+            f"A near-dependency with condition index {format_number(round(dmg['index'], 1))} dominates the "
+            f"uncertainty of {_join([_term_text(t) for t in dmg['terms']], 'and')} (variance share above 0.5 each; "
+            "Belsley, Kuh & Welsch's rule)."
+        )
+    return out
+
+
+def percent(r2: float) -> str:
+    """R² as a percentage with enough digits to tell it from 100%."""
+    if not np.isfinite(r2):
+        return "an unknown share"
+    if r2 >= 1.0:
+        return "100%"
+    digits = 0 if r2 < 0.99 else min(int(np.ceil(-np.log10(1.0 - r2))) - 2, 8)
+    return f"{100.0 * r2:.{digits}f}%"
+
+
+def r2_text(r2: float) -> str:
+    digits = 2 if r2 < 0.99 else min(int(np.ceil(-np.log10(max(1.0 - r2, 1e-16)))), 10)
+    return f"{r2:.{digits}f}"
+
+
+def _vif_text(v: float) -> str:
+    if v < 1e4:
+        return f"{v:.3g}" if v < 100 else f"{v:.0f}"
+    return format_number(v)
+
+
+def _term_text(term: str) -> str:
+    return "the intercept" if term == INTERCEPT else term
+
+
+def _join(names, word: str = "and") -> str:
+    names = list(names)
+    if len(names) <= 1:
+        return "".join(names)
+    return ", ".join(names[:-1]) + f" {word} " + names[-1]
