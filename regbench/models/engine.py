@@ -1,0 +1,272 @@
+"""Fit everything on one design: OLS, diagnostics, and every penalized family with CV.
+
+One pass over the rows gathers the cross-products of each CV fold (their sum
+is the whole design); after that every path, every fold's fit and every
+held-out error is p×p work.  See :mod:`regbench.models.penalized` for the
+objective::
+
+    minimise  1/(2W) · Σ wᵢ (yᵢ − b₀ − x̃ᵢβ)²  +  α · (ρ‖β‖₁ + (1−ρ)/2 · ‖β‖²)
+
+on predictors standardized by the weighted mean and weighted population SD of
+the rows being fitted (each training fold is standardized on its own rows).
+A column whose SD is 0 on those rows keeps a coefficient of exactly 0.
+"""
+
+from __future__ import annotations
+
+from typing import Optional
+
+import numpy as np
+
+from regbench.errors import ModelError
+from regbench.models import cv as cvmod
+from regbench.models.gram import GramStats, gram_stats, per_fold
+from regbench.models.penalized import Problem, alpha_grid, fit_path, model_from_problem, solve_beta
+from regbench.models.results import ALPHA_RULES, FitResults, FitSettings, LinearModel, PenalizedFit
+from regbench.progress import check, report
+
+
+def families(settings: FitSettings):
+    """(name, L1 ratio) of each penalized family, in display order."""
+    out = [("ridge", 0.0), ("lasso", 1.0)]
+    for i, r in enumerate(settings.l1_ratios):
+        out.append(("elastic_net" if i == 0 else f"elastic_net_{float(r):g}", float(r)))
+    return out
+
+
+def _validate(settings: FitSettings) -> None:
+    if int(settings.folds) < 2:
+        raise ModelError(f"folds: {settings.folds} is too few; cross-validation needs at least 2 folds")
+    if int(settings.n_penalties) < 2:
+        raise ModelError(f"n_penalties: {settings.n_penalties} is too few; a path needs at least 2 α values")
+    if not 0.0 < float(settings.penalty_ratio) < 1.0:
+        raise ModelError(f"penalty_ratio: {settings.penalty_ratio:g} must be between 0 and 1 (e.g. 0.001)")
+    if not settings.l1_ratios:
+        raise ModelError("l1_ratios: give at least one elastic-net L1 ratio between 0 and 1, e.g. 0.5")
+    for r in settings.l1_ratios:
+        if not 0.0 < float(r) < 1.0:
+            raise ModelError(f"l1_ratios: {r:g} is outside (0, 1); ridge (0) and lasso (1) are always fitted")
+    if settings.alpha is not None and not (np.isfinite(settings.alpha) and settings.alpha > 0):
+        raise ModelError(f"alpha: {settings.alpha:g} must be a positive number")
+    if settings.alpha_rule not in ALPHA_RULES[1:]:
+        raise ModelError(f"alpha_rule: '{settings.alpha_rule}' is not one of {', '.join(ALPHA_RULES[1:])}")
+
+
+def _ols(design, settings):
+    from regbench.models.ols import fit_ols
+
+    return fit_ols(design, settings.pins, settings.rank_tol)
+
+
+def fit_all(design, settings: FitSettings = FitSettings(), progress=None, cancel=None) -> FitResults:
+    """OLS, diagnostics, and ridge, lasso and elastic net with their paths and CV.
+
+    Parameters
+    ----------
+    design : Design
+    settings : FitSettings
+    progress : callable(done, total, message), optional
+    cancel : callable() -> bool, optional
+        Checked between steps; a true answer raises :class:`regbench.errors.Cancelled`.
+
+    Returns
+    -------
+    FitResults
+        ``gram`` holds the whole design's :class:`GramStats`; ``fold_ids`` the
+        fold of each row (grouped when the design has groups).
+    """
+    from regbench.models.diagnostics import diagnose
+
+    _validate(settings)
+    fams = families(settings)
+    K = int(settings.folds)
+    total = 3 + len(fams)
+    step = 0
+    report(progress, step, total, "gathering cross-products of every fold")
+    ids = cvmod.fold_ids(design.n, K, settings.seed, design.groups, design.weights, design.groups_column)
+    full, folds = per_fold(design.X, design.y, design.weights, ids, K)
+    check(cancel)
+    step += 1
+    report(progress, step, total, "fitting OLS")
+    ols = _ols(design, settings)
+    check(cancel)
+    step += 1
+    report(progress, step, total, "measuring collinearity")
+    diag = diagnose(design, ols)
+    check(cancel)
+    step += 1
+    problem = Problem.from_stats(full)
+    train = [Problem.from_stats(_training(full, f, k)) for k, f in enumerate(folds)]
+    grouped = design.groups is not None
+    penalized = {}
+    for name, rho in fams:
+        report(progress, step, total, f"{name.replace('_', ' ')}: path and cross-validation")
+        penalized[name] = _family(design, settings, problem, train, folds, name, rho, grouped, cancel)
+        check(cancel)
+        step += 1
+    report(progress, step, total, "done")
+    return FitResults(columns=tuple(design.columns), settings=settings, ols=ols, diagnostics=diag,
+                      penalized=penalized, fold_ids=ids, n_obs=int(design.n), gram=full)
+
+
+def _training(full: GramStats, fold: GramStats, k: int) -> GramStats:
+    t = full - fold
+    if not t.W > 0:
+        raise ModelError(f"fold {k + 1}: the rows outside it have total weight 0; use fewer folds")
+    return t
+
+
+def _family(design, settings, problem, train, folds, name, rho, grouped, cancel) -> PenalizedFit:
+    grid = alpha_grid(problem.c, rho, int(settings.n_penalties), float(settings.penalty_ratio))
+    path = fit_path(None, name, rho, grid, design.columns, problem=problem)
+    errors = np.empty((len(folds), grid.size))
+    for k, (tp, f) in enumerate(zip(train, folds)):
+        check(cancel)
+        coef, b0 = tp.to_original(solve_beta(tp, grid, rho))
+        errors[k] = cvmod.heldout_mse(f, coef, b0)
+    cvres = cvmod.summarize(grid, errors, grouped)
+    if settings.alpha is not None:
+        alpha, rule = float(settings.alpha), "fixed"
+    else:
+        rule = settings.alpha_rule
+        alpha = cvres.alpha_min if rule == "cv_min" else cvres.alpha_1se
+    model = _model_on_path(problem, path, name, rho, alpha, design.columns)
+    return PenalizedFit(name=name, l1_ratio=rho, path=path, cv=cvres, alpha=alpha, alpha_rule=rule, model=model)
+
+
+def _model_on_path(problem, path, name, rho, alpha, columns) -> LinearModel:
+    """The exact fit at ``alpha``: a path point when α is on the grid, else a warm-started solve."""
+    hit = np.flatnonzero(path.alphas == alpha)
+    if hit.size:
+        i = int(hit[0])
+        return LinearModel(name=name, columns=tuple(columns), intercept=float(path.intercepts[i]),
+                           coef=path.coef[i].copy(), coef_std=path.coef_std[i].copy(), alpha=float(alpha),
+                           l1_ratio=float(rho))
+    i = int(np.argmin(np.abs(np.log(path.alphas) - np.log(alpha))))
+    return model_from_problem(problem, name, rho, alpha, columns, coef_init=path.coef_std[i])
+
+
+def _l1_ratio_of(results: FitResults, name: str) -> float:
+    if name in results.penalized:
+        return float(results.penalized[name].l1_ratio)
+    for n, r in families(results.settings):
+        if n == name:
+            return r
+    raise ModelError(f"'{name}' is not a fitted model; fitted models are: {', '.join(results.models())}")
+
+
+def model_at(design, results: FitResults, name: str, alpha: float) -> LinearModel:
+    """The exact fit of family ``name`` at ``alpha`` on the whole design (OLS: the OLS model)."""
+    if name == "ols":
+        return results.ols.model
+    if not (np.isfinite(alpha) and alpha > 0):
+        raise ModelError(f"α = {alpha:g} for {name}: α must be a positive number")
+    rho = _l1_ratio_of(results, name)
+    stats = results.gram if isinstance(results.gram, GramStats) else gram_stats(design.X, design.y, design.weights)
+    problem = Problem.from_stats(stats)
+    init = None
+    pf = results.penalized.get(name)
+    if pf is not None and rho > 0:
+        i = int(np.argmin(np.abs(np.log(pf.path.alphas) - np.log(alpha))))
+        init = pf.path.coef_std[i]
+    return model_from_problem(problem, name, rho, float(alpha), design.columns, coef_init=init)
+
+
+def heldout_predictions(design, results: FitResults, models: dict) -> dict:
+    """Each row predicted by a model of the same family fitted without that row's fold.
+
+    Parameters
+    ----------
+    design : Design
+    results : FitResults
+        Supplies ``fold_ids`` (and the columns OLS kept).
+    models : dict of name -> LinearModel
+        Penalized models are refitted at their own α and L1 ratio; 'ols' is
+        refitted on the columns OLS kept.
+
+    Returns
+    -------
+    dict of name -> ndarray (n,)
+    """
+    ids = np.asarray(results.fold_ids)
+    if ids.shape[0] != design.n:
+        raise ModelError(f"the fold of each row is known for {ids.shape[0]} rows but the design has {design.n}; "
+                         "fit again on this design")
+    K = int(ids.max()) + 1
+    full, folds = per_fold(design.X, design.y, design.weights, ids, K)
+    train_stats = [_training(full, f, k) for k, f in enumerate(folds)]
+    problems = [None] * K
+    rows = [np.flatnonzero(ids == k) for k in range(K)]
+    out = {}
+    for name, m in models.items():
+        pred = np.empty(design.n)
+        for k in range(K):
+            if name == "ols":
+                fm = _ols_on_stats(design, train_stats[k], ids != k, results.ols.kept)
+            else:
+                if problems[k] is None:
+                    problems[k] = Problem.from_stats(train_stats[k])
+                rho = float(m.l1_ratio) if m.l1_ratio is not None else _l1_ratio_of(results, name)
+                fm = model_from_problem(problems[k], name, rho, float(m.alpha), design.columns, coef_init=m.coef_std)
+            pred[rows[k]] = fm.predict(design.X[rows[k]])
+        out[name] = pred
+    return out
+
+
+#: Above this condition number of the kept columns' standardized Gram, OLS
+#: held-out refits solve on the rows (least squares) instead of the Gram.
+GRAM_COND_LIMIT = 1e7
+
+
+def _ols_on_stats(design, stats: GramStats, train_rows, kept) -> LinearModel:
+    """OLS on the kept columns of the training rows (weighted)."""
+    idx = np.array([design.index(c) for c in kept], dtype=int)
+    p = design.p
+    coef = np.zeros(p)
+    mean = stats.mean_x()
+    ybar = stats.mean_y()
+    if idx.size:
+        G, c, _, sd = stats.standardized()
+        live = idx[sd[idx] > 0]
+        if live.size:
+            Gk = G[np.ix_(live, live)]
+            lam, V = np.linalg.eigh(Gk)
+            if lam[0] > lam[-1] / GRAM_COND_LIMIT:
+                coef[live] = (V @ ((V.T @ c[live]) / lam)) / sd[live]
+            else:
+                import scipy.linalg
+
+                sw = np.sqrt(design.weights[train_rows])
+                Xk = (design.X[np.ix_(train_rows, live)] - mean[live]) * sw[:, None]
+                yk = (design.y[train_rows] - ybar) * sw
+                coef[live] = scipy.linalg.lstsq(Xk, yk, lapack_driver="gelsy")[0]
+    intercept = ybar - coef @ mean
+    return LinearModel(name="ols", columns=tuple(design.columns), intercept=float(intercept), coef=coef,
+                       coef_std=coef * stats.sd_x())
+
+
+def fit_models_at(design, settings: FitSettings, alphas: Optional[dict] = None) -> dict:
+    """OLS and each penalized family at a given α; no path and no CV (for refits).
+
+    Parameters
+    ----------
+    design : Design
+    settings : FitSettings
+    alphas : dict of name -> float, optional
+        α of each penalized family; a family missing here uses ``settings.alpha``.
+
+    Returns
+    -------
+    dict of name -> LinearModel, OLS first.
+    """
+    alphas = dict(alphas or {})
+    out = {"ols": _ols(design, settings).model}
+    problem = Problem.from_stats(gram_stats(design.X, design.y, design.weights))
+    for name, rho in families(settings):
+        a = alphas.get(name, settings.alpha)
+        if a is None:
+            raise ModelError(f"no α given for {name}; pass one per model or set a fixed α in the settings")
+        if not (np.isfinite(a) and a > 0):
+            raise ModelError(f"α = {a:g} for {name}: α must be a positive number")
+        out[name] = model_from_problem(problem, name, rho, float(a), design.columns)
+    return out
