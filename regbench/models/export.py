@@ -1,0 +1,208 @@
+"""The fit as plain JSON data and as a readable text summary.
+
+``fit_to_json`` returns only dicts, lists, str, bool, int, float and None;
+NaN and infinities become None so the result is strict JSON.  Coefficients are
+in the table's original units (``coefficients``) and on predictors
+standardized by weighted mean and weighted population SD
+(``coefficients_standardized``).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from regbench.models.results import model_label
+
+#: The objective, in the words the README and help use.
+OBJECTIVE = ("minimise (1/(2W))·Σ wᵢ(yᵢ − b₀ − x̃ᵢβ)² + α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²), "
+             "x̃ = predictors standardized by weighted mean and weighted population SD, W = Σwᵢ")
+
+
+def _num(v):
+    """A float for JSON, None for NaN or ±inf."""
+    if v is None:
+        return None
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+def _by_column(columns, values) -> dict:
+    return {c: _num(v) for c, v in zip(columns, np.asarray(values, dtype=float))}
+
+
+def _ols_json(results) -> dict:
+    from regbench.models.ols import set_aside_sentence
+
+    o = results.ols
+    cols = o.columns
+    set_aside = []
+    for sa in o.set_aside:
+        set_aside.append({
+            "column": sa.column,
+            "combination": {k: _num(v) for k, v in sa.combination.items()},
+            "intercept": _num(sa.intercept),
+            "residual": _num(sa.residual),
+            "alternatives": list(sa.alternatives),
+            "sentence": set_aside_sentence(sa),
+        })
+    return {
+        "intercept": _num(o.model.intercept),
+        "coefficients": _by_column(cols, o.model.coef),
+        "coefficients_standardized": _by_column(cols, o.model.coef_std),
+        "std_errors": _by_column(cols, o.std_errors),
+        "p_values": _by_column(cols, o.p_values),
+        "r_squared": _num(o.r_squared),
+        "adj_r_squared": _num(o.adj_r_squared),
+        "residual_sd": _num(o.residual_sd),
+        "set_aside": set_aside,
+    }
+
+
+def _penalized_json(pf, columns) -> dict:
+    m = pf.model
+    out = {
+        "intercept": _num(m.intercept),
+        "coefficients": _by_column(columns, m.coef),
+        "coefficients_standardized": _by_column(columns, m.coef_std),
+        "alpha": _num(pf.alpha),
+        "l1_ratio": _num(pf.l1_ratio),
+        "alpha_rule": pf.alpha_rule,
+        "path": {
+            "alphas": [_num(a) for a in pf.path.alphas],
+            "coefficients": {c: [_num(v) for v in pf.path.coef[:, j]] for j, c in enumerate(columns)},
+        },
+        "cv": None,
+    }
+    if pf.cv is not None:
+        cv = pf.cv
+        out["cv"] = {
+            "alphas": [_num(a) for a in cv.alphas],
+            "mean": [_num(v) for v in cv.mean],
+            "se": [_num(v) for v in cv.se],
+            "alpha_min": _num(cv.alpha_min),
+            "alpha_1se": _num(cv.alpha_1se),
+            "folds": int(cv.n_folds),
+            "grouped": bool(cv.grouped),
+        }
+    return out
+
+
+def fit_to_json(design, results) -> dict:
+    """Everything ``fit_all`` produced, as strict-JSON data.
+
+    Parameters
+    ----------
+    design : Design
+    results : FitResults
+
+    Returns
+    -------
+    dict
+        Keys ``rows_used``, ``rows_excluded``, ``unusable``, ``models``
+        (``ols``, ``ridge``, ``lasso``, ``elastic_net`` and any further
+        elastic nets), ``diagnostics`` and ``settings``.
+    """
+    columns = tuple(results.columns)
+    models = {"ols": _ols_json(results)}
+    for name, pf in results.penalized.items():
+        models[name] = _penalized_json(pf, columns)
+    d = results.diagnostics
+    return {
+        "rows_used": int(design.n),
+        "rows_excluded": [e.to_dict() for e in design.excluded],
+        "unusable": [u.to_dict() for u in design.unusable],
+        "models": models,
+        "diagnostics": {
+            "vif": _by_column(d.columns, d.vif),
+            "condition_indices": [_num(v) for v in d.condition_indices],
+            "near_dependencies": [nd.sentence for nd in d.near_dependencies],
+        },
+        "settings": results.settings.to_dict(),
+    }
+
+
+def _fmt(v) -> str:
+    if v is None or not math.isfinite(v):
+        return "–"
+    if v == 0:
+        return "0"
+    return f"{v:.4g}"
+
+
+def fit_summary_text(design, results) -> str:
+    """A plain-text summary of the fit, in the order a reader asks about it."""
+    from regbench.models.ols import set_aside_sentence
+
+    lines = []
+    extra = []
+    if design.weights_column:
+        extra.append(f"rows weighted by {design.weights_column}")
+    if design.groups_column:
+        extra.append(f"{len(design.group_labels)} groups in {design.groups_column}")
+    head = f"Target {design.target}: {design.n} rows used, {len(design.excluded)} left out"
+    lines.append(head + (f"; {', '.join(extra)}" if extra else "") + ".")
+    if design.excluded:
+        lines.append("")
+        lines.append("Rows left out")
+        for e in design.excluded[:20]:
+            lines.append(f"  row {e.row}, {e.column}: {e.reason}")
+        if len(design.excluded) > 20:
+            lines.append(f"  … and {len(design.excluded) - 20} more (see the JSON output)")
+    if design.unusable:
+        lines.append("")
+        lines.append("Columns not used")
+        for u in design.unusable:
+            lines.append(f"  {u.column}: {u.reason}")
+
+    lines.append("")
+    lines.append("What overlaps")
+    if results.ols.set_aside:
+        for sa in results.ols.set_aside:
+            lines.append(f"  • {set_aside_sentence(sa)}")
+    for s in results.diagnostics.sentences:
+        lines.append(f"  • {s}")
+    if not results.ols.set_aside and not results.diagnostics.sentences:
+        lines.append("  • No strong overlap between the predictors was found.")
+
+    names = list(results.models())
+    models = results.models()
+    labels = [model_label(n) for n in names]
+    set_aside = {sa.column for sa in results.ols.set_aside}
+    width = max([len("(intercept)")] + [len(c) for c in results.columns]) + 2
+    colw = max(12, max(len(l) for l in labels) + 2)
+    lines.append("")
+    lines.append("Coefficients in the table's units (– : not used by that model)")
+    lines.append(" " * (width + 2) + "".join(l.rjust(colw) for l in labels))
+    lines.append("  " + "(intercept)".ljust(width) + "".join(_fmt(models[n].intercept).rjust(colw) for n in names))
+    for j, c in enumerate(results.columns):
+        cells = []
+        for n in names:
+            if n == "ols" and c in set_aside:
+                cells.append("set aside".rjust(colw))
+            else:
+                v = float(models[n].coef[j])
+                cells.append(("–" if v == 0.0 else _fmt(v)).rjust(colw))
+        lines.append("  " + c.ljust(width) + "".join(cells))
+    lines.append("  " + "columns used".ljust(width) + "".join(str(int(models[n].used.sum())).rjust(colw) for n in names))
+
+    lines.append("")
+    o = results.ols
+    lines.append(f"OLS: R² {_fmt(o.r_squared)}, adjusted R² {_fmt(o.adj_r_squared)}, residual SD {_fmt(o.residual_sd)}.")
+    k = results.settings.folds
+    kind = "grouped " if design.groups is not None else ""
+    lines.append(f"Penalties (α), {k}-fold {kind}cross-validation:")
+    rules = {"fixed": "fixed by the settings", "cv_min": "lowest CV error", "cv_1se": "largest α within one SE of the lowest"}
+    for name, pf in results.penalized.items():
+        cv_txt = ""
+        if pf.cv is not None:
+            i = int(np.argmin(np.abs(np.log(pf.cv.alphas) - np.log(pf.alpha))))
+            cv_txt = f", held-out RMSE {_fmt(math.sqrt(max(pf.cv.mean[i], 0.0)))} (at the nearest grid α)"
+        lines.append(f"  {model_label(name)}: α {_fmt(pf.alpha)} ({rules.get(pf.alpha_rule, pf.alpha_rule)}), "
+                     f"L1 ratio {_fmt(pf.l1_ratio)}{cv_txt}")
+    lines.append("")
+    lines.append("Penalty objective: " + OBJECTIVE + ".")
+    lines.append("These are associations, not causes; judge models on held-out groups; "
+                 "a model is only as good as its inputs.")
+    return "\n".join(lines)
