@@ -1,0 +1,670 @@
+"""The stress test: damage one input column and measure how each model's predictions move.
+
+The fitted models stay as they are; one chosen predictor is damaged in the rows
+being predicted, and each model's predictions on the damaged rows are compared
+with its own predictions on the clean rows and with the target.
+
+Kinds of damage and what ``strength`` means (defaults in brackets):
+
+``shuffle``  [1]     share of rows whose values are permuted among themselves
+``noise``    [1]     Gaussian noise of ``strength`` × the column's weighted SD is added
+``constant`` [–]     the column is frozen at its weighted mean, or at ``fill``
+``rescale``  [1.8]   values are multiplied by ``strength`` (a unit slip such as °C read
+                     as °F), plus ``fill`` as an offset when given
+``wild``     [0.05]  share of rows replaced by extreme values, mean ± 10 weighted SDs
+                     (sign drawn at random)
+``missing``  [0.1]   share of rows lost and filled with the weighted mean, or ``fill``
+
+A categorical predictor named by its table column (e.g. ``variety``) damages
+all its one-hot design columns together: a shuffle moves whole rows of the
+block, so each damaged row still has exactly one level.
+
+All statistics are weighted by ``design.weights``.  A prediction has *moved*
+when it shifts by more than the tolerance, by default 0.1 × the weighted SD of
+the target (our choice).  A model that does not use the damaged column does
+not move at all, bit for bit: ``LinearModel.predict`` multiplies only the
+columns a model uses, so even NaN or inf in an unused column cannot reach a
+prediction.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+from typing import Optional
+
+import numpy as np
+
+from regbench.analysis.agreement import fmt, in_sentence, json_number, weighted_mean, weighted_rms, weighted_sd
+from regbench.errors import DataError
+from regbench.models.results import model_label
+from regbench.progress import check, report
+
+KINDS = ("shuffle", "noise", "constant", "rescale", "wild", "missing")
+DEFAULT_STRENGTH = {"shuffle": 1.0, "noise": 1.0, "constant": None, "rescale": 1.8, "wild": 0.05, "missing": 0.1}
+#: Kinds whose strength is a share of rows (0..1).
+SHARE_KINDS = ("shuffle", "wild", "missing")
+#: How far out a wild value lies, in weighted SDs from the weighted mean.
+WILD_SDS = 10.0
+#: Default tolerance as a share of the target's weighted SD.
+TOLERANCE_SHARE = 0.1
+#: Strengths a sweep uses when none are given.
+DEFAULT_SWEEP = {
+    "shuffle": np.linspace(0.0, 1.0, 11),
+    "noise": np.array([0.0, 0.1, 0.25, 0.5, 0.75, 1.0, 1.5, 2.0, 3.0]),
+    "rescale": np.array([0.5, 0.75, 0.9, 1.0, 1.1, 1.25, 1.5, 1.8, 2.0]),
+    "wild": np.array([0.0, 0.01, 0.02, 0.05, 0.1, 0.2]),
+    "missing": np.linspace(0.0, 1.0, 11),
+}
+
+
+def _fill_to_json(v):
+    if v is None:
+        return None
+    v = float(v)
+    return v if math.isfinite(v) else str(v)
+
+
+@dataclass(frozen=True)
+class StressConfig:
+    """What to damage and how.
+
+    Attributes
+    ----------
+    column : str
+        A design column, or a table column (all its design columns are damaged together).
+    kind : {'shuffle', 'noise', 'constant', 'rescale', 'wild', 'missing'}
+    strength : float or None
+        Kind-specific (see the module notes); None: the kind's default.
+    seed : int
+    tolerance : float or None
+        A prediction 'moved' when it shifts by more than this; None: 0.1 × weighted SD of the target.
+    fill : float or None
+        The constant for 'constant' and 'missing', the offset for 'rescale'.
+    """
+
+    column: str
+    kind: str
+    strength: Optional[float] = None
+    seed: int = 0
+    tolerance: Optional[float] = None
+    fill: Optional[float] = None
+
+    def __post_init__(self):
+        if self.kind not in KINDS:
+            raise DataError(f"stress kind '{self.kind}' is unknown; choose one of: {', '.join(KINDS)}")
+        if self.tolerance is not None and not (self.tolerance >= 0 and math.isfinite(self.tolerance)):
+            raise DataError(f"stress tolerance {self.tolerance!r} must be a number >= 0")
+
+    def resolved_strength(self) -> Optional[float]:
+        """The strength in use (the kind's default when none was given), checked."""
+        s = DEFAULT_STRENGTH[self.kind] if self.strength is None else float(self.strength)
+        if self.kind == "constant":
+            return None
+        if not math.isfinite(s):
+            raise DataError(f"stress strength for '{self.kind}' must be a finite number, not {s!r}")
+        if self.kind in SHARE_KINDS and not 0.0 <= s <= 1.0:
+            raise DataError(f"stress strength for '{self.kind}' is a share of rows; give a value between 0 and 1, not {s:g}")
+        if self.kind == "noise" and s < 0:
+            raise DataError(f"stress strength for 'noise' is a number of SDs; give a value >= 0, not {s:g}")
+        return s
+
+    def to_dict(self) -> dict:
+        return {"column": self.column, "kind": self.kind, "strength": self.strength, "seed": int(self.seed),
+                "tolerance": self.tolerance, "fill": _fill_to_json(self.fill)}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "StressConfig":
+        for key in ("column", "kind"):
+            if key not in d:
+                raise DataError(f"stress configuration has no '{key}' field")
+
+        def num(key):
+            v = d.get(key)
+            if v is None:
+                return None
+            try:
+                return float(v)
+            except (TypeError, ValueError):
+                raise DataError(f"stress configuration field '{key}' must be a number, not {v!r}") from None
+
+        return cls(column=str(d["column"]), kind=str(d["kind"]), strength=num("strength"),
+                   seed=int(d.get("seed", 0)), tolerance=num("tolerance"), fill=num("fill"))
+
+
+@dataclass(frozen=True)
+class ModelShift:
+    """How one model's predictions moved (all weighted).
+
+    ``shift_rmse`` and ``mean_shift`` are of damaged − clean predictions;
+    ``moved_share`` the weighted share of rows that moved by more than the
+    tolerance; ``error_clean`` and ``error_damaged`` the weighted RMSE against
+    the target before and after the damage.
+    """
+
+    shift_rmse: float
+    mean_shift: float
+    moved_share: float
+    error_clean: float
+    error_damaged: float
+    uses_column: bool = True
+
+    def to_dict(self) -> dict:
+        d = {k: json_number(getattr(self, k)) for k in
+             ("shift_rmse", "mean_shift", "moved_share", "error_clean", "error_damaged")}
+        d["uses_column"] = bool(self.uses_column)
+        return d
+
+
+@dataclass(frozen=True)
+class StressResult:
+    """One stress test.
+
+    Attributes
+    ----------
+    config : StressConfig
+    column : str
+        The damaged column as named in the configuration.
+    columns : tuple of str
+        The design columns that were damaged.
+    kind : str
+    strength : float or None
+        The strength used (defaults resolved).
+    tolerance : float
+        The tolerance used.
+    models : tuple of str
+    shifts : dict of str -> ModelShift
+    row_shift : dict of str -> ndarray (n,)
+        Per design row, damaged − clean prediction.
+    refit : bool
+        True when the models were retrained on damaged data (``stress_refit``).
+    target : str
+    sentences : tuple of str
+    """
+
+    config: StressConfig
+    column: str
+    columns: tuple
+    kind: str
+    strength: Optional[float]
+    tolerance: float
+    models: tuple
+    shifts: dict
+    row_shift: dict
+    refit: bool
+    target: str
+    sentences: tuple
+
+    def to_dict(self) -> dict:
+        return {
+            "config": self.config.to_dict(), "column": self.column, "columns": list(self.columns),
+            "kind": self.kind, "strength": self.strength, "tolerance": json_number(self.tolerance),
+            "refit": self.refit, "target": self.target, "models": {k: self.shifts[k].to_dict() for k in self.models},
+            "sentences": list(self.sentences),
+        }
+
+
+@dataclass(frozen=True)
+class StressSweep:
+    """Shift and error per model over a range of strengths of one kind of damage."""
+
+    column: str
+    kind: str
+    strengths: np.ndarray
+    shift_rmse: dict  # name -> ndarray (len(strengths),)
+    error_damaged: dict
+    moved_share: dict
+    models: tuple
+    tolerance: float
+    sentences: tuple
+
+    def to_dict(self) -> dict:
+        arr = lambda a: [json_number(v) for v in a]  # noqa: E731
+        return {"column": self.column, "kind": self.kind, "strengths": arr(self.strengths),
+                "models": list(self.models), "tolerance": json_number(self.tolerance),
+                "shift_rmse": {k: arr(v) for k, v in self.shift_rmse.items()},
+                "error_damaged": {k: arr(v) for k, v in self.error_damaged.items()},
+                "moved_share": {k: arr(v) for k, v in self.moved_share.items()},
+                "sentences": list(self.sentences)}
+
+
+@dataclass(frozen=True)
+class ColumnRanking:
+    """Each source column damaged in turn: how far each model moves.
+
+    ``shift_rmse`` and ``error_damaged`` are (models × columns); ``order`` gives,
+    per model, the columns from the one that moves it most to the least.
+    """
+
+    columns: tuple
+    models: tuple
+    kind: str
+    strength: Optional[float]
+    seed: int
+    shift_rmse: np.ndarray
+    error_damaged: np.ndarray
+    error_clean: dict
+    order: dict
+    sentences: tuple
+
+    def to_dict(self) -> dict:
+        return {
+            "kind": self.kind, "strength": self.strength, "seed": int(self.seed), "columns": list(self.columns),
+            "models": {
+                k: {"shift_rmse": {c: json_number(self.shift_rmse[i, j]) for j, c in enumerate(self.columns)},
+                    "error_damaged": {c: json_number(self.error_damaged[i, j]) for j, c in enumerate(self.columns)},
+                    "error_clean": json_number(self.error_clean[k]),
+                    "order": list(self.order[k])}
+                for i, k in enumerate(self.models)
+            },
+            "sentences": list(self.sentences),
+        }
+
+
+# -- damage -------------------------------------------------------------------------------
+
+
+def resolve_column(design, column: str) -> np.ndarray:
+    """Indices of the design columns to damage for ``column`` (a design or a table column name)."""
+    if column in design.columns:
+        return np.array([design.columns.index(column)])
+    idx = [j for j, s in enumerate(design.sources) if s == column]
+    if idx:
+        return np.array(idx)
+    sources = list(dict.fromkeys(design.sources))
+    extra = [c for c in design.columns if c not in sources]
+    msg = f"'{column}' is not a predictor of this design; choose one of: {', '.join(sources)}"
+    if extra:
+        msg += f" (or a single coded level: {', '.join(extra)})"
+    raise DataError(msg)
+
+
+def damage_block(design, idx: np.ndarray, config: StressConfig) -> np.ndarray:
+    """The damaged values of design columns ``idx`` (an (n, k) copy); the design is untouched."""
+    strength = config.resolved_strength()
+    rng = np.random.default_rng(config.seed)
+    block = design.X[:, idx].copy()
+    w = design.weights
+    n = block.shape[0]
+    mean = np.array([weighted_mean(block[:, j], w) for j in range(block.shape[1])])
+    kind = config.kind
+    fill = None if config.fill is None else float(config.fill)
+
+    def some_rows(share):
+        m = int(round(share * n))
+        if m >= n:
+            return np.arange(n)
+        return np.sort(rng.choice(n, size=m, replace=False))
+
+    if kind == "shuffle":
+        rows = some_rows(strength)
+        block[rows] = block[rows[rng.permutation(rows.size)]]
+    elif kind == "noise":
+        sd = np.array([weighted_sd(block[:, j], w) for j in range(block.shape[1])])
+        block += strength * sd * rng.standard_normal(block.shape)
+    elif kind == "constant":
+        block[:] = mean if fill is None else fill
+    elif kind == "rescale":
+        block *= strength
+        if fill is not None:
+            block += fill
+    elif kind == "wild":
+        sd = np.array([weighted_sd(block[:, j], w) for j in range(block.shape[1])])
+        rows = some_rows(strength)
+        sign = rng.choice((-1.0, 1.0), size=(rows.size, 1))
+        block[rows] = mean + sign * WILD_SDS * sd
+    elif kind == "missing":
+        rows = some_rows(strength)
+        block[rows] = mean if fill is None else fill
+    return block
+
+
+def damaged_design(design, config: StressConfig):
+    """A copy of the design with the configured column(s) damaged."""
+    idx = resolve_column(design, config.column)
+    X = design.X.copy()
+    X[:, idx] = damage_block(design, idx, config)
+    return replace(design, X=X)
+
+
+def default_tolerance(design) -> float:
+    """0.1 × the weighted SD of the target."""
+    return TOLERANCE_SHARE * weighted_sd(design.y, design.weights)
+
+
+# -- measuring ----------------------------------------------------------------------------
+
+
+def _shift(design, clean: np.ndarray, damaged: np.ndarray, tol: float, uses: bool, error_clean=None) -> ModelShift:
+    w = design.weights
+    # Damage may be extreme on purpose (inf, 1e300): overflow to inf is the honest answer.
+    with np.errstate(over="ignore", invalid="ignore"):
+        d = damaged - clean
+        # A NaN prediction counts as moved.
+        moved = ~(np.abs(d) <= tol)
+        return ModelShift(
+            shift_rmse=weighted_rms(d, w),
+            mean_shift=weighted_mean(d, w),
+            moved_share=float(w[moved].sum() / w.sum()),
+            error_clean=weighted_rms(clean - design.y, w) if error_clean is None else error_clean,
+            error_damaged=weighted_rms(damaged - design.y, w),
+            uses_column=uses,
+        )
+
+
+def _uses(model, idx) -> bool:
+    return bool(np.any(model.coef[idx] != 0.0))
+
+
+def run_stress(design, models: dict, config: StressConfig) -> StressResult:
+    """Damage one column in the rows being predicted; the models stay fixed.
+
+    Parameters
+    ----------
+    design : Design
+    models : dict of str -> LinearModel
+    config : StressConfig
+
+    Returns
+    -------
+    StressResult
+    """
+    idx = resolve_column(design, config.column)
+    strength = config.resolved_strength()
+    tol = default_tolerance(design) if config.tolerance is None else float(config.tolerance)
+    Xd = design.X.copy()
+    Xd[:, idx] = damage_block(design, idx, config)
+    shifts, rows = {}, {}
+    for name, m in models.items():
+        clean = m.predict(design.X)
+        damaged = m.predict(Xd)
+        rows[name] = damaged - clean
+        shifts[name] = _shift(design, clean, damaged, tol, _uses(m, idx))
+    names = tuple(models)
+    sentences = _stress_sentences(design, config, strength, tol, names, shifts, refit=False)
+    return StressResult(config=config, column=config.column, columns=tuple(design.columns[j] for j in idx),
+                        kind=config.kind, strength=strength, tolerance=tol, models=names, shifts=shifts,
+                        row_shift=rows, refit=False, target=design.target, sentences=sentences)
+
+
+def _damage_words(design, config, strength) -> str:
+    c = config.column
+    k = config.kind
+    if k == "shuffle":
+        return f"{c} is shuffled" if strength >= 1 else f"{strength:.0%} of {c}'s rows are shuffled"
+    if k == "noise":
+        return f"noise of {fmt(strength)} SD is added to {c}"
+    if k == "constant":
+        if config.fill is not None:
+            return f"{c} is frozen at {fmt(config.fill)}"
+        return f"{c} is frozen at its mean"
+    if k == "rescale":
+        off = "" if config.fill is None else f" and shifted by {fmt(config.fill)}"
+        return f"{c} is multiplied by {fmt(strength)}{off}"
+    if k == "wild":
+        return f"{strength:.0%} of {c}'s rows get wild values (mean ± {WILD_SDS:g} SD)"
+    fill = "its mean" if config.fill is None else fmt(config.fill)
+    return f"{strength:.0%} of {c}'s rows are lost and filled with {fill}"
+
+
+def _join(items) -> str:
+    items = list(items)
+    if len(items) <= 1:
+        return "".join(items)
+    return ", ".join(items[:-1]) + " and " + items[-1]
+
+
+def _stress_sentences(design, config, strength, tol, names, shifts, refit: bool) -> tuple:
+    what = _damage_words(design, config, strength)
+    movers = [k for k in names if shifts[k].shift_rmse != 0.0 or not np.isfinite(shifts[k].shift_rmse)]
+    still = [k for k in names if k not in movers]
+    if refit:
+        lead = f"When the models are retrained on data where {what}, "
+        on = " on the clean rows"
+    else:
+        lead = f"When {what}, "
+        on = ""
+    parts = []
+    for i, k in enumerate(movers):
+        v = shifts[k].shift_rmse
+        label = model_label(k) if i == 0 else in_sentence(model_label(k))
+        if not np.isfinite(v):
+            parts.append(f"{label} predictions{on} become undefined")
+        elif i == 0:
+            parts.append(f"{label} predictions{on} move by {fmt(v)} RMS")
+        else:
+            parts.append(f"{label} by {fmt(v)}")
+    first = lead + _join(parts) if parts else lead
+    if still:
+        labels = [in_sentence(model_label(k)) for k in still]
+        if not parts:
+            labels[0] = model_label(still[0])
+        unused = [k for k in still if not shifts[k].uses_column]
+        if len(unused) == len(still) and not refit:
+            verb = "does" if len(still) == 1 else "do"
+            clause = f"{_join(labels)} {verb} not use {config.column} and {verb} not move at all"
+        else:
+            clause = f"{_join(labels)} {'does' if len(still) == 1 else 'do'} not move at all"
+        first += ("; " if parts else "") + clause
+    out = [first + "."]
+    finite = [k for k in names if np.isfinite(shifts[k].error_damaged)]
+    if movers and finite:
+        worst = max(movers, key=lambda k: shifts[k].shift_rmse if np.isfinite(shifts[k].shift_rmse) else np.inf)
+        s = shifts[worst]
+        if np.isfinite(s.error_damaged):
+            out.append(f"{model_label(worst)}'s error against {design.target} goes from {fmt(s.error_clean)} to "
+                       f"{fmt(s.error_damaged)}, and {s.moved_share:.0%} of its predictions move by more than "
+                       f"{fmt(tol)}.")
+        best = min(finite, key=lambda k: shifts[k].error_damaged)
+        if len(names) > 1:
+            out.append(f"After the damage the most accurate model is {in_sentence(model_label(best))} "
+                       f"(error {fmt(shifts[best].error_damaged)}).")
+    out.append(f"A prediction counts as moved when it shifts by more than {fmt(tol)}"
+               + (" (0.1 × the SD of the target)." if config.tolerance is None else "."))
+    return tuple(out)
+
+
+# -- sweep and ranking --------------------------------------------------------------------
+
+
+def _delta_predictions(model, idx, block_clean, block_damaged, clean_pred):
+    """Damaged predictions from the clean ones: only the model's used columns among ``idx`` enter."""
+    used = idx[model.coef[idx] != 0.0]
+    if used.size == 0:
+        return clean_pred
+    sel = np.isin(idx, used)
+    return clean_pred + (block_damaged[:, sel] - block_clean[:, sel]) @ model.coef[used]
+
+
+def stress_sweep(design, models: dict, column: str, kind: str, strengths=None, seed: int = 0,
+                 tolerance: Optional[float] = None, fill: Optional[float] = None) -> StressSweep:
+    """Run one kind of damage at a range of strengths (same seed each time).
+
+    Returns
+    -------
+    StressSweep
+        Per model, shift RMS, error against the target and share of rows moved, per strength.
+    """
+    if kind == "constant":
+        raise DataError("the 'constant' stress has no strength to sweep; run it once, or sweep another kind")
+    strengths = DEFAULT_SWEEP[kind] if strengths is None and kind in DEFAULT_SWEEP else np.asarray(strengths, float)
+    if strengths is None or np.ndim(strengths) != 1 or len(strengths) == 0:
+        raise DataError("a stress sweep needs at least one strength")
+    idx = resolve_column(design, column)
+    tol = default_tolerance(design) if tolerance is None else float(tolerance)
+    names = tuple(models)
+    clean = {k: m.predict(design.X) for k, m in models.items()}
+    block = design.X[:, idx]
+    out = {k: np.empty((3, len(strengths))) for k in names}
+    for i, s in enumerate(strengths):
+        cfg = StressConfig(column, kind, strength=float(s), seed=seed, tolerance=tol, fill=fill)
+        bd = damage_block(design, idx, cfg)
+        for k in names:
+            dm = _delta_predictions(models[k], idx, block, bd, clean[k])
+            ms = _shift(design, clean[k], dm, tol, _uses(models[k], idx))
+            out[k][:, i] = ms.shift_rmse, ms.error_damaged, ms.moved_share
+    sentences = []
+    end = float(strengths[-1])
+    ranked = sorted(names, key=lambda k: -out[k][0, -1])
+    if ranked:
+        top = ranked[0]
+        sentences.append(f"At the strongest {kind} of {column} (strength {fmt(end)}), {in_sentence(model_label(top))} "
+                         f"moves most ({fmt(out[top][0, -1])} RMS)"
+                         + (f" and {in_sentence(model_label(ranked[-1]))} least ({fmt(out[ranked[-1]][0, -1])})."
+                            if len(ranked) > 1 else "."))
+    return StressSweep(column=column, kind=kind, strengths=np.asarray(strengths, float).copy(),
+                       shift_rmse={k: out[k][0].copy() for k in names},
+                       error_damaged={k: out[k][1].copy() for k in names},
+                       moved_share={k: out[k][2].copy() for k in names},
+                       models=names, tolerance=tol, sentences=tuple(sentences))
+
+
+def rank_columns(design, models: dict, kind: str = "shuffle", strength: Optional[float] = None, seed: int = 0,
+                 progress=None, cancel=None) -> ColumnRanking:
+    """Damage every source column in turn and rank the columns by how far each model moves.
+
+    Categorical predictors are damaged as a whole block.  Progress is reported per
+    column and ``cancel`` is checked between columns.
+    """
+    columns = tuple(dict.fromkeys(design.sources))
+    names = tuple(models)
+    clean = {k: m.predict(design.X) for k, m in models.items()}
+    w = design.weights
+    err_clean = {k: weighted_rms(clean[k] - design.y, w) for k in names}
+    shift = np.zeros((len(names), len(columns)))
+    err = np.zeros_like(shift)
+    tol = default_tolerance(design)
+    for j, col in enumerate(columns):
+        check(cancel)
+        report(progress, j, len(columns), f"stress test: {kind} {col}")
+        idx = resolve_column(design, col)
+        cfg = StressConfig(col, kind, strength=strength, seed=seed)
+        bd = damage_block(design, idx, cfg)
+        block = design.X[:, idx]
+        for i, k in enumerate(names):
+            dm = _delta_predictions(models[k], idx, block, bd, clean[k])
+            ms = _shift(design, clean[k], dm, tol, _uses(models[k], idx), error_clean=err_clean[k])
+            shift[i, j] = ms.shift_rmse
+            err[i, j] = ms.error_damaged
+    report(progress, len(columns), len(columns), "stress test done")
+    order = {}
+    for i, k in enumerate(names):
+        key = np.where(np.isfinite(shift[i]), shift[i], np.inf)
+        order[k] = tuple(columns[j] for j in np.argsort(-key, kind="stable"))
+    sentences = []
+    for i, k in enumerate(names):
+        top = [c for c in order[k][:3] if shift[i, columns.index(c)] != 0.0]
+        zero = [c for j, c in enumerate(columns) if shift[i, j] == 0.0]
+        if not top:
+            sentences.append(f"{model_label(k)} does not move whichever column is damaged.")
+            continue
+        first = top[0]
+        txt = f"{model_label(k)} moves most when {first} is damaged ({fmt(shift[i, columns.index(first)])} RMS)"
+        if len(top) > 1:
+            txt += ", then " + _join(f"{c} ({fmt(shift[i, columns.index(c)])})" for c in top[1:])
+        if zero:
+            txt += f"; it does not move at all for {len(zero)} column{'s' if len(zero) != 1 else ''} it does not use"
+        sentences.append(txt + ".")
+    return ColumnRanking(columns=columns, models=names, kind=kind,
+                         strength=StressConfig(columns[0], kind, strength).resolved_strength(), seed=seed,
+                         shift_rmse=shift, error_damaged=err, error_clean=err_clean, order=order,
+                         sentences=tuple(sentences))
+
+
+# -- retraining on damaged data -----------------------------------------------------------
+
+
+def stress_refit(design, settings, alphas: dict, config: StressConfig) -> StressResult:
+    """Retrain every model on damaged data and predict the clean rows.
+
+    Each retrained model's predictions on the clean rows are compared with the
+    clean fit's predictions at the same α (``engine.fit_models_at``).
+    """
+    from regbench.models.engine import fit_models_at
+
+    idx = resolve_column(design, config.column)
+    strength = config.resolved_strength()
+    tol = default_tolerance(design) if config.tolerance is None else float(config.tolerance)
+    clean_models = fit_models_at(design, settings, alphas)
+    bad_models = fit_models_at(damaged_design(design, config), settings, alphas)
+    shifts, rows = {}, {}
+    for name, m in clean_models.items():
+        if name not in bad_models:
+            continue
+        clean = m.predict(design.X)
+        moved = bad_models[name].predict(design.X)
+        rows[name] = moved - clean
+        shifts[name] = _shift(design, clean, moved, tol, _uses(m, idx) or _uses(bad_models[name], idx))
+    names = tuple(shifts)
+    sentences = _stress_sentences(design, config, strength, tol, names, shifts, refit=True)
+    return StressResult(config=config, column=config.column, columns=tuple(design.columns[j] for j in idx),
+                        kind=config.kind, strength=strength, tolerance=tol, models=names, shifts=shifts,
+                        row_shift=rows, refit=True, target=design.target, sentences=sentences)
+
+
+# -- the CLI command ----------------------------------------------------------------------
+
+
+def stress_command(design, settings, column: Optional[str], all_columns: bool, kind: str,
+                   strength: Optional[float] = None, seed: int = 0, tolerance: Optional[float] = None,
+                   progress=None) -> dict:
+    """Fit every model, then stress one column (or rank all of them).
+
+    Returns
+    -------
+    dict
+        ``{"json": dict, "text": str}`` for ``regbench stress``.
+    """
+    from regbench.models.engine import fit_all
+
+    if all_columns and column:
+        raise DataError("give either --column or --all-columns, not both")
+    if not all_columns and not column:
+        sources = ", ".join(dict.fromkeys(design.sources))
+        raise DataError(f"--column is required (or --all-columns); predictors are: {sources}")
+    if column:
+        resolve_column(design, column)
+    # Check the kind and strength before the fit, so a typo fails fast.
+    StressConfig(column or design.sources[0], kind, strength, seed, tolerance).resolved_strength()
+    results = fit_all(design, settings, progress=progress)
+    models = results.models()
+    if all_columns:
+        rk = rank_columns(design, models, kind=kind, strength=strength, seed=seed, progress=progress)
+        js = {"kind": kind, "strength": rk.strength, "seed": seed, "ranking": rk.to_dict(),
+              "sentences": list(rk.sentences)}
+        return {"json": js, "text": _ranking_text(design, rk)}
+    res = run_stress(design, models, StressConfig(column, kind, strength, seed, tolerance))
+    js = {
+        "column": res.column, "columns": list(res.columns), "kind": res.kind, "strength": res.strength,
+        "seed": seed, "tolerance": json_number(res.tolerance),
+        "models": {k: res.shifts[k].to_dict() for k in res.models},
+        "sentences": list(res.sentences),
+    }
+    return {"json": js, "text": _stress_text(design, res)}
+
+
+def _stress_text(design, res: StressResult) -> str:
+    strength = "" if res.strength is None else f", strength {fmt(res.strength)}"
+    lines = [f"Stress test on {design.target}: {res.kind} {res.column}{strength}, seed {res.config.seed}; "
+             f"tolerance {fmt(res.tolerance)}", ""]
+    head = f"{'model':<28}{'shift RMS':>12}{'mean shift':>12}{'moved':>8}{'error clean':>13}{'error damaged':>15}"
+    lines.append(head)
+    for k in res.models:
+        s = res.shifts[k]
+        lines.append(f"{model_label(k):<28}{fmt(s.shift_rmse):>12}{fmt(s.mean_shift):>12}{s.moved_share:>8.0%}"
+                     f"{fmt(s.error_clean):>13}{fmt(s.error_damaged):>15}")
+    lines.append("")
+    lines.extend(res.sentences)
+    return "\n".join(lines)
+
+
+def _ranking_text(design, rk: ColumnRanking) -> str:
+    lines = [f"Stress ranking on {design.target}: {rk.kind} each column in turn (seed {rk.seed}); shift RMS per model",
+             ""]
+    width = max(len(c) for c in rk.columns) + 2
+    lines.append(f"{'column':<{width}}" + "".join(f"{model_label(k)[:14]:>16}" for k in rk.models))
+    for j, c in enumerate(rk.columns):
+        lines.append(f"{c:<{width}}" + "".join(f"{fmt(rk.shift_rmse[i, j]):>16}" for i in range(len(rk.models))))
+    lines.append("")
+    lines.extend(rk.sentences)
+    return "\n".join(lines)

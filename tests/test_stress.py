@@ -1,0 +1,300 @@
+"""The stress test: damage kinds, closed-form checks, bit-for-bit zero shift, ranking and refit."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from regbench.analysis.stress import (
+    StressConfig,
+    damage_block,
+    rank_columns,
+    resolve_column,
+    run_stress,
+    stress_refit,
+    stress_sweep,
+)
+from regbench.data import Roles, build_design, design_from_arrays, table_from_frame
+from regbench.errors import Cancelled, DataError
+from regbench.models.results import FitSettings, LinearModel
+
+
+def lm(name, intercept, coef, columns):
+    coef = np.asarray(coef, dtype=float)
+    return LinearModel(name=name, columns=tuple(columns), intercept=float(intercept), coef=coef, coef_std=coef.copy())
+
+
+def wmean(v, w):
+    return np.average(v, weights=w)
+
+
+def wsd(v, w):
+    # numpy's weighted covariance with bias=True is the weighted population variance.
+    return math.sqrt(np.cov(v, aweights=w, bias=True))
+
+
+@pytest.fixture
+def small():
+    rng = np.random.default_rng(11)
+    n = 600
+    X = rng.normal([5.0, -2.0, 100.0], [1.0, 3.0, 20.0], size=(n, 3))
+    y = 2.0 + X @ [0.7, -0.2, 0.01] + rng.normal(0, 0.4, n)
+    w = rng.uniform(0.5, 2.0, n)
+    cols = ("a", "b", "c")
+    d = design_from_arrays(X, y, cols, weights=w, target="out")
+    models = {
+        "ols": lm("ols", 2.0, [0.7, -0.2, 0.01], cols),
+        "lasso": lm("lasso", 2.3, [0.65, 0.0, 0.008], cols),  # does not use b
+        "ridge": lm("ridge", 1.9, [0.69, -0.19, 0.011], cols),
+    }
+    return d, models
+
+
+# -- bit-for-bit: a model that does not use the column cannot move -------------------------
+
+
+@pytest.mark.parametrize("kind,fill,strength", [
+    ("constant", float("nan"), None), ("constant", float("inf"), None), ("missing", float("nan"), 0.5),
+    ("missing", -float("inf"), 1.0), ("wild", None, 0.3), ("shuffle", None, None), ("rescale", 1e300, 1e300),
+])
+def test_unused_column_gives_exactly_zero_shift(small, kind, fill, strength):
+    d, models = small
+    res = run_stress(d, models, StressConfig("b", kind, strength=strength, fill=fill))
+    # Mathematical fact: lasso's prediction does not involve b, so it is unchanged bit for bit.
+    assert np.array_equal(res.row_shift["lasso"], np.zeros(d.n))
+    assert res.shifts["lasso"].shift_rmse == 0.0 and res.shifts["lasso"].mean_shift == 0.0
+    assert res.shifts["lasso"].moved_share == 0.0
+    assert res.shifts["lasso"].error_damaged == res.shifts["lasso"].error_clean
+    assert not res.shifts["lasso"].uses_column
+    assert "lasso does not use b and does not move at all" in res.sentences[0]
+    if fill is not None and not np.isfinite(fill):
+        # The models that use b get non-finite predictions; they count as moved.
+        assert not np.isfinite(res.shifts["ols"].shift_rmse)
+        assert res.shifts["ols"].moved_share > 0
+
+
+def test_nan_in_unused_column_of_the_rows_themselves(small):
+    d, models = small
+    X = d.X.copy()
+    X[:, 1] = np.nan
+    # LinearModel.predict multiplies used columns only (its documented contract).
+    assert np.array_equal(models["lasso"].predict(X), models["lasso"].predict(d.X))
+
+
+# -- closed forms -------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("share", [1.0, 0.4])
+def test_shuffle_shift_matches_closed_form(share):
+    # For a linear model, shift_i = c (x_π(i) − x_i).  Over a uniformly random
+    # permutation E[(x_π(i) − x_i)²] = 2 Var(x) (exact), and only a share of the
+    # rows is permuted: E[shift MSE] = 2 c² Var_w(x) · share when the weights do
+    # not depend on x.  (x_π − x)² has relative SD about √2, so with m permuted rows
+    # the relative sampling error is about 1.4/√m; allow 5 of those.
+    rng = np.random.default_rng(5)
+    n = 200_000
+    x = rng.normal(3.0, 2.0, n)
+    z = rng.normal(size=n)
+    w = rng.uniform(0.5, 1.5, n)
+    d = design_from_arrays(np.column_stack([x, z]), x + z, ("x", "z"), weights=w)
+    c = 0.8
+    m = lm("ols", 0.5, [c, 1.0], ("x", "z"))
+    res = run_stress(d, {"ols": m}, StressConfig("x", "shuffle", strength=share, seed=3))
+    expected = 2 * c**2 * wsd(x, w) ** 2 * share
+    rel = 5 * 1.4 / math.sqrt(share * n)
+    assert res.shifts["ols"].shift_rmse**2 == pytest.approx(expected, rel=rel)
+    # A permutation of the same values: the weighted mean shift is near 0 (within sampling error).
+    assert abs(res.shifts["ols"].mean_shift) < 5 * c * wsd(x, w) * math.sqrt(2 * share / n) + 1e-12
+
+
+def test_noise_and_rescale_closed_forms(small):
+    d, models = small
+    w = d.weights
+    res = run_stress(d, models, StressConfig("a", "noise", strength=2.0, seed=1))
+    # shift = c_a · 2 · SD_w(a) · ε with ε standard normal: RMS ≈ |c_a| · 2 · SD_w(a).
+    assert res.shifts["ols"].shift_rmse == pytest.approx(0.7 * 2 * wsd(d.X[:, 0], w), rel=0.15)
+    res = run_stress(d, models, StressConfig("a", "rescale", strength=1.8, fill=32.0))
+    # Exact: shift = c_a · (0.8 a + 32).
+    expect = 0.7 * (0.8 * d.X[:, 0] + 32.0)
+    np.testing.assert_allclose(res.row_shift["ols"], expect, rtol=1e-12)
+    assert res.shifts["ols"].mean_shift == pytest.approx(wmean(expect, w), rel=1e-12)
+
+
+def test_kinds_damage_as_documented(small):
+    d, _ = small
+    w = d.weights
+    idx = resolve_column(d, "c")
+    x = d.X[:, 2]
+    const = damage_block(d, idx, StressConfig("c", "constant"))[:, 0]
+    assert np.all(const == pytest.approx(wmean(x, w), rel=1e-12))
+    assert np.all(damage_block(d, idx, StressConfig("c", "constant", fill=7.0))[:, 0] == 7.0)
+    wild = damage_block(d, idx, StressConfig("c", "wild", strength=0.1, seed=2))[:, 0]
+    changed = wild != x
+    assert changed.sum() == round(0.1 * d.n)
+    np.testing.assert_allclose(np.abs(wild[changed] - wmean(x, w)), 10 * wsd(x, w), rtol=1e-10)
+    miss = damage_block(d, idx, StressConfig("c", "missing", strength=0.25, seed=2))[:, 0]
+    assert (miss != x).sum() == round(0.25 * d.n)
+    shuf = damage_block(d, idx, StressConfig("c", "shuffle", seed=2))[:, 0]
+    assert sorted(shuf) == sorted(x) and not np.array_equal(shuf, x)
+    # The design itself is untouched.
+    assert np.array_equal(d.X[:, 2], x)
+
+
+def test_same_seed_same_damage_different_seed_different(small):
+    d, models = small
+    a = run_stress(d, models, StressConfig("a", "shuffle", seed=4))
+    b = run_stress(d, models, StressConfig("a", "shuffle", seed=4))
+    c = run_stress(d, models, StressConfig("a", "shuffle", seed=5))
+    assert np.array_equal(a.row_shift["ols"], b.row_shift["ols"])
+    assert not np.array_equal(a.row_shift["ols"], c.row_shift["ols"])
+
+
+def test_statistics_match_direct_numpy(small):
+    d, models = small
+    res = run_stress(d, models, StressConfig("a", "noise", strength=0.5, seed=9))
+    w = d.weights
+    tol = 0.1 * wsd(d.y, w)
+    assert res.tolerance == pytest.approx(tol, rel=1e-12)
+    from regbench.analysis.stress import damaged_design
+
+    Xd = damaged_design(d, StressConfig("a", "noise", strength=0.5, seed=9)).X
+    for k, m in models.items():
+        clean = d.X @ m.coef + m.intercept
+        dam = Xd @ m.coef + m.intercept
+        s = res.shifts[k]
+        assert s.shift_rmse == pytest.approx(math.sqrt(np.average((dam - clean) ** 2, weights=w)), rel=1e-9)
+        assert s.moved_share == pytest.approx(w[np.abs(dam - clean) > tol].sum() / w.sum(), abs=1e-12)
+        assert s.error_clean == pytest.approx(math.sqrt(np.average((clean - d.y) ** 2, weights=w)), rel=1e-9)
+        assert s.error_damaged == pytest.approx(math.sqrt(np.average((dam - d.y) ** 2, weights=w)), rel=1e-9)
+
+
+# -- categorical blocks and names ---------------------------------------------------------
+
+
+@pytest.fixture
+def with_category():
+    import pandas as pd
+
+    rng = np.random.default_rng(2)
+    n = 120
+    frame = pd.DataFrame({
+        "kind": rng.choice(["red", "blue", "green"], n),
+        "x": rng.normal(size=n),
+    })
+    frame["y"] = frame["x"] + (frame["kind"] == "red") * 1.0 + rng.normal(0, 0.1, n)
+    d = build_design(table_from_frame(frame), Roles(target="y"))
+    cols = d.columns
+    assert cols == ("kind=green", "kind=red", "x")
+    return d, {"ols": lm("ols", 0.0, [0.1, 1.0, 1.0], cols), "lasso": lm("lasso", 0.0, [0.0, 0.9, 1.0], cols)}
+
+
+def test_categorical_by_table_name_damages_all_levels_jointly(with_category):
+    d, models = with_category
+    idx = resolve_column(d, "kind")
+    assert list(idx) == [0, 1]
+    block = damage_block(d, idx, StressConfig("kind", "shuffle", seed=1))
+    # Whole rows move: every damaged row is an original row of the block (at most one level set).
+    originals = {tuple(r) for r in d.X[:, idx]}
+    assert all(tuple(r) in originals for r in block)
+    assert block.sum(axis=1).max() <= 1.0
+    res = run_stress(d, models, StressConfig("kind", "shuffle", seed=1))
+    assert res.columns == ("kind=green", "kind=red")
+    # A single coded level is accepted by its design name.
+    res1 = run_stress(d, models, StressConfig("kind=green", "shuffle", seed=1))
+    assert res1.columns == ("kind=green",)
+    assert res1.shifts["lasso"].shift_rmse == 0.0  # lasso does not use kind=green
+
+
+def test_unknown_column_names_valid_ones(with_category):
+    d, models = with_category
+    with pytest.raises(DataError, match=r"'colour' is not a predictor.*kind, x.*kind=green"):
+        run_stress(d, models, StressConfig("colour", "shuffle"))
+
+
+def test_config_checks_and_round_trip():
+    with pytest.raises(DataError, match="unknown; choose one of: shuffle"):
+        StressConfig("x", "melt")
+    with pytest.raises(DataError, match="share of rows"):
+        StressConfig("x", "wild", strength=1.5).resolved_strength()
+    with pytest.raises(DataError, match="'noise'"):
+        StressConfig("x", "noise", strength=-1).resolved_strength()
+    with pytest.raises(DataError, match="tolerance"):
+        StressConfig("x", "noise", tolerance=-0.1)
+    assert StressConfig("x", "rescale").resolved_strength() == 1.8
+    assert StressConfig("x", "wild").resolved_strength() == 0.05
+    for cfg in (StressConfig("x", "missing", 0.3, 4, 0.2, float("nan")), StressConfig("v", "constant", fill=2.5),
+                StressConfig("v", "shuffle")):
+        import json
+
+        back = StressConfig.from_dict(json.loads(json.dumps(cfg.to_dict(), allow_nan=False)))
+        assert back.to_dict() == cfg.to_dict()
+    with pytest.raises(DataError, match="'strength'"):
+        StressConfig.from_dict({"column": "x", "kind": "noise", "strength": "lots"})
+
+
+# -- sweep and ranking --------------------------------------------------------------------
+
+
+def test_sweep_matches_single_runs(small):
+    d, models = small
+    sw = stress_sweep(d, models, "a", "noise", strengths=[0.0, 0.5, 2.0], seed=3)
+    assert sw.shift_rmse["ols"][0] == 0.0
+    for i, s in enumerate([0.0, 0.5, 2.0]):
+        one = run_stress(d, models, StressConfig("a", "noise", strength=s, seed=3))
+        for k in models:
+            assert sw.shift_rmse[k][i] == pytest.approx(one.shifts[k].shift_rmse, rel=1e-9, abs=1e-15)
+            assert sw.error_damaged[k][i] == pytest.approx(one.shifts[k].error_damaged, rel=1e-9)
+    with pytest.raises(DataError, match="constant"):
+        stress_sweep(d, models, "a", "constant")
+
+
+def test_ranking_matches_single_runs_with_progress_and_cancel(small, with_category):
+    d, models = small
+    calls = []
+    rk = rank_columns(d, models, "shuffle", seed=2, progress=lambda *a: calls.append(a))
+    assert rk.columns == ("a", "b", "c")
+    assert calls[-1][:2] == (3, 3) and len(calls) == 4
+    for j, col in enumerate(rk.columns):
+        one = run_stress(d, models, StressConfig(col, "shuffle", seed=2))
+        for i, k in enumerate(rk.models):
+            assert rk.shift_rmse[i, j] == pytest.approx(one.shifts[k].shift_rmse, rel=1e-9, abs=0)
+    assert rk.shift_rmse[rk.models.index("lasso"), 1] == 0.0
+    assert rk.order["lasso"][-1] == "b"
+    # Column a (c = 0.7, SD 1) moves OLS far more than c (c = 0.01, SD 20) or b.
+    assert rk.order["ols"][0] == "a"
+    dc, mc = with_category
+    assert rank_columns(dc, mc).columns == ("kind", "x")
+    seen = []
+
+    def cancel():
+        seen.append(1)
+        return len(seen) > 1
+
+    with pytest.raises(Cancelled):
+        rank_columns(d, models, cancel=cancel)
+
+
+# -- retraining on damaged data (real engine) ---------------------------------------------
+
+
+def test_refit_on_rescaled_column_matches_ols_equivariance():
+    pytest.importorskip("regbench.models.engine")
+    rng = np.random.default_rng(8)
+    n = 300
+    X = rng.normal(size=(n, 2))
+    y = 1.0 + X @ [2.0, -1.0] + rng.normal(0, 0.2, n)
+    d = design_from_arrays(X, y, ("u", "v"))
+    settings = FitSettings(alpha=0.01)
+    res = stress_refit(d, settings, {}, StressConfig("u", "rescale", strength=2.0))
+    # OLS is equivariant to rescaling a column (mathematical fact): trained on 2u it
+    # learns c/2 and the same intercept, so on clean rows it predicts c/2·u instead of c·u.
+    from regbench.models.engine import fit_models_at
+
+    c = fit_models_at(d, settings, {})["ols"].coef[0]
+    np.testing.assert_allclose(res.row_shift["ols"], (c / 2 - c) * X[:, 0], rtol=1e-8, atol=1e-10)
+    assert res.refit and "retrained" in res.sentences[0]
+    # No damage at all (share 0): the refit is the clean fit, bit for bit.
+    same = stress_refit(d, settings, {}, StressConfig("u", "shuffle", strength=0.0))
+    assert all(np.array_equal(v, np.zeros(n)) for v in same.row_shift.values())
