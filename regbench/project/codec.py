@@ -1,0 +1,236 @@
+"""A generic, code-free serializer for the frozen result dataclasses.
+
+Arrays go to ``.npy`` members (written and read with ``allow_pickle=False``);
+everything else becomes a JSON tree with a few tagged nodes::
+
+    {"$array": "results/a0003.npy"}          a numpy array member
+    {"$tuple": [...]}                         a tuple
+    {"$dict": [[key, value], ...]}            a dict (keys of any storable kind, order kept)
+    {"$float": "nan" | "inf" | "-inf"}        a float JSON cannot spell
+    {"$type": "module:Class", "fields": {}}   a frozen dataclass
+
+Reading only ever builds dataclasses from an allow-list of regbench modules,
+checks each field against its annotation, and never runs code from the file.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import importlib
+import io
+import math
+import re
+
+import numpy as np
+
+from regbench.errors import ProjectError
+
+#: Modules whose dataclasses may appear in cached results.
+_MODULE_RE = re.compile(r"^regbench\.(models|analysis)\.[a-z_][a-z0-9_]*$")
+_EXTRA_MODULES = frozenset({"regbench.data.design", "regbench.session"})
+_NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+MAX_DEPTH = 64
+
+
+def _skip_field(f: dataclasses.Field) -> bool:
+    # Fields kept out of equality (e.g. FitResults.gram, a cache of the engine) are
+    # recomputed after loading, never stored.
+    return not f.compare
+
+
+class Encoder:
+    """Turns a result object into a JSON tree plus a list of array members."""
+
+    def __init__(self, prefix: str = "results/"):
+        self.prefix = prefix
+        self.arrays: list = []  # (member name, bytes)
+
+    def encode(self, obj, where: str = "results"):
+        if obj is None or isinstance(obj, (bool, str)):
+            return obj
+        if isinstance(obj, (np.bool_,)):
+            return bool(obj)
+        if isinstance(obj, (int, np.integer)):
+            return int(obj)
+        if isinstance(obj, (float, np.floating)):
+            x = float(obj)
+            if math.isnan(x):
+                return {"$float": "nan"}
+            if math.isinf(x):
+                return {"$float": "inf" if x > 0 else "-inf"}
+            return x
+        if isinstance(obj, np.ndarray):
+            if obj.dtype.hasobject:
+                raise ProjectError(f"cannot store {where}: an array of Python objects has no safe file form")
+            name = f"{self.prefix}a{len(self.arrays):05d}.npy"
+            buf = io.BytesIO()
+            np.save(buf, np.ascontiguousarray(obj), allow_pickle=False)
+            self.arrays.append((name, buf.getvalue()))
+            return {"$array": name}
+        if isinstance(obj, tuple):
+            return {"$tuple": [self.encode(v, f"{where}[{i}]") for i, v in enumerate(obj)]}
+        if isinstance(obj, list):
+            return [self.encode(v, f"{where}[{i}]") for i, v in enumerate(obj)]
+        if isinstance(obj, dict):
+            return {"$dict": [[self.encode(k, f"{where} key"), self.encode(v, f"{where}[{k!r}]")]
+                              for k, v in obj.items()]}
+        if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+            cls = type(obj)
+            module = cls.__module__
+            if not (_MODULE_RE.match(module) or module in _EXTRA_MODULES):
+                raise ProjectError(f"cannot store {where}: {cls.__name__} is not a regbench result")
+            fields = {}
+            for f in dataclasses.fields(obj):
+                if _skip_field(f):
+                    continue
+                fields[f.name] = self.encode(getattr(obj, f.name), f"{where}.{f.name}")
+            return {"$type": f"{module}:{cls.__qualname__}", "fields": fields}
+        raise ProjectError(f"cannot store {where}: values of type {type(obj).__name__} have no file form")
+
+
+class Decoder:
+    """Rebuilds result objects from a JSON tree and loaded arrays.
+
+    Parameters
+    ----------
+    arrays : dict
+        Member name -> ndarray, already read with ``allow_pickle=False``.
+    member : str
+        The member the tree came from, for error messages.
+    """
+
+    def __init__(self, arrays: dict, member: str = "results.json"):
+        self.arrays = arrays
+        self.member = member
+        self.used: set = set()
+
+    def fail(self, where: str, what: str):
+        raise ProjectError(
+            f"{self.member}: field {where}: {what}; the cached results are damaged — "
+            "delete the results from the project (save it again from a fresh fit) or re-create it with 'regbench new'"
+        )
+
+    def decode(self, node, where: str = "results", depth: int = 0):
+        if depth > MAX_DEPTH:
+            self.fail(where, "nested too deeply")
+        if node is None or isinstance(node, (bool, str, int)):
+            return node
+        if isinstance(node, float):
+            return node
+        if isinstance(node, list):
+            return [self.decode(v, f"{where}[{i}]", depth + 1) for i, v in enumerate(node)]
+        if not isinstance(node, dict):
+            self.fail(where, f"unexpected {type(node).__name__}")
+        if len(node) == 1 and "$float" in node:
+            v = node["$float"]
+            if v not in ("nan", "inf", "-inf"):
+                self.fail(where, f"'$float' must be nan, inf or -inf, not {v!r}")
+            return float(v)
+        if len(node) == 1 and "$array" in node:
+            name = node["$array"]
+            if not isinstance(name, str) or name not in self.arrays:
+                self.fail(where, f"refers to array member {name!r}, which the project does not hold")
+            self.used.add(name)
+            return self.arrays[name]
+        if len(node) == 1 and "$tuple" in node:
+            items = node["$tuple"]
+            if not isinstance(items, list):
+                self.fail(where, "'$tuple' must be a list")
+            return tuple(self.decode(v, f"{where}[{i}]", depth + 1) for i, v in enumerate(items))
+        if len(node) == 1 and "$dict" in node:
+            pairs = node["$dict"]
+            if not isinstance(pairs, list):
+                self.fail(where, "'$dict' must be a list of [key, value] pairs")
+            out = {}
+            for i, pair in enumerate(pairs):
+                if not (isinstance(pair, list) and len(pair) == 2):
+                    self.fail(f"{where}[{i}]", "must be a [key, value] pair")
+                key = self.decode(pair[0], f"{where} key {i}", depth + 1)
+                if not isinstance(key, (str, int, float, bool, type(None), tuple)):
+                    self.fail(f"{where} key {i}", "a dict key must be a number, text or tuple")
+                out[key] = self.decode(pair[1], f"{where}[{key!r}]", depth + 1)
+            return out
+        if set(node) == {"$type", "fields"}:
+            return self._dataclass(node, where, depth)
+        self.fail(where, f"unknown object with keys {sorted(node)[:5]}")
+
+    def _dataclass(self, node, where, depth):
+        spec = node["$type"]
+        fields = node["fields"]
+        if not isinstance(spec, str) or spec.count(":") != 1:
+            self.fail(where, f"'$type' {spec!r} is not 'module:Class'")
+        module, qual = spec.split(":")
+        if not (_MODULE_RE.match(module) or module in _EXTRA_MODULES) or not _NAME_RE.match(qual):
+            self.fail(where, f"'$type' {spec!r} is not a regbench result type")
+        try:
+            mod = importlib.import_module(module)
+        except ImportError:
+            self.fail(where, f"'$type' {spec!r}: this regbench has no module {module}")
+        cls = getattr(mod, qual, None)
+        if not (isinstance(cls, type) and dataclasses.is_dataclass(cls) and cls.__module__ == module):
+            self.fail(where, f"'$type' {spec!r}: this regbench has no result type {qual}")
+        if not isinstance(fields, dict):
+            self.fail(where, "'fields' must be an object")
+        known = {f.name: f for f in dataclasses.fields(cls)}
+        unknown = set(fields) - set(known)
+        if unknown:
+            self.fail(where, f"{qual} has no field(s) {', '.join(sorted(unknown))}")
+        kwargs = {}
+        for name, f in known.items():
+            if not f.init:
+                continue
+            if name not in fields:
+                if f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING:
+                    self.fail(f"{where}.{name}", f"missing (required by {qual})")
+                continue
+            value = self.decode(fields[name], f"{where}.{name}", depth + 1)
+            _check_annotation(self, f"{where}.{name}", f.type, value)
+            kwargs[name] = value
+        try:
+            return cls(**kwargs)
+        except (TypeError, ValueError) as exc:
+            self.fail(where, f"cannot rebuild {qual} ({exc})")
+
+
+_SIMPLE = {
+    "float": (float, int), "int": (int,), "str": (str,), "bool": (bool,), "tuple": (tuple,),
+    "dict": (dict,), "list": (list,), "np.ndarray": (np.ndarray,), "ndarray": (np.ndarray,),
+}
+
+
+_TYPING_NAMES = frozenset({"Any", "Tuple", "Dict", "List", "Sequence", "Mapping", "Iterable", "Union", "Callable"})
+
+
+def _check_annotation(dec: Decoder, where: str, annotation, value) -> None:
+    """Check a decoded value against a dataclass field annotation (a string under
+    ``from __future__ import annotations``).  Unknown annotations are not checked."""
+    if not isinstance(annotation, str):
+        annotation = getattr(annotation, "__name__", str(annotation))
+    ann = annotation.replace(" ", "")
+    optional = False
+    m = re.fullmatch(r"Optional\[(.+)\]", ann)
+    if m:
+        ann, optional = m.group(1), True
+    elif ann.endswith("|None"):
+        ann, optional = ann[: -len("|None")], True
+    elif ann.startswith("None|"):
+        ann, optional = ann[len("None|"):], True
+    if value is None:
+        if optional or ann in ("object", "Any", "None"):
+            return
+        if ann in _SIMPLE or _NAME_RE.match(ann):
+            dec.fail(where, f"is empty but must be {ann}")
+        return
+    if ann in _SIMPLE:
+        types = _SIMPLE[ann]
+        if isinstance(value, bool) and bool not in types:
+            dec.fail(where, f"is true/false but must be {ann}")
+        if not isinstance(value, types):
+            dec.fail(where, f"is {type(value).__name__} but must be {ann}")
+        if ann in ("np.ndarray", "ndarray") and value.dtype.hasobject:
+            dec.fail(where, "array of objects")
+        return
+    if _NAME_RE.match(ann) and ann[0].isupper() and ann not in _TYPING_NAMES:
+        # A nested dataclass named by its class name.
+        if not (dataclasses.is_dataclass(value) and type(value).__name__ == ann):
+            dec.fail(where, f"is {type(value).__name__} but must be {ann}")

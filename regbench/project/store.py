@@ -1,0 +1,784 @@
+"""Saving and loading ``.regbench`` project files (see FORMAT.md).
+
+Loading validates every member and field before anything is built and raises
+:class:`ProjectError` naming the member, the field and what to do.  Nothing
+from the file is executed: JSON is parsed as data, arrays are read with
+``allow_pickle=False``, the table through pyarrow's Parquet reader.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+import math
+import os
+import posixpath
+import zipfile
+from datetime import datetime, timezone
+
+import numpy as np
+import pandas as pd
+
+from regbench import __version__
+from regbench.errors import ProjectError, RegbenchError
+from regbench.project.atomic import atomic_writer
+from regbench.project.migrate import FORMAT_VERSION, migrate
+
+FORMAT_NAME = "regbench-project"
+MANIFEST = "manifest.json"
+TABLE = "table.parquet"
+SESSION = "session.json"
+RESULTS = "results.json"
+RESULTS_DIR = "results/"
+
+MAX_MEMBER = 2 * 1024**3  # declared uncompressed size of any member
+BOMB_RATIO = 200  # uncompressed / compressed ...
+BOMB_SIZE = 50 * 1024**2  # ... above this size is refused
+MAX_MEMBERS = 10_000
+JSON_LIMITS = {MANIFEST: 4 * 1024**2, SESSION: 256 * 1024**2, RESULTS: 512 * 1024**2}
+
+
+def _now() -> str:
+    return datetime.now(timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+
+
+def _sha(b: bytes) -> str:
+    return hashlib.sha256(b).hexdigest()
+
+
+def _dumps(obj) -> bytes:
+    return json.dumps(obj, indent=1, ensure_ascii=False, allow_nan=False).encode("utf-8")
+
+
+# -- the table ------------------------------------------------------------------------------
+
+def table_to_parquet(table) -> bytes:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    arrays, names = [], []
+    for name in table.names:
+        info = table.columns[name]
+        col = table.frame[name]
+        if info.kind == "categorical":
+            vals = [None if (v is None or (isinstance(v, float) and math.isnan(v))) else str(v)
+                    for v in col.to_numpy(dtype=object)]
+            arrays.append(pa.array(vals, type=pa.string()))
+        else:
+            arrays.append(pa.array(col.to_numpy(dtype=np.float64), type=pa.float64(), from_pandas=False))
+        names.append(name)
+    buf = io.BytesIO()
+    pq.write_table(pa.Table.from_arrays(arrays, names=names), buf, compression="zstd")
+    return buf.getvalue()
+
+
+def table_meta(table) -> dict:
+    return {
+        "source": table.source,
+        "notes": [str(n) for n in table.notes],
+        "rows": table.n_rows,
+        "columns": [
+            {"name": i.name, "kind": i.kind, "missing": int(i.missing), "distinct": int(i.distinct),
+             "coded_categories": bool(i.coded_categories), "bad_cells": [[int(r), str(t)] for r, t in i.bad_cells]}
+            for i in (table.columns[n] for n in table.names)
+        ],
+    }
+
+
+# -- saving --------------------------------------------------------------------------------
+
+def save_project(session, path) -> None:
+    """Write ``session`` to ``path`` atomically (the old file stays whole until the new one is).
+
+    Raises
+    ------
+    ProjectError
+        When the folder does not exist or cannot be written, or a result cannot be stored.
+    """
+    from regbench.project.codec import Encoder
+
+    path = os.fspath(path)
+    members = []  # (name, bytes, compress)
+    table_bytes = table_to_parquet(session.table)
+    members.append((TABLE, table_bytes, zipfile.ZIP_STORED))
+    members.append((SESSION, _dumps(session_document(session)), zipfile.ZIP_DEFLATED))
+    if session.results is not None:
+        enc = Encoder(RESULTS_DIR)
+        doc = {
+            "table_fingerprint": session.table_hash,
+            "settings_sha256": session.settings_hash(),
+            "key": session.key(),
+            "fit": enc.encode(session.results, "results"),
+            "derived": enc.encode(session._derived(), "derived"),
+            "stability": enc.encode(session.stability, "stability"),
+            "stability_alphas": {k: float(v) for k, v in session.stability_alphas.items()},
+        }
+        members.append((RESULTS, _dumps(doc), zipfile.ZIP_DEFLATED))
+        for name, data in enc.arrays:
+            members.append((name, data, zipfile.ZIP_DEFLATED))
+    saved = _now()
+    manifest = {
+        "format": FORMAT_NAME,
+        "format_version": FORMAT_VERSION,
+        "app_version": __version__,
+        "created": getattr(session, "created", None) or saved,
+        "saved": saved,
+        "table_sha256": _sha(table_bytes),
+        "members": [{"name": n, "size": len(b), "sha256": _sha(b)} for n, b, _ in members],
+    }
+    stamp = tuple(int(x) for x in (saved[0:4], saved[5:7], saved[8:10], saved[11:13], saved[14:16], saved[17:19]))
+    with atomic_writer(path) as fh:
+        with zipfile.ZipFile(fh, "w") as zf:
+            for name, data, comp in [(MANIFEST, _dumps(manifest), zipfile.ZIP_DEFLATED)] + members:
+                info = zipfile.ZipInfo(name, date_time=stamp)
+                info.compress_type = comp
+                info.external_attr = 0o644 << 16
+                zf.writestr(info, data)
+    session.path = path
+    session.created = manifest["created"]
+    session.saved = saved
+    session.dirty = False
+    session._notify("saved", path)
+
+
+def session_document(session) -> dict:
+    from regbench.session import stress_to_dict
+
+    return {
+        "roles": session.roles.to_dict(),
+        "settings": session.settings.to_dict(),
+        "chosen_alpha": {k: float(v) for k, v in session.chosen_alpha.items()},
+        "extra_fits": session.extra_fits,
+        "stress": [stress_to_dict(c) for c in session.stress_configs],
+        "bootstrap": session.bootstrap,
+        "notes": session.notes,
+        "view_state": session.view_state,
+        "table": table_meta(session.table),
+    }
+
+
+# -- reading the archive ------------------------------------------------------------------
+
+class _Archive:
+    """A checked, opened project archive: names validated, sizes bounded, hashes verified."""
+
+    def __init__(self, path):
+        self.path = os.fspath(path)
+        self.label = os.path.basename(self.path)
+        if not os.path.exists(self.path):
+            raise ProjectError(f"{self.label}: no such file ({self.path}); check the path")
+        if os.path.isdir(self.path):
+            raise ProjectError(f"{self.label}: is a folder, not a project file")
+        try:
+            self.zf = zipfile.ZipFile(self.path)
+        except (zipfile.BadZipFile, zipfile.LargeZipFile, EOFError, ValueError, OSError) as exc:
+            raise ProjectError(f"{self.label}: not a regbench project (not a readable zip archive: {exc}); "
+                               "open a .regbench file, or load a table with 'new from table'") from None
+        self.infos = {}
+        try:
+            infolist = self.zf.infolist()
+        except Exception as exc:  # zipfile can fail lazily on damaged central directories
+            raise ProjectError(f"{self.label}: the archive's table of contents is damaged ({exc})") from None
+        if len(infolist) > MAX_MEMBERS:
+            raise ProjectError(f"{self.label}: holds {len(infolist)} members, more than a project ever has; refused")
+        for info in infolist:
+            name = info.filename
+            if (name.startswith("/") or "\\" in name or (len(name) > 1 and name[1] == ":")
+                    or ".." in name.split("/") or posixpath.normpath(name) != name.rstrip("/") or "\x00" in name):
+                raise ProjectError(f"{self.label}: member '{name}' has an unsafe path (absolute or with '..'); "
+                                   "the file is damaged or not a regbench project; refused")
+            if name in self.infos:
+                raise ProjectError(f"{self.label}: member '{name}' appears twice; the file is damaged; refused")
+            if info.file_size > MAX_MEMBER:
+                raise ProjectError(f"{self.label}: member '{name}' declares {info.file_size} bytes, "
+                                   "more than 2 GiB; refused")
+            if info.file_size > BOMB_SIZE and info.file_size > BOMB_RATIO * max(info.compress_size, 1):
+                raise ProjectError(f"{self.label}: member '{name}' would expand {info.file_size // max(info.compress_size, 1)}"
+                                   " times to over 50 MB (a zip bomb?); refused")
+            if info.flag_bits & 0x1:
+                raise ProjectError(f"{self.label}: member '{name}' is encrypted; regbench projects never are")
+            self.infos[name] = info
+
+    def close(self):
+        self.zf.close()
+
+    def raw(self, name: str, limit: int = MAX_MEMBER) -> bytes:
+        info = self.infos.get(name)
+        if info is None:
+            raise ProjectError(f"{self.label}: member '{name}' is missing; the file is damaged or incomplete")
+        if info.file_size > limit:
+            raise ProjectError(f"{self.label}: member '{name}' is {info.file_size} bytes, more than the "
+                               f"{limit} a project needs; refused")
+        try:
+            with self.zf.open(info) as fh:
+                data = fh.read(info.file_size + 1)
+        except (zipfile.BadZipFile, EOFError, OSError, ValueError, NotImplementedError, RuntimeError) as exc:
+            raise ProjectError(f"{self.label}: member '{name}' cannot be read ({exc}); the file is damaged") from None
+        except Exception as exc:  # zlib.error and friends from a damaged stream
+            raise ProjectError(f"{self.label}: member '{name}' cannot be read ({type(exc).__name__}: {exc}); "
+                               "the file is damaged") from None
+        if len(data) != info.file_size:
+            raise ProjectError(f"{self.label}: member '{name}' does not hold the size its header declares; "
+                               "the file is damaged")
+        return data
+
+    def json(self, name: str, data: bytes = None):
+        if data is None:
+            data = self.raw(name, JSON_LIMITS.get(name, MAX_MEMBER))
+        try:
+            return json.loads(data.decode("utf-8"), parse_constant=_no_constant)
+        except (UnicodeDecodeError, ValueError) as exc:
+            raise ProjectError(f"{self.label}: member '{name}' is not valid JSON ({exc}); the file is damaged") from None
+        except RecursionError:
+            raise ProjectError(f"{self.label}: member '{name}' is nested too deeply; the file is damaged") from None
+
+
+def _no_constant(name):
+    raise ValueError(f"{name} is not allowed in a project file")
+
+
+def _manifest(ar: _Archive) -> dict:
+    if MANIFEST not in ar.infos:
+        raise ProjectError(f"{ar.label}: not a regbench project (a zip archive without manifest.json); "
+                           "open a .regbench file")
+    m = ar.json(MANIFEST)
+    if not isinstance(m, dict) or m.get("format") != FORMAT_NAME:
+        found = m.get("format") if isinstance(m, dict) else None
+        raise ProjectError(f"{ar.label}: manifest.json: field format is {found!r}, not '{FORMAT_NAME}'; "
+                           "this zip was not made by regbench")
+    v = m.get("format_version")
+    if isinstance(v, bool) or not isinstance(v, int) or v < 0:
+        raise ProjectError(f"{ar.label}: manifest.json: field format_version is {v!r}, not a whole number >= 0; "
+                           "the file is damaged")
+    if v > FORMAT_VERSION:
+        raise ProjectError(f"{ar.label}: made by a newer regbench (format {v}); this version reads up to "
+                           f"{FORMAT_VERSION}; update regbench")
+    for key in ("app_version", "created", "saved", "table_sha256"):
+        if not isinstance(m.get(key), str):
+            raise ProjectError(f"{ar.label}: manifest.json: field {key} is missing or not text; the file is damaged")
+    for key in ("created", "saved"):
+        try:
+            datetime.fromisoformat(m[key].replace("Z", "+00:00"))
+        except ValueError:
+            raise ProjectError(f"{ar.label}: manifest.json: field {key} ({m[key]!r}) is not an ISO time; "
+                               "the file is damaged") from None
+    members = m.get("members")
+    if not isinstance(members, list):
+        raise ProjectError(f"{ar.label}: manifest.json: field members must be a list; the file is damaged")
+    seen = {}
+    for i, e in enumerate(members):
+        if not (isinstance(e, dict) and isinstance(e.get("name"), str) and isinstance(e.get("sha256"), str)
+                and isinstance(e.get("size"), int) and not isinstance(e.get("size"), bool) and e["size"] >= 0):
+            raise ProjectError(f"{ar.label}: manifest.json: field members[{i}] must have name, size and sha256; "
+                               "the file is damaged")
+        if e["name"] in seen or e["name"] == MANIFEST:
+            raise ProjectError(f"{ar.label}: manifest.json: field members[{i}] lists '{e['name']}' twice; "
+                               "the file is damaged")
+        seen[e["name"]] = e
+    for name in (TABLE, SESSION):
+        if name not in seen:
+            raise ProjectError(f"{ar.label}: manifest.json: field members does not list '{name}'; "
+                               "the file is damaged or incomplete")
+    for name in seen:
+        if not (name in (TABLE, SESSION, RESULTS) or (name.startswith(RESULTS_DIR) and name.endswith(".npy"))):
+            raise ProjectError(f"{ar.label}: manifest.json: field members lists unknown member '{name}'; "
+                               "this regbench does not know it; the file is damaged or foreign")
+    for name in ar.infos:
+        if name != MANIFEST and name not in seen:
+            raise ProjectError(f"{ar.label}: member '{name}' is not listed in manifest.json; the file is "
+                               "damaged or was changed by another program; refused")
+    if seen[TABLE]["sha256"] != m["table_sha256"]:
+        raise ProjectError(f"{ar.label}: manifest.json: field table_sha256 disagrees with members; "
+                           "the file is damaged")
+    m["_members"] = seen
+    return m
+
+
+def _read_checked(ar: _Archive, m: dict, name: str, limit: int = MAX_MEMBER) -> bytes:
+    entry = m["_members"][name]
+    if name not in ar.infos:
+        raise ProjectError(f"{ar.label}: member '{name}' is listed in manifest.json but missing; "
+                           "the file is damaged or incomplete")
+    data = ar.raw(name, limit)
+    if len(data) != entry["size"] or _sha(data) != entry["sha256"]:
+        raise ProjectError(f"{ar.label}: member '{name}' fails its SHA-256 check (the manifest records "
+                           f"{entry['size']} bytes, sha256 {entry['sha256'][:12]}…); the file is damaged. "
+                           "Use a backup copy, or re-create the project from its table")
+    return data
+
+
+# -- the table on load ---------------------------------------------------------------------
+
+def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field table"):
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from regbench.data.table import KINDS, ColumnInfo, Table
+
+    def bad(field, what):
+        raise ProjectError(f"{ar.label}: {where}.{field} {what}; the file is damaged")
+
+    if not isinstance(meta, dict):
+        raise ProjectError(f"{ar.label}: {where} is missing or not an object; the file is damaged")
+    cols = meta.get("columns")
+    rows = meta.get("rows")
+    if not isinstance(cols, list) or not cols:
+        bad("columns", "must be a non-empty list")
+    if isinstance(rows, bool) or not isinstance(rows, int) or rows < 1:
+        bad("rows", f"is {rows!r}, not a whole number >= 1")
+    if not isinstance(meta.get("source", ""), str):
+        bad("source", "must be text")
+    notes = meta.get("notes", [])
+    if not (isinstance(notes, list) and all(isinstance(n, str) for n in notes)):
+        bad("notes", "must be a list of text")
+    try:
+        tab = pq.read_table(pa.BufferReader(data))
+    except Exception as exc:  # pyarrow raises several types on damaged data
+        raise ProjectError(f"{ar.label}: member 'table.parquet' is not a readable Parquet table "
+                           f"({type(exc).__name__}: {str(exc)[:200]}); the file is damaged") from None
+    if tab.num_rows != rows:
+        bad("rows", f"says {rows} but table.parquet holds {tab.num_rows} rows")
+    if tab.num_columns != len(cols):
+        bad("columns", f"lists {len(cols)} columns but table.parquet holds {tab.num_columns}")
+    infos, data_cols = {}, {}
+    for j, c in enumerate(cols):
+        f = f"columns[{j}]"
+        if not isinstance(c, dict):
+            bad(f, "must be an object")
+        name = c.get("name")
+        if not isinstance(name, str) or not name:
+            bad(f + ".name", "must be a non-empty column name")
+        if name in infos:
+            bad(f + ".name", f"repeats column '{name}'")
+        if tab.column_names[j] != name:
+            bad(f + ".name", f"is '{name}' but table.parquet has '{tab.column_names[j]}' there")
+        kind = c.get("kind")
+        if kind not in KINDS:
+            bad(f + ".kind", f"is {kind!r}; known kinds are {', '.join(KINDS)}")
+        for k in ("missing", "distinct"):
+            v = c.get(k)
+            if isinstance(v, bool) or not isinstance(v, int) or not 0 <= v <= rows:
+                bad(f"{f}.{k}", f"is {v!r}, not a whole number from 0 to {rows}")
+        if not isinstance(c.get("coded_categories", False), bool):
+            bad(f + ".coded_categories", "must be true or false")
+        cells = c.get("bad_cells", [])
+        if not isinstance(cells, list):
+            bad(f + ".bad_cells", "must be a list of [row, text]")
+        for i, cell in enumerate(cells):
+            if not (isinstance(cell, list) and len(cell) == 2 and isinstance(cell[0], int)
+                    and not isinstance(cell[0], bool) and 1 <= cell[0] <= rows and isinstance(cell[1], str)):
+                bad(f"{f}.bad_cells[{i}]", "must be [row 1..rows, text]")
+        arr = tab.column(j)
+        if kind == "categorical":
+            if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
+                bad(f + ".kind", f"is categorical but table.parquet stores '{name}' as {arr.type}")
+            data_cols[name] = np.array(arr.to_pylist(), dtype=object)
+        else:
+            if not pa.types.is_float64(arr.type):
+                bad(f + ".kind", f"is {kind} but table.parquet stores '{name}' as {arr.type}")
+            data_cols[name] = arr.to_numpy(zero_copy_only=False).astype(np.float64, copy=True)
+        infos[name] = ColumnInfo(name, kind, c["missing"], c["distinct"], bool(c.get("coded_categories", False)),
+                                 tuple((int(r), str(t)) for r, t in cells))
+    # The same construction as the reader, so dtypes come back as they were.
+    frame = pd.DataFrame(data_cols, index=pd.RangeIndex(rows))
+    return Table(frame=frame, columns=infos, source=meta.get("source", ""), notes=tuple(notes))
+
+
+# -- session.json --------------------------------------------------------------------------
+
+def _session_state(ar: _Archive, doc, table):
+    from regbench.data.design import Roles, build_design
+    from regbench.models.results import FitSettings
+    from regbench.session import DataError, STRESS_KINDS, _State, check_settings, check_stress, penalized_names
+
+    label = f"{ar.label}: session.json"
+
+    def bad(field, what, todo="the file is damaged"):
+        raise ProjectError(f"{label}: field {field} {what}; {todo}")
+
+    if not isinstance(doc, dict):
+        raise ProjectError(f"{label}: the top level must be an object; the file is damaged")
+    names = set(table.names)
+    roles_d = doc.get("roles")
+    if not isinstance(roles_d, dict):
+        bad("roles", "is missing or not an object")
+    for key in ("target",):
+        if not isinstance(roles_d.get(key), str):
+            bad(f"roles.{key}", "must be a column name")
+    for key in ("weights", "groups"):
+        if roles_d.get(key) is not None and not isinstance(roles_d.get(key), str):
+            bad(f"roles.{key}", "must be a column name or empty")
+    for key in ("predictors", "categorical"):
+        v = roles_d.get(key, [])
+        if not (isinstance(v, list) and all(isinstance(x, str) for x in v)):
+            bad(f"roles.{key}", "must be a list of column names")
+    for key in ("target", "weights", "groups"):
+        if roles_d.get(key) is not None and roles_d[key] not in names:
+            bad(f"roles.{key}", f"names '{roles_d[key]}', which is not a column of the table")
+    for key in ("predictors", "categorical"):
+        for i, c in enumerate(roles_d.get(key, [])):
+            if c not in names:
+                bad(f"roles.{key}[{i}]", f"names '{c}', which is not a column of the table")
+    roles = Roles.from_dict(roles_d)
+
+    s = doc.get("settings")
+    if not isinstance(s, dict):
+        bad("settings", "is missing or not an object")
+    typed = {"folds": int, "seed": int, "n_penalties": int, "penalty_ratio": float, "alpha_rule": str}
+    for key, t in typed.items():
+        if key in s:
+            v = s[key]
+            ok = isinstance(v, t) if t is not float else isinstance(v, (int, float))
+            if isinstance(v, bool) or not ok:
+                bad(f"settings.{key}", f"is {v!r}, not {'a whole number' if t is int else 'a number' if t is float else 'text'}")
+    for key in ("alpha", "rank_tol"):
+        v = s.get(key)
+        if v is not None and (isinstance(v, bool) or not isinstance(v, (int, float))):
+            bad(f"settings.{key}", f"is {v!r}, not a number or empty")
+    for key, t in (("l1_ratios", (int, float)), ("pins", str)):
+        v = s.get(key, [])
+        if not (isinstance(v, list) and all(isinstance(x, t) and not isinstance(x, bool) for x in v)):
+            bad(f"settings.{key}", "must be a list")
+    unknown = set(s) - {"folds", "seed", "n_penalties", "penalty_ratio", "l1_ratios", "alpha", "alpha_rule",
+                        "pins", "rank_tol"}
+    if unknown:
+        bad("settings", f"has unknown key(s) {', '.join(sorted(unknown))}", "it may come from a newer regbench")
+    try:
+        settings = FitSettings.from_dict(s)
+        check_settings(settings)
+    except (DataError, ValueError, TypeError, OverflowError) as exc:
+        bad("settings", f"is out of range ({exc})")
+    design_cols = set()
+    try:
+        design = build_design(table, roles)
+        design_cols = set(design.columns)
+    except DataError as exc:
+        bad("roles", f"cannot be used on the stored table ({exc})")
+    for i, p in enumerate(settings.pins):
+        if p not in design_cols:
+            bad(f"settings.pins[{i}]", f"names '{p}', which is not a design column")
+
+    families = set(penalized_names(settings))
+
+    def positive(v):
+        return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) and v > 0
+
+    ca = doc.get("chosen_alpha", {})
+    if not isinstance(ca, dict):
+        bad("chosen_alpha", "must be an object of model name -> α")
+    for k, v in ca.items():
+        if k not in families:
+            bad(f"chosen_alpha.{k}", f"names an unknown model; known: {', '.join(sorted(families))}")
+        if not positive(v):
+            bad(f"chosen_alpha.{k}", f"is {v!r}, not a positive number")
+    extra = doc.get("extra_fits", [])
+    if not isinstance(extra, list):
+        bad("extra_fits", "must be a list")
+    seen = set(families) | {"ols"}
+    for i, e in enumerate(extra):
+        if not (isinstance(e, dict) and set(e) == {"name", "family", "alpha"}):
+            bad(f"extra_fits[{i}]", "must be an object with name, family and alpha")
+        if not isinstance(e["name"], str) or not e["name"] or e["name"] in seen:
+            bad(f"extra_fits[{i}].name", f"is {e['name']!r}: empty, not text or used twice")
+        seen.add(e["name"])
+        if e["family"] not in families:
+            bad(f"extra_fits[{i}].family", f"is {e['family']!r}; known: {', '.join(sorted(families))}")
+        if not positive(e["alpha"]):
+            bad(f"extra_fits[{i}].alpha", f"is {e['alpha']!r}, not a positive number")
+    stress = doc.get("stress", [])
+    if not isinstance(stress, list):
+        bad("stress", "must be a list")
+    configs = []
+    from regbench.session import stress_from_dict
+
+    for i, c in enumerate(stress):
+        if not (isinstance(c, dict) and "column" in c and "kind" in c):
+            bad(f"stress[{i}]", "must be an object with at least column and kind")
+        unknown = set(c) - {"column", "kind", "strength", "seed", "tolerance", "fill"}
+        if unknown:
+            bad(f"stress[{i}]", f"has unknown key(s) {', '.join(sorted(unknown))}")
+        if c["kind"] not in STRESS_KINDS:
+            bad(f"stress[{i}].kind", f"is {c['kind']!r}; known kinds: {', '.join(STRESS_KINDS)}")
+        if not isinstance(c["column"], str):
+            bad(f"stress[{i}].column", "must be a column name")
+        for key in ("strength", "tolerance", "fill"):
+            v = c.get(key)
+            if v is not None and (isinstance(v, bool) or not (isinstance(v, (int, float))
+                                                            or (key == "fill" and v in ("nan", "inf", "-inf")))):
+                bad(f"stress[{i}].{key}", f"is {v!r}, not a number or empty")
+        if c.get("seed") is not None and (isinstance(c["seed"], bool) or not isinstance(c["seed"], int)):
+            bad(f"stress[{i}].seed", f"is {c['seed']!r}, not a whole number")
+        try:
+            cfg = stress_from_dict(c)
+            check_stress(cfg, design, table)
+        except DataError as exc:
+            bad(f"stress[{i}]", f"cannot run ({exc})")
+        except (TypeError, ValueError) as exc:
+            bad(f"stress[{i}]", f"is not a valid stress test ({exc})")
+        configs.append(cfg)
+    boot = doc.get("bootstrap", 0)
+    if isinstance(boot, bool) or not isinstance(boot, int) or not 0 <= boot <= 100_000:
+        bad("bootstrap", f"is {boot!r}, not a whole number from 0 to 100000")
+    notes = doc.get("notes", "")
+    if not isinstance(notes, str):
+        bad("notes", "must be text")
+    vs = doc.get("view_state", {})
+    if not isinstance(vs, dict):
+        bad("view_state", "must be an object")
+    state = _State(roles=roles, settings=settings, chosen_alpha={k: float(v) for k, v in ca.items()},
+                   extra_fits=tuple({"name": e["name"], "family": e["family"], "alpha": float(e["alpha"])}
+                                    for e in extra),
+                   stress_configs=tuple(configs), bootstrap=boot, notes=notes, view_state=vs)
+    return state
+
+
+# -- cached results ------------------------------------------------------------------------
+
+def _check_fit(ar, results, design):
+    from regbench.models.results import FitResults, LinearModel
+
+    def bad(what):
+        raise ProjectError(f"{ar.label}: results.json: field fit {what}; the cached results are damaged — "
+                           "re-create the project with 'regbench new' or save it again after a fresh fit")
+
+    if not isinstance(results, FitResults):
+        bad("is not a fit result")
+    n, p = design.n, design.p
+    if tuple(results.columns) != tuple(design.columns):
+        bad(".columns does not match the design columns")
+    if results.n_obs != n or results.fold_ids.shape != (n,):
+        bad(f".n_obs/.fold_ids do not match the {n} rows used")
+    if not np.issubdtype(results.fold_ids.dtype, np.integer) or (n and not 0 <= results.fold_ids.min()
+                                                                 <= results.fold_ids.max() < results.settings.folds):
+        bad(".fold_ids must hold fold numbers from 0 to folds - 1")
+
+    def check_model(m, where):
+        if not isinstance(m, LinearModel) or not isinstance(m.coef, np.ndarray) or m.coef.shape != (p,) \
+                or not isinstance(m.coef_std, np.ndarray) or m.coef_std.shape != (p,):
+            bad(f"{where}: model does not have one coefficient per design column")
+
+    check_model(results.ols.model, ".ols.model")
+    for arr in ("coef", "std_errors", "t_values", "p_values", "ci_low", "ci_high"):
+        a = getattr(results.ols, arr)
+        if not isinstance(a, np.ndarray) or a.shape != (p,):
+            bad(f".ols.{arr} does not have one value per design column")
+    if not isinstance(results.penalized, dict):
+        bad(".penalized is not a dict")
+    for name, pf in results.penalized.items():
+        check_model(pf.model, f".penalized[{name}].model")
+        k = pf.path.alphas.shape[0] if isinstance(pf.path.alphas, np.ndarray) else -1
+        if k < 1 or pf.path.coef.shape != (k, p):
+            bad(f".penalized[{name}].path has inconsistent shapes")
+        if pf.cv is not None and (pf.cv.mean.shape != (pf.cv.alphas.shape[0],)
+                                  or pf.cv.se.shape != pf.cv.mean.shape):
+            bad(f".penalized[{name}].cv has inconsistent shapes")
+
+
+def _load_results(ar, m, session, migrated: bool):
+    """Install cached results when they belong to this table and these settings."""
+    from regbench.project.codec import Decoder
+
+    if RESULTS not in m["_members"]:
+        return "none"
+    doc = ar.json(RESULTS, _read_checked(ar, m, RESULTS, JSON_LIMITS[RESULTS]))
+    if not isinstance(doc, dict):
+        raise ProjectError(f"{ar.label}: results.json: the top level must be an object; the file is damaged")
+    for key in ("table_fingerprint", "settings_sha256", "key"):
+        if not isinstance(doc.get(key), str):
+            raise ProjectError(f"{ar.label}: results.json: field {key} is missing or not text; the file is damaged")
+    if migrated or doc["table_fingerprint"] != session.table_hash or doc["settings_sha256"] != session.settings_hash():
+        return "stale"
+    arrays = {}
+    for name in m["_members"]:
+        if name.startswith(RESULTS_DIR):
+            data = _read_checked(ar, m, name)
+            try:
+                arrays[name] = np.load(io.BytesIO(data), allow_pickle=False)
+            except Exception as exc:  # numpy raises ValueError/OSError/EOFError/... on bad headers
+                raise ProjectError(f"{ar.label}: member '{name}' is not a readable array ({type(exc).__name__}); "
+                                   "the file is damaged") from None
+            if not isinstance(arrays[name], np.ndarray):
+                raise ProjectError(f"{ar.label}: member '{name}' is not a single array; the file is damaged")
+    dec = Decoder(arrays, f"{ar.label}: results.json")
+    results = dec.decode(doc.get("fit"), "fit")
+    _check_fit(ar, results, session.design)
+    results = _restore_engine_cache(session.design, results)
+    stab_alphas = doc.get("stability_alphas", {})
+    if not (isinstance(stab_alphas, dict) and all(isinstance(v, (int, float)) and not isinstance(v, bool)
+                                                  for v in stab_alphas.values())):
+        raise ProjectError(f"{ar.label}: results.json: field stability_alphas must map model names to numbers; "
+                           "the file is damaged")
+    stability = dec.decode(doc.get("stability"), "stability")
+    derived = {}
+    if doc["key"] == session.key():
+        derived = dec.decode(doc.get("derived"), "derived")
+        if not isinstance(derived, dict):
+            raise ProjectError(f"{ar.label}: results.json: field derived must be a dict; the file is damaged")
+        models = derived.get("models", {})
+        if not isinstance(models, dict):
+            raise ProjectError(f"{ar.label}: results.json: field derived.models must be a dict; the file is damaged")
+        from regbench.models.results import LinearModel
+
+        for name, mdl in models.items():
+            if not (isinstance(mdl, LinearModel) and isinstance(mdl.coef, np.ndarray)
+                    and mdl.coef.shape == (session.design.p,)):
+                raise ProjectError(f"{ar.label}: results.json: field derived.models[{name!r}] is not a model over "
+                                   "the design columns; the file is damaged")
+        for name, pred in derived.get("heldout", {}).items():
+            if not (isinstance(pred, np.ndarray) and pred.shape == (session.design.n,)):
+                raise ProjectError(f"{ar.label}: results.json: field derived.heldout[{name!r}] does not hold one "
+                                   "prediction per row; the file is damaged")
+        for key in ("stress", "sweeps"):
+            if not isinstance(derived.get(key, ()), tuple):
+                raise ProjectError(f"{ar.label}: results.json: field derived.{key} must be a tuple; the file is damaged")
+        if len(derived.get("stress", ())) != len(session.stress_configs):
+            derived.pop("stress", None)
+            derived.pop("sweeps", None)
+    session.results = results
+    alphas = {k: float(v) for k, v in stab_alphas.items()}
+    from regbench.session import _alphas_of
+
+    if stability is not None and alphas == _alphas_of(results, session._state):
+        session.stability, session.stability_alphas = stability, alphas
+    elif stability is not None:
+        session.stability, session.stability_alphas = stability, alphas  # kept; stability_current says it is old
+    session._cache = derived
+    return "used"
+
+
+def _restore_engine_cache(design, results):
+    """FitResults.gram is a cache of the engine and is not stored: rebuild it the way
+    ``fit_all`` does (whole design, accumulated fold by fold) so later refits at a new
+    α match a fresh session bit for bit."""
+    from dataclasses import replace
+
+    from regbench.models.gram import per_fold
+
+    ids = np.asarray(results.fold_ids)
+    if ids.size == 0 or ids.min() < 0:
+        raise ProjectError("results.json: field fit.fold_ids holds a negative fold; the cached results are damaged")
+    full, _ = per_fold(design.X, design.y, design.weights, ids, int(ids.max()) + 1)
+    return replace(results, gram=full)
+
+
+# -- public entry points -------------------------------------------------------------------
+
+def load_project(path, compute: bool = True, progress=None, cancel=None):
+    """Open a project file as a :class:`~regbench.session.Session`.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    compute : bool
+        When cached results are absent or do not match the table and settings,
+        fit again now (True) or leave ``session.results`` empty (False, for a GUI
+        that computes on its worker thread).
+
+    Raises
+    ------
+    ProjectError
+        Naming the member and field that is wrong and what to do.
+    """
+    from regbench.session import Session
+
+    ar = _Archive(path)
+    try:
+        m = _manifest(ar)
+        table_bytes = _read_checked(ar, m, TABLE)
+        doc = ar.json(SESSION, _read_checked(ar, m, SESSION, JSON_LIMITS[SESSION]))
+        migrated = m["format_version"] < FORMAT_VERSION
+        if migrated:
+            doc = migrate(doc, m["format_version"])
+        if not isinstance(doc, dict):
+            raise ProjectError(f"{ar.label}: session.json: the top level must be an object; the file is damaged")
+        table = _read_table(ar, table_bytes, doc.get("table"))
+        state = _session_state(ar, doc, table)
+        session = Session(table, state.roles, state.settings)
+        session._install_loaded(state)
+        status = _load_results(ar, m, session, migrated)
+    finally:
+        ar.close()
+    session.path = os.fspath(path)
+    session.created = m["created"]
+    session.saved = m["saved"]
+    session.cache_status = status
+    if session.results is None and compute:
+        session.compute(progress=progress, cancel=cancel)
+    session.dirty = migrated or (status == "stale" and session.results is not None)
+    return session
+
+
+def inspect_project(path) -> dict:
+    """What a project file holds, with its hash checks, without fitting anything."""
+    ar = _Archive(path)
+    try:
+        m = _manifest(ar)
+        checks = {}
+        for name, entry in m["_members"].items():
+            try:
+                _read_checked(ar, m, name)
+                checks[name] = "ok"
+            except ProjectError as exc:
+                checks[name] = f"failed: {exc}"
+        doc = ar.json(SESSION, ar.raw(SESSION, JSON_LIMITS[SESSION])) if checks.get(SESSION) == "ok" else {}
+        if m["format_version"] < FORMAT_VERSION and isinstance(doc, dict) and doc:
+            doc = migrate(doc, m["format_version"])
+        doc = doc if isinstance(doc, dict) else {}
+        tmeta = doc.get("table") if isinstance(doc.get("table"), dict) else {}
+        cols = tmeta.get("columns") if isinstance(tmeta.get("columns"), list) else []
+        info = {
+            "path": os.fspath(path),
+            "format": m["format"],
+            "format_version": m["format_version"],
+            "app_version": m["app_version"],
+            "created": m["created"],
+            "saved": m["saved"],
+            "table_sha256": m["table_sha256"],
+            "hash_check": "ok" if all(v == "ok" for v in checks.values()) else "failed",
+            "member_checks": checks,
+            "members": [{"name": e["name"], "size": e["size"]} for e in m["_members"].values()],
+            "table_rows": tmeta.get("rows"),
+            "table_columns": len(cols),
+            "roles": doc.get("roles"),
+            "settings": doc.get("settings"),
+            "stress_tests": len(doc.get("stress", [])) if isinstance(doc.get("stress"), list) else 0,
+            "bootstrap": doc.get("bootstrap"),
+            "cached_results": RESULTS in m["_members"],
+            "cached_arrays": sum(1 for n in m["_members"] if n.startswith(RESULTS_DIR)),
+        }
+    finally:
+        ar.close()
+    return info
+
+
+def inspect_text(info: dict) -> str:
+    """Plain-text rendering of :func:`inspect_project`."""
+    lines = [
+        f"project      {info['path']}",
+        f"format       {info['format']} version {info['format_version']} (made by regbench {info['app_version']})",
+        f"created      {info['created']}",
+        f"saved        {info['saved']}",
+        f"table        {info['table_rows']} rows × {info['table_columns']} columns, sha256 {info['table_sha256'][:16]}…",
+        f"hash check   {info['hash_check']}",
+    ]
+    roles = info.get("roles") or {}
+    if roles:
+        preds = roles.get("predictors") or ["(every other usable column)"]
+        lines.append(f"target       {roles.get('target')}")
+        lines.append(f"predictors   {', '.join(map(str, preds))}")
+        if roles.get("categorical"):
+            lines.append(f"categorical  {', '.join(map(str, roles['categorical']))}")
+        lines.append(f"weights      {roles.get('weights') or '(none)'}")
+        lines.append(f"groups       {roles.get('groups') or '(none)'}")
+    s = info.get("settings") or {}
+    if s:
+        lines.append("settings     " + ", ".join(f"{k}={v}" for k, v in s.items()))
+    lines.append(f"stress tests {info.get('stress_tests', 0)}; bootstrap refits {info.get('bootstrap')}")
+    lines.append(f"cached results {'present' if info['cached_results'] else 'absent'}"
+                 f" ({info['cached_arrays']} arrays)")
+    lines.append("members:")
+    for e in info["members"]:
+        check = info["member_checks"].get(e["name"], "")
+        lines.append(f"  {e['name']:<28} {e['size']:>12,d} bytes  {check}")
+    return "\n".join(lines)

@@ -1,0 +1,632 @@
+"""The session document: table, roles, settings, results, stress tests, notes.
+
+Plain Python, no Qt.  Every change goes through a small set of methods that
+record an undo step and tell observers what changed, so a Qt view can listen
+(``subscribe``) without the core knowing about Qt.  Long work is split so a GUI
+worker thread can run the pure part (:meth:`Session.compute_results`) and the
+GUI thread installs the outcome (:meth:`Session.apply_results`).
+"""
+
+from __future__ import annotations
+
+import copy
+import dataclasses
+import hashlib
+import json
+import math
+from collections import deque
+from dataclasses import dataclass, field, replace
+from typing import Callable, Optional
+
+import numpy as np
+
+from regbench.data.design import Roles, build_design
+from regbench.data.table import Table
+from regbench.errors import DataError, RegbenchError
+from regbench.models.results import FitSettings, ALPHA_RULES
+from regbench.progress import check, report
+
+#: How many edits :meth:`Session.undo` can take back.
+UNDO_DEPTH = 50
+#: Damage kinds the stress test knows (the CLI's list).
+STRESS_KINDS = ("shuffle", "noise", "constant", "rescale", "wild", "missing")
+DEFAULT_BOOTSTRAP = 200
+
+
+def penalized_names(settings: FitSettings) -> tuple:
+    """Names of the penalized families ``fit_all`` produces for ``settings``."""
+    names = ["ridge", "lasso"]
+    ratios = tuple(settings.l1_ratios) or (0.5,)
+    names.append("elastic_net")
+    for r in ratios[1:]:
+        names.append(f"elastic_net_{r:g}")
+    return tuple(names)
+
+
+def table_fingerprint(table: Table) -> str:
+    """SHA-256 over the table's content (names, kinds, values), independent of file encoding."""
+    h = hashlib.sha256()
+    frame = table.frame
+    for name in table.names:
+        info = table.columns[name]
+        h.update(b"\x00col\x00" + name.encode("utf-8") + b"\x00" + info.kind.encode())
+        col = frame[name]
+        if info.kind in ("numeric", "boolean", "empty"):
+            h.update(np.ascontiguousarray(col.to_numpy(dtype=np.float64)).tobytes())
+        else:
+            for v in col.to_numpy(dtype=object):
+                if v is None or (isinstance(v, float) and math.isnan(v)):
+                    h.update(b"\x01")
+                else:
+                    b = str(v).encode("utf-8")
+                    h.update(b"\x02" + len(b).to_bytes(8, "little") + b)
+    return h.hexdigest()
+
+
+def _digest(obj) -> str:
+    return hashlib.sha256(json.dumps(obj, sort_keys=True, allow_nan=True).encode("utf-8")).hexdigest()
+
+
+def stress_to_dict(config) -> dict:
+    """A StressConfig as plain JSON values (column, kind, strength, seed, tolerance, fill)."""
+    return config.to_dict()
+
+
+def stress_from_dict(d: dict):
+    from regbench.analysis.stress import StressConfig
+
+    return StressConfig.from_dict(d)
+
+
+@dataclass(frozen=True)
+class ComputedResults:
+    """What :meth:`Session.compute_results` produced, ready to install.
+
+    ``fit_key`` identifies table + roles + settings; ``key`` adds the chosen α,
+    extra fits, stress configurations and bootstrap count.  A result computed
+    for another state is installed only as far as its keys still match.
+    """
+
+    fit_key: str
+    key: str
+    results: object  # FitResults
+    models: dict = field(default_factory=dict)
+    heldout: dict = field(default_factory=dict)
+    agreement: object = None
+    structure: object = None
+    stress: tuple = ()
+    sweeps: tuple = ()
+    stability: object = None
+    stability_alphas: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class _State:
+    """The editable part of a session: what undo restores and the project file keeps."""
+
+    roles: Roles
+    settings: FitSettings
+    chosen_alpha: dict
+    extra_fits: tuple  # of dict(name, family, alpha)
+    stress_configs: tuple
+    bootstrap: int
+    notes: str
+    view_state: dict
+
+
+class Session:
+    """The document a person works on.
+
+    Parameters
+    ----------
+    table : Table
+    roles : Roles
+    settings : FitSettings, optional
+
+    Attributes
+    ----------
+    table : Table
+    design : Design
+        Rebuilt whenever the roles change.
+    results : FitResults or None
+    path : str or None
+        The project file this session was loaded from or last saved to.
+    dirty : bool
+        Changed since the last save or load.
+    """
+
+    def __init__(self, table: Table, roles: Roles, settings: Optional[FitSettings] = None):
+        if not isinstance(roles, Roles):
+            roles = Roles.from_dict(dict(roles))
+        self.table = table
+        self._state = _State(roles=roles, settings=settings or FitSettings(), chosen_alpha={},
+                             extra_fits=(), stress_configs=(), bootstrap=DEFAULT_BOOTSTRAP,
+                             notes="", view_state={})
+        self.design = build_design(table, roles)
+        self.results = None
+        self.stability = None
+        self.stability_alphas: dict = {}
+        self._cache: dict = {}
+        self._undo: deque = deque(maxlen=UNDO_DEPTH)
+        self._last_tag = None
+        self._observers: list = []
+        self._fingerprint: Optional[str] = None
+        self.path: Optional[str] = None
+        self.dirty = False
+
+    # -- constructors --------------------------------------------------------------------
+
+    @classmethod
+    def from_table_file(cls, path, roles, settings=None, encoding=None, sheet=None) -> "Session":
+        from regbench.data.reader import read_table
+
+        return cls(read_table(path, encoding=encoding, sheet=sheet), roles, settings)
+
+    @classmethod
+    def from_table(cls, table: Table, roles, settings=None) -> "Session":
+        return cls(table, roles, settings)
+
+    # -- read-only views of the state ------------------------------------------------------
+
+    @property
+    def roles(self) -> Roles:
+        return self._state.roles
+
+    @property
+    def settings(self) -> FitSettings:
+        return self._state.settings
+
+    @property
+    def chosen_alpha(self) -> dict:
+        return dict(self._state.chosen_alpha)
+
+    @property
+    def extra_fits(self) -> list:
+        return [dict(e) for e in self._state.extra_fits]
+
+    @property
+    def stress_configs(self) -> list:
+        return list(self._state.stress_configs)
+
+    @property
+    def bootstrap(self) -> int:
+        return self._state.bootstrap
+
+    @property
+    def notes(self) -> str:
+        return self._state.notes
+
+    @property
+    def view_state(self) -> dict:
+        return copy.deepcopy(self._state.view_state)
+
+    @property
+    def table_hash(self) -> str:
+        if self._fingerprint is None:
+            self._fingerprint = table_fingerprint(self.table)
+        return self._fingerprint
+
+    def fit_key(self, state: Optional[_State] = None) -> str:
+        s = state or self._state
+        return _digest({"table": self.table_hash, "roles": s.roles.to_dict(), "settings": s.settings.to_dict()})
+
+    def settings_hash(self) -> str:
+        """Hash of roles + settings: cached fits are reused only when it matches."""
+        return _digest({"roles": self.roles.to_dict(), "settings": self.settings.to_dict()})
+
+    def key(self, state: Optional[_State] = None) -> str:
+        s = state or self._state
+        return _digest({
+            "fit": self.fit_key(s),
+            "alpha": {k: s.chosen_alpha[k] for k in sorted(s.chosen_alpha)},
+            "extra": list(s.extra_fits),
+            "stress": [stress_to_dict(c) for c in s.stress_configs],
+            "bootstrap": s.bootstrap,
+        })
+
+    # -- observers ------------------------------------------------------------------------
+
+    def subscribe(self, callback: Callable[[str, object], None]) -> None:
+        """Call ``callback(event, detail)`` after every change."""
+        if callback not in self._observers:
+            self._observers.append(callback)
+
+    def unsubscribe(self, callback) -> None:
+        if callback in self._observers:
+            self._observers.remove(callback)
+
+    def _notify(self, event: str, detail=None) -> None:
+        for cb in list(self._observers):
+            cb(event, detail)
+
+    # -- edits ----------------------------------------------------------------------------
+
+    def _snapshot(self):
+        return (self._state, self.design, self.results, self.stability, dict(self.stability_alphas),
+                dict(self._cache))
+
+    def _restore(self, snap) -> None:
+        (self._state, self.design, self.results, self.stability, self.stability_alphas, self._cache) = snap
+
+    def _edit(self, tag, new_state: _State, event: str, detail=None, coalesce: bool = False) -> None:
+        if new_state == self._state:
+            return
+        if not (coalesce and self._last_tag == tag and self._undo):
+            self._undo.append(self._snapshot())
+        self._last_tag = tag if coalesce else None
+        old = self._state
+        self._state = new_state
+        if new_state.roles != old.roles:
+            self.design = build_design(self.table, new_state.roles)
+        if new_state.roles != old.roles or new_state.settings != old.settings:
+            self.results = None
+            self.stability = None
+            self.stability_alphas = {}
+            self._cache = {}
+        elif (new_state.chosen_alpha != old.chosen_alpha or new_state.extra_fits != old.extra_fits):
+            self._cache = {}
+        elif new_state.stress_configs != old.stress_configs:
+            self._cache.pop("stress", None)
+            self._cache.pop("sweeps", None)
+        self.dirty = True
+        self._notify(event, detail)
+
+    def set_roles(self, roles: Roles) -> None:
+        """Change the column roles; the design is rebuilt and the fits are cleared.
+
+        Raises DataError (and changes nothing) when the roles cannot be used.
+        """
+        if not isinstance(roles, Roles):
+            roles = Roles.from_dict(dict(roles))
+        build_design(self.table, roles)  # raise before anything changes
+        self._edit("roles", replace(self._state, roles=roles), "roles", roles)
+
+    def set_settings(self, settings: FitSettings) -> None:
+        check_settings(settings)
+        self._edit("settings", replace(self._state, settings=settings), "settings", settings)
+
+    def set_alpha(self, name: str, alpha: Optional[float]) -> None:
+        """Override the CV choice of α for model ``name`` (None: back to the CV choice)."""
+        if name not in penalized_names(self.settings):
+            raise DataError(f"'{name}' is not a penalized model of this session; "
+                            f"choose one of {', '.join(penalized_names(self.settings))}")
+        chosen = dict(self._state.chosen_alpha)
+        if alpha is None:
+            chosen.pop(name, None)
+        else:
+            alpha = _positive(alpha, f"α for {name}")
+            chosen[name] = alpha
+        self._edit(("alpha", name), replace(self._state, chosen_alpha=chosen), "alpha",
+                   {"name": name, "alpha": alpha}, coalesce=True)
+
+    def add_extra_fit(self, family: str, alpha: float, name: Optional[str] = None) -> str:
+        """Add a fit of ``family`` at another α; returns its name."""
+        if family not in penalized_names(self.settings):
+            raise DataError(f"'{family}' is not a penalized model of this session; "
+                            f"choose one of {', '.join(penalized_names(self.settings))}")
+        alpha = _positive(alpha, f"α for {family}")
+        taken = set(penalized_names(self.settings)) | {"ols"} | {e["name"] for e in self._state.extra_fits}
+        if name is None:
+            name = f"{family}@{alpha:.3g}"
+            base, k = name, 2
+            while name in taken:
+                name, k = f"{base}#{k}", k + 1
+        elif not isinstance(name, str) or not name.strip() or name in taken:
+            raise DataError(f"extra fit name {name!r} is empty or already used; choose another name")
+        entry = {"name": name, "family": family, "alpha": alpha}
+        self._edit("extra", replace(self._state, extra_fits=self._state.extra_fits + (entry,)),
+                   "extra_fits", entry)
+        return name
+
+    def remove_extra_fit(self, name: str) -> None:
+        fits = tuple(e for e in self._state.extra_fits if e["name"] != name)
+        if len(fits) == len(self._state.extra_fits):
+            raise DataError(f"there is no extra fit named {name!r}")
+        self._edit("extra", replace(self._state, extra_fits=fits), "extra_fits", {"removed": name})
+
+    def add_stress(self, config) -> int:
+        """Add a stress configuration; returns its index."""
+        check_stress(config, self.design, self.table)
+        configs = self._state.stress_configs + (config,)
+        self._edit("stress", replace(self._state, stress_configs=configs), "stress", {"added": len(configs) - 1})
+        return len(configs) - 1
+
+    def remove_stress(self, index: int) -> None:
+        configs = list(self._state.stress_configs)
+        if not 0 <= index < len(configs):
+            raise DataError(f"there is no stress configuration number {index + 1}")
+        del configs[index]
+        self._edit("stress", replace(self._state, stress_configs=tuple(configs)), "stress", {"removed": index})
+
+    def set_bootstrap(self, n: int) -> None:
+        if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or not 0 <= int(n) <= 100_000:
+            raise DataError(f"bootstrap count {n!r} must be a whole number from 0 to 100000")
+        self._edit("bootstrap", replace(self._state, bootstrap=int(n)), "bootstrap", int(n))
+
+    def set_notes(self, text: str) -> None:
+        if not isinstance(text, str):
+            raise DataError("notes must be text")
+        self._edit("notes", replace(self._state, notes=text), "notes", text, coalesce=True)
+
+    def set_view_state(self, key: str, value) -> None:
+        """Keep a JSON-able value the GUI wants back when the project reopens."""
+        try:
+            json.dumps(value, allow_nan=False)
+        except (TypeError, ValueError):
+            raise DataError(f"view state '{key}' must be plain JSON values (numbers, text, lists, dicts)") from None
+        vs = copy.deepcopy(self._state.view_state)
+        vs[str(key)] = copy.deepcopy(value)
+        self._edit(("view", key), replace(self._state, view_state=vs), "view_state", {"key": key, "value": value},
+                   coalesce=True)
+
+    @property
+    def can_undo(self) -> bool:
+        return bool(self._undo)
+
+    def undo(self) -> bool:
+        """Take back the last edit; returns False when there is nothing to undo."""
+        if not self._undo:
+            return False
+        self._restore(self._undo.pop())
+        self._last_tag = None
+        self.dirty = True
+        self._notify("undo", None)
+        return True
+
+    # -- computation ---------------------------------------------------------------------
+
+    def alphas(self) -> dict:
+        """Chosen α per penalized family: the user's choice, else the engine's."""
+        out = {}
+        if self.results is None:
+            return dict(self._state.chosen_alpha)
+        for name, pf in self.results.penalized.items():
+            out[name] = float(self._state.chosen_alpha.get(name, pf.alpha))
+        return out
+
+    def compute_results(self, progress=None, cancel=None, bootstrap=None, refit: bool = False) -> ComputedResults:
+        """Fit and analyse without changing the session (safe on a worker thread).
+
+        Parameters
+        ----------
+        progress : callable(done, total, message), optional
+        cancel : callable() -> bool, optional
+        bootstrap : int, optional
+            Stability refits; default the session's bootstrap count (0 skips).
+        refit : bool
+            Fit again even when the installed fits match the current state.
+        """
+        state, design, table_results = self._state, self.design, self.results
+        n_boot = state.bootstrap if bootstrap is None else int(bootstrap)
+        fit_key = self.fit_key(state)
+        key = _digest({"base": self.key(state), "boot": n_boot}) if bootstrap is not None else self.key(state)
+        total = 4 + (1 if n_boot else 0)
+        if table_results is None or refit:
+            from regbench.models.engine import fit_all
+
+            report(progress, 0, total, "fitting the models")
+            results = fit_all(design, state.settings, progress=None, cancel=cancel)
+        else:
+            results = table_results
+        check(cancel)
+        report(progress, 1, total, "comparing the models")
+        derived = _derive(design, results, state, cancel)
+        check(cancel)
+        report(progress, 3, total, "stress tests")
+        stability, alphas = None, _alphas_of(results, state)
+        if n_boot:
+            from regbench.analysis.stability import bootstrap_stability
+
+            report(progress, 4, total, f"stability ({n_boot} refits)")
+            stability = bootstrap_stability(design, state.settings, alphas, n_boot=n_boot, seed=state.settings.seed,
+                                            progress=None, cancel=cancel)
+        report(progress, total, total, "done")
+        return ComputedResults(fit_key=fit_key, key=key, results=results, stability=stability,
+                               stability_alphas=alphas if stability is not None else {}, **derived)
+
+    def apply_results(self, computed: ComputedResults) -> bool:
+        """Install what :meth:`compute_results` produced (GUI thread).
+
+        Returns False, changing nothing, when the table, roles or settings changed
+        meanwhile; when only α, extra fits or stress tests changed, the fits are
+        installed and the comparisons are recomputed on demand.
+        """
+        if computed.fit_key != self.fit_key():
+            return False
+        self.results = computed.results
+        if computed.key == self.key() or computed.stability_alphas == _alphas_of(computed.results, self._state):
+            self.stability = computed.stability
+            self.stability_alphas = dict(computed.stability_alphas)
+        if computed.key == self.key():
+            self._cache = {"models": computed.models, "heldout": computed.heldout, "agreement": computed.agreement,
+                           "structure": computed.structure, "stress": computed.stress, "sweeps": computed.sweeps}
+        else:
+            self._cache = {}
+        self.dirty = True
+        self._notify("results", None)
+        return True
+
+    def compute(self, progress=None, cancel=None, bootstrap=None, refit: bool = False) -> None:
+        """compute_results + apply_results in one go (for scripts and the CLI)."""
+        if bootstrap is not None and int(bootstrap) != self.bootstrap:
+            self._state = replace(self._state, bootstrap=int(bootstrap))
+            bootstrap = None
+        self.apply_results(self.compute_results(progress, cancel, bootstrap=bootstrap, refit=refit))
+
+    @property
+    def stability_current(self) -> bool:
+        """True when the stability result was computed at the α now chosen."""
+        return self.stability is not None and self.stability_alphas == self.alphas()
+
+    def _derived(self) -> dict:
+        if self.results is None:
+            return {}
+        if "agreement" not in self._cache or "stress" not in self._cache:
+            self._cache.update(_derive(self.design, self.results, self._state, None, self._cache))
+        return self._cache
+
+    def models(self) -> dict:
+        """name -> LinearModel at the chosen α (plus extra fits); empty before a fit."""
+        return dict(self._derived().get("models", {}))
+
+    def heldout(self) -> dict:
+        return dict(self._derived().get("heldout", {}))
+
+    def agreement(self):
+        return self._derived().get("agreement")
+
+    def structure(self):
+        return self._derived().get("structure")
+
+    def stress_results(self) -> tuple:
+        return tuple(self._derived().get("stress", ()))
+
+    def stress_sweeps(self) -> tuple:
+        return tuple(self._derived().get("sweeps", ()))
+
+    # -- used by the project layer --------------------------------------------------------
+
+    def _install_loaded(self, state: _State, results=None, stability=None, stability_alphas=None,
+                        derived: Optional[dict] = None) -> None:
+        self._state = state
+        self.design = build_design(self.table, state.roles)
+        self.results = results
+        self.stability = stability
+        self.stability_alphas = dict(stability_alphas or {})
+        self._cache = dict(derived or {})
+        self._undo.clear()
+        self.dirty = False
+
+
+def _alphas_of(results, state: _State) -> dict:
+    return {name: float(state.chosen_alpha.get(name, pf.alpha)) for name, pf in results.penalized.items()}
+
+
+def _derive(design, results, state: _State, cancel, have: Optional[dict] = None) -> dict:
+    """Models at the chosen α, held-out predictions, agreement, structure, stress results."""
+    from regbench.models import engine
+
+    have = have or {}
+    models = have.get("models")
+    if models is None:
+        models = {}
+        base = results.models()
+        for name, model in base.items():
+            if name in state.chosen_alpha and name in results.penalized:
+                models[name] = engine.model_at(design, results, name, state.chosen_alpha[name])
+            else:
+                models[name] = model
+        for e in state.extra_fits:
+            if e["family"] in results.penalized:
+                models[e["name"]] = replace(engine.model_at(design, results, e["family"], e["alpha"]), name=e["name"])
+    check(cancel)
+    heldout = have.get("heldout")
+    if heldout is None:
+        heldout = engine.heldout_predictions(design, results, models)
+    agreement, structure = have.get("agreement"), have.get("structure")
+    if agreement is None:
+        from regbench.analysis.agreement import compare_models
+
+        agreement = compare_models(design, models, heldout)
+    if structure is None:
+        from regbench.analysis.structure import compare_structure
+
+        structure = compare_structure(design, results, models)
+    check(cancel)
+    stress, sweeps = have.get("stress"), have.get("sweeps")
+    if stress is None or sweeps is None:
+        from regbench.analysis.stress import run_stress, stress_sweep
+
+        stress = tuple(run_stress(design, models, c) for c in state.stress_configs)
+        seen, sw = set(), []
+        for c in state.stress_configs:
+            if (c.column, c.kind) in seen:
+                continue
+            seen.add((c.column, c.kind))
+            sw.append(stress_sweep(design, models, c.column, c.kind, seed=c.seed, tolerance=c.tolerance))
+        sweeps = tuple(sw)
+    return {"models": models, "heldout": heldout, "agreement": agreement, "structure": structure,
+            "stress": stress, "sweeps": sweeps}
+
+
+def _positive(x, what: str) -> float:
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        raise DataError(f"{what} must be a positive number, not {x!r}") from None
+    if isinstance(x, bool) or not (v > 0 and math.isfinite(v)):
+        raise DataError(f"{what} must be a positive number, not {x!r}")
+    return v
+
+
+def check_settings(s: FitSettings) -> None:
+    """Raise DataError naming the first setting out of range."""
+    def bad(field_name, what):
+        raise DataError(f"setting '{field_name}' {what}")
+
+    if not isinstance(s, FitSettings):
+        raise DataError("settings must be FitSettings")
+    if isinstance(s.folds, bool) or not isinstance(s.folds, int) or not 2 <= s.folds <= 1000:
+        bad("folds", f"is {s.folds!r}; cross-validation needs a whole number of folds from 2 to 1000")
+    if isinstance(s.seed, bool) or not isinstance(s.seed, int) or not 0 <= s.seed < 2**63:
+        bad("seed", f"is {s.seed!r}; use a whole number >= 0")
+    if isinstance(s.n_penalties, bool) or not isinstance(s.n_penalties, int) or not 2 <= s.n_penalties <= 10000:
+        bad("n_penalties", f"is {s.n_penalties!r}; a path needs from 2 to 10000 α values")
+    if not (isinstance(s.penalty_ratio, float) and 0 < s.penalty_ratio < 1):
+        bad("penalty_ratio", f"is {s.penalty_ratio!r}; it must be between 0 and 1")
+    if not isinstance(s.l1_ratios, tuple) or not s.l1_ratios or len(s.l1_ratios) > 20:
+        bad("l1_ratios", "must list from 1 to 20 L1 ratios")
+    for r in s.l1_ratios:
+        if not (isinstance(r, float) and 0 < r < 1):
+            bad("l1_ratios", f"holds {r!r}; each L1 ratio must be strictly between 0 and 1")
+    if len(set(f"{r:g}" for r in s.l1_ratios)) != len(s.l1_ratios):
+        bad("l1_ratios", "lists the same ratio twice")
+    if s.alpha is not None and not (isinstance(s.alpha, float) and s.alpha > 0 and math.isfinite(s.alpha)):
+        bad("alpha", f"is {s.alpha!r}; a fixed α must be a positive number (or empty for the CV choice)")
+    if s.alpha_rule not in ALPHA_RULES[1:]:
+        bad("alpha_rule", f"is {s.alpha_rule!r}; use one of {', '.join(ALPHA_RULES[1:])}")
+    if not isinstance(s.pins, tuple) or not all(isinstance(p, str) for p in s.pins):
+        bad("pins", "must be a list of column names")
+    if s.rank_tol is not None and not (isinstance(s.rank_tol, float) and 0 < s.rank_tol < 1):
+        bad("rank_tol", f"is {s.rank_tol!r}; a rank tolerance must be between 0 and 1 (or empty)")
+
+
+def check_stress(config, design, table=None) -> None:
+    """Raise DataError when a stress configuration cannot run on this design."""
+    from regbench.analysis.stress import resolve_column
+
+    if isinstance(getattr(config, "column", None), str):
+        resolve_column(design, config.column)
+    else:
+        raise DataError("a stress test needs the name of the column to damage")
+    seed = getattr(config, "seed", 0)
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise DataError(f"stress test seed {seed!r} must be a whole number >= 0")
+    fill = getattr(config, "fill", None)
+    if fill is not None and (isinstance(fill, bool) or not isinstance(fill, (int, float))):
+        raise DataError(f"stress test fill {fill!r} must be a number")
+    config.resolved_strength()
+
+
+SAMPLE_NOTE = (
+    "Weekly tomato yield per bed across eight glasshouses. Mean temperature is the average of day and "
+    "night, and the °F column repeats the °C one, so OLS must set columns aside; the light sum nearly "
+    "tracks light hours. Question for the growers: which climate inputs can we trust the models on, "
+    "and which model keeps its predictions if one sensor goes bad?"
+)
+
+
+def build_sample_session(csv_path, roles_dict: dict) -> Session:
+    """The greenhouse sample project: roles, grouped 5-fold CV, three stress tests, 200 refits, computed."""
+    from regbench.analysis.stress import StressConfig
+
+    settings = FitSettings(folds=5, seed=20261201, l1_ratios=(0.5,))
+    session = Session.from_table_file(csv_path, Roles.from_dict(roles_dict), settings)
+    for cfg in (StressConfig("day_temp_c", "rescale", 1.8), StressConfig("light_sum_mol_m2", "noise", 1.0),
+                StressConfig("co2_ppm", "shuffle", None, seed=3)):
+        session.add_stress(cfg)
+    session.set_bootstrap(200)
+    session.set_notes(SAMPLE_NOTE)
+    session.compute()
+    session._undo.clear()
+    return session
