@@ -1,0 +1,274 @@
+"""Structure: how the fitted models differ in what they say about the inputs.
+
+Coefficients side by side (original units and standardized), which columns each
+model uses, where models disagree on a coefficient's sign, and for each set of
+overlapping columns how each model spreads its weight across the set.
+
+A *collinear set* is a connected group of columns: a column OLS set aside is
+joined to the kept columns whose combination reproduces it, and a strongly
+collinear column (a near-dependency from the diagnostics) to the columns that
+explain it; sets sharing a column merge (union-find over columns).  A model's
+*share* of a column within a set is its |standardized coefficient| over the
+sum of the model's |standardized coefficients| in the set, so shares compare
+columns measured in different units.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from regbench.analysis.agreement import in_sentence
+from regbench.models.results import model_label
+
+_NUMBER_WORDS = {2: "two", 3: "three", 4: "four", 5: "five", 6: "six", 7: "seven", 8: "eight", 9: "nine", 10: "ten"}
+
+
+@dataclass(frozen=True)
+class SignFlip:
+    """A column whose coefficient is positive in some models and negative in others."""
+
+    column: str
+    positive: tuple
+    negative: tuple
+
+    def to_dict(self) -> dict:
+        return {"column": self.column, "positive": list(self.positive), "negative": list(self.negative)}
+
+
+@dataclass(frozen=True)
+class CollinearSet:
+    """One connected group of overlapping columns and each model's spread of weight over it.
+
+    Attributes
+    ----------
+    columns : tuple of str
+        In design order.
+    models : tuple of str
+    shares : ndarray (models, columns)
+        |standardized coef| over the model's total in the set; 0 for every column
+        when the model uses none of them.
+    weight : ndarray (models,)
+        The model's total |standardized coef| in the set.
+    set_aside : tuple of str
+        Columns of the set that OLS set aside.
+    sentence : str
+    """
+
+    columns: tuple
+    models: tuple
+    shares: np.ndarray
+    weight: np.ndarray
+    set_aside: tuple
+    sentence: str
+
+    def to_dict(self) -> dict:
+        return {
+            "columns": list(self.columns), "set_aside": list(self.set_aside),
+            "shares": {k: {c: float(self.shares[i, j]) for j, c in enumerate(self.columns)}
+                       for i, k in enumerate(self.models)},
+            "weight": {k: float(self.weight[i]) for i, k in enumerate(self.models)},
+            "sentence": self.sentence,
+        }
+
+
+@dataclass(frozen=True)
+class Structure:
+    """Coefficients of every model side by side.
+
+    Attributes
+    ----------
+    models : tuple of str
+    columns : tuple of str
+    coef, coef_std : ndarray (models, columns)
+        Original units and standardized (coef × weighted SD).
+    intercepts : ndarray (models,)
+    used : ndarray of bool (models, columns)
+    sign_flips : tuple of SignFlip
+    collinear_sets : tuple of CollinearSet
+    sentences : tuple of str
+    """
+
+    models: tuple
+    columns: tuple
+    coef: np.ndarray
+    coef_std: np.ndarray
+    intercepts: np.ndarray
+    used: np.ndarray
+    sign_flips: tuple
+    collinear_sets: tuple
+    sentences: tuple
+
+    def to_dict(self) -> dict:
+        return {
+            "models": list(self.models), "columns": list(self.columns),
+            "coef": {k: dict(zip(self.columns, map(float, self.coef[i]))) for i, k in enumerate(self.models)},
+            "coef_std": {k: dict(zip(self.columns, map(float, self.coef_std[i]))) for i, k in enumerate(self.models)},
+            "intercepts": {k: float(self.intercepts[i]) for i, k in enumerate(self.models)},
+            "used": {k: [c for c, u in zip(self.columns, self.used[i]) if u] for i, k in enumerate(self.models)},
+            "sign_flips": [s.to_dict() for s in self.sign_flips],
+            "collinear_sets": [s.to_dict() for s in self.collinear_sets],
+            "sentences": list(self.sentences),
+        }
+
+
+def collinear_groups(columns, links) -> list:
+    """Connected groups (size ≥ 2) of ``columns`` joined by ``links`` (iterables of names).
+
+    Union-find over columns; each group is returned in column order, groups
+    ordered by their first column.
+    """
+    pos = {c: j for j, c in enumerate(columns)}
+    parent = list(range(len(columns)))
+
+    def find(i):
+        while parent[i] != i:
+            parent[i] = parent[parent[i]]
+            i = parent[i]
+        return i
+
+    for link in links:
+        members = [pos[c] for c in link if c in pos]
+        for other in members[1:]:
+            a, b = find(members[0]), find(other)
+            if a != b:
+                parent[max(a, b)] = min(a, b)
+    groups = {}
+    for j in range(len(columns)):
+        groups.setdefault(find(j), []).append(j)
+    return [tuple(columns[j] for j in g) for _, g in sorted(groups.items()) if len(g) > 1]
+
+
+def _links(results) -> tuple:
+    """Column links from the OLS set-aside explanations and the near-dependencies."""
+    if results is None:
+        return (), ()
+    links, set_aside = [], []
+    for sa in getattr(results.ols, "set_aside", ()):
+        set_aside.append(sa.column)
+        links.append((sa.column, *sa.combination.keys(), *sa.alternatives))
+    diag = getattr(results, "diagnostics", None)
+    for nd in getattr(diag, "near_dependencies", ()) if diag is not None else ():
+        links.append((nd.column, *nd.explained_by))
+    return tuple(links), tuple(set_aside)
+
+
+def _join(items, word="and") -> str:
+    items = list(items)
+    if len(items) <= 1:
+        return "".join(items)
+    return ", ".join(items[:-1]) + f" {word} " + items[-1]
+
+
+def _count(k: int) -> str:
+    return _NUMBER_WORDS.get(k, str(k))
+
+
+def compare_structure(design, results, models: dict) -> Structure:
+    """Put the models' coefficients side by side and explain how they differ.
+
+    Parameters
+    ----------
+    design : Design
+    results : FitResults or None
+        Supplies the collinear sets (OLS set-aside explanations and
+        near-dependencies); None: no sets.
+    models : dict of str -> LinearModel
+        In display order (e.g. ``results.models()`` or models at other α).
+
+    Returns
+    -------
+    Structure
+    """
+    names = tuple(models)
+    columns = tuple(design.columns)
+    coef = np.array([np.asarray(models[k].coef, float) for k in names]).reshape(len(names), len(columns))
+    coef_std = np.array([np.asarray(models[k].coef_std, float) for k in names]).reshape(len(names), len(columns))
+    intercepts = np.array([float(models[k].intercept) for k in names])
+    used = coef != 0.0
+
+    flips = []
+    for j, c in enumerate(columns):
+        pos = tuple(k for i, k in enumerate(names) if coef[i, j] > 0)
+        neg = tuple(k for i, k in enumerate(names) if coef[i, j] < 0)
+        if pos and neg:
+            flips.append(SignFlip(c, pos, neg))
+
+    links, ols_aside = _links(results)
+    sets = []
+    for group in collinear_groups(columns, links):
+        idx = [columns.index(c) for c in group]
+        a = np.abs(coef_std[:, idx])
+        weight = a.sum(axis=1)
+        shares = np.divide(a, weight[:, None], out=np.zeros_like(a), where=weight[:, None] > 0)
+        aside = tuple(c for c in group if c in ols_aside)
+        sets.append(CollinearSet(columns=group, models=names, shares=shares, weight=weight, set_aside=aside,
+                                 sentence=_set_sentence(group, names, shares, aside)))
+
+    sentences = [_usage_sentence(names, columns, used, ols_aside)]
+    sentences.extend(s.sentence for s in sets)
+    if flips:
+        sentences.append(_flip_sentence(flips))
+    elif len(names) > 1:
+        sentences.append("No column changes sign between the models.")
+    return Structure(models=names, columns=columns, coef=coef, coef_std=coef_std, intercepts=intercepts,
+                     used=used, sign_flips=tuple(flips), collinear_sets=tuple(sets), sentences=tuple(sentences))
+
+
+def _usage_sentence(names, columns, used, ols_aside) -> str:
+    p = len(columns)
+    parts = []
+    for i, k in enumerate(names):
+        u = int(used[i].sum())
+        label = model_label(k) if i == 0 else in_sentence(model_label(k))
+        what = f"all {p}" if u == p else f"{u} of {p}"
+        extra = f" ({len(ols_aside)} set aside)" if k == "ols" and ols_aside else ""
+        parts.append(f"{label} {what}{extra}" if i else f"{label} uses {what} columns{extra}")
+    return _join(parts) + "."
+
+
+def _pct(v: float) -> str:
+    return "under 1%" if 0 < v < 0.005 else f"{v:.0%}"
+
+
+def _most(group, s, n=3) -> str:
+    order = [j for j in np.argsort(-s, kind="stable") if s[j] > 0][:n]
+    return ", ".join(f"{_pct(s[j])} on {group[j]}" for j in order)
+
+
+def _set_sentence(group, names, shares, aside) -> str:
+    k = len(group)
+    parts = []
+    for i, name in enumerate(names):
+        label = model_label(name) if i == 0 else in_sentence(model_label(name))
+        s = shares[i]
+        on = [c for c, v in zip(group, s) if v > 0]
+        top = int(np.argmax(s))
+        if not on:
+            parts.append(f"{label} uses none of them")
+        elif name == "ols" and aside and len(on) + len(aside) == k:
+            where = _join(on) if len(on) <= 3 else f"the other {_count(len(on))} ({_most(group, s)})"
+            parts.append(f"{label} sets {_join(aside)} aside and puts all the weight on {where}")
+        elif len(on) == k:
+            parts.append(f"{label} spreads it over all {_count(k)} columns (largest share {_pct(s[top])} on {group[top]})")
+        elif len(on) == 1:
+            parts.append(f"{label} keeps only {on[0]}")
+        elif len(on) <= 3:
+            parts.append(f"{label} keeps only {_join(on)} ({_most(group, s)})")
+        else:
+            parts.append(f"{label} keeps {_count(len(on))} of the {_count(k)} ({_most(group, s)})")
+    return f"Across the overlapping columns {_join(group)}: " + "; ".join(parts) + "."
+
+
+def _flip_sentence(flips) -> str:
+    shown = flips[:3]
+    bits = []
+    for f in shown:
+        pos = _join(in_sentence(model_label(k)) for k in f.positive)
+        neg = _join(in_sentence(model_label(k)) for k in f.negative)
+        bits.append(f"{f.column} is positive in {pos} but negative in {neg}")
+    more = f" ({len(flips) - len(shown)} more)" if len(flips) > len(shown) else ""
+    n = len(flips)
+    return (f"{_count(n).capitalize()} column{'s' if n != 1 else ''} change{'' if n != 1 else 's'} sign between "
+            f"the models{more}: " + "; ".join(bits) + ". An overlapping column's sign says little on its own.")
