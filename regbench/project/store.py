@@ -778,7 +778,14 @@ def inspect_text(info: dict) -> str:
     lines.append(f"cached results {'present' if info['cached_results'] else 'absent'}"
                  f" ({info['cached_arrays']} arrays)")
     lines.append("members:")
+    arrays = [e for e in info["members"] if e["name"].startswith(RESULTS_DIR)]
     for e in info["members"]:
+        if e in arrays:
+            continue
         check = info["member_checks"].get(e["name"], "")
         lines.append(f"  {e['name']:<28} {e['size']:>12,d} bytes  {check}")
+    if arrays:
+        failed = [e["name"] for e in arrays if info["member_checks"].get(e["name"]) != "ok"]
+        lines.append(f"  {RESULTS_DIR + '*.npy':<28} {sum(e['size'] for e in arrays):>12,d} bytes  "
+                     f"{len(arrays)} arrays, " + (f"failed: {', '.join(failed)}" if failed else "all ok"))
     return "\n".join(lines)

@@ -1,0 +1,448 @@
+"""The HTML report: one self-contained file, sections phrased as a stakeholder's questions.
+
+No network, no scripts: charts are inline SVG built here, the style sheet is
+inline and prints cleanly (each question starts a new page).  Every piece of
+text that came from the user or the table is escaped.
+"""
+
+from __future__ import annotations
+
+import math
+import platform
+from datetime import datetime, timezone
+from html import escape
+
+import numpy as np
+
+from regbench import __version__
+from regbench.models.results import model_label
+from regbench.report import svg
+
+#: Section ids and headings, in the order the report shows them.
+SECTIONS = (
+    ("question", "What are we asking, and of which rows?"),
+    ("overlap", "What overlaps in this table?"),
+    ("fits", "How do the fits differ?"),
+    ("agreement", "Do they predict alike?"),
+    ("stress", "What breaks when one input goes bad?"),
+    ("stability", "How sure are we?"),
+    ("notes", "What did the analyst note?"),
+    ("reproduce", "How can someone reproduce this?"),
+    ("cautions", "What should a reader keep in mind?"),
+)
+
+CAUTIONS = (
+    "Associations are not causes: a coefficient says how the prediction moves with a column in this table, "
+    "not what would happen if someone changed that input.",
+    "Judge a model on held-out groups: the error on the rows a model was fitted on flatters it, most of all "
+    "when rows of one group resemble each other.",
+    "A model is only as good as its inputs: a column that drifts, is recalibrated or fails in production "
+    "moves every model that leans on it — the stress test above shows by how much.",
+    "Where columns overlap, the split of weight between them is not identified by the data; different fits "
+    "can predict alike while telling different stories about which input matters.",
+)
+
+CSS = """
+:root { --ink:#1d2329; --muted:#5b6670; --line:#d5dbe0; --accent:#1f5f8b; --soft:#f3f6f8; }
+* { box-sizing: border-box; }
+body { font: 15px/1.5 system-ui, -apple-system, "Segoe UI", Roboto, sans-serif; color: var(--ink);
+       max-width: 980px; margin: 0 auto; padding: 24px 28px 60px; }
+header.top { border-bottom: 3px solid var(--accent); margin-bottom: 18px; padding-bottom: 8px; }
+header.top h1 { font-size: 26px; margin: 0 0 4px; }
+header.top p { margin: 0; color: var(--muted); }
+nav.toc ol { columns: 2; margin: 6px 0 18px; padding-left: 22px; }
+nav.toc a { color: var(--accent); text-decoration: none; }
+section { margin-top: 34px; }
+section > h2 { font-size: 21px; border-left: 6px solid var(--accent); padding-left: 10px; margin-bottom: 6px; }
+h3 { font-size: 16px; margin: 20px 0 6px; }
+p.answer { background: var(--soft); border-radius: 4px; padding: 8px 12px; margin: 6px 0; }
+table { border-collapse: collapse; margin: 8px 0 14px; font-size: 13px; }
+th, td { border-bottom: 1px solid var(--line); padding: 3px 8px; text-align: right; vertical-align: top; }
+th:first-child, td:first-child { text-align: left; }
+td.t, th.t { text-align: left; }
+thead th { background: var(--soft); border-bottom: 2px solid var(--line); }
+td.zero { color: #9aa3ab; }
+td.neg { color: #8c2d19; }
+.muted { color: var(--muted); }
+figure { margin: 10px 0 16px; }
+figure figcaption { font-size: 12px; color: var(--muted); }
+svg.chart { max-width: 100%; height: auto; }
+svg .ct { font: 600 13px system-ui, sans-serif; fill: #1d2329; }
+svg .tk { font: 11px system-ui, sans-serif; fill: #444; }
+svg .al { font: 12px system-ui, sans-serif; fill: #333; }
+svg .lg { font: 11px system-ui, sans-serif; fill: #333; }
+pre.notes { white-space: pre-wrap; font: inherit; background: var(--soft); padding: 10px 12px; border-radius: 4px; }
+.scroll { overflow-x: auto; }
+@media print {
+  body { max-width: none; padding: 0; font-size: 11pt; }
+  nav.toc { display: none; }
+  section { break-before: page; page-break-before: always; margin-top: 0; }
+  section:first-of-type { break-before: auto; page-break-before: auto; }
+  figure, table { break-inside: avoid; page-break-inside: avoid; }
+  .scroll { overflow: visible; }
+  a { color: inherit; text-decoration: none; }
+}
+"""
+
+
+# -- small helpers -------------------------------------------------------------------------
+
+def e(x) -> str:
+    return escape(str(x), quote=True)
+
+
+def num(x, digits: int = 4) -> str:
+    if x is None:
+        return "—"
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return e(x)
+    if math.isnan(v):
+        return "—"
+    if math.isinf(v):
+        return "∞" if v > 0 else "−∞"
+    if v == 0:
+        return "0"
+    a = abs(v)
+    if a >= 1e6 or a < 1e-4:
+        return f"{v:.{digits - 1}e}".replace("-", "−")
+    return f"{v:.{digits}g}".replace("-", "−")
+
+
+def pct(x) -> str:
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return "—"
+    return "—" if not math.isfinite(v) else f"{100 * v:.1f}%"
+
+
+def table(headers, rows, cls_first_text: bool = True, numeric_cols=None) -> str:
+    """An HTML table; cells are escaped unless given as ('html', markup)."""
+    out = ['<div class="scroll"><table><thead><tr>']
+    out += [f'<th{" class=t" if i == 0 else ""}>{e(h)}</th>' for i, h in enumerate(headers)]
+    out.append("</tr></thead><tbody>")
+    for row in rows:
+        out.append("<tr>")
+        for i, cell in enumerate(row):
+            if isinstance(cell, tuple) and cell and cell[0] == "html":
+                out.append(f"<td>{cell[1]}</td>")
+            elif isinstance(cell, tuple) and cell and cell[0] == "cls":
+                out.append(f'<td class="{cell[1]}">{e(cell[2])}</td>')
+            else:
+                out.append(f'<td{" class=t" if (i == 0 and cls_first_text) or isinstance(cell, str) and i > 0 and not _numeric_text(cell) else ""}>{e(cell)}</td>')
+        out.append("</tr>")
+    out.append("</tbody></table></div>")
+    return "".join(out)
+
+
+def _numeric_text(s: str) -> bool:
+    return bool(s) and (s[0].isdigit() or s[0] in "−-—∞.") and len(s) < 16
+
+
+def sentences(items) -> str:
+    return "".join(f'<p class="answer">{e(s)}</p>' for s in (items or ()))
+
+
+def figure(svg_markup: str, caption: str) -> str:
+    return f"<figure>{svg_markup}<figcaption>{e(caption)}</figcaption></figure>"
+
+
+def coef_cell(v) -> tuple:
+    v = float(v)
+    if v == 0.0:
+        return ("cls", "zero", "0")
+    return ("cls", "neg" if v < 0 else "", num(v))
+
+
+# -- sections ------------------------------------------------------------------------------
+
+def _question(session) -> str:
+    d, r = session.design, session.roles
+    preds = list(dict.fromkeys(d.sources))
+    parts = [f'<p class="answer">Which inputs predict <b>{e(d.target)}</b>, and which model of it can we trust? '
+             f'{d.n} of the table\'s {d.n_table_rows} rows are used; {len(d.excluded)} '
+             f'{"is" if len(d.excluded) == 1 else "are"} left out (listed below).</p>']
+    info = [("Table", session.table.source or "(in memory)"), ("Target", d.target),
+            ("Predictors", ", ".join(preds)), ("Design columns", f"{d.p} (categories coded one column per level "
+                                                                   "beside the first)"),
+            ("Categorical marks", ", ".join(r.categorical) or "none"),
+            ("Row weights", r.weights or "none (every row counts once)"),
+            ("Groups kept together", r.groups or "none" if not r.groups else
+             f"{r.groups} ({len(d.group_labels)} groups)")]
+    parts.append(table(["", ""], info))
+    parts.append("<h3>Rows left out, and why</h3>")
+    if d.excluded:
+        parts.append(table(["Table row", "Column", "Reason"], [(str(x.row), x.column, x.reason) for x in d.excluded]))
+    else:
+        parts.append("<p>No row was left out.</p>")
+    parts.append("<h3>Columns that could not be used</h3>")
+    if d.unusable:
+        parts.append(table(["Column", "Reason"], [(u.column, u.reason) for u in d.unusable]))
+    else:
+        parts.append("<p>Every chosen predictor carries usable information.</p>")
+    return "".join(parts)
+
+
+def _overlap(session) -> str:
+    res = session.results
+    if res is None:
+        return "<p>The models have not been fitted.</p>"
+    ols, dg = res.ols, res.diagnostics
+    parts = []
+    if ols.set_aside:
+        parts.append(f'<p class="answer">OLS set {len(ols.set_aside)} column{"s" if len(ols.set_aside) != 1 else ""} '
+                     "aside because the kept columns already reproduce them:</p><ul>")
+        parts += [f"<li>{e(sa.sentence())}</li>" for sa in ols.set_aside]
+        parts.append("</ul>")
+    else:
+        parts.append('<p class="answer">OLS kept every column: none is an exact combination of the others.</p>')
+    parts.append(sentences(dg.sentences))
+    if dg.near_dependencies:
+        parts.append("<h3>Strongly collinear columns</h3>")
+        parts.append(table(["Column", "VIF", "Explained by", "R²"],
+                           [(nd.column, num(nd.vif), ", ".join(nd.explained_by), num(nd.r_squared))
+                            for nd in dg.near_dependencies]))
+    parts.append("<h3>Variance inflation of the kept columns</h3>")
+    parts.append(table(["Column", "VIF"], [(c, num(v)) for c, v in zip(dg.columns, dg.vif)]))
+    parts.append('<p class="muted">A VIF above 10 is commonly read as serious collinearity (common practice, '
+                 "no single source).</p>")
+    parts.append("<h3>Condition indices</h3>")
+    rows = []
+    vp = np.asarray(dg.variance_proportions)
+    for i, ci in enumerate(dg.condition_indices):
+        high = [f"{t} ({pct(vp[i, j])})" for j, t in enumerate(dg.terms) if vp.ndim == 2 and vp[i, j] > 0.5]
+        rows.append((str(i + 1), num(ci), ", ".join(high) or "—"))
+    parts.append(table(["Dimension", "Condition index", "Terms with over half their variance here"], rows))
+    parts.append('<p class="muted">A condition index above 30 with two or more terms over half their variance '
+                 "marks a damaging near-dependency (Belsley, Kuh &amp; Welsch, 1980).</p>")
+    return "".join(parts)
+
+
+def _fits(session) -> str:
+    res = session.results
+    if res is None:
+        return "<p>The models have not been fitted.</p>"
+    models = session.models()
+    alphas = session.alphas()
+    parts = [sentences(getattr(session.structure(), "sentences", ()))]
+    for name, pf in res.penalized.items():
+        label = model_label(name)
+        chosen = alphas.get(name, pf.alpha)
+        how = "set by hand" if name in session.chosen_alpha else {"cv_min": "lowest CV error",
+                                                                  "cv_1se": "one-standard-error rule",
+                                                                  "fixed": "fixed in the settings"}.get(pf.alpha_rule, pf.alpha_rule)
+        parts.append(f"<h3>{e(label)}: chosen α = {num(chosen)} ({e(how)})</h3>")
+        path = pf.path
+        series = [(c, path.alphas, path.coef_std[:, j]) for j, c in enumerate(path.columns)]
+        parts.append(figure(svg.line_chart(series, title=f"{label}: standardized coefficients along the path",
+                                           xlabel="penalty α (log scale)", ylabel="standardized coefficient",
+                                           log_x=True, vlines=[(chosen, "chosen α")], hline=0.0),
+                            f"Each line is one column; the dashed line marks the chosen α = {num(chosen)}."))
+        if pf.cv is not None:
+            cv = pf.cv
+            marks = [(chosen, "chosen"), (cv.alpha_min, "lowest"), (cv.alpha_1se, "1 SE")]
+            parts.append(figure(svg.line_chart(
+                [("CV error", cv.alphas, cv.mean)], band=(cv.alphas, cv.mean - cv.se, cv.mean + cv.se),
+                title=f"{label}: cross-validated error", xlabel="penalty α (log scale)",
+                ylabel="held-out mean squared error", log_x=True, vlines=marks),
+                f"{cv.n_folds} {'grouped ' if cv.grouped else ''}folds; band: ± one standard error. "
+                f"Lowest error at α = {num(cv.alpha_min)}, one-standard-error choice α = {num(cv.alpha_1se)}."))
+    parts.append("<h3>Coefficients side by side (original units)</h3>")
+    names = list(models)
+    rows = [("(intercept)", *[num(models[n].intercept) for n in names])]
+    for j, c in enumerate(res.columns):
+        rows.append((c, *[coef_cell(models[n].coef[j]) for n in names]))
+    parts.append(table(["Column", *[model_label(n) + (f" α={num(models[n].alpha, 3)}" if models[n].alpha else "")
+                                    for n in names]], rows))
+    parts.append('<p class="muted">A grey 0 means the model does not use the column (OLS: set aside; lasso and '
+                 "elastic net: not selected at this α).</p>")
+    groups = [(model_label(n), models[n].coef_std) for n in names]
+    parts.append(figure(svg.bar_chart(list(res.columns), groups, title="Standardized coefficients by model",
+                                      ylabel="coefficient × column SD"),
+                        "Standardized so columns in different units compare."))
+    st = session.structure()
+    for cs in getattr(st, "collinear_sets", ()) or ():
+        parts.append(f"<p>{e(cs.sentence)}</p>")
+    return "".join(parts)
+
+
+def _weighted_rms(v, w):
+    return float(np.sqrt(np.sum(w * v * v) / np.sum(w))) if np.sum(w) > 0 else float("nan")
+
+
+def _agreement(session) -> str:
+    ag = session.agreement()
+    if ag is None:
+        return "<p>The models have not been fitted.</p>"
+    parts = [sentences(ag.sentences)]
+    own = ag.own_error
+    parts.append("<h3>Each model's own error (weighted RMSE against the target)</h3>")
+    parts.append(table(["Model", "On the rows it was fitted on", "On held-out rows"],
+                       [(model_label(n), num(own[n].get("training")), num(own[n].get("held_out"))) for n in ag.models]))
+    for split, title in (("held_out", "Between models, on held-out rows"), ("training", "Between models, on the fitted rows")):
+        rows = [(f"{model_label(p.a)} vs {model_label(p.b)}", num(p.rmse), num(p.max_abs), num(p.corr, 5),
+                 num(p.mean_diff), f"{num(p.loa_low)} to {num(p.loa_high)}") for p in ag.pairs if p.split == split]
+        if rows:
+            parts.append(f"<h3>{e(title)}</h3>")
+            parts.append(table(["Pair", "RMSE of difference", "Largest difference", "Correlation", "Mean difference",
+                                "95% limits of agreement"], rows))
+    d = session.design
+    held = session.heldout()
+    if d.groups is not None and held:
+        parts.append(f"<h3>Held-out error by {e(d.groups_column)}</h3>")
+        parts.append("<p>Each group's rows predicted by models fitted without that group's fold.</p>")
+        names = list(held)
+        rows = []
+        for g, label in enumerate(d.group_labels):
+            m = d.groups == g
+            rows.append((label, str(int(m.sum())), *[num(_weighted_rms(held[n][m] - d.y[m], d.weights[m]))
+                                                     for n in names]))
+        parts.append(table([d.groups_column, "Rows", *[model_label(n) for n in names]], rows))
+    return "".join(parts)
+
+
+def _stress(session) -> str:
+    configs = session.stress_configs
+    if not configs:
+        return "<p>No stress test was set up.</p>"
+    if session.results is None:
+        return "<p>The models have not been fitted.</p>"
+    parts = []
+    for res in session.stress_results():
+        cfg = res.config
+        strength = "" if res.strength is None else f", strength {num(res.strength)}"
+        parts.append(f"<h3>{e(res.column)}: {e(res.kind)}{e(strength)}</h3>")
+        parts.append(sentences(res.sentences))
+        rows = []
+        for n in res.models:
+            s = res.shifts[n]
+            rows.append((model_label(n), "yes" if s.uses_column else "no", num(s.shift_rmse), num(s.mean_shift),
+                         pct(s.moved_share), num(s.error_clean), num(s.error_damaged)))
+        parts.append(table(["Model", "Uses the column", "Shift RMSE", "Mean shift",
+                            f"Rows moved > {num(res.tolerance)}", "Error before", "Error after"], rows))
+        del cfg
+    for sw in session.stress_sweeps():
+        series = [(model_label(n), sw.strengths, sw.shift_rmse[n]) for n in sw.models]
+        parts.append(figure(svg.line_chart(series, title=f"{sw.column}: {sw.kind} at increasing strength",
+                                           xlabel=f"{sw.kind} strength", ylabel="prediction shift (RMSE)"),
+                            "How far each model's predictions move as the damage grows; a flat line at 0 "
+                            "means the model does not use the column."))
+        parts.append(sentences(sw.sentences))
+    return "".join(parts)
+
+
+def _stability(session) -> str:
+    st = session.stability
+    if st is None:
+        return "<p>No stability check was run (bootstrap count 0).</p>"
+    parts = []
+    if not session.stability_current:
+        parts.append('<p class="muted">These refits used an earlier choice of α; run the check again to update them.</p>')
+    parts.append(sentences(getattr(st, "sentences", ())))
+    parts.append(_generic_matrices(st))
+    return "".join(parts)
+
+
+def _generic_matrices(obj) -> str:
+    """Tables for a result's arrays laid out as (models, columns) or (columns,)."""
+    cols = tuple(getattr(obj, "columns", ()) or ())
+    models = tuple(getattr(obj, "models", ()) or ())
+    parts = []
+    import dataclasses
+
+    if not dataclasses.is_dataclass(obj):
+        return ""
+    for f in dataclasses.fields(obj):
+        v = getattr(obj, f.name)
+        title = f.name.replace("_", " ").capitalize()
+        if isinstance(v, np.ndarray) and cols and v.dtype.kind in "fiub":
+            if v.ndim == 2 and v.shape == (len(models), len(cols)):
+                rows = [(c, *[pct(v[i, j]) if _is_share(f.name) else num(v[i, j]) for i in range(len(models))])
+                        for j, c in enumerate(cols)]
+                parts.append(f"<h3>{e(title)}</h3>" + table(["Column", *[model_label(m) for m in models]], rows))
+            elif v.ndim == 1 and v.shape == (len(cols),):
+                parts.append(f"<h3>{e(title)}</h3>" + table(
+                    ["Column", title], [(c, pct(x) if _is_share(f.name) else num(x)) for c, x in zip(cols, v)]))
+        elif isinstance(v, dict) and cols and v and all(isinstance(a, np.ndarray) and a.shape == (len(cols),)
+                                                        for a in v.values()):
+            keys = list(v)
+            rows = [(c, *[pct(v[k][j]) if _is_share(f.name) else num(v[k][j]) for k in keys]) for j, c in enumerate(cols)]
+            parts.append(f"<h3>{e(title)}</h3>" + table(["Column", *[model_label(k) for k in keys]], rows))
+        elif isinstance(v, (int, float)) and not isinstance(v, bool) and f.name not in ("seed",):
+            parts.append(f"<p>{e(title)}: {num(v)}</p>")
+    return "".join(parts)
+
+
+def _is_share(name: str) -> bool:
+    return any(w in name for w in ("share", "freq", "rate", "prob", "selected", "aside"))
+
+
+def _notes(session) -> str:
+    if not session.notes.strip():
+        return '<p class="muted">No notes.</p>'
+    return f'<pre class="notes">{e(session.notes)}</pre>'
+
+
+def _versions() -> list:
+    out = [("regbench", __version__), ("Python", platform.python_version())]
+    for mod in ("numpy", "scipy", "pandas", "sklearn", "statsmodels", "pyarrow"):
+        try:
+            m = __import__(mod)
+            out.append(("scikit-learn" if mod == "sklearn" else mod, getattr(m, "__version__", "?")))
+        except ImportError:
+            out.append((mod, "not installed"))
+    return out
+
+
+def _reproduce(session) -> str:
+    s = session.settings
+    rows = [("Folds", f"{s.folds}{' (grouped by ' + session.roles.groups + ')' if session.roles.groups else ''}"),
+            ("Seed", str(s.seed)), ("α values per path", str(s.n_penalties)),
+            ("Smallest α / largest α", num(s.penalty_ratio)), ("Elastic-net L1 ratios", ", ".join(f"{r:g}" for r in s.l1_ratios)),
+            ("α choice", "fixed α = " + num(s.alpha) if s.alpha is not None else s.alpha_rule),
+            ("Columns OLS must keep", ", ".join(s.pins) or "none"),
+            ("OLS rank tolerance", "engine default" if s.rank_tol is None else num(s.rank_tol)),
+            ("α set by hand", ", ".join(f"{model_label(k)} {num(v)}" for k, v in session.chosen_alpha.items()) or "none"),
+            ("Extra fits", ", ".join(f"{x['name']} ({model_label(x['family'])}, α {num(x['alpha'])})"
+                                      for x in session.extra_fits) or "none"),
+            ("Bootstrap refits", str(session.bootstrap)),
+            ("Table content SHA-256", session.table_hash),
+            ("Project file", session.path or "(not saved)")]
+    parts = ["<p>Penalized models minimise (1/(2W))·Σ wᵢ(yᵢ − b₀ − xᵢβ)² + α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²) on "
+             "weighted-standardized columns (W = Σ wᵢ); ρ = 0 is ridge, ρ = 1 lasso. Coefficients are shown in "
+             "the table's units unless marked standardized.</p>",
+             table(["Setting", "Value"], rows), "<h3>Software</h3>", table(["Package", "Version"], _versions())]
+    return "".join(parts)
+
+
+def _cautions(session) -> str:
+    return "<ul>" + "".join(f"<li>{e(c)}</li>" for c in CAUTIONS) + "</ul>"
+
+
+_BUILDERS = {"question": _question, "overlap": _overlap, "fits": _fits, "agreement": _agreement,
+             "stress": _stress, "stability": _stability, "notes": _notes, "reproduce": _reproduce,
+             "cautions": _cautions}
+
+
+def report_html(session, title: str = None) -> str:
+    """The whole report as one HTML string."""
+    title = title or f"regbench report: {session.design.target}"
+    when = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    body = [f'<header class="top"><h1>{e(title)}</h1><p>Made by regbench {e(__version__)} on {e(when)}'
+            f'{" from " + e(session.path) if session.path else ""}.</p></header>',
+            '<nav class="toc"><ol>' + "".join(f'<li><a href="#{sid}">{e(h)}</a></li>' for sid, h in SECTIONS)
+            + "</ol></nav>"]
+    for sid, heading in SECTIONS:
+        body.append(f'<section id="{sid}"><h2>{e(heading)}</h2>{_BUILDERS[sid](session)}</section>')
+    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+            "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
+            f"<title>{e(title)}</title><style>{CSS}</style></head><body>" + "".join(body) + "</body></html>\n")
+
+
+def render_report(session, path) -> None:
+    """Write the report for ``session`` to ``path`` atomically (UTF-8 HTML)."""
+    from regbench.project.atomic import atomic_write_bytes
+
+    atomic_write_bytes(path, report_html(session).encode("utf-8"))

@@ -1,0 +1,206 @@
+"""Small hand-made SVG charts for the report (plain string building, no plotting library).
+
+Every label goes through :func:`html.escape`, so user column names cannot
+break the markup.
+"""
+
+from __future__ import annotations
+
+import math
+from html import escape
+
+import numpy as np
+
+#: Our palette: distinguishable in print and for common colour-vision deficiencies.
+PALETTE = ("#1f5f8b", "#c8553d", "#2e8b57", "#8a5a9e", "#d4a017", "#4a4a4a", "#0f9bb0", "#a0522d",
+           "#6b8e23", "#b03060")
+
+W, H = 640, 300
+ML, MR, MT, MB = 64, 170, 28, 44
+
+
+def _fmt_tick(v: float) -> str:
+    if v == 0:
+        return "0"
+    a = abs(v)
+    if a >= 1e4 or a < 1e-3:
+        return f"{v:.1e}"
+    return f"{v:.4g}"
+
+
+def _ticks(lo: float, hi: float, n: int = 5):
+    if not (math.isfinite(lo) and math.isfinite(hi)) or hi <= lo:
+        return [lo]
+    raw = (hi - lo) / n
+    mag = 10 ** math.floor(math.log10(raw))
+    step = min((m * mag for m in (1, 2, 2.5, 5, 10) if m * mag >= raw), default=raw)
+    start = math.ceil(lo / step) * step
+    out, v = [], start
+    while v <= hi + 1e-9 * step:
+        out.append(round(v, 12))
+        v += step
+    return out
+
+
+def line_chart(series, *, title: str, xlabel: str, ylabel: str, log_x: bool = False, vlines=(), band=None,
+               hline=None) -> str:
+    """An SVG line chart.
+
+    Parameters
+    ----------
+    series : list of (label, xs, ys)
+    log_x : bool
+        Plot x on a log10 scale (penalty paths).
+    vlines : list of (x, label)
+        Marked positions (e.g. the chosen α).
+    band : (xs, lo, hi) or None
+        A shaded band (e.g. CV mean ± one standard error).
+    """
+    def tx(x):
+        return np.log10(x) if log_x else np.asarray(x, dtype=float)
+
+    xs_all = [tx(np.asarray(s[1], dtype=float)) for s in series]
+    ys_all = [np.asarray(s[2], dtype=float) for s in series]
+    if band is not None:
+        xs_all.append(tx(np.asarray(band[0], dtype=float)))
+        ys_all += [np.asarray(band[1], dtype=float), np.asarray(band[2], dtype=float)]
+    xcat = np.concatenate([x[np.isfinite(x)] for x in xs_all]) if xs_all else np.array([0.0])
+    ycat = np.concatenate([y[np.isfinite(y)] for y in ys_all]) if ys_all else np.array([0.0])
+    if hline is not None:
+        ycat = np.append(ycat, hline)
+    if xcat.size == 0:
+        xcat = np.array([0.0, 1.0])
+    if ycat.size == 0:
+        ycat = np.array([0.0, 1.0])
+    x0, x1 = float(xcat.min()), float(xcat.max())
+    y0, y1 = float(ycat.min()), float(ycat.max())
+    if x1 <= x0:
+        x0, x1 = x0 - 0.5, x1 + 0.5
+    if y1 <= y0:
+        y0, y1 = y0 - 0.5, y1 + 0.5
+    pad = 0.05 * (y1 - y0)
+    y0, y1 = y0 - pad, y1 + pad
+    pw, ph = W - ML - MR, H - MT - MB
+
+    def px(x):
+        return ML + (x - x0) / (x1 - x0) * pw
+
+    def py(y):
+        return MT + (y1 - y) / (y1 - y0) * ph
+
+    out = [f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {W} {H}" width="{W}" height="{H}" '
+           f'role="img" aria-label="{escape(title)}" class="chart">',
+           f'<rect x="0" y="0" width="{W}" height="{H}" fill="#ffffff"/>',
+           f'<text x="{ML}" y="16" class="ct">{escape(title)}</text>']
+    for t in _ticks(y0, y1):
+        yy = py(t)
+        out.append(f'<line x1="{ML}" y1="{yy:.1f}" x2="{ML + pw}" y2="{yy:.1f}" stroke="#e4e4e4"/>')
+        out.append(f'<text x="{ML - 6}" y="{yy + 4:.1f}" text-anchor="end" class="tk">{_fmt_tick(t)}</text>')
+    for t in _ticks(x0, x1):
+        xx = px(t)
+        label = _fmt_tick(10 ** t) if log_x else _fmt_tick(t)
+        out.append(f'<line x1="{xx:.1f}" y1="{MT + ph}" x2="{xx:.1f}" y2="{MT + ph + 4}" stroke="#555"/>')
+        out.append(f'<text x="{xx:.1f}" y="{MT + ph + 16}" text-anchor="middle" class="tk">{label}</text>')
+    out.append(f'<rect x="{ML}" y="{MT}" width="{pw}" height="{ph}" fill="none" stroke="#888"/>')
+    out.append(f'<text x="{ML + pw / 2:.1f}" y="{H - 8}" text-anchor="middle" class="al">{escape(xlabel)}</text>')
+    out.append(f'<text x="14" y="{MT + ph / 2:.1f}" text-anchor="middle" class="al" '
+               f'transform="rotate(-90 14 {MT + ph / 2:.1f})">{escape(ylabel)}</text>')
+    if hline is not None and y0 <= hline <= y1:
+        out.append(f'<line x1="{ML}" y1="{py(hline):.1f}" x2="{ML + pw}" y2="{py(hline):.1f}" stroke="#999" '
+                   'stroke-dasharray="2 3"/>')
+    if band is not None:
+        bx, lo, hi = tx(np.asarray(band[0], dtype=float)), np.asarray(band[1], float), np.asarray(band[2], float)
+        ok = np.isfinite(bx) & np.isfinite(lo) & np.isfinite(hi)
+        if ok.any():
+            pts = [f"{px(a):.1f},{py(b):.1f}" for a, b in zip(bx[ok], hi[ok])]
+            pts += [f"{px(a):.1f},{py(b):.1f}" for a, b in zip(bx[ok][::-1], lo[ok][::-1])]
+            out.append(f'<polygon points="{" ".join(pts)}" fill="#1f5f8b" fill-opacity="0.15" stroke="none"/>')
+    for k, (label, xs, ys) in enumerate(series):
+        x, y = tx(np.asarray(xs, dtype=float)), np.asarray(ys, dtype=float)
+        ok = np.isfinite(x) & np.isfinite(y)
+        colour = PALETTE[k % len(PALETTE)]
+        if ok.sum() >= 2:
+            pts = " ".join(f"{px(a):.1f},{py(b):.1f}" for a, b in zip(x[ok], y[ok]))
+            out.append(f'<polyline points="{pts}" fill="none" stroke="{colour}" stroke-width="1.8"/>')
+        elif ok.sum() == 1:
+            out.append(f'<circle cx="{px(x[ok][0]):.1f}" cy="{py(y[ok][0]):.1f}" r="3" fill="{colour}"/>')
+        if k < 14:
+            ly = MT + 10 + 15 * k
+            out.append(f'<line x1="{ML + pw + 10}" y1="{ly}" x2="{ML + pw + 26}" y2="{ly}" stroke="{colour}" '
+                       'stroke-width="2.5"/>')
+            out.append(f'<text x="{ML + pw + 30}" y="{ly + 4}" class="lg">{escape(_short(label))}</text>')
+    if len(series) > 14:
+        out.append(f'<text x="{ML + pw + 10}" y="{MT + 10 + 15 * 14 + 4}" class="lg">+{len(series) - 14} more</text>')
+    for k, (x, label) in enumerate(vlines):
+        if x is None or not math.isfinite(float(x)) or (log_x and x <= 0):
+            continue
+        xv = float(tx(np.array([x]))[0])
+        if not x0 <= xv <= x1:
+            continue
+        xx = px(xv)
+        out.append(f'<line x1="{xx:.1f}" y1="{MT}" x2="{xx:.1f}" y2="{MT + ph}" stroke="#222" '
+                   f'stroke-dasharray="{"5 3" if k == 0 else "2 2"}"/>')
+        out.append(f'<text x="{xx + 3:.1f}" y="{MT + 12 + 12 * k}" class="tk">{escape(label)}</text>')
+    out.append("</svg>")
+    return "".join(out)
+
+
+def bar_chart(categories, groups, *, title: str, ylabel: str) -> str:
+    """Horizontal grouped bars: one row per category, one bar per group.
+
+    Parameters
+    ----------
+    categories : list of str
+        Row labels (e.g. design columns).
+    groups : list of (label, values)
+        One series per model, values aligned with ``categories``.
+    """
+    n, g = len(categories), max(len(groups), 1)
+    row_h = max(10, 6 * g + 6)
+    left, right = 190, 160
+    width = 640
+    height = MT + 20 + n * row_h + 30
+    vals = np.array([np.asarray(v, dtype=float) for _, v in groups]) if groups else np.zeros((1, n))
+    finite = vals[np.isfinite(vals)]
+    lo = min(0.0, float(finite.min())) if finite.size else -1.0
+    hi = max(0.0, float(finite.max())) if finite.size else 1.0
+    if hi <= lo:
+        lo, hi = -1.0, 1.0
+    pw = width - left - right
+
+    def px(v):
+        return left + (v - lo) / (hi - lo) * pw
+
+    out = [f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width} {height}" width="{width}" '
+           f'height="{height}" role="img" aria-label="{escape(title)}" class="chart">',
+           f'<rect x="0" y="0" width="{width}" height="{height}" fill="#ffffff"/>',
+           f'<text x="{left}" y="16" class="ct">{escape(title)}</text>']
+    top = MT
+    for t in _ticks(lo, hi):
+        xx = px(t)
+        out.append(f'<line x1="{xx:.1f}" y1="{top}" x2="{xx:.1f}" y2="{top + n * row_h}" stroke="#e4e4e4"/>')
+        out.append(f'<text x="{xx:.1f}" y="{top + n * row_h + 14}" text-anchor="middle" class="tk">{_fmt_tick(t)}</text>')
+    out.append(f'<line x1="{px(0):.1f}" y1="{top}" x2="{px(0):.1f}" y2="{top + n * row_h}" stroke="#555"/>')
+    bh = max(3.0, (row_h - 6) / g)
+    for i, cat in enumerate(categories):
+        y = top + i * row_h
+        out.append(f'<text x="{left - 6}" y="{y + row_h / 2 + 4:.1f}" text-anchor="end" class="tk">{escape(_short(cat, 28))}</text>')
+        for k in range(len(groups)):
+            v = vals[k, i]
+            if not math.isfinite(v):
+                continue
+            a, b = sorted((px(0), px(v)))
+            out.append(f'<rect x="{a:.1f}" y="{y + 3 + k * bh:.1f}" width="{max(b - a, 0.6):.1f}" '
+                       f'height="{bh - 0.5:.1f}" fill="{PALETTE[k % len(PALETTE)]}"/>')
+    for k, (label, _) in enumerate(groups[:12]):
+        ly = top + 10 + 15 * k
+        out.append(f'<rect x="{left + pw + 12}" y="{ly - 6}" width="12" height="8" fill="{PALETTE[k % len(PALETTE)]}"/>')
+        out.append(f'<text x="{left + pw + 28}" y="{ly + 2}" class="lg">{escape(_short(label))}</text>')
+    out.append(f'<text x="{left + pw / 2:.1f}" y="{height - 6}" text-anchor="middle" class="al">{escape(ylabel)}</text>')
+    out.append("</svg>")
+    return "".join(out)
+
+
+def _short(text, n: int = 24) -> str:
+    text = str(text)
+    return text if len(text) <= n else text[: n - 1] + "…"
