@@ -1,0 +1,32 @@
+"""Starting the desktop window: ``regbench`` or ``regbench open PATH``."""
+
+from __future__ import annotations
+
+import sys
+from typing import Optional
+
+
+def application():
+    """The QApplication (created once, with our names so settings and recovery files have a home)."""
+    from PySide6 import QtWidgets
+
+    app = QtWidgets.QApplication.instance()
+    if app is None:
+        app = QtWidgets.QApplication(sys.argv[:1])
+    app.setOrganizationName("regbench")
+    app.setApplicationName("regbench")
+    return app
+
+
+def run(path: Optional[str] = None) -> int:
+    """Open the main window (on ``path``, a table or a .regbench project, if given) and run until it closes."""
+    app = application()
+    from regbench.gui.window import MainWindow
+
+    window = MainWindow()
+    window.show()
+    if path:
+        window.open_path(path)
+    else:
+        window.offer_recovery()
+    return int(app.exec())

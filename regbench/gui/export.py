@@ -1,0 +1,85 @@
+"""Writing a plot to PNG or SVG.
+
+SVG goes through Qt's own SVG generator rendering the plot widget, not through
+pyqtgraph's SVG exporter, which fails on Qt 6.11 and later.
+"""
+
+from __future__ import annotations
+
+import os
+
+from PySide6 import QtCore, QtGui, QtSvg, QtWidgets
+
+from regbench.errors import RegbenchError
+
+
+def export_png(plot_widget, path: str, width: int = 1200) -> str:
+    """PNG of a pyqtgraph PlotWidget at ``width`` pixels."""
+    import pyqtgraph.exporters as pgx
+
+    exporter = pgx.ImageExporter(plot_widget.getPlotItem() if hasattr(plot_widget, "getPlotItem") else plot_widget.scene())
+    exporter.parameters()["width"] = int(width)
+    tmp = _beside(path)
+    try:
+        exporter.export(tmp)
+        os.replace(tmp, path)
+    except Exception as exc:
+        _drop(tmp)
+        raise RegbenchError(f"{os.path.basename(path)}: could not write the PNG ({exc}); choose another folder") from None
+    return path
+
+
+def export_svg(widget, path: str, title: str = "regbench plot") -> str:
+    """SVG of a widget (a pyqtgraph PlotWidget or any QWidget) through QSvgGenerator."""
+    size = widget.size()
+    if size.width() < 50 or size.height() < 50:
+        size = QtCore.QSize(900, 600)
+        widget.resize(size)
+    tmp = _beside(path)
+    gen = QtSvg.QSvgGenerator()
+    gen.setFileName(tmp)
+    gen.setSize(size)
+    gen.setViewBox(QtCore.QRect(0, 0, size.width(), size.height()))
+    gen.setTitle(title)
+    gen.setDescription("written by regbench")
+    painter = QtGui.QPainter()
+    if not painter.begin(gen):
+        _drop(tmp)
+        raise RegbenchError(f"{os.path.basename(path)}: could not start the SVG file; check the folder is writable")
+    try:
+        painter.setRenderHint(QtGui.QPainter.Antialiasing)
+        if isinstance(widget, QtWidgets.QGraphicsView):
+            # Render the scene itself so items stay vectors.
+            source = widget.mapToScene(widget.viewport().rect()).boundingRect()
+            widget.scene().render(painter, QtCore.QRectF(0, 0, size.width(), size.height()), source)
+        else:
+            widget.render(painter)
+    finally:
+        painter.end()
+    if not os.path.exists(tmp) or os.path.getsize(tmp) == 0:
+        _drop(tmp)
+        raise RegbenchError(f"{os.path.basename(path)}: the SVG came out empty; try PNG instead")
+    os.replace(tmp, path)
+    return path
+
+
+def export_plot(widget, path: str) -> str:
+    ext = os.path.splitext(path)[1].lower()
+    if ext == ".svg":
+        return export_svg(widget, path)
+    if ext in (".png", ""):
+        return export_png(widget, path if ext else path + ".png")
+    raise RegbenchError(f"{os.path.basename(path)}: plots are written as .png or .svg; choose one of those")
+
+
+def _beside(path: str) -> str:
+    d, b = os.path.split(os.path.abspath(path))
+    ext = os.path.splitext(b)[1]
+    return os.path.join(d, f".{b}.partial{ext}")
+
+
+def _drop(p: str) -> None:
+    try:
+        os.remove(p)
+    except OSError:
+        pass

@@ -1,0 +1,68 @@
+"""The words the window uses, defined once, and the cautions that go with them."""
+
+from __future__ import annotations
+
+from PySide6 import QtWidgets
+
+TERMS = (
+    ("α (penalty)", "How hard a penalized model pulls its coefficients towards zero. Every penalized "
+     "model minimises (1/(2W))·Σ wᵢ(yᵢ − b₀ − xᵢβ)² + α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²) on predictors "
+     "standardized by their weighted mean and SD (W is the sum of the weights). α = 0 is OLS; "
+     "a large α leaves only the intercept. Paths are drawn against log10 α."),
+    ("L1 ratio (ρ)", "The mix of the two penalties: ρ = 0 is ridge (squares only, keeps every column), "
+     "ρ = 1 is lasso (absolute values only, sets columns to exactly zero), in between is elastic net."),
+    ("Chosen α", "The α each penalized model is shown at. By default the one with the lowest "
+     "cross-validated error, or the largest α whose error is within one standard error of that "
+     "lowest (simpler, usually almost as good). Drag the line on the path panel to choose your own."),
+    ("Set aside", "A column OLS leaves out because the columns it kept already reproduce it exactly "
+     "(or up to round-off), such as a mean next to the values averaged or one temperature in two "
+     "units. The window shows the combination that reproduces it and which other column could "
+     "have been set aside instead; any of those can be pinned as the one to keep."),
+    ("VIF", "Variance inflation factor: how many times larger a coefficient's variance is because "
+     "other columns predict that column (1 / (1 − R²) of that column on the others). Above 10 is "
+     "commonly read as strong overlap — a rule of thumb, not a test."),
+    ("Condition index", "For the column-scaled design, the ratio of its largest singular value to each "
+     "smaller one. A large index (above 30 by common practice) with two or more columns holding "
+     "most of its variance proportion marks a near-dependency among those columns."),
+    ("Agreement", "How close two models' predictions are to each other — root mean square and largest "
+     "difference, correlation, mean difference with limits of agreement — judged beside each "
+     "model's own error, on the training rows and on held-out rows."),
+    ("Stress test", "The fitted models stay as they are while one input is damaged (shuffled, noised, "
+     "frozen, rescaled, partly replaced with wild values); the panel shows how far each model's "
+     "predictions move. A model that spreads weight over overlapping columns moves differently "
+     "from one that relies on a single column."),
+    ("Stability", "The models are refitted on bootstrap resamples of the rows (whole groups when a "
+     "group column is set): how often each column is selected by lasso and elastic net, how often "
+     "OLS sets it aside, and how much its coefficient varies."),
+    ("Cross-validation by group", "Held-out error computed with all rows of one group (for example one "
+     "glasshouse) on the same side of the split, so a model is judged on groups it has not seen — "
+     "the situation it will meet in use."),
+)
+
+CAUTIONS = (
+    "Associations are not causes: a coefficient says how predictions change with a column in this "
+    "table, not what would happen if you changed that quantity.",
+    "Judge models on held-out groups, not on the rows they were fitted to.",
+    "A model is only as good as its inputs: a wrong unit, a stuck sensor or a coding change in one "
+    "column moves predictions whatever the fit statistics say — the stress test shows how much.",
+)
+
+
+def help_html() -> str:
+    rows = "".join(f"<dt><b>{t}</b></dt><dd>{d}</dd>" for t, d in TERMS)
+    cautions = "".join(f"<li>{c}</li>" for c in CAUTIONS)
+    return (
+        "<h2>Words used in this window</h2>"
+        f"<dl>{rows}</dl>"
+        "<h2>Cautions</h2>"
+        f"<ul>{cautions}</ul>"
+        "<h2>Keys</h2><p>Ctrl+1 … Ctrl+7 switch panels, Ctrl+R refits, Ctrl+Z undoes the last change, "
+        "Ctrl+S saves, Ctrl+O opens a table or project; tables and projects can also be dropped on the window.</p>"
+    )
+
+
+class HelpView(QtWidgets.QTextBrowser):
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.setOpenExternalLinks(False)
+        self.setHtml(help_html())

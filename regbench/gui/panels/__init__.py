@@ -1,0 +1,1 @@
+"""The panels of the main window, in the order a stakeholder asks its questions."""

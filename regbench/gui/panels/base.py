@@ -1,0 +1,83 @@
+"""What every panel shares: a title, the generated sentences, a body."""
+
+from __future__ import annotations
+
+from PySide6 import QtCore, QtWidgets
+
+Qt = QtCore.Qt
+
+
+class Panel(QtWidgets.QWidget):
+    """A panel answers one question.
+
+    Subclasses set ``key`` and ``title``, build their body in ``build`` and
+    fill it from the session in ``refresh``.
+    """
+
+    key = ""
+    title = ""
+    nav = ""
+
+    def __init__(self, window, parent=None):
+        super().__init__(parent)
+        self.window_ = window
+        outer = QtWidgets.QVBoxLayout(self)
+        outer.setContentsMargins(14, 10, 14, 8)
+        outer.setSpacing(8)
+        self.title_label = QtWidgets.QLabel(self.title)
+        self.title_label.setObjectName("title")
+        outer.addWidget(self.title_label)
+        self.sentences = QtWidgets.QLabel("")
+        self.sentences.setObjectName("sentences")
+        self.sentences.setWordWrap(True)
+        self.sentences.setTextInteractionFlags(Qt.TextSelectableByMouse)
+        self.sentences.setSizePolicy(QtWidgets.QSizePolicy.Preferred, QtWidgets.QSizePolicy.Maximum)
+        outer.addWidget(self.sentences)
+        self.body = QtWidgets.QWidget()
+        outer.addWidget(self.body, 1)
+        self.build(self.body)
+
+    # -- for subclasses ------------------------------------------------------------------
+    def build(self, body: QtWidgets.QWidget) -> None:
+        raise NotImplementedError
+
+    def refresh(self, session) -> None:
+        raise NotImplementedError
+
+    def plots(self) -> list:
+        """pyqtgraph PlotWidgets this panel can export."""
+        return []
+
+    def views(self) -> list:
+        """QTableViews whose contents Copy table can take."""
+        return []
+
+    # -- helpers -------------------------------------------------------------------------
+    def set_sentences(self, sentences) -> None:
+        sentences = [s for s in (sentences or ()) if s]
+        self.sentences.setText(" ".join(sentences) if sentences else "")
+        self.sentences.setVisible(bool(sentences))
+
+    @property
+    def session(self):
+        return self.window_.session
+
+
+def hbox(*widgets, stretch_last=False):
+    w = QtWidgets.QWidget()
+    lay = QtWidgets.QHBoxLayout(w)
+    lay.setContentsMargins(0, 0, 0, 0)
+    for x in widgets:
+        if isinstance(x, int):
+            lay.addStretch(x)
+        else:
+            lay.addWidget(x)
+    if stretch_last:
+        lay.addStretch(1)
+    return w
+
+
+def caption(text: str) -> QtWidgets.QLabel:
+    lab = QtWidgets.QLabel(text)
+    lab.setStyleSheet("color: #66707a; font-weight: 600;")
+    return lab

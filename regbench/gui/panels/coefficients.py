@@ -1,0 +1,121 @@
+"""How the fits differ: every model's coefficients side by side."""
+
+from __future__ import annotations
+
+import numpy as np
+import pyqtgraph as pg
+from PySide6 import QtCore, QtWidgets
+
+from regbench.gui.panels.base import Panel, caption, hbox
+from regbench.gui.style import PALETTE, model_colour
+from regbench.gui.tables import GridModel, WARN_BG, make_view
+from regbench.models.results import model_label
+
+Qt = QtCore.Qt
+
+
+class CoefficientsPanel(Panel):
+    key = "coefficients"
+    title = "How the fits differ: coefficients side by side"
+    nav = "How fits differ · weights"
+
+    def build(self, body):
+        lay = QtWidgets.QVBoxLayout(body)
+        lay.setContentsMargins(0, 0, 0, 0)
+        self.scale = QtWidgets.QComboBox()
+        self.scale.addItem("in table units", "orig")
+        self.scale.addItem("standardized (per SD of the column)", "std")
+        self.scale.currentIndexChanged.connect(lambda *_: self.session is not None and self.refresh(self.session))
+        lay.addWidget(hbox(caption("Coefficients"), self.scale, stretch_last=True))
+        split = QtWidgets.QSplitter(Qt.Horizontal)
+        self.model = GridModel()
+        self.view = make_view(self.model)
+        split.addWidget(self.view)
+        self.plot = pg.PlotWidget()
+        self.plot.export_name = "standardized coefficients"
+        self.plot.showGrid(x=True, y=False, alpha=0.25)
+        self.plot.setLabel("bottom", "standardized coefficient")
+        split.addWidget(self.plot)
+        split.setSizes([760, 440])
+        lay.addWidget(split, 1)
+
+    def plots(self):
+        return [self.plot]
+
+    def views(self):
+        return [self.view]
+
+    def view_state(self):
+        return {"scale": self.scale.currentData()}
+
+    def restore_view_state(self, state):
+        i = self.scale.findData(state.get("scale"))
+        if i >= 0:
+            self.scale.setCurrentIndex(i)
+
+    def refresh(self, session):
+        results = session.results
+        if results is None:
+            self.model.set_rows([], [])
+            self.plot.clear()
+            self.set_sentences(["Fit the models to compare their coefficients."])
+            return
+        models = session.models()
+        std = self.scale.currentData() == "std"
+        ols = results.ols
+        cols = list(results.columns)
+        aside = {sa.column: sa for sa in ols.set_aside}
+        names = list(models)
+        headers = []
+        for n in names:
+            headers.append(model_label(n))
+            if n == "ols":
+                headers += ["OLS SE", "OLS p"]
+        rows, bg, fg, tips = [], {}, {}, {}
+        for i, c in enumerate(cols):
+            row = []
+            for n in names:
+                m = models[n]
+                v = float(m.coef_std[i] if std else m.coef[i])
+                k = len(row)
+                if n == "ols" and c in aside:
+                    row += ["set aside", None, None]
+                    bg[(i, k)] = WARN_BG
+                    tips[(i, k)] = aside[c].sentence()
+                    continue
+                row.append(v)
+                if v == 0.0 and n != "ols":
+                    fg[(i, k)] = PALETTE["muted"]
+                    tips[(i, k)] = f"{model_label(n)} does not use {c} at this α"
+                if n == "ols":
+                    se = float(ols.std_errors[i])
+                    if std:
+                        se = se * float(m.coef_std[i] / m.coef[i]) if m.coef[i] != 0 else float("nan")
+                    row += [se, float(ols.p_values[i])]
+            rows.append(row)
+        self.model.set_rows(rows, headers, row_labels=cols, backgrounds=bg, foregrounds=fg, tips=tips)
+        self.view.resizeColumnsToContents()
+        self._draw(models, cols)
+        st = session.structure()
+        sentences = list(getattr(st, "sentences", ()) or ())
+        if not sentences:
+            sentences = [f"{len(names)} models over {len(cols)} columns; OLS set aside {len(aside)}."]
+        self.set_sentences(sentences[:3])
+
+    def _draw(self, models, cols):
+        self.plot.clear()
+        legend = self.plot.getPlotItem().legend or self.plot.addLegend(offset=(-10, 10), labelTextSize="8pt")
+        legend.clear()
+        p = len(cols)
+        k = len(models)
+        height = 0.8 / max(k, 1)
+        for j, (n, m) in enumerate(models.items()):
+            y = np.arange(p)[::-1] + (j - (k - 1) / 2) * height
+            bar = pg.BarGraphItem(x0=np.zeros(p), y=y, height=height * 0.9, width=np.asarray(m.coef_std, float),
+                                  brush=model_colour(n), pen=None, name=model_label(n))
+            self.plot.addItem(bar)
+            legend.addItem(bar, model_label(n))
+        ticks = [(p - 1 - i, c) for i, c in enumerate(cols)]
+        self.plot.getAxis("left").setTicks([ticks])
+        self.plot.addItem(pg.InfiniteLine(pos=0, angle=90, pen=pg.mkPen(PALETTE["muted"])))
+        self.plot.setYRange(-0.6, p - 0.4, padding=0)

@@ -1,0 +1,164 @@
+"""What overlaps: columns OLS set aside, near-dependencies, VIF, condition indices, correlations."""
+
+from __future__ import annotations
+
+import numpy as np
+import pyqtgraph as pg
+from PySide6 import QtCore, QtWidgets
+
+from regbench.gui.panels.base import Panel, caption
+from regbench.gui.style import CORR_STOPS, PALETTE
+from regbench.gui.tables import GridModel, WARN_BG, make_view
+
+Qt = QtCore.Qt
+VIF_STRONG = 10.0   # common practice
+CI_STRONG = 30.0    # common practice (Belsley, Kuh & Welsch)
+SHARE_STRONG = 0.5
+
+
+def weighted_corr(X: np.ndarray, w: np.ndarray) -> np.ndarray:
+    w = w / w.sum()
+    m = w @ X
+    Xc = X - m
+    cov = (Xc * w[:, None]).T @ Xc
+    sd = np.sqrt(np.diag(cov))
+    sd = np.where(sd > 0, sd, np.nan)
+    return cov / np.outer(sd, sd)
+
+
+def corr_colormap():
+    pos = [p for p, _ in CORR_STOPS]
+    col = [c for _, c in CORR_STOPS]
+    return pg.ColorMap(pos, col)
+
+
+class OverlapsPanel(Panel):
+    key = "overlaps"
+    title = "What overlaps in this table"
+    nav = "What overlaps"
+
+    def build(self, body):
+        lay = QtWidgets.QHBoxLayout(body)
+        lay.setContentsMargins(0, 0, 0, 0)
+        left = QtWidgets.QWidget()
+        ll = QtWidgets.QVBoxLayout(left)
+        ll.setContentsMargins(0, 0, 0, 0)
+        ll.addWidget(caption("Set aside by OLS, and why"))
+        self.aside_text = QtWidgets.QTextBrowser()
+        self.aside_text.setMaximumHeight(190)
+        ll.addWidget(self.aside_text)
+        ll.addWidget(caption("Variance inflation (VIF) and what explains each column"))
+        self.vif_model = GridModel()
+        self.vif_view = make_view(self.vif_model)
+        ll.addWidget(self.vif_view, 2)
+        ll.addWidget(caption("Condition indices with variance proportions"))
+        self.ci_model = GridModel()
+        self.ci_view = make_view(self.ci_model, stretch_last=False)
+        ll.addWidget(self.ci_view, 2)
+        right = QtWidgets.QWidget()
+        rl = QtWidgets.QVBoxLayout(right)
+        rl.setContentsMargins(0, 0, 0, 0)
+        rl.addWidget(caption("Correlation between design columns (weighted)"))
+        self.glw = pg.GraphicsLayoutWidget()
+        self.glw.export_name = "correlation map"
+        self.corr_plot = self.glw.addPlot()
+        self.corr_plot.setAspectLocked(True)
+        self.corr_plot.invertY(True)
+        self.image = pg.ImageItem()
+        self.corr_plot.addItem(self.image)
+        self.image.setColorMap(corr_colormap())
+        self.bar = pg.ColorBarItem(values=(-1, 1), colorMap=corr_colormap(), width=14, interactive=False)
+        self.bar.setImageItem(self.image, insert_in=self.corr_plot)
+        self.corr_readout = QtWidgets.QLabel(" ")
+        self.corr_readout.setStyleSheet(f"color: {PALETTE['muted']};")
+        rl.addWidget(self.glw, 1)
+        rl.addWidget(self.corr_readout)
+        self.glw.scene().sigMouseMoved.connect(self._hover)
+        split = QtWidgets.QSplitter(Qt.Horizontal)
+        split.addWidget(left)
+        split.addWidget(right)
+        split.setSizes([640, 560])
+        lay.addWidget(split)
+        self._corr = None
+        self._corr_cols = ()
+
+    def plots(self):
+        return [self.glw]
+
+    def views(self):
+        return [self.vif_view, self.ci_view]
+
+    def refresh(self, session):
+        results = session.results
+        design = session.design
+        self._draw_corr(design)
+        if results is None:
+            self.set_sentences(["Fit the models to see which columns OLS sets aside."])
+            return
+        ols, diag = results.ols, results.diagnostics
+        if ols.set_aside:
+            html = "".join(f"<p><b>{sa.column}</b>: {sa.sentence()}</p>" for sa in ols.set_aside)
+        else:
+            html = "<p>OLS kept every column: none is reproduced by the others.</p>"
+        if diag.near_dependencies:
+            html += "".join(f"<p>{nd.sentence}</p>" for nd in diag.near_dependencies)
+        self.aside_text.setHtml(html)
+        nd = {d.column: d for d in diag.near_dependencies}
+        rows, bg = [], {}
+        for i, c in enumerate(diag.columns):
+            v = float(diag.vif[i])
+            d = nd.get(c)
+            rows.append([c, v, ", ".join(d.explained_by) if d else "", d.r_squared if d else None])
+            if v > VIF_STRONG:
+                bg[(i, 1)] = WARN_BG
+        self.vif_model.set_rows(rows, ["Column", "VIF", "Mostly explained by", "R² of that"], backgrounds=bg)
+        self.vif_view.resizeColumnsToContents()
+        ci = np.asarray(diag.condition_indices)
+        vp = np.asarray(diag.variance_proportions)
+        order = np.argsort(ci)[::-1]  # the worst dimension first
+        rows, bg = [], {}
+        for r, i in enumerate(order):
+            rows.append([float(ci[i])] + [float(v) for v in vp[i]])
+            if ci[i] > CI_STRONG:
+                bg[(r, 0)] = WARN_BG
+                for j, v in enumerate(vp[i]):
+                    if v > SHARE_STRONG:
+                        bg[(r, j + 1)] = WARN_BG
+        self.ci_model.set_rows(rows, ["Condition index"] + list(diag.terms), backgrounds=bg, digits=3)
+        self.ci_view.resizeColumnsToContents()
+        sentences = [sa.sentence() for sa in ols.set_aside[:2]]
+        sentences += list(diag.sentences[:2])
+        self.set_sentences(sentences or ["No column overlaps strongly with the others."])
+
+    def _draw_corr(self, design):
+        if design is None or design.p == 0:
+            self.image.clear()
+            return
+        if self._corr is not None and self._corr_cols == design.columns and self._corr_n == design.n:
+            return
+        X = design.X
+        if design.n > 200_000:  # a seeded row sample keeps the map quick on big tables
+            rows = np.random.default_rng(0).choice(design.n, 200_000, replace=False)
+            X, w = X[rows], design.weights[rows]
+        else:
+            w = design.weights
+        with np.errstate(invalid="ignore", divide="ignore"):
+            C = weighted_corr(X, w)
+        self._corr, self._corr_cols, self._corr_n = C, design.columns, design.n
+        self.image.setImage(np.nan_to_num(C.T), levels=(-1, 1))
+        p = design.p
+        short = [c if len(c) <= 18 else c[:16] + "…" for c in design.columns]
+        step = 1 if p <= 40 else max(1, p // 20)
+        # Names down the side, their numbers along the bottom (long names would collide there).
+        self.corr_plot.getAxis("left").setTicks([[(j + 0.5, f"{short[j]}  {j + 1}") for j in range(0, p, step)]])
+        self.corr_plot.getAxis("bottom").setTicks([[(j + 0.5, str(j + 1)) for j in range(0, p, step)]])
+        self.corr_plot.setRange(xRange=(0, p), yRange=(0, p), padding=0.02)
+
+    def _hover(self, pos):
+        if self._corr is None:
+            return
+        pt = self.corr_plot.vb.mapSceneToView(pos)
+        i, j = int(np.floor(pt.y())), int(np.floor(pt.x()))
+        p = len(self._corr_cols)
+        if 0 <= i < p and 0 <= j < p:
+            self.corr_readout.setText(f"{self._corr_cols[i]} × {self._corr_cols[j]}: r = {self._corr[i, j]:.3f}")

@@ -1,0 +1,242 @@
+"""When an input breaks: damage one column and see which model's predictions move."""
+
+from __future__ import annotations
+
+import numpy as np
+import pyqtgraph as pg
+from PySide6 import QtCore, QtWidgets
+
+from regbench.errors import RegbenchError
+from regbench.gui.panels.base import Panel, caption, hbox
+from regbench.gui.style import PALETTE, model_colour
+from regbench.gui.tables import GridModel, WARN_BG, make_view
+from regbench.models.results import model_label
+
+Qt = QtCore.Qt
+KIND_WORDS = {
+    "shuffle": "shuffle (share of rows)",
+    "noise": "add noise (× its SD)",
+    "constant": "freeze at a constant",
+    "rescale": "rescale (a unit change)",
+    "wild": "wild values (share of rows)",
+    "missing": "lose values (share of rows)",
+}
+
+
+class StressPanel(Panel):
+    key = "stress"
+    title = "When an input breaks: the stress test"
+    nav = "When an input breaks"
+
+    def build(self, body):
+        from regbench.analysis.stress import KINDS
+
+        lay = QtWidgets.QVBoxLayout(body)
+        lay.setContentsMargins(0, 0, 0, 0)
+        self.column = QtWidgets.QComboBox()
+        self.column.setMinimumWidth(170)
+        self.kind = QtWidgets.QComboBox()
+        for k in KINDS:
+            self.kind.addItem(KIND_WORDS.get(k, k), k)
+        self.kind.currentIndexChanged.connect(self._kind_changed)
+        self.use_default = QtWidgets.QCheckBox("default strength")
+        self.use_default.setChecked(True)
+        self.strength = QtWidgets.QDoubleSpinBox()
+        self.strength.setRange(0.0, 1000.0)
+        self.strength.setDecimals(3)
+        self.strength.setSingleStep(0.1)
+        self.strength.setEnabled(False)
+        self.use_default.toggled.connect(lambda on: self.strength.setEnabled(not on))
+        self.seed = QtWidgets.QSpinBox()
+        self.seed.setRange(0, 1_000_000)
+        self.run_btn = QtWidgets.QPushButton("Run")
+        self.run_btn.setObjectName("primary")
+        self.run_btn.clicked.connect(self.run)
+        self.rank_btn = QtWidgets.QPushButton("Rank every column")
+        self.rank_btn.clicked.connect(self.rank)
+        lay.addWidget(hbox(caption("Damage"), self.column, self.kind, self.use_default, self.strength,
+                           caption("seed"), self.seed, self.run_btn, self.rank_btn, stretch_last=True))
+        self.history = QtWidgets.QComboBox()
+        self.history.currentIndexChanged.connect(self._show_history)
+        lay.addWidget(hbox(caption("Tests kept in this session"), self.history, stretch_last=True))
+        split = QtWidgets.QSplitter(Qt.Horizontal)
+        left = QtWidgets.QWidget()
+        ll = QtWidgets.QVBoxLayout(left)
+        ll.setContentsMargins(0, 0, 0, 0)
+        ll.addWidget(caption("How far each model moved"))
+        self.shift_model = GridModel()
+        self.shift_view = make_view(self.shift_model)
+        ll.addWidget(self.shift_view, 1)
+        ll.addWidget(caption("Every column damaged in turn (shift RMS of predictions)"))
+        self.rank_model = GridModel()
+        self.rank_view = make_view(self.rank_model)
+        ll.addWidget(self.rank_view, 1)
+        split.addWidget(left)
+        self.plot = pg.PlotWidget()
+        self.plot.export_name = "stress sweep"
+        self.plot.showGrid(x=True, y=True, alpha=0.25)
+        self.plot.setLabel("left", "RMS shift of predictions")
+        split.addWidget(self.plot)
+        split.setSizes([640, 560])
+        lay.addWidget(split, 1)
+        self.result = None
+        self.sweep = None
+        self.ranking = None
+
+    def plots(self):
+        return [self.plot]
+
+    def views(self):
+        return [self.shift_view, self.rank_view]
+
+    def _kind_changed(self, *_):
+        from regbench.analysis.stress import DEFAULT_STRENGTH
+
+        d = DEFAULT_STRENGTH.get(self.kind.currentData())
+        if d is not None:
+            self.strength.setValue(d)
+
+    # -- commands -----------------------------------------------------------------------
+    def config(self):
+        from regbench.analysis.stress import StressConfig
+
+        strength = None if self.use_default.isChecked() else float(self.strength.value())
+        return StressConfig(column=self.column.currentText(), kind=self.kind.currentData(), strength=strength,
+                            seed=int(self.seed.value()))
+
+    def run(self):
+        """Damage the chosen column off the GUI thread, then keep the test in the session."""
+        session = self.session
+        if session is None or session.results is None:
+            return
+        from regbench.session import check_stress
+
+        config = self.config()
+        try:
+            check_stress(config, session.design, session.table)
+        except RegbenchError as exc:
+            self.window_.show_error("This stress test cannot run", exc)
+            return
+        design, models = session.design, session.models()
+
+        def work(progress, cancel):
+            from regbench.analysis.stress import run_stress, stress_sweep
+
+            progress(0, 2, f"stress test: {config.kind} {config.column}")
+            result = run_stress(design, models, config)
+            sweep = None
+            if config.kind != "constant":
+                progress(1, 2, "strength sweep")
+                sweep = stress_sweep(design, models, config.column, config.kind, seed=config.seed,
+                                     tolerance=config.tolerance)
+            return result, sweep
+
+        def done(out):
+            if self.session is not session:
+                return
+            self.result, self.sweep = out
+            try:
+                session.add_stress(config)
+            except RegbenchError as exc:
+                self.window_.show_error("The stress test was not kept", exc)
+            self._show(self.result, self.sweep)
+
+        self.window_.run_job(work, "Stress test", done, slot="stress")
+
+    def rank(self):
+        session = self.session
+        if session is None or session.results is None:
+            return
+        design, models = session.design, session.models()
+        kind = self.kind.currentData()
+        strength = None if self.use_default.isChecked() else float(self.strength.value())
+        seed = int(self.seed.value())
+
+        def work(progress, cancel):
+            from regbench.analysis.stress import rank_columns
+
+            return rank_columns(design, models, kind=kind, strength=strength, seed=seed, progress=progress, cancel=cancel)
+
+        def done(rk):
+            self.ranking = rk
+            self._show_ranking(rk)
+            self.set_sentences(list(rk.sentences[:3]))
+
+        self.window_.run_job(work, "Ranking the columns", done, slot="stress")
+
+    # -- display ------------------------------------------------------------------------
+    def refresh(self, session):
+        design = session.design
+        cols = list(dict.fromkeys(design.sources)) if design is not None else []
+        cur = self.column.currentText()
+        self.column.blockSignals(True)
+        self.column.clear()
+        self.column.addItems(cols)
+        if cur in cols:
+            self.column.setCurrentText(cur)
+        self.column.blockSignals(False)
+        if session.results is None:
+            self.set_sentences(["Fit the models, then damage one input to see which model moves."])
+            return
+        configs = list(session.stress_configs)
+        self.history.blockSignals(True)
+        self.history.clear()
+        for i, c in enumerate(configs):
+            strength = "default" if c.strength is None else f"{c.strength:g}"
+            self.history.addItem(f"{i + 1}. {c.kind} {c.column} ({strength})", i)
+        self.history.blockSignals(False)
+        if configs:
+            self.history.setCurrentIndex(len(configs) - 1)
+            self._show_history()
+        else:
+            self.set_sentences(["No stress test yet: choose a column and a kind of damage, then Run."])
+        if self.ranking is not None and self.ranking.models == tuple(session.models()):
+            self._show_ranking(self.ranking)
+
+    def _show_history(self, *_):
+        session = self.session
+        i = self.history.currentData()
+        if session is None or i is None:
+            return
+        results = session.stress_results()
+        if not 0 <= i < len(results):
+            return
+        res = results[i]
+        sweep = None
+        for sw in session.stress_sweeps():
+            if sw.column == res.config.column and sw.kind == res.config.kind:
+                sweep = sw
+        self._show(res, sweep)
+
+    def _show(self, res, sweep):
+        rows, bg = [], {}
+        worst = max((res.shifts[n].shift_rmse for n in res.models), default=0.0)
+        for r, n in enumerate(res.models):
+            s = res.shifts[n]
+            rows.append([model_label(n), "yes" if s.uses_column else "no", s.shift_rmse, s.mean_shift,
+                         s.moved_share, s.error_clean, s.error_damaged])
+            if worst > 0 and s.shift_rmse == worst:
+                bg[(r, 2)] = WARN_BG
+        self.shift_model.set_rows(rows, ["Model", "Uses it", "RMS shift", "Mean shift", "Share moved",
+                                         "Error before", "Error after"], backgrounds=bg)
+        self.shift_view.resizeColumnsToContents()
+        self.plot.clear()
+        legend = self.plot.getPlotItem().legend or self.plot.addLegend(offset=(10, 10), labelTextSize="8pt")
+        legend.clear()
+        if sweep is not None:
+            for n in sweep.models:
+                c = model_colour(n)
+                self.plot.plot(np.asarray(sweep.strengths), np.asarray(sweep.shift_rmse[n]), pen=pg.mkPen(c, width=2),
+                               symbol="o", symbolSize=6, symbolBrush=c, symbolPen=None, name=model_label(n))
+            self.plot.setLabel("bottom", f"strength of '{KIND_WORDS.get(sweep.kind, sweep.kind)}' on {sweep.column}")
+        sentences = list(res.sentences[:2])
+        if sweep is not None:
+            sentences += list(sweep.sentences[:1])
+        self.set_sentences(sentences)
+
+    def _show_ranking(self, rk):
+        shift = np.asarray(rk.shift_rmse)
+        order = np.argsort(-shift.max(axis=0))
+        rows = [[rk.columns[j]] + [float(shift[i, j]) for i in range(len(rk.models))] for j in order]
+        self.rank_model.set_rows(rows, ["Column"] + [model_label(n) for n in rk.models])
+        self.rank_view.resizeColumnsToContents()

@@ -1,0 +1,60 @@
+"""Rendering every panel of a project's window to PNG files, offscreen."""
+
+from __future__ import annotations
+
+import os
+
+SIZE = (1400, 900)
+
+
+def snapshot(project_path, out_dir, size=SIZE) -> list:
+    """Open ``project_path`` in a window of ``size`` and write one PNG per panel plus the roles panel.
+
+    Returns
+    -------
+    list of str
+        The files written, in panel order.
+    """
+    os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+    from PySide6 import QtCore, QtWidgets
+
+    from regbench.gui.app import application
+    from regbench.gui.window import MainWindow
+    from regbench.project import load_project
+
+    app = application()
+    session = load_project(os.fspath(project_path))
+    os.makedirs(out_dir, exist_ok=True)
+    window = MainWindow(autosave=False)
+    window.resize(*size)
+    window.show()
+    window.adopt(session, path=os.fspath(project_path), fit=False)
+    if not window.has_results():
+        # A project saved without results: fit now and wait for the worker.
+        window.refit()
+        loop = QtCore.QEventLoop()
+        window.results_applied.connect(loop.quit)
+        window.job_failed.connect(lambda *_: loop.quit())
+        QtCore.QTimer.singleShot(600_000, loop.quit)
+        loop.exec()
+    paths = []
+    for i, panel in enumerate(window.panels):
+        window.show_panel(i)
+        window._refresh_panel(panel)
+        _settle(app)
+        path = os.path.join(out_dir, f"{i + 1:02d}_{panel.key}.png")
+        window.grab().save(path)
+        paths.append(path)
+    path = os.path.join(out_dir, "00_roles.png")
+    window.roles_panel.grab().save(path)
+    paths.append(path)
+    window.dirty = False
+    window.close()
+    return paths
+
+
+def _settle(app, rounds: int = 5) -> None:
+    from PySide6 import QtCore
+
+    for _ in range(rounds):
+        app.processEvents(QtCore.QEventLoop.AllEvents, 50)

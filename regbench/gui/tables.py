@@ -1,0 +1,181 @@
+"""Qt table models: a lazy view over a DataFrame and a small generic grid.
+
+Neither creates per-cell items: ``data()`` formats a cell when the view asks
+for it, so a million-row table opens at once.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Optional, Sequence
+
+import numpy as np
+from PySide6 import QtCore, QtGui, QtWidgets
+
+from regbench.gui.style import PALETTE
+
+Qt = QtCore.Qt
+
+
+def fmt(v, digits: int = 4) -> str:
+    """Short display text for a cell value."""
+    if v is None:
+        return ""
+    if isinstance(v, (bool, np.bool_)):
+        return "yes" if v else "no"
+    if isinstance(v, (int, np.integer)):
+        return str(int(v))
+    if isinstance(v, (float, np.floating)):
+        x = float(v)
+        if math.isnan(x):
+            return ""
+        if math.isinf(x):
+            return "∞" if x > 0 else "−∞"
+        if x == 0:
+            return "0"
+        if abs(x) >= 1e6 or abs(x) < 1e-4:
+            return f"{x:.{digits - 1}e}"
+        return f"{x:.{digits}g}" if abs(x) >= 1 else f"{x:.{digits}f}".rstrip("0").rstrip(".")
+    return str(v)
+
+
+class FrameModel(QtCore.QAbstractTableModel):
+    """Read-only view of a DataFrame; rows numbered 1.. as messages number them."""
+
+    def __init__(self, frame=None, parent=None):
+        super().__init__(parent)
+        self.set_frame(frame)
+
+    def set_frame(self, frame) -> None:
+        self.beginResetModel()
+        if frame is None:
+            self._names, self._cols, self._n = [], [], 0
+        else:
+            self._names = [str(c) for c in frame.columns]
+            self._cols = [frame[c].to_numpy() for c in frame.columns]
+            self._n = len(frame)
+        self.endResetModel()
+
+    def rowCount(self, parent=QtCore.QModelIndex()):
+        return 0 if parent.isValid() else self._n
+
+    def columnCount(self, parent=QtCore.QModelIndex()):
+        return 0 if parent.isValid() else len(self._cols)
+
+    def data(self, index, role=Qt.DisplayRole):
+        if role == Qt.DisplayRole:
+            return fmt(self._cols[index.column()][index.row()], 6)
+        if role == Qt.TextAlignmentRole:
+            col = self._cols[index.column()]
+            return int(Qt.AlignRight | Qt.AlignVCenter) if col.dtype.kind in "fiub" else int(Qt.AlignLeft | Qt.AlignVCenter)
+        return None
+
+    def headerData(self, section, orientation, role=Qt.DisplayRole):
+        if role != Qt.DisplayRole:
+            return None
+        if orientation == Qt.Horizontal:
+            return self._names[section] if section < len(self._names) else None
+        return str(section + 1)
+
+
+class GridModel(QtCore.QAbstractTableModel):
+    """A small read-only grid of values with optional per-cell colours and tips.
+
+    Parameters
+    ----------
+    rows : list of list
+    headers : sequence of str
+    row_labels : sequence of str, optional
+    backgrounds : dict (row, col) -> colour, optional
+    foregrounds : dict (row, col) -> colour, optional
+    tips : dict (row, col) -> str, optional
+    """
+
+    def __init__(self, rows=(), headers=(), row_labels=None, parent=None):
+        super().__init__(parent)
+        self.set_rows(rows, headers, row_labels)
+
+    def set_rows(self, rows, headers, row_labels=None, backgrounds=None, foregrounds=None, tips=None, digits=4):
+        self.beginResetModel()
+        self.rows = [list(r) for r in rows]
+        self.headers = list(headers)
+        self.row_labels = list(row_labels) if row_labels is not None else None
+        self.backgrounds = backgrounds or {}
+        self.foregrounds = foregrounds or {}
+        self.tips = tips or {}
+        self.digits = digits
+        self.endResetModel()
+
+    def rowCount(self, parent=QtCore.QModelIndex()):
+        return 0 if parent.isValid() else len(self.rows)
+
+    def columnCount(self, parent=QtCore.QModelIndex()):
+        return 0 if parent.isValid() else len(self.headers)
+
+    def value(self, r: int, c: int):
+        return self.rows[r][c]
+
+    def data(self, index, role=Qt.DisplayRole):
+        r, c = index.row(), index.column()
+        v = self.rows[r][c] if c < len(self.rows[r]) else None
+        if role == Qt.DisplayRole:
+            return fmt(v, self.digits)
+        if role == Qt.TextAlignmentRole:
+            if isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool):
+                return int(Qt.AlignRight | Qt.AlignVCenter)
+            return int(Qt.AlignLeft | Qt.AlignVCenter)
+        if role == Qt.BackgroundRole and (r, c) in self.backgrounds:
+            return QtGui.QBrush(QtGui.QColor(self.backgrounds[(r, c)]))
+        if role == Qt.ForegroundRole and (r, c) in self.foregrounds:
+            return QtGui.QBrush(QtGui.QColor(self.foregrounds[(r, c)]))
+        if role == Qt.ToolTipRole and (r, c) in self.tips:
+            return self.tips[(r, c)]
+        return None
+
+    def headerData(self, section, orientation, role=Qt.DisplayRole):
+        if role != Qt.DisplayRole:
+            return None
+        if orientation == Qt.Horizontal:
+            return self.headers[section] if section < len(self.headers) else None
+        if self.row_labels is not None and section < len(self.row_labels):
+            return self.row_labels[section]
+        return str(section + 1)
+
+
+def make_view(model: QtCore.QAbstractTableModel, stretch_last: bool = True) -> QtWidgets.QTableView:
+    view = QtWidgets.QTableView()
+    view.setModel(model)
+    view.setAlternatingRowColors(True)
+    view.setSelectionBehavior(QtWidgets.QAbstractItemView.SelectItems)
+    view.horizontalHeader().setStretchLastSection(stretch_last)
+    view.verticalHeader().setDefaultSectionSize(22)
+    view.setWordWrap(False)
+    return view
+
+
+def model_to_tsv(model: QtCore.QAbstractItemModel, rows: Optional[Sequence[int]] = None,
+                 cols: Optional[Sequence[int]] = None) -> str:
+    """Tab-separated text of a model (header line first), for the clipboard."""
+    rows = range(model.rowCount()) if rows is None else rows
+    cols = range(model.columnCount()) if cols is None else cols
+    clean = lambda s: "" if s is None else str(s).replace("\t", " ").replace("\n", " ")
+    vheader = [clean(model.headerData(r, Qt.Vertical)) for r in rows]
+    lines = ["\t".join([""] + [clean(model.headerData(c, Qt.Horizontal)) for c in cols])]
+    for r, label in zip(rows, vheader):
+        lines.append("\t".join([label] + [clean(model.data(model.index(r, c))) for c in cols]))
+    return "\n".join(lines) + "\n"
+
+
+def view_to_tsv(view: QtWidgets.QTableView) -> str:
+    """The selected cells of a view (or the whole table if nothing is selected)."""
+    model = view.model()
+    sel = view.selectionModel().selectedIndexes() if view.selectionModel() else []
+    if not sel:
+        return model_to_tsv(model)
+    rows = sorted({i.row() for i in sel})
+    cols = sorted({i.column() for i in sel})
+    return model_to_tsv(model, rows, cols)
+
+
+WARN_BG = "#f6e3dc"
+OK_BG = PALETTE["accent_soft"]

@@ -1,0 +1,658 @@
+"""The main window: panels, the roles side panel, menus, the worker and the status bar."""
+
+from __future__ import annotations
+
+import os
+from typing import Optional
+
+from PySide6 import QtCore, QtGui, QtWidgets
+
+from regbench.errors import RegbenchError
+from regbench.gui.roles import RolesPanel, default_roles
+from regbench.gui.style import STYLESHEET, configure_pyqtgraph
+from regbench.gui.tables import view_to_tsv
+from regbench.gui.worker import Runner
+
+Qt = QtCore.Qt
+TABLE_EXTS = (".csv", ".tsv", ".tab", ".txt", ".xlsx", ".parquet", ".pq")
+PROJECT_EXT = ".regbench"
+MAX_RECENT = 8
+AUTOSAVE_MS = 60_000
+DEFAULT_BOOT = 100
+
+
+def recovery_path() -> str:
+    base = QtCore.QStandardPaths.writableLocation(QtCore.QStandardPaths.AppDataLocation)
+    if not base:
+        base = os.path.join(os.path.expanduser("~"), ".regbench")
+    return os.path.join(base, "recovery.regbench")
+
+
+def _panel_classes():
+    from regbench.gui.panels.agreement import AgreementPanel
+    from regbench.gui.panels.coefficients import CoefficientsPanel
+    from regbench.gui.panels.data import DataPanel
+    from regbench.gui.panels.overlaps import OverlapsPanel
+    from regbench.gui.panels.paths import PathsPanel
+    from regbench.gui.panels.stability import StabilityPanel
+    from regbench.gui.panels.stress import StressPanel
+
+    # The order a stakeholder asks in; Ctrl+1..7 follow it.
+    return (DataPanel, OverlapsPanel, PathsPanel, CoefficientsPanel, AgreementPanel, StressPanel, StabilityPanel)
+
+
+class MainWindow(QtWidgets.QMainWindow):
+    """One window, one session.
+
+    Parameters
+    ----------
+    autosave : bool
+        Write a recovery copy of an unsaved session every minute.
+    """
+
+    session_changed = QtCore.Signal()   # a new session was adopted
+    results_applied = QtCore.Signal()   # a fit finished and its results are in the session
+    job_failed = QtCore.Signal(str)
+
+    def __init__(self, autosave: bool = True, parent=None):
+        super().__init__(parent)
+        configure_pyqtgraph()
+        self.setStyleSheet(STYLESHEET)
+        self.setWindowTitle("regbench")
+        self.resize(1400, 900)
+        self.setAcceptDrops(True)
+        self.session = None
+        self.path: Optional[str] = None
+        self.dirty = False
+        self.errors: list = []          # every message shown, newest last
+        self.last_error_box = None
+        self.runner = Runner(self)
+        self._stale: set = set()
+        self._refresh_pending = False
+        self._build_central()
+        self._build_roles()
+        self._build_status()
+        self._build_menus()
+        self.runner.started.connect(self._job_started)
+        self.runner.progress.connect(self._job_progress)
+        self.runner.stopped.connect(self._job_stopped)
+        self.autosave_timer = QtCore.QTimer(self)
+        self.autosave_timer.setInterval(AUTOSAVE_MS)
+        self.autosave_timer.timeout.connect(self.autosave)
+        if autosave:
+            self.autosave_timer.start()
+        self._update_title()
+        self._update_actions()
+
+    # == building ====================================================================
+    def _build_central(self):
+        self.nav = QtWidgets.QListWidget()
+        self.nav.setObjectName("nav")
+        self.nav.setFixedWidth(210)
+        self.stack = QtWidgets.QStackedWidget()
+        self.panels = []
+        for cls in _panel_classes():
+            panel = cls(self)
+            self.panels.append(panel)
+            self.stack.addWidget(panel)
+            self.nav.addItem(panel.nav)
+        from regbench.gui.help import HelpView
+
+        self.help_view = HelpView()
+        self.stack.addWidget(self.help_view)
+        self.nav.addItem("Help: words and cautions")
+        self.nav.currentRowChanged.connect(self._show_row)
+        central = QtWidgets.QWidget()
+        lay = QtWidgets.QHBoxLayout(central)
+        lay.setContentsMargins(0, 0, 0, 0)
+        lay.setSpacing(0)
+        lay.addWidget(self.nav)
+        lay.addWidget(self.stack, 1)
+        self.setCentralWidget(central)
+        self.nav.setCurrentRow(0)
+
+    def _build_roles(self):
+        self.roles_panel = RolesPanel()
+        self.roles_panel.applied.connect(self.apply_roles)
+        self.roles_dock = QtWidgets.QDockWidget("Roles", self)
+        self.roles_dock.setObjectName("roles")
+        self.roles_dock.setWidget(self.roles_panel)
+        self.roles_dock.setFeatures(QtWidgets.QDockWidget.DockWidgetMovable | QtWidgets.QDockWidget.DockWidgetClosable)
+        self.roles_dock.setMinimumWidth(330)
+        self.addDockWidget(Qt.RightDockWidgetArea, self.roles_dock)
+
+    def _build_status(self):
+        sb = self.statusBar()
+        self.status_label = QtWidgets.QLabel("Open a table or a project to begin.")
+        self.progress_bar = QtWidgets.QProgressBar()
+        self.progress_bar.setFixedWidth(220)
+        self.progress_bar.setVisible(False)
+        self.cancel_btn = QtWidgets.QPushButton("Cancel")
+        self.cancel_btn.setVisible(False)
+        self.cancel_btn.clicked.connect(self.cancel_work)
+        sb.addWidget(self.status_label, 1)
+        sb.addPermanentWidget(self.progress_bar)
+        sb.addPermanentWidget(self.cancel_btn)
+
+    def _action(self, menu, text, slot, shortcut=None):
+        act = QtGui.QAction(text, self)
+        if shortcut is not None:
+            act.setShortcut(QtGui.QKeySequence(shortcut))
+        act.triggered.connect(slot)
+        menu.addAction(act)
+        return act
+
+    def _build_menus(self):
+        mb = self.menuBar()
+        f = mb.addMenu("&File")
+        K = QtGui.QKeySequence
+        self.act_new = self._action(f, "New from table…", self.new_from_table_dialog, K.StandardKey.New)
+        self.act_open = self._action(f, "Open…", self.open_dialog, K.StandardKey.Open)
+        self.recent_menu = f.addMenu("Open recent")
+        self._fill_recent()
+        f.addSeparator()
+        self.act_save = self._action(f, "Save", self.save, K.StandardKey.Save)
+        self.act_save_as = self._action(f, "Save As…", self.save_as_dialog, K.StandardKey.SaveAs)
+        f.addSeparator()
+        self.act_report = self._action(f, "Export report…", self.export_report_dialog)
+        self.act_plot = self._action(f, "Export plot (PNG/SVG)…", self.export_plot_dialog)
+        f.addSeparator()
+        self._action(f, "Quit", self.close, K.StandardKey.Quit)
+        e = mb.addMenu("&Edit")
+        self.act_undo = self._action(e, "Undo", self.undo, K.StandardKey.Undo)
+        self.act_copy = self._action(e, "Copy table", self.copy_table, K.StandardKey.Copy)
+        e.addSeparator()
+        self.act_refit = self._action(e, "Refit", lambda: self.refit(force=True), "Ctrl+R")
+        v = mb.addMenu("&View")
+        for i, panel in enumerate(self.panels):
+            self._action(v, panel.nav, lambda checked=False, i=i: self.show_panel(i), f"Ctrl+{i + 1}")
+        v.addSeparator()
+        v.addAction(self.roles_dock.toggleViewAction())
+        h = mb.addMenu("&Help")
+        self._action(h, "Words and cautions", lambda: self.nav.setCurrentRow(len(self.panels)), K.StandardKey.HelpContents)
+
+    # == panels ======================================================================
+    def show_panel(self, key_or_index) -> None:
+        if isinstance(key_or_index, str):
+            key_or_index = [p.key for p in self.panels].index(key_or_index)
+        self.nav.setCurrentRow(key_or_index)
+
+    def panel(self, key: str):
+        for p in self.panels:
+            if p.key == key:
+                return p
+        raise KeyError(key)
+
+    def current_panel(self):
+        w = self.stack.currentWidget()
+        return w if w in self.panels else None
+
+    def _show_row(self, row: int) -> None:
+        self.stack.setCurrentIndex(row)
+        p = self.current_panel()
+        if p is not None and p.key in self._stale:
+            self._refresh_panel(p)
+
+    def _refresh_panel(self, panel) -> None:
+        self._stale.discard(panel.key)
+        if self.session is None:
+            return
+        try:
+            panel.refresh(self.session)
+        except RegbenchError as exc:
+            self.show_error(f"Cannot show {panel.nav}", exc)
+
+    def refresh_all(self, now: bool = False) -> None:
+        """Mark every panel out of date; the visible one is redrawn (soon, or now)."""
+        self._stale = {p.key for p in self.panels}
+        if now:
+            self._do_refresh()
+        elif not self._refresh_pending:
+            self._refresh_pending = True
+            QtCore.QTimer.singleShot(0, self._do_refresh)
+
+    def _do_refresh(self):
+        self._refresh_pending = False
+        p = self.current_panel()
+        if p is not None:
+            self._refresh_panel(p)
+
+    def refresh_everything(self) -> None:
+        """Redraw every panel now (snapshots and tests)."""
+        for p in self.panels:
+            self._refresh_panel(p)
+
+    # == session =====================================================================
+    def adopt(self, session, path: Optional[str] = None, dirty: bool = False, fit: bool = True) -> None:
+        """Make ``session`` the window's document."""
+        if self.session is not None:
+            self.session.unsubscribe(self._on_session_event)
+        self.runner.cancel_all()
+        self.session = session
+        self.path = path
+        self.dirty = dirty
+        session.subscribe(self._on_session_event)
+        self.roles_panel.load(session.table, session.roles, session.settings, session.bootstrap)
+        self._restore_view_state()
+        self.refresh_all(now=True)
+        self._update_title()
+        self._update_actions()
+        self.session_changed.emit()
+        if path:
+            self._add_recent(path)
+        if fit and not self.has_results():
+            self.refit()
+
+    def has_results(self) -> bool:
+        return self.session is not None and getattr(self.session, "results", None) is not None
+
+    def _on_session_event(self, event, detail=None) -> None:
+        if event not in ("saved", "loaded"):
+            self.dirty = True
+        self.refresh_all()
+        self._update_title()
+        self._update_actions()
+
+    # == opening =====================================================================
+    def open_path(self, path: str, roles=None) -> None:
+        """Open a table (new session with default or given roles) or a project, off the GUI thread."""
+        path = os.fspath(path)
+        if not self._confirm_discard():
+            return
+        ext = os.path.splitext(path)[1].lower()
+        if ext == PROJECT_EXT:
+            def work(progress, cancel):
+                from regbench.project import load_project
+
+                progress(0, 1, f"reading {os.path.basename(path)}")
+                return load_project(path)
+
+            self.runner.start(work, label=f"Opening {os.path.basename(path)}", slot="open",
+                              done=lambda s: self.adopt(s, path=path),
+                              failed=lambda exc: self.show_error("Cannot open the project", exc))
+            return
+
+        def work(progress, cancel):
+            from regbench.data import read_table
+            from regbench.models.results import FitSettings
+            from regbench.session import Session
+
+            progress(0, 2, f"reading {os.path.basename(path)}")
+            table = read_table(path)
+            progress(1, 2, "building the design")
+            return Session.from_table(table, roles or default_roles(table), FitSettings())
+
+        self.runner.start(work, label=f"Reading {os.path.basename(path)}", slot="open",
+                          done=lambda s: self.adopt(s, path=None, dirty=True),
+                          failed=lambda exc: self.show_error("Cannot open the table", exc))
+
+    def new_from_table_dialog(self):
+        path, _ = QtWidgets.QFileDialog.getOpenFileName(
+            self, "New from table", "", "Tables (*.csv *.tsv *.txt *.xlsx *.parquet);;All files (*)")
+        if path:
+            self.open_path(path)
+
+    def open_dialog(self):
+        path, _ = QtWidgets.QFileDialog.getOpenFileName(
+            self, "Open", "", "Projects and tables (*.regbench *.csv *.tsv *.txt *.xlsx *.parquet);;All files (*)")
+        if path:
+            self.open_path(path)
+
+    # == fitting =====================================================================
+    def refit(self, force: bool = False) -> None:
+        """Fit and analyse in the pool; the results are installed on the GUI thread when they return.
+
+        ``force`` fits again even when the session's fits match its roles and settings.
+        """
+        session = self.session
+        if session is None:
+            return
+
+        def work(progress, cancel):
+            return session.compute_results(progress=progress, cancel=cancel, refit=force)
+
+        def done(computed):
+            if self.session is not session:
+                return
+            try:
+                installed = session.apply_results(computed)
+            except RegbenchError as exc:
+                self.show_error("Cannot use these results", exc)
+                return
+            if not installed:  # the roles or settings changed meanwhile: fit those instead
+                self.refit()
+                return
+            self.refresh_all(now=True)
+            self.results_applied.emit()
+
+        self.runner.start(work, label="Fitting", slot="fit", done=done,
+                          failed=lambda exc: self.show_error("The fit did not finish", exc),
+                          cancelled=lambda: self.set_status("Fit cancelled; nothing was changed."))
+
+    def apply_roles(self, roles, settings=None, n_boot: Optional[int] = None) -> bool:
+        """Send new roles (and settings) to the session, then refit. False if the session refused."""
+        if self.session is None:
+            return False
+        try:
+            if n_boot is not None and int(n_boot) != self.session.bootstrap:
+                self.session.set_bootstrap(int(n_boot))
+            if roles != self.session.roles:
+                self.session.set_roles(roles)
+            if settings is not None and settings != self.session.settings:
+                self.session.set_settings(settings)
+        except RegbenchError as exc:
+            self.show_error("These roles cannot be used", exc)
+            self.roles_panel.load(self.session.table, self.session.roles, self.session.settings,
+                                  self.session.bootstrap)
+            return False
+        self.refresh_all(now=True)
+        self.refit()
+        return True
+
+    def set_alpha(self, name: str, alpha: Optional[float]) -> None:
+        if self.session is None:
+            return
+        try:
+            self.session.set_alpha(name, alpha)
+        except RegbenchError as exc:
+            self.show_error("Cannot use this α", exc)
+
+    def undo(self) -> None:
+        if self.session is None:
+            return
+        if not self.session.undo():
+            self.set_status("Nothing to undo.")
+            return
+        self.roles_panel.load(self.session.table, self.session.roles, self.session.settings, self.session.bootstrap)
+        self.refresh_all(now=True)
+        if not self.has_results():
+            self.refit()
+
+    def cancel_work(self) -> None:
+        self.runner.cancel_all()
+        self.set_status("Cancelling…")
+
+    def run_job(self, fn, label, done, slot="analysis"):
+        """Run an analysis in the pool (panels use this); errors go to a dialog."""
+        return self.runner.start(fn, label=label, slot=slot, done=done,
+                                 failed=lambda exc: self.show_error(f"{label} did not finish", exc),
+                                 cancelled=lambda: self.set_status(f"{label} cancelled."))
+
+    # == saving ======================================================================
+    def save(self) -> bool:
+        if self.session is None:
+            return False
+        if not self.path:
+            return self.save_as_dialog()
+        return self.save_to(self.path)
+
+    def save_to(self, path: str) -> bool:
+        from regbench.project import save_project
+
+        if not path.lower().endswith(PROJECT_EXT):
+            path += PROJECT_EXT
+        try:
+            self._store_view_state()
+            save_project(self.session, path)
+        except RegbenchError as exc:
+            self.show_error("Cannot save the project", exc)
+            return False
+        self.path = path
+        self.dirty = False
+        self._add_recent(path)
+        self._drop_recovery()
+        self._update_title()
+        self.set_status(f"Saved {os.path.basename(path)}.")
+        return True
+
+    def save_as_dialog(self) -> bool:
+        if self.session is None:
+            return False
+        path, _ = QtWidgets.QFileDialog.getSaveFileName(self, "Save project", self.path or "untitled.regbench",
+                                                        "regbench projects (*.regbench)")
+        return bool(path) and self.save_to(path)
+
+    def _store_view_state(self):
+        """Keep the open panel and each panel's choices in the session (they reopen with it)."""
+        if self.session is None:
+            return
+        state = {"panel": self.current_panel().key if self.current_panel() else "data"}
+        for p in self.panels:
+            if hasattr(p, "view_state"):
+                state[p.key] = p.view_state()
+        old = self.session.view_state.get("gui")
+        if old != state:
+            self.session.set_view_state("gui", state)
+
+    def _restore_view_state(self):
+        state = self.session.view_state.get("gui") if self.session is not None else None
+        if not isinstance(state, dict):
+            return
+        for p in self.panels:
+            if hasattr(p, "restore_view_state") and isinstance(state.get(p.key), dict):
+                p.restore_view_state(state[p.key])
+        keys = [p.key for p in self.panels]
+        if state.get("panel") in keys:
+            self.nav.setCurrentRow(keys.index(state["panel"]))
+
+    def export_report_dialog(self):
+        if self.session is None:
+            return
+        path, _ = QtWidgets.QFileDialog.getSaveFileName(self, "Export report", "report.html", "HTML (*.html)")
+        if path:
+            self.export_report(path)
+
+    def export_report(self, path: str) -> bool:
+        try:
+            from regbench.report import render_report
+
+            render_report(self.session, path)
+        except RegbenchError as exc:
+            self.show_error("Cannot write the report", exc)
+            return False
+        self.set_status(f"Wrote {os.path.basename(path)}.")
+        return True
+
+    def export_plot_dialog(self):
+        p = self.current_panel()
+        plots = p.plots() if p is not None else []
+        if not plots:
+            self.show_error("No plot here", RegbenchError("this panel has no plot; switch to a panel with a plot"))
+            return
+        index = 0
+        if len(plots) > 1:
+            names = [getattr(w, "export_name", f"plot {i + 1}") for i, w in enumerate(plots)]
+            name, ok = QtWidgets.QInputDialog.getItem(self, "Export plot", "Which plot", names, 0, False)
+            if not ok:
+                return
+            index = names.index(name)
+        path, _ = QtWidgets.QFileDialog.getSaveFileName(self, "Export plot", f"{p.key}.png", "PNG (*.png);;SVG (*.svg)")
+        if path:
+            self.export_plot(path, index)
+
+    def export_plot(self, path: str, index: int = 0) -> bool:
+        from regbench.gui.export import export_plot
+
+        p = self.current_panel()
+        plots = p.plots() if p is not None else []
+        try:
+            if not plots:
+                raise RegbenchError("this panel has no plot; switch to a panel with a plot")
+            export_plot(plots[index], path)
+        except RegbenchError as exc:
+            self.show_error("Cannot export the plot", exc)
+            return False
+        self.set_status(f"Wrote {os.path.basename(path)}.")
+        return True
+
+    def copy_table(self) -> str:
+        w = QtWidgets.QApplication.focusWidget()
+        p = self.current_panel()
+        views = p.views() if p is not None else []
+        view = w if isinstance(w, QtWidgets.QTableView) else (views[0] if views else None)
+        if view is None:
+            return ""
+        text = view_to_tsv(view)
+        QtWidgets.QApplication.clipboard().setText(text)
+        self.set_status(f"Copied {text.count(chr(10)) - 1} rows.")
+        return text
+
+    # == recovery ====================================================================
+    def autosave(self) -> bool:
+        if self.session is None or not self.dirty or self.runner.busy():
+            return False
+        from regbench.project import save_project
+
+        path = recovery_path()
+        try:
+            os.makedirs(os.path.dirname(path), exist_ok=True)
+            save_project(self.session, path)
+        except (RegbenchError, OSError) as exc:
+            self.set_status(f"Recovery copy not written: {exc}")
+            return False
+        return True
+
+    def _drop_recovery(self):
+        try:
+            os.remove(recovery_path())
+        except OSError:
+            pass
+
+    def offer_recovery(self) -> bool:
+        path = recovery_path()
+        if not os.path.exists(path):
+            return False
+        answer = QtWidgets.QMessageBox.question(
+            self, "Recover unsaved work",
+            "regbench closed last time with unsaved changes. Open the recovered session?",
+            QtWidgets.QMessageBox.Open | QtWidgets.QMessageBox.Discard, QtWidgets.QMessageBox.Open)
+        if answer == QtWidgets.QMessageBox.Open:
+            try:
+                from regbench.project import load_project
+
+                self.adopt(load_project(path), path=None, dirty=True)
+                return True
+            except RegbenchError as exc:
+                self.show_error("The recovered session cannot be opened", exc)
+        self._drop_recovery()
+        return False
+
+    # == recent files ================================================================
+    def _qsettings(self):
+        return QtCore.QSettings("regbench", "regbench")
+
+    def recent_files(self) -> list:
+        v = self._qsettings().value("recent", [])
+        if isinstance(v, str):
+            v = [v]
+        return [p for p in (v or []) if isinstance(p, str)]
+
+    def _add_recent(self, path):
+        path = os.path.abspath(path)
+        files = [path] + [p for p in self.recent_files() if p != path]
+        self._qsettings().setValue("recent", files[:MAX_RECENT])
+        self._fill_recent()
+
+    def _fill_recent(self):
+        self.recent_menu.clear()
+        files = self.recent_files()
+        for p in files:
+            act = self.recent_menu.addAction(os.path.basename(p))
+            act.setToolTip(p)
+            act.triggered.connect(lambda checked=False, p=p: self.open_path(p))
+        self.recent_menu.setEnabled(bool(files))
+
+    # == dialogs and status ==========================================================
+    def show_error(self, title: str, exc: BaseException) -> None:
+        """A clear message in a dialog that does not block the window."""
+        msg = str(exc) or type(exc).__name__
+        if not isinstance(exc, RegbenchError):
+            msg = f"An unexpected problem ({type(exc).__name__}): {msg}. Nothing was changed; please report it."
+        self.errors.append(msg)
+        box = QtWidgets.QMessageBox(QtWidgets.QMessageBox.Warning, title, msg, QtWidgets.QMessageBox.Ok, self)
+        box.setAttribute(Qt.WA_DeleteOnClose)
+        box.setWindowModality(Qt.WindowModal)
+        self.last_error_box = box
+        box.open()
+        self.set_status(msg)
+        self.job_failed.emit(msg)
+
+    def set_status(self, text: str) -> None:
+        self.status_label.setText(text)
+
+    def ask_unsaved(self) -> str:
+        """'save', 'discard' or 'cancel'."""
+        b = QtWidgets.QMessageBox.question(
+            self, "Unsaved changes", "This session has changes that are not saved. Save them first?",
+            QtWidgets.QMessageBox.Save | QtWidgets.QMessageBox.Discard | QtWidgets.QMessageBox.Cancel,
+            QtWidgets.QMessageBox.Save)
+        return {QtWidgets.QMessageBox.Save: "save", QtWidgets.QMessageBox.Discard: "discard"}.get(b, "cancel")
+
+    def _confirm_discard(self) -> bool:
+        if self.session is None or not self.dirty:
+            return True
+        answer = self.ask_unsaved()
+        if answer == "save":
+            return self.save()
+        return answer == "discard"
+
+    def _update_title(self):
+        name = os.path.basename(self.path) if self.path else ("untitled" if self.session is not None else "")
+        self.setWindowTitle(f"{name}{' •' if self.dirty else ''} — regbench" if name else "regbench")
+
+    def _update_actions(self):
+        has = self.session is not None
+        for a in (self.act_save, self.act_save_as, self.act_report, self.act_plot, self.act_undo, self.act_refit):
+            a.setEnabled(has)
+
+    # == worker feedback =============================================================
+    def _job_started(self, job):
+        self.progress_bar.setRange(0, 0)
+        self.progress_bar.setVisible(True)
+        self.cancel_btn.setVisible(True)
+        self.set_status(f"{job.label}…")
+
+    def _job_progress(self, done, total, message):
+        if total > 0:
+            self.progress_bar.setRange(0, total)
+            self.progress_bar.setValue(min(done, total))
+        if message:
+            self.set_status(message)
+
+    def _job_stopped(self, job):
+        if not self.runner.busy():
+            self.progress_bar.setVisible(False)
+            self.cancel_btn.setVisible(False)
+            if self.status_label.text().endswith("…") or not self.errors:
+                self.set_status("Ready.")
+
+    # == Qt events ===================================================================
+    def dragEnterEvent(self, event):
+        if self._dropped_path(event.mimeData()):
+            event.acceptProposedAction()
+
+    def dropEvent(self, event):
+        path = self._dropped_path(event.mimeData())
+        if path:
+            event.acceptProposedAction()
+            self.open_path(path)
+
+    @staticmethod
+    def _dropped_path(mime) -> Optional[str]:
+        if not mime.hasUrls():
+            return None
+        for url in mime.urls():
+            p = url.toLocalFile()
+            if p and os.path.splitext(p)[1].lower() in TABLE_EXTS + (PROJECT_EXT,):
+                return p
+        return None
+
+    def closeEvent(self, event):
+        if not self._confirm_discard():
+            event.ignore()
+            return
+        self.runner.cancel_all()
+        self.runner.wait(5000)
+        self.autosave_timer.stop()
+        self._drop_recovery()
+        event.accept()
