@@ -343,3 +343,20 @@ def test_bad_values_are_named():
         fit_ols(design_from_arrays(d.X, d.y, weights=w))
     with pytest.raises(ModelError, match="rank tolerance"):
         fit_ols(d, rank_tol=-1.0)
+
+
+def test_shifted_alias_with_large_offset_is_exact():
+    rng = np.random.default_rng(12)
+    c = np.round(20 + 0.05 * rng.normal(size=40), 3)  # spread far smaller than size
+    k = c + 273.15
+    year = 1990.0 + np.arange(40)
+    X = np.column_stack([c, year, k, 2.0 * year + 5.0])
+    d = design_from_arrays(X, rng.normal(size=40), columns=("temp_c", "year", "temp_k", "code"))
+    r = fit_ols(d)
+    # Facts of the construction: temp_k = temp_c + 273.15 and code = 2 year + 5, up to float round-off.
+    assert [sa.column for sa in r.set_aside] == ["temp_k", "code"]
+    k_sa, code_sa = r.set_aside
+    assert k_sa.combination == pytest.approx({"temp_c": 1.0}, rel=1e-9) and k_sa.exact
+    assert k_sa.intercept == pytest.approx(273.15, rel=1e-12)
+    assert code_sa.combination == pytest.approx({"year": 2.0}, rel=1e-12) and code_sa.exact
+    assert set_aside_sentence(k_sa).startswith("temp_k was set aside: it equals 273.15 + temp_c exactly")

@@ -1,30 +1,30 @@
 """Weighted OLS that says which columns it set aside and why.
 
-The fit works on the scaled problem::
+The rank decisions work on the scaled problem::
 
-    a_ij = sqrt(w_i / W) * (x_ij - m_j) / s_j        z_i = sqrt(w_i / W) * (y_i - m_y)
+    a_ij = sqrt(w_i / W) * (x_ij - m_j) / r_j
 
-with ``m`` the weighted means, ``s`` the weighted population SDs and
-``W = sum(w)``.  Every column of ``a`` has length 1, so the rank tolerance is
-relative and does not depend on units.  Rows of weight 0 are left out of the
-fit (they contribute nothing) but are still predicted by the model.
+with ``m`` the weighted means, ``r_j = sqrt(sum_i w_i x_ij² / W)`` the weighted
+RMS of column j (its typical size) and ``W = sum(w)``.  Scaling makes the
+tolerance relative, so units do not matter.  Rows of weight 0 are left out of
+the fit (they contribute nothing) but are still predicted by the model.
 
 Rank tolerance
 --------------
-A column is set aside when its length left over after removing the columns
-kept before it is at most ``tol``; in the column-pivoted QR of ``a`` this is
-``|R_kk| <= tol * |R_00|`` (``|R_00| = 1`` here).  Left-over length ``tol``
-means the kept columns explain all but a share ``tol**2`` of the column's
-weighted variance (R² >= 1 - tol²).  The default is
+A column is set aside when what is left of it after removing the columns kept
+before it has weighted RMS at most ``tol * r_j``; in the column-pivoted QR of
+``a`` the rank is the number of ``|R_kk| > tol`` (every column of ``a`` has
+length at most 1, and exactly its SD/RMS ratio).  The default is
 ``tol = 100 * max(n, p) * eps`` (n rows with weight > 0, p columns, eps the
-float64 machine epsilon; about 1e-12 for a few hundred rows): the round-off
-of a Householder QR grows at most like ``max(n, p) * eps``, and a derived
-column computed from others with a few float operations (a mean of two
-columns, °C to °F) leaves about ``eps`` of its length, so the factor 100 is a
-safety margin for round-off only.  Measured near-dependencies, however
-strong, stay in the fit (the diagnostics report them) unless the caller
-passes a larger ``rank_tol``; a column set aside under such a tolerance is
-reported as *almost* reproduced, with the size of what is left over.
+float64 machine epsilon; about 1e-11 for a few hundred rows).  Why: the
+round-off of a Householder QR grows at most like ``max(n, p) * eps``, and a
+column derived from others by a few float operations (a mean of two columns,
+°C to °F, K = °C + 273.15) carries round-off of about ``eps`` times its *size*
+— not its spread, which is why the tolerance is measured against ``r_j``.  The
+factor 100 is a margin for round-off only: measured near-dependencies,
+however strong, stay in the fit (the diagnostics report them) unless the
+caller passes a larger ``rank_tol``; a column set aside under such a
+tolerance is reported as *almost* reproduced, with the size of what is left.
 
 Which columns are kept
 ----------------------
@@ -118,29 +118,32 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
     sd = np.sqrt((w @ (Xc * Xc)) / W)
     sqw = np.sqrt(w / W)
     scale = np.where(sd > 0, sd, 1.0)
-    A = (sqw[:, None] * Xc) / scale
+    # Typical size of each column (weighted RMS about zero): the scale of its round-off.
+    size = np.sqrt((w @ (X * X)) / W)
+    size = np.where(size > 0, size, 1.0)
+    A = (sqw[:, None] * Xc) / size
     A[:, sd == 0] = 0.0
     ybar = (w @ y) / W
     z = sqw * (y - ybar)
 
-    # Coordinates of the scaled columns in an orthonormal basis of their span.
+    # Coordinates of the scaled columns in an orthonormal basis of their span: ``Cr`` for
+    # columns of unit RMS (rank decisions), ``C`` for columns of unit SD (solving).
     if p:
         Q, R, piv = linalg.qr(A, mode="economic", pivoting=True, check_finite=False)
         diag = np.abs(np.diag(R))
-        rank_qr = int(np.count_nonzero(diag > tol * max(diag[0] if diag.size else 0.0, 1.0)))
-        if np.all(sd == 0):
-            rank_qr = 0
-        C = np.empty_like(R)
-        C[:, piv] = R
+        rank_qr = int(np.count_nonzero(diag > tol))
+        Cr = np.empty_like(R)
+        Cr[:, piv] = R
     else:
         Q = np.zeros((n, 0))
-        C = np.zeros((0, 0))
+        Cr = np.zeros((0, 0))
         rank_qr = 0
+    C = Cr * (size / scale)
 
-    _check_pins(C, pin_idx, columns, tol, sd)
-    kept = _ordered_choice(C, pin_idx, tol, sd)
+    _check_pins(Cr, pin_idx, columns, tol, sd)
+    kept = _ordered_choice(Cr, pin_idx, tol, sd)
     if len(kept) != rank_qr:
-        kept = _pivoted_choice(C, pin_idx, tol, sd)
+        kept = _pivoted_choice(Cr, pin_idx, tol, sd)
     kept = sorted(kept)
     k = len(kept)
     aside = [j for j in range(p) if j not in set(kept)]
@@ -199,7 +202,7 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
         arr[aside] = np.nan
 
     set_aside = tuple(
-        _explain(j, kept, C, columns, X, w, W, mean, sd, scale, roundoff) for j in aside
+        _explain(j, kept, C, columns, X, w, W, mean, sd, scale, size, roundoff) for j in aside
     )
     model = LinearModel(
         name="ols", columns=columns, intercept=float(icpt), coef=coef.copy(),
@@ -322,7 +325,7 @@ def _check_pins(C, pin_idx, columns, tol, sd) -> None:
         kept.append(j)
 
 
-def _explain(j, kept, C, columns, X, w, W, mean, sd, scale, roundoff) -> SetAside:
+def _explain(j, kept, C, columns, X, w, W, mean, sd, scale, size, roundoff) -> SetAside:
     """The combination of kept columns (and intercept) that reproduces column ``j``."""
     name = columns[j]
     if sd[j] == 0 or not kept:
@@ -331,7 +334,8 @@ def _explain(j, kept, C, columns, X, w, W, mean, sd, scale, roundoff) -> SetAsid
         res = float(np.sqrt((w @ (left * left)) / W))
         rel = res / sd[j] if sd[j] > 0 else 0.0
         return SetAside(column=name, combination={}, intercept=value, residual=res,
-                        alternatives=(), relative_residual=float(rel), exact=bool(rel <= roundoff))
+                        alternatives=(), relative_residual=float(rel),
+                        exact=bool(res <= roundoff * size[j]))
 
     def solve(support):
         cs, *_ = np.linalg.lstsq(C[:, support], C[:, j], rcond=None)
@@ -346,7 +350,7 @@ def _explain(j, kept, C, columns, X, w, W, mean, sd, scale, roundoff) -> SetAsid
     support = [kept[i] for i in np.flatnonzero(big)]
     if len(support) < len(kept):
         cs2, coef2, icpt2, res2 = solve(support)
-        if res2 <= max(2.0 * res, res + roundoff * sd[j]):
+        if res2 <= max(2.0 * res, res + roundoff * size[j]):
             coef, icpt, res = coef2, icpt2, res2
         else:
             support = list(kept)
@@ -360,14 +364,18 @@ def _explain(j, kept, C, columns, X, w, W, mean, sd, scale, roundoff) -> SetAsid
         residual=res,
         alternatives=tuple(columns[s] for s in support),
         relative_residual=float(rel),
-        exact=bool(rel <= roundoff),
+        exact=bool(res <= roundoff * size[j]),
     )
 
 
 # --- plain-language sentences -------------------------------------------------------------
 
 def format_number(v: float) -> str:
-    """A readable number: 4 significant digits, no exponent between 1e-4 and 1e7."""
+    """A readable number: 4 significant digits, no exponent between 1e-4 and 1e7.
+
+    A number that is round up to round-off at up to 6 significant digits is
+    written that way (0.4999999999999999 -> '0.5', 273.15000000000043 -> '273.15').
+    """
     v = float(v)
     if v == 0 or not np.isfinite(v):
         return "0" if v == 0 else str(v)
@@ -375,6 +383,10 @@ def format_number(v: float) -> str:
     if 1e4 <= a < 1e7:
         return f"{v:.0f}"
     if 1e-4 <= a < 1e4:
+        for digits in range(1, 7):
+            text = f"{v:.{digits}g}"
+            if abs(float(text) - v) <= 1e-9 * a:
+                return text
         return f"{v:.4g}"
     mant, exp = f"{v:.3e}".split("e")
     mant = mant.rstrip("0").rstrip(".")

@@ -1,0 +1,93 @@
+"""Property tests: random designs with columns built from others.
+
+Mathematical facts checked on every example: the number of set-aside columns
+is p minus the rank (numpy's SVD of the weighted design with intercept);
+every set-aside column is reproduced by its stated combination to round-off;
+the predictions are the weighted least-squares fitted values (numpy lstsq).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from hypothesis import given, settings, strategies as st
+
+from regbench.data import design_from_arrays
+from regbench.models.ols import fit_ols
+
+EPS = np.finfo(float).eps
+
+
+def build(seed, n_extra, r, d, weighted, zero_rows):
+    rng = np.random.default_rng(seed)
+    n = r + d + 2 + n_extra
+    base = rng.normal(size=(n, r)) * rng.uniform(0.01, 100, r) + rng.uniform(-1e3, 1e3, r)
+    # Dependent columns: random combinations of some base columns plus a shift.
+    dep = []
+    for _ in range(d):
+        pick = rng.choice(r, size=rng.integers(1, r + 1), replace=False)
+        c = np.round(rng.normal(0, 3, pick.size), 2)
+        c[c == 0] = 1.5
+        dep.append(base[:, pick] @ c + rng.normal(0, 10))
+    X = np.column_stack([base] + dep)
+    order = rng.permutation(X.shape[1])
+    X = X[:, order]
+    y = rng.normal(size=n) * 5 + X @ rng.normal(size=X.shape[1]) * 0.01
+    w = rng.uniform(0.1, 4.0, n) if weighted else np.ones(n)
+    if zero_rows:
+        w[rng.choice(n, size=min(zero_rows, n - (r + d + 2)), replace=False)] = 0.0
+    return design_from_arrays(X, y, weights=w)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    seed=st.integers(0, 2**32 - 1),
+    n_extra=st.integers(0, 40),
+    r=st.integers(1, 6),
+    d=st.integers(0, 3),
+    weighted=st.booleans(),
+    zero_rows=st.integers(0, 3),
+)
+def test_random_aliases(seed, n_extra, r, d, weighted, zero_rows):
+    design = build(seed, n_extra, r, d, weighted, zero_rows)
+    res = fit_ols(design)
+    pos = design.weights > 0
+    X, y, w = design.X[pos], design.y[pos], design.weights[pos]
+    # numpy: rank of the sqrt(w)-scaled design with intercept, columns at unit length, with a
+    # tolerance far above round-off (1e-9) and far below these columns' real spread; minus 1.
+    B = np.sqrt(w)[:, None] * np.column_stack([np.ones(len(X)), X])
+    B /= np.linalg.norm(B, axis=0)
+    s = np.linalg.svd(B, compute_uv=False)
+    rank = int(np.count_nonzero(s > 1e-9 * s[0])) - 1
+    assert rank == r  # the construction: r free columns, d built from them
+    assert len(res.set_aside) == design.p - rank == d
+    assert res.rank == rank and len(res.kept) == rank
+    for sa in res.set_aside:
+        x = X[:, design.index(sa.column)]
+        fit = sa.intercept + sum(c * X[:, design.index(k)] for k, c in sa.combination.items())
+        # Round-off relative to the magnitudes involved in the sum.
+        size = np.abs(sa.intercept) + sum(abs(c) * np.abs(X[:, design.index(k)]) for k, c in sa.combination.items())
+        assert np.all(np.abs(x - fit) <= 1e4 * EPS * (np.max(size) + np.max(np.abs(x))))
+        assert sa.exact and set(sa.alternatives) == set(sa.combination) <= set(res.kept)
+        assert sa.alternatives, "a non-constant set-aside column names what could replace it"
+    # numpy lstsq on the sqrt(w)-scaled rows with an intercept column: same fitted values.
+    B = np.column_stack([np.ones(len(X)), X]) * np.sqrt(w)[:, None]
+    sol, *_ = np.linalg.lstsq(B, y * np.sqrt(w), rcond=None)
+    ref = np.column_stack([np.ones(design.n), design.X]) @ sol
+    scale = np.max(np.abs(ref)) + np.std(y)
+    assert np.max(np.abs(res.model.predict(design.X) - ref)) <= 1e-8 * scale
+    assert np.all(res.coef[[design.index(sa.column) for sa in res.set_aside]] == 0.0)
+
+
+@settings(max_examples=40, deadline=None)
+@given(seed=st.integers(0, 2**32 - 1), r=st.integers(1, 5), d=st.integers(1, 3), weighted=st.booleans())
+def test_pinning_a_set_aside_column_keeps_it_and_the_predictions(seed, r, d, weighted):
+    design = build(seed, 10, r, d, weighted, 0)
+    base = fit_ols(design)
+    pin = base.set_aside[0].column
+    pinned = fit_ols(design, pins=(pin,))
+    # Facts: pinning swaps which columns span the same space; rank and fitted values are unchanged.
+    assert pin in pinned.kept and pinned.rank == base.rank
+    assert len(pinned.set_aside) == d
+    ref = base.model.predict(design.X)
+    scale = np.max(np.abs(ref)) + np.std(design.y)
+    assert np.max(np.abs(pinned.model.predict(design.X) - ref)) <= 1e-8 * scale
