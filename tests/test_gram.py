@@ -133,3 +133,18 @@ def test_zero_total_weight_is_refused_with_a_clear_error():
     assert isinstance(empty, GramStats)
     with pytest.raises(ModelError, match="total weight 0"):
         empty.standardized()
+
+
+def test_column_constant_on_training_rows_is_constant_after_subtraction():
+    # The column varies only in fold 0, so the training rows of fold 0 see it constant; the
+    # subtraction leaves round-off, which must count as zero variance, not as a tiny SD.
+    rng = np.random.default_rng(6)
+    n = 300
+    ids = np.arange(n) % 3
+    X = rng.normal(size=(n, 3)) * 1e3
+    X[:, 1] = np.where(ids == 0, rng.normal(0, 1e3, n), 0.0)
+    y = rng.normal(size=n)
+    full, folds = per_fold(X, y, np.ones(n), ids, 3)
+    G, c, mean, sd = (full - folds[0]).standardized()
+    assert sd[1] == 0.0 and c[1] == 0.0 and np.all(G[1] == 0.0)
+    assert np.all(sd[[0, 2]] > 0)

@@ -28,6 +28,8 @@ from regbench.errors import ModelError
 
 #: Bytes of one temporary block of rows; bounds the memory of the pass.
 CHUNK_BYTES = 8 * 2**20
+#: A centred sum of squares below this share of the sums it came from is round-off.
+ROUNDOFF = 1e3 * np.finfo(float).eps
 
 
 @dataclass(frozen=True)
@@ -54,6 +56,12 @@ class GramStats:
         ``Σ w (x - shift_x)(y - shift_y)``.
     yy : float
         ``Σ w (y - shift_y)²``.
+    xx_scale : ndarray (p,)
+        Size of the sums behind ``diag(xx)``: for statistics obtained by
+        subtraction, the larger operand's.  Round-off in ``diag(xx)`` is a few
+        ulps of this, so a column whose centred sum of squares is not clearly
+        above it is constant on these rows (a fold can leave a column with a
+        variance of pure round-off, which must not be divided by).
     """
 
     W: float
@@ -65,6 +73,7 @@ class GramStats:
     xx: np.ndarray
     xy: np.ndarray
     yy: float
+    xx_scale: np.ndarray = None
 
     @property
     def p(self) -> int:
@@ -77,6 +86,7 @@ class GramStats:
             W=self.W - other.W, n=self.n - other.n, shift_x=self.shift_x, shift_y=self.shift_y,
             sx=self.sx - other.sx, sy=self.sy - other.sy, xx=self.xx - other.xx,
             xy=self.xy - other.xy, yy=self.yy - other.yy,
+            xx_scale=np.maximum(self._scale(), other._scale()),
         )
 
     def __add__(self, other: "GramStats") -> "GramStats":
@@ -85,7 +95,11 @@ class GramStats:
             W=self.W + other.W, n=self.n + other.n, shift_x=self.shift_x, shift_y=self.shift_y,
             sx=self.sx + other.sx, sy=self.sy + other.sy, xx=self.xx + other.xx,
             xy=self.xy + other.xy, yy=self.yy + other.yy,
+            xx_scale=self._scale() + other._scale(),
         )
+
+    def _scale(self) -> np.ndarray:
+        return np.diag(self.xx).copy() if self.xx_scale is None else self.xx_scale
 
     # Offsets of the weighted means from the shift; the centred quantities below
     # subtract W·d·dᵀ, which is small because the shift is close to the mean.
@@ -134,15 +148,16 @@ class GramStats:
             ``X̃ᵀ W ỹ / W`` with ỹ = y - ȳ.
         mean : ndarray (p,)
         sd : ndarray (p,)
-            Weighted population SD; a column whose SD is below ``zero_tol``
-            times its scale (|mean| + 1) counts as constant and gets sd 0.
+            Weighted population SD; a column counts as constant and gets sd 0
+            when its SD is below ``zero_tol`` times (|mean| + 1) or its centred
+            sum of squares is within round-off of ``xx_scale``.
         """
         if not self.W > 0:
             raise ModelError("the rows being fitted have total weight 0; there is nothing to fit")
         cxx = self.centered_xx()
         mean = self.mean_x()
         sd = np.sqrt(np.clip(np.diag(cxx) / self.W, 0.0, None))
-        live = sd > zero_tol * (np.abs(mean) + 1.0)
+        live = (sd > zero_tol * (np.abs(mean) + 1.0)) & (np.diag(cxx) > ROUNDOFF * self._scale())
         sd = np.where(live, sd, 0.0)
         inv = np.where(live, 1.0 / np.where(live, sd, 1.0), 0.0)
         G = cxx * np.outer(inv, inv) / self.W
@@ -190,7 +205,7 @@ def _accumulate(X, y, w, rows, shift_x, shift_y, chunk):
         W += wc.sum()
     xx = 0.5 * (xx + xx.T)
     return GramStats(W=float(W), n=int(n), shift_x=shift_x, shift_y=float(shift_y), sx=sx, sy=float(sy),
-                     xx=xx, xy=xy, yy=float(yy))
+                     xx=xx, xy=xy, yy=float(yy), xx_scale=np.diag(xx).copy())
 
 
 def _default_shift(X, y, w):
