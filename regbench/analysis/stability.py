@@ -1,0 +1,220 @@
+"""Stability: how much of each model's story survives resampling the rows.
+
+Each bootstrap refit draws rows with replacement (whole groups with
+replacement when the design has groups, so a group is never split) and refits
+OLS and every penalized family at the fixed chosen α (``engine.fit_models_at``,
+no path, no CV).  A draw enters the refit as a multiplicity per row: a row
+drawn k times gets weight k·w.  For weighted least squares and for the
+penalized objective this is the same problem as stacking k copies of the row
+(the objective sums wᵢ over rows), and no rows are copied.
+
+Reported per column: how often OLS sets it aside, how often each model uses it
+(coefficient ≠ 0: "selected" for lasso and elastic net), and each
+coefficient's mean, SD and 5–95% range across refits (original units).
+
+When columns are exact aliases of each other, which one OLS sets aside is
+decided by the column order (pins first, then design order), not by the data:
+such a column is set aside in every refit.  That case is detected and said.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from regbench.analysis.agreement import in_sentence, json_number
+from regbench.errors import DataError
+from regbench.models.results import model_label
+from regbench.progress import check, report
+
+#: Selected in at least this share of refits: a stable choice (our threshold).
+STABLE_SHARE = 0.95
+#: Selected in between these shares: the selection is a toss-up (our threshold).
+TOSS_UP = (0.2, 0.8)
+
+
+@dataclass(frozen=True)
+class Stability:
+    """Bootstrap refits of every model at fixed α.
+
+    Attributes
+    ----------
+    columns : tuple of str
+    models : tuple of str
+    n_boot : int
+    seed : int
+    grouped : bool
+        True when whole groups were resampled.
+    alphas : dict of str -> float
+        The fixed α of each penalized family.
+    set_aside_freq : ndarray (p,)
+        Share of refits in which OLS set each column aside.
+    selected_freq : dict of str -> ndarray (p,)
+        Share of refits in which each model's coefficient is not 0.
+    coef_mean, coef_sd, coef_q05, coef_q95 : dict of str -> ndarray (p,)
+        Across refits, original units (SD with ddof 1).
+    coef_draws : dict of str -> ndarray (n_boot, p)
+    order_driven : tuple of str
+        Columns set aside in every refit because they are exact aliases that come
+        later in the column order.
+    sentences : tuple of str
+    """
+
+    columns: tuple
+    models: tuple
+    n_boot: int
+    seed: int
+    grouped: bool
+    alphas: dict
+    set_aside_freq: np.ndarray
+    selected_freq: dict
+    coef_mean: dict
+    coef_sd: dict
+    coef_q05: dict
+    coef_q95: dict
+    coef_draws: dict
+    order_driven: tuple
+    sentences: tuple
+
+    def to_dict(self) -> dict:
+        per = lambda d: {k: dict(zip(self.columns, (json_number(x) for x in v))) for k, v in d.items()}  # noqa: E731
+        return {
+            "columns": list(self.columns), "models": list(self.models), "n_boot": int(self.n_boot),
+            "seed": int(self.seed), "grouped": bool(self.grouped),
+            "alphas": {k: float(v) for k, v in self.alphas.items()},
+            "set_aside_freq": dict(zip(self.columns, map(float, self.set_aside_freq))),
+            "selected_freq": per(self.selected_freq), "coef_mean": per(self.coef_mean),
+            "coef_sd": per(self.coef_sd), "coef_q05": per(self.coef_q05), "coef_q95": per(self.coef_q95),
+            "order_driven": list(self.order_driven), "sentences": list(self.sentences),
+        }
+
+
+def resample_counts(design, rng: np.random.Generator) -> np.ndarray:
+    """How many times each row is drawn in one bootstrap sample.
+
+    Without groups: n rows drawn with replacement.  With groups: as many groups
+    as there are, drawn with replacement; every row of a drawn group comes along,
+    so all rows of one group share one count.
+    """
+    n = design.n
+    if design.groups is None:
+        return np.bincount(rng.integers(0, n, n), minlength=n).astype(np.float64)
+    g = int(design.groups.max()) + 1
+    per_group = np.bincount(rng.integers(0, g, g), minlength=g).astype(np.float64)
+    return per_group[design.groups]
+
+
+def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed: int = 0, progress=None,
+                        cancel=None) -> Stability:
+    """Refit every model on bootstrap samples at the fixed α of each family.
+
+    Parameters
+    ----------
+    design : Design
+    settings : FitSettings
+        OLS pins and rank tolerance, and the elastic-net L1 ratios.
+    alphas : dict of str -> float
+        α per penalized family (e.g. ``{k: pf.alpha for k, pf in results.penalized.items()}``).
+    n_boot : int
+    seed : int
+    progress, cancel : callables, optional
+        ``progress(done, total, message)`` after each refit; ``cancel()`` checked between refits.
+
+    Returns
+    -------
+    Stability
+    """
+    from regbench.models.engine import fit_models_at
+    from regbench.models.ols import fit_ols
+
+    n_boot = int(n_boot)
+    if n_boot < 2:
+        raise DataError(f"stability needs at least 2 bootstrap refits, not {n_boot}")
+    rng = np.random.default_rng(seed)
+    draws = None
+    names = None
+    p = design.p
+    for b in range(n_boot):
+        check(cancel)
+        counts = resample_counts(design, rng)
+        models = fit_models_at(replace(design, weights=design.weights * counts), settings, alphas)
+        if draws is None:
+            names = tuple(models)
+            draws = {k: np.empty((n_boot, p)) for k in names}
+        for k in names:
+            draws[k][b] = models[k].coef
+        report(progress, b + 1, n_boot, f"stability refit {b + 1} of {n_boot}")
+    selected = {k: np.mean(draws[k] != 0.0, axis=0) for k in names}
+    set_aside = 1.0 - selected["ols"]
+    full = fit_ols(design, settings.pins, settings.rank_tol)
+    order_driven = tuple(sa.column for sa in full.set_aside
+                         if getattr(sa, "exact", True) and set_aside[design.columns.index(sa.column)] == 1.0)
+    q05 = {k: np.quantile(draws[k], 0.05, axis=0) for k in names}
+    q95 = {k: np.quantile(draws[k], 0.95, axis=0) for k in names}
+    mean = {k: draws[k].mean(axis=0) for k in names}
+    sd = {k: draws[k].std(axis=0, ddof=1) for k in names}
+    sentences = _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, full, order_driven)
+    return Stability(columns=tuple(design.columns), models=names, n_boot=n_boot, seed=int(seed),
+                     grouped=design.groups is not None, alphas={k: float(v) for k, v in alphas.items()},
+                     set_aside_freq=set_aside, selected_freq=selected, coef_mean=mean, coef_sd=sd,
+                     coef_q05=q05, coef_q95=q95, coef_draws=draws, order_driven=order_driven,
+                     sentences=tuple(sentences))
+
+
+def _join(items, word="and") -> str:
+    items = list(items)
+    if len(items) <= 1:
+        return "".join(items)
+    return ", ".join(items[:-1]) + f" {word} " + items[-1]
+
+
+def _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, full, order_driven) -> list:
+    cols = design.columns
+    out = []
+    unit = f"{n_boot} {'grouped ' if design.groups is not None else ''}bootstrap refits"
+    if design.groups is not None:
+        out.append(f"Each of the {unit} resamples whole {design.groups_column or 'group'} groups, so a group is "
+                   "never split.")
+    by_column = {sa.column: sa for sa in full.set_aside}
+    pins = set(settings.pins)
+    for c in order_driven:
+        sa = by_column[c]
+        alts = list(sa.alternatives)
+        j = cols.index(c)
+        if alts and all(a in pins or cols.index(a) < j for a in alts):
+            why = (f"because it comes after {_join(alts)} in the column order"
+                   + (" (pinned columns come first)" if pins & set(alts) else ""))
+        else:
+            why = "because of the column order, not the data"
+        them = "them" if len(alts) > 1 else "it"
+        out.append(f"{c} is set aside in every refit {why}; the data cannot tell {them} apart from {c} "
+                   "(an exact alias).")
+    for j, c in enumerate(cols):
+        f = set_aside[j]
+        if c not in order_driven and f > 0:
+            out.append(f"OLS sets {c} aside in {f:.0%} of the refits: the overlap depends on which rows are drawn.")
+    for k in names:
+        if k in ("ols", "ridge"):
+            continue
+        s = selected[k]
+        stable = [c for c, v in zip(cols, s) if v >= STABLE_SHARE]
+        toss = [(c, v) for c, v in zip(cols, s) if TOSS_UP[0] <= v <= TOSS_UP[1]]
+        label = model_label(k)
+        txt = f"{label} keeps {len(stable)} of {len(cols)} columns in at least {STABLE_SHARE:.0%} of the refits"
+        if toss:
+            shown = sorted(toss, key=lambda t: abs(t[1] - 0.5))[:3]
+            txt += "; its choice of " + _join(f"{c} ({v:.0%})" for c, v in shown) + " is a toss-up"
+        out.append(txt + ".")
+    straddle = {}
+    for k in names:
+        for j, c in enumerate(cols):
+            if selected[k][j] > 0.5 and q05[k][j] < 0 < q95[k][j]:
+                straddle.setdefault(c, []).append(in_sentence(model_label(k)))
+    if straddle:
+        items = list(straddle.items())[:3]
+        out.append("The 5–95% range of the coefficient includes 0 for "
+                   + "; ".join(f"{c} in {_join(ms)}" for c, ms in items)
+                   + (f" and {len(straddle) - 3} more columns" if len(straddle) > 3 else "")
+                   + ": even its sign is not settled by these data.")
+    return out
