@@ -519,6 +519,10 @@ def stress_sweep(design, models: dict, column: str, kind: str, strengths=None, s
                        models=names, tolerance=tol, sentences=tuple(sentences))
 
 
+_PARTICIPLE = {"shuffle": "shuffled", "noise": "noised", "constant": "frozen", "rescale": "rescaled",
+               "wild": "given wild values", "missing": "partly lost"}
+
+
 def rank_columns(design, models: dict, kind: str = "shuffle", strength: Optional[float] = None, seed: int = 0,
                  progress=None, cancel=None) -> ColumnRanking:
     """Damage every source column in turn and rank the columns by how far each model moves.
@@ -556,10 +560,10 @@ def rank_columns(design, models: dict, kind: str = "shuffle", strength: Optional
         top = [c for c in order[k][:3] if shift[i, columns.index(c)] != 0.0]
         zero = [c for j, c in enumerate(columns) if shift[i, j] == 0.0]
         if not top:
-            sentences.append(f"{model_label(k)} does not move whichever column is damaged.")
+            sentences.append(f"{model_label(k)} does not move whichever column is {_PARTICIPLE[kind]}.")
             continue
         first = top[0]
-        txt = f"{model_label(k)} moves most when {first} is damaged ({fmt(shift[i, columns.index(first)])} RMS)"
+        txt = f"{model_label(k)} moves most when {first} is {_PARTICIPLE[kind]} ({fmt(shift[i, columns.index(first)])} RMS)"
         if len(top) > 1:
             txt += ", then " + _join(f"{c} ({fmt(shift[i, columns.index(c)])})" for c in top[1:])
         if zero:
