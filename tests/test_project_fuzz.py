@@ -1,0 +1,172 @@
+"""Damaged project files: every mutation loads cleanly or raises ProjectError, nothing else.
+
+Hypothesis mutates the bytes of a valid project (flipped bytes, truncation),
+removes members, and retypes or replaces JSON fields in manifest.json,
+session.json and results.json — with the manifest's hashes refreshed, so the
+field validation itself is exercised and not only the SHA-256 check.
+
+Cases run: ``MAX_EXAMPLES`` per test below (4 tests, 4 × 150 = 600 mutated files
+per run); the count is printed at the end of each test.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+import pathlib
+import zipfile
+
+import pytest
+from hypothesis import HealthCheck, given, settings, strategies as st
+
+from regbench.analysis.stress import StressConfig
+from regbench.data.design import Roles
+from regbench.errors import ProjectError
+from regbench.models.results import FitSettings
+from regbench.project import inspect_project, load_project, save_project
+from regbench.session import Session
+
+ROOT = pathlib.Path(__file__).resolve().parents[1]
+MAX_EXAMPLES = 150
+RUNS = {"count": 0}
+
+
+@pytest.fixture(scope="module")
+def project_bytes(tmp_path_factory):
+    from regbench.data.reader import read_table
+    from regbench.data.table import Table
+
+    full = read_table(ROOT / "sample_projects" / "greenhouse.csv")
+    # A small project keeps each load fast: the first 288 rows (four glasshouses).
+    table = Table(full.frame.iloc[:288].reset_index(drop=True), full.columns, full.source)
+    s = Session.from_table(table, Roles(target="yield_kg_m2", predictors=("variety", "day_temp_c", "night_temp_c",
+                                                                          "mean_temp_c", "co2_ppm", "ec_ms_cm"),
+                                        weights="plants_per_bed", groups="glasshouse"),
+                           FitSettings(folds=3, n_penalties=12))
+    s.add_stress(StressConfig("co2_ppm", "noise", 1.0))
+    s.set_bootstrap(3)
+    s.compute()
+    path = tmp_path_factory.mktemp("fuzz") / "base.regbench"
+    save_project(s, path)
+    return path.read_bytes()
+
+
+def members_of(data: bytes) -> dict:
+    with zipfile.ZipFile(io.BytesIO(data)) as zf:
+        return {i.filename: zf.read(i) for i in zf.infolist()}
+
+
+def pack(members: dict, fix: bool) -> bytes:
+    members = dict(members)
+    if fix and "manifest.json" in members:
+        try:
+            m = json.loads(members["manifest.json"])
+            m["members"] = [{"name": n, "size": len(b), "sha256": hashlib.sha256(b).hexdigest()}
+                            for n, b in members.items() if n != "manifest.json"]
+            if "table.parquet" in members:
+                m["table_sha256"] = hashlib.sha256(members["table.parquet"]).hexdigest()
+            members["manifest.json"] = json.dumps(m).encode()
+        except (ValueError, TypeError, AttributeError):
+            pass
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
+        for n, b in members.items():
+            zf.writestr(n, b)
+    return buf.getvalue()
+
+
+def check_load(tmp_path, data: bytes) -> str:
+    path = tmp_path / "case.regbench"
+    path.write_bytes(data)
+    RUNS["count"] += 1
+    outcome = "loaded"
+    try:
+        s = load_project(path, compute=False)
+        # A loaded session must be usable: its models and comparisons come out.
+        if s.results is not None:
+            s.models()
+            s.agreement()
+    except ProjectError:
+        outcome = "refused"
+    try:
+        inspect_project(path)
+    except ProjectError:
+        pass
+    return outcome
+
+
+def json_paths(node, prefix=()):
+    yield prefix
+    if isinstance(node, dict):
+        for k, v in node.items():
+            yield from json_paths(v, prefix + (k,))
+    elif isinstance(node, list):
+        for i, v in enumerate(node):
+            yield from json_paths(v, prefix + (i,))
+
+
+def replace_at(node, path, value):
+    if not path:
+        return value
+    node = node.copy() if isinstance(node, (dict, list)) else node
+    node[path[0]] = replace_at(node[path[0]], path[1:], value)
+    return node
+
+
+JSON_VALUES = st.recursive(
+    st.none() | st.booleans() | st.integers(-10**12, 10**12) | st.floats(allow_nan=False, allow_infinity=False)
+    | st.text(max_size=12) | st.sampled_from(["", "nan", "ols", "ridge", "day_temp_c", "categorical", "$array"]),
+    lambda inner: st.lists(inner, max_size=3) | st.dictionaries(st.text(max_size=8), inner, max_size=3),
+    max_leaves=6,
+)
+
+COMMON = dict(max_examples=MAX_EXAMPLES, deadline=None,
+              suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+
+
+@settings(**COMMON)
+@given(flips=st.lists(st.tuples(st.floats(0, 1, exclude_max=True), st.integers(1, 255)), min_size=1, max_size=8))
+def test_flipped_bytes(project_bytes, tmp_path, flips):
+    data = bytearray(project_bytes)
+    for where, xor in flips:
+        data[int(where * len(data))] ^= xor
+    check_load(tmp_path, bytes(data))
+
+
+@settings(**COMMON)
+@given(cut=st.floats(0, 1, exclude_max=True))
+def test_truncated(project_bytes, tmp_path, cut):
+    assert check_load(tmp_path, project_bytes[: int(cut * len(project_bytes))]) == "refused"
+
+
+@settings(**COMMON)
+@given(data=st.data(), fix=st.booleans())
+def test_removed_members(project_bytes, tmp_path, data, fix):
+    members = members_of(project_bytes)
+    names = sorted(members)
+    drop = data.draw(st.sets(st.sampled_from(names), min_size=1, max_size=4))
+    outcome = check_load(tmp_path, pack({k: v for k, v in members.items() if k not in drop}, fix))
+    if drop & {"manifest.json", "table.parquet", "session.json"} or not fix:
+        assert outcome == "refused"
+
+
+@settings(**COMMON)
+@given(data=st.data(), fix=st.booleans())
+def test_retyped_json_fields(project_bytes, tmp_path, data, fix):
+    members = members_of(project_bytes)
+    name = data.draw(st.sampled_from(["manifest.json", "session.json", "results.json"]))
+    doc = json.loads(members[name])
+    paths = list(json_paths(doc))
+    for _ in range(data.draw(st.integers(1, 3))):
+        path = data.draw(st.sampled_from(paths))
+        doc = replace_at(doc, path, data.draw(JSON_VALUES))
+        paths = list(json_paths(doc))
+    members[name] = json.dumps(doc).encode()
+    check_load(tmp_path, pack(members, fix))
+
+
+def test_zz_report_case_count():
+    """Print how many mutated files the fuzz tests above loaded (run after them in file order)."""
+    print(f"project fuzz: {RUNS['count']} mutated project files loaded or refused cleanly")
+    assert RUNS["count"] >= 4 * MAX_EXAMPLES or RUNS["count"] == 0
