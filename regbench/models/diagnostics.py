@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from regbench.models.ols import format_number
+from regbench.models.ols import format_number, r_factor
 from regbench.models.results import Diagnostics, NearDependency
 
 INTERCEPT = "(intercept)"
@@ -61,25 +61,31 @@ def diagnose(design, ols_result) -> Diagnostics:
     k = len(kept)
     terms = (INTERCEPT,) + kept
 
-    # VIF and coordinates of the centered, scaled kept columns.
+    # One QR of [sqrt(w), sqrt(w)·(x - m)]: the centered columns are orthogonal to the
+    # intercept column, so R gives the centered coordinates (VIF) accurately, and adding
+    # m_j times the intercept column back gives the uncentered ones (condition indices)
+    # without cancellation.
+    mean = (w @ X) / W if k else np.zeros(0)
+    Zc = np.empty((max(X.shape[0], k + 1), k + 1), order="F")
+    Zc[X.shape[0]:] = 0.0
+    Zc[: X.shape[0], 0] = np.sqrt(w)
+    np.subtract(X, mean, out=Zc[: X.shape[0], 1:])
+    Zc[: X.shape[0], 1:] *= np.sqrt(w)[:, None]
+    Rc = r_factor(Zc)
+    del Zc
     if k:
-        mean = (w @ X) / W
-        Xc = X - mean
-        sd = np.sqrt((w @ (Xc * Xc)) / W)
-        A = np.sqrt(w / W)[:, None] * Xc / np.where(sd > 0, sd, 1.0)
-        R = linalg.qr(A, mode="r", check_finite=False)[0][:k]
+        cen = Rc[:, 1:] / np.linalg.norm(Rc[:, 1:], axis=0)  # centered columns at unit length
+        R = linalg.qr(cen, mode="r", check_finite=False)[0][:k]
         Rinv = linalg.solve_triangular(R, np.eye(k), check_finite=False)
         vif = np.sum(Rinv * Rinv, axis=1)
-        if k == 1:
-            vif = np.ones(1)
     else:
         R = np.zeros((0, 0))
         vif = np.zeros(0)
 
     # Condition indices and variance-decomposition proportions (uncentered, with intercept).
-    Z = np.sqrt(w)[:, None] * np.column_stack([np.ones(X.shape[0]), X])
-    Z = Z / np.linalg.norm(Z, axis=0)
-    Rz = linalg.qr(Z, mode="r", check_finite=False)[0][: k + 1]
+    Rz = Rc.copy()
+    Rz[:, 1:] += Rc[:, :1] * mean
+    Rz /= np.linalg.norm(Rz, axis=0)
     _, s, Vt = np.linalg.svd(Rz)
     with np.errstate(divide="ignore"):
         cond = s[0] / s
@@ -110,26 +116,26 @@ def diagnose(design, ols_result) -> Diagnostics:
     )
 
 
-def _r2_on(R, j, support) -> float:
-    """R² of scaled column j on the scaled columns in ``support`` (plus intercept)."""
-    if not support:
-        return 0.0
-    B = R[:, support]
-    coef, *_ = np.linalg.lstsq(B, R[:, j], rcond=None)
-    left = R[:, j] - B @ coef
-    return float(1.0 - left @ left / (R[:, j] @ R[:, j]))
-
-
 def _near_dependency(j, R, kept, vif) -> NearDependency:
-    others = [i for i in range(len(kept)) if i != j]
+    """Greedy forward selection on the coordinates ``R`` of the unit-length centered columns."""
     r2_all = 1.0 - 1.0 / vif
+    t = R[:, j] / np.linalg.norm(R[:, j])
+    others = np.array([i for i in range(len(kept)) if i != j], dtype=int)
+    cand = R[:, others].copy()
+    left = t.copy()  # what the chosen columns leave of column j
     chosen, r2 = [], 0.0
-    while others and len(chosen) < MAX_EXPLAINERS and r2 < r2_all - R2_SLACK:
-        gains = [(_r2_on(R, j, chosen + [i]), -pos, i) for pos, i in enumerate(others)]
-        best_r2, _, best = max(gains)
-        chosen.append(best)
-        others.remove(best)
-        r2 = best_r2
+    while others.size and len(chosen) < MAX_EXPLAINERS and r2 < r2_all - R2_SLACK:
+        norms = np.einsum("ij,ij->j", cand, cand)
+        ok = norms > 1e-24
+        gain = np.where(ok, (left @ cand) ** 2 / np.where(ok, norms, 1.0), -1.0)
+        best = int(np.argmax(gain))
+        u = cand[:, best] / np.sqrt(norms[best])
+        chosen.append(int(others[best]))
+        left = left - u * (u @ left)
+        cand = cand - np.outer(u, u @ cand)
+        others = np.delete(others, best)
+        cand = np.delete(cand, best, axis=1)
+        r2 = float(1.0 - left @ left)
     names = tuple(kept[i] for i in chosen)
     col = kept[j]
     sentence = (f"{col} is {percent(r2)} explained by {_join(names)} (R² {r2_text(r2)}, VIF "

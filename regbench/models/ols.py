@@ -31,8 +31,8 @@ Which columns are kept
 The pivoted QR fixes the rank.  The choice among dependent columns follows
 a stated order so that it is predictable and can be steered: pinned columns
 first, then the design order; a column is set aside when the columns kept
-before it reproduce it.  This walk runs on the p×p factor ``R P^T`` (same
-lengths and angles as the scaled columns).  In the rare borderline case where
+before it reproduce it.  This walk runs on the p×p triangular factor of the
+scaled columns (same lengths and angles as the columns themselves).  In the rare borderline case where
 that walk keeps a different number of columns than the pivoted QR's rank, the
 choice falls back to pivoted QR on the pinned block first and then on the
 rest with the pinned part removed.
@@ -114,31 +114,33 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
     roundoff = default_rank_tol(n, p)
 
     mean = (w @ X) / W
-    Xc = X - mean
-    sd = np.sqrt((w @ (Xc * Xc)) / W)
     sqw = np.sqrt(w / W)
+    ybar = (w @ y) / W
+    # One Householder QR of [a | z] (z the scaled, centered target); its R holds the
+    # coordinates of every scaled column and of z in one orthonormal basis, so everything
+    # after it works on (p+1)×(p+1) numbers.  Zero rows pad a design with fewer rows than p+1.
+    M = np.zeros((max(n, p + 1), p + 1), order="F")
+    np.subtract(X, mean, out=M[:n, :p])
+    M[:n, :p] *= sqw[:, None]
+    sd = np.sqrt(np.einsum("ij,ij->j", M[:n, :p], M[:n, :p]))
     scale = np.where(sd > 0, sd, 1.0)
     # Typical size of each column (weighted RMS about zero): the scale of its round-off.
-    size = np.sqrt((w @ (X * X)) / W)
+    size = np.sqrt(sd * sd + mean * mean)
     size = np.where(size > 0, size, 1.0)
-    A = (sqw[:, None] * Xc) / size
-    A[:, sd == 0] = 0.0
-    ybar = (w @ y) / W
-    z = sqw * (y - ybar)
-
-    # Coordinates of the scaled columns in an orthonormal basis of their span: ``Cr`` for
-    # columns of unit RMS (rank decisions), ``C`` for columns of unit SD (solving).
-    if p:
-        Q, R, piv = linalg.qr(A, mode="economic", pivoting=True, check_finite=False)
-        diag = np.abs(np.diag(R))
-        rank_qr = int(np.count_nonzero(diag > tol))
-        Cr = np.empty_like(R)
-        Cr[:, piv] = R
-    else:
-        Q = np.zeros((n, 0))
-        Cr = np.zeros((0, 0))
-        rank_qr = 0
+    M[:n, :p] /= size
+    M[:, :p][:, sd == 0] = 0.0
+    M[:n, p] = sqw * (y - ybar)
+    Raug = r_factor(M)
+    del M
+    # ``Cr``: coordinates of the columns at unit RMS (rank decisions); ``C``: at unit SD (solving).
+    Cr = Raug[:p, :p]
+    qz = Raug[:p, p]
     C = Cr * (size / scale)
+    if p:
+        diag = np.abs(np.diag(linalg.qr(Cr, mode="r", pivoting=True, check_finite=False)[0]))
+        rank_qr = int(np.count_nonzero(diag > tol))
+    else:
+        rank_qr = 0
 
     _check_pins(Cr, pin_idx, columns, tol, sd)
     kept = _ordered_choice(Cr, pin_idx, tol, sd)
@@ -149,25 +151,28 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
     aside = [j for j in range(p) if j not in set(kept)]
 
     # Solve on the kept columns through a QR of their coordinates (no normal equations),
-    # then one refinement step on residuals computed in original units.
-    qz = Q.T @ z if p else np.zeros(0)
+    # then refine on residuals computed in original units (corrected semi-normal
+    # equations with the same triangular factor, Björck 1996, section 6.6).
     if k:
         Qk, Rk = linalg.qr(C[:, kept], mode="economic", check_finite=False)
         b = linalg.solve_triangular(Rk, Qk.T @ qz, check_finite=False)
         beta_k = b / scale[kept]
         icpt = ybar - mean[kept] @ beta_k
+        Xk = X[:, kept]
         for _ in range(2):
-            e = y - icpt - X[:, kept] @ beta_k
+            e = y - icpt - Xk @ beta_k
             ebar = (w @ e) / W
-            ez = sqw * (e - ebar)
-            db = linalg.solve_triangular(Rk, Qk.T @ (Q.T @ ez), check_finite=False)
+            v = (w / W) * (e - ebar)
+            g = (v @ Xk - mean[kept] * v.sum()) / scale[kept]
+            db = linalg.solve_triangular(
+                Rk, linalg.solve_triangular(Rk, g, trans="T", check_finite=False), check_finite=False)
             beta_k = beta_k + db / scale[kept]
             icpt = icpt + ebar - mean[kept] @ (db / scale[kept])
     else:
         beta_k = np.zeros(0)
         icpt = ybar
 
-    resid = y - icpt - (X[:, kept] @ beta_k if k else 0.0)
+    resid = y - icpt - (Xk @ beta_k if k else 0.0)
     ssr = float(w @ (resid * resid))
     tss = float(w @ ((y - ybar) ** 2))
     df = n - k - 1
@@ -229,6 +234,22 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
         rank_tol=float(tol),
         model=model,
     )
+
+
+def r_factor(M: np.ndarray) -> np.ndarray:
+    """The square upper-triangular R of a Householder QR of ``M`` (n >= p), overwriting ``M``.
+
+    LAPACK ``geqrf`` directly: no Q is formed and no n×p triangular copy is made.
+    """
+    from scipy import linalg
+
+    geqrf, = linalg.get_lapack_funcs(("geqrf",), (M,))
+    _, _, work, _ = geqrf(M, lwork=-1)
+    qr, _, _, info = geqrf(M, lwork=max(int(work[0].real), 1), overwrite_a=True)
+    if info != 0:
+        raise ModelError(f"the QR factorization failed (LAPACK info {info}); check the design for extreme values")
+    k = min(M.shape)
+    return np.triu(qr[:k, :])
 
 
 def _check_inputs(design, X, y, w) -> None:
