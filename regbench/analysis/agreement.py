@@ -38,32 +38,37 @@ SPLITS = ("training", "held_out")
 # -- weighted statistics (shared by the other analyses) -----------------------------------
 
 
+# Element-wise products with pairwise summation rather than BLAS dot: as accurate or more,
+# and measured several times faster for long vectors on a busy 2-core machine, where
+# threaded BLAS level-1 calls contend for the cores.
+
+
 def weighted_mean(v: np.ndarray, w: np.ndarray) -> float:
     """Σ w v / Σ w."""
-    return float(np.dot(w, v) / w.sum())
+    return float((w * v).sum() / w.sum())
 
 
 def weighted_sd(v: np.ndarray, w: np.ndarray) -> float:
     """Weighted population SD: sqrt(Σ w (v − mean)² / Σ w)."""
     m = weighted_mean(v, w)
-    return float(np.sqrt(np.dot(w, (v - m) ** 2) / w.sum()))
+    return float(np.sqrt((w * (v - m) ** 2).sum() / w.sum()))
 
 
 def weighted_rms(v: np.ndarray, w: np.ndarray) -> float:
     """sqrt(Σ w v² / Σ w)."""
-    return float(np.sqrt(np.dot(w, v * v) / w.sum()))
+    return float(np.sqrt((w * v * v).sum() / w.sum()))
 
 
 def weighted_corr(a: np.ndarray, b: np.ndarray, w: np.ndarray) -> float:
     """Weighted Pearson correlation; NaN when either vector is constant."""
     wn = w / w.sum()
-    da = a - wn @ a
-    db = b - wn @ b
-    saa = wn @ (da * da)
-    sbb = wn @ (db * db)
+    da = a - (wn * a).sum()
+    db = b - (wn * b).sum()
+    saa = (wn * da * da).sum()
+    sbb = (wn * db * db).sum()
     if not (saa > 0 and sbb > 0):
         return float("nan")
-    return float(np.clip((wn @ (da * db)) / np.sqrt(saa * sbb), -1.0, 1.0))
+    return float(np.clip((wn * da * db).sum() / np.sqrt(saa * sbb), -1.0, 1.0))
 
 
 def fmt(x: float) -> str:
