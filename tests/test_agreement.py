@@ -131,3 +131,34 @@ def test_zero_weight_rows_do_not_count(case):
     for p, q in zip(ag.pairs, sub.pairs):
         for f in ("rmse", "max_abs", "corr", "mean_diff", "loa_low", "loa_high"):
             assert getattr(p, f) == pytest.approx(getattr(q, f), rel=1e-10)
+
+
+def test_with_the_engine_grouped_heldout_rows():
+    engine = pytest.importorskip("regbench.models.engine")
+    from regbench.models.results import FitSettings
+
+    rng = np.random.default_rng(12)
+    G, per = 12, 15
+    groups = np.repeat(np.arange(G), per)
+    n = G * per
+    a = rng.normal(size=n)
+    X = np.column_stack([a, a + rng.normal(0, 0.05, n), rng.normal(size=n)])
+    y = 1 + a + 0.5 * X[:, 2] + rng.normal(0, 0.1, G)[groups] + rng.normal(0, 0.3, n)
+    w = rng.uniform(0.5, 2.0, n)
+    d = design_from_arrays(X, y, ("a", "a_twin", "z"), weights=w, groups=groups, target="out")
+    res = engine.fit_all(d, FitSettings(folds=4, n_penalties=30))
+    models = res.models()
+    held = engine.heldout_predictions(d, res, models)
+    # Grouped folds: every row of one group is in the same fold.
+    assert all(len(set(res.fold_ids[groups == g])) == 1 for g in range(G))
+    # OLS held-out predictions equal a weighted least-squares fit on the other folds (numpy lstsq).
+    for k in range(4):
+        tr, te = res.fold_ids != k, res.fold_ids == k
+        A = np.column_stack([np.ones(tr.sum()), X[tr]]) * np.sqrt(w[tr])[:, None]
+        beta = np.linalg.lstsq(A, y[tr] * np.sqrt(w[tr]), rcond=None)[0]
+        np.testing.assert_allclose(held["ols"][te], beta[0] + X[te] @ beta[1:], rtol=1e-8, atol=1e-10)
+    ag = compare_models(d, models, held)
+    assert len(ag.pairs) == 2 * 6
+    # The group column here is called 'groups': the words must not repeat it.
+    assert any("RMS on held-out groups while" in s for s in ag.sentences)
+    assert not any("groups groups" in s for s in ag.sentences)

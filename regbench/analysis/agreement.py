@@ -239,7 +239,8 @@ def _rows_words(design, split: str) -> str:
     if split == "training":
         return "the training rows"
     if design.groups_column:
-        return f"held-out {design.groups_column} groups"
+        g = design.groups_column
+        return f"held-out {g}" if g.lower().rstrip("s").endswith("group") else f"held-out {g} groups"
     return "held-out rows"
 
 
