@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 import platform
+import re
 from datetime import datetime, timezone
 from html import escape
 
@@ -118,11 +119,24 @@ def pct(x) -> str:
     return "—" if not math.isfinite(v) else f"{100 * v:.1f}%"
 
 
-def table(headers, rows, cls_first_text: bool = True, numeric_cols=None) -> str:
-    """An HTML table; cells are escaped unless given as ('html', markup)."""
-    out = ['<div class="scroll"><table><thead><tr>']
-    out += [f'<th{" class=t" if i == 0 else ""}>{e(h)}</th>' for i, h in enumerate(headers)]
-    out.append("</tr></thead><tbody>")
+def table(headers, rows) -> str:
+    """An HTML table; cells are escaped unless given as ('html', markup) or ('cls', class, text).
+
+    A column whose cells are all text (not numbers) is left-aligned, numbers right-aligned.
+    ``headers`` None leaves out the header row.
+    """
+    rows = [tuple(r) for r in rows]
+    ncol = max([len(headers or ())] + [len(r) for r in rows])
+    text_col = []
+    for j in range(ncol):
+        cells = [r[j] for r in rows if j < len(r)]
+        text_col.append(j == 0 or any(isinstance(c, str) and not _numeric_text(c) for c in cells))
+    out = ['<div class="scroll"><table>']
+    if headers:
+        out.append("<thead><tr>")
+        out += [f'<th{" class=t" if text_col[i] else ""}>{e(h)}</th>' for i, h in enumerate(headers)]
+        out.append("</tr></thead>")
+    out.append("<tbody>")
     for row in rows:
         out.append("<tr>")
         for i, cell in enumerate(row):
@@ -131,14 +145,14 @@ def table(headers, rows, cls_first_text: bool = True, numeric_cols=None) -> str:
             elif isinstance(cell, tuple) and cell and cell[0] == "cls":
                 out.append(f'<td class="{cell[1]}">{e(cell[2])}</td>')
             else:
-                out.append(f'<td{" class=t" if (i == 0 and cls_first_text) or isinstance(cell, str) and i > 0 and not _numeric_text(cell) else ""}>{e(cell)}</td>')
+                out.append(f'<td{" class=t" if text_col[i] else ""}>{e(cell)}</td>')
         out.append("</tr>")
     out.append("</tbody></table></div>")
     return "".join(out)
 
 
 def _numeric_text(s: str) -> bool:
-    return bool(s) and (s[0].isdigit() or s[0] in "−-—∞.") and len(s) < 16
+    return s == "—" or bool(re.fullmatch(r"[−-]?(\d[\d.]*(e[−-]?\d+)?%?|∞)", s))
 
 
 def sentences(items) -> str:
@@ -169,9 +183,8 @@ def _question(session) -> str:
                                                                    "beside the first)"),
             ("Categorical marks", ", ".join(r.categorical) or "none"),
             ("Row weights", r.weights or "none (every row counts once)"),
-            ("Groups kept together", r.groups or "none" if not r.groups else
-             f"{r.groups} ({len(d.group_labels)} groups)")]
-    parts.append(table(["", ""], info))
+            ("Groups kept together", f"{r.groups} ({len(d.group_labels)} groups)" if r.groups else "none")]
+    parts.append(table(None, info))
     parts.append("<h3>Rows left out, and why</h3>")
     if d.excluded:
         parts.append(table(["Table row", "Column", "Reason"], [(str(x.row), x.column, x.reason) for x in d.excluded]))
@@ -262,9 +275,6 @@ def _fits(session) -> str:
     parts.append(figure(svg.bar_chart(list(res.columns), groups, title="Standardized coefficients by model",
                                       ylabel="coefficient × column SD"),
                         "Standardized so columns in different units compare."))
-    st = session.structure()
-    for cs in getattr(st, "collinear_sets", ()) or ():
-        parts.append(f"<p>{e(cs.sentence)}</p>")
     return "".join(parts)
 
 
@@ -340,43 +350,33 @@ def _stability(session) -> str:
     parts = []
     if not session.stability_current:
         parts.append('<p class="muted">These refits used an earlier choice of α; run the check again to update them.</p>')
-    parts.append(sentences(getattr(st, "sentences", ())))
-    parts.append(_generic_matrices(st))
+    parts.append(sentences(st.sentences))
+    how = "whole groups resampled" if st.grouped else "rows resampled"
+    parts.append(f"<p>{st.n_boot} bootstrap refits ({e(how)}, seed {st.seed}), each model at a fixed α: "
+                 + e(", ".join(f"{model_label(k)} {num(v)}" for k, v in st.alphas.items())) + ".</p>")
+    sel = [m for m in st.models if m in st.selected_freq and m not in ("ols", "ridge")]
+    parts.append("<h3>How often each column is set aside or selected</h3>")
+    rows = [(c, pct(st.set_aside_freq[j]), *[pct(st.selected_freq[m][j]) for m in sel])
+            for j, c in enumerate(st.columns)]
+    parts.append(table(["Column", "Set aside by OLS", *[f"Selected by {model_label(m).lower()}" for m in sel]], rows))
+    if sel:
+        parts.append(figure(svg.bar_chart(list(st.columns), [(model_label(m), st.selected_freq[m]) for m in sel],
+                                          title="Share of refits in which a column is selected",
+                                          ylabel="share of refits (1 = every refit)"),
+                            "A column selected in about half the refits is a toss-up between overlapping columns."))
+    parts.append("<h3>How far each coefficient moves (5–95% of refits, original units)</h3>")
+    models = [m for m in st.models if m in st.coef_q05]
+    rows = []
+    for j, c in enumerate(st.columns):
+        cells = []
+        for m in models:
+            lo, hi = float(st.coef_q05[m][j]), float(st.coef_q95[m][j])
+            cells.append(("cls", "zero", "0") if lo == 0.0 and hi == 0.0 else f"{num(lo)} to {num(hi)}")
+        rows.append((c, *cells))
+    parts.append(table(["Column", *[model_label(m) for m in models]], rows))
+    parts.append('<p class="muted">A range that includes 0 means the data do not settle even the sign of that '
+                 "coefficient.</p>")
     return "".join(parts)
-
-
-def _generic_matrices(obj) -> str:
-    """Tables for a result's arrays laid out as (models, columns) or (columns,)."""
-    cols = tuple(getattr(obj, "columns", ()) or ())
-    models = tuple(getattr(obj, "models", ()) or ())
-    parts = []
-    import dataclasses
-
-    if not dataclasses.is_dataclass(obj):
-        return ""
-    for f in dataclasses.fields(obj):
-        v = getattr(obj, f.name)
-        title = f.name.replace("_", " ").capitalize()
-        if isinstance(v, np.ndarray) and cols and v.dtype.kind in "fiub":
-            if v.ndim == 2 and v.shape == (len(models), len(cols)):
-                rows = [(c, *[pct(v[i, j]) if _is_share(f.name) else num(v[i, j]) for i in range(len(models))])
-                        for j, c in enumerate(cols)]
-                parts.append(f"<h3>{e(title)}</h3>" + table(["Column", *[model_label(m) for m in models]], rows))
-            elif v.ndim == 1 and v.shape == (len(cols),):
-                parts.append(f"<h3>{e(title)}</h3>" + table(
-                    ["Column", title], [(c, pct(x) if _is_share(f.name) else num(x)) for c, x in zip(cols, v)]))
-        elif isinstance(v, dict) and cols and v and all(isinstance(a, np.ndarray) and a.shape == (len(cols),)
-                                                        for a in v.values()):
-            keys = list(v)
-            rows = [(c, *[pct(v[k][j]) if _is_share(f.name) else num(v[k][j]) for k in keys]) for j, c in enumerate(cols)]
-            parts.append(f"<h3>{e(title)}</h3>" + table(["Column", *[model_label(k) for k in keys]], rows))
-        elif isinstance(v, (int, float)) and not isinstance(v, bool) and f.name not in ("seed",):
-            parts.append(f"<p>{e(title)}: {num(v)}</p>")
-    return "".join(parts)
-
-
-def _is_share(name: str) -> bool:
-    return any(w in name for w in ("share", "freq", "rate", "prob", "selected", "aside"))
 
 
 def _notes(session) -> str:

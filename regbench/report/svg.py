@@ -15,6 +15,8 @@ import numpy as np
 PALETTE = ("#1f5f8b", "#c8553d", "#2e8b57", "#8a5a9e", "#d4a017", "#4a4a4a", "#0f9bb0", "#a0522d",
            "#6b8e23", "#b03060")
 
+DASHES = ("6 3", "2 2", "8 3 2 3")
+
 W, H = 640, 300
 ML, MR, MT, MB = 64, 170, 28, 44
 
@@ -119,15 +121,17 @@ def line_chart(series, *, title: str, xlabel: str, ylabel: str, log_x: bool = Fa
         x, y = tx(np.asarray(xs, dtype=float)), np.asarray(ys, dtype=float)
         ok = np.isfinite(x) & np.isfinite(y)
         colour = PALETTE[k % len(PALETTE)]
+        # Past the palette, lines repeat a colour with a dash pattern so each stays distinct.
+        dash = "" if k < len(PALETTE) else f' stroke-dasharray="{DASHES[(k // len(PALETTE) - 1) % len(DASHES)]}"'
         if ok.sum() >= 2:
             pts = " ".join(f"{px(a):.1f},{py(b):.1f}" for a, b in zip(x[ok], y[ok]))
-            out.append(f'<polyline points="{pts}" fill="none" stroke="{colour}" stroke-width="1.8"/>')
+            out.append(f'<polyline points="{pts}" fill="none" stroke="{colour}" stroke-width="1.8"{dash}/>')
         elif ok.sum() == 1:
             out.append(f'<circle cx="{px(x[ok][0]):.1f}" cy="{py(y[ok][0]):.1f}" r="3" fill="{colour}"/>')
         if k < 14:
             ly = MT + 10 + 15 * k
             out.append(f'<line x1="{ML + pw + 10}" y1="{ly}" x2="{ML + pw + 26}" y2="{ly}" stroke="{colour}" '
-                       'stroke-width="2.5"/>')
+                       f'stroke-width="2.5"{dash}/>')
             out.append(f'<text x="{ML + pw + 30}" y="{ly + 4}" class="lg">{escape(_short(label))}</text>')
     if len(series) > 14:
         out.append(f'<text x="{ML + pw + 10}" y="{MT + 10 + 15 * 14 + 4}" class="lg">+{len(series) - 14} more</text>')

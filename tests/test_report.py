@@ -1,0 +1,170 @@
+"""The HTML report: sections in order, self-contained, escaped, opens in a browser engine.
+
+Outside checks: Python's html.parser reads the document; the rows left out are
+counted straight from the CSV with the csv module; chromium (when installed)
+parses and lays out the file headless.
+"""
+
+from __future__ import annotations
+
+import csv
+import os
+import pathlib
+import re
+import shutil
+import subprocess
+from html.parser import HTMLParser
+
+import pytest
+
+from regbench.analysis.stress import StressConfig
+from regbench.data.design import Roles
+from regbench.demo import GREENHOUSE_ROLES
+from regbench.models.results import FitSettings
+from regbench.report import SECTIONS, render_report, report_html
+from regbench.session import Session
+
+ROOT = pathlib.Path(__file__).resolve().parents[1]
+CSV = ROOT / "sample_projects" / "greenhouse.csv"
+HOSTILE = '<script>alert("x")</script> & <img src="http://example.invalid/p.png">'
+
+
+class Collect(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.h2, self.tags, self.urls, self.text = [], [], [], []
+        self._in_h2 = False
+        self.cells_by_table = []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append(tag)
+        if tag == "h2":
+            self._in_h2 = True
+            self.h2.append("")
+        for k, v in attrs:
+            if k in ("src", "href", "xlink:href", "action", "data") and v is not None:
+                self.urls.append(v)
+            if k == "style" and v and "url(" in v:
+                self.urls.append(v)
+
+    def handle_endtag(self, tag):
+        if tag == "h2":
+            self._in_h2 = False
+
+    def handle_data(self, data):
+        if self._in_h2:
+            self.h2[-1] += data
+        self.text.append(data)
+
+
+@pytest.fixture(scope="module")
+def session():
+    s = Session.from_table_file(CSV, Roles.from_dict(GREENHOUSE_ROLES), FitSettings(folds=4, n_penalties=30))
+    s.add_stress(StressConfig("day_temp_c", "rescale", 1.8))
+    s.add_stress(StressConfig("co2_ppm", "shuffle"))
+    s.set_bootstrap(5)
+    s.set_notes(HOSTILE)
+    s.compute()
+    s.add_extra_fit("ridge", 0.3, name='ridge "<b>bold</b>"')
+    return s
+
+
+@pytest.fixture(scope="module")
+def html(session, tmp_path_factory):
+    path = tmp_path_factory.mktemp("rep") / "report.html"
+    render_report(session, path)
+    return path.read_text(encoding="utf-8")
+
+
+def parsed(html) -> Collect:
+    p = Collect()
+    p.feed(html)
+    p.close()
+    return p
+
+
+def test_every_section_heading_in_order(html):
+    p = parsed(html)
+    assert p.h2 == [h for _, h in SECTIONS]
+    assert [h for _, h in SECTIONS][:6] == [
+        "What are we asking, and of which rows?", "What overlaps in this table?", "How do the fits differ?",
+        "Do they predict alike?", "What breaks when one input goes bad?", "How sure are we?"]
+
+
+def test_self_contained_no_external_url_no_script(html):
+    p = parsed(html)
+    external = [u for u in p.urls if re.match(r"^\s*(https?:|//|ftp:|file:)", u, re.I)]
+    assert external == []
+    assert all(u.startswith("#") for u in p.urls)  # only links inside the page
+    assert "script" not in p.tags and "link" not in p.tags and "iframe" not in p.tags and "img" not in p.tags
+    assert "@import" not in html and "url(" not in html
+
+
+def test_user_text_is_escaped(html):
+    assert "<script>" not in html
+    assert "&lt;script&gt;alert(&quot;x&quot;)&lt;/script&gt;" in html
+    assert "<b>bold</b>" not in html and "&lt;b&gt;bold&lt;/b&gt;" in html
+    assert HOSTILE in "".join(parsed(html).text)  # the reader sees the text as typed
+
+
+def test_every_excluded_row_is_listed(html, session):
+    # Rows with an empty cell in a column the roles use, counted with the csv module (row 1 = first data row).
+    used = {"yield_kg_m2", "plants_per_bed", "glasshouse", *GREENHOUSE_ROLES["predictors"]}
+    with open(CSV, newline="") as fh:
+        expected = [i for i, row in enumerate(csv.DictReader(fh), start=1) if any(row[c] == "" for c in used)]
+    assert [x.row for x in session.design.excluded] == expected
+    section = html.split('id="question"')[1].split("</section>")[0]
+    for r in expected:
+        assert f"<td class=t>{r}</td>" in section or f"<td>{r}</td>" in section
+    assert f"{session.design.n} of the table's 576 rows are used" in section
+
+
+def test_report_carries_the_numbers_it_claims(html, session):
+    text = "".join(parsed(html).text)
+    for sa in session.results.ols.set_aside:
+        assert sa.sentence() in text
+    for s in session.agreement().sentences:
+        assert s in text
+    for res in session.stress_results():
+        for s in res.sentences:
+            assert s in text
+    for s in session.stability.sentences:
+        assert s in text
+    assert session.table_hash in text
+    import numpy, sklearn, statsmodels
+
+    for v in (numpy.__version__, sklearn.__version__, statsmodels.__version__):
+        assert v in text
+    assert "Associations are not causes" in text and "held-out groups" in text
+    assert html.count("<svg") >= 2 * len(session.results.penalized) + 2
+
+
+def test_print_css_breaks_pages(html):
+    assert "@media print" in html and "break-before: page" in html
+
+
+def test_unfitted_session_still_renders():
+    s = Session.from_table_file(CSV, Roles.from_dict(GREENHOUSE_ROLES))
+    p = parsed(report_html(s))
+    assert p.h2 == [h for _, h in SECTIONS]
+
+
+CHROMIUM = "/usr/bin/chromium"
+
+
+@pytest.mark.skipif(not os.path.exists(CHROMIUM),
+                    reason="/usr/bin/chromium is not installed here (CI installs it: apt-get install chromium)")
+def test_opens_in_headless_chromium(session, tmp_path):
+    path = tmp_path / "report.html"
+    render_report(session, path)
+    profile = tmp_path / "profile"
+    out = subprocess.run(
+        [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+         "--no-first-run", f"--user-data-dir={profile}", "--dump-dom", path.as_uri()],
+        capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr[-2000:]
+    dom = out.stdout
+    for _, heading in SECTIONS:
+        assert heading in dom.replace("&amp;", "&")
+    assert dom.count("<svg") >= 2
+    assert "<script>" not in dom
