@@ -87,6 +87,10 @@ class Structure:
     used : ndarray of bool (models, columns)
     sign_flips : tuple of SignFlip
     collinear_sets : tuple of CollinearSet
+        Connected groups over set-aside explanations and near-dependencies together.
+    alias_sets : tuple of CollinearSet
+        Groups over the set-aside explanations alone, when a near-dependency merged
+        them into a larger collinear set (so the exact story is told on its own too).
     sentences : tuple of str
     """
 
@@ -99,6 +103,7 @@ class Structure:
     sign_flips: tuple
     collinear_sets: tuple
     sentences: tuple
+    alias_sets: tuple = ()
 
     def to_dict(self) -> dict:
         return {
@@ -109,6 +114,7 @@ class Structure:
             "used": {k: [c for c, u in zip(self.columns, self.used[i]) if u] for i, k in enumerate(self.models)},
             "sign_flips": [s.to_dict() for s in self.sign_flips],
             "collinear_sets": [s.to_dict() for s in self.collinear_sets],
+            "alias_sets": [s.to_dict() for s in self.alias_sets],
             "sentences": list(self.sentences),
         }
 
@@ -141,17 +147,17 @@ def collinear_groups(columns, links) -> list:
 
 
 def _links(results) -> tuple:
-    """Column links from the OLS set-aside explanations and the near-dependencies."""
+    """Column links: (set-aside links, near-dependency links, set-aside column names)."""
     if results is None:
-        return (), ()
-    links, set_aside = [], []
+        return (), (), ()
+    alias, near, set_aside = [], [], []
     for sa in getattr(results.ols, "set_aside", ()):
         set_aside.append(sa.column)
-        links.append((sa.column, *sa.combination.keys(), *sa.alternatives))
+        alias.append((sa.column, *sa.combination.keys(), *sa.alternatives))
     diag = getattr(results, "diagnostics", None)
     for nd in getattr(diag, "near_dependencies", ()) if diag is not None else ():
-        links.append((nd.column, *nd.explained_by))
-    return tuple(links), tuple(set_aside)
+        near.append((nd.column, *nd.explained_by))
+    return tuple(alias), tuple(near), tuple(set_aside)
 
 
 def _join(items, word="and") -> str:
@@ -195,25 +201,34 @@ def compare_structure(design, results, models: dict) -> Structure:
         if pos and neg:
             flips.append(SignFlip(c, pos, neg))
 
-    links, ols_aside = _links(results)
-    sets = []
-    for group in collinear_groups(columns, links):
+    alias_links, near_links, ols_aside = _links(results)
+    inexact = {sa.column for sa in getattr(getattr(results, "ols", None), "set_aside", ()) if not getattr(sa, "exact", True)}
+
+    def make(group, lead):
         idx = [columns.index(c) for c in group]
         a = np.abs(coef_std[:, idx])
         weight = a.sum(axis=1)
         shares = np.divide(a, weight[:, None], out=np.zeros_like(a), where=weight[:, None] > 0)
         aside = tuple(c for c in group if c in ols_aside)
-        sets.append(CollinearSet(columns=group, models=names, shares=shares, weight=weight, set_aside=aside,
-                                 sentence=_set_sentence(group, names, shares, aside)))
+        return CollinearSet(columns=group, models=names, shares=shares, weight=weight, set_aside=aside,
+                            sentence=_set_sentence(group, names, shares, aside, lead))
+
+    sets = [make(g, "Across the overlapping columns") for g in collinear_groups(columns, alias_links + near_links)]
+    merged = {cs.columns for cs in sets}
+    # The sets OLS set columns aside in, on their own, when near-dependencies merged them into larger sets.
+    alias_sets = [make(g, "Within the near-exact dependency" if inexact & set(g) else "Within the exact dependency")
+                  for g in collinear_groups(columns, alias_links) if g not in merged]
 
     sentences = [_usage_sentence(names, columns, used, ols_aside)]
+    sentences.extend(s.sentence for s in alias_sets)
     sentences.extend(s.sentence for s in sets)
     if flips:
         sentences.append(_flip_sentence(flips))
     elif len(names) > 1:
         sentences.append("No column changes sign between the models.")
     return Structure(models=names, columns=columns, coef=coef, coef_std=coef_std, intercepts=intercepts,
-                     used=used, sign_flips=tuple(flips), collinear_sets=tuple(sets), sentences=tuple(sentences))
+                     used=used, sign_flips=tuple(flips), collinear_sets=tuple(sets), alias_sets=tuple(alias_sets),
+                     sentences=tuple(sentences))
 
 
 def _usage_sentence(names, columns, used, ols_aside) -> str:
@@ -237,7 +252,7 @@ def _most(group, s, n=3) -> str:
     return ", ".join(f"{_pct(s[j])} on {group[j]}" for j in order)
 
 
-def _set_sentence(group, names, shares, aside) -> str:
+def _set_sentence(group, names, shares, aside, lead) -> str:
     k = len(group)
     parts = []
     for i, name in enumerate(names):
@@ -258,7 +273,7 @@ def _set_sentence(group, names, shares, aside) -> str:
             parts.append(f"{label} keeps only {_join(on)} ({_most(group, s)})")
         else:
             parts.append(f"{label} keeps {_count(len(on))} of the {_count(k)} ({_most(group, s)})")
-    return f"Across the overlapping columns {_join(group)}: " + "; ".join(parts) + "."
+    return f"{lead} {_join(group)}: " + "; ".join(parts) + "."
 
 
 def _flip_sentence(flips) -> str:
