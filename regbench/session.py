@@ -339,8 +339,7 @@ class Session:
         self._edit("stress", replace(self._state, stress_configs=tuple(configs)), "stress", {"removed": index})
 
     def set_bootstrap(self, n: int) -> None:
-        if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or not 0 <= int(n) <= 100_000:
-            raise DataError(f"bootstrap count {n!r} must be a whole number from 0 to 100000")
+        _check_bootstrap(n)
         self._edit("bootstrap", replace(self._state, bootstrap=int(n)), "bootstrap", int(n))
 
     def set_notes(self, text: str) -> None:
@@ -397,6 +396,8 @@ class Session:
             Fit again even when the installed fits match the current state.
         """
         state, design, table_results = self._state, self.design, self.results
+        if bootstrap is not None:
+            _check_bootstrap(bootstrap)
         n_boot = state.bootstrap if bootstrap is None else int(bootstrap)
         fit_key = self.fit_key(state)
         key = _digest({"base": self.key(state), "boot": n_boot}) if bootstrap is not None else self.key(state)
@@ -448,6 +449,8 @@ class Session:
 
     def compute(self, progress=None, cancel=None, bootstrap=None, refit: bool = False) -> None:
         """compute_results + apply_results in one go (for scripts and the CLI)."""
+        if bootstrap is not None:
+            _check_bootstrap(bootstrap)
         if bootstrap is not None and int(bootstrap) != self.bootstrap:
             self._state = replace(self._state, bootstrap=int(bootstrap))
             bootstrap = None
@@ -547,6 +550,11 @@ def _derive(design, results, state: _State, cancel, have: Optional[dict] = None)
         sweeps = tuple(sw)
     return {"models": models, "heldout": heldout, "agreement": agreement, "structure": structure,
             "stress": stress, "sweeps": sweeps}
+
+
+def _check_bootstrap(n) -> None:
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or not 0 <= int(n) <= 100_000:
+        raise DataError(f"bootstrap count {n!r} must be a whole number from 0 to 100000 (0 skips the stability check)")
 
 
 def _positive(x, what: str) -> float:
