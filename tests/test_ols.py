@@ -360,3 +360,16 @@ def test_shifted_alias_with_large_offset_is_exact():
     assert k_sa.intercept == pytest.approx(273.15, rel=1e-12)
     assert code_sa.combination == pytest.approx({"year": 2.0}, rel=1e-12) and code_sa.exact
     assert set_aside_sentence(k_sa).startswith("temp_k was set aside: it equals 273.15 + temp_c exactly")
+
+
+def test_almost_constant_pin_is_refused_by_name():
+    rng = np.random.default_rng(13)
+    X = np.column_stack([rng.normal(size=30), 100.0 + 1e-3 * rng.normal(size=30)])
+    d = design_from_arrays(X, rng.normal(size=30), columns=("x", "level"))
+    # Spread/size of 'level' is about 1e-5: within a tolerance of 1e-3, the intercept carries it.
+    with pytest.raises(ModelError, match="pinned column 'level' is almost constant"):
+        fit_ols(d, pins=("level",), rank_tol=1e-3)
+    (sa,) = fit_ols(d, rank_tol=1e-3).set_aside
+    assert sa.column == "level" and not sa.exact
+    assert fit_ols(d).set_aside == ()  # default tolerance: it carries real information
+    assert sa.combination == {} and "almost constant" in set_aside_sentence(sa)

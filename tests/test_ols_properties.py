@@ -91,3 +91,51 @@ def test_pinning_a_set_aside_column_keeps_it_and_the_predictions(seed, r, d, wei
     ref = base.model.predict(design.X)
     scale = np.max(np.abs(ref)) + np.std(design.y)
     assert np.max(np.abs(pinned.model.predict(design.X) - ref)) <= 1e-8 * scale
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    seed=st.integers(0, 2**32 - 1),
+    p=st.integers(2, 7),
+    log_tol=st.floats(-6.0, -0.5),
+    n_pins=st.integers(0, 2),
+)
+def test_near_dependencies_under_a_larger_tolerance(seed, p, log_tol, n_pins):
+    from hypothesis import assume
+    from scipy import linalg
+
+    from regbench.errors import ModelError
+
+    rng = np.random.default_rng(seed)
+    n = 30
+    mix = rng.normal(size=(p, p)) * (rng.random((p, p)) < 0.5) + np.eye(p) * rng.uniform(0, 1, p)
+    X = rng.normal(size=(n, p)) @ mix + rng.normal(size=(n, p)) * 10.0 ** rng.uniform(-8, -1)
+    X += rng.uniform(-5, 5, p)
+    design = design_from_arrays(X, rng.normal(size=n))
+    tol = 10.0 ** log_tol
+    pins = tuple(design.columns[i] for i in rng.choice(p, size=n_pins, replace=False))
+    try:
+        res = fit_ols(design, pins=pins, rank_tol=tol)
+    except ModelError as err:
+        assert "pinned column" in str(err)
+        assume(False)
+    # The stated rule, computed here with scipy's pivoted QR on the n×p scaled columns
+    # (centered, divided by their RMS about zero): rank = number of |R_kk| > tol.
+    size = np.sqrt(np.mean(X**2, axis=0))
+    A = (X - X.mean(axis=0)) / (np.sqrt(n) * size)
+    R = linalg.qr(A, mode="r", pivoting=True)[0]
+    rank_rule = int(np.count_nonzero(np.abs(np.diag(R)) > tol))
+    assert set(pins) <= set(res.kept)
+    assert res.rank == len(res.kept) == design.p - len(res.set_aside)
+    if not pins:
+        assert res.rank == rank_rule
+    for sa in res.set_aside:
+        j = design.index(sa.column)
+        # Set aside only what the kept columns reproduce within the tolerance (times its size).
+        assert sa.residual <= 1.001 * tol * size[j] + 1e-12 * size[j]
+        assert set(sa.combination) <= set(res.kept)
+    # The fitted values are those of least squares on the kept columns (numpy lstsq).
+    kept = [design.index(c) for c in res.kept]
+    B = np.column_stack([np.ones(n), X[:, kept]])
+    sol, *_ = np.linalg.lstsq(B, design.y, rcond=None)
+    np.testing.assert_allclose(res.model.predict(X), B @ sol, rtol=1e-6, atol=1e-8)

@@ -207,7 +207,7 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
         arr[aside] = np.nan
 
     set_aside = tuple(
-        _explain(j, kept, C, columns, X, w, W, mean, sd, scale, size, roundoff) for j in aside
+        _explain(j, kept, C, columns, X, w, W, mean, sd, scale, size, roundoff, tol) for j in aside
     )
     model = LinearModel(
         name="ols", columns=columns, intercept=float(icpt), coef=coef.copy(),
@@ -330,6 +330,12 @@ def _check_pins(C, pin_idx, columns, tol, sd) -> None:
                 f"pinned column '{columns[j]}' is constant on every row with weight, so the intercept "
                 "already carries it; unpin it"
             )
+        if float(np.linalg.norm(C[:, j])) <= tol:
+            raise ModelError(
+                f"pinned column '{columns[j]}' is almost constant: its spread is within the rank "
+                f"tolerance ({tol:g}) of its size, so the intercept already carries it; unpin it "
+                "or use a smaller rank tolerance"
+            )
         r = _residual_length(C[:, j], basis)
         nr = float(np.linalg.norm(r))
         if nr <= tol:
@@ -346,10 +352,14 @@ def _check_pins(C, pin_idx, columns, tol, sd) -> None:
         kept.append(j)
 
 
-def _explain(j, kept, C, columns, X, w, W, mean, sd, scale, size, roundoff) -> SetAside:
-    """The combination of kept columns (and intercept) that reproduces column ``j``."""
+def _explain(j, kept, C, columns, X, w, W, mean, sd, scale, size, roundoff, tol) -> SetAside:
+    """The combination of kept columns (and intercept) that reproduces column ``j``.
+
+    A column whose spread is itself within the tolerance of its size is explained by the
+    intercept alone (almost constant), not by whatever kept columns happen to correlate.
+    """
     name = columns[j]
-    if sd[j] == 0 or not kept:
+    if sd[j] <= tol * size[j] or not kept:
         value = float(mean[j])
         left = X[:, j] - value
         res = float(np.sqrt((w @ (left * left)) / W))
@@ -371,7 +381,7 @@ def _explain(j, kept, C, columns, X, w, W, mean, sd, scale, size, roundoff) -> S
     support = [kept[i] for i in np.flatnonzero(big)]
     if len(support) < len(kept):
         cs2, coef2, icpt2, res2 = solve(support)
-        if res2 <= max(2.0 * res, res + roundoff * size[j]):
+        if res2 - res <= max(1e-3 * res, roundoff * size[j]):
             coef, icpt, res = coef2, icpt2, res2
         else:
             support = list(kept)
