@@ -413,3 +413,19 @@ def test_kill_during_save_keeps_the_old_file(session, tmp_path):
     assert path.read_bytes() == before  # the old file is untouched
     s = load_project(path, compute=False)
     assert s.notes == session.notes and s.cache_status == "used"
+
+
+def test_committed_sample_project_matches_its_table():
+    from regbench.data.reader import read_table
+    from regbench.demo import GREENHOUSE_ROLES
+    from regbench.session import table_fingerprint
+
+    sample = ROOT / "sample_projects" / "greenhouse.regbench"
+    s = load_project(sample, compute=False)
+    assert s.cache_status == "used" and s.stability is not None and s.stability.n_boot == 200
+    assert s.roles == Roles.from_dict(GREENHOUSE_ROLES)
+    assert [(c.column, c.kind) for c in s.stress_configs] == [
+        ("day_temp_c", "rescale"), ("light_sum_mol_m2", "noise"), ("co2_ppm", "shuffle")]
+    # The project's table is the CSV beside it, value for value.
+    assert table_fingerprint(read_table(ROOT / "sample_projects" / "greenhouse.csv")) == s.table_hash
+    assert [x.column for x in s.results.ols.set_aside] == ["mean_temp_c", "day_temp_f"]

@@ -35,6 +35,12 @@ class atomic_writer:
             fd, self.tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=".tmp", dir=folder)
         except OSError as exc:
             raise ProjectError(f"cannot save {self.path}: {exc.strerror}; check the folder's permissions") from None
+        try:
+            # mkstemp creates the file private (0600); give it the mode the target has, or the
+            # mode a newly created file would get under the user's umask.
+            os.chmod(self.tmp, _target_mode(self.path))
+        except OSError:
+            pass
         self.fh = os.fdopen(fd, "wb")
         return self.fh
 
@@ -54,6 +60,15 @@ class atomic_writer:
             if self.tmp is not None and os.path.exists(self.tmp):
                 os.unlink(self.tmp)
         return False
+
+
+def _target_mode(path: str) -> int:
+    try:
+        return os.stat(path).st_mode & 0o777
+    except OSError:
+        mask = os.umask(0)
+        os.umask(mask)
+        return 0o666 & ~mask
 
 
 def _fsync_dir(folder: str) -> None:
