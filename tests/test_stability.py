@@ -175,3 +175,15 @@ def test_greenhouse_sample():
     # The table's derived columns are exact aliases (sample_projects/README): order decides.
     assert set(st.order_driven) == {"mean_temp_c", "day_temp_f"}
     assert st.grouped and st.models == tuple(res.models())
+
+
+def test_refits_with_a_flat_target_are_counted_and_said():
+    # Two groups, each with its own constant target: a draw of one group twice has nothing
+    # to fit.  With 2 groups that happens with probability 1/2 per refit (exact).
+    rng = np.random.default_rng(10)
+    g = np.repeat([0, 1], 10)
+    d = design_from_arrays(rng.normal(size=(20, 2)), np.where(g == 0, 1.0, 2.0),
+                           groups=g)
+    st = bootstrap_stability(d, SETTINGS, {}, n_boot=200, seed=0)
+    assert _binomial_ok(st.n_flat / 200, 0.5, 200)
+    assert any("the same everywhere" in s for s in st.sentences)

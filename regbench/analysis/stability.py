@@ -24,7 +24,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from regbench.analysis.agreement import in_sentence, json_number
-from regbench.errors import DataError
+from regbench.errors import DataError, ModelError
 from regbench.models.results import model_label
 from regbench.progress import check, report
 
@@ -59,6 +59,8 @@ class Stability:
         Columns set aside in every refit because they are exact aliases that come
         later in the column order.
     sentences : tuple of str
+    n_flat : int
+        Refits whose drawn rows all have the same target value (nothing to fit).
     """
 
     columns: tuple
@@ -76,6 +78,7 @@ class Stability:
     coef_draws: dict
     order_driven: tuple
     sentences: tuple
+    n_flat: int = 0
 
     def to_dict(self) -> dict:
         per = lambda d: {k: dict(zip(self.columns, (json_number(x) for x in v))) for k, v in d.items()}  # noqa: E731
@@ -87,6 +90,7 @@ class Stability:
             "selected_freq": per(self.selected_freq), "coef_mean": per(self.coef_mean),
             "coef_sd": per(self.coef_sd), "coef_q05": per(self.coef_q05), "coef_q95": per(self.coef_q95),
             "order_driven": list(self.order_driven), "sentences": list(self.sentences),
+            "n_flat": int(self.n_flat),
         }
 
 
@@ -135,10 +139,18 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
     draws = None
     names = None
     p = design.p
+    flat = 0
     for b in range(n_boot):
         check(cancel)
         counts = resample_counts(design, rng)
-        models = fit_models_at(replace(design, weights=design.weights * counts), settings, alphas)
+        drawn = design.y[(counts > 0) & (design.weights > 0)]
+        flat += int(drawn.size == 0 or np.ptp(drawn) == 0)
+        try:
+            models = fit_models_at(replace(design, weights=design.weights * counts), settings, alphas)
+        except ModelError as exc:
+            what = "groups" if design.groups is not None else "rows"
+            raise ModelError(f"bootstrap refit {b + 1} of {n_boot} (seed {seed}) could not be fitted on the {what} "
+                             f"it drew: {exc}; try another seed or more {what}") from exc
         if draws is None:
             names = tuple(models)
             draws = {k: np.empty((n_boot, p)) for k in names}
@@ -155,11 +167,14 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
     mean = {k: draws[k].mean(axis=0) for k in names}
     sd = {k: draws[k].std(axis=0, ddof=1) for k in names}
     sentences = _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, full, order_driven)
+    if flat:
+        sentences.append(f"{flat} of the {n_boot} refits drew rows whose {design.target} is the same everywhere; "
+                         "every coefficient is 0 there, which lowers the frequencies above. Use more rows or groups.")
     return Stability(columns=tuple(design.columns), models=names, n_boot=n_boot, seed=int(seed),
                      grouped=design.groups is not None, alphas={k: float(v) for k, v in alphas.items()},
                      set_aside_freq=set_aside, selected_freq=selected, coef_mean=mean, coef_sd=sd,
                      coef_q05=q05, coef_q95=q95, coef_draws=draws, order_driven=order_driven,
-                     sentences=tuple(sentences))
+                     sentences=tuple(sentences), n_flat=flat)
 
 
 def _join(items, word="and") -> str:

@@ -532,6 +532,7 @@ def rank_columns(design, models: dict, kind: str = "shuffle", strength: Optional
     column and ``cancel`` is checked between columns.
     """
     columns = tuple(dict.fromkeys(design.sources))
+    resolved = StressConfig(columns[0], kind, strength).resolved_strength()
     names = tuple(models)
     clean = {k: m.predict(design.X) for k, m in models.items()}
     w = design.weights
@@ -570,8 +571,7 @@ def rank_columns(design, models: dict, kind: str = "shuffle", strength: Optional
         if zero:
             txt += f"; it does not move at all for {len(zero)} column{'s' if len(zero) != 1 else ''} it does not use"
         sentences.append(txt + ".")
-    return ColumnRanking(columns=columns, models=names, kind=kind,
-                         strength=StressConfig(columns[0], kind, strength).resolved_strength(), seed=seed,
+    return ColumnRanking(columns=columns, models=names, kind=kind, strength=resolved, seed=seed,
                          shift_rmse=shift, error_damaged=err, error_clean=err_clean, order=order,
                          sentences=tuple(sentences))
 
