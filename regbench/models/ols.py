@@ -70,8 +70,10 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
         Columns to keep whenever possible; when a dependency forces a choice,
         a column that is not pinned is set aside.
     rank_tol : float, optional
-        Relative rank tolerance (see the module docstring).  Default
-        ``100 * max(n, p) * eps``.
+        Relative rank tolerance (see the module docstring): a column is set
+        aside when the columns kept before it reproduce it up to ``rank_tol``
+        times its weighted RMS.  Default ``100 * max(n, p) * eps`` with n the
+        rows of weight above 0: round-off only.
 
     Returns
     -------
@@ -80,7 +82,8 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
         weights ``w``: residual variance ``sum(w e²) / (n - rank - 1)``) over all
         design columns; set-aside columns hold coef 0.0 and NaN inference, and
         each has a :class:`SetAside` explaining the combination of kept
-        columns that reproduces it.
+        columns that reproduces it.  ``n_obs`` counts rows of weight above 0;
+        ``rank`` counts kept columns (the intercept not included).
 
     Raises
     ------
@@ -94,7 +97,7 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
     X_all = np.asarray(design.X, dtype=np.float64)
     y_all = np.asarray(design.y, dtype=np.float64)
     w_all = np.asarray(design.weights, dtype=np.float64)
-    n_all, p = X_all.shape
+    p = X_all.shape[1]
     _check_inputs(design, X_all, y_all, w_all)
     pins = tuple(dict.fromkeys(pins))
     for c in pins:
