@@ -185,3 +185,18 @@ def test_no_kept_column():
     np.testing.assert_allclose(diag.condition_indices, [1.0])
     np.testing.assert_allclose(diag.variance_proportions, [[1.0]])
     assert "weighted mean" in " ".join(diag.sentences)
+
+
+def test_zero_weight_rows_do_not_change_the_diagnostics(hald):
+    rng = np.random.default_rng(5)
+    X = np.vstack([hald.X, rng.normal(50, 30, size=(4, 4))])  # extra rows that do not count
+    w = np.r_[rng.uniform(0.5, 2.0, hald.n), np.zeros(4)]
+    y = np.r_[hald.y, np.zeros(4)]
+    with_zero = design_from_arrays(X, y, columns=hald.columns, weights=w)
+    dropped = design_from_arrays(hald.X, hald.y, columns=hald.columns, weights=w[: hald.n])
+    a = diagnose(with_zero, fit_ols(with_zero))
+    b = diagnose(dropped, fit_ols(dropped))
+    # Fact: a weight-0 row adds nothing to any weighted sum.
+    np.testing.assert_allclose(a.vif, b.vif, rtol=1e-10)
+    np.testing.assert_allclose(a.condition_indices, b.condition_indices, rtol=1e-10)
+    np.testing.assert_allclose(a.variance_proportions, b.variance_proportions, atol=1e-10)
