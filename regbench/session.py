@@ -153,6 +153,11 @@ class Session:
         self._fingerprint: Optional[str] = None
         self.path: Optional[str] = None
         self.dirty = False
+        #: Times from the project file (UTC ISO), None until loaded or saved.
+        self.created: Optional[str] = None
+        self.saved: Optional[str] = None
+        #: How a loaded project's cached results were treated: 'none', 'used' or 'stale'.
+        self.cache_status = "none"
 
     # -- constructors --------------------------------------------------------------------
 
@@ -400,28 +405,27 @@ class Session:
             _check_bootstrap(bootstrap)
         n_boot = state.bootstrap if bootstrap is None else int(bootstrap)
         fit_key = self.fit_key(state)
-        key = _digest({"base": self.key(state), "boot": n_boot}) if bootstrap is not None else self.key(state)
-        total = 4 + (1 if n_boot else 0)
+        key = self.key(state) if n_boot == state.bootstrap else _digest({"base": self.key(state), "boot": n_boot})
+        total = 3 if n_boot else 2  # fit, compare (agreement, structure, stress), stability
         if table_results is None or refit:
             from regbench.models.engine import fit_all
 
-            report(progress, 0, total, "fitting the models")
-            results = fit_all(design, state.settings, progress=None, cancel=cancel)
+            report(progress, 0, total * 100, "fitting the models")
+            results = fit_all(design, state.settings, progress=_within(progress, 0, total), cancel=cancel)
         else:
             results = table_results
         check(cancel)
-        report(progress, 1, total, "comparing the models")
+        report(progress, 100, total * 100, "comparing the models and running the stress tests")
         derived = _derive(design, results, state, cancel)
         check(cancel)
-        report(progress, 3, total, "stress tests")
         stability, alphas = None, _alphas_of(results, state)
         if n_boot:
             from regbench.analysis.stability import bootstrap_stability
 
-            report(progress, 4, total, f"stability ({n_boot} refits)")
+            report(progress, 200, total * 100, f"stability ({n_boot} refits)")
             stability = bootstrap_stability(design, state.settings, alphas, n_boot=n_boot, seed=state.settings.seed,
-                                            progress=None, cancel=cancel)
-        report(progress, total, total, "done")
+                                            progress=_within(progress, 2, total), cancel=cancel)
+        report(progress, total * 100, total * 100, "done")
         return ComputedResults(fit_key=fit_key, key=key, results=results, stability=stability,
                                stability_alphas=alphas if stability is not None else {}, **derived)
 
@@ -499,6 +503,18 @@ class Session:
         self._cache = dict(derived or {})
         self._undo.clear()
         self.dirty = False
+
+
+def _within(progress, step: int, total: int):
+    """Progress of one step's sub-work, reported on the whole computation's scale (×100)."""
+    if progress is None:
+        return None
+
+    def sub(done, n, message):
+        frac = min(max(done / n, 0.0), 1.0) if n else 0.0
+        progress(step * 100 + int(100 * frac), total * 100, message)
+
+    return sub
 
 
 def _alphas_of(results, state: _State) -> dict:

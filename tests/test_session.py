@@ -185,3 +185,24 @@ def test_dirty_follows_edits():
     assert not s.dirty
     s.set_notes("changed")
     assert s.dirty
+
+
+def test_progress_rises_and_cancel_stops_without_change():
+    from regbench.errors import Cancelled
+
+    s = Session.from_table_file(CSV, ROLES, SETTINGS)
+    s.set_bootstrap(3)
+    seen = []
+    computed = s.compute_results(progress=lambda d, t, m: seen.append((d, t, m)))
+    done = [d for d, _, _ in seen]
+    assert done == sorted(done) and seen[-1][0] == seen[-1][1] and len({t for _, t, _ in seen}) == 1
+    assert computed.stability is not None and s.results is None
+    calls = {"n": 0}
+
+    def cancel():
+        calls["n"] += 1
+        return calls["n"] > 2
+
+    with pytest.raises(Cancelled):
+        s.compute(cancel=cancel)
+    assert s.results is None and s.stability is None
