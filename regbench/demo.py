@@ -53,7 +53,7 @@ def greenhouse(seed: int = GREENHOUSE_SEED, houses: int = 8, beds: int = 12, wee
     mean_temp = (day_temp + night_temp) / 2.0
     day_temp_f = day_temp * 9.0 / 5.0 + 32.0
     light_hours = np.clip(13.0 + 1.5 * season + rng.normal(0, 0.6, n), 9.0, 18.0)
-    ppfd = rng.normal(520.0, 18.0, n)  # µmol/m²/s, lamps plus sun, fairly steady
+    ppfd = rng.normal(520.0, 9.0, n)  # µmol/m²/s, lamps plus sun, fairly steady
     light_sum = light_hours * ppfd * 3600e-6  # mol/m²/day
     humidity = np.clip(rng.normal(74.0, 6.0, n), 50.0, 95.0)
     vpd = saturation_vapour_pressure_kpa(day_temp) * (1.0 - humidity / 100.0)
