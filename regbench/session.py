@@ -10,7 +10,6 @@ GUI thread installs the outcome (:meth:`Session.apply_results`).
 from __future__ import annotations
 
 import copy
-import dataclasses
 import hashlib
 import json
 import math
@@ -22,14 +21,12 @@ import numpy as np
 
 from regbench.data.design import Roles, build_design
 from regbench.data.table import Table
-from regbench.errors import DataError, RegbenchError
+from regbench.errors import DataError
 from regbench.models.results import FitSettings, ALPHA_RULES
 from regbench.progress import check, report
 
 #: How many edits :meth:`Session.undo` can take back.
 UNDO_DEPTH = 50
-#: Damage kinds the stress test knows (the CLI's list).
-STRESS_KINDS = ("shuffle", "noise", "constant", "rescale", "wild", "missing")
 DEFAULT_BOOTSTRAP = 200
 
 

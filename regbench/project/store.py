@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 
 from regbench import __version__
-from regbench.errors import ProjectError, RegbenchError
+from regbench.errors import ProjectError
 from regbench.project.atomic import atomic_writer
 from regbench.project.migrate import FORMAT_VERSION, migrate
 
@@ -390,7 +390,9 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
 def _session_state(ar: _Archive, doc, table):
     from regbench.data.design import Roles, build_design
     from regbench.models.results import FitSettings
-    from regbench.session import DataError, STRESS_KINDS, _State, check_settings, check_stress, penalized_names
+    from regbench.analysis.stress import KINDS as STRESS_KINDS
+    from regbench.errors import DataError
+    from regbench.session import _State, check_settings, check_stress, penalized_names
 
     label = f"{ar.label}: session.json"
 
