@@ -17,7 +17,9 @@ Kinds of damage and what ``strength`` means (defaults in brackets):
 
 A categorical predictor named by its table column (e.g. ``variety``) damages
 all its one-hot design columns together: a shuffle moves whole rows of the
-block, so each damaged row still has exactly one level.
+block, so each damaged row still has exactly one level; the other kinds act
+on each coded column of the block (noise, a rescale or a wild value on 0/1
+columns is a deliberately impossible input, the kind a broken feed produces).
 
 All statistics are weighted by ``design.weights``.  A prediction has *moved*
 when it shifts by more than the tolerance, by default 0.1 × the weighted SD of
