@@ -172,7 +172,7 @@ class _Archive:
             raise ProjectError(f"{self.label}: is a folder, not a project file")
         try:
             self.zf = zipfile.ZipFile(self.path)
-        except (zipfile.BadZipFile, zipfile.LargeZipFile, EOFError, ValueError, OSError) as exc:
+        except Exception as exc:  # zipfile raises BadZipFile, NotImplementedError, OSError, ... on damaged files
             raise ProjectError(f"{self.label}: not a regbench project (not a readable zip archive: {exc}); "
                                "open a .regbench file, or load a table with 'new from table'") from None
         self.infos = {}
