@@ -298,3 +298,29 @@ def test_refit_on_rescaled_column_matches_ols_equivariance():
     # No damage at all (share 0): the refit is the clean fit, bit for bit.
     same = stress_refit(d, settings, {}, StressConfig("u", "shuffle", strength=0.0))
     assert all(np.array_equal(v, np.zeros(n)) for v in same.row_shift.values())
+
+
+def _round_trip(obj):
+    import io
+    import json
+
+    from regbench.project.codec import Decoder, Encoder
+
+    enc = Encoder()
+    tree = json.loads(json.dumps(enc.encode(obj), allow_nan=False))
+    arrays = {name: np.load(io.BytesIO(b), allow_pickle=False) for name, b in enc.arrays}
+    return Decoder(arrays).decode(tree)
+
+
+def test_results_survive_the_project_codec(small):
+    pytest.importorskip("regbench.project.codec")
+    d, models = small
+    res = run_stress(d, models, StressConfig("b", "missing", strength=0.5, fill=float("nan")))
+    back = _round_trip(res)
+    assert back.config.to_dict() == res.config.to_dict() and back.sentences == res.sentences
+    assert np.array_equal(back.row_shift["lasso"], res.row_shift["lasso"])
+    assert np.isnan(back.shifts["ols"].shift_rmse) and back.shifts["lasso"].shift_rmse == 0.0
+    rk = _round_trip(rank_columns(d, models))
+    np.testing.assert_array_equal(rk.shift_rmse, rank_columns(d, models).shift_rmse)
+    sw = _round_trip(stress_sweep(d, models, "a", "shuffle"))
+    assert sw.strengths.tolist() == list(np.linspace(0, 1, 11))
