@@ -14,6 +14,7 @@ Qt = QtCore.Qt
 NONE = "(none)"
 #: A text column with more levels than this is not ticked by default (likely an identifier).
 DEFAULT_MAX_LEVELS = 20
+KIND_SHORT = {NUMERIC: "number", CATEGORICAL: "text", BOOLEAN: "yes/no", EMPTY: "empty"}
 
 
 def default_roles(table) -> Roles:
@@ -55,10 +56,12 @@ class RolesPanel(QtWidgets.QWidget):
         form.addRow("Row weights", self.weights)
         form.addRow("Keep together", self.groups)
         lay.addLayout(form)
-        lay.addWidget(caption("Inputs (tick to use; tick 'codes' to treat numbers as categories)"))
+        hint = caption("Inputs: tick to use; tick 'Codes' to treat whole numbers as categories")
+        hint.setWordWrap(True)
+        lay.addWidget(hint)
         self.tree = QtWidgets.QTreeWidget()
         self.tree.setColumnCount(4)
-        self.tree.setHeaderLabels(["Column", "Kind", "Missing", "Codes"])
+        self.tree.setHeaderLabels(["Column", "Kind", "Empty", "Codes"])
         self.tree.setRootIsDecorated(False)
         self.tree.setUniformRowHeights(True)
         self.tree.header().setStretchLastSection(False)
@@ -124,7 +127,9 @@ class RolesPanel(QtWidgets.QWidget):
         self.tree.clear()
         for name in names:
             info = table.columns[name]
-            item = QtWidgets.QTreeWidgetItem([name, info.kind, str(info.missing) if info.missing else "", ""])
+            item = QtWidgets.QTreeWidgetItem([name, KIND_SHORT.get(info.kind, info.kind),
+                                              str(info.missing) if info.missing else "", ""])
+            item.setToolTip(self.C_NAME, name)
             item.setFlags(item.flags() | Qt.ItemIsUserCheckable)
             item.setCheckState(self.C_NAME, Qt.Checked if name in preds else Qt.Unchecked)
             if info.kind == NUMERIC:

@@ -88,7 +88,7 @@ class MainWindow(QtWidgets.QMainWindow):
     def _build_central(self):
         self.nav = QtWidgets.QListWidget()
         self.nav.setObjectName("nav")
-        self.nav.setFixedWidth(210)
+        self.nav.setFixedWidth(195)
         self.stack = QtWidgets.QStackedWidget()
         self.panels = []
         for cls in _panel_classes():
@@ -100,7 +100,7 @@ class MainWindow(QtWidgets.QMainWindow):
 
         self.help_view = HelpView()
         self.stack.addWidget(self.help_view)
-        self.nav.addItem("Help: words and cautions")
+        self.nav.addItem("Help")
         self.nav.currentRowChanged.connect(self._show_row)
         central = QtWidgets.QWidget()
         lay = QtWidgets.QHBoxLayout(central)
@@ -118,7 +118,7 @@ class MainWindow(QtWidgets.QMainWindow):
         self.roles_dock.setObjectName("roles")
         self.roles_dock.setWidget(self.roles_panel)
         self.roles_dock.setFeatures(QtWidgets.QDockWidget.DockWidgetMovable | QtWidgets.QDockWidget.DockWidgetClosable)
-        self.roles_dock.setMinimumWidth(330)
+        self.roles_dock.setMinimumWidth(340)
         self.addDockWidget(Qt.RightDockWidgetArea, self.roles_dock)
 
     def _build_status(self):

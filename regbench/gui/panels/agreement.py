@@ -39,7 +39,7 @@ class AgreementPanel(Panel):
         ll.addWidget(caption("Each model's own error (weighted RMSE against the target)"))
         self.own_model = GridModel()
         self.own_view = make_view(self.own_model)
-        self.own_view.setMaximumHeight(170)
+        self.own_view.setMaximumHeight(150)
         ll.addWidget(self.own_view)
         ll.addWidget(caption("Between each pair of models (a − b)"))
         self.pair_model = GridModel()
@@ -104,7 +104,7 @@ class AgreementPanel(Panel):
                                         "Mean difference", "Limits of agreement: low", "high"])
         self.pair_view.resizeColumnsToContents()
         self._scatter(session, split)
-        self.set_sentences(list(ag.sentences[:3]))
+        self.set_sentences(list(ag.sentences[:2]))
 
     def predictions(self, session, split):
         """(a, b, pred_a, pred_b) for the chosen pair on the chosen rows."""

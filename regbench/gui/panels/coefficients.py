@@ -100,22 +100,23 @@ class CoefficientsPanel(Panel):
         sentences = list(getattr(st, "sentences", ()) or ())
         if not sentences:
             sentences = [f"{len(names)} models over {len(cols)} columns; OLS set aside {len(aside)}."]
-        self.set_sentences(sentences[:3])
+        self.set_sentences(sentences[:2])
 
     def _draw(self, models, cols):
         self.plot.clear()
-        legend = self.plot.getPlotItem().legend or self.plot.addLegend(offset=(-10, 10), labelTextSize="8pt")
+        legend = self.plot.getPlotItem().legend or self.plot.addLegend(offset=(10, 4), labelTextSize="8pt")
         legend.clear()
+        legend.setColumnCount(2)
         p = len(cols)
         k = len(models)
         height = 0.8 / max(k, 1)
         for j, (n, m) in enumerate(models.items()):
             y = np.arange(p)[::-1] + (j - (k - 1) / 2) * height
             bar = pg.BarGraphItem(x0=np.zeros(p), y=y, height=height * 0.9, width=np.asarray(m.coef_std, float),
-                                  brush=model_colour(n), pen=None, name=model_label(n))
+                                  brush=model_colour(n), pen=None)
             self.plot.addItem(bar)
             legend.addItem(bar, model_label(n))
         ticks = [(p - 1 - i, c) for i, c in enumerate(cols)]
         self.plot.getAxis("left").setTicks([ticks])
         self.plot.addItem(pg.InfiniteLine(pos=0, angle=90, pen=pg.mkPen(PALETTE["muted"])))
-        self.plot.setYRange(-0.6, p - 0.4, padding=0)
+        self.plot.setYRange(-0.6, p + 1.6, padding=0)  # headroom for the legend

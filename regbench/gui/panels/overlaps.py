@@ -126,8 +126,7 @@ class OverlapsPanel(Panel):
                         bg[(r, j + 1)] = WARN_BG
         self.ci_model.set_rows(rows, ["Condition index"] + list(diag.terms), backgrounds=bg, digits=3)
         self.ci_view.resizeColumnsToContents()
-        sentences = [sa.sentence() for sa in ols.set_aside[:2]]
-        sentences += list(diag.sentences[:2])
+        sentences = list(diag.sentences[:2]) or [sa.sentence() for sa in ols.set_aside[:2]]
         self.set_sentences(sentences or ["No column overlaps strongly with the others."])
 
     def _draw_corr(self, design):

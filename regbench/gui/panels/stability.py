@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import dataclasses
-
 import numpy as np
 import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
@@ -14,27 +12,6 @@ from regbench.gui.tables import GridModel, make_view
 from regbench.models.results import model_label
 
 Qt = QtCore.Qt
-
-
-def per_column_fields(st, p: int):
-    """(header, values) for every per-column quantity of a stability result, in field order.
-
-    Arrays of one value per column become one table column; dicts of such arrays
-    (one per model) become one table column per model.
-    """
-    out = []
-    for f in dataclasses.fields(st):
-        v = getattr(st, f.name)
-        if isinstance(v, np.ndarray) and v.ndim == 1 and v.shape[0] == p and v.dtype.kind in "fiub":
-            out.append((f.name, None, v))
-        elif isinstance(v, dict) and v and all(isinstance(a, np.ndarray) and a.shape == (p,) for a in v.values()):
-            for k, a in v.items():
-                out.append((f.name, k, a))
-        elif isinstance(v, np.ndarray) and v.ndim == 2 and v.shape[1] == p and f.name != "columns":
-            models = getattr(st, "models", ())
-            for i in range(v.shape[0]):
-                out.append((f.name, models[i] if i < len(models) else str(i), v[i]))
-    return out
 
 
 def _words(name: str) -> str:
@@ -85,30 +62,46 @@ class StabilityPanel(Panel):
         self.note.setText("" if session.stability_current else
                           "These refits used an earlier α; the chosen α has changed since.")
         cols = list(st.columns)
-        fields = per_column_fields(st, len(cols))
-        headers = [(_words(f) if k is None else f"{_words(f)}: {model_label(k)}") for f, k, _ in fields]
-        rows = [[float(a[i]) for _, _, a in fields] for i in range(len(cols))]
+        fields = self.table_fields(st)
+        headers = [h for h, _ in fields]
+        rows = [[vals[i] for _, vals in fields] for i in range(len(cols))]
         self.model.set_rows(rows, headers, row_labels=cols, digits=3)
         self.view.resizeColumnsToContents()
-        self._draw(st, cols, fields)
-        self.set_sentences(list(getattr(st, "sentences", ())[:3]))
+        self._draw(st, cols)
+        self.set_sentences(list(st.sentences[:2]))
 
-    def _draw(self, st, cols, fields):
+    @staticmethod
+    def selecting(st) -> list:
+        """Models whose selection can vary (ridge and OLS keep every column they can)."""
+        return [m for m in st.models if m in st.selected_freq and m not in ("ols", "ridge")]
+
+    def table_fields(self, st):
+        p = len(st.columns)
+        out = [("Set aside by OLS", [float(v) for v in st.set_aside_freq])]
+        for m in self.selecting(st):
+            out.append((f"Selected: {model_label(m)}", [float(v) for v in st.selected_freq[m]]))
+        for m in st.models:
+            if m in st.coef_q05:
+                lo, hi = st.coef_q05[m], st.coef_q95[m]
+                out.append((f"{model_label(m)} 5–95%", [f"{lo[i]:.3g} … {hi[i]:.3g}" for i in range(p)]))
+        return out
+
+    def _draw(self, st, cols):
         self.plot.clear()
-        legend = self.plot.getPlotItem().legend or self.plot.addLegend(offset=(-10, 10), labelTextSize="8pt")
+        legend = self.plot.getPlotItem().legend or self.plot.addLegend(offset=(-6, 6), labelTextSize="8pt")
         legend.clear()
-        shares = [(f, k, a) for f, k, a in fields if k is not None and np.all((a >= 0) & (a <= 1))]
+        series = [("Set aside by OLS", PALETTE["warn"], np.asarray(st.set_aside_freq, float))]
+        series += [(f"Selected: {model_label(m)}", model_colour(m), np.asarray(st.selected_freq[m], float))
+                   for m in self.selecting(st)]
         p = len(cols)
-        if not shares:
-            return
-        k_n = len(shares)
+        k_n = len(series)
         height = 0.8 / k_n
-        for j, (f, k, a) in enumerate(shares):
+        for j, (label, colour, a) in enumerate(series):
             y = np.arange(p)[::-1] + (j - (k_n - 1) / 2) * height
-            colour = model_colour(k) if not f.startswith("set") else PALETTE["warn"]
             bar = pg.BarGraphItem(x0=np.zeros(p), y=y, height=height * 0.9, width=a, brush=colour, pen=None)
             self.plot.addItem(bar)
-            legend.addItem(bar, f"{_words(f)}: {model_label(k)}")
+            legend.addItem(bar, label)
         self.plot.getAxis("left").setTicks([[(p - 1 - i, c) for i, c in enumerate(cols)]])
-        self.plot.setXRange(0, 1.0, padding=0.02)
+        self.plot.setXRange(0, 1.55, padding=0.0)  # room on the right for the legend
+        self.plot.getAxis("bottom").setTicks([[(v, f"{v:g}") for v in (0, 0.25, 0.5, 0.75, 1.0)]])
         self.plot.setYRange(-0.6, p - 0.4, padding=0)

@@ -34,12 +34,12 @@ class StressPanel(Panel):
         lay = QtWidgets.QVBoxLayout(body)
         lay.setContentsMargins(0, 0, 0, 0)
         self.column = QtWidgets.QComboBox()
-        self.column.setMinimumWidth(170)
+        self.column.setMinimumWidth(140)
         self.kind = QtWidgets.QComboBox()
         for k in KINDS:
             self.kind.addItem(KIND_WORDS.get(k, k), k)
         self.kind.currentIndexChanged.connect(self._kind_changed)
-        self.use_default = QtWidgets.QCheckBox("default strength")
+        self.use_default = QtWidgets.QCheckBox("default")
         self.use_default.setChecked(True)
         self.strength = QtWidgets.QDoubleSpinBox()
         self.strength.setRange(0.0, 1000.0)
@@ -55,10 +55,12 @@ class StressPanel(Panel):
         self.rank_btn = QtWidgets.QPushButton("Rank every column")
         self.rank_btn.clicked.connect(self.rank)
         lay.addWidget(hbox(caption("Damage"), self.column, self.kind, self.use_default, self.strength,
-                           caption("seed"), self.seed, self.run_btn, self.rank_btn, stretch_last=True))
+                           caption("seed"), self.seed, stretch_last=True))
         self.history = QtWidgets.QComboBox()
+        self.history.setMinimumWidth(220)
         self.history.currentIndexChanged.connect(self._show_history)
-        lay.addWidget(hbox(caption("Tests kept in this session"), self.history, stretch_last=True))
+        lay.addWidget(hbox(self.run_btn, self.rank_btn, caption("Tests kept in this session"), self.history,
+                           stretch_last=True))
         split = QtWidgets.QSplitter(Qt.Horizontal)
         left = QtWidgets.QWidget()
         ll = QtWidgets.QVBoxLayout(left)
@@ -82,6 +84,7 @@ class StressPanel(Panel):
         self.result = None
         self.sweep = None
         self.ranking = None
+        self._kind_changed()
 
     def plots(self):
         return [self.plot]

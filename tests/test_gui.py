@@ -1,0 +1,417 @@
+"""The desktop window, driven offscreen through its real widgets (pytest-qt)."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+import time
+import xml.etree.ElementTree as ET
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+# Keep recent-file lists and recovery copies of this run away from the person's own.
+_HOME = tempfile.mkdtemp(prefix="regbench-gui-test-")
+os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
+os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
+
+import numpy as np
+import pandas as pd
+import pytest
+
+pytest.importorskip("pytestqt")
+from PySide6 import QtCore, QtGui, QtWidgets  # noqa: E402
+
+from regbench.data import Roles  # noqa: E402
+from regbench.data.table import CATEGORICAL, NUMERIC, ColumnInfo, Table  # noqa: E402
+from regbench.demo import GREENHOUSE_ROLES, sensor_line  # noqa: E402
+from regbench.models.results import FitSettings  # noqa: E402
+
+pytestmark = pytest.mark.gui
+QtCore.QStandardPaths.setTestModeEnabled(True)
+HERE = os.path.dirname(__file__)
+SAMPLE_CSV = os.path.join(HERE, "..", "sample_projects", "greenhouse.csv")
+FIT_TIMEOUT_MS = 120_000
+
+
+def greenhouse_session(bootstrap: int = 20):
+    from regbench.analysis.stress import StressConfig
+    from regbench.session import Session
+
+    s = Session.from_table_file(SAMPLE_CSV, Roles.from_dict(GREENHOUSE_ROLES), FitSettings(seed=20261201))
+    s.add_stress(StressConfig("day_temp_c", "rescale", 1.8))
+    s.set_bootstrap(bootstrap)
+    return s
+
+
+def make_window(qtbot):
+    from regbench.gui.window import MainWindow
+
+    w = MainWindow(autosave=False)
+    qtbot.addWidget(w)
+    w.resize(1400, 900)
+    w.show()
+    return w
+
+
+def wait_idle(qtbot, w, timeout=FIT_TIMEOUT_MS):
+    qtbot.waitUntil(lambda: not w.runner.busy(), timeout=timeout)
+    QtWidgets.QApplication.processEvents()
+
+
+def close_quietly(w):
+    w.dirty = False
+    w.runner.cancel_all()
+    w.runner.wait(60_000)
+    w.close()
+
+
+@pytest.fixture
+def gh(qtbot):
+    """A window on the greenhouse sample, fitted."""
+    w = make_window(qtbot)
+    with qtbot.waitSignal(w.results_applied, timeout=FIT_TIMEOUT_MS):
+        w.adopt(greenhouse_session())
+    wait_idle(qtbot, w)
+    yield w
+    close_quietly(w)
+
+
+def grid_column(model, header):
+    j = model.headers.index(header)
+    return [model.rows[i][j] for i in range(len(model.rows))]
+
+
+# -- the data view ------------------------------------------------------------------------
+
+
+def test_data_view_over_a_million_rows_is_lazy(qtbot):
+    from regbench.gui.tables import FrameModel, make_view
+
+    rng = np.random.default_rng(1)
+    n = 1_000_000
+    frame = pd.DataFrame({"a": rng.normal(size=n), "b": rng.integers(0, 9, n).astype(float),
+                          "c": np.where(rng.random(n) < 0.5, "left", "right")})
+    t0 = time.perf_counter()
+    model = FrameModel(frame)
+    view = make_view(model)
+    qtbot.addWidget(view)
+    view.resize(800, 500)
+    view.show()
+    created = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    for r in (0, 250_000, 500_000, 999_999, 10, 750_000):
+        view.scrollTo(model.index(r, 0))
+        QtWidgets.QApplication.processEvents()
+    scrolled = time.perf_counter() - t0
+    print(f"1M-row model: created in {created:.3f} s, six scroll jumps in {scrolled:.3f} s")
+    assert model.rowCount() == n and model.columnCount() == 3
+    # The last row shows the frame's own values (row numbers start at 1 as in messages).
+    assert model.headerData(n - 1, QtCore.Qt.Vertical) == str(n)
+    assert float(model.data(model.index(n - 1, 0))) == pytest.approx(frame["a"].iloc[-1], rel=1e-5)
+    assert model.data(model.index(n - 1, 2)) == frame["c"].iloc[-1]
+    # Generous bounds: per-cell items for 3M cells would take far longer than this.
+    assert created < 5.0 and scrolled < 5.0
+
+
+# -- opening, panels, roles ---------------------------------------------------------------
+
+
+def test_sample_fills_every_panel_with_sentences(gh):
+    s = gh.session
+    for panel in gh.panels:
+        gh.show_panel(panel.key)
+        gh._refresh_panel(panel)
+        assert panel.sentences.text().strip(), panel.key
+    assert gh.errors == []
+    coef = gh.panel("coefficients").model
+    assert coef.row_labels == list(s.design.columns)
+    ols_col = grid_column(coef, "OLS")
+    # Exact aliases of the greenhouse table (demo.py): mean = (day + night) / 2, °F = 1.8 °C + 32.
+    assert ols_col[s.design.columns.index("mean_temp_c")] == "set aside"
+    assert ols_col[s.design.columns.index("day_temp_f")] == "set aside"
+    # The OLS column agrees with a weighted least-squares fit by numpy on the kept columns.
+    d = s.design
+    kept = [j for j, c in enumerate(d.columns) if c not in ("mean_temp_c", "day_temp_f")]
+    A = np.column_stack([np.ones(d.n), d.X[:, kept]]) * np.sqrt(d.weights)[:, None]
+    beta = np.linalg.lstsq(A, d.y * np.sqrt(d.weights), rcond=None)[0]
+    for k, j in enumerate(kept):
+        assert ols_col[j] == pytest.approx(beta[k + 1], rel=1e-6, abs=1e-12)
+    data = gh.panel("data")
+    assert data.frame_model.rowCount() == s.table.n_rows
+    # Rows left out (demo.py blanks 3 EC cells and 2 yields) are listed one by one with a reason.
+    assert data.excluded_model.rowCount() == len(s.design.excluded) == s.table.n_rows - s.design.n
+
+
+def test_roles_change_refits_and_undo_restores(gh, qtbot):
+    roles = gh.roles_panel
+    roles.set_predictor("day_temp_f", False)
+    with qtbot.waitSignal(gh.results_applied, timeout=FIT_TIMEOUT_MS):
+        roles.apply_btn.click()
+    wait_idle(qtbot, gh)
+    s = gh.session
+    assert "day_temp_f" not in s.design.columns
+    assert [sa.column for sa in s.results.ols.set_aside] == ["mean_temp_c"]
+    gh.show_panel("coefficients")
+    assert "day_temp_f" not in gh.panel("coefficients").model.row_labels
+    gh.undo()
+    wait_idle(qtbot, gh)
+    assert "day_temp_f" in gh.session.design.columns
+    assert roles.roles().predictors == tuple(GREENHOUSE_ROLES["predictors"])
+
+
+def test_dragging_alpha_moves_the_coefficient_table(gh):
+    s = gh.session
+    paths = gh.panel("paths")
+    gh.show_panel("paths")
+    paths.family.setCurrentIndex(paths.family.findData("lasso"))
+    coef = gh.panel("coefficients")
+    gh.show_panel("coefficients")
+    before = grid_column(coef.model, "Lasso")
+    gh.show_panel("paths")
+    fit = s.results.penalized["lasso"]
+    big = float(fit.path.alphas[0]) * 2.0   # the path starts at the α where every lasso coefficient is 0
+    paths.move_alpha(big)
+    assert s.models()["lasso"].alpha == pytest.approx(big, rel=1e-9)
+    gh.show_panel("coefficients")
+    after = grid_column(coef.model, "Lasso")
+    assert after != before
+    # Lasso at α at or above the largest path α keeps no column (KKT: max |xᵀr|/W <= α).
+    assert all(v == 0.0 for v in after)
+    gh.show_panel("paths")
+    paths.reset_btn.click()
+    assert s.models()["lasso"].alpha == pytest.approx(fit.alpha, rel=1e-12)
+    gh.show_panel("coefficients")
+    assert grid_column(coef.model, "Lasso") == before
+
+
+def test_stress_run_in_the_worker(gh, qtbot):
+    s = gh.session
+    stress = gh.panel("stress")
+    gh.show_panel("stress")
+    stress.column.setCurrentText("day_temp_c")
+    stress.kind.setCurrentIndex(stress.kind.findData("rescale"))
+    stress.use_default.setChecked(False)
+    stress.strength.setValue(1.5)
+    n_before = len(s.stress_configs)
+    stress.run_btn.click()
+    wait_idle(qtbot, gh)
+    assert len(s.stress_configs) == n_before + 1
+    assert stress.shift_model.rowCount() == len(s.models())
+    # Rescaling a column by k moves a linear model's prediction by b·(k − 1)·x on every row,
+    # so the weighted RMS shift is |b|·(k − 1)·sqrt(Σ w x² / Σ w) (linear algebra).
+    d = s.design
+    x = d.X[:, d.columns.index("day_temp_c")]
+    rms_x = np.sqrt(np.sum(d.weights * x ** 2) / d.weights.sum())
+    shown = dict(zip(grid_column(stress.shift_model, "Model"), grid_column(stress.shift_model, "RMS shift")))
+    from regbench.models.results import model_label
+
+    for name, m in s.models().items():
+        b = m.coef[d.columns.index("day_temp_c")]
+        assert shown[model_label(name)] == pytest.approx(abs(b) * 0.5 * rms_x, rel=1e-6, abs=1e-12)
+    assert stress.plot.getPlotItem().listDataItems()  # the sweep is drawn
+
+
+def test_rank_every_column(gh, qtbot):
+    stress = gh.panel("stress")
+    gh.show_panel("stress")
+    stress.kind.setCurrentIndex(stress.kind.findData("shuffle"))
+    stress.rank_btn.click()
+    wait_idle(qtbot, gh)
+    sources = list(dict.fromkeys(gh.session.design.sources))
+    assert sorted(grid_column(stress.rank_model, "Column")) == sorted(sources)
+
+
+# -- saving, exporting, copying -----------------------------------------------------------
+
+
+def test_save_and_reopen_equal(gh, qtbot, tmp_path):
+    from regbench.gui.tables import model_to_tsv
+
+    gh.set_alpha("ridge", 0.5)
+    gh.show_panel("coefficients")
+    table_before = model_to_tsv(gh.panel("coefficients").model)
+    s = gh.session
+    path = str(tmp_path / "gh.regbench")
+    assert gh.save_to(path)
+    assert not gh.dirty and os.path.exists(path)
+    with qtbot.waitSignal(gh.session_changed, timeout=FIT_TIMEOUT_MS):
+        gh.open_path(path)
+    wait_idle(qtbot, gh)
+    r = gh.session
+    assert r is not s
+    assert r.roles == s.roles and r.settings == s.settings
+    assert r.chosen_alpha == s.chosen_alpha == {"ridge": 0.5}
+    assert list(r.stress_configs) == list(s.stress_configs)
+    gh.show_panel("coefficients")
+    assert model_to_tsv(gh.panel("coefficients").model) == table_before
+    assert gh.path == path and not gh.dirty
+
+
+def test_export_plot_png_and_svg(gh, tmp_path):
+    gh.show_panel("paths")
+    png = str(tmp_path / "paths.png")
+    svg = str(tmp_path / "paths.svg")
+    assert gh.export_plot(png)
+    assert gh.export_plot(svg)
+    with open(png, "rb") as f:
+        assert f.read(8) == b"\x89PNG\r\n\x1a\n"   # PNG signature (PNG specification)
+    img = QtGui.QImage(png)
+    arr = np.array([img.pixel(x, y) & 0xFFFFFF for x in range(0, img.width(), 7) for y in range(0, img.height(), 7)])
+    assert len(np.unique(arr)) > 10
+    root = ET.parse(svg).getroot()
+    assert root.tag.endswith("svg")
+    assert sum(1 for _ in root.iter()) > 20
+    assert not gh.export_plot(str(tmp_path / "paths.bmp"))  # an unknown type is refused with a message
+    assert "png or .svg" in gh.errors[-1]
+
+
+def test_copy_table_is_tab_separated(gh):
+    gh.show_panel("coefficients")
+    gh.panel("coefficients").view.setFocus()
+    text = gh.copy_table()
+    assert QtWidgets.QApplication.clipboard().text() == text
+    lines = text.strip("\n").split("\n")
+    assert lines[0].split("\t")[1:4] == ["OLS", "OLS SE", "OLS p"]
+    assert len(lines) == 1 + gh.session.design.p
+    assert all(len(line.split("\t")) == len(lines[0].split("\t")) for line in lines)
+
+
+# -- errors, prompts, recovery ------------------------------------------------------------
+
+
+def test_bad_table_and_bad_roles_show_a_dialog_and_change_nothing(gh, qtbot, tmp_path):
+    s = gh.session
+    bad = tmp_path / "bad.csv"
+    bad.write_text("a,b,a\n1,2,3\n4,5,6\n")
+    gh.dirty = False
+    n = len(gh.errors)
+    gh.open_path(str(bad))
+    qtbot.waitUntil(lambda: len(gh.errors) > n, timeout=10_000)
+    assert "duplicate column names" in gh.errors[-1] and "'a'" in gh.errors[-1]
+    assert isinstance(gh.last_error_box, QtWidgets.QMessageBox)
+    assert gh.session is s
+    roles = s.roles
+    assert not gh.apply_roles(Roles(target="variety", predictors=("day_temp_c",)))
+    assert "variety" in gh.errors[-1] and "numeric" in gh.errors[-1]
+    assert gh.session.roles == roles
+
+
+def test_unsaved_prompt_can_keep_the_window_open(gh, monkeypatch):
+    gh.set_alpha("lasso", 0.01)
+    assert gh.dirty
+    monkeypatch.setattr(gh, "ask_unsaved", lambda: "cancel")
+    gh.close()
+    assert gh.isVisible()
+    monkeypatch.setattr(gh, "ask_unsaved", lambda: "discard")
+    gh.close()
+    assert not gh.isVisible()
+
+
+def test_recovery_copy_is_offered_and_removed(gh, qtbot, monkeypatch):
+    from regbench.gui.window import MainWindow, recovery_path
+
+    gh.set_alpha("ridge", 0.25)
+    assert gh.autosave()
+    path = recovery_path()
+    assert os.path.exists(path)
+    w = MainWindow(autosave=False)
+    qtbot.addWidget(w)
+    monkeypatch.setattr(QtWidgets.QMessageBox, "question", lambda *a, **k: QtWidgets.QMessageBox.Open)
+    assert w.offer_recovery()
+    assert w.session.chosen_alpha == {"ridge": 0.25} and w.dirty
+    close_quietly(w)   # a clean close removes the recovery copy
+    assert not os.path.exists(path)
+
+
+def test_drop_a_table_opens_it(gh, monkeypatch):
+    opened = []
+    monkeypatch.setattr(gh, "open_path", lambda p, roles=None: opened.append(p))
+    mime = QtCore.QMimeData()
+    mime.setUrls([QtCore.QUrl.fromLocalFile(os.path.abspath(SAMPLE_CSV))])
+    ev = QtGui.QDropEvent(QtCore.QPointF(10, 10), QtCore.Qt.CopyAction, mime, QtCore.Qt.LeftButton, QtCore.Qt.NoModifier)
+    gh.dropEvent(ev)
+    assert opened == [os.path.abspath(SAMPLE_CSV)]
+
+
+def test_help_defines_every_term_and_the_cautions():
+    from regbench.gui.help import help_html
+
+    html = help_html()
+    for term in ("α", "L1 ratio", "VIF", "Condition index", "Set aside", "Agreement", "Stress test",
+                 "Stability", "Cross-validation by group"):
+        assert f"<b>{term}" in html, term
+    for caution in ("not causes", "held-out groups", "only as good as its inputs"):
+        assert caution in html
+
+
+# -- the big table: GUI stalls and cancel -------------------------------------------------
+
+
+def sensor_table(n_rows=100_000, n_cols=100) -> Table:
+    """The sensor_line scenario as a Table (typed directly: every sensor is numeric, batch is text)."""
+    frame = sensor_line(n_rows, n_cols)
+    cols = {}
+    for c in frame.columns:
+        if c == "batch":
+            cols[c] = ColumnInfo(c, CATEGORICAL, 0, int(frame[c].nunique()))
+        else:
+            cols[c] = ColumnInfo(c, NUMERIC, 0, n_rows)
+    return Table(frame=frame, columns=cols, source="sensor_line")
+
+
+def test_long_fit_keeps_the_window_responsive_and_cancel_changes_nothing(qtbot):
+    from regbench.session import Session
+
+    s = Session.from_table(sensor_table(), Roles(target="throughput", groups="batch"), FitSettings())
+    s.set_bootstrap(0)
+    w = make_window(qtbot)
+    w.adopt(s, fit=False)
+    QtWidgets.QApplication.processEvents()
+    gaps, last = [], [time.perf_counter()]
+
+    def tick():
+        now = time.perf_counter()
+        gaps.append(now - last[0])
+        last[0] = now
+
+    timer = QtCore.QTimer()
+    timer.setInterval(10)
+    timer.timeout.connect(tick)
+    timer.start()
+    w.refit()
+    qtbot.wait(6000)      # the GUI thread keeps running its event loop while the pool fits
+    assert w.runner.busy(), "the fit finished too soon to test cancelling"
+    last[0] = time.perf_counter()
+    w.cancel_btn.click()
+    t0 = time.perf_counter()
+    wait_idle(qtbot, w, timeout=120_000)
+    stopped = time.perf_counter() - t0
+    timer.stop()
+    worst = max(gaps)
+    print(f"GUI thread during a 100k x 100 fit: worst gap {worst * 1000:.0f} ms over {len(gaps)} ticks; "
+          f"cancel took {stopped:.1f} s")
+    assert s.results is None and s.stability is None
+    assert w.session is s and "cancelled" in w.status_label.text().lower()
+    assert worst < 1.0   # generous; the target is under 0.1 s
+    close_quietly(w)
+
+
+# -- snapshots ----------------------------------------------------------------------------
+
+
+def test_snapshot_writes_non_blank_pngs(tmp_path):
+    from regbench.gui.snapshot import snapshot
+    from regbench.project import save_project
+
+    s = greenhouse_session(bootstrap=20)
+    s.compute()
+    project = str(tmp_path / "gh.regbench")
+    save_project(s, project)
+    paths = snapshot(project, str(tmp_path / "shots"))
+    names = [os.path.basename(p) for p in paths]
+    assert len(paths) == 8 and "00_roles.png" in names and "02_overlaps.png" in names
+    for p in paths:
+        img = QtGui.QImage(p)
+        assert img.width() > 200 and img.height() > 200, p
+        px = np.array([img.pixel(x, y) & 0xFFFFFF for x in range(0, img.width(), 9) for y in range(0, img.height(), 9)])
+        rgb = np.stack([(px >> 16) & 255, (px >> 8) & 255, px & 255], axis=1).astype(float)
+        assert rgb.std() > 10, p   # not a flat image
