@@ -162,3 +162,13 @@ def test_with_the_engine_grouped_heldout_rows():
     # The group column here is called 'groups': the words must not repeat it.
     assert any("RMS on held-out groups while" in s for s in ag.sentences)
     assert not any("groups groups" in s for s in ag.sentences)
+
+
+def test_identical_models_even_with_a_perfect_fit():
+    X = np.arange(20.0)[:, None]
+    d = design_from_arrays(X, 2 * X[:, 0] + 1, ("x",))
+    m = lm("ols", 1.0, [2.0], ("x",))
+    ag = compare_models(d, {"ols": m, "ridge": lm("ridge", 1.0, [2.0], ("x",))})
+    # Zero own error and zero difference: identical, not "the choice matters" (0/0 is not large).
+    assert ag.pair("ols", "ridge", "training").rmse == 0.0
+    assert "predict exactly the same" in ag.sentences[0]

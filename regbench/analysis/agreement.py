@@ -265,6 +265,11 @@ def _sentences(design, names, pairs, own, units, tiny_share) -> tuple:
             miss = f"each misses {design.target} by {fmt(smaller)}{u}"
         else:
             miss = f"they miss {design.target} by {fmt(ea)} and {fmt(eb)}{u}"
+        if p.rmse == 0.0:
+            out.append(f"{la} and {in_sentence(lb)} predict exactly the same on {_rows_words(design, split)} "
+                       f"(both miss {design.target} by {fmt(smaller)}{u}).")
+            verdicts[-1] = 0.0
+            continue
         head = f"{la} and {in_sentence(lb)} differ by {fmt(p.rmse)}{u} RMS on {_rows_words(design, split)} while {miss}"
         if ratio < tiny_share:
             tail = (f": their predictions are interchangeable for planning (the difference is under "
