@@ -25,21 +25,21 @@ from regbench.data.design import Roles
 from regbench.errors import ProjectError
 from regbench.models.results import FitSettings
 from regbench.project import inspect_project, load_project, save_project
+from regbench.report import report_html
 from regbench.session import Session
 
 ROOT = pathlib.Path(__file__).resolve().parents[1]
 MAX_EXAMPLES = 150
-RUNS = {"count": 0}
+RUNS = {"count": 0, "loaded": 0}
 
 
 @pytest.fixture(scope="module")
 def project_bytes(tmp_path_factory):
-    from regbench.data.reader import read_table
-    from regbench.data.table import Table
+    from regbench.data.reader import read_table, table_from_frame
 
     full = read_table(ROOT / "sample_projects" / "greenhouse.csv")
     # A small project keeps each load fast: the first 288 rows (four glasshouses).
-    table = Table(full.frame.iloc[:288].reset_index(drop=True), full.columns, full.source)
+    table = table_from_frame(full.frame.iloc[:288].reset_index(drop=True), "greenhouse.csv, first 288 rows")
     s = Session.from_table(table, Roles(target="yield_kg_m2", predictors=("variety", "day_temp_c", "night_temp_c",
                                                                           "mean_temp_c", "co2_ppm", "ec_ms_cm"),
                                         weights="plants_per_bed", groups="glasshouse"),
@@ -49,6 +49,9 @@ def project_bytes(tmp_path_factory):
     s.compute()
     path = tmp_path_factory.mktemp("fuzz") / "base.regbench"
     save_project(s, path)
+    # The unmutated file must load with its cache, or every case below would be refused for nothing.
+    base = load_project(path, compute=False)
+    assert base.cache_status == "used" and base.stability is not None and base.stress_results()
     return path.read_bytes()
 
 
@@ -83,12 +86,14 @@ def check_load(tmp_path, data: bytes) -> str:
     outcome = "loaded"
     try:
         s = load_project(path, compute=False)
-        # A loaded session must be usable: its models and comparisons come out.
+        # A loaded session must be usable: its models, comparisons and report come out.
         if s.results is not None:
             s.models()
             s.agreement()
+        report_html(s)
     except ProjectError:
         outcome = "refused"
+    RUNS["loaded"] += outcome == "loaded"
     try:
         inspect_project(path)
     except ProjectError:
@@ -116,7 +121,11 @@ def replace_at(node, path, value):
 
 JSON_VALUES = st.recursive(
     st.none() | st.booleans() | st.integers(-10**12, 10**12) | st.floats(allow_nan=False, allow_infinity=False)
-    | st.text(max_size=12) | st.sampled_from(["", "nan", "ols", "ridge", "day_temp_c", "categorical", "$array"]),
+    | st.text(max_size=12) | st.sampled_from(["", "nan", "ols", "ridge", "day_temp_c", "categorical", "$array"])
+    # Tagged nodes of the result encoding, so the decoder's own checks are reached.
+    | st.sampled_from([{"$array": "results/a00001.npy"}, {"$tuple": []}, {"$tuple": [1, "x"]}, {"$float": "nan"},
+                       {"$dict": []}, {"$dict": [[{"$tuple": []}, 1]]}, {"$type": "regbench.models.results:LinearModel",
+                                                                     "fields": {}}]),
     lambda inner: st.lists(inner, max_size=3) | st.dictionaries(st.text(max_size=8), inner, max_size=3),
     max_leaves=6,
 )
@@ -168,5 +177,8 @@ def test_retyped_json_fields(project_bytes, tmp_path, data, fix):
 
 def test_zz_report_case_count():
     """Print how many mutated files the fuzz tests above loaded (run after them in file order)."""
-    print(f"project fuzz: {RUNS['count']} mutated project files loaded or refused cleanly")
+    print(f"project fuzz: {RUNS['count']} mutated project files, {RUNS['loaded']} loaded, "
+          f"{RUNS['count'] - RUNS['loaded']} refused with ProjectError, no other exception")
     assert RUNS["count"] >= 4 * MAX_EXAMPLES or RUNS["count"] == 0
+    if RUNS["count"]:
+        assert RUNS["loaded"] > 0  # some mutations are harmless (notes, view state): not everything is refused

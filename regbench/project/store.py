@@ -358,8 +358,8 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
             bad(f + ".kind", f"is {kind!r}; known kinds are {', '.join(KINDS)}")
         for k in ("missing", "distinct"):
             v = c.get(k)
-            if isinstance(v, bool) or not isinstance(v, int) or not 0 <= v <= rows:
-                bad(f"{f}.{k}", f"is {v!r}, not a whole number from 0 to {rows}")
+            if isinstance(v, bool) or not isinstance(v, int) or v < 0:
+                bad(f"{f}.{k}", f"is {v!r}, not a whole number >= 0")
         if not isinstance(c.get("coded_categories", False), bool):
             bad(f + ".coded_categories", "must be true or false")
         cells = c.get("bad_cells", [])
@@ -367,8 +367,8 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
             bad(f + ".bad_cells", "must be a list of [row, text]")
         for i, cell in enumerate(cells):
             if not (isinstance(cell, list) and len(cell) == 2 and isinstance(cell[0], int)
-                    and not isinstance(cell[0], bool) and 1 <= cell[0] <= rows and isinstance(cell[1], str)):
-                bad(f"{f}.bad_cells[{i}]", "must be [row 1..rows, text]")
+                    and not isinstance(cell[0], bool) and cell[0] >= 1 and isinstance(cell[1], str)):
+                bad(f"{f}.bad_cells[{i}]", "must be [row number >= 1, text]")
         arr = tab.column(j)
         if kind == "categorical":
             if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
@@ -484,7 +484,7 @@ def _session_state(ar: _Archive, doc, table):
         if not isinstance(e["name"], str) or not e["name"] or e["name"] in seen:
             bad(f"extra_fits[{i}].name", f"is {e['name']!r}: empty, not text or used twice")
         seen.add(e["name"])
-        if e["family"] not in families:
+        if not isinstance(e["family"], str) or e["family"] not in families:
             bad(f"extra_fits[{i}].family", f"is {e['family']!r}; known: {', '.join(sorted(families))}")
         if not positive(e["alpha"]):
             bad(f"extra_fits[{i}].alpha", f"is {e['alpha']!r}, not a positive number")
@@ -500,7 +500,7 @@ def _session_state(ar: _Archive, doc, table):
         unknown = set(c) - {"column", "kind", "strength", "seed", "tolerance", "fill"}
         if unknown:
             bad(f"stress[{i}]", f"has unknown key(s) {', '.join(sorted(unknown))}")
-        if c["kind"] not in STRESS_KINDS:
+        if not isinstance(c["kind"], str) or c["kind"] not in STRESS_KINDS:
             bad(f"stress[{i}].kind", f"is {c['kind']!r}; known kinds: {', '.join(STRESS_KINDS)}")
         if not isinstance(c["column"], str):
             bad(f"stress[{i}].column", "must be a column name")
@@ -537,46 +537,6 @@ def _session_state(ar: _Archive, doc, table):
 
 # -- cached results ------------------------------------------------------------------------
 
-def _check_fit(ar, results, design):
-    from regbench.models.results import FitResults, LinearModel
-
-    def bad(what):
-        raise ProjectError(f"{ar.label}: results.json: field fit {what}; the cached results are damaged — "
-                           "re-create the project with 'regbench new' or save it again after a fresh fit")
-
-    if not isinstance(results, FitResults):
-        bad("is not a fit result")
-    n, p = design.n, design.p
-    if tuple(results.columns) != tuple(design.columns):
-        bad(".columns does not match the design columns")
-    if results.n_obs != n or results.fold_ids.shape != (n,):
-        bad(f".n_obs/.fold_ids do not match the {n} rows used")
-    if not np.issubdtype(results.fold_ids.dtype, np.integer) or (n and not 0 <= results.fold_ids.min()
-                                                                 <= results.fold_ids.max() < results.settings.folds):
-        bad(".fold_ids must hold fold numbers from 0 to folds - 1")
-
-    def check_model(m, where):
-        if not isinstance(m, LinearModel) or not isinstance(m.coef, np.ndarray) or m.coef.shape != (p,) \
-                or not isinstance(m.coef_std, np.ndarray) or m.coef_std.shape != (p,):
-            bad(f"{where}: model does not have one coefficient per design column")
-
-    check_model(results.ols.model, ".ols.model")
-    for arr in ("coef", "std_errors", "t_values", "p_values", "ci_low", "ci_high"):
-        a = getattr(results.ols, arr)
-        if not isinstance(a, np.ndarray) or a.shape != (p,):
-            bad(f".ols.{arr} does not have one value per design column")
-    if not isinstance(results.penalized, dict):
-        bad(".penalized is not a dict")
-    for name, pf in results.penalized.items():
-        check_model(pf.model, f".penalized[{name}].model")
-        k = pf.path.alphas.shape[0] if isinstance(pf.path.alphas, np.ndarray) else -1
-        if k < 1 or pf.path.coef.shape != (k, p):
-            bad(f".penalized[{name}].path has inconsistent shapes")
-        if pf.cv is not None and (pf.cv.mean.shape != (pf.cv.alphas.shape[0],)
-                                  or pf.cv.se.shape != pf.cv.mean.shape):
-            bad(f".penalized[{name}].cv has inconsistent shapes")
-
-
 def _load_results(ar, m, session, migrated: bool):
     """Install cached results when they belong to this table and these settings."""
     from regbench.project.codec import Decoder
@@ -602,9 +562,11 @@ def _load_results(ar, m, session, migrated: bool):
                                    "the file is damaged") from None
             if not isinstance(arrays[name], np.ndarray):
                 raise ProjectError(f"{ar.label}: member '{name}' is not a single array; the file is damaged")
+    from regbench.project.checks import check_derived, check_fit, check_stability, guarded
+
     dec = Decoder(arrays, f"{ar.label}: results.json")
     results = dec.decode(doc.get("fit"), "fit")
-    _check_fit(ar, results, session.design)
+    guarded(ar.label, check_fit, results, session.design)
     results = _restore_engine_cache(session.design, results)
     stab_alphas = doc.get("stability_alphas", {})
     if not (isinstance(stab_alphas, dict) and all(isinstance(v, (int, float)) and not isinstance(v, bool)
@@ -612,31 +574,12 @@ def _load_results(ar, m, session, migrated: bool):
         raise ProjectError(f"{ar.label}: results.json: field stability_alphas must map model names to numbers; "
                            "the file is damaged")
     stability = dec.decode(doc.get("stability"), "stability")
+    if stability is not None:
+        guarded(ar.label, check_stability, stability, session.design)
     derived = {}
     if doc["key"] == session.key():
         derived = dec.decode(doc.get("derived"), "derived")
-        if not isinstance(derived, dict):
-            raise ProjectError(f"{ar.label}: results.json: field derived must be a dict; the file is damaged")
-        models = derived.get("models", {})
-        if not isinstance(models, dict):
-            raise ProjectError(f"{ar.label}: results.json: field derived.models must be a dict; the file is damaged")
-        from regbench.models.results import LinearModel
-
-        for name, mdl in models.items():
-            if not (isinstance(mdl, LinearModel) and isinstance(mdl.coef, np.ndarray)
-                    and mdl.coef.shape == (session.design.p,)):
-                raise ProjectError(f"{ar.label}: results.json: field derived.models[{name!r}] is not a model over "
-                                   "the design columns; the file is damaged")
-        for name, pred in derived.get("heldout", {}).items():
-            if not (isinstance(pred, np.ndarray) and pred.shape == (session.design.n,)):
-                raise ProjectError(f"{ar.label}: results.json: field derived.heldout[{name!r}] does not hold one "
-                                   "prediction per row; the file is damaged")
-        for key in ("stress", "sweeps"):
-            if not isinstance(derived.get(key, ()), tuple):
-                raise ProjectError(f"{ar.label}: results.json: field derived.{key} must be a tuple; the file is damaged")
-        if len(derived.get("stress", ())) != len(session.stress_configs):
-            derived.pop("stress", None)
-            derived.pop("sweeps", None)
+        guarded(ar.label, check_derived, derived, session.design, len(session.stress_configs))
     session.results = results
     alphas = {k: float(v) for k, v in stab_alphas.items()}
     from regbench.session import _alphas_of

@@ -1,0 +1,203 @@
+"""Deep checks of cached results read from a project file.
+
+The generic decoder checks each field against its declared type, but a
+``tuple`` or ``dict`` field does not say what it holds.  These checks walk the
+result objects the session and the report use — element types, array shapes
+against the design, names against the models — and exercise each analysis
+result's ``to_dict`` so every field is touched once.  Anything wrong becomes
+:class:`ProjectError`; nothing here changes the objects.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+
+from regbench.errors import ProjectError
+
+# Errors the checks themselves can hit on damaged objects.
+_DAMAGE = (TypeError, ValueError, AttributeError, KeyError, IndexError, OverflowError)
+
+
+class _Bad(Exception):
+    pass
+
+
+def _need(cond, what):
+    if not cond:
+        raise _Bad(what)
+
+
+def _array(a, shape, what, kind="f"):
+    _need(isinstance(a, np.ndarray) and a.shape == shape and a.dtype.kind in (kind + ("i" if kind == "f" else "")),
+          f"{what} must be an array of shape {shape}")
+
+
+def _names(t, what):
+    _need(isinstance(t, tuple) and all(isinstance(x, str) for x in t), f"{what} must be a tuple of names")
+
+
+def check_fit(results, design) -> None:
+    from regbench.models.results import (CVResult, Diagnostics, FitResults, FitSettings, LinearModel,
+                                         NearDependency, OLSResult, PathResult, PenalizedFit, SetAside)
+
+    n, p = design.n, design.p
+    _need(isinstance(results, FitResults), "fit is not a fit result")
+    _names(results.columns, "fit.columns")
+    _need(results.columns == tuple(design.columns), "fit.columns does not match the design columns")
+    _need(isinstance(results.settings, FitSettings), "fit.settings is not settings")
+    _need(results.n_obs == n, f"fit.n_obs is not the {n} rows used")
+    _array(results.fold_ids, (n,), "fit.fold_ids", "i")
+    _need(n == 0 or 0 <= int(results.fold_ids.min()) <= int(results.fold_ids.max()) < int(results.settings.folds),
+          "fit.fold_ids must hold fold numbers from 0 to folds - 1")
+
+    def model(m, where):
+        _need(isinstance(m, LinearModel), f"{where} is not a model")
+        _need(isinstance(m.name, str) and m.columns == results.columns, f"{where}.columns differ from the design")
+        _array(m.coef, (p,), f"{where}.coef")
+        _array(m.coef_std, (p,), f"{where}.coef_std")
+        _need(isinstance(m.intercept, float), f"{where}.intercept is not a number")
+
+    ols = results.ols
+    _need(isinstance(ols, OLSResult), "fit.ols is not an OLS result")
+    model(ols.model, "fit.ols.model")
+    _names(ols.kept, "fit.ols.kept")
+    _need(set(ols.kept) <= set(results.columns), "fit.ols.kept names unknown columns")
+    for arr in ("coef", "std_errors", "t_values", "p_values", "ci_low", "ci_high"):
+        _array(getattr(ols, arr), (p,), f"fit.ols.{arr}")
+    _need(isinstance(ols.set_aside, tuple), "fit.ols.set_aside must be a tuple")
+    for i, sa in enumerate(ols.set_aside):
+        _need(isinstance(sa, SetAside) and sa.column in results.columns, f"fit.ols.set_aside[{i}] is damaged")
+        _need(isinstance(sa.combination, dict) and all(isinstance(k, str) and isinstance(v, (int, float))
+                                                       for k, v in sa.combination.items()),
+              f"fit.ols.set_aside[{i}].combination is damaged")
+        _names(sa.alternatives, f"fit.ols.set_aside[{i}].alternatives")
+        json.dumps(sa.to_dict())
+        sa.sentence()
+    dg = results.diagnostics
+    _need(isinstance(dg, Diagnostics), "fit.diagnostics is not diagnostics")
+    _names(dg.columns, "fit.diagnostics.columns")
+    _names(dg.terms, "fit.diagnostics.terms")
+    k = len(dg.columns)
+    _array(dg.vif, (k,), "fit.diagnostics.vif")
+    _need(isinstance(dg.condition_indices, np.ndarray) and dg.condition_indices.ndim == 1,
+          "fit.diagnostics.condition_indices must be a list of numbers")
+    d = dg.condition_indices.shape[0]
+    _array(dg.variance_proportions, (d, len(dg.terms)), "fit.diagnostics.variance_proportions")
+    _need(isinstance(dg.near_dependencies, tuple) and all(
+        isinstance(nd, NearDependency) and isinstance(nd.column, str) and isinstance(nd.sentence, str)
+        and isinstance(nd.explained_by, tuple) and isinstance(nd.vif, float) and isinstance(nd.r_squared, float)
+        for nd in dg.near_dependencies), "fit.diagnostics.near_dependencies is damaged")
+    _need(isinstance(dg.damaging, tuple) and all(isinstance(x, dict) for x in dg.damaging),
+          "fit.diagnostics.damaging is damaged")
+    _need(isinstance(dg.sentences, tuple) and all(isinstance(s, str) for s in dg.sentences),
+          "fit.diagnostics.sentences must be text")
+    _need(isinstance(results.penalized, dict), "fit.penalized must be a dict")
+    for name, pf in results.penalized.items():
+        where = f"fit.penalized[{name!r}]"
+        _need(isinstance(name, str) and isinstance(pf, PenalizedFit) and pf.name == name, f"{where} is damaged")
+        model(pf.model, f"{where}.model")
+        _need(isinstance(pf.alpha, float) and pf.alpha > 0 and isinstance(pf.alpha_rule, str), f"{where}.alpha")
+        path = pf.path
+        _need(isinstance(path, PathResult) and path.columns == results.columns, f"{where}.path is damaged")
+        _need(isinstance(path.alphas, np.ndarray) and path.alphas.ndim == 1 and path.alphas.size >= 1
+              and bool(np.all(path.alphas > 0)), f"{where}.path.alphas must be positive numbers")
+        kk = path.alphas.shape[0]
+        _array(path.coef, (kk, p), f"{where}.path.coef")
+        _array(path.coef_std, (kk, p), f"{where}.path.coef_std")
+        _array(path.intercepts, (kk,), f"{where}.path.intercepts")
+        if pf.cv is not None:
+            cv = pf.cv
+            _need(isinstance(cv, CVResult) and isinstance(cv.alphas, np.ndarray) and cv.alphas.ndim == 1,
+                  f"{where}.cv is damaged")
+            for arr in ("mean", "se"):
+                _array(getattr(cv, arr), cv.alphas.shape, f"{where}.cv.{arr}")
+
+
+def check_derived(derived: dict, design, n_stress: int) -> None:
+    from regbench.analysis.agreement import Agreement, PairAgreement
+    from regbench.analysis.stress import ModelShift, StressResult, StressSweep
+    from regbench.analysis.structure import Structure
+    from regbench.models.results import LinearModel
+
+    n, p = design.n, design.p
+    _need(isinstance(derived, dict), "derived must be a dict")
+    models = derived.get("models")
+    _need(isinstance(models, dict) and models, "derived.models must name the models")
+    for name, m in models.items():
+        _need(isinstance(name, str) and isinstance(m, LinearModel), f"derived.models[{name!r}] is not a model")
+        _array(m.coef, (p,), f"derived.models[{name!r}].coef")
+        _array(m.coef_std, (p,), f"derived.models[{name!r}].coef_std")
+        _need(isinstance(m.intercept, float), f"derived.models[{name!r}].intercept")
+    names = tuple(models)
+    held = derived.get("heldout")
+    _need(isinstance(held, dict) and tuple(held) == names, "derived.heldout must hold every model")
+    for name, pred in held.items():
+        _array(pred, (n,), f"derived.heldout[{name!r}]")
+    ag = derived.get("agreement")
+    _need(isinstance(ag, Agreement) and ag.models == names, "derived.agreement does not match the models")
+    _need(isinstance(ag.pairs, tuple) and all(isinstance(x, PairAgreement) and x.a in names and x.b in names
+                                              for x in ag.pairs), "derived.agreement.pairs is damaged")
+    _need(isinstance(ag.own_error, dict) and set(ag.own_error) == set(names)
+          and all(isinstance(v, dict) for v in ag.own_error.values()), "derived.agreement.own_error is damaged")
+    json.dumps(ag.to_dict())
+    st = derived.get("structure")
+    _need(isinstance(st, Structure) and st.models == names and st.columns == tuple(design.columns),
+          "derived.structure does not match the models")
+    for arr in ("coef", "coef_std"):
+        _array(getattr(st, arr), (len(names), p), f"derived.structure.{arr}")
+    _array(st.used, (len(names), p), "derived.structure.used", "b")
+    json.dumps(st.to_dict())
+    stress, sweeps = derived.get("stress"), derived.get("sweeps")
+    _need(isinstance(stress, tuple) and len(stress) == n_stress, "derived.stress does not match the stress tests")
+    for i, r in enumerate(stress):
+        _need(isinstance(r, StressResult) and isinstance(r.shifts, dict) and tuple(r.models) == names
+              and all(isinstance(r.shifts.get(k), ModelShift) for k in names), f"derived.stress[{i}] is damaged")
+        json.dumps(r.to_dict())
+    _need(isinstance(sweeps, tuple), "derived.sweeps must be a tuple")
+    for i, sw in enumerate(sweeps):
+        _need(isinstance(sw, StressSweep) and tuple(sw.models) == names and isinstance(sw.strengths, np.ndarray)
+              and sw.strengths.ndim == 1, f"derived.sweeps[{i}] is damaged")
+        for field in ("shift_rmse", "error_damaged", "moved_share"):
+            d = getattr(sw, field)
+            _need(isinstance(d, dict) and set(d) == set(names), f"derived.sweeps[{i}].{field} is damaged")
+            for k in names:
+                _array(d[k], sw.strengths.shape, f"derived.sweeps[{i}].{field}[{k!r}]")
+        json.dumps(sw.to_dict())
+
+
+def check_stability(st, design) -> None:
+    from regbench.analysis.stability import Stability
+
+    p = design.p
+    _need(isinstance(st, Stability) and st.columns == tuple(design.columns), "stability does not match the design")
+    _names(st.models, "stability.models")
+    _array(st.set_aside_freq, (p,), "stability.set_aside_freq")
+    for field in ("selected_freq", "coef_mean", "coef_sd", "coef_q05", "coef_q95"):
+        d = getattr(st, field)
+        _need(isinstance(d, dict), f"stability.{field} must be a dict")
+        for k, v in d.items():
+            _need(isinstance(k, str), f"stability.{field} keys must be model names")
+            _array(v, (p,), f"stability.{field}[{k!r}]")
+    _need(isinstance(st.coef_draws, dict) and all(isinstance(v, np.ndarray) and v.ndim == 2 and v.shape[1] == p
+                                                   for v in st.coef_draws.values()), "stability.coef_draws is damaged")
+    _need(isinstance(st.alphas, dict) and all(isinstance(k, str) and isinstance(v, (int, float))
+                                              for k, v in st.alphas.items()), "stability.alphas is damaged")
+    _need(isinstance(st.sentences, tuple) and all(isinstance(s, str) for s in st.sentences),
+          "stability.sentences must be text")
+    json.dumps(st.to_dict())
+
+
+def guarded(label: str, check, *args) -> None:
+    """Run one check; any failure becomes a ProjectError naming the field."""
+    try:
+        check(*args)
+    except _Bad as exc:
+        what = str(exc)
+    except _DAMAGE as exc:
+        what = f"cannot be read ({type(exc).__name__}: {str(exc)[:120]})"
+    else:
+        return
+    raise ProjectError(f"{label}: results.json: field {what}; the cached results are damaged — re-create the "
+                       "project with 'regbench new' or open it and save it again after a fresh fit")
