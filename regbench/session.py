@@ -580,6 +580,14 @@ def _positive(x, what: str) -> float:
     return v
 
 
+def _is_int(v) -> bool:
+    return isinstance(v, (int, np.integer)) and not isinstance(v, bool)
+
+
+def _is_num(v) -> bool:
+    return isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool) and math.isfinite(v)
+
+
 def check_settings(s: FitSettings) -> None:
     """Raise DataError naming the first setting out of range."""
     def bad(field_name, what):
@@ -587,28 +595,28 @@ def check_settings(s: FitSettings) -> None:
 
     if not isinstance(s, FitSettings):
         raise DataError("settings must be FitSettings")
-    if isinstance(s.folds, bool) or not isinstance(s.folds, int) or not 2 <= s.folds <= 1000:
+    if not (_is_int(s.folds) and 2 <= s.folds <= 1000):
         bad("folds", f"is {s.folds!r}; cross-validation needs a whole number of folds from 2 to 1000")
-    if isinstance(s.seed, bool) or not isinstance(s.seed, int) or not 0 <= s.seed < 2**63:
+    if not (_is_int(s.seed) and 0 <= s.seed < 2**63):
         bad("seed", f"is {s.seed!r}; use a whole number >= 0")
-    if isinstance(s.n_penalties, bool) or not isinstance(s.n_penalties, int) or not 2 <= s.n_penalties <= 10000:
+    if not (_is_int(s.n_penalties) and 2 <= s.n_penalties <= 10000):
         bad("n_penalties", f"is {s.n_penalties!r}; a path needs from 2 to 10000 α values")
-    if not (isinstance(s.penalty_ratio, float) and 0 < s.penalty_ratio < 1):
+    if not (_is_num(s.penalty_ratio) and 0 < s.penalty_ratio < 1):
         bad("penalty_ratio", f"is {s.penalty_ratio!r}; it must be between 0 and 1")
-    if not isinstance(s.l1_ratios, tuple) or not s.l1_ratios or len(s.l1_ratios) > 20:
+    if not isinstance(s.l1_ratios, (tuple, list)) or not s.l1_ratios or len(s.l1_ratios) > 20:
         bad("l1_ratios", "must list from 1 to 20 L1 ratios")
     for r in s.l1_ratios:
-        if not (isinstance(r, float) and 0 < r < 1):
+        if not (_is_num(r) and 0 < r < 1):
             bad("l1_ratios", f"holds {r!r}; each L1 ratio must be strictly between 0 and 1")
-    if len(set(f"{r:g}" for r in s.l1_ratios)) != len(s.l1_ratios):
+    if len(set(f"{float(r):g}" for r in s.l1_ratios)) != len(s.l1_ratios):
         bad("l1_ratios", "lists the same ratio twice")
-    if s.alpha is not None and not (isinstance(s.alpha, float) and s.alpha > 0 and math.isfinite(s.alpha)):
+    if s.alpha is not None and not (_is_num(s.alpha) and s.alpha > 0):
         bad("alpha", f"is {s.alpha!r}; a fixed α must be a positive number (or empty for the CV choice)")
     if s.alpha_rule not in ALPHA_RULES[1:]:
         bad("alpha_rule", f"is {s.alpha_rule!r}; use one of {', '.join(ALPHA_RULES[1:])}")
-    if not isinstance(s.pins, tuple) or not all(isinstance(p, str) for p in s.pins):
+    if not isinstance(s.pins, (tuple, list)) or not all(isinstance(p, str) for p in s.pins):
         bad("pins", "must be a list of column names")
-    if s.rank_tol is not None and not (isinstance(s.rank_tol, float) and 0 < s.rank_tol < 1):
+    if s.rank_tol is not None and not (_is_num(s.rank_tol) and 0 < s.rank_tol < 1):
         bad("rank_tol", f"is {s.rank_tol!r}; a rank tolerance must be between 0 and 1 (or empty)")
 
 

@@ -206,3 +206,16 @@ def test_progress_rises_and_cancel_stops_without_change():
     with pytest.raises(Cancelled):
         s.compute(cancel=cancel)
     assert s.results is None and s.stability is None
+
+
+@pytest.mark.parametrize("bad,field", [
+    (FitSettings(folds=1), "folds"), (FitSettings(l1_ratios=(1.0,)), "l1_ratios"),
+    (FitSettings(alpha=-0.5), "alpha"), (FitSettings(alpha_rule="smallest"), "alpha_rule"),
+    (FitSettings(penalty_ratio=2.0), "penalty_ratio"), (FitSettings(l1_ratios=(0.5, 0.5)), "l1_ratios")])
+def test_bad_settings_are_refused_and_change_nothing(bad, field):
+    s = Session.from_table_file(CSV, ROLES, SETTINGS)
+    with pytest.raises(DataError, match=f"setting '{field}'"):
+        s.set_settings(bad)
+    assert s.settings == SETTINGS and not s.can_undo
+    s.set_settings(FitSettings(folds=3, alpha=1))  # an int α is a number too
+    assert s.settings.alpha == 1
