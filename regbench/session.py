@@ -133,10 +133,10 @@ class Session:
     """
 
     def __init__(self, table: Table, roles: Roles, settings: Optional[FitSettings] = None):
-        if not isinstance(roles, Roles):
-            roles = Roles.from_dict(dict(roles))
+        roles = _roles(roles)
         self.table = table
-        self._state = _State(roles=roles, settings=settings or FitSettings(), chosen_alpha={},
+        settings = _normalized(settings or FitSettings())
+        self._state = _State(roles=roles, settings=settings, chosen_alpha={},
                              extra_fits=(), stress_configs=(), bootstrap=DEFAULT_BOOTSTRAP,
                              notes="", view_state={})
         self.design = build_design(table, roles)
@@ -278,13 +278,12 @@ class Session:
 
         Raises DataError (and changes nothing) when the roles cannot be used.
         """
-        if not isinstance(roles, Roles):
-            roles = Roles.from_dict(dict(roles))
+        roles = _roles(roles)
         build_design(self.table, roles)  # raise before anything changes
         self._edit("roles", replace(self._state, roles=roles), "roles", roles)
 
     def set_settings(self, settings: FitSettings) -> None:
-        check_settings(settings)
+        settings = _normalized(settings)
         self._edit("settings", replace(self._state, settings=settings), "settings", settings)
 
     def set_alpha(self, name: str, alpha: Optional[float]) -> None:
@@ -578,6 +577,18 @@ def _positive(x, what: str) -> float:
     if isinstance(x, bool) or not (v > 0 and math.isfinite(v)):
         raise DataError(f"{what} must be a positive number, not {x!r}")
     return v
+
+
+def _roles(roles) -> Roles:
+    """Roles with tuples and plain text, from a Roles or a dict of the same fields."""
+    d = roles.to_dict() if isinstance(roles, Roles) else dict(roles)
+    return Roles.from_dict(d)
+
+
+def _normalized(settings: FitSettings) -> FitSettings:
+    """Checked settings with plain Python types, so they hash the same before and after a save."""
+    check_settings(settings)
+    return FitSettings.from_dict(settings.to_dict())
 
 
 def _is_int(v) -> bool:

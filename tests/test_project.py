@@ -429,3 +429,13 @@ def test_committed_sample_project_matches_its_table():
     # The project's table is the CSV beside it, value for value.
     assert table_fingerprint(read_table(ROOT / "sample_projects" / "greenhouse.csv")) == s.table_hash
     assert [x.column for x in s.results.ols.set_aside] == ["mean_temp_c", "day_temp_f"]
+
+
+def test_settings_of_other_number_types_keep_the_cache(tmp_path):
+    s = Session.from_table_file(CSV, ROLES, FitSettings(folds=np.int64(3), alpha=1, n_penalties=10))
+    s.set_bootstrap(0)
+    s.compute()
+    path = tmp_path / "n.regbench"
+    save_project(s, path)
+    t = load_project(path, compute=False)
+    assert t.cache_status == "used" and t.settings == s.settings and type(t.settings.folds) is int
