@@ -1,0 +1,298 @@
+"""``regbench bench``: time regbench against the scripted statsmodels / scikit-learn route.
+
+Both routes run as whole processes (start-up and imports included, as a user
+feels them) on the same generated ``sensor_line`` table read from Parquet, with
+the same grouped folds and the same α grids:
+
+* regbench: read the table, build the design, ``fit_all`` (OLS with set-aside
+  explanations, collinearity diagnostics, ridge, lasso and elastic net over
+  the α grid with grouped K-fold CV).
+* reference: pandas reads the table, the columns are standardized once,
+  statsmodels ``OLS``, scikit-learn ``LassoCV`` and ``ElasticNetCV``
+  (``cv`` = the same (train, test) folds, ``alphas`` = the same grid, default
+  tolerance) and ``RidgeCV`` with the same folds and the ridge grid mapped to
+  scikit-learn's scale (``alpha·n``).  It does not compute diagnostics.
+
+Each worker reports its own peak resident memory (``ru_maxrss``) and its
+resident memory right after the table was loaded, so the memory the fit needs
+beyond the loaded table can be set against the table's size.
+
+The table is generated once per size under ``benchmarks/data/`` (git-ignored)
+or ``$REGBENCH_BENCH_DIR``.
+"""
+
+from __future__ import annotations
+
+import functools
+import json
+import os
+import platform
+import statistics
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+TARGET = "throughput"
+GROUPS = "batch"
+
+
+def _data_dir() -> Path:
+    env = os.environ.get("REGBENCH_BENCH_DIR")
+    if env:
+        d = Path(env)
+    else:
+        d = Path(__file__).resolve().parents[1] / "benchmarks" / "data"
+    d.mkdir(parents=True, exist_ok=True)
+    return d
+
+
+def _status_bytes(field: str) -> int:
+    """A memory figure of this process from /proc/self/status (0 where unavailable)."""
+    try:
+        with open("/proc/self/status") as f:
+            for line in f:
+                if line.startswith(field + ":"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    return 0
+
+
+def _rss_bytes() -> int:
+    """Current resident memory."""
+    return _status_bytes("VmRSS")
+
+
+def _peak_rss_bytes() -> int:
+    """Peak resident memory since start or since :func:`_reset_peak`.
+
+    Read from VmHWM rather than ``ru_maxrss``, which Linux carries over from
+    the parent process across fork and exec.
+    """
+    return _status_bytes("VmHWM")
+
+
+def _reset_peak() -> None:
+    try:
+        with open("/proc/self/clear_refs", "w") as f:
+            f.write("5")
+    except OSError:
+        pass
+
+
+def prepare(rows: int, cols: int, folds: int = 5, n_penalties: int = 100, seed: int = 0) -> dict:
+    """Write the table, its fold ids and the α grids for one size; return their paths."""
+    import numpy as np
+
+    d = _data_dir()
+    stem = f"sensor_line_{rows}x{cols}"
+    table = d / f"{stem}.parquet"
+    if not table.exists():
+        from regbench.demo import sensor_line
+
+        frame = sensor_line(rows, cols)
+        tmp = table.with_suffix(".parquet.tmp")
+        frame.to_parquet(tmp, index=False)
+        os.replace(tmp, table)
+        del frame
+    extras = d / f"{stem}_f{folds}_k{n_penalties}_s{seed}.npz"
+    if not extras.exists():
+        from regbench.data import Roles, build_design, read_table
+        from regbench.models.cv import fold_ids
+        from regbench.models.gram import gram_stats
+        from regbench.models.penalized import alpha_grid
+
+        design = build_design(read_table(table), Roles(target=TARGET, groups=GROUPS))
+        ids = fold_ids(design.n, folds, seed, design.groups, design.weights, design.groups_column)
+        G, c, _, _ = gram_stats(design.X, design.y, design.weights).standardized()
+        grids = {f"grid_{r:g}": alpha_grid(c, r, n_penalties, 1e-3) for r in (0.0, 1.0, 0.5)}
+        tmp = extras.with_name(extras.name + ".tmp.npz")
+        np.savez(tmp, fold_ids=ids, **grids)
+        os.replace(tmp, extras)
+    return {"table": str(table), "extras": str(extras), "rows": rows, "cols": cols, "folds": folds,
+            "n_penalties": n_penalties, "seed": seed}
+
+
+# --------------------------------------------------------------------------- workers
+
+def _worker_regbench(job: dict) -> dict:
+    t0 = time.perf_counter()
+    from regbench.data import Roles, build_design, read_table
+    from regbench.models.engine import fit_all
+    from regbench.models.gram import gram_stats
+    from regbench.models.results import FitSettings
+
+    # The engine imports these where used; load them now so that their memory is not
+    # counted as the fit's (their time is in the whole-process figure either way).
+    import regbench.models.diagnostics  # noqa: F401
+    import regbench.models.ols  # noqa: F401
+    import scipy.linalg  # noqa: F401
+    import scipy.stats  # noqa: F401
+    import sklearn.linear_model  # noqa: F401
+
+    t_import = time.perf_counter()
+    table = read_table(job["table"])
+    t_read = time.perf_counter()
+    design = build_design(table, Roles(target=TARGET, groups=GROUPS))
+    del table
+    t_design = time.perf_counter()
+    peak_load = _peak_rss_bytes()
+    rss_loaded = _rss_bytes()
+    _reset_peak()
+    marks = []
+    settings = FitSettings(folds=job["folds"], n_penalties=job["n_penalties"], seed=job["seed"])
+    results = fit_all(design, settings, progress=lambda d, t, m: marks.append((time.perf_counter(), m)))
+    t_fit = time.perf_counter()
+    peak = _peak_rss_bytes()
+    g0 = time.perf_counter()
+    gram_stats(design.X, design.y, design.weights)
+    one_pass = time.perf_counter() - g0
+    steps = {}
+    for (ta, m), (tb, _) in zip(marks, marks[1:]):
+        steps[m] = tb - ta
+    return {
+        "import": t_import - t0, "read": t_read - t_import, "design": t_design - t_read, "fit": t_fit - t_design,
+        "one_gram_pass": one_pass, "steps": steps, "rss_loaded": rss_loaded, "peak_rss": peak,
+        "process_peak": max(peak, peak_load),
+        "table_bytes": int(design.X.nbytes + design.y.nbytes), "lasso_alpha": results.penalized["lasso"].alpha,
+    }
+
+
+def _worker_reference(job: dict) -> dict:
+    import warnings
+
+    t0 = time.perf_counter()
+    import numpy as np
+    import pandas as pd
+    import statsmodels.api as sm
+    from sklearn.linear_model import ElasticNetCV, LassoCV, RidgeCV
+
+    t_import = time.perf_counter()
+    frame = pd.read_parquet(job["table"])
+    t_read = time.perf_counter()
+    cols = [c for c in frame.columns if c not in (TARGET, GROUPS)]
+    X = frame[cols].to_numpy(dtype=float)
+    y = frame[TARGET].to_numpy(dtype=float)
+    del frame
+    peak_load = _peak_rss_bytes()
+    rss_loaded = _rss_bytes()
+    _reset_peak()
+    extras = np.load(job["extras"], allow_pickle=False)
+    ids = extras["fold_ids"]
+    splits = [(np.flatnonzero(ids != k), np.flatnonzero(ids == k)) for k in range(job["folds"])]
+    t1 = time.perf_counter()
+    sm.OLS(y, sm.add_constant(X)).fit()
+    t_ols = time.perf_counter()
+    Xs = (X - X.mean(axis=0)) / X.std(axis=0)
+    n = Xs.shape[0]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        lasso = LassoCV(alphas=extras["grid_1"], cv=splits).fit(Xs, y)
+        t_lasso = time.perf_counter()
+        enet = ElasticNetCV(l1_ratio=0.5, alphas=extras["grid_0.5"], cv=splits).fit(Xs, y)
+        t_enet = time.perf_counter()
+        # RidgeCV minimises Σ(y − Xβ)² + a‖β‖², so a = n·α on the same standardized columns.
+        RidgeCV(alphas=n * extras["grid_0"], cv=splits).fit(Xs, y)
+        t_ridge = time.perf_counter()
+    return {
+        "import": t_import - t0, "read": t_read - t_import, "ols": t_ols - t1, "lasso_cv": t_lasso - t_ols,
+        "enet_cv": t_enet - t_lasso, "ridge_cv": t_ridge - t_enet, "fit": t_ridge - t1,
+        "rss_loaded": rss_loaded, "peak_rss": _peak_rss_bytes(), "process_peak": max(_peak_rss_bytes(), peak_load),
+        "table_bytes": int(X.nbytes + y.nbytes),
+        "lasso_alpha": float(lasso.alpha_), "enet_alpha": float(enet.alpha_),
+    }
+
+
+WORKERS = {"regbench": _worker_regbench, "reference": _worker_reference}
+
+
+def _run(route: str, job: dict) -> dict:
+    """One whole process; wall time measured from outside."""
+    t = time.perf_counter()
+    proc = subprocess.run([sys.executable, "-m", "regbench.bench", route, json.dumps(job)],
+                          capture_output=True, text=True)
+    wall = time.perf_counter() - t
+    if proc.returncode != 0:
+        raise RuntimeError(f"the {route} benchmark process failed:\n{proc.stderr[-2000:]}")
+    out = json.loads(proc.stdout.strip().splitlines()[-1])
+    out["wall"] = wall
+    return out
+
+
+def _mb(b: float) -> str:
+    return f"{b / 2**20:,.0f} MB"
+
+
+def _median(runs, key):
+    return statistics.median(r[key] for r in runs)
+
+
+def main(rows: int = 100_000, cols: int = 100, quick: bool = False) -> int:
+    """Run the benchmark and print the results; returns the exit status.
+
+    Parameters
+    ----------
+    rows, cols : int
+        Size of the headline comparison.
+    quick : bool
+        A tiny run (seconds) that checks the machinery works.
+    """
+    if quick:
+        rows, cols = 2_000, 10
+        repeats, ref_repeats = 1, 1
+        scaling_rows, scaling_cols = (1_000,), ()
+    else:
+        # The reference takes minutes (RidgeCV refits every α on every fold), so it runs once.
+        repeats, ref_repeats = 3, 1
+        scaling_rows, scaling_cols = (10_000, 100_000, 1_000_000), (20, 100, 400)
+    p = functools.partial(print, flush=True)
+    p(f"regbench bench — {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}, "
+      f"{time.strftime('%Y-%m-%d %H:%M', time.gmtime())} UTC")
+    p(f"Table: sensor_line({rows:,} rows, {cols} sensors), grouped {5}-fold CV by batch, 100 α per family.")
+    p("Whole-process wall times (start-up and imports included); medians.")
+    job = prepare(rows, cols)
+    ours = [_run("regbench", job) for _ in range(repeats)]
+    ref = [_run("reference", job) for _ in range(ref_repeats)]
+    t_ours, t_ref = _median(ours, "wall"), _median(ref, "wall")
+    p("")
+    p(f"  regbench   {t_ours:8.2f} s  (median of {repeats}; import {_median(ours, 'import'):.2f} s, "
+      f"read {_median(ours, 'read'):.2f} s, design {_median(ours, 'design'):.2f} s, fit {_median(ours, 'fit'):.2f} s)")
+    steps = ours[len(ours) // 2]["steps"]
+    p("             fit steps: " + ", ".join(f"{k} {v:.2f} s" for k, v in steps.items()))
+    p(f"  reference  {t_ref:8.2f} s  (median of {ref_repeats}; import {_median(ref, 'import'):.2f} s, "
+      f"read {_median(ref, 'read'):.2f} s, OLS {_median(ref, 'ols'):.2f} s, LassoCV {_median(ref, 'lasso_cv'):.2f} s, "
+      f"ElasticNetCV {_median(ref, 'enet_cv'):.2f} s, RidgeCV {_median(ref, 'ridge_cv'):.2f} s)")
+    p(f"  regbench is {t_ref / t_ours:.1f}× faster as a whole process "
+      f"({_median(ref, 'fit') / _median(ours, 'fit'):.1f}× on the fitting alone).")
+    table_bytes = ours[0]["table_bytes"]
+    extra_ours = _median(ours, "peak_rss") - _median(ours, "rss_loaded")
+    extra_ref = _median(ref, "peak_rss") - _median(ref, "rss_loaded")
+    p(f"  peak memory of the fit beyond the loaded table: regbench {_mb(extra_ours)} ({extra_ours / table_bytes:.2f}× "
+      f"the {_mb(table_bytes)} table), reference {_mb(extra_ref)} ({extra_ref / table_bytes:.2f}×)")
+    p(f"  whole-process peak RSS (reading included): regbench {_mb(_median(ours, 'process_peak'))}, "
+      f"reference {_mb(_median(ref, 'process_peak'))}")
+    p(f"  fit time / one Gram pass: {_median(ours, 'fit') / _median(ours, 'one_gram_pass'):.1f} "
+      f"(one pass {_median(ours, 'one_gram_pass') * 1000:.0f} ms)")
+    p(f"  chosen lasso α: regbench {ours[0]['lasso_alpha']:.4g}, reference {ref[0]['lasso_alpha']:.4g}")
+    p("")
+    p("Scaling (regbench only, one run each): rows × columns, whole process and fit")
+    for r, c in [(r, cols) for r in scaling_rows] + [(rows, c) for c in scaling_cols if c != cols]:
+        j = prepare(r, c)
+        o = _run("regbench", j)
+        p(f"  {r:>9,} × {c:<4} wall {o['wall']:7.2f} s   fit {o['fit']:6.2f} s   one Gram pass "
+          f"{o['one_gram_pass']:6.3f} s   beyond table {(o['peak_rss'] - o['rss_loaded']) / o['table_bytes']:.2f}×")
+    p("")
+    p("The cores are shared with other work on this machine; repeat for firm numbers.")
+    return 0
+
+
+def _worker_main(argv) -> int:
+    route, job = argv[0], json.loads(argv[1])
+    out = WORKERS[route](job)
+    sys.stdout.write(json.dumps(out) + "\n")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(_worker_main(sys.argv[1:]))
