@@ -96,17 +96,18 @@ def prepare(rows: int, cols: int, folds: int = 5, n_penalties: int = 100, seed: 
         frame.to_parquet(tmp, index=False)
         os.replace(tmp, table)
         del frame
-    extras = d / f"{stem}_f{folds}_k{n_penalties}_s{seed}.npz"
+    extras = d / f"{stem}_f{folds}_k{n_penalties}_s{seed}_g2.npz"
     if not extras.exists():
         from regbench.data import Roles, build_design, read_table
         from regbench.models.cv import fold_ids
         from regbench.models.gram import gram_stats
-        from regbench.models.penalized import alpha_grid
+        from regbench.models.penalized import Problem, alpha_grid
 
         design = build_design(read_table(table), Roles(target=TARGET, groups=GROUPS))
         ids = fold_ids(design.n, folds, seed, design.groups, design.weights, design.groups_column)
-        G, c, _, _ = gram_stats(design.X, design.y, design.weights).standardized()
-        grids = {f"grid_{r:g}": alpha_grid(c, r, n_penalties, 1e-3) for r in (0.0, 1.0, 0.5)}
+        problem = Problem.from_stats(gram_stats(design.X, design.y, design.weights))
+        grids = {f"grid_{r:g}": alpha_grid(problem.c, r, n_penalties, 1e-3, evals=problem.evals)
+                 for r in (0.0, 1.0, 0.5)}
         tmp = extras.with_name(extras.name + ".tmp.npz")
         np.savez(tmp, fold_ids=ids, **grids)
         os.replace(tmp, extras)

@@ -196,3 +196,24 @@ def test_diabetes_path_ends_at_the_ols_fit():
     # Source: numpy least squares with an intercept on the same columns.
     ols = np.linalg.lstsq(np.column_stack([np.ones(len(y)), X]), y, rcond=None)[0]
     np.testing.assert_allclose(coef, ols[1:], rtol=1e-5, atol=1e-3)
+
+
+def test_ridge_grid_reaches_the_least_squares_end():
+    # A long table needs little shrinkage; the ridge path must reach α well below the
+    # smallest eigenvalue of G so CV is not forced to its last grid point.
+    X, y, w = _data(n=20_000, p=6, seed=9)
+    problem = Problem.from_stats(gram_stats(X, y, w))
+    grid = alpha_grid(problem.c, 0.0, 100, 1e-3, evals=problem.evals)
+    assert grid[0] == pytest.approx(np.max(np.abs(problem.c)) / 1e-3)
+    assert grid[-1] <= 1e-2 * problem.evals.min() * (1 + 1e-12)
+    beta = ridge_beta(problem, grid[-1:])[0]
+    ols = np.linalg.lstsq(np.column_stack([np.ones(len(y)), X]) * np.sqrt(w)[:, None], y * np.sqrt(w), rcond=None)[0]
+    ols_std = ols[1:] * problem.sd
+    # Mathematical fact: ridge shrinks each eigen-direction of G by λᵢ/(λᵢ+α) ≥ 0.99 here, so the
+    # standardized coefficients are within 1% (in norm) of weighted least squares (numpy lstsq on
+    # √w-scaled rows).
+    assert np.linalg.norm(beta - ols_std) <= 1e-2 * np.linalg.norm(ols_std)
+    assert np.linalg.norm(beta - ols_std) > 0
+    # Lasso and elastic net grids ignore the eigenvalues.
+    np.testing.assert_array_equal(alpha_grid(problem.c, 0.5, 10, 1e-3, evals=problem.evals),
+                                  alpha_grid(problem.c, 0.5, 10, 1e-3))

@@ -117,7 +117,7 @@ def _training(full: GramStats, fold: GramStats, k: int) -> GramStats:
 
 
 def _family(design, settings, problem, train, folds, name, rho, grouped, cancel) -> PenalizedFit:
-    grid = alpha_grid(problem.c, rho, int(settings.n_penalties), float(settings.penalty_ratio))
+    grid = alpha_grid(problem.c, rho, int(settings.n_penalties), float(settings.penalty_ratio), evals=problem.evals)
     path = fit_path(None, name, rho, grid, design.columns, problem=problem)
     errors = np.empty((len(folds), grid.size))
     for k, (tp, f) in enumerate(zip(train, folds)):

@@ -27,7 +27,9 @@ every coefficient at 0 for ρ > 0 (the KKT condition ``|c_j| ≤ αρ`` at β = 
 Ridge never zeroes a coefficient, so it uses the same top as an elastic net
 with ρ = 1e-3, a convention that puts the ridge path's start at strong
 shrinkage.  ``n_penalties`` values are spaced evenly on the log scale down to
-``penalty_ratio · α_max``; one grid per family is shared by every CV fold.
+``penalty_ratio · α_max``; the ridge path goes on down to 1/100 of the
+smallest non-null eigenvalue of G when that is lower (see :func:`alpha_grid`).
+One grid per family, from the whole design, is shared by every CV fold.
 """
 
 from __future__ import annotations
@@ -84,13 +86,30 @@ def alpha_max(c: np.ndarray, l1_ratio: float) -> float:
     return top / max(l1_ratio, MIN_GRID_RATIO)
 
 
-def alpha_grid(c: np.ndarray, l1_ratio: float, n_penalties: int = 100, penalty_ratio: float = 1e-3) -> np.ndarray:
-    """``n_penalties`` α values, descending, log-spaced from ``alpha_max`` to ``penalty_ratio·alpha_max``."""
+def alpha_grid(c: np.ndarray, l1_ratio: float, n_penalties: int = 100, penalty_ratio: float = 1e-3,
+               evals=None) -> np.ndarray:
+    """``n_penalties`` α values, descending, evenly spaced on the log scale.
+
+    Lasso and elastic net: from ``alpha_max`` down to ``penalty_ratio·alpha_max``.
+    Ridge (``l1_ratio == 0``): from the same top (the ρ = 1e-3 convention) down
+    to ``penalty_ratio·top`` or, when the eigenvalues ``evals`` of G are given
+    and it is lower, to 1/100 of the smallest non-null eigenvalue, so that the
+    path always reaches the point where every direction of the data keeps at
+    least 99% of its least-squares size (ridge shrinks direction i by
+    λᵢ/(λᵢ+α)); the span is capped at 12 decades.  Without this the ridge
+    path of a long table stops at strong shrinkage and CV picks its last α.
+    """
     top = alpha_max(c, l1_ratio)
     if not top > 0:
         # y is uncorrelated with every column: any positive grid gives β = 0.
         top = 1.0
-    return np.geomspace(top, top * penalty_ratio, n_penalties)
+    bottom = top * penalty_ratio
+    if l1_ratio == 0.0 and evals is not None:
+        lam = np.asarray(evals, dtype=float)
+        lam = lam[lam > EIG_RTOL * max(float(lam.max(initial=0.0)), np.finfo(float).tiny)]
+        if lam.size:
+            bottom = max(min(bottom, 1e-2 * float(lam.min())), top * 1e-12)
+    return np.geomspace(top, bottom, n_penalties)
 
 
 def ridge_beta(problem: Problem, alphas) -> np.ndarray:
