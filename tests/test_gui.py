@@ -46,6 +46,7 @@ def make_window(qtbot):
     from regbench.gui.window import MainWindow
 
     w = MainWindow(autosave=False)
+    w.ask_unsaved = lambda: "discard"   # pytest-qt closes windows at teardown; never block on the prompt
     qtbot.addWidget(w)
     w.resize(1400, 900)
     w.show()
@@ -314,6 +315,7 @@ def test_recovery_copy_is_offered_and_removed(gh, qtbot, monkeypatch):
     path = recovery_path()
     assert os.path.exists(path)
     w = MainWindow(autosave=False)
+    w.ask_unsaved = lambda: "discard"
     qtbot.addWidget(w)
     monkeypatch.setattr(QtWidgets.QMessageBox, "question", lambda *a, **k: QtWidgets.QMessageBox.Open)
     assert w.offer_recovery()

@@ -88,7 +88,7 @@ class MainWindow(QtWidgets.QMainWindow):
     def _build_central(self):
         self.nav = QtWidgets.QListWidget()
         self.nav.setObjectName("nav")
-        self.nav.setFixedWidth(195)
+        self.nav.setFixedWidth(200)
         self.stack = QtWidgets.QStackedWidget()
         self.panels = []
         for cls in _panel_classes():
@@ -237,6 +237,8 @@ class MainWindow(QtWidgets.QMainWindow):
         self.refresh_all(now=True)
         self._update_title()
         self._update_actions()
+        where = os.path.basename(path) if path else (session.table.source or "the table")
+        self.set_status(f"Opened {where}: {session.design.n:,} rows in the fit.", sticky=False)
         self.session_changed.emit()
         if path:
             self._add_recent(path)
@@ -323,6 +325,7 @@ class MainWindow(QtWidgets.QMainWindow):
                 self.refit()
                 return
             self.refresh_all(now=True)
+            self.set_status("Fit done.")
             self.results_applied.emit()
 
         self.runner.start(work, label="Fitting", slot="fit", done=done,
@@ -577,8 +580,10 @@ class MainWindow(QtWidgets.QMainWindow):
         self.set_status(msg)
         self.job_failed.emit(msg)
 
-    def set_status(self, text: str) -> None:
+    def set_status(self, text: str, sticky: bool = True) -> None:
+        """Show ``text``; a sticky message (an outcome) stays when the job ends."""
         self.status_label.setText(text)
+        self._sticky = sticky
 
     def ask_unsaved(self) -> str:
         """'save', 'discard' or 'cancel'."""
@@ -610,21 +615,21 @@ class MainWindow(QtWidgets.QMainWindow):
         self.progress_bar.setRange(0, 0)
         self.progress_bar.setVisible(True)
         self.cancel_btn.setVisible(True)
-        self.set_status(f"{job.label}…")
+        self.set_status(f"{job.label}…", sticky=False)
 
     def _job_progress(self, done, total, message):
         if total > 0:
             self.progress_bar.setRange(0, total)
             self.progress_bar.setValue(min(done, total))
         if message:
-            self.set_status(message)
+            self.set_status(message, sticky=False)
 
     def _job_stopped(self, job):
         if not self.runner.busy():
             self.progress_bar.setVisible(False)
             self.cancel_btn.setVisible(False)
-            if self.status_label.text().endswith("…") or not self.errors:
-                self.set_status("Ready.")
+            if not getattr(self, "_sticky", False):
+                self.set_status("Ready.", sticky=False)
 
     # == Qt events ===================================================================
     def dragEnterEvent(self, event):

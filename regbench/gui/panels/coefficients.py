@@ -17,7 +17,7 @@ Qt = QtCore.Qt
 class CoefficientsPanel(Panel):
     key = "coefficients"
     title = "How the fits differ: coefficients side by side"
-    nav = "How fits differ · weights"
+    nav = "Fits differ · weights"
 
     def build(self, body):
         lay = QtWidgets.QVBoxLayout(body)
@@ -36,7 +36,9 @@ class CoefficientsPanel(Panel):
         self.plot.showGrid(x=True, y=False, alpha=0.25)
         self.plot.setLabel("bottom", "standardized coefficient")
         split.addWidget(self.plot)
-        split.setSizes([760, 440])
+        split.setStretchFactor(0, 3)
+        split.setStretchFactor(1, 2)
+        self.plot.getAxis("bottom").enableAutoSIPrefix(False)
         lay.addWidget(split, 1)
 
     def plots(self):

@@ -17,7 +17,7 @@ LEGEND_MAX = 14
 class PathsPanel(Panel):
     key = "paths"
     title = "How the fits differ: the penalty paths"
-    nav = "How fits differ · paths"
+    nav = "Fits differ · paths"
 
     def build(self, body):
         lay = QtWidgets.QVBoxLayout(body)
@@ -41,8 +41,10 @@ class PathsPanel(Panel):
         self.cv_plot.export_name = "cross-validation curve"
         self.cv_plot.showGrid(x=True, y=True, alpha=0.25)
         self.cv_plot.setLabel("bottom", "log10 α")
-        self.cv_plot.setLabel("left", "held-out mean squared error")
+        self.cv_plot.setLabel("left", "held-out MSE")
         self.cv_plot.setXLink(self.path_plot)
+        for plot in (self.path_plot, self.cv_plot):
+            plot.getAxis("left").enableAutoSIPrefix(False)
         self.readout = QtWidgets.QLabel(" ")
         self.readout.setStyleSheet(f"color: {PALETTE['muted']};")
         split = QtWidgets.QSplitter(Qt.Vertical)

@@ -77,9 +77,9 @@ class StabilityPanel(Panel):
 
     def table_fields(self, st):
         p = len(st.columns)
-        out = [("Set aside by OLS", [float(v) for v in st.set_aside_freq])]
+        out = [("Set aside (OLS)", [float(v) for v in st.set_aside_freq])]
         for m in self.selecting(st):
-            out.append((f"Selected: {model_label(m)}", [float(v) for v in st.selected_freq[m]]))
+            out.append((f"Kept: {model_label(m)}", [float(v) for v in st.selected_freq[m]]))
         for m in st.models:
             if m in st.coef_q05:
                 lo, hi = st.coef_q05[m], st.coef_q95[m]
@@ -88,10 +88,10 @@ class StabilityPanel(Panel):
 
     def _draw(self, st, cols):
         self.plot.clear()
-        legend = self.plot.getPlotItem().legend or self.plot.addLegend(offset=(-6, 6), labelTextSize="8pt")
+        legend = self.plot.getPlotItem().legend or self.plot.addLegend(offset=(6, 2), labelTextSize="8pt")
         legend.clear()
-        series = [("Set aside by OLS", PALETTE["warn"], np.asarray(st.set_aside_freq, float))]
-        series += [(f"Selected: {model_label(m)}", model_colour(m), np.asarray(st.selected_freq[m], float))
+        series = [("Set aside (OLS)", PALETTE["warn"], np.asarray(st.set_aside_freq, float))]
+        series += [(f"Kept: {model_label(m)}", model_colour(m), np.asarray(st.selected_freq[m], float))
                    for m in self.selecting(st)]
         p = len(cols)
         k_n = len(series)
@@ -102,6 +102,5 @@ class StabilityPanel(Panel):
             self.plot.addItem(bar)
             legend.addItem(bar, label)
         self.plot.getAxis("left").setTicks([[(p - 1 - i, c) for i, c in enumerate(cols)]])
-        self.plot.setXRange(0, 1.55, padding=0.0)  # room on the right for the legend
-        self.plot.getAxis("bottom").setTicks([[(v, f"{v:g}") for v in (0, 0.25, 0.5, 0.75, 1.0)]])
-        self.plot.setYRange(-0.6, p - 0.4, padding=0)
+        self.plot.setXRange(0, 1.0, padding=0.03)
+        self.plot.setYRange(-0.6, p + 2.6, padding=0)  # headroom for the legend

@@ -78,8 +78,10 @@ class StressPanel(Panel):
         self.plot.export_name = "stress sweep"
         self.plot.showGrid(x=True, y=True, alpha=0.25)
         self.plot.setLabel("left", "RMS shift of predictions")
+        self.plot.getAxis("left").enableAutoSIPrefix(False)
         split.addWidget(self.plot)
-        split.setSizes([640, 560])
+        split.setStretchFactor(0, 1)
+        split.setStretchFactor(1, 1)
         lay.addWidget(split, 1)
         self.result = None
         self.sweep = None
@@ -209,6 +211,8 @@ class StressPanel(Panel):
         for sw in session.stress_sweeps():
             if sw.column == res.config.column and sw.kind == res.config.kind:
                 sweep = sw
+        self.column.setCurrentText(res.config.column)
+        self.kind.setCurrentIndex(max(0, self.kind.findData(res.config.kind)))
         self._show(res, sweep)
 
     def _show(self, res, sweep):
