@@ -80,4 +80,6 @@ def hbox(*widgets, stretch_last=False):
 def caption(text: str) -> QtWidgets.QLabel:
     lab = QtWidgets.QLabel(text)
     lab.setStyleSheet("color: #66707a; font-weight: 600;")
+    if len(text) > 24:  # long captions wrap instead of widening the window
+        lab.setWordWrap(True)
     return lab
