@@ -177,6 +177,11 @@ def test_dragging_alpha_moves_the_coefficient_table(gh):
     assert after != before
     # Lasso at α at or above the largest path α keeps no column (KKT: max |xᵀr|/W <= α).
     assert all(v == 0.0 for v in after)
+    # The hover read-out names the column whose path passes under the cursor, with its value.
+    i = len(fit.path.alphas) - 1
+    j = int(np.argmax(np.abs(fit.path.coef_std[i])))
+    text = paths.describe_point(np.log10(fit.path.alphas[i]), fit.path.coef_std[i, j])
+    assert f"{fit.path.columns[j]} = {fit.path.coef_std[i, j]:.4g}" in text
     gh.show_panel("paths")
     paths.reset_btn.click()
     assert s.models()["lasso"].alpha == pytest.approx(fit.alpha, rel=1e-12)
@@ -245,6 +250,27 @@ def test_save_and_reopen_equal(gh, qtbot, tmp_path):
     gh.show_panel("coefficients")
     assert model_to_tsv(gh.panel("coefficients").model) == table_before
     assert gh.path == path and not gh.dirty
+    assert gh.recent_files()[0] == os.path.abspath(path)
+    assert [a.toolTip() for a in gh.recent_menu.actions()][0] == os.path.abspath(path)
+
+
+def test_export_report_writes_html(gh, tmp_path):
+    out = str(tmp_path / "report.html")
+    assert gh.export_report(out)
+    with open(out, encoding="utf-8") as f:
+        html = f.read()
+    assert html.lstrip().lower().startswith("<!doctype html") and "</html>" in html.lower()
+    assert "mean_temp_c" in html   # the set-aside column is explained in the report too
+
+
+def test_shortcuts_switch_panels_and_refit(gh):
+    view_menu = gh.view_menu
+    keys = [a.shortcut().toString() for a in view_menu.actions() if not a.shortcut().isEmpty()]
+    assert keys[:7] == [f"Ctrl+{i}" for i in range(1, 8)]
+    view_menu.actions()[4].trigger()
+    assert gh.current_panel().key == gh.panels[4].key
+    assert gh.act_refit.shortcut().toString() == "Ctrl+R"
+    assert gh.act_undo.shortcut() == QtGui.QKeySequence(QtGui.QKeySequence.StandardKey.Undo)
 
 
 def test_export_plot_png_and_svg(gh, tmp_path):

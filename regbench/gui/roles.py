@@ -135,7 +135,7 @@ class RolesPanel(QtWidgets.QWidget):
             if info.kind == NUMERIC:
                 item.setCheckState(self.C_CODES, Qt.Checked if name in roles.categorical else Qt.Unchecked)
                 if info.coded_categories:
-                    item.setText(self.C_CODES, "possibly")
+                    item.setText(self.C_CODES, "maybe")
                     item.setToolTip(self.C_CODES, f"whole numbers with only {info.distinct} distinct values: "
                                                   "perhaps category codes; tick to treat them as categories")
             if info.missing:

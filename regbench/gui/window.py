@@ -118,7 +118,7 @@ class MainWindow(QtWidgets.QMainWindow):
         self.roles_dock.setObjectName("roles")
         self.roles_dock.setWidget(self.roles_panel)
         self.roles_dock.setFeatures(QtWidgets.QDockWidget.DockWidgetMovable | QtWidgets.QDockWidget.DockWidgetClosable)
-        self.roles_dock.setMinimumWidth(340)
+        self.roles_dock.setMinimumWidth(355)
         self.addDockWidget(Qt.RightDockWidgetArea, self.roles_dock)
 
     def _build_status(self):
@@ -144,7 +144,7 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def _build_menus(self):
         mb = self.menuBar()
-        f = mb.addMenu("&File")
+        f = self.file_menu = mb.addMenu("&File")
         K = QtGui.QKeySequence
         self.act_new = self._action(f, "New from table…", self.new_from_table_dialog, K.StandardKey.New)
         self.act_open = self._action(f, "Open…", self.open_dialog, K.StandardKey.Open)
@@ -158,17 +158,17 @@ class MainWindow(QtWidgets.QMainWindow):
         self.act_plot = self._action(f, "Export plot (PNG/SVG)…", self.export_plot_dialog)
         f.addSeparator()
         self._action(f, "Quit", self.close, K.StandardKey.Quit)
-        e = mb.addMenu("&Edit")
+        e = self.edit_menu = mb.addMenu("&Edit")
         self.act_undo = self._action(e, "Undo", self.undo, K.StandardKey.Undo)
         self.act_copy = self._action(e, "Copy table", self.copy_table, K.StandardKey.Copy)
         e.addSeparator()
         self.act_refit = self._action(e, "Refit", lambda: self.refit(force=True), "Ctrl+R")
-        v = mb.addMenu("&View")
+        v = self.view_menu = mb.addMenu("&View")
         for i, panel in enumerate(self.panels):
             self._action(v, panel.nav, lambda checked=False, i=i: self.show_panel(i), f"Ctrl+{i + 1}")
         v.addSeparator()
         v.addAction(self.roles_dock.toggleViewAction())
-        h = mb.addMenu("&Help")
+        h = self.help_menu = mb.addMenu("&Help")
         self._action(h, "Words and cautions", lambda: self.nav.setCurrentRow(len(self.panels)), K.StandardKey.HelpContents)
 
     # == panels ======================================================================
