@@ -233,6 +233,10 @@ def test_save_and_reopen_equal(gh, qtbot, tmp_path):
     from regbench.gui.tables import model_to_tsv
 
     gh.set_alpha("ridge", 0.5)
+    gh.panel("data").notes.setPlainText("Checked with the growers on Tuesday.")
+    gh.show_panel("paths")
+    paths = gh.panel("paths")
+    paths.family.setCurrentIndex(paths.family.findData("elastic_net"))
     gh.show_panel("coefficients")
     table_before = model_to_tsv(gh.panel("coefficients").model)
     s = gh.session
@@ -247,6 +251,12 @@ def test_save_and_reopen_equal(gh, qtbot, tmp_path):
     assert r.roles == s.roles and r.settings == s.settings
     assert r.chosen_alpha == s.chosen_alpha == {"ridge": 0.5}
     assert list(r.stress_configs) == list(s.stress_configs)
+    assert r.notes == "Checked with the growers on Tuesday."
+    assert gh.panel("data").notes.toPlainText() == r.notes
+    # The window reopens on the panel and choices it was saved with.
+    assert gh.current_panel().key == "coefficients"
+    gh.show_panel("paths")
+    assert gh.panel("paths").family.currentData() == "elastic_net"
     gh.show_panel("coefficients")
     assert model_to_tsv(gh.panel("coefficients").model) == table_before
     assert gh.path == path and not gh.dirty

@@ -199,7 +199,7 @@ class MainWindow(QtWidgets.QMainWindow):
             return
         try:
             panel.refresh(self.session)
-        except RegbenchError as exc:
+        except Exception as exc:  # a panel must never take the window down with it
             self.show_error(f"Cannot show {panel.nav}", exc)
 
     def refresh_all(self, now: bool = False) -> None:
@@ -395,6 +395,7 @@ class MainWindow(QtWidgets.QMainWindow):
         if not path.lower().endswith(PROJECT_EXT):
             path += PROJECT_EXT
         try:
+            self.panel("data").keep_notes()
             self._store_view_state()
             save_project(self.session, path)
         except RegbenchError as exc:

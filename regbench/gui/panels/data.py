@@ -29,13 +29,19 @@ class DataPanel(Panel):
         self.summary_model = GridModel()
         self.summary_view = make_view(self.summary_model)
         l1.addWidget(self.summary_view)
-        box2 = QtWidgets.QWidget()
-        l2 = QtWidgets.QVBoxLayout(box2)
-        l2.setContentsMargins(0, 4, 0, 0)
-        l2.addWidget(caption("Rows left out of the fit"))
+        box2 = QtWidgets.QTabWidget()
         self.excluded_model = GridModel()
         self.excluded_view = make_view(self.excluded_model)
-        l2.addWidget(self.excluded_view)
+        box2.addTab(self.excluded_view, "Rows left out of the fit")
+        self.notes = QtWidgets.QPlainTextEdit()
+        self.notes.setPlaceholderText("Notes kept with the project (what the table is, what was asked, what you decided)")
+        self.notes.textChanged.connect(lambda: self._notes_timer.start())
+        self._notes_timer = QtCore.QTimer(self)
+        self._notes_timer.setSingleShot(True)
+        self._notes_timer.setInterval(600)
+        self._notes_timer.timeout.connect(self.keep_notes)
+        box2.addTab(self.notes, "Notes")
+        self.tabs = box2
         lower.addWidget(box1)
         lower.addWidget(box2)
         lower.setSizes([620, 380])
@@ -46,7 +52,18 @@ class DataPanel(Panel):
     def views(self):
         return [self.frame_view, self.summary_view, self.excluded_view]
 
+    def keep_notes(self):
+        """Send the notes to the session (typing is gathered into one undo step)."""
+        s = self.session
+        text = self.notes.toPlainText()
+        if s is not None and text != s.notes:
+            s.set_notes(text)
+
     def refresh(self, session):
+        if self.notes.toPlainText() != session.notes and not self.notes.hasFocus():
+            self.notes.blockSignals(True)
+            self.notes.setPlainText(session.notes)
+            self.notes.blockSignals(False)
         table = session.table
         if self.frame_model.rowCount() != table.n_rows or getattr(self, "_frame_id", None) != id(table.frame):
             self.frame_model.set_frame(table.frame)

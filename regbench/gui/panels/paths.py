@@ -71,6 +71,18 @@ class PathsPanel(Panel):
     def view_state(self):
         return {"family": self.family.currentData(), "scale": self.scale.currentData()}
 
+    def restore_view_state(self, state):
+        i = self.scale.findData(state.get("scale"))
+        if i >= 0:
+            self.scale.blockSignals(True)
+            self.scale.setCurrentIndex(i)
+            self.scale.blockSignals(False)
+        if state.get("family"):
+            self.family.blockSignals(True)
+            self.family.clear()
+            self.family.addItem(model_label(state["family"]), state["family"])
+            self.family.blockSignals(False)
+
     # -- filling ---------------------------------------------------------------------
     def refresh(self, session):
         results = session.results
