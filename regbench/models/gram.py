@@ -14,7 +14,8 @@ sums of a column with a large mean (a temperature in kelvin, a year) are
 dominated by ``W·mean²`` and the centred Gram, obtained by cancelling that
 term, would lose as many digits as ``mean²/variance`` has.  With the shift the
 remaining cancellation is only that of the fold's own mean offset, which is
-small.
+small.  The full-data means cost one matrix-vector product over the rows
+before the pass; it is cheap beside the pass's XᵀWX products.
 """
 
 from __future__ import annotations
