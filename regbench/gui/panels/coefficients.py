@@ -36,8 +36,7 @@ class CoefficientsPanel(Panel):
         self.plot.showGrid(x=True, y=False, alpha=0.25)
         self.plot.setLabel("bottom", "standardized coefficient")
         split.addWidget(self.plot)
-        split.setStretchFactor(0, 3)
-        split.setStretchFactor(1, 2)
+        split.setSizes([640, 360])
         self.plot.getAxis("bottom").enableAutoSIPrefix(False)
         lay.addWidget(split, 1)
 

@@ -80,8 +80,7 @@ class StressPanel(Panel):
         self.plot.setLabel("left", "RMS shift of predictions")
         self.plot.getAxis("left").enableAutoSIPrefix(False)
         split.addWidget(self.plot)
-        split.setStretchFactor(0, 1)
-        split.setStretchFactor(1, 1)
+        split.setSizes([560, 440])
         lay.addWidget(split, 1)
         self.result = None
         self.sweep = None
