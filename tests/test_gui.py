@@ -142,6 +142,33 @@ def test_sample_fills_every_panel_with_sentences(gh):
     assert data.excluded_model.rowCount() == len(s.design.excluded) == s.table.n_rows - s.design.n
 
 
+def test_open_a_table_then_set_roles_in_the_side_panel(qtbot):
+    w = make_window(qtbot)
+    with qtbot.waitSignal(w.results_applied, timeout=FIT_TIMEOUT_MS):
+        w.open_path(SAMPLE_CSV)
+    wait_idle(qtbot, w)
+    s = w.session
+    # Defaults: the last numeric column is the target; a text column with a level per bed is left out.
+    assert s.roles.target == "yield_kg_m2"
+    assert "bed" not in s.roles.predictors and "glasshouse" in s.roles.predictors
+    rp = w.roles_panel
+    rp.weights.setCurrentText("plants_per_bed")
+    rp.groups.setCurrentText("glasshouse")
+    rp.set_codes("week", True)
+    rp.boot.setValue(0)
+    with qtbot.waitSignal(w.results_applied, timeout=FIT_TIMEOUT_MS):
+        rp.apply_btn.click()
+    wait_idle(qtbot, w)
+    s = w.session
+    assert s.roles.weights == "plants_per_bed" and s.roles.groups == "glasshouse"
+    assert "week" in s.roles.categorical
+    # week 1..6 coded against its first level gives five indicator columns (design.py's coding).
+    assert [c for c in s.design.columns if c.startswith("week=")] == [f"week={k}" for k in range(2, 7)]
+    assert s.design.groups is not None and len(s.design.group_labels) == 8
+    assert s.results is not None and s.results.fold_ids.shape == (s.design.n,)
+    close_quietly(w)
+
+
 def test_roles_change_refits_and_undo_restores(gh, qtbot):
     roles = gh.roles_panel
     roles.set_predictor("day_temp_f", False)
@@ -444,7 +471,12 @@ def test_snapshot_writes_non_blank_pngs(tmp_path):
     s.compute()
     project = str(tmp_path / "gh.regbench")
     save_project(s, project)
-    paths = snapshot(project, str(tmp_path / "shots"))
+    from regbench import cli
+
+    out = tmp_path / "shots"
+    assert cli.main(["snapshot", project, "--out", str(out)]) == 0
+    paths = sorted(str(p) for p in out.glob("*.png"))
+    assert paths == sorted(snapshot(project, str(out)))
     names = [os.path.basename(p) for p in paths]
     assert len(paths) == 8 and "00_roles.png" in names and "02_overlaps.png" in names
     for p in paths:

@@ -50,6 +50,8 @@ def snapshot(project_path, out_dir, size=SIZE) -> list:
     paths.append(path)
     window.dirty = False
     window.close()
+    window.deleteLater()
+    _settle(app, 1)
     return paths
 
 
