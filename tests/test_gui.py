@@ -324,6 +324,11 @@ def test_export_plot_png_and_svg(gh, tmp_path):
     root = ET.parse(svg).getroot()
     assert root.tag.endswith("svg")
     assert sum(1 for _ in root.iter()) > 20
+    gh.show_panel("overlaps")   # the correlation map is a layout of items, not a single plot
+    assert gh.export_plot(str(tmp_path / "corr.png")) and gh.export_plot(str(tmp_path / "corr.svg"))
+    assert QtGui.QImage(str(tmp_path / "corr.png")).width() > 100
+    assert ET.parse(str(tmp_path / "corr.svg")).getroot().tag.endswith("svg")
+    gh.show_panel("paths")
     assert not gh.export_plot(str(tmp_path / "paths.bmp"))  # an unknown type is refused with a message
     assert "png or .svg" in gh.errors[-1]
 
