@@ -168,3 +168,17 @@ def test_opens_in_headless_chromium(session, tmp_path):
         assert heading in dom.replace("&amp;", "&")
     assert dom.count("<svg") >= 2
     assert "<script>" not in dom
+
+
+def test_plain_session_without_weights_groups_or_stress_renders(tmp_path):
+    s = Session.from_table_file(CSV, Roles(target="yield_kg_m2", predictors=("day_temp_c", "co2_ppm", "variety")),
+                                FitSettings(folds=3, n_penalties=15))
+    s.set_bootstrap(0)
+    s.compute()
+    html = report_html(s)
+    p = parsed(html)
+    assert p.h2 == [h for _, h in SECTIONS]
+    text = "".join(p.text)
+    assert "No stress test was set up." in text and "No stability check was run" in text
+    assert "Held-out error by" not in text
+    assert "Row weights" in text and "none (every row counts once)" in text
