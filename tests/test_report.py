@@ -182,3 +182,25 @@ def test_plain_session_without_weights_groups_or_stress_renders(tmp_path):
     assert "No stress test was set up." in text and "No stability check was run" in text
     assert "Held-out error by" not in text
     assert "Row weights" in text and "none (every row counts once)" in text
+
+
+def test_reproduce_command_refits_the_same_models(session, tmp_path, monkeypatch):
+    import shlex
+
+    from regbench.cli import main
+    from regbench.project import load_project
+    from regbench.report.html import _command
+
+    args = shlex.split(_command(session))
+    assert args[:3] == ["regbench", "new", "greenhouse.csv"]
+    monkeypatch.chdir(CSV.parent)
+    out = tmp_path / "again.regbench"
+    args[-1] = str(out)
+    args[args.index("--bootstrap") + 1] = "0"
+    assert main(args[1:]) == 0
+    again = load_project(out, compute=False)
+    assert again.settings == session.settings and again.roles == session.roles
+    import numpy as np
+
+    for name, pf in session.results.penalized.items():
+        np.testing.assert_array_equal(again.results.penalized[name].model.coef, pf.model.coef)

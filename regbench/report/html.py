@@ -410,11 +410,36 @@ def _reproduce(session) -> str:
             ("Bootstrap refits", str(session.bootstrap)),
             ("Table content SHA-256", session.table_hash),
             ("Project file", session.path or "(not saved)")]
-    parts = ["<p>Penalized models minimise (1/(2W))·Σ wᵢ(yᵢ − b₀ − xᵢβ)² + α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²) on "
+    parts = [f"<p>To fit the same models again from the table:</p><pre class=\"notes\">{e(_command(session))}</pre>",
+             "<p>Penalized models minimise (1/(2W))·Σ wᵢ(yᵢ − b₀ − xᵢβ)² + α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²) on "
              "weighted-standardized columns (W = Σ wᵢ); ρ = 0 is ridge, ρ = 1 lasso. Coefficients are shown in "
              "the table's units unless marked standardized.</p>",
              table(["Setting", "Value"], rows), "<h3>Software</h3>", table(["Package", "Version"], _versions())]
     return "".join(parts)
+
+
+def _command(session) -> str:
+    """The ``regbench new`` command line that refits this session from its table."""
+    import shlex
+
+    r, s = session.roles, session.settings
+    args = ["regbench", "new", session.table.source or "TABLE", "--target", r.target]
+    if r.predictors:
+        args += ["--predictors", ",".join(r.predictors)]
+    if r.categorical:
+        args += ["--categorical", ",".join(r.categorical)]
+    if r.weights:
+        args += ["--weights", r.weights]
+    if r.groups:
+        args += ["--groups", r.groups]
+    args += ["--folds", str(s.folds), "--seed", str(s.seed), "--penalties", str(s.n_penalties),
+             "--l1-ratio", ",".join(f"{x:g}" for x in s.l1_ratios), "--alpha-rule", s.alpha_rule]
+    if s.alpha is not None:
+        args += ["--alpha", repr(float(s.alpha))]
+    if s.pins:
+        args += ["--pin", ",".join(s.pins)]
+    args += ["--bootstrap", str(session.bootstrap), "-o", "project.regbench"]
+    return " ".join(shlex.quote(a) for a in args)
 
 
 def _cautions(session) -> str:
