@@ -4,7 +4,13 @@ Plain Python, no Qt.  Every change goes through a small set of methods that
 record an undo step and tell observers what changed, so a Qt view can listen
 (``subscribe``) without the core knowing about Qt.  Long work is split so a GUI
 worker thread can run the pure part (:meth:`Session.compute_results`) and the
-GUI thread installs the outcome (:meth:`Session.apply_results`).
+GUI thread installs the outcome (:meth:`Session.apply_results`)::
+
+    computed = session.compute_results(progress, cancel)   # worker thread
+    session.apply_results(computed)                         # GUI thread; False if stale
+
+A project opened with ``load_project(path, compute=False)`` comes back without
+results when its cache did not match; compute them the same way.
 """
 
 from __future__ import annotations
@@ -32,12 +38,9 @@ DEFAULT_BOOTSTRAP = 200
 
 def penalized_names(settings: FitSettings) -> tuple:
     """Names of the penalized families ``fit_all`` produces for ``settings``."""
-    names = ["ridge", "lasso"]
-    ratios = tuple(settings.l1_ratios) or (0.5,)
-    names.append("elastic_net")
-    for r in ratios[1:]:
-        names.append(f"elastic_net_{r:g}")
-    return tuple(names)
+    from regbench.models.engine import families
+
+    return tuple(name for name, _ in families(settings))
 
 
 def table_fingerprint(table: Table) -> str:
