@@ -16,13 +16,17 @@
   single source), the few other kept columns that explain it, found by greedy
   forward selection until their R² is within 0.01 of what all other kept
   columns reach (at most 4 columns).
+
+Everything works on the OLS result's triangular factor of the weighted rows
+(:attr:`OLSResult.r_factor`), so the diagnostics make no pass over the rows;
+a result without it (saved before it existed) gets it from one blocked pass.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from regbench.models.ols import format_number, r_factor
+from regbench.models.ols import format_number, weighted_factor
 from regbench.models.results import Diagnostics, NearDependency
 
 INTERCEPT = "(intercept)"
@@ -53,28 +57,22 @@ def diagnose(design, ols_result) -> Diagnostics:
 
     kept = tuple(ols_result.kept)
     idx = [design.columns.index(c) for c in kept]
-    w_all = np.asarray(design.weights, dtype=np.float64)
-    pos = w_all > 0
-    w = w_all[pos]
-    X = np.asarray(design.X, dtype=np.float64)[pos][:, idx]
-    W = w.sum()
     k = len(kept)
     terms = (INTERCEPT,) + kept
+    p = len(design.columns)
 
-    # One QR of [sqrt(w), sqrt(w)·(x - m)]: the centered columns are orthogonal to the
-    # intercept column, so R gives the centered coordinates (VIF) accurately, and adding
-    # m_j times the intercept column back gives the uncentered ones (condition indices)
-    # without cancellation.
-    mean = (w @ X) / W if k else np.zeros(0)
-    Zc = np.empty((max(X.shape[0], k + 1), k + 1), order="F")
-    Zc[X.shape[0]:] = 0.0
-    Zc[: X.shape[0], 0] = np.sqrt(w)
-    np.subtract(X, mean, out=Zc[: X.shape[0], 1:])
-    Zc[: X.shape[0], 1:] *= np.sqrt(w)[:, None]
-    Rc = r_factor(Zc)
-    del Zc
+    # The factor of sqrt(w/W)·[1, x, y] with the columns centered before the QR: its
+    # centered block gives the centered coordinates (VIF) accurately, and its first row
+    # (the means times the unit-length intercept column) gives the uncentered ones
+    # (condition indices) without cancellation.
+    F = getattr(ols_result, "r_factor", None)
+    if F is None or np.shape(F) != (p + 2, p + 2):
+        F = weighted_factor(design).R
+    F = np.asarray(F, dtype=np.float64)
+    mean = F[0, 1:p + 1][idx]
+    Rc = F[1:p + 1, 1:p + 1][:, idx]  # centered kept columns, p rows
     if k:
-        cen = Rc[:, 1:] / np.linalg.norm(Rc[:, 1:], axis=0)  # centered columns at unit length
+        cen = Rc / np.linalg.norm(Rc, axis=0)  # centered columns at unit length
         R = linalg.qr(cen, mode="r", check_finite=False)[0][:k]
         Rinv = linalg.solve_triangular(R, np.eye(k), check_finite=False)
         vif = np.sum(Rinv * Rinv, axis=1)
@@ -83,10 +81,12 @@ def diagnose(design, ols_result) -> Diagnostics:
         vif = np.zeros(0)
 
     # Condition indices and variance-decomposition proportions (uncentered, with intercept).
-    Rz = Rc.copy()
-    Rz[:, 1:] += Rc[:, :1] * mean
+    Rz = np.zeros((p + 1, k + 1))
+    Rz[0, 0] = 1.0
+    Rz[0, 1:] = mean
+    Rz[1:, 1:] = Rc
     Rz /= np.linalg.norm(Rz, axis=0)
-    _, s, Vt = np.linalg.svd(Rz)
+    _, s, Vt = np.linalg.svd(Rz, full_matrices=False)
     with np.errstate(divide="ignore"):
         cond = s[0] / s
         phi = (Vt.T / s) ** 2  # phi[j, d]: term j, dimension d

@@ -36,6 +36,17 @@ scaled columns (same lengths and angles as the columns themselves).  In the rare
 that walk keeps a different number of columns than the pivoted QR's rank, the
 choice falls back to pivoted QR on the pinned block first and then on the
 rest with the pinned part removed.
+
+Work on the rows
+----------------
+The rows are visited in blocks of a few thousand (:func:`block_rows`): one
+pass for the weighted means, one for the triangular factor (a tall-skinny QR:
+the factor so far stacked on the next block, refactored by LAPACK ``geqrf`` —
+the same factor as one Householder QR of all rows, up to the signs of its
+rows), and short matrix-vector passes for the refinement and the left-over of
+each set-aside column.  No single library call then holds the interpreter for
+long (a GUI stays responsive while a worker thread fits), and everything else
+runs on the (p+2)×(p+2) factor, which the result keeps for the diagnostics.
 """
 
 from __future__ import annotations
@@ -53,6 +64,9 @@ ROUNDOFF_FACTOR = 100.0
 #: A term of a set-aside combination whose standardized weight is below this share of the
 #: largest is round-off, provided dropping it does not leave more over (checked).
 NEGLIGIBLE_TERM = 1e-6
+#: Budget of one QR step over a block of rows, in rows × columns²: about 10-20 ms of
+#: one core here, so a block never holds the interpreter long.
+BLOCK_WORK = 2 ** 26
 
 
 def default_rank_tol(n: int, p: int) -> float:
@@ -60,7 +74,18 @@ def default_rank_tol(n: int, p: int) -> float:
     return ROUNDOFF_FACTOR * max(int(n), int(p), 1) * EPS
 
 
-def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) -> OLSResult:
+def block_rows(p: int) -> int:
+    """Rows per block of the pass over the rows for ``p`` columns.
+
+    At least twice the factor's own rows, so stacking the factor on each block
+    adds at most half to the work; otherwise ``BLOCK_WORK / (p + 2)²``.
+    """
+    q = int(p) + 2
+    return int(max(2 * q, 256, BLOCK_WORK // (q * q)))
+
+
+def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None, *,
+            chunk_rows: Optional[int] = None) -> OLSResult:
     """Weighted least squares with intercept, setting aside columns the others reproduce.
 
     Parameters
@@ -74,6 +99,9 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
         aside when the columns kept before it reproduce it up to ``rank_tol``
         times its weighted RMS.  Default ``100 * max(n, p) * eps`` with n the
         rows of weight above 0: round-off only.
+    chunk_rows : int, optional
+        Rows per block of the pass over the rows; default :func:`block_rows`.
+        The result does not depend on it beyond round-off.
 
     Returns
     -------
@@ -94,11 +122,8 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
     from scipy import linalg, stats
 
     columns = tuple(design.columns)
-    X_all = np.asarray(design.X, dtype=np.float64)
-    y_all = np.asarray(design.y, dtype=np.float64)
-    w_all = np.asarray(design.weights, dtype=np.float64)
-    p = X_all.shape[1]
-    _check_inputs(design, X_all, y_all, w_all)
+    p = len(columns)
+    fac = weighted_factor(design, chunk_rows)
     pins = tuple(dict.fromkeys(pins))
     for c in pins:
         if c not in columns:
@@ -106,35 +131,19 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
                 f"pinned column '{c}' is not a design column; design columns are: {', '.join(columns)}"
             )
     pin_idx = [columns.index(c) for c in pins]
-
-    pos = w_all > 0
-    X, y, w = X_all[pos], y_all[pos], w_all[pos]
-    n = X.shape[0]
-    W = w.sum()
+    rows, n, W = fac.rows, fac.n, fac.W
+    mean, ybar, sd = fac.mean, fac.ybar, fac.sd
     tol = default_rank_tol(n, p) if rank_tol is None else float(rank_tol)
     if not (np.isfinite(tol) and tol >= 0):
         raise ModelError(f"rank tolerance must be a number >= 0, got {rank_tol!r}")
     roundoff = default_rank_tol(n, p)
-
-    mean = (w @ X) / W
-    sqw = np.sqrt(w / W)
-    ybar = (w @ y) / W
-    # One Householder QR of [a | z] (z the scaled, centered target); its R holds the
-    # coordinates of every scaled column and of z in one orthonormal basis, so everything
-    # after it works on (p+1)×(p+1) numbers.  Zero rows pad a design with fewer rows than p+1.
-    M = np.zeros((max(n, p + 1), p + 1), order="F")
-    np.subtract(X, mean, out=M[:n, :p])
-    M[:n, :p] *= sqw[:, None]
-    sd = np.sqrt(np.einsum("ij,ij->j", M[:n, :p], M[:n, :p]))
     scale = np.where(sd > 0, sd, 1.0)
     # Typical size of each column (weighted RMS about zero): the scale of its round-off.
     size = np.sqrt(sd * sd + mean * mean)
     size = np.where(size > 0, size, 1.0)
-    M[:n, :p] /= size
-    M[:, :p][:, sd == 0] = 0.0
-    M[:n, p] = sqw * (y - ybar)
-    Raug = r_factor(M)
-    del M
+    # The factor of the centered columns and target, ``sqrt(w/W)·[x - m, y - ybar]``.
+    Raug = fac.R[1:, 1:].copy()
+    Raug[:, :p] /= size
     # ``Cr``: coordinates of the columns at unit RMS (rank decisions); ``C``: at unit SD (solving).
     Cr = Raug[:p, :p]
     qz = Raug[:p, p]
@@ -161,12 +170,11 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
         b = linalg.solve_triangular(Rk, Qk.T @ qz, check_finite=False)
         beta_k = b / scale[kept]
         icpt = ybar - mean[kept] @ beta_k
-        Xk = X[:, kept]
         for _ in range(2):
-            e = y - icpt - Xk @ beta_k
-            ebar = (w @ e) / W
-            v = (w / W) * (e - ebar)
-            g = (v @ Xk - mean[kept] * v.sum()) / scale[kept]
+            e = rows.residuals(_full(p, kept, beta_k), icpt)
+            ebar = (rows.w @ e) / W
+            v = (rows.w / W) * (e - ebar)
+            g = (rows.vecmat(v)[kept] - mean[kept] * v.sum()) / scale[kept]
             db = linalg.solve_triangular(
                 Rk, linalg.solve_triangular(Rk, g, trans="T", check_finite=False), check_finite=False)
             beta_k = beta_k + db / scale[kept]
@@ -175,9 +183,9 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
         beta_k = np.zeros(0)
         icpt = ybar
 
-    resid = y - icpt - (Xk @ beta_k if k else 0.0)
-    ssr = float(w @ (resid * resid))
-    tss = float(w @ ((y - ybar) ** 2))
+    resid = rows.residuals(_full(p, kept, beta_k), icpt)
+    ssr = float(rows.w @ (resid * resid))
+    tss = float(rows.w @ ((rows.y - ybar) ** 2))
     df = n - k - 1
     r2 = 1.0 - ssr / tss if tss > 0 else float("nan")
     adj = 1.0 - (n - 1) / df * (1.0 - r2) if df > 0 else float("nan")
@@ -209,9 +217,7 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
     for arr in (pval, ci_low, ci_high):
         arr[aside] = np.nan
 
-    set_aside = tuple(
-        _explain(j, kept, C, columns, X, w, W, mean, sd, scale, size, roundoff, tol) for j in aside
-    )
+    set_aside = _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, roundoff, tol)
     model = LinearModel(
         name="ols", columns=columns, intercept=float(icpt), coef=coef.copy(),
         coef_std=coef * sd,
@@ -236,7 +242,138 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None) 
         rank=int(k),
         rank_tol=float(tol),
         model=model,
+        r_factor=fac.R,
     )
+
+
+def _full(p, idx, values) -> np.ndarray:
+    out = np.zeros(p)
+    out[idx] = values
+    return out
+
+
+class _Rows:
+    """The rows of weight above 0, visited block by block (no copy of the whole design)."""
+
+    def __init__(self, X, y, w, pos, chunk):
+        self.X = X
+        self.pos = pos
+        self.all_pos = bool(pos.all())
+        self.y = y if self.all_pos else y[pos]
+        self.w = w if self.all_pos else w[pos]
+        self.n = int(self.w.shape[0])
+        self.chunk = max(int(chunk), 1)
+
+    def blocks(self):
+        """``(start, stop, X block)`` over the kept rows; start/stop index ``self.y``, ``self.w``."""
+        N = self.X.shape[0]
+        done = 0
+        for a in range(0, N, self.chunk):
+            block = self.X[a:a + self.chunk]
+            if not self.all_pos:
+                block = block[self.pos[a:a + self.chunk]]
+            m = block.shape[0]
+            if m:
+                yield done, done + m, block
+            done += m
+
+    def products(self, B) -> np.ndarray:
+        """``X @ B`` over the kept rows, block by block."""
+        out = np.empty((self.n,) + B.shape[1:])
+        for a, b, block in self.blocks():
+            out[a:b] = block @ B
+        return out
+
+    def residuals(self, beta, icpt) -> np.ndarray:
+        return self.y - icpt - self.products(beta)
+
+    def weighted_ss(self, B, c) -> np.ndarray:
+        """``sum_i w_i (x_i @ B - c)²`` per column of ``B``, block by block."""
+        acc = np.zeros(B.shape[1])
+        for a, b, block in self.blocks():
+            left = block @ B - c
+            acc += self.w[a:b] @ (left * left)
+        return acc
+
+    def vecmat(self, v) -> np.ndarray:
+        """``v @ X`` over the kept rows, block by block."""
+        acc = np.zeros(self.X.shape[1])
+        for a, b, block in self.blocks():
+            acc += v[a:b] @ block
+        return acc
+
+
+class _Factor:
+    __slots__ = ("rows", "n", "W", "mean", "ybar", "sd", "R")
+
+    def __init__(self, **kw):
+        for k, v in kw.items():
+            setattr(self, k, v)
+
+
+def weighted_factor(design, chunk_rows: Optional[int] = None) -> _Factor:
+    """Check the design and factor its weighted rows in one blocked pass (after the means).
+
+    Returns an object with the kept rows (``rows``), ``n`` (rows of weight above 0),
+    ``W``, the weighted ``mean`` of each column, ``ybar``, the weighted SD ``sd`` and ``R``:
+    the (p+2)×(p+2) triangular factor of ``sqrt(w/W)·[1, x, y]`` (see
+    :attr:`OLSResult.r_factor`).  The columns are centered before the QR (the centered
+    part is the factor's lower block; the means go in its first row), which keeps the
+    accuracy of a QR of centered columns.
+    """
+    X_all = np.asarray(design.X, dtype=np.float64)
+    y_all = np.asarray(design.y, dtype=np.float64)
+    w_all = np.asarray(design.weights, dtype=np.float64)
+    p = X_all.shape[1]
+    _check_inputs(design, X_all, y_all, w_all)
+    pos = w_all > 0
+    rows = _Rows(X_all, y_all, w_all, pos, block_rows(p) if chunk_rows is None else chunk_rows)
+    w, y, n = rows.w, rows.y, rows.n
+    W = w.sum()
+
+    # Pass 1: finiteness (first bad row, in row order) and the weighted column sums.
+    kept_rows = np.flatnonzero(pos) if not rows.all_pos else None
+    total = np.zeros(p)
+    for a, b, block in rows.blocks():
+        finite = np.isfinite(block)
+        if not finite.all():
+            r, c = np.argwhere(~finite)[0]
+            i = a + int(r)
+            i = int(kept_rows[i]) if kept_rows is not None else i
+            raise ModelError(
+                f"row {int(design.row_numbers[i])}: column '{design.columns[c]}' is not a finite number"
+            )
+        total += w[a:b] @ block
+    mean = total / W
+    ybar = (w @ y) / W
+    sqw = np.sqrt(w / W)
+
+    # Pass 2: tall-skinny QR of [x - m, y - ybar] rows scaled by sqrt(w/W): the factor so
+    # far sits on top of each new block, so each LAPACK call is short.  Zero rows pad a
+    # design with fewer rows than p+1.
+    q = p + 1
+    ss = np.zeros(p)
+    Rc = np.zeros((q, q))
+    buf = None
+    for a, b, block in rows.blocks():
+        m = b - a
+        if buf is None or buf.shape[0] != q + m:
+            buf = np.empty((q + m, q), order="F")
+        buf[:q] = Rc
+        Z = buf[q:]
+        np.subtract(block, mean, out=Z[:, :p])
+        Z[:, :p] *= sqw[a:b, None]
+        Z[:, p] = sqw[a:b] * (y[a:b] - ybar)
+        ss += np.einsum("ij,ij->j", Z[:, :p], Z[:, :p])
+        Rc = r_factor(buf)
+    sd = np.sqrt(ss)
+    Rc[:, :p][:, sd == 0] = 0.0
+    R = np.zeros((q + 1, q + 1))
+    R[0, 0] = 1.0
+    R[0, 1:p + 1] = mean
+    R[0, p + 1] = ybar
+    R[1:, 1:] = Rc
+    return _Factor(rows=rows, n=n, W=W, mean=mean, ybar=ybar, sd=sd, R=R)
 
 
 def r_factor(M: np.ndarray) -> np.ndarray:
@@ -270,13 +407,7 @@ def _check_inputs(design, X, y, w) -> None:
     if not np.all(np.isfinite(y[pos])):
         i = int(np.flatnonzero(pos & ~np.isfinite(y))[0])
         raise ModelError(f"row {int(design.row_numbers[i])}: target '{design.target}' is not a finite number")
-    finite = np.isfinite(X[pos])
-    if not finite.all():
-        r, c = np.argwhere(~finite)[0]
-        i = int(np.flatnonzero(pos)[r])
-        raise ModelError(
-            f"row {int(design.row_numbers[i])}: column '{design.columns[c]}' is not a finite number"
-        )
+    # The predictors are checked block by block in the pass over the rows.
 
 
 def _residual_length(v: np.ndarray, basis: list) -> np.ndarray:
@@ -355,51 +486,78 @@ def _check_pins(C, pin_idx, columns, tol, sd) -> None:
         kept.append(j)
 
 
-def _explain(j, kept, C, columns, X, w, W, mean, sd, scale, size, roundoff, tol) -> SetAside:
-    """The combination of kept columns (and intercept) that reproduces column ``j``.
+def _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, roundoff, tol) -> tuple:
+    """A :class:`SetAside` for each column of ``aside``: the combination of kept columns
+    (and intercept) that reproduces it.
 
     A column whose spread is itself within the tolerance of its size is explained by the
     intercept alone (almost constant), not by whatever kept columns happen to correlate.
+    The combinations come from the coordinates ``C``; what each leaves over is measured on
+    the rows in original units, every candidate in one blocked pass.
     """
-    name = columns[j]
-    if sd[j] <= tol * size[j] or not kept:
-        value = float(mean[j])
-        left = X[:, j] - value
-        res = float(np.sqrt((w @ (left * left)) / W))
-        rel = res / sd[j] if sd[j] > 0 else 0.0
-        return SetAside(column=name, combination={}, intercept=value, residual=res,
-                        alternatives=(), relative_residual=float(rel),
-                        exact=bool(res <= roundoff * size[j]))
+    p = len(columns)
+    plans, cols, icpts = [], [], []
 
-    def solve(support):
-        cs, *_ = np.linalg.lstsq(C[:, support], C[:, j], rcond=None)
-        coef = cs * scale[j] / scale[support]
-        icpt = float(mean[j] - mean[support] @ coef)
-        left = X[:, j] - icpt - X[:, support] @ coef
-        res = float(np.sqrt((w @ (left * left)) / W))
-        return cs, coef, icpt, res
+    def candidate(j, support, coef, icpt):
+        # Column j minus the combination, as one column of X @ B - c.
+        b = np.zeros(p)
+        b[j] = 1.0
+        b[support] -= coef
+        cols.append(b)
+        icpts.append(icpt)
+        return len(cols) - 1
 
-    cs, coef, icpt, res = solve(kept)
-    big = np.abs(cs) > NEGLIGIBLE_TERM * np.abs(cs).max()
-    support = [kept[i] for i in np.flatnonzero(big)]
-    if len(support) < len(kept):
-        cs2, coef2, icpt2, res2 = solve(support)
-        if res2 - res <= max(1e-3 * res, roundoff * size[j]):
-            coef, icpt, res = coef2, icpt2, res2
-        else:
-            support = list(kept)
-    else:
-        support = list(kept)
-    rel = res / sd[j]
-    return SetAside(
-        column=name,
-        combination={columns[s]: float(c) for s, c in zip(support, coef)},
-        intercept=icpt,
-        residual=res,
-        alternatives=tuple(columns[s] for s in support),
-        relative_residual=float(rel),
-        exact=bool(res <= roundoff * size[j]),
-    )
+    for j in aside:
+        if sd[j] <= tol * size[j] or not kept:
+            value = float(mean[j])
+            plans.append((j, "constant", value, candidate(j, [], np.zeros(0), value)))
+            continue
+        cs, *_ = np.linalg.lstsq(C[:, kept], C[:, j], rcond=None)
+        coef = cs * scale[j] / scale[kept]
+        icpt = float(mean[j] - mean[kept] @ coef)
+        first = (list(kept), coef, icpt, candidate(j, list(kept), coef, icpt))
+        big = np.abs(cs) > NEGLIGIBLE_TERM * np.abs(cs).max()
+        support = [kept[i] for i in np.flatnonzero(big)]
+        second = None
+        if len(support) < len(kept):
+            cs2, *_ = np.linalg.lstsq(C[:, support], C[:, j], rcond=None)
+            coef2 = cs2 * scale[j] / scale[support]
+            icpt2 = float(mean[j] - mean[support] @ coef2)
+            second = (support, coef2, icpt2, candidate(j, support, coef2, icpt2))
+        plans.append((j, "combination", first, second))
+    if not plans:
+        return ()
+    ss = rows.weighted_ss(np.column_stack(cols), np.asarray(icpts))
+    res_of = np.sqrt(ss / W)
+
+    out = []
+    for j, kind, a, b in plans:
+        name = columns[j]
+        if kind == "constant":
+            res = float(res_of[b])
+            rel = res / sd[j] if sd[j] > 0 else 0.0
+            out.append(SetAside(column=name, combination={}, intercept=a, residual=res,
+                                alternatives=(), relative_residual=float(rel),
+                                exact=bool(res <= roundoff * size[j])))
+            continue
+        support, coef, icpt, at = a
+        res = float(res_of[at])
+        if b is not None:
+            support2, coef2, icpt2, at2 = b
+            res2 = float(res_of[at2])
+            if res2 - res <= max(1e-3 * res, roundoff * size[j]):
+                support, coef, icpt, res = support2, coef2, icpt2, res2
+        rel = res / sd[j]
+        out.append(SetAside(
+            column=name,
+            combination={columns[s]: float(c) for s, c in zip(support, coef)},
+            intercept=icpt,
+            residual=res,
+            alternatives=tuple(columns[s] for s in support),
+            relative_residual=float(rel),
+            exact=bool(res <= roundoff * size[j]),
+        ))
+    return tuple(out)
 
 
 # --- plain-language sentences -------------------------------------------------------------

@@ -204,6 +204,11 @@ class OLSResult:
     rank: int
     rank_tol: float
     model: LinearModel
+    #: (p+2)×(p+2) upper-triangular factor R of the weighted rows ``sqrt(w/W)·[1, x, y]``
+    #: (columns: intercept, ``columns`` in order, target; so ``R'R`` is the weighted
+    #: cross-product matrix / W, ``R[0, 1:]`` the weighted means).  The diagnostics use it
+    #: instead of a second pass over the rows; None on results saved before it existed.
+    r_factor: Optional[np.ndarray] = None
 
 
 @dataclass(frozen=True)
