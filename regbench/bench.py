@@ -216,10 +216,16 @@ def _run(route: str, job: dict) -> dict:
                           capture_output=True, text=True)
     wall = time.perf_counter() - t
     if proc.returncode != 0:
-        raise RuntimeError(f"the {route} benchmark process failed:\n{proc.stderr[-2000:]}")
+        last = (proc.stderr.strip().splitlines() or ["no message"])[-1]
+        raise BenchFailed(f"the {route} process on {Path(job['table']).name} failed ({last}); "
+                          f"run `python -m regbench.bench {route} '{json.dumps(job)}'` to see it in full")
     out = json.loads(proc.stdout.strip().splitlines()[-1])
     out["wall"] = wall
     return out
+
+
+class BenchFailed(Exception):
+    """A benchmark worker process failed."""
 
 
 def _mb(b: float) -> str:
@@ -240,6 +246,14 @@ def main(rows: int = 100_000, cols: int = 100, quick: bool = False) -> int:
     quick : bool
         A tiny run (seconds) that checks the machinery works.
     """
+    try:
+        return _main(rows, cols, quick)
+    except BenchFailed as exc:
+        sys.stderr.write(f"regbench bench: {exc}\n")
+        return 1
+
+
+def _main(rows: int, cols: int, quick: bool) -> int:
     if quick:
         rows, cols = 2_000, 10
         repeats, ref_repeats = 1, 1
