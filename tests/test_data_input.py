@@ -236,3 +236,39 @@ def test_empty_target_column(tmp_path):
     t = read_table(write(tmp_path, "et.csv", "y,x\n,1\n,2\n"))
     with pytest.raises(DataError, match=r"et\.csv: target 'y' is empty, not numeric; choose a numeric target \(numeric columns: x\)"):
         build_design(t, Roles(target="y"))
+
+
+def test_fast_and_careful_csv_readers_agree(tmp_path, monkeypatch):
+    """pandas' C parser route must type every cell exactly as the csv-module route does."""
+    import regbench.data.reader as reader
+
+    text = (
+        "y,x,flag,kind,note,code\n"
+        '1.5,2,yes,a,"quoted, text",1\n'
+        "2.5, 3 ,no,b,,2\n"
+        "\n"
+        "3.5,n/a,yes,a,plain,1\n"
+        "4.5,oops,no,c,x,2\n"
+        "5.5,−7,no,a,y,1\n"
+        "6.5,1e3,yes,b,z,2\n"
+    )
+    p = write(tmp_path, "mix.csv", text)
+    fast = read_table(p)
+    monkeypatch.setattr(reader, "_read_text_fast", lambda *a: None)
+    careful = read_table(p)
+    assert fast.names == careful.names
+    assert fast.columns == careful.columns
+    pd.testing.assert_frame_equal(fast.frame, careful.frame)
+    assert fast.columns["x"].bad_cells == ((4, "oops"),)
+    assert fast.frame["x"].tolist()[:2] == [2.0, 3.0] and fast.frame["x"].iat[4] == -7.0
+
+
+def test_fast_reader_parses_numbers_bit_for_bit_like_python(tmp_path):
+    """Numbers read by pandas' C parser equal Python's float() of the same text (correct rounding)."""
+    rng = np.random.default_rng(3)
+    vals = rng.normal(0, 1, 5000) * 10.0 ** rng.integers(-300, 300, 5000)
+    texts = [repr(float(v)) for v in vals] + [f"{v:.17g}" for v in vals[:500]] + ["0.1", "1e-5", "-0", "7"]
+    p = write(tmp_path, "num.csv", "x,y\n" + "".join(f"{t},{i}\n" for i, t in enumerate(texts)))
+    got = read_table(p).frame["x"].to_numpy()
+    want = np.array([float(t) for t in texts])
+    assert np.array_equal(got.view(np.int64), want.view(np.int64))
