@@ -373,3 +373,108 @@ def test_almost_constant_pin_is_refused_by_name():
     assert sa.column == "level" and not sa.exact
     assert fit_ols(d).set_aside == ()  # default tolerance: it carries real information
     assert sa.combination == {} and "almost constant" in set_aside_sentence(sa)
+
+
+# -- the blocked pass over the rows -----------------------------------------------------------
+
+
+def test_tiny_blocks_keep_nist_accuracy():
+    import statsmodels.api as sm
+
+    data = sm.datasets.longley.load_pandas()
+    cols = tuple(data.exog.columns)
+    design = design_from_arrays(data.exog.to_numpy(), data.endog.to_numpy(), columns=cols)
+    # Blocks of 1, 3 and 5 rows: fewer rows per block than the 6 columns (+ intercept, target).
+    for chunk in (1, 3, 5):
+        r = fit_ols(design, chunk_rows=chunk)
+        # NIST StRD Longley certified values (from memory, as in REFERENCES.md).
+        assert rel_err(r.coef, [15.0618722713733, -0.0358191792925910, -2.02022980381683,
+                                -1.03322686717359, -0.0511041056535807, 1829.15146461355]) < 1e-9
+        assert rel_err(r.std_errors, [84.9149257747669, 0.0334910077722432, 0.488399681651699,
+                                      0.214274163161675, 0.226073200069370, 455.478499142212]) < 1e-9
+        assert rel_err(r.intercept, -3482258.63459582) < 1e-9
+        assert rel_err(r.residual_sd, 304.854073561965) < 1e-9
+        assert r.kept == cols and r.rank == 6
+    # NIST Wampler1 defining formula (from memory, REFERENCES.md): y = 1 + x + ... + x^5.
+    r = fit_ols(wampler((1, 1, 1, 1, 1, 1)), chunk_rows=4)
+    assert rel_err(r.coef, np.ones(5)) < 1e-6 and r.rank == 5
+
+
+def assert_same_fit(a, b, rel=1e-12):
+    """Two OLS results agree to ``rel`` relative (round-off of a different blocking)."""
+    assert a.kept == b.kept and a.rank == b.rank and a.n_obs == b.n_obs
+    # Standardized coefficients (coef × SD) to ``rel`` of the largest: a small coefficient of
+    # an overlapping column moves more, relative to itself, with any change of round-off.
+    big = np.abs(b.model.coef_std).max()
+    np.testing.assert_allclose(a.model.coef_std, b.model.coef_std, rtol=0, atol=rel * big)
+    np.testing.assert_allclose(a.coef, b.coef, rtol=1e-10, atol=0)
+    np.testing.assert_allclose(a.std_errors, b.std_errors, rtol=rel, atol=0)
+    np.testing.assert_allclose(a.p_values, b.p_values, rtol=1e-9, atol=1e-300)
+    assert a.intercept == pytest.approx(b.intercept, rel=rel)
+    assert a.intercept_se == pytest.approx(b.intercept_se, rel=rel)
+    assert a.residual_sd == pytest.approx(b.residual_sd, rel=rel)
+    assert a.r_squared == pytest.approx(b.r_squared, rel=rel)
+    assert [s.column for s in a.set_aside] == [s.column for s in b.set_aside]
+    for sa, sb in zip(a.set_aside, b.set_aside):
+        assert sa.exact == sb.exact and tuple(sa.combination) == tuple(sb.combination)
+        assert sa.combination == pytest.approx(sb.combination, rel=1e-10)
+        assert sa.intercept == pytest.approx(sb.intercept, rel=1e-10, abs=1e-12)
+        if not sa.exact:
+            assert sa.residual == pytest.approx(sb.residual, rel=1e-9)
+    # The factor is unique up to the signs of its rows: compare R'R.
+    Fa, Fb = a.r_factor, b.r_factor
+    np.testing.assert_allclose(Fa.T @ Fa, Fb.T @ Fb, rtol=0, atol=rel * np.abs(Fb.T @ Fb).max())
+
+
+@pytest.mark.parametrize("chunk", [1, 2, 7, 33])
+def test_blocks_of_any_size_give_the_one_block_result(greenhouse, chunk):
+    # Weights, weight-0 rows with wild values (so the blocks' kept rows are uneven) and an alias.
+    d = random_design(21, n=150, alias=True)
+    w = d.weights.copy()
+    w[[0, 1, 2, 40, 41, 97, 149]] = 0.0
+    X = d.X.copy()
+    X[w == 0, 3] = np.nan  # rows of weight 0 are not used, so they may hold anything
+    d = design_from_arrays(X, d.y, weights=w)
+    for design in (d, greenhouse):
+        one = fit_ols(design, chunk_rows=design.n)
+        many = fit_ols(design, chunk_rows=chunk)
+        assert_same_fit(many, one)
+    # The single block is the previous route: compare with statsmodels WLS on the kept columns.
+    keep = w > 0
+    kept = [d.index(c) for c in fit_ols(d).kept]
+    ref = sm_wls(d.X[keep][:, kept], d.y[keep], w[keep])
+    np.testing.assert_allclose(fit_ols(d, chunk_rows=chunk).coef[kept], ref.params[1:], rtol=1e-9)
+
+
+def test_pins_and_tolerance_work_the_same_in_blocks(greenhouse):
+    pins = tuple(greenhouse.columns[-2:])
+    assert_same_fit(fit_ols(greenhouse, pins=pins, chunk_rows=5),
+                    fit_ols(greenhouse, pins=pins, chunk_rows=greenhouse.n))
+    d = near_alias()
+    assert_same_fit(fit_ols(d, rank_tol=1e-4, chunk_rows=3), fit_ols(d, rank_tol=1e-4, chunk_rows=d.n))
+
+
+def test_r_factor_is_the_factor_of_the_weighted_rows():
+    d = random_design(22, n=60, alias=True)
+    w = d.weights.copy()
+    w[::9] = 0.0
+    d = design_from_arrays(d.X, d.y, weights=w)
+    r = fit_ols(d, chunk_rows=7)
+    F = r.r_factor
+    p = d.p
+    assert F.shape == (p + 2, p + 2) and np.all(np.tril(F, -1) == 0.0)
+    # Fact: R'R is the weighted cross-product of [1, x, y] divided by W (numpy, directly).
+    Z = np.column_stack([np.ones(d.n), d.X, d.y])
+    G = (Z * (w / w.sum())[:, None]).T @ Z
+    np.testing.assert_allclose(F.T @ F, G, rtol=0, atol=1e-12 * np.abs(G).max())
+    np.testing.assert_allclose(F[0, 1:p + 1], np.average(d.X, axis=0, weights=w), rtol=1e-13)
+    assert F[0, p + 1] == pytest.approx(np.average(d.y, weights=w), rel=1e-13)
+
+
+def test_bad_value_in_a_later_block_is_named():
+    d = random_design(23)
+    X = d.X.copy()
+    X[61, 1] = np.inf
+    X[70, 0] = np.nan
+    with pytest.raises(ModelError, match=r"row 62: column 'x2'"):
+        fit_ols(design_from_arrays(X, d.y), chunk_rows=8)
