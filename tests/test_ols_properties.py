@@ -139,3 +139,28 @@ def test_near_dependencies_under_a_larger_tolerance(seed, p, log_tol, n_pins):
     B = np.column_stack([np.ones(n), X[:, kept]])
     sol, *_ = np.linalg.lstsq(B, design.y, rcond=None)
     np.testing.assert_allclose(res.model.predict(X), B @ sol, rtol=1e-6, atol=1e-8)
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    seed=st.integers(0, 2**32 - 1),
+    n_extra=st.integers(0, 40),
+    r=st.integers(1, 6),
+    d=st.integers(0, 3),
+    weighted=st.booleans(),
+    zero_rows=st.integers(0, 3),
+    chunk=st.integers(1, 20),
+)
+def test_blocked_pass_gives_the_one_block_fit(seed, n_extra, r, d, weighted, zero_rows, chunk):
+    design = build(seed, n_extra, r, d, weighted, zero_rows)
+    one = fit_ols(design, chunk_rows=design.n)
+    many = fit_ols(design, chunk_rows=chunk)
+    # Fact: the blocked QR factors the same rows, so the same columns are kept and set aside
+    # and the fit agrees to round-off (fitted values relative to their scale).
+    assert many.kept == one.kept
+    assert [sa.column for sa in many.set_aside] == [sa.column for sa in one.set_aside]
+    assert all(sa.exact for sa in many.set_aside)
+    ref = one.model.predict(design.X)
+    scale = np.max(np.abs(ref)) + np.std(design.y)
+    assert np.max(np.abs(many.model.predict(design.X) - ref)) <= 1e-10 * scale
+    assert abs(many.residual_sd - one.residual_sd) <= 1e-10 * one.residual_sd
