@@ -344,6 +344,10 @@ def test_refuses_columns_not_in_the_table(saved, tmp_path):
     write_members(p, {**members, "session.json": json.dumps(doc).encode()})
     _refused(p, "table.columns[0].kind", "date")
     doc = json.loads(members["session.json"])
+    doc["macro"] = "import os"
+    write_members(p, {**members, "session.json": json.dumps(doc).encode()})
+    _refused(p, "session.json: field macro is not part of this format")
+    doc = json.loads(members["session.json"])
     doc["settings"]["folds"] = "five"
     write_members(p, {**members, "session.json": json.dumps(doc).encode()})
     _refused(p, "settings.folds")

@@ -401,6 +401,11 @@ def _session_state(ar: _Archive, doc, table):
 
     if not isinstance(doc, dict):
         raise ProjectError(f"{label}: the top level must be an object; the file is damaged")
+    unknown = set(doc) - {"roles", "settings", "chosen_alpha", "extra_fits", "stress", "bootstrap", "notes",
+                          "view_state", "table"}
+    if unknown:
+        bad(", ".join(sorted(map(str, unknown))[:5]), "is not part of this format",
+            "the file is damaged or was written by another program")
     names = set(table.names)
     roles_d = doc.get("roles")
     if not isinstance(roles_d, dict):
