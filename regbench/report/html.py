@@ -73,6 +73,8 @@ svg .tk { font: 11px system-ui, sans-serif; fill: #444; }
 svg .al { font: 12px system-ui, sans-serif; fill: #333; }
 svg .lg { font: 11px system-ui, sans-serif; fill: #333; }
 pre.notes { white-space: pre-wrap; font: inherit; background: var(--soft); padding: 10px 12px; border-radius: 4px; }
+pre.cmd { white-space: pre-wrap; overflow-wrap: anywhere; font: 12px ui-monospace, "DejaVu Sans Mono", monospace;
+          background: var(--soft); padding: 8px 12px; border-radius: 4px; }
 .scroll { overflow-x: auto; }
 @media print {
   body { max-width: none; padding: 0; font-size: 11pt; }
@@ -410,7 +412,7 @@ def _reproduce(session) -> str:
             ("Bootstrap refits", str(session.bootstrap)),
             ("Table content SHA-256", session.table_hash),
             ("Project file", session.path or "(not saved)")]
-    parts = [f"<p>To fit the same models again from the table:</p><pre class=\"notes\">{e(_command(session))}</pre>",
+    parts = [f"<p>To fit the same models again from the table:</p><pre class=\"cmd\">{e(_command(session))}</pre>",
              "<p>Penalized models minimise (1/(2W))·Σ wᵢ(yᵢ − b₀ − xᵢβ)² + α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²) on "
              "weighted-standardized columns (W = Σ wᵢ); ρ = 0 is ridge, ρ = 1 lasso. Coefficients are shown in "
              "the table's units unless marked standardized.</p>",
