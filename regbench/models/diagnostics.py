@@ -26,7 +26,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from regbench.models.ols import format_number, weighted_factor
+from regbench.models.ols import format_number, one_blas_thread, weighted_factor
 from regbench.models.results import Diagnostics, NearDependency
 
 INTERCEPT = "(intercept)"
@@ -67,7 +67,8 @@ def diagnose(design, ols_result) -> Diagnostics:
     # (condition indices) without cancellation.
     F = getattr(ols_result, "r_factor", None)
     if F is None or np.shape(F) != (p + 2, p + 2):
-        F = weighted_factor(design).R
+        with one_blas_thread():
+            F = weighted_factor(design).R
     F = np.asarray(F, dtype=np.float64)
     mean = F[0, 1:p + 1][idx]
     Rc = F[1:p + 1, 1:p + 1][:, idx]  # centered kept columns, p rows
