@@ -53,6 +53,12 @@ def diagnose(design, ols_result) -> Diagnostics:
     -------
     Diagnostics
     """
+    # Many small BLAS calls: one thread, so they do not wait on each other on shared cores.
+    with one_blas_thread():
+        return _diagnose(design, ols_result)
+
+
+def _diagnose(design, ols_result) -> Diagnostics:
     from scipy import linalg
 
     kept = tuple(ols_result.kept)
@@ -67,8 +73,7 @@ def diagnose(design, ols_result) -> Diagnostics:
     # (condition indices) without cancellation.
     F = getattr(ols_result, "r_factor", None)
     if F is None or np.shape(F) != (p + 2, p + 2):
-        with one_blas_thread():
-            F = weighted_factor(design).R
+        F = weighted_factor(design).R
     F = np.asarray(F, dtype=np.float64)
     mean = F[0, 1:p + 1][idx]
     Rc = F[1:p + 1, 1:p + 1][:, idx]  # centered kept columns, p rows
