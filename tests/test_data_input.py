@@ -272,3 +272,15 @@ def test_fast_reader_parses_numbers_bit_for_bit_like_python(tmp_path):
     got = read_table(p).frame["x"].to_numpy()
     want = np.array([float(t) for t in texts])
     assert np.array_equal(got.view(np.int64), want.view(np.int64))
+
+
+def test_identifier_like_text_column_left_out_by_default_and_reported():
+    t = read_table("sample_projects/greenhouse.csv")
+    d = build_design(t, Roles(target="yield_kg_m2", weights="plants_per_bed", groups="glasshouse"))
+    assert not any(c.startswith("bed=") for c in d.columns)
+    assert "variety=Ledger" in d.columns and "week" in d.columns
+    (u,) = [u for u in d.unusable if u.column == "bed"]
+    assert "96 different values looks like an identifier" in u.reason
+    # Named explicitly, it is used.
+    d2 = build_design(t, Roles(target="yield_kg_m2", predictors=("bed", "co2_ppm")))
+    assert sum(c.startswith("bed=") for c in d2.columns) == 95

@@ -190,10 +190,24 @@ class Design:
         }
 
 
+#: A text column with more levels than this (and than a tenth of the rows) looks like an
+#: identifier (a bed, a batch, a person): one-hot coding it would add a column per row group.
+IDENTIFIER_LEVELS = 20
+
+
+def looks_like_identifier(table: Table, column: str) -> bool:
+    info = table.columns[column]
+    return info.kind == CATEGORICAL and info.distinct > max(IDENTIFIER_LEVELS, table.n_rows / 10)
+
+
 def default_predictors(table: Table, roles: Roles) -> tuple:
-    """Every column that is not the target, the weights or the groups, and is not empty."""
+    """Every column that is not the target, the weights or the groups, is not empty and
+    does not look like an identifier (see :func:`looks_like_identifier`)."""
     skip = {roles.target, roles.weights, roles.groups}
-    return tuple(c for c in table.names if c not in skip and table.columns[c].kind != EMPTY)
+    return tuple(
+        c for c in table.names
+        if c not in skip and table.columns[c].kind != EMPTY and not looks_like_identifier(table, c)
+    )
 
 
 def build_design(table: Table, roles: Roles) -> Design:
@@ -221,6 +235,13 @@ def build_design(table: Table, roles: Roles) -> Design:
             + (f" (numeric columns: {', '.join(numeric)})" if numeric else " (the table has no numeric column)")
         )
     predictors = roles.predictors or default_predictors(table, roles)
+    unusable = []
+    if not roles.predictors:
+        for c in table.names:
+            if c not in {roles.target, roles.weights, roles.groups} and looks_like_identifier(table, c):
+                unusable.append(UnusableColumn(
+                    c, f"text with {table.columns[c].distinct} different values looks like an identifier; "
+                       "not used by default (name it among the predictors to use it)"))
     predictors = tuple(c for c in predictors if c not in {roles.target, roles.weights, roles.groups})
     if not predictors:
         raise DataError(f"{src}: no predictor columns; choose at least one column besides the target")
@@ -267,7 +288,6 @@ def build_design(table: Table, roles: Roles) -> Design:
 
     # Predictors: numeric (or boolean) columns as they are, categoricals one-hot.
     blocks = []  # (design names, source, matrix)
-    unusable = []
     categorical_marked = set(roles.categorical)
     for col in predictors:
         info = table.columns[col]
