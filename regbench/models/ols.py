@@ -68,9 +68,9 @@ ROUNDOFF_FACTOR = 100.0
 #: A term of a set-aside combination whose standardized weight is below this share of the
 #: largest is round-off, provided dropping it does not leave more over (checked).
 NEGLIGIBLE_TERM = 1e-6
-#: Budget of one QR step over a block of rows, in rows × columns²: about 10-20 ms of
-#: one core here, so a block never holds the interpreter long.
-BLOCK_WORK = 2 ** 26
+#: Budget of one QR step over a block of rows, in rows × columns²: about 5-25 ms of
+#: one core here, so no single call on the rows runs long.
+BLOCK_WORK = 2 ** 25
 
 
 def default_rank_tol(n: int, p: int) -> float:
