@@ -217,3 +217,25 @@ def test_ridge_grid_reaches_the_least_squares_end():
     # Lasso and elastic net grids ignore the eigenvalues.
     np.testing.assert_array_equal(alpha_grid(problem.c, 0.5, 10, 1e-3, evals=problem.evals),
                                   alpha_grid(problem.c, 0.5, 10, 1e-3))
+
+
+def test_lasso_puts_an_exact_copy_on_one_column():
+    # x4 is x1 in other units (an exact alias after standardizing): any split of their weight is
+    # an optimum of the lasso; the engine keeps it on the first column.
+    X, y, w = _data(n=400, p=4, seed=10)
+    X = np.column_stack([X, 32.0 + 1.8 * X[:, 0]])
+    Xs, m, sd, W = _standardize(X, y, w)
+    problem = Problem.from_stats(gram_stats(X, y, w))
+    alphas = alpha_grid(problem.c, 1.0, 40)
+    beta = enet_beta(problem, alphas, 1.0)
+    assert np.all(beta[:, 4] == 0.0) and np.any(beta[:, 0] != 0.0)
+    for a, b in zip(alphas, beta):
+        # Mathematical fact: the KKT conditions still hold after moving the weight.
+        assert kkt_violation(problem, b, a, 1.0) <= 1e-6 * a + 1e-12
+    est = Lasso(alpha=alphas[20], tol=1e-12, max_iter=200_000).fit(Xs, y, sample_weight=w * len(y) / W)
+    # Source: scikit-learn Lasso on the standardized rows; the two copies together carry the same weight.
+    assert beta[20, 0] == pytest.approx(est.coef_[0] + est.coef_[4], rel=1e-6)
+    np.testing.assert_allclose(beta[20, 1:4], est.coef_[1:4], rtol=1e-6, atol=1e-8)
+    # Elastic net's unique solution splits evenly between the copies (mathematical fact).
+    b = enet_beta(problem, [alphas[20]], 0.5)[0]
+    assert b[0] == pytest.approx(b[4], rel=1e-8) and b[0] != 0.0

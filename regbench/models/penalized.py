@@ -178,7 +178,46 @@ def enet_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None) -> np.n
         back[order] = np.arange(order.size)
         coefs = coefs[:, back]
     out[:, problem.live] = coefs.T
+    if l1_ratio == 1.0:
+        _merge_copies(problem, out)
     return out
+
+
+#: Standardized columns whose |correlation| is within this of 1 are copies of each other.
+COPY_TOL = 1e-10
+
+
+def _merge_copies(problem: Problem, beta: np.ndarray) -> None:
+    """Put the lasso weight of columns that are exact copies (after standardizing) on the first.
+
+    For copies x̃_k = s·x̃_j the loss depends only on β_j + s·β_k, and at an optimum
+    both carry the same effective sign, so moving all of it to column j keeps the
+    objective and the optimality conditions; it only makes the choice among equally
+    good solutions deterministic: the lasso then uses one column of an exact
+    alias (the first in design order), not a share of each.  Elastic net and
+    ridge have a unique solution that splits weight evenly and are left alone.
+    """
+    live = np.flatnonzero(problem.live)
+    if live.size < 2:
+        return
+    G = problem.G[np.ix_(live, live)]
+    d = np.sqrt(np.clip(np.diag(G), 0.0, None))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        R = G / np.outer(d, d)
+    taken = np.zeros(live.size, dtype=bool)
+    for a in range(live.size):
+        if taken[a]:
+            continue
+        copies = np.flatnonzero(~taken & (np.abs(R[a]) >= 1.0 - COPY_TOL))
+        copies = copies[copies > a]
+        if copies.size == 0:
+            continue
+        taken[copies] = True
+        j = live[a]
+        for b in copies:
+            k = live[b]
+            beta[:, j] += np.sign(R[a, b]) * beta[:, k] * (d[b] / d[a])
+            beta[:, k] = 0.0
 
 
 def solve_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None) -> np.ndarray:
