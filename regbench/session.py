@@ -101,6 +101,28 @@ class ComputedResults:
 
 
 @dataclass(frozen=True)
+class AlphaUpdate:
+    """What :meth:`Session.compute_for_alpha` produced: the comparisons at one set of α choices.
+
+    ``key`` is the session key (see :meth:`Session.key`) the update was computed
+    for; :meth:`Session.apply_alpha_update` installs it only while that key holds.
+    """
+
+    key: str
+    name: Optional[str]
+    alpha: Optional[float]
+    models: dict = field(default_factory=dict)
+    heldout: dict = field(default_factory=dict)
+    agreement: object = None
+    structure: object = None
+    stress: tuple = ()
+    sweeps: tuple = ()
+
+
+_DERIVED_KEYS = ("models", "heldout", "agreement", "structure", "stress", "sweeps")
+
+
+@dataclass(frozen=True)
 class _State:
     """The editable part of a session: what undo restores and the project file keeps."""
 
@@ -458,6 +480,54 @@ class Session:
             self._state = replace(self._state, bootstrap=int(bootstrap))
             bootstrap = None
         self.apply_results(self.compute_results(progress, cancel, bootstrap=bootstrap, refit=refit))
+
+    @property
+    def derived_ready(self) -> bool:
+        """True when models, agreement, structure and stress results are at hand (no work to show them)."""
+        return self.results is not None and all(k in self._cache for k in _DERIVED_KEYS)
+
+    def compute_for_alpha(self, name: Optional[str] = None, alpha: Optional[float] = None,
+                          cancel=None) -> AlphaUpdate:
+        """Models, agreement, structure and stress results with ``name`` at ``alpha`` (safe on a worker thread).
+
+        Changes nothing.  The other families keep their chosen α, extra fits and
+        stress tests stay as they are.  ``name=None`` computes for the current
+        choices (after an edit of extra fits or stress tests); ``alpha=None``
+        means the CV choice of ``name``.
+
+        Raises
+        ------
+        DataError
+            When there are no fits yet or ``name`` is not a penalized family.
+        """
+        state, design, results, have = self._state, self.design, self.results, dict(self._cache)
+        if results is None:
+            raise DataError("there are no fits yet; fit the models before choosing an α")
+        if name is not None:
+            if name not in results.penalized:
+                raise DataError(f"'{name}' is not a penalized model of this session; "
+                                f"choose one of {', '.join(results.penalized)}")
+            chosen = dict(state.chosen_alpha)
+            if alpha is None:
+                chosen.pop(name, None)
+            else:
+                chosen[name] = _positive(alpha, f"α for {name}")
+            if chosen != state.chosen_alpha:
+                state, have = replace(state, chosen_alpha=chosen), {}
+        derived = _derive(design, results, state, cancel, have)
+        return AlphaUpdate(key=self.key(state), name=name, alpha=None if alpha is None else float(alpha), **derived)
+
+    def apply_alpha_update(self, update: AlphaUpdate) -> bool:
+        """Install what :meth:`compute_for_alpha` produced (GUI thread).
+
+        Returns False, changing nothing, when the session's α choices, extra fits,
+        stress tests or fits no longer match the ones the update was computed for.
+        """
+        if self.results is None or update.key != self.key():
+            return False
+        self._cache = {k: getattr(update, k) for k in _DERIVED_KEYS}
+        self._notify("results", None)
+        return True
 
     @property
     def stability_current(self) -> bool:

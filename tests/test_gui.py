@@ -490,3 +490,144 @@ def test_snapshot_writes_non_blank_pngs(tmp_path):
         px = np.array([img.pixel(x, y) & 0xFFFFFF for x in range(0, img.width(), 9) for y in range(0, img.height(), 9)])
         rgb = np.stack([(px >> 16) & 255, (px >> 8) & 255, px & 255], axis=1).astype(float)
         assert rgb.std() > 10, p   # not a flat image
+
+
+# -- work off the GUI thread: opening a project, dragging α, extra fits ---------------------
+
+
+def _tick_recorder():
+    gaps, last = [], [time.perf_counter()]
+
+    def tick():
+        now = time.perf_counter()
+        gaps.append(now - last[0])
+        last[0] = now
+
+    timer = QtCore.QTimer()
+    timer.setInterval(10)
+    timer.timeout.connect(tick)
+    return timer, gaps, last
+
+
+def test_opening_a_project_with_a_stale_cache_fits_on_the_worker(qtbot, tmp_path, monkeypatch):
+    import threading
+
+    import regbench.project as project
+    import regbench.session as session_mod
+    from regbench.models import engine
+    from regbench.project import save_project
+
+    s = greenhouse_session(bootstrap=20)
+    s.compute()
+    path = str(tmp_path / "gh.regbench")
+    save_project(s, path)
+    # The saved results were made with other settings (as after an engine or settings change):
+    # the project layer must call them stale and leave the fit to the caller.
+    monkeypatch.setattr(session_mod.Session, "settings_hash", lambda self: "settings of another version")
+    gui = threading.main_thread()
+    calls = {"load": [], "fit": []}
+    real_load, real_fit = project.load_project, engine.fit_all
+
+    def load(p, *a, **kw):
+        calls["load"].append((threading.current_thread() is gui, kw.get("compute", True)))
+        return real_load(p, *a, **kw)
+
+    def fit(*a, **kw):
+        calls["fit"].append(threading.current_thread() is gui)
+        return real_fit(*a, **kw)
+
+    monkeypatch.setattr(project, "load_project", load)
+    monkeypatch.setattr(engine, "fit_all", fit)
+    w = make_window(qtbot)
+    timer, gaps, last = _tick_recorder()
+    timer.start()
+    last[0] = time.perf_counter()
+    with qtbot.waitSignal(w.results_applied, timeout=FIT_TIMEOUT_MS):
+        w.open_path(path)
+    wait_idle(qtbot, w)
+    timer.stop()
+    worst = max(gaps)
+    print(f"GUI thread while opening a stale project and refitting: worst gap {worst * 1000:.0f} ms "
+          f"over {len(gaps)} ticks")
+    r = w.session
+    assert calls["load"] == [(False, False)]       # read on the worker, without fitting there
+    assert calls["fit"] and not any(calls["fit"])  # the fit ran on the worker only
+    assert r.cache_status == "stale" and r.results is not None and r.derived_ready
+    # The refit reproduces the saved fit: same table, settings and seed (determinism of the engine).
+    assert r.alphas() == pytest.approx(s.alphas(), rel=1e-9)
+    np.testing.assert_allclose(r.models()["ridge"].coef, s.models()["ridge"].coef, rtol=1e-8, atol=1e-12)
+    assert w.panel(w.current_panel().key) is w.current_panel()
+    assert worst < 1.0   # generous on shared cores; the greenhouse fit itself takes seconds
+    close_quietly(w)
+
+
+def _direct_comparisons(s, name, alpha):
+    """Models, agreement and stress results at ``alpha`` computed straight from the engine and analyses."""
+    from dataclasses import replace
+
+    from regbench.analysis.agreement import compare_models
+    from regbench.analysis.stress import run_stress
+    from regbench.models import engine
+
+    models = {}
+    for n, m in s.results.models().items():
+        a = alpha if n == name else s.chosen_alpha.get(n)
+        models[n] = engine.model_at(s.design, s.results, n, a) if a is not None and n in s.results.penalized else m
+    for e in s.extra_fits:
+        models[e["name"]] = replace(engine.model_at(s.design, s.results, e["family"], e["alpha"]), name=e["name"])
+    held = engine.heldout_predictions(s.design, s.results, models)
+    return models, compare_models(s.design, models, held), [run_stress(s.design, models, c) for c in s.stress_configs]
+
+
+def test_rapid_alpha_drags_are_computed_off_the_gui_thread_and_only_the_last_is_kept(gh, qtbot, monkeypatch):
+    import threading
+
+    import regbench.session as session_mod
+
+    s = gh.session
+    gui = threading.main_thread()
+    on_gui = []
+    real_derive = session_mod._derive
+
+    def derive(*a, **kw):
+        on_gui.append(threading.current_thread() is gui)
+        return real_derive(*a, **kw)
+
+    monkeypatch.setattr(session_mod, "_derive", derive)
+    paths = gh.panel("paths")
+    gh.show_panel("paths")
+    paths.family.setCurrentIndex(paths.family.findData("ridge"))
+    fit = s.results.penalized["ridge"]
+    undo_before = len(s._undo)
+    applied_before = gh.derived_applied
+    drags = [float(a) for a in fit.path.alphas[[5, 20, 35, 50, 65]]]
+    timer, gaps, last = _tick_recorder()
+    timer.start()
+    last[0] = time.perf_counter()
+    for a in drags:
+        paths.move_alpha(a)        # no waiting between drags
+    wait_idle(qtbot, gh)
+    timer.stop()
+    print(f"GUI thread during {len(drags)} quick α drags: worst gap {max(gaps) * 1000:.0f} ms")
+    assert on_gui and not any(on_gui)   # every comparison ran in the pool
+    assert s.chosen_alpha["ridge"] == drags[-1]
+    assert len(s._undo) == undo_before + 1   # one drag gesture on one family is one undo step
+    # Superseded requests are dropped: at most the first and the last are installed.
+    assert 1 <= gh.derived_applied - applied_before <= 2
+    monkeypatch.setattr(session_mod, "_derive", real_derive)
+    models, agreement, stress = _direct_comparisons(s, "ridge", drags[-1])
+    got = s.models()
+    assert got["ridge"].alpha == pytest.approx(drags[-1], rel=1e-12)
+    for n in models:
+        np.testing.assert_allclose(got[n].coef, models[n].coef, rtol=1e-10, atol=1e-12)
+    for p, q in zip(s.agreement().pairs, agreement.pairs):
+        assert (p.a, p.b, p.split) == (q.a, q.b, q.split)
+        assert p.rmse == pytest.approx(q.rmse, rel=1e-10, abs=1e-12)
+    for p, q in zip(s.stress_results(), stress):
+        assert p.to_dict() == q.to_dict()
+    gh.show_panel("coefficients")
+    shown = grid_column(gh.panel("coefficients").model, "Ridge")
+    np.testing.assert_allclose(shown, models["ridge"].coef, rtol=1e-12)
+    assert paths.line.value() == pytest.approx(np.log10(drags[-1]))
+    s.undo()
+    assert "ridge" not in s.chosen_alpha and s.derived_ready   # undo brings back the comparisons too

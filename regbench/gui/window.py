@@ -67,6 +67,10 @@ class MainWindow(QtWidgets.QMainWindow):
         self.errors: list = []          # every message shown, newest last
         self.last_error_box = None
         self.runner = Runner(self)
+        self._derive_job = None       # the comparisons job in flight
+        self._derive_key = None       # the session key it computes for
+        self._derive_again = False    # a newer request arrived while it ran
+        self.derived_applied = 0      # comparisons installed (tests count them)
         self._stale: set = set()
         self._refresh_pending = False
         self._build_central()
@@ -194,9 +198,14 @@ class MainWindow(QtWidgets.QMainWindow):
             self._refresh_panel(p)
 
     def _refresh_panel(self, panel) -> None:
-        self._stale.discard(panel.key)
         if self.session is None:
+            self._stale.discard(panel.key)
             return
+        if panel.uses_comparisons and self.session.results is not None and not self.session.derived_ready:
+            self._stale.add(panel.key)   # redrawn when the worker's comparisons arrive
+            self.request_derived()
+            return
+        self._stale.discard(panel.key)
         try:
             panel.refresh(self.session)
         except Exception as exc:  # a panel must never take the window down with it
@@ -244,6 +253,8 @@ class MainWindow(QtWidgets.QMainWindow):
             self._add_recent(path)
         if fit and not self.has_results():
             self.refit()
+        elif self.has_results():
+            self.request_derived()
 
     def has_results(self) -> bool:
         return self.session is not None and getattr(self.session, "results", None) is not None
@@ -251,6 +262,8 @@ class MainWindow(QtWidgets.QMainWindow):
     def _on_session_event(self, event, detail=None) -> None:
         if event not in ("saved", "loaded"):
             self.dirty = True
+        if self.session is not None and self.session.results is not None and not self.session.derived_ready:
+            self.request_derived()
         self.refresh_all()
         self._update_title()
         self._update_actions()
@@ -267,11 +280,16 @@ class MainWindow(QtWidgets.QMainWindow):
                 from regbench.project import load_project
 
                 progress(0, 1, f"reading {os.path.basename(path)}")
-                return load_project(path)
+                session = load_project(path, compute=False)
+                computed = None
+                if session.results is None:  # no cache, or one from another table or settings
+                    computed = session.compute_results(progress=progress, cancel=cancel)
+                return session, computed
 
             self.runner.start(work, label=f"Opening {os.path.basename(path)}", slot="open",
-                              done=lambda s: self.adopt(s, path=path),
-                              failed=lambda exc: self.show_error("Cannot open the project", exc))
+                              done=lambda out: self._adopt_opened(path, *out),
+                              failed=lambda exc: self.show_error("Cannot open the project", exc),
+                              cancelled=lambda: self.set_status("Opening cancelled; nothing was changed."))
             return
 
         def work(progress, cancel):
@@ -287,6 +305,27 @@ class MainWindow(QtWidgets.QMainWindow):
         self.runner.start(work, label=f"Reading {os.path.basename(path)}", slot="open",
                           done=lambda s: self.adopt(s, path=None, dirty=True),
                           failed=lambda exc: self.show_error("Cannot open the table", exc))
+
+    def _adopt_opened(self, path, session, computed) -> None:
+        """Adopt a project read on the worker; install results fitted there (GUI thread)."""
+        self.adopt(session, path=path, fit=False)
+        if computed is not None:
+            try:
+                installed = session.apply_results(computed)
+            except RegbenchError as exc:
+                self.show_error("Cannot use these results", exc)
+                installed = False
+            if installed:
+                session.dirty = False   # recomputed from the file's own table and settings
+                self.dirty = False
+                self._update_title()
+                self.refresh_all(now=True)
+                stale = session.cache_status == "stale"
+                self.set_status("Results refitted: the saved ones did not match this table and settings."
+                                if stale else "Results fitted.")
+                self.results_applied.emit()
+        if not self.has_results():
+            self.refit()
 
     def new_from_table_dialog(self):
         path, _ = QtWidgets.QFileDialog.getOpenFileName(
@@ -353,12 +392,75 @@ class MainWindow(QtWidgets.QMainWindow):
         return True
 
     def set_alpha(self, name: str, alpha: Optional[float]) -> None:
+        """Record the α choice (one undo step per family while dragging); the worker recomputes the rest."""
         if self.session is None:
             return
         try:
             self.session.set_alpha(name, alpha)
         except RegbenchError as exc:
             self.show_error("Cannot use this α", exc)
+
+    def add_extra_fit(self, family: str, alpha: float) -> Optional[str]:
+        if self.session is None:
+            return None
+        try:
+            name = self.session.add_extra_fit(family, alpha)
+        except RegbenchError as exc:
+            self.show_error("Cannot keep this fit", exc)
+            return None
+        self.set_status(f"Kept {name} as an extra fit.")
+        return name
+
+    def remove_extra_fit(self, name: str) -> None:
+        if self.session is None:
+            return
+        try:
+            self.session.remove_extra_fit(name)
+        except RegbenchError as exc:
+            self.show_error("Cannot remove this fit", exc)
+
+    def request_derived(self) -> None:
+        """Compute models, agreement, structure and stress results for the session's current choices
+        in the pool.
+
+        Rapid requests (a dragged α) coalesce: while one job runs, newer requests
+        cancel it and only the latest state is computed next; an update for a
+        state the session has left is dropped.
+        """
+        session = self.session
+        if session is None or session.results is None or session.derived_ready:
+            return
+        key = session.key()
+        if self._derive_job is not None:
+            if key != self._derive_key:
+                self._derive_again = True
+                self._derive_job.cancel()
+            return
+
+        def work(progress, cancel):
+            progress(0, 1, "comparing the models at the chosen α")
+            return session.compute_for_alpha(cancel=cancel)
+
+        def finished():
+            self._derive_job = self._derive_key = None
+            if self._derive_again:
+                self._derive_again = False
+                self.request_derived()
+
+        def done(update):
+            if self.session is session and session.apply_alpha_update(update):
+                self.derived_applied += 1
+                self.refresh_all(now=True)
+            finished()
+
+        def failed(exc):
+            finished()
+            if self.session is session and session.key() == key:
+                self.show_error("The models could not be compared", exc)
+
+        self._derive_key = key
+        self._derive_job = self.runner.start(work, label="Comparing the models", slot="derive", done=done,
+                                             failed=failed, cancelled=finished)
 
     def undo(self) -> None:
         if self.session is None:
@@ -534,7 +636,7 @@ class MainWindow(QtWidgets.QMainWindow):
             try:
                 from regbench.project import load_project
 
-                self.adopt(load_project(path), path=None, dirty=True)
+                self.adopt(load_project(path, compute=False), path=None, dirty=True)
                 return True
             except RegbenchError as exc:
                 self.show_error("The recovered session cannot be opened", exc)

@@ -118,13 +118,19 @@ class Runner(QtCore.QObject):
 
     @QtCore.Slot(object, object)
     def _on_done(self, job, result):
-        if self._current(job) and job.on_done is not None:
-            job.on_done(result)
+        if self._current(job):
+            if job.on_done is not None:
+                job.on_done(result)
+        elif job.on_cancelled is not None:  # cancelled after it finished: its result is dropped
+            job.on_cancelled()
 
     @QtCore.Slot(object, object)
     def _on_failed(self, job, exc):
-        if self._current(job) and job.on_failed is not None:
-            job.on_failed(exc)
+        if self._current(job):
+            if job.on_failed is not None:
+                job.on_failed(exc)
+        elif job.on_cancelled is not None:
+            job.on_cancelled()
 
     @QtCore.Slot(object)
     def _on_cancelled(self, job):

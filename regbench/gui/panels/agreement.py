@@ -19,6 +19,7 @@ class AgreementPanel(Panel):
     key = "agreement"
     title = "Do the models predict alike?"
     nav = "Do they predict alike"
+    uses_comparisons = True
 
     def build(self, body):
         lay = QtWidgets.QVBoxLayout(body)

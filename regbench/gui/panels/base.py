@@ -17,6 +17,9 @@ class Panel(QtWidgets.QWidget):
     key = ""
     title = ""
     nav = ""
+    #: Reads the models at the chosen α, agreement, structure or stress results: redrawn only once
+    #: the window's worker has them (never computed on the GUI thread).
+    uses_comparisons = False
 
     def __init__(self, window, parent=None):
         super().__init__(parent)

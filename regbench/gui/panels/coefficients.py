@@ -18,6 +18,7 @@ class CoefficientsPanel(Panel):
     key = "coefficients"
     title = "How the fits differ: coefficients side by side"
     nav = "Fits differ · weights"
+    uses_comparisons = True
 
     def build(self, body):
         lay = QtWidgets.QVBoxLayout(body)
@@ -25,7 +26,7 @@ class CoefficientsPanel(Panel):
         self.scale = QtWidgets.QComboBox()
         self.scale.addItem("in table units", "orig")
         self.scale.addItem("standardized (per SD of the column)", "std")
-        self.scale.currentIndexChanged.connect(lambda *_: self.session is not None and self.refresh(self.session))
+        self.scale.currentIndexChanged.connect(lambda *_: self.window_._refresh_panel(self))
         lay.addWidget(hbox(caption("Coefficients"), self.scale, stretch_last=True))
         split = QtWidgets.QSplitter(Qt.Horizontal)
         self.model = GridModel()

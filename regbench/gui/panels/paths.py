@@ -18,6 +18,7 @@ class PathsPanel(Panel):
     key = "paths"
     title = "How the fits differ: the penalty paths"
     nav = "Fits differ · paths"
+    uses_comparisons = True
 
     def build(self, body):
         lay = QtWidgets.QVBoxLayout(body)
@@ -101,9 +102,7 @@ class PathsPanel(Panel):
         self._redraw()
 
     def _chosen_alpha(self, name):
-        models = self.session.models()
-        m = models.get(name)
-        return None if m is None else m.alpha
+        return self.session.alphas().get(name)
 
     def _redraw(self, *_):
         session = self.session
@@ -158,12 +157,12 @@ class PathsPanel(Panel):
         self.path_plot.addItem(self.line)
         self.cv_plot.addItem(self.cv_line)
         rule = {"cv_min": "the lowest CV error", "cv_1se": "the one-SE rule", "fixed": "a fixed value"}.get(fit.alpha_rule, fit.alpha_rule)
-        model = self.session.models().get(name)
+        model = self.session.models().get(name) if self.session.derived_ready else None
         n_used = int(np.count_nonzero(model.coef)) if model is not None else 0
         self.alpha_text.setText(f"chosen α = {alpha:.4g}")
         s = [f"{model_label(name)} is shown at α = {alpha:.3g}"
              + (f" ({rule})" if np.isclose(alpha, fit.alpha) else " (chosen by hand)")
-             + f", where it uses {n_used} of {len(path.columns)} columns."]
+             + (f", where it uses {n_used} of {len(path.columns)} columns." if model is not None else ".")]
         if cv is not None:
             s.append(f"Held-out error is lowest at α = {cv.alpha_min:.3g}; the simplest model within one standard "
                      f"error of that is at α = {cv.alpha_1se:.3g}. Drag the line to try any α.")

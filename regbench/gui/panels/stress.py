@@ -27,6 +27,7 @@ class StressPanel(Panel):
     key = "stress"
     title = "When an input breaks: the stress test"
     nav = "When an input breaks"
+    uses_comparisons = True
 
     def build(self, body):
         from regbench.analysis.stress import KINDS
