@@ -631,3 +631,50 @@ def test_rapid_alpha_drags_are_computed_off_the_gui_thread_and_only_the_last_is_
     assert paths.line.value() == pytest.approx(np.log10(drags[-1]))
     s.undo()
     assert "ridge" not in s.chosen_alpha and s.derived_ready   # undo brings back the comparisons too
+
+
+def test_keep_an_alpha_as_an_extra_fit_and_remove_it(gh, qtbot):
+    from regbench.models.results import model_label
+
+    s = gh.session
+    paths = gh.panel("paths")
+    gh.show_panel("paths")
+    paths.family.setCurrentIndex(paths.family.findData("lasso"))
+    fit = s.results.penalized["lasso"]
+    extra_alpha = float(fit.path.alphas[len(fit.path.alphas) // 3])
+    paths.move_alpha(extra_alpha)
+    wait_idle(qtbot, gh)
+    paths.keep_btn.click()
+    wait_idle(qtbot, gh)
+    assert len(s.extra_fits) == 1
+    extra = s.extra_fits[0]
+    name = extra["name"]
+    assert extra["family"] == "lasso" and extra["alpha"] == pytest.approx(extra_alpha, rel=1e-12)
+    assert paths.extras.findData(name) >= 0
+    models, agreement, _ = _direct_comparisons(s, None, None)
+    assert name in models and name in s.models()
+    # Coefficients panel: the extra fit is a column holding the lasso fit at that α (engine.model_at).
+    gh.show_panel("coefficients")
+    shown = grid_column(gh.panel("coefficients").model, model_label(name))
+    np.testing.assert_allclose(shown, models[name].coef, rtol=1e-12, atol=1e-15)
+    # Agreement panel: it can be compared with any model, and its pairs match compare_models.
+    gh.show_panel("agreement")
+    ag = gh.panel("agreement")
+    assert ag.a_box.findData(name) >= 0 and ag.b_box.findData(name) >= 0
+    listed = grid_column(ag.pair_model, "a") + grid_column(ag.pair_model, "b")
+    assert model_label(name) in listed
+    want = {(p.a, p.b, p.split): p.rmse for p in agreement.pairs if name in (p.a, p.b)}
+    got = {(p.a, p.b, p.split): p.rmse for p in s.agreement().pairs if name in (p.a, p.b)}
+    assert want and got.keys() == want.keys()
+    for k in want:
+        assert got[k] == pytest.approx(want[k], rel=1e-10, abs=1e-12)
+    own = dict(zip(grid_column(ag.own_model, "Model"), grid_column(ag.own_model, "Held-out rows")))
+    assert own[model_label(name)] == pytest.approx(agreement.own_error[name]["held_out"], rel=1e-10)
+    # Removing it takes it out of every panel again.
+    gh.show_panel("paths")
+    paths.extras.setCurrentIndex(paths.extras.findData(name))
+    paths.remove_btn.click()
+    wait_idle(qtbot, gh)
+    assert s.extra_fits == [] and name not in s.models()
+    gh.show_panel("coefficients")
+    assert model_label(name) not in gh.panel("coefficients").model.headers

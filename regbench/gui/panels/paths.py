@@ -33,6 +33,14 @@ class PathsPanel(Panel):
         self.reset_btn = QtWidgets.QPushButton("Back to the CV choice")
         self.reset_btn.clicked.connect(self._reset_alpha)
         lay.addWidget(hbox(caption("Family"), self.family, caption("Show"), self.scale, 1, self.alpha_text, self.reset_btn))
+        self.keep_btn = QtWidgets.QPushButton("Keep this α as an extra fit")
+        self.keep_btn.setToolTip("Add this family at the chosen α to the comparisons, beside the four chosen models")
+        self.keep_btn.clicked.connect(self._keep_extra)
+        self.extras = QtWidgets.QComboBox()
+        self.extras.setMinimumContentsLength(18)
+        self.remove_btn = QtWidgets.QPushButton("Remove")
+        self.remove_btn.clicked.connect(self._remove_extra)
+        lay.addWidget(hbox(self.keep_btn, caption("Extra fits"), self.extras, self.remove_btn, stretch_last=True))
         self.path_plot = pg.PlotWidget()
         self.path_plot.export_name = "coefficient paths"
         self.path_plot.showGrid(x=True, y=True, alpha=0.25)
@@ -156,6 +164,7 @@ class PathsPanel(Panel):
             line.setValue(np.log10(alpha))
         self.path_plot.addItem(self.line)
         self.cv_plot.addItem(self.cv_line)
+        self._fill_extras(session, name)
         rule = {"cv_min": "the lowest CV error", "cv_1se": "the one-SE rule", "fixed": "a fixed value"}.get(fit.alpha_rule, fit.alpha_rule)
         model = self.session.models().get(name) if self.session.derived_ready else None
         n_used = int(np.count_nonzero(model.coef)) if model is not None else 0
@@ -179,6 +188,32 @@ class PathsPanel(Panel):
         if name is None:
             return
         self.window_.set_alpha(name, float(10 ** line.value()))
+
+    def _fill_extras(self, session, family):
+        extras = session.extra_fits
+        self.extras.clear()
+        for e in extras:
+            self.extras.addItem(f"{e['name']}", e["name"])
+        self.extras.setEnabled(bool(extras))
+        self.remove_btn.setEnabled(bool(extras))
+        for e in extras:
+            if e["family"] != family:
+                continue
+            pen = pg.mkPen(model_colour(e["name"]), width=1.4, style=Qt.DashDotLine)
+            for plot in (self.path_plot, self.cv_plot):
+                plot.addItem(pg.InfiniteLine(pos=np.log10(e["alpha"]), angle=90, pen=pen,
+                                             label=e["name"] if plot is self.path_plot else None,
+                                             labelOpts={"position": 0.08, "color": model_colour(e["name"])}))
+
+    def _keep_extra(self):
+        name = self.family.currentData()
+        if name is not None:
+            self.window_.add_extra_fit(name, float(10 ** self.line.value()))
+
+    def _remove_extra(self):
+        name = self.extras.currentData()
+        if name is not None:
+            self.window_.remove_extra_fit(name)
 
     def _reset_alpha(self):
         name = self.family.currentData()
