@@ -284,3 +284,28 @@ def test_identifier_like_text_column_left_out_by_default_and_reported():
     # Named explicitly, it is used.
     d2 = build_design(t, Roles(target="yield_kg_m2", predictors=("bed", "co2_ppm")))
     assert sum(c.startswith("bed=") for c in d2.columns) == 95
+
+
+def test_frame_text_columns_typed_like_cells(tmp_path):
+    """The vectorized route for text columns of a frame agrees with the per-cell rules."""
+    import regbench.data.reader as reader
+
+    frame = pd.DataFrame({
+        "y": [1.0, 2.0, 3.0, 4.0, 5.0, 6.0],
+        "flag": ["yes", "no", None, "YES", "no", "n/a"],
+        "kind": [" a", "b", "a ", None, "c", "b"],
+        "mostly": ["1", "2", "x", "4", "5", "6"],
+        "blank": [None, "", "NA", None, "", None],
+    })
+    fast = table_from_frame(frame)
+    slow = {h: reader._type_column(h, frame[h].astype(object).where(pd.notna(frame[h]), None).tolist(), 6)
+            for h in frame.columns[1:]}
+    for h, (values, info) in slow.items():
+        assert fast.columns[h] == info
+        got = fast.frame[h].to_numpy()
+        if info.kind in ("numeric", "boolean", "empty"):
+            np.testing.assert_array_equal(got.astype(float), values)
+        else:
+            norm = lambda seq: [None if pd.isna(v) else v for v in seq]  # noqa: E731
+            assert norm(got) == norm(values)
+    assert fast.columns["mostly"].bad_cells == ((3, "x"),)

@@ -237,7 +237,8 @@ def _type_text_series(name, col, n):
         bad_idx = np.flatnonzero(bad)
         bad_cells = tuple((int(i) + 1, texts.iat[i]) for i in bad_idx)
         return nums, ColumnInfo(name, NUMERIC, missing, info.distinct, info.coded_categories, bad_cells)
-    vals = texts.to_numpy(dtype=object)
+    vals = texts.to_numpy(dtype=object, copy=True)
+    vals[~present] = None  # the Table's convention for a missing category (not NaN)
     return vals, ColumnInfo(name, CATEGORICAL, missing, len(set(vals[present])))
 
 
@@ -331,6 +332,9 @@ def _typed_frame(frame: pd.DataFrame, header, name) -> Table:
         col = frame.iloc[:, j]
         if pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col):
             values, info = _type_numeric_column(h, col.to_numpy(dtype=float, na_value=np.nan), n)
+        elif pd.api.types.infer_dtype(col, skipna=True) in ("string", "empty"):
+            # Text only: the vectorized text rules, as for a CSV column.
+            values, info = _type_text_series(h, col.astype(object).where(pd.notna(col), None), n)
         else:
             cells = col.astype(object).where(pd.notna(col), None).tolist()
             values, info = _type_column(h, cells, n)

@@ -50,7 +50,7 @@ class Table:
     ----------
     frame : pandas.DataFrame
         Numeric columns as float64 (NaN where missing or bad text), boolean
-        columns as float64 0/1, categorical columns as Python strings or None.
+        columns as float64 0/1, categorical columns as text (pandas' string or object dtype; missing is None or NaN, test with ``pandas.isna``).
         The index is 0..n-1; row number ``i + 1`` is what messages call row i+1.
     columns : mapping of name to ColumnInfo
     source : str
