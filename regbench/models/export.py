@@ -189,7 +189,8 @@ def fit_summary_text(design, results) -> str:
 
     lines.append("")
     o = results.ols
-    lines.append(f"OLS: R² {_fmt(o.r_squared)}, adjusted R² {_fmt(o.adj_r_squared)}, residual SD {_fmt(o.residual_sd)}.")
+    sd_note = f" for a row of weight 1 (rows are weighted by {design.weights_column})" if design.weighted else ""
+    lines.append(f"OLS: R² {_fmt(o.r_squared)}, adjusted R² {_fmt(o.adj_r_squared)}, residual SD {_fmt(o.residual_sd)}{sd_note}.")
     k = results.settings.folds
     kind = "grouped " if design.groups is not None else ""
     lines.append(f"Penalties (α), {k}-fold {kind}cross-validation:")
