@@ -122,3 +122,4 @@ def test_bench_quick_runs(tmp_path):
                           timeout=300, cwd=tmp_path, env=env)
     assert proc.returncode == 0, proc.stderr
     assert "faster" in proc.stdout and "peak memory" in proc.stdout
+    assert "stress test over all 10 columns" in proc.stdout
