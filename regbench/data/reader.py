@@ -405,16 +405,8 @@ def _type_column(name, cells, n):
             nums[i] = x
     n_num = len(present) - len(bad)
     if n_num and n_num >= NUMERIC_SHARE * len(present):
-        finite = nums[np.isfinite(nums)]
-        distinct = len(np.unique(finite))
-        coded = bool(
-            finite.size
-            and distinct <= CODED_MAX_LEVELS
-            and distinct >= 2
-            and np.all(finite == np.round(finite))
-            and finite.size >= 2 * distinct
-        )
+        _, info = _type_numeric_column(name, nums, n)
         bad_cells = tuple((i + 1, texts[i]) for i in bad)
-        return nums, ColumnInfo(name, NUMERIC, missing, distinct, coded, bad_cells)
+        return nums, ColumnInfo(name, NUMERIC, missing, info.distinct, info.coded_categories, bad_cells)
     vals = np.array([texts[i] if texts[i] is not None else None for i in range(n)], dtype=object)
     return vals, ColumnInfo(name, CATEGORICAL, missing, len({texts[i] for i in present}))
