@@ -260,6 +260,7 @@ def test_save_and_reopen_equal(gh, qtbot, tmp_path):
     from regbench.gui.tables import model_to_tsv
 
     gh.set_alpha("ridge", 0.5)
+    wait_idle(qtbot, gh)   # the comparisons at the new α come from the worker
     gh.panel("data").notes.setPlainText("Checked with the growers on Tuesday.")
     gh.show_panel("paths")
     paths = gh.panel("paths")
@@ -379,6 +380,7 @@ def test_recovery_copy_is_offered_and_removed(gh, qtbot, monkeypatch):
     from regbench.gui.window import MainWindow, recovery_path
 
     gh.set_alpha("ridge", 0.25)
+    wait_idle(qtbot, gh)   # no recovery copy is written while the worker is busy
     assert gh.autosave()
     path = recovery_path()
     assert os.path.exists(path)
@@ -436,32 +438,41 @@ def test_long_fit_keeps_the_window_responsive_and_cancel_changes_nothing(qtbot):
     w = make_window(qtbot)
     w.adopt(s, fit=False)
     QtWidgets.QApplication.processEvents()
-    gaps, last = [], [time.perf_counter()]
+    gaps, last, where = [], [time.perf_counter()], []
 
     def tick():
         now = time.perf_counter()
         gaps.append(now - last[0])
+        where.append(w.status_label.text())   # what the worker last reported when the GUI thread got back
         last[0] = now
 
     timer = QtCore.QTimer()
     timer.setInterval(10)
     timer.timeout.connect(tick)
     timer.start()
+    # Cancel part-way: nothing of the unfinished fit reaches the session.
     w.refit()
-    qtbot.wait(6000)      # the GUI thread keeps running its event loop while the pool fits
+    qtbot.wait(700)
     assert w.runner.busy(), "the fit finished too soon to test cancelling"
-    last[0] = time.perf_counter()
     w.cancel_btn.click()
     t0 = time.perf_counter()
     wait_idle(qtbot, w, timeout=120_000)
     stopped = time.perf_counter() - t0
-    timer.stop()
-    worst = max(gaps)
-    print(f"GUI thread during a 100k x 100 fit: worst gap {worst * 1000:.0f} ms over {len(gaps)} ticks; "
-          f"cancel took {stopped:.1f} s")
     assert s.results is None and s.stability is None
     assert w.session is s and "cancelled" in w.status_label.text().lower()
-    assert worst < 1.0   # generous; the target is under 0.1 s
+    # A whole fit, installed and drawn, with the GUI thread's ticks measured throughout.
+    last[0] = time.perf_counter()
+    t1 = time.perf_counter()
+    with qtbot.waitSignal(w.results_applied, timeout=FIT_TIMEOUT_MS):
+        w.refit()
+    wait_idle(qtbot, w, timeout=120_000)
+    fitted = time.perf_counter() - t1
+    timer.stop()
+    worst = int(np.argmax(gaps))
+    print(f"GUI thread during a 100k x 100 fit: worst gap {gaps[worst] * 1000:.0f} ms over {len(gaps)} ticks "
+          f"(status then: {where[worst]!r}); cancel took {stopped:.1f} s; the whole fit {fitted:.1f} s")
+    assert s.results is not None and s.derived_ready
+    assert gaps[worst] < 1.0   # generous; the target is under 0.1 s
     close_quietly(w)
 
 

@@ -30,13 +30,13 @@ def snapshot(project_path, out_dir, size=SIZE) -> list:
     window.show()
     window.adopt(session, path=os.fspath(project_path), fit=False)
     if not window.has_results():
-        # A project saved without results: fit now and wait for the worker.
+        # A project saved without results: fit now.
         window.refit()
-        loop = QtCore.QEventLoop()
-        window.results_applied.connect(loop.quit)
-        window.job_failed.connect(lambda *_: loop.quit())
-        QtCore.QTimer.singleShot(600_000, loop.quit)
-        loop.exec()
+    # Wait for the worker (the fit, or the comparisons at the chosen α) to finish.
+    deadline = QtCore.QDeadlineTimer(600_000)
+    while window.runner.busy() and not deadline.hasExpired():
+        app.processEvents(QtCore.QEventLoop.AllEvents, 50)
+        QtCore.QThread.msleep(20)
     paths = []
     for i, panel in enumerate(window.panels):
         window.show_panel(i)

@@ -57,7 +57,9 @@ class OverlapsPanel(Panel):
         self.glw = pg.GraphicsLayoutWidget()
         self.glw.export_name = "correlation map"
         self.corr_plot = self.glw.addPlot(row=0, col=0)
-        self.corr_plot.setAspectLocked(True)
+        # The matrix fills the plot (cells need not be square): a locked aspect left bands of empty space.
+        self.corr_plot.setAspectLocked(False)
+        self.corr_plot.setMouseEnabled(x=False, y=False)
         self.corr_plot.invertY(True)
         self.corr_plot.setMenuEnabled(False)
         self.image = pg.ImageItem()
@@ -86,6 +88,7 @@ class OverlapsPanel(Panel):
         split.addWidget(self.tabs)
         split.setStretchFactor(0, 1)
         split.setStretchFactor(1, 1)
+        split.setSizes([380, 440])   # room for the VIF table's explanation column
         lay.addWidget(split)
         self._corr = None
         self._corr_cols = ()
@@ -160,7 +163,7 @@ class OverlapsPanel(Panel):
         # Names down the side, their numbers along the bottom (long names would collide there).
         self.corr_plot.getAxis("left").setTicks([[(j + 0.5, f"{short[j]}  {j + 1}") for j in range(0, p, step)]])
         self.corr_plot.getAxis("bottom").setTicks([[(j + 0.5, str(j + 1)) for j in range(0, p, step)]])
-        self.corr_plot.setRange(xRange=(0, p), yRange=(0, p), padding=0.02)
+        self.corr_plot.setRange(xRange=(0, p), yRange=(0, p), padding=0)
 
     def _hover(self, pos):
         if self._corr is None:

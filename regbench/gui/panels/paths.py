@@ -18,7 +18,8 @@ class PathsPanel(Panel):
     key = "paths"
     title = "How the fits differ: the penalty paths"
     nav = "Fits differ · paths"
-    uses_comparisons = True
+    # Drawn from the fits and the chosen α alone; the count of columns used waits for the worker.
+    uses_comparisons = False
 
     def build(self, body):
         lay = QtWidgets.QVBoxLayout(body)
@@ -138,6 +139,9 @@ class PathsPanel(Panel):
             c = self.path_plot.plot(x, coef[:, j], pen=pg.mkPen(series_colour(j), width=1.6), name=col if legend else None)
             self._curves.append(c)
         self.path_plot.addItem(pg.InfiniteLine(pos=0, angle=0, pen=pg.mkPen(PALETTE["grid"])))
+        lo, hi = float(x.min()), float(x.max())
+        # Room to the right of the largest α, where the paths have met at 0, for the legend.
+        self.path_plot.setXRange(lo, hi + (0.34 * (hi - lo) if legend else 0.0), padding=0.02)
         self.path_plot.setLabel("left", "standardized coefficient" if std else "coefficient (table units)")
         self.cv_plot.clear()
         cv = fit.cv
@@ -149,16 +153,17 @@ class PathsPanel(Panel):
             self.cv_plot.addItem(pg.ErrorBarItem(x=cx, y=cv.mean, height=2 * cv.se, beam=0.0, pen=pg.mkPen(faint, width=1)))
             self.cv_plot.plot(cx, cv.mean, pen=pg.mkPen(colour, width=2), symbol="o", symbolSize=4,
                               symbolBrush=colour, symbolPen=None)
-            for a, lab, style in ((cv.alpha_min, "lowest error", Qt.DashLine), (cv.alpha_1se, "one SE simpler", Qt.DotLine)):
+            # The two labels sit at different heights so they never overlap when the α values are close.
+            for a, lab, style, at in ((cv.alpha_min, "lowest error", Qt.DashLine, 0.9),
+                                      (cv.alpha_1se, "one SE simpler", Qt.DotLine, 0.7)):
                 i = int(np.argmin(np.abs(cv.alphas - a)))
                 self.cv_plot.plot([np.log10(a)], [cv.mean[i]], pen=None, symbol="d", symbolSize=11,
                                   symbolBrush=PALETTE["warn"] if style == Qt.DashLine else PALETTE["muted"])
                 for plot in (self.path_plot, self.cv_plot):
                     plot.addItem(pg.InfiniteLine(pos=np.log10(a), angle=90, pen=pg.mkPen(PALETTE["muted"], style=style),
                                                  label=lab if plot is self.cv_plot else None,
-                                                 labelOpts={"position": 0.85, "color": PALETTE["muted"]}))
+                                                 labelOpts={"position": at, "color": PALETTE["muted"]}))
         alpha = self._chosen_alpha(name) or fit.alpha
-        lo, hi = float(x.min()), float(x.max())
         for line in (self.line, self.cv_line):
             line.setBounds((lo - 1.0, hi + 1.0))
             line.setValue(np.log10(alpha))

@@ -102,5 +102,5 @@ class StabilityPanel(Panel):
             self.plot.addItem(bar)
             legend.addItem(bar, label)
         self.plot.getAxis("left").setTicks([[(p - 1 - i, c) for i, c in enumerate(cols)]])
-        self.plot.setXRange(0, 1.0, padding=0.03)
+        self.plot.setXRange(0, 1.0, padding=0.06)  # the bars at 1 stay clear of the edge
         self.plot.setYRange(-0.6, p + 2.6, padding=0)  # headroom for the legend
