@@ -122,6 +122,10 @@ class StressPanel(Panel):
         except RegbenchError as exc:
             self.window_.show_error("This stress test cannot run", exc)
             return
+        if not session.derived_ready:  # the models at the chosen α are still on their way from the worker
+            self.window_.request_derived()
+            self.window_.set_status("The models at the chosen α are still being compared; try again in a moment.")
+            return
         design, models = session.design, session.models()
 
         def work(progress, cancel):
@@ -151,6 +155,10 @@ class StressPanel(Panel):
     def rank(self):
         session = self.session
         if session is None or session.results is None:
+            return
+        if not session.derived_ready:  # the models at the chosen α are still on their way from the worker
+            self.window_.request_derived()
+            self.window_.set_status("The models at the chosen α are still being compared; try again in a moment.")
             return
         design, models = session.design, session.models()
         kind = self.kind.currentData()
