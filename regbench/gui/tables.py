@@ -116,6 +116,8 @@ class GridModel(QtCore.QAbstractTableModel):
         return self.rows[r][c]
 
     def data(self, index, role=Qt.DisplayRole):
+        if role not in _GRID_ROLES:  # sizing asks for many roles per cell; answer the rest at once
+            return None
         r, c = index.row(), index.column()
         v = self.rows[r][c] if c < len(self.rows[r]) else None
         if role == Qt.DisplayRole:
@@ -142,6 +144,12 @@ class GridModel(QtCore.QAbstractTableModel):
         return str(section + 1)
 
 
+_GRID_ROLES = frozenset((Qt.DisplayRole, Qt.TextAlignmentRole, Qt.BackgroundRole, Qt.ForegroundRole, Qt.ToolTipRole))
+#: Rows (beyond the visible ones) that fitting a column's width looks at: a 100 x 100 grid is sized in
+#: a blink instead of over a second on the GUI thread.
+SIZE_ROWS = 40
+
+
 def make_view(model: QtCore.QAbstractTableModel, stretch_last: bool = True) -> QtWidgets.QTableView:
     view = QtWidgets.QTableView()
     view.setModel(model)
@@ -149,6 +157,8 @@ def make_view(model: QtCore.QAbstractTableModel, stretch_last: bool = True) -> Q
     view.setSelectionBehavior(QtWidgets.QAbstractItemView.SelectItems)
     view.horizontalHeader().setStretchLastSection(stretch_last)
     view.verticalHeader().setDefaultSectionSize(22)
+    view.verticalHeader().setResizeContentsPrecision(SIZE_ROWS)
+    view.horizontalHeader().setResizeContentsPrecision(SIZE_ROWS)
     view.setWordWrap(False)
     return view
 
