@@ -74,6 +74,8 @@ class PathsPanel(Panel):
         self.path_plot.scene().sigMouseMoved.connect(self._hover)
         self._curves = []
         self._fit = None
+        self._drawn = None        # (fit, scale) the curves were drawn for
+        self._extra_lines = []
 
     def plots(self):
         return [self.path_plot, self.cv_plot]
@@ -124,8 +126,36 @@ class PathsPanel(Panel):
         path = fit.path
         x = np.log10(path.alphas)
         coef = path.coef_std if std else path.coef
+        lo, hi = float(x.min()), float(x.max())
+        cv = fit.cv
+        if self._drawn is None or self._drawn[0] is not fit or self._drawn[1] != std:
+            # The curves change with the family or the scale, not with α: an α update only moves lines.
+            self._draw_curves(name, fit, std, x, coef)
+        alpha = self._chosen_alpha(name) or fit.alpha
+        for line in (self.line, self.cv_line):
+            line.setBounds((lo - 1.0, hi + 1.0))
+            line.setValue(np.log10(alpha))
+        for plot, line in ((self.path_plot, self.line), (self.cv_plot, self.cv_line)):
+            if line not in plot.getPlotItem().items:
+                plot.addItem(line)
+        self._fill_extras(session, name)
+        rule = {"cv_min": "the lowest CV error", "cv_1se": "the one-SE rule", "fixed": "a fixed value"}.get(fit.alpha_rule, fit.alpha_rule)
+        model = self.session.models().get(name) if self.session.derived_ready else None
+        n_used = int(np.count_nonzero(model.coef)) if model is not None else 0
+        self.alpha_text.setText(f"chosen α = {alpha:.4g}")
+        s = [f"{model_label(name)} is shown at α = {alpha:.3g}"
+             + (f" ({rule})" if np.isclose(alpha, fit.alpha) else " (chosen by hand)")
+             + (f", where it uses {n_used} of {len(path.columns)} columns." if model is not None else ".")]
+        if cv is not None:
+            s.append(f"Held-out error is lowest at α = {cv.alpha_min:.3g}; the simplest model within one standard "
+                     f"error of that is at α = {cv.alpha_1se:.3g}. Drag the line to try any α.")
+        self.set_sentences(s)
+
+    def _draw_curves(self, name, fit, std, x, coef):
+        path = fit.path
         self.path_plot.clear()
         self._curves = []
+        self._extra_lines = []
         legend = None
         if len(path.columns) <= LEGEND_MAX:
             if self.path_plot.getPlotItem().legend is None:
@@ -163,24 +193,7 @@ class PathsPanel(Panel):
                     plot.addItem(pg.InfiniteLine(pos=np.log10(a), angle=90, pen=pg.mkPen(PALETTE["muted"], style=style),
                                                  label=lab if plot is self.cv_plot else None,
                                                  labelOpts={"position": at, "color": PALETTE["muted"]}))
-        alpha = self._chosen_alpha(name) or fit.alpha
-        for line in (self.line, self.cv_line):
-            line.setBounds((lo - 1.0, hi + 1.0))
-            line.setValue(np.log10(alpha))
-        self.path_plot.addItem(self.line)
-        self.cv_plot.addItem(self.cv_line)
-        self._fill_extras(session, name)
-        rule = {"cv_min": "the lowest CV error", "cv_1se": "the one-SE rule", "fixed": "a fixed value"}.get(fit.alpha_rule, fit.alpha_rule)
-        model = self.session.models().get(name) if self.session.derived_ready else None
-        n_used = int(np.count_nonzero(model.coef)) if model is not None else 0
-        self.alpha_text.setText(f"chosen α = {alpha:.4g}")
-        s = [f"{model_label(name)} is shown at α = {alpha:.3g}"
-             + (f" ({rule})" if np.isclose(alpha, fit.alpha) else " (chosen by hand)")
-             + (f", where it uses {n_used} of {len(path.columns)} columns." if model is not None else ".")]
-        if cv is not None:
-            s.append(f"Held-out error is lowest at α = {cv.alpha_min:.3g}; the simplest model within one standard "
-                     f"error of that is at α = {cv.alpha_1se:.3g}. Drag the line to try any α.")
-        self.set_sentences(s)
+        self._drawn = (fit, std)
 
     @staticmethod
     def _sync(line, value):
@@ -201,14 +214,19 @@ class PathsPanel(Panel):
             self.extras.addItem(f"{e['name']}", e["name"])
         self.extras.setEnabled(bool(extras))
         self.remove_btn.setEnabled(bool(extras))
+        for line, plot in self._extra_lines:
+            plot.removeItem(line)
+        self._extra_lines = []
         for e in extras:
             if e["family"] != family:
                 continue
             pen = pg.mkPen(model_colour(e["name"]), width=1.4, style=Qt.DashDotLine)
             for plot in (self.path_plot, self.cv_plot):
-                plot.addItem(pg.InfiniteLine(pos=np.log10(e["alpha"]), angle=90, pen=pen,
-                                             label=e["name"] if plot is self.path_plot else None,
-                                             labelOpts={"position": 0.08, "color": model_colour(e["name"])}))
+                line = pg.InfiniteLine(pos=np.log10(e["alpha"]), angle=90, pen=pen,
+                                       label=e["name"] if plot is self.path_plot else None,
+                                       labelOpts={"position": 0.08, "color": model_colour(e["name"])})
+                plot.addItem(line)
+                self._extra_lines.append((line, plot))
 
     def _keep_extra(self):
         name = self.family.currentData()
