@@ -735,8 +735,9 @@ def build_sample_session(csv_path, roles_dict: dict) -> Session:
 
     settings = FitSettings(folds=5, seed=20261201, l1_ratios=(0.5,))
     session = Session.from_table_file(csv_path, Roles.from_dict(roles_dict), settings)
-    for cfg in (StressConfig("day_temp_c", "rescale", 1.8), StressConfig("light_sum_mol_m2", "noise", 1.0),
-                StressConfig("co2_ppm", "shuffle", None, seed=3)):
+    # The window shows the latest test first: the °C-read-as-°F slip tells the clearest story.
+    for cfg in (StressConfig("co2_ppm", "shuffle", None, seed=3), StressConfig("light_sum_mol_m2", "noise", 1.0),
+                StressConfig("day_temp_c", "rescale", 1.8)):
         session.add_stress(cfg)
     session.set_bootstrap(200)
     session.set_notes(SAMPLE_NOTE)

@@ -32,11 +32,12 @@ def snapshot(project_path, out_dir, size=SIZE) -> list:
     if not window.has_results():
         # A project saved without results: fit now.
         window.refit()
-    # Wait for the worker (the fit, or the comparisons at the chosen α) to finish.
-    deadline = QtCore.QDeadlineTimer(600_000)
-    while window.runner.busy() and not deadline.hasExpired():
-        app.processEvents(QtCore.QEventLoop.AllEvents, 50)
-        QtCore.QThread.msleep(20)
+    _wait(app, window)
+    # The stress panel also ranks every column, so its picture answers "what breaks" without a click.
+    stress = next((p for p in window.panels if p.key == "stress"), None)
+    if stress is not None:
+        stress.rank()
+        _wait(app, window)
     paths = []
     for i, panel in enumerate(window.panels):
         window.show_panel(i)
@@ -53,6 +54,17 @@ def snapshot(project_path, out_dir, size=SIZE) -> list:
     window.deleteLater()
     _settle(app, 1)
     return paths
+
+
+def _wait(app, window, ms: int = 600_000) -> None:
+    """Let the worker (a fit, the comparisons at the chosen α, a ranking) finish."""
+    from PySide6 import QtCore
+
+    deadline = QtCore.QDeadlineTimer(ms)
+    while window.runner.busy() and not deadline.hasExpired():
+        app.processEvents(QtCore.QEventLoop.AllEvents, 50)
+        QtCore.QThread.msleep(20)
+    _settle(app)
 
 
 def _settle(app, rounds: int = 5) -> None:
