@@ -429,7 +429,7 @@ def test_committed_sample_project_matches_its_table():
     assert s.cache_status == "used" and s.stability is not None and s.stability.n_boot == 200
     assert s.roles == Roles.from_dict(GREENHOUSE_ROLES)
     assert [(c.column, c.kind) for c in s.stress_configs] == [
-        ("day_temp_c", "rescale"), ("light_sum_mol_m2", "noise"), ("co2_ppm", "shuffle")]
+        ("co2_ppm", "shuffle"), ("light_sum_mol_m2", "noise"), ("day_temp_c", "rescale")]
     # The project's table is the CSV beside it, value for value.
     assert table_fingerprint(read_table(ROOT / "sample_projects" / "greenhouse.csv")) == s.table_hash
     assert [x.column for x in s.results.ols.set_aside] == ["mean_temp_c", "day_temp_f"]
