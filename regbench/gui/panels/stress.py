@@ -122,9 +122,7 @@ class StressPanel(Panel):
         except RegbenchError as exc:
             self.window_.show_error("This stress test cannot run", exc)
             return
-        if not session.derived_ready:  # the models at the chosen α are still on their way from the worker
-            self.window_.request_derived()
-            self.window_.set_status("The models at the chosen α are still being compared; try again in a moment.")
+        if not self._models_ready(session):
             return
         design, models = session.design, session.models()
 
@@ -152,13 +150,19 @@ class StressPanel(Panel):
 
         self.window_.run_job(work, "Stress test", done, slot="stress")
 
+    def _models_ready(self, session) -> bool:
+        """The models at the chosen α come from the worker; until they arrive, ask for them and wait."""
+        if session.derived_ready:
+            return True
+        self.window_.request_derived()
+        self.window_.set_status("The models at the chosen α are still being compared; try again in a moment.")
+        return False
+
     def rank(self):
         session = self.session
         if session is None or session.results is None:
             return
-        if not session.derived_ready:  # the models at the chosen α are still on their way from the worker
-            self.window_.request_derived()
-            self.window_.set_status("The models at the chosen α are still being compared; try again in a moment.")
+        if not self._models_ready(session):
             return
         design, models = session.design, session.models()
         kind = self.kind.currentData()
