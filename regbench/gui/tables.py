@@ -6,12 +6,12 @@ for it, so a million-row table opens at once.
 
 from __future__ import annotations
 
-import math
 from typing import Optional, Sequence
 
 import numpy as np
 from PySide6 import QtCore, QtGui, QtWidgets
 
+from regbench.formatting import number_text
 from regbench.gui.style import PALETTE
 
 Qt = QtCore.Qt
@@ -26,16 +26,7 @@ def fmt(v, digits: int = 4) -> str:
     if isinstance(v, (int, np.integer)):
         return str(int(v))
     if isinstance(v, (float, np.floating)):
-        x = float(v)
-        if math.isnan(x):
-            return ""
-        if math.isinf(x):
-            return "∞" if x > 0 else "−∞"
-        if x == 0:
-            return "0"
-        if abs(x) >= 1e6 or abs(x) < 1e-4:
-            return f"{x:.{digits - 1}e}"
-        return f"{x:.{digits}g}" if abs(x) >= 1 else f"{x:.{digits}f}".rstrip("0").rstrip(".")
+        return number_text(v, digits, fixed_below_one=True)
     return str(v)
 
 

@@ -16,6 +16,7 @@ from html import escape
 import numpy as np
 
 from regbench import __version__
+from regbench.formatting import number_text
 from regbench.models.results import model_label
 from regbench.report import svg
 
@@ -101,16 +102,7 @@ def num(x, digits: int = 4) -> str:
         v = float(x)
     except (TypeError, ValueError):
         return e(x)
-    if math.isnan(v):
-        return "—"
-    if math.isinf(v):
-        return "∞" if v > 0 else "−∞"
-    if v == 0:
-        return "0"
-    a = abs(v)
-    if a >= 1e6 or a < 1e-4:
-        return f"{v:.{digits - 1}e}".replace("-", "−")
-    return f"{v:.{digits}g}".replace("-", "−")
+    return number_text(v, digits, missing="—", unicode_minus=True)
 
 
 def pct(x) -> str:
