@@ -54,6 +54,9 @@ def _add_table_options(p: argparse.ArgumentParser, table: bool = True) -> None:
                    help="CV choice of α: the minimum or the one-standard-error rule (default cv_min)")
     p.add_argument("--l1-ratio", default="0.5", help="elastic-net L1 ratio(s), comma-separated (default 0.5)")
     p.add_argument("--pin", help="comma-separated columns OLS must keep when it sets columns aside")
+    p.add_argument("--derive", action="append", default=[], metavar="OP:COLUMN",
+                   help="add a derived column, repeatable: log:C, log1p:C, sqrt:C, square:C, standardize:C "
+                        "or product:C1,C2; it is named e.g. log(C) or C1*C2 and joins listed predictors")
 
 
 def _json_option(p: argparse.ArgumentParser) -> None:
@@ -130,9 +133,16 @@ def settings_from_args(args):
 def roles_from_args(args):
     from regbench.data import Roles
 
+    from regbench.data.derive import parse_derive
+
+    derived = tuple(parse_derive(t) for t in getattr(args, "derive", None) or ())
+    predictors = _csv_list(args.predictors)
+    if predictors:
+        used = {args.target, args.weights, args.groups, *predictors}
+        predictors += tuple(d.name for d in derived if d.name not in used)
     return Roles(
-        target=args.target, predictors=_csv_list(args.predictors), categorical=_csv_list(args.categorical),
-        weights=args.weights, groups=args.groups,
+        target=args.target, predictors=predictors, categorical=_csv_list(args.categorical),
+        weights=args.weights, groups=args.groups, derived=derived,
     )
 
 

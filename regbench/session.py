@@ -307,6 +307,52 @@ class Session:
         build_design(self.table, roles)  # raise before anything changes
         self._edit("roles", replace(self._state, roles=roles), "roles", roles)
 
+    def add_derived(self, operation: str, columns) -> str:
+        """Add a derived column (see :mod:`regbench.data.derive`); returns its name.
+
+        It joins the predictors when they are listed explicitly.  Raises DataError
+        (and changes nothing) when the operation cannot take the column(s).
+        """
+        from regbench.data.derive import make_derived
+
+        d = make_derived(operation, columns)
+        roles = self.roles
+        preds = roles.predictors + ((d.name,) if roles.predictors else ())
+        self.set_roles(replace(roles, derived=roles.derived + (d,), predictors=preds))
+        return d.name
+
+    def remove_derived(self, name: str) -> None:
+        """Remove a derived column and every role that names it (and derived columns built on it)."""
+        roles = self.roles
+        gone = {name}
+        keep = []
+        for d in roles.derived:
+            if d.name in gone or gone.intersection(d.columns):
+                gone.add(d.name)
+            else:
+                keep.append(d)
+        if len(keep) == len(roles.derived):
+            raise DataError(f"'{name}' is not a derived column")
+        if roles.target in gone:
+            raise DataError(f"'{name}' is the target; choose another target before removing it")
+        self.set_roles(replace(
+            roles, derived=tuple(keep),
+            predictors=tuple(c for c in roles.predictors if c not in gone),
+            categorical=tuple(c for c in roles.categorical if c not in gone),
+            weights=None if roles.weights in gone else roles.weights,
+            groups=None if roles.groups in gone else roles.groups))
+
+    @property
+    def columns_table(self) -> Table:
+        """The table with the derived columns appended: every column a role may name."""
+        from regbench.data.derive import apply_derived
+
+        derived = self.roles.derived
+        if getattr(self, "_columns_table_for", None) != (id(self.table), derived):
+            self._columns_table = apply_derived(self.table, derived)
+            self._columns_table_for = (id(self.table), derived)
+        return self._columns_table
+
     def set_settings(self, settings: FitSettings) -> None:
         settings = _normalized(settings)
         self._edit("settings", replace(self._state, settings=settings), "settings", settings)

@@ -13,6 +13,7 @@ from typing import Optional, Sequence
 
 import numpy as np
 
+from regbench.data.derive import Derived, apply_derived
 from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC, Table
 from regbench.errors import DataError
 
@@ -32,6 +33,9 @@ class Roles:
         Row weights (a count or frequency per row); must be finite and >= 0.
     groups : str or None
         Rows of one group stay on the same side of every held-out check.
+    derived : tuple of regbench.data.derive.Derived
+        Columns computed from others (log, square, product …) before the design is
+        built; they can then be named in any role like a column of the table.
     """
 
     target: str
@@ -39,15 +43,20 @@ class Roles:
     categorical: tuple = ()
     weights: Optional[str] = None
     groups: Optional[str] = None
+    derived: tuple = ()
 
     def to_dict(self) -> dict:
-        return {
+        d = {
             "target": self.target,
             "predictors": list(self.predictors),
             "categorical": list(self.categorical),
             "weights": self.weights,
             "groups": self.groups,
         }
+        # Only when present, so the key of a session without derived columns is unchanged.
+        if self.derived:
+            d["derived"] = [x.to_dict() for x in self.derived]
+        return d
 
     @classmethod
     def from_dict(cls, d: dict) -> "Roles":
@@ -57,6 +66,7 @@ class Roles:
             categorical=tuple(d.get("categorical") or ()),
             weights=d.get("weights"),
             groups=d.get("groups"),
+            derived=tuple(Derived.from_dict(x, f"roles.derived[{i}]") for i, x in enumerate(d.get("derived") or ())),
         )
 
 
@@ -124,6 +134,8 @@ class Design:
     weights_column: Optional[str] = None
     groups_column: Optional[str] = None
     n_table_rows: int = 0
+    #: The derived columns (regbench.data.derive.Derived) applied before the design was built.
+    derived: tuple = ()
 
     @property
     def n(self) -> int:
@@ -219,6 +231,7 @@ def build_design(table: Table, roles: Roles) -> Design:
         Unknown column, a target that is not numeric or is constant, a bad weight
         column, more predictors than usable rows, or no usable rows.
     """
+    table = apply_derived(table, roles.derived)
     src = table.source or "the table"
     for label, col in (("target", roles.target), ("weights", roles.weights), ("groups", roles.groups)):
         if col is not None:
@@ -381,6 +394,7 @@ def build_design(table: Table, roles: Roles) -> Design:
         weights_column=roles.weights,
         groups_column=roles.groups,
         n_table_rows=n,
+        derived=tuple(roles.derived),
     )
 
 

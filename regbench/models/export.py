@@ -113,6 +113,7 @@ def fit_to_json(design, results) -> dict:
         "rows_used": int(design.n),
         "rows_excluded": [e.to_dict() for e in design.excluded],
         "unusable": [u.to_dict() for u in design.unusable],
+        "derived_columns": [{"name": x.name, **x.to_dict()} for x in getattr(design, "derived", ())],
         "models": models,
         "diagnostics": {
             "vif": _by_column(d.columns, d.vif),

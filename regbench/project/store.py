@@ -406,10 +406,14 @@ def _session_state(ar: _Archive, doc, table):
     if unknown:
         bad(", ".join(sorted(map(str, unknown))[:5]), "is not part of this format",
             "the file is damaged or was written by another program")
-    names = set(table.names)
     roles_d = doc.get("roles")
     if not isinstance(roles_d, dict):
         bad("roles", "is missing or not an object")
+    try:
+        derived = Roles.from_dict({"target": "", **roles_d}).derived
+    except (DataError, TypeError) as exc:
+        bad("roles.derived", f"is not usable ({exc})")
+    names = set(table.names) | {d.name for d in derived}
     for key in ("target",):
         if not isinstance(roles_d.get(key), str):
             bad(f"roles.{key}", "must be a column name")
