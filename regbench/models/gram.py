@@ -91,13 +91,44 @@ class GramStats:
         )
 
     def __add__(self, other: "GramStats") -> "GramStats":
-        _same_shift(self, other)
+        """Statistics of the rows of both; with different shifts, the pairwise co-moment update."""
+        if not _shifts_equal(self, other):
+            return merge(self, other)
         return GramStats(
             W=self.W + other.W, n=self.n + other.n, shift_x=self.shift_x, shift_y=self.shift_y,
             sx=self.sx + other.sx, sy=self.sy + other.sy, xx=self.xx + other.xx,
             xy=self.xy + other.xy, yy=self.yy + other.yy,
             xx_scale=self._scale() + other._scale(),
         )
+
+    def recentred(self, shift_x, shift_y) -> "GramStats":
+        """The same rows' statistics about another reference point.
+
+        ``Σ w (x - s)(x - s)ᵀ = C + W (x̄ - s)(x̄ - s)ᵀ`` with C the centred
+        co-moments: the centred part is kept as it is and only the (small, when
+        ``s`` is near the mean) offset term is added, so no digits cancel.
+        """
+        shift_x = np.asarray(shift_x, dtype=np.float64)
+        shift_y = float(shift_y)
+        if self.W > 0:
+            mx, my = self.mean_x(), self.mean_y()
+            cxx, cxy, cyy = self.centered_xx(), self.centered_xy(), self.centered_yy()
+        else:
+            mx, my = shift_x, shift_y
+            cxx, cxy, cyy = self.xx, self.xy, self.yy
+        dx = mx - shift_x
+        dy = my - shift_y
+        xx = cxx + self.W * np.outer(dx, dx)
+        return GramStats(W=self.W, n=self.n, shift_x=shift_x, shift_y=shift_y, sx=self.W * dx,
+                         sy=float(self.W * dy), xx=0.5 * (xx + xx.T), xy=cxy + self.W * dx * dy,
+                         yy=float(cyy + self.W * dy * dy),
+                         xx_scale=self._scale() + self.W * dx * dx)
+
+    def centred(self) -> "GramStats":
+        """The same statistics about their own weighted means (``sx`` = 0): centred co-moments."""
+        if not self.W > 0:
+            return self
+        return self.recentred(self.mean_x(), self.mean_y())
 
     def _scale(self) -> np.ndarray:
         return np.diag(self.xx).copy() if self.xx_scale is None else self.xx_scale
@@ -167,9 +198,48 @@ class GramStats:
         return G, c, mean, sd
 
 
+def _shifts_equal(a: GramStats, b: GramStats) -> bool:
+    return a.shift_y == b.shift_y and np.array_equal(a.shift_x, b.shift_x)
+
+
 def _same_shift(a: GramStats, b: GramStats) -> None:
-    if a.shift_y != b.shift_y or not np.array_equal(a.shift_x, b.shift_x):
-        raise ValueError("Gram statistics with different shifts cannot be combined")
+    if not _shifts_equal(a, b):
+        raise ValueError("Gram statistics with different shifts cannot be subtracted; recentre one first")
+
+
+def merge(a: GramStats, b: GramStats) -> GramStats:
+    """Statistics of the rows of ``a`` and ``b`` together, as centred co-moments.
+
+    The pairwise update of Chan, Golub & LeVeque (1983) in matrix form: with
+    weights ``Wa``, ``Wb``, means ``ma``, ``mb`` and centred co-moments ``Ca``,
+    ``Cb`` of the stacked ``z = (x, y)``::
+
+        W = Wa + Wb,   δ = mb − ma,   m = ma + δ·Wb/W,
+        C = Ca + Cb + (Wa·Wb/W) δδᵀ
+
+    Every term is a sum of squares about a mean, so nothing cancels however
+    far the data sit from zero or from each other.  The result is centred on
+    its own mean (``shift`` = the mean, ``sx`` = 0).
+    """
+    if not a.W > 0 or not b.W > 0:
+        keep, other = (b, a) if not a.W > 0 else (a, b)
+        out = keep.centred()
+        return GramStats(W=out.W + other.W, n=a.n + b.n, shift_x=out.shift_x, shift_y=out.shift_y, sx=out.sx,
+                         sy=out.sy, xx=out.xx, xy=out.xy, yy=out.yy, xx_scale=out._scale())
+    Wa, Wb = a.W, b.W
+    W = Wa + Wb
+    ma, mb = a.mean_x(), b.mean_x()
+    ya, yb = a.mean_y(), b.mean_y()
+    dx = mb - ma
+    dy = yb - ya
+    f = Wa * Wb / W
+    mean = ma + dx * (Wb / W)
+    ymean = ya + dy * (Wb / W)
+    xx = a.centered_xx() + b.centered_xx() + f * np.outer(dx, dx)
+    scale = a._scale() + b._scale() + f * dx * dx
+    return GramStats(W=float(W), n=a.n + b.n, shift_x=mean, shift_y=float(ymean), sx=np.zeros_like(mean), sy=0.0,
+                     xx=0.5 * (xx + xx.T), xy=a.centered_xy() + b.centered_xy() + f * dx * dy,
+                     yy=float(a.centered_yy() + b.centered_yy() + f * dy * dy), xx_scale=scale)
 
 
 def _chunk_rows(p: int) -> int:
@@ -276,3 +346,159 @@ def per_fold(X, y, w, fold_ids, K: int, chunk: Optional[int] = None):
     for f in folds[1:]:
         full = full + f
     return full, folds
+
+
+class FoldAccumulator:
+    """Per-fold statistics gathered block by block, merged as centred co-moments.
+
+    Each block's rows of each fold are centred on their own weighted means
+    (a two-pass sum within the block) and merged into the running statistics
+    of their fold by :func:`merge`.  The result does not depend on how the
+    rows were cut into blocks beyond round-off, and blocks may come from a
+    file read in batches or from workers of a cluster (accumulators combine
+    with :meth:`combine`).
+
+    Parameters
+    ----------
+    p : int
+        Number of predictors.
+    K : int
+        Number of folds (1 when only the whole is wanted).
+    """
+
+    def __init__(self, p: int, K: int = 1):
+        self.p = int(p)
+        self.K = int(K)
+        self.folds = [None] * self.K
+
+    def add(self, X, y, w, fold_ids=None) -> None:
+        """Fold the rows of one block in."""
+        X = np.asarray(X, dtype=np.float64)
+        y = np.asarray(y, dtype=np.float64)
+        w = np.asarray(w, dtype=np.float64)
+        if X.shape[0] == 0:
+            return
+        chunk = _chunk_rows(self.p)
+        if fold_ids is None or self.K == 1:
+            groups = [(0, None)]
+        else:
+            fold_ids = np.asarray(fold_ids)
+            order = np.argsort(fold_ids, kind="stable")
+            bounds = np.searchsorted(fold_ids[order], np.arange(self.K + 1))
+            groups = [(k, order[bounds[k]:bounds[k + 1]]) for k in range(self.K) if bounds[k + 1] > bounds[k]]
+        for k, rows in groups:
+            wk = w if rows is None else w[rows]
+            Wk = wk.sum()
+            if Wk > 0:
+                Xk = X if rows is None else X[rows]
+                yk = y if rows is None else y[rows]
+                shift = ((wk @ Xk) / Wk, float(wk @ yk) / Wk)
+            else:
+                shift = (np.zeros(self.p), 0.0)
+            st = _accumulate(X, y, w, rows, shift[0], shift[1], chunk)
+            self.folds[k] = st if self.folds[k] is None else merge(self.folds[k], st)
+
+    def combine(self, other: "FoldAccumulator") -> "FoldAccumulator":
+        """The statistics of both accumulators' rows (e.g. from two workers)."""
+        out = FoldAccumulator(self.p, self.K)
+        for k in range(self.K):
+            a, b = self.folds[k], other.folds[k]
+            out.folds[k] = b if a is None else a if b is None else merge(a, b)
+        return out
+
+    def result(self):
+        """``(full, folds)``, all about the whole's weighted means, as :func:`per_fold` returns them."""
+        empty = GramStats(W=0.0, n=0, shift_x=np.zeros(self.p), shift_y=0.0, sx=np.zeros(self.p), sy=0.0,
+                          xx=np.zeros((self.p, self.p)), xy=np.zeros(self.p), yy=0.0, xx_scale=np.zeros(self.p))
+        parts = [f if f is not None else empty for f in self.folds]
+        whole = parts[0]
+        for f in parts[1:]:
+            whole = merge(whole, f)
+        if not whole.W > 0:
+            raise ModelError("the rows being fitted have total weight 0; there is nothing to fit")
+        sx, sy = whole.mean_x(), whole.mean_y()
+        folds = [f.recentred(sx, sy) for f in parts]
+        full = folds[0]
+        for f in folds[1:]:
+            full = full + f
+        return full, folds
+
+
+class FactorAccumulator:
+    """The triangular factor of the weighted, centred rows, gathered block by block.
+
+    Keeps ``W``, the weighted means of ``z = (x, y)`` and the upper-triangular
+    ``R`` with ``RᵀR = Σ w (z − z̄)(z − z̄)ᵀ``.  A block is centred on its own
+    means and factored; two factors merge as the factor of
+    ``[Ra; Rb; √(Wa·Wb/W)·δᵀ]`` — the pairwise co-moment update of
+    :func:`merge` carried out on square roots, so the accuracy is that of a
+    QR of the rows (what OLS needs on badly conditioned columns), not that of
+    the normal equations.
+    """
+
+    def __init__(self, p: int):
+        self.p = int(p)
+        self.n = 0
+        self.W = 0.0
+        self.mean = np.zeros(self.p + 1)
+        self.R = np.zeros((self.p + 1, self.p + 1))
+
+    def add(self, X, y, w) -> None:
+        """Fold the rows of one block in (rows of weight 0 add nothing)."""
+        from regbench.models.ols import r_factor
+
+        w = np.asarray(w, dtype=np.float64)
+        pos = w > 0
+        if not pos.any():
+            return
+        Z = np.column_stack([np.asarray(X, dtype=np.float64)[pos], np.asarray(y, dtype=np.float64)[pos]])
+        w = w[pos]
+        Wb = w.sum()
+        mb = (w @ Z) / Wb
+        Z -= mb
+        Z *= np.sqrt(w)[:, None]
+        q = self.p + 1
+        if Z.shape[0] < q:
+            Z = np.vstack([Z, np.zeros((q - Z.shape[0], q))])
+        Rb = r_factor(np.asfortranarray(Z))
+        self._merge(int(pos.sum()), float(Wb), mb, Rb)
+
+    def _merge(self, n, Wb, mb, Rb) -> None:
+        from regbench.models.ols import r_factor
+
+        if self.W == 0:
+            self.n, self.W, self.mean, self.R = n, Wb, mb, Rb
+            return
+        W = self.W + Wb
+        d = mb - self.mean
+        stack = np.vstack([self.R, Rb, np.sqrt(self.W * Wb / W) * d[None, :]])
+        self.R = r_factor(np.asfortranarray(stack))
+        self.mean = self.mean + d * (Wb / W)
+        self.W = W
+        self.n += n
+
+    def combine(self, other: "FactorAccumulator") -> "FactorAccumulator":
+        """The factor of both accumulators' rows."""
+        out = FactorAccumulator(self.p)
+        out.n, out.W, out.mean, out.R = self.n, self.W, self.mean.copy(), self.R.copy()
+        if other.W > 0:
+            out._merge(other.n, other.W, other.mean, other.R)
+        return out
+
+    def factor(self) -> np.ndarray:
+        """The (p+2)×(p+2) factor of ``sqrt(w/W)·[1, x, y]`` as :attr:`OLSResult.r_factor` holds it."""
+        if not self.W > 0:
+            raise ModelError("every weight is zero; at least one row must have a weight above 0")
+        q = self.p + 1
+        Rc = self.R / np.sqrt(self.W)
+        # Row signs as LAPACK leaves them are arbitrary; a non-negative diagonal makes merged
+        # factors comparable with one another.
+        s = np.where(np.diag(Rc) < 0, -1.0, 1.0)
+        Rc = Rc * s[:, None]
+        ss = np.sum(Rc[:, :self.p] ** 2, axis=0)
+        Rc[:, :self.p][:, ss == 0] = 0.0
+        out = np.zeros((q + 1, q + 1))
+        out[0, 0] = 1.0
+        out[0, 1:] = self.mean
+        out[1:, 1:] = Rc
+        return out

@@ -102,7 +102,7 @@ def one_blas_thread():
 
 
 def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None, *,
-            chunk_rows: Optional[int] = None) -> OLSResult:
+            chunk_rows: Optional[int] = None, factor=None) -> OLSResult:
     """Weighted least squares with intercept, setting aside columns the others reproduce.
 
     Parameters
@@ -119,6 +119,11 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None, 
     chunk_rows : int, optional
         Rows per block of the pass over the rows; default :func:`block_rows`.
         The result does not depend on it beyond round-off.
+    factor : FactorRows, optional
+        The rows' factor gathered elsewhere (a streamed or distributed pass,
+        :func:`factor_rows`); ``design`` then needs only ``columns``.  Without
+        the rows the solution is not refined on residuals; it is the QR
+        solution of the factor.
 
     Returns
     -------
@@ -137,15 +142,15 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None, 
         depend on each other (named), non-finite values or bad weights.
     """
     with one_blas_thread():
-        return _fit_ols(design, pins, rank_tol, chunk_rows)
+        return _fit_ols(design, pins, rank_tol, chunk_rows, factor)
 
 
-def _fit_ols(design, pins, rank_tol, chunk_rows) -> OLSResult:
+def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None) -> OLSResult:
     from scipy import linalg, stats
 
     columns = tuple(design.columns)
     p = len(columns)
-    fac = weighted_factor(design, chunk_rows)
+    fac = weighted_factor(design, chunk_rows) if factor is None else factor
     pins = tuple(dict.fromkeys(pins))
     for c in pins:
         if c not in columns:
@@ -192,7 +197,7 @@ def _fit_ols(design, pins, rank_tol, chunk_rows) -> OLSResult:
         b = linalg.solve_triangular(Rk, Qk.T @ qz, check_finite=False)
         beta_k = b / scale[kept]
         icpt = ybar - mean[kept] @ beta_k
-        for _ in range(2):
+        for _ in range(2 if rows.has_rows else 0):
             e = rows.residuals(_full(p, kept, beta_k), icpt)
             ebar = (rows.w @ e) / W
             v = (rows.w / W) * (e - ebar)
@@ -205,9 +210,7 @@ def _fit_ols(design, pins, rank_tol, chunk_rows) -> OLSResult:
         beta_k = np.zeros(0)
         icpt = ybar
 
-    resid = rows.residuals(_full(p, kept, beta_k), icpt)
-    ssr = float(rows.w @ (resid * resid))
-    tss = float(rows.w @ ((rows.y - ybar) ** 2))
+    ssr, tss = rows.sums_of_squares(_full(p, kept, beta_k), icpt, ybar)
     df = n - k - 1
     r2 = 1.0 - ssr / tss if tss > 0 else float("nan")
     adj = 1.0 - (n - 1) / df * (1.0 - r2) if df > 0 else float("nan")
@@ -306,8 +309,15 @@ class _Rows:
             out[a:b] = block @ B
         return out
 
+    has_rows = True
+
     def residuals(self, beta, icpt) -> np.ndarray:
         return self.y - icpt - self.products(beta)
+
+    def sums_of_squares(self, beta, icpt, ybar):
+        """Weighted residual and total sums of squares of a fit."""
+        resid = self.residuals(beta, icpt)
+        return float(self.w @ (resid * resid)), float(self.w @ ((self.y - ybar) ** 2))
 
     def weighted_ss(self, B, c) -> np.ndarray:
         """``sum_i w_i (x_i @ B - c)²`` per column of ``B``, block by block."""
@@ -323,6 +333,53 @@ class _Rows:
         for a, b, block in self.blocks():
             acc += v[a:b] @ block
         return acc
+
+
+class _FactorOnly:
+    """Stands in for the rows when only their factor is at hand (streamed or distributed pass).
+
+    ``R`` is the factor of ``sqrt(w/W)·[1, x, y]``, so ``Σ w (x·B − c)² = W·‖R₁[−c; B]‖²``
+    for the leading block ``R₁``; sums of squares need no row.
+    """
+
+    has_rows = False
+
+    def __init__(self, R, W, n):
+        self.R = R
+        self.W = W
+        self.n = n
+
+    def sums_of_squares(self, beta, icpt, ybar):
+        p = beta.shape[0]
+        v = np.concatenate([[-icpt], -beta, [1.0]])
+        ssr = self.W * float(np.sum((self.R @ v) ** 2))
+        tss = self.W * float(np.sum(self.R[1:, p + 1] ** 2))
+        return ssr, tss
+
+    def weighted_ss(self, B, c) -> np.ndarray:
+        q = B.shape[0] + 1
+        V = np.vstack([-np.asarray(c, dtype=float)[None, :], B])
+        return self.W * np.sum((self.R[:q, :q] @ V) ** 2, axis=0)
+
+
+def factor_rows(R, W: float, n: int) -> "_Factor":
+    """What :func:`fit_ols` needs from a factor gathered without the rows.
+
+    Parameters
+    ----------
+    R : ndarray (p+2, p+2)
+        The factor of ``sqrt(w/W)·[1, x, y]`` (as :attr:`OLSResult.r_factor`).
+    W : float
+        Sum of the weights.
+    n : int
+        Rows of weight above 0.
+    """
+    R = np.asarray(R, dtype=np.float64)
+    p = R.shape[0] - 2
+    mean = R[0, 1:p + 1].copy()
+    sd = np.sqrt(np.sum(R[1:, 1:p + 1] ** 2, axis=0))
+    return _Factor(rows=_FactorOnly(R, float(W), int(n)), n=int(n), W=float(W), mean=mean,
+                   ybar=float(R[0, p + 1]), sd=sd, R=R)
 
 
 class _Factor:
