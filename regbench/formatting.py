@@ -34,3 +34,11 @@ def number_text(v: float, digits: int = 4, *, missing: str = "", unicode_minus: 
     else:
         text = f"{v:.{digits}g}"
     return text.replace("-", "−") if unicode_minus else text
+
+
+def natural_key(text) -> tuple:
+    """Sort key that orders the numbers inside labels by value: 'house 2' before 'house 10'."""
+    import re
+
+    parts = re.split(r"(\d+(?:\.\d+)?)", str(text))
+    return tuple((0, float(p), "") if i % 2 else (1, 0.0, p.casefold()) for i, p in enumerate(parts) if p != "")

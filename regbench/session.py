@@ -600,6 +600,16 @@ class Session:
     def structure(self):
         return self._derived().get("structure")
 
+    def fit_quality(self):
+        """Each model at the chosen α against the target (see :mod:`regbench.analysis.fit_quality`);
+        None before a fit.  Cheap (one product per model), so it is computed when asked."""
+        models = self.models()
+        if not models:
+            return None
+        from regbench.analysis.fit_quality import fit_quality
+
+        return fit_quality(self.design, models, self.heldout())
+
     def stress_results(self) -> tuple:
         return tuple(self._derived().get("stress", ()))
 

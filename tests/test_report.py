@@ -13,6 +13,7 @@ import pathlib
 import re
 import shutil
 import subprocess
+from html import escape
 from html.parser import HTMLParser
 
 import pytest
@@ -20,7 +21,7 @@ import pytest
 from regbench.analysis.stress import StressConfig
 from regbench.data.design import Roles
 from regbench.demo import GREENHOUSE_ROLES
-from regbench.models.results import FitSettings
+from regbench.models.results import FitSettings, model_label
 from regbench.report import SECTIONS, render_report, report_html
 from regbench.session import Session
 
@@ -88,7 +89,7 @@ def test_every_section_heading_in_order(html):
     assert p.h2 == [h for _, h in SECTIONS]
     assert [h for _, h in SECTIONS][:6] == [
         "What are we asking, and of which rows?", "What overlaps in this table?", "How do the fits differ?",
-        "Do they predict alike?", "What breaks when one input goes bad?", "How sure are we?"]
+        "Does any of them fit?", "Do they predict alike?", "What breaks when one input goes bad?"]
 
 
 def test_self_contained_no_external_url_no_script(html):
@@ -180,7 +181,7 @@ def test_plain_session_without_weights_groups_or_stress_renders(tmp_path):
     assert p.h2 == [h for _, h in SECTIONS]
     text = "".join(p.text)
     assert "No stress test was set up." in text and "No stability check was run" in text
-    assert "Held-out error by" not in text
+    assert "Held-out error (RMSE) by" not in text
     assert "Row weights" in text and "none (every row counts once)" in text
 
 
@@ -204,3 +205,18 @@ def test_reproduce_command_refits_the_same_models(session, tmp_path, monkeypatch
 
     for name, pf in session.results.penalized.items():
         np.testing.assert_array_equal(again.results.penalized[name].model.coef, pf.model.coef)
+
+
+def test_fit_quality_section_lists_each_model_and_groups_in_natural_order(session, html):
+    # Group order is natural (2 before 10); test_fit_quality checks that on labels where it matters.
+    q = session.fit_quality()
+    section = html[html.index('id="quality"'):html.index('id="agreement"')]
+    assert q.sentences[0].split(" (")[0] in section
+    for name in q.models:
+        assert f">{escape(model_label(name))}<" in section  # hostile names arrive escaped
+    labels = list(dict.fromkeys(g.group for g in q.groups))
+    from regbench.formatting import natural_key
+
+    assert labels == sorted(labels, key=natural_key)
+    positions = [section.index(f">{g}<") for g in labels]
+    assert positions == sorted(positions)

@@ -25,6 +25,7 @@ SECTIONS = (
     ("question", "What are we asking, and of which rows?"),
     ("overlap", "What overlaps in this table?"),
     ("fits", "How do the fits differ?"),
+    ("quality", "Does any of them fit?"),
     ("agreement", "Do they predict alike?"),
     ("stress", "What breaks when one input goes bad?"),
     ("stability", "How sure are we?"),
@@ -272,10 +273,6 @@ def _fits(session) -> str:
     return "".join(parts)
 
 
-def _weighted_rms(v, w):
-    return float(np.sqrt(np.sum(w * v * v) / np.sum(w))) if np.sum(w) > 0 else float("nan")
-
-
 def _agreement(session) -> str:
     ag = session.agreement()
     if ag is None:
@@ -292,18 +289,32 @@ def _agreement(session) -> str:
             parts.append(f"<h3>{e(title)}</h3>")
             parts.append(table(["Pair", "RMSE of difference", "Largest difference", "Correlation", "Mean difference",
                                 "95% limits of agreement"], rows))
-    d = session.design
-    held = session.heldout()
-    if d.groups is not None and held:
-        parts.append(f"<h3>Held-out error by {e(d.groups_column)}</h3>")
-        parts.append("<p>Each group's rows predicted by models fitted without that group's fold.</p>")
-        names = list(held)
-        rows = []
-        for g, label in enumerate(d.group_labels):
-            m = d.groups == g
-            rows.append((label, str(int(m.sum())), *[num(_weighted_rms(held[n][m] - d.y[m], d.weights[m]))
-                                                     for n in names]))
-        parts.append(table([d.groups_column, "Rows", *[model_label(n) for n in names]], rows))
+    return "".join(parts)
+
+
+def _quality(session) -> str:
+    q = session.fit_quality()
+    if q is None:
+        return "<p>The models have not been fitted.</p>"
+    parts = [sentences(q.sentences)]
+    held = any(f.split == "held_out" for f in q.fits)
+    heads = ["Model", "RMSE, fitted rows", "R², fitted rows"] + (["RMSE, held out", "R², held out",
+                                                                   "Mean residual, held out"] if held else [])
+    rows = []
+    for n in q.models:
+        t, h = q.fit(n, "training"), q.fit(n, "held_out")
+        rows.append((model_label(n), num(t.rmse), num(t.r_squared))
+                    + ((num(h.rmse), num(h.r_squared), num(h.mean_residual)) if held and h else ()))
+    parts.append(table(heads, rows))
+    if q.groups:
+        d = session.design
+        labels = list(dict.fromkeys(g.group for g in q.groups))
+        by = {(g.model, g.group): g for g in q.groups}
+        parts.append(f"<h3>{'Held-out' if q.group_split == 'held_out' else 'Fitted'} error (RMSE) by "
+                     f"{e(d.groups_column)}</h3>")
+        parts.append(table([d.groups_column, "Rows", *[model_label(n) for n in q.models]],
+                           [(g, str(by[(q.models[0], g)].rows), *[num(by[(n, g)].rmse) if (n, g) in by else ""
+                                                                 for n in q.models]) for g in labels]))
     return "".join(parts)
 
 
@@ -440,7 +451,7 @@ def _cautions(session) -> str:
     return "<ul>" + "".join(f"<li>{e(c)}</li>" for c in CAUTIONS) + "</ul>"
 
 
-_BUILDERS = {"question": _question, "overlap": _overlap, "fits": _fits, "agreement": _agreement,
+_BUILDERS = {"question": _question, "overlap": _overlap, "fits": _fits, "quality": _quality, "agreement": _agreement,
              "stress": _stress, "stability": _stability, "notes": _notes, "reproduce": _reproduce,
              "cautions": _cautions}
 
