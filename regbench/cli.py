@@ -268,12 +268,22 @@ COMMANDS = {
 }
 
 
+#: Headless commands whose numeric work runs with one BLAS thread.
+ONE_BLAS_THREAD = ("fit", "stress", "new", "report", "inspect")
+
+
 def main(argv: Optional[Sequence[str]] = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     if args.command is None:
         return cmd_open(argparse.Namespace(path=None))
     try:
+        if args.command in ONE_BLAS_THREAD:
+            from regbench.models.ols import one_blas_thread
+
+            # Many short BLAS calls on shared cores wait on each other's threads (see ols.py).
+            with one_blas_thread():
+                return COMMANDS[args.command](args)
         return COMMANDS[args.command](args)
     except RegbenchError as exc:
         sys.stderr.write(f"regbench {args.command}: {exc}\n")

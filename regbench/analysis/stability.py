@@ -6,7 +6,10 @@ OLS and every penalized family at the fixed chosen α (``engine.fit_models_at``,
 no path, no CV).  A draw enters the refit as a multiplicity per row: a row
 drawn k times gets weight k·w.  For weighted least squares and for the
 penalized objective this is the same problem as stacking k copies of the row
-(the objective sums wᵢ over rows), and no rows are copied.
+(the objective sums wᵢ over rows), and no rows are copied.  With groups, a
+refit needs no row at all: the drawn sample's cross-products are the groups'
+cross-products added up with their counts (:mod:`regbench.analysis.group_refits`),
+so each refit is p×p work after one pass over the rows.
 
 Reported per column: how often OLS sets it aside, how often each model uses it
 (coefficient ≠ 0: "selected" for lasso and elastic net), and each
@@ -109,8 +112,13 @@ def resample_counts(design, rng: np.random.Generator) -> np.ndarray:
     return per_group[design.groups]
 
 
+def group_counts(n_groups: int, rng: np.random.Generator) -> np.ndarray:
+    """How many times each group is drawn in one grouped bootstrap sample (as :func:`resample_counts`)."""
+    return np.bincount(rng.integers(0, n_groups, n_groups), minlength=n_groups).astype(np.float64)
+
+
 def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed: int = 0, progress=None,
-                        cancel=None) -> Stability:
+                        cancel=None, method: str = "auto") -> Stability:
     """Refit every model on bootstrap samples at the fixed α of each family.
 
     Parameters
@@ -124,29 +132,59 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
     seed : int
     progress, cancel : callables, optional
         ``progress(done, total, message)`` after each refit; ``cancel()`` checked between refits.
+    method : {'auto', 'groups', 'rows'}
+        ``'groups'`` refits from the cross-products of each group, re-weighted by
+        how often the draw took it (p×p work per refit, :mod:`regbench.analysis.group_refits`);
+        ``'rows'`` refits on the re-weighted rows.  ``'auto'`` uses the groups
+        when the design has them.  Given the same draws both give the same models,
+        except that OLS, working from cross-products, sets a column aside when what
+        is left of it is within :data:`~regbench.analysis.group_refits.GRAM_RANK_TOL`
+        of its size (the rows resolve down to round-off).
 
     Returns
     -------
     Stability
     """
-    from regbench.models.engine import fit_models_at
-    from regbench.models.ols import fit_ols
+    from regbench.models.ols import one_blas_thread
 
     n_boot = int(n_boot)
     if n_boot < 2:
         raise DataError(f"stability needs at least 2 bootstrap refits, not {n_boot}")
+    if method not in ("auto", "groups", "rows"):
+        raise ValueError(f"method: '{method}' is not one of auto, groups, rows")
+    by_groups = design.groups is not None and method in ("auto", "groups")
+    if method == "groups" and design.groups is None:
+        raise DataError("stability from group cross-products needs a group column")
+    with one_blas_thread():
+        return _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups)
+
+
+def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups) -> Stability:
+    from regbench.models.engine import fit_models_at
+    from regbench.models.ols import fit_ols
+
     rng = np.random.default_rng(seed)
     draws = None
     names = None
     p = design.p
     flat = 0
+    refitter = None
+    if by_groups:
+        from regbench.analysis.group_refits import GroupRefits
+
+        refitter = GroupRefits(design, settings, alphas)
     for b in range(n_boot):
         check(cancel)
-        counts = resample_counts(design, rng)
-        drawn = design.y[(counts > 0) & (design.weights > 0)]
-        flat += int(drawn.size == 0 or np.ptp(drawn) == 0)
         try:
-            models = fit_models_at(replace(design, weights=design.weights * counts), settings, alphas)
+            if refitter is not None:
+                per_group = group_counts(refitter.n_groups, rng)
+                flat += int(refitter.flat(per_group))
+                models = refitter.refit(per_group)
+            else:
+                counts = resample_counts(design, rng)
+                drawn = design.y[(counts > 0) & (design.weights > 0)]
+                flat += int(drawn.size == 0 or np.ptp(drawn) == 0)
+                models = fit_models_at(replace(design, weights=design.weights * counts), settings, alphas)
         except ModelError as exc:
             what = "groups" if design.groups is not None else "rows"
             raise ModelError(f"bootstrap refit {b + 1} of {n_boot} (seed {seed}) could not be fitted on the {what} "

@@ -332,6 +332,13 @@ def per_fold(X, y, w, fold_ids, K: int, chunk: Optional[int] = None):
     folds : list of GramStats
         Rows of fold k.  The training statistics of fold k are ``full - folds[k]``.
     """
+    from regbench.models.ols import one_blas_thread
+
+    with one_blas_thread():
+        return _per_fold(X, y, w, fold_ids, K, chunk)
+
+
+def _per_fold(X, y, w, fold_ids, K, chunk):
     X = np.asarray(X, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64)
     w = np.asarray(w, dtype=np.float64)

@@ -1,0 +1,172 @@
+"""Bootstrap refits from the cross-products of each group: p×p work per refit.
+
+A grouped bootstrap draw takes whole groups with replacement, so the drawn
+sample's weighted cross-products are the groups' own cross-products added up
+with the number of times each group was drawn::
+
+    Σ_drawn w x xᵀ = Σ_g c_g · (Σ_{rows of g} w x xᵀ)
+
+One pass over the rows gathers the groups' statistics (about the whole
+design's weighted means, so the re-weighted sums keep their digits, as the
+fold statistics of cross-validation do); every refit after that costs
+G·p² additions and the p×p solves of each model, however many rows there are.
+
+OLS works on a factor of the re-weighted co-moments instead of the rows.  Its
+column lengths carry round-off of about √ε of each column's size rather
+than ε, so a column counts as reproduced by the columns kept before it when
+what is left of it is within :data:`GRAM_RANK_TOL` of its size (exact
+aliases, built from other columns by a few float operations, leave about
+1e-8 here).  A refit whose kept columns are badly conditioned
+(:data:`regbench.models.engine.GRAM_COND_LIMIT`) is solved on the rows instead.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+
+import numpy as np
+
+from regbench.errors import ModelError
+from regbench.models.gram import GramStats, per_fold
+from regbench.models.results import LinearModel
+
+#: What is left of a column, relative to its size, below which a refit from cross-products
+#: sets it aside (see the module docstring); the rows resolve down to ``rank_tol``.
+GRAM_RANK_TOL = 1e-6
+
+
+class GroupRefits:
+    """Refit every model at fixed α on re-weighted group cross-products.
+
+    Parameters
+    ----------
+    design : Design
+        Must have groups.
+    settings : FitSettings
+    alphas : dict of str -> float
+        α of each penalized family.
+    """
+
+    def __init__(self, design, settings, alphas: dict):
+        from regbench.models.engine import families
+
+        if design.groups is None:
+            raise ModelError("refits from group cross-products need a group column")
+        self.design = design
+        self.settings = settings
+        self.n_groups = int(design.groups.max()) + 1
+        self.families = []
+        for name, rho in families(settings):
+            a = alphas.get(name, settings.alpha)
+            if a is None:
+                raise ModelError(f"no α given for {name}; pass one per model or set a fixed α in the settings")
+            if not (np.isfinite(a) and a > 0):
+                raise ModelError(f"α = {a:g} for {name}: α must be a positive number")
+            self.families.append((name, float(rho), float(a)))
+        _, parts = per_fold(design.X, design.y, design.weights, design.groups, self.n_groups)
+        self.shift_x, self.shift_y = parts[0].shift_x, parts[0].shift_y
+        self.W = np.array([s.W for s in parts])
+        self.n = np.array([s.n for s in parts], dtype=np.float64)
+        self.sx = np.stack([s.sx for s in parts])
+        self.sy = np.array([s.sy for s in parts])
+        self.xx = np.stack([s.xx for s in parts])
+        self.xy = np.stack([s.xy for s in parts])
+        self.yy = np.array([s.yy for s in parts])
+        self.scale = np.stack([s._scale() for s in parts])
+        pos = design.weights > 0
+        g = design.groups
+        self.n_pos = np.bincount(g[pos], minlength=self.n_groups).astype(np.float64)
+        self.y_min = np.full(self.n_groups, np.inf)
+        self.y_max = np.full(self.n_groups, -np.inf)
+        np.minimum.at(self.y_min, g[pos], design.y[pos])
+        np.maximum.at(self.y_max, g[pos], design.y[pos])
+        self.pin_idx = [design.columns.index(c) for c in dict.fromkeys(settings.pins) if c in design.columns]
+
+    def stats(self, counts: np.ndarray) -> GramStats:
+        """The cross-products of a draw that takes group g ``counts[g]`` times."""
+        c = np.asarray(counts, dtype=np.float64)
+        xx = np.tensordot(c, self.xx, axes=1)
+        return GramStats(W=float(c @ self.W), n=int(round(c @ self.n)), shift_x=self.shift_x, shift_y=self.shift_y,
+                         sx=c @ self.sx, sy=float(c @ self.sy), xx=0.5 * (xx + xx.T), xy=c @ self.xy,
+                         yy=float(c @ self.yy), xx_scale=c @ self.scale)
+
+    def flat(self, counts: np.ndarray) -> bool:
+        """True when every drawn row with weight has the same target value (or none is drawn)."""
+        drawn = (np.asarray(counts) > 0) & (self.n_pos > 0)
+        return not drawn.any() or self.y_max[drawn].max() == self.y_min[drawn].min()
+
+    def refit(self, counts: np.ndarray) -> dict:
+        """OLS and each penalized family on the draw; dict of name -> LinearModel, OLS first."""
+        from regbench.models.penalized import Problem, model_from_problem
+
+        st = self.stats(counts)
+        if not st.W > 0:
+            raise ModelError("the rows being fitted have total weight 0; there is nothing to fit")
+        columns = tuple(self.design.columns)
+        out = {"ols": self._ols(st, counts)}
+        problem = Problem.from_stats(st)
+        for name, rho, a in self.families:
+            out[name] = model_from_problem(problem, name, rho, a, columns)
+        return out
+
+    def _ols(self, st: GramStats, counts) -> LinearModel:
+        from regbench.models.engine import GRAM_COND_LIMIT
+        from regbench.models.ols import default_rank_tol
+
+        design = self.design
+        p = design.p
+        G, c, mean, sd = st.standardized()
+        size = np.sqrt(sd * sd + mean * mean)
+        size = np.where(size > 0, size, 1.0)
+        S = st.centered_xx() / st.W / np.outer(size, size)
+        n_pos = int(round(np.asarray(counts) @ self.n_pos))
+        tol = default_rank_tol(n_pos, p) if self.settings.rank_tol is None else float(self.settings.rank_tol)
+        kept = sorted(ordered_choice(S, self.pin_idx, max(tol, GRAM_RANK_TOL), sd))
+        coef = np.zeros(p)
+        if kept:
+            Gk = G[np.ix_(kept, kept)]
+            lk, Vk = np.linalg.eigh(Gk)
+            if not lk[0] > lk[-1] / GRAM_COND_LIMIT:
+                return self._ols_on_rows(counts)
+            coef[kept] = (Vk @ ((Vk.T @ c[kept]) / lk)) / sd[kept]
+        intercept = st.mean_y() - coef @ mean
+        return LinearModel(name="ols", columns=tuple(design.columns), intercept=float(intercept), coef=coef,
+                           coef_std=coef * sd)
+
+    def _ols_on_rows(self, counts) -> LinearModel:
+        from regbench.models.ols import fit_ols
+
+        d = self.design
+        w = d.weights * np.asarray(counts, dtype=np.float64)[d.groups]
+        return fit_ols(replace(d, weights=w), self.settings.pins, self.settings.rank_tol).model
+
+
+def ordered_choice(S: np.ndarray, pin_idx, tol: float, sd: np.ndarray) -> list:
+    """Pins, then the design order: keep a column when what is left of it after the kept
+    columns exceeds ``tol`` (lengths from the co-moments ``S`` of columns at unit RMS).
+
+    The walk of :func:`regbench.models.ols.fit_ols` carried out on cross-products: the
+    squared length left of column j is ``S_jj − S_jK S_KK⁻¹ S_Kj``, from a Cholesky factor
+    of the kept block grown one column at a time.
+    """
+    from scipy.linalg import solve_triangular
+
+    p = S.shape[0]
+    order = list(pin_idx) + [j for j in range(p) if j not in set(pin_idx)]
+    L = np.zeros((p, p))
+    kept = []
+    for j in order:
+        if sd[j] == 0:
+            continue
+        k = len(kept)
+        if k:
+            l = solve_triangular(L[:k, :k], S[kept, j], lower=True, check_finite=False)
+            r2 = S[j, j] - l @ l
+        else:
+            l = np.zeros(0)
+            r2 = S[j, j]
+        if r2 > tol * tol:
+            L[k, :k] = l
+            L[k, k] = np.sqrt(r2)
+            kept.append(j)
+    return kept
