@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import sys
 from typing import Optional, Sequence
 
@@ -26,13 +25,13 @@ def _csv_list(text: Optional[str]) -> tuple:
     return tuple(s.strip() for s in text.split(",") if s.strip())
 
 
-def _float_list(text: Optional[str]) -> tuple:
+def _float_list(text: Optional[str], flag: str = "--l1-ratio") -> tuple:
     out = []
     for s in _csv_list(text):
         try:
             out.append(float(s))
         except ValueError:
-            raise RegbenchError(f"--l1-ratio: '{s}' is not a number; give values between 0 and 1, e.g. 0.5,0.9") from None
+            raise RegbenchError(f"{flag}: '{s}' is not a number; give comma-separated numbers, e.g. 0.5,0.9") from None
     return tuple(out)
 
 
@@ -46,17 +45,35 @@ def _add_table_options(p: argparse.ArgumentParser, table: bool = True) -> None:
     p.add_argument("--groups", help="column whose groups stay together in held-out checks")
     p.add_argument("--encoding", help="text encoding of a CSV/TSV file (default UTF-8)")
     p.add_argument("--sheet", help="Excel sheet (default: the first)")
-    p.add_argument("--folds", type=int, default=5, help="cross-validation folds (default 5)")
-    p.add_argument("--seed", type=int, default=0, help="seed for folds and random draws (default 0)")
-    p.add_argument("--penalties", type=int, default=100, help="α values on each path (default 100)")
-    p.add_argument("--alpha", type=float, help="fix α for ridge, lasso and elastic net instead of the CV choice")
-    p.add_argument("--alpha-rule", choices=("cv_min", "cv_1se"), default="cv_min",
-                   help="CV choice of α: the minimum or the one-standard-error rule (default cv_min)")
-    p.add_argument("--l1-ratio", default="0.5", help="elastic-net L1 ratio(s), comma-separated (default 0.5)")
-    p.add_argument("--pin", help="comma-separated columns OLS must keep when it sets columns aside")
+    _add_settings_options(p)
     p.add_argument("--derive", action="append", default=[], metavar="OP:COLUMN",
                    help="add a derived column, repeatable: log:C, log1p:C, sqrt:C, square:C, standardize:C "
                         "or product:C1,C2; it is named e.g. log(C) or C1*C2 and joins listed predictors")
+
+
+def _add_settings_options(p: argparse.ArgumentParser) -> None:
+    """One option per declared FitSettings field that has a flag; limits and help come from the declaration."""
+    from regbench.models import spec
+    from regbench.models.results import FitSettings
+
+    for name, (declared, default) in spec.specs(FitSettings).items():
+        if declared.flag is None:
+            continue
+        rule = declared.rule
+        kwargs = {"dest": name, "help": declared.help, "metavar": declared.flag[2:].upper().replace("-", "_")}
+        if isinstance(rule, spec.Whole):
+            kwargs.update(type=int, default=default)
+        elif isinstance(rule, spec.OrNone) and isinstance(rule.rule, spec.Number):
+            kwargs.update(type=float, default=default)
+        elif isinstance(rule, spec.Number):
+            kwargs.update(type=float, default=default)
+        elif isinstance(rule, spec.Choice):
+            kwargs.update(choices=rule.choices, default=default, metavar=None)
+        elif isinstance(rule, spec.ListOf):
+            kwargs.update(default=",".join(f"{v:g}" if isinstance(v, float) else str(v) for v in default) or None)
+        if kwargs.get("default") is not None:
+            kwargs["help"] += f" (default {kwargs['default']})"
+        p.add_argument(declared.flag, **kwargs)
 
 
 def _json_option(p: argparse.ArgumentParser) -> None:
@@ -112,22 +129,23 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def settings_from_args(args):
+    """FitSettings from the command line, checked against the declared limits (message names the flag)."""
+    from regbench.models import spec
     from regbench.models.results import FitSettings
 
-    ratios = _float_list(args.l1_ratio) or (0.5,)
-    for r in ratios:
-        if not 0.0 < r < 1.0:
-            raise RegbenchError(f"--l1-ratio: {r:g} is outside (0, 1); ridge (0) and lasso (1) are always fitted")
-    if args.folds < 2:
-        raise RegbenchError(f"--folds: {args.folds} is too few; cross-validation needs at least 2 folds")
-    if args.penalties < 2:
-        raise RegbenchError(f"--penalties: {args.penalties} is too few; a path needs at least 2 α values")
-    if args.alpha is not None and not (args.alpha > 0 and math.isfinite(args.alpha)):
-        raise RegbenchError(f"--alpha: {args.alpha:g} must be a positive number")
-    return FitSettings(
-        folds=args.folds, seed=args.seed, n_penalties=args.penalties, l1_ratios=ratios,
-        alpha=args.alpha, alpha_rule=args.alpha_rule, pins=_csv_list(args.pin),
-    )
+    values = {}
+    for name, (declared, default) in spec.specs(FitSettings).items():
+        if declared.flag is None or not hasattr(args, name):
+            continue
+        v = getattr(args, name)
+        if isinstance(declared.rule, spec.ListOf):
+            each = declared.rule.each
+            v = _float_list(v, declared.flag) if isinstance(each, spec.Number) else _csv_list(v)
+            if not v and declared.rule.min_len:
+                v = default
+        values[name] = v
+    spec.check(FitSettings, values, RegbenchError, spec.label_flag)
+    return FitSettings.from_dict(values)
 
 
 def roles_from_args(args):

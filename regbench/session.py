@@ -28,12 +28,15 @@ import numpy as np
 from regbench.data.design import Roles, build_design
 from regbench.data.table import Table
 from regbench.errors import DataError
-from regbench.models.results import FitSettings, ALPHA_RULES
+from regbench.models import spec
+from regbench.models.results import FitSettings
 from regbench.progress import check, report
 
 #: How many edits :meth:`Session.undo` can take back.
 UNDO_DEPTH = 50
+#: Stability refits of a new session; declared like the fields of FitSettings.
 DEFAULT_BOOTSTRAP = 200
+BOOTSTRAP = spec.Spec(spec.Whole(0, 100_000), "stability refits (0 skips the stability check)", flag="--bootstrap")
 
 
 def penalized_names(settings: FitSettings) -> tuple:
@@ -694,8 +697,7 @@ def _derive(design, results, state: _State, cancel, have: Optional[dict] = None)
 
 
 def _check_bootstrap(n) -> None:
-    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or not 0 <= int(n) <= 100_000:
-        raise DataError(f"bootstrap count {n!r} must be a whole number from 0 to 100000 (0 skips the stability check)")
+    spec.check_value(BOOTSTRAP, n, DataError, "bootstrap count")
 
 
 def _positive(x, what: str) -> float:
@@ -720,44 +722,11 @@ def _normalized(settings: FitSettings) -> FitSettings:
     return FitSettings.from_dict(settings.to_dict())
 
 
-def _is_int(v) -> bool:
-    return isinstance(v, (int, np.integer)) and not isinstance(v, bool)
-
-
-def _is_num(v) -> bool:
-    return isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool) and math.isfinite(v)
-
-
 def check_settings(s: FitSettings) -> None:
-    """Raise DataError naming the first setting out of range."""
-    def bad(field_name, what):
-        raise DataError(f"setting '{field_name}' {what}")
-
+    """Raise DataError naming the first setting out of range (the declared limits of FitSettings)."""
     if not isinstance(s, FitSettings):
         raise DataError("settings must be FitSettings")
-    if not (_is_int(s.folds) and 2 <= s.folds <= 1000):
-        bad("folds", f"is {s.folds!r}; cross-validation needs a whole number of folds from 2 to 1000")
-    if not (_is_int(s.seed) and 0 <= s.seed < 2**63):
-        bad("seed", f"is {s.seed!r}; use a whole number >= 0")
-    if not (_is_int(s.n_penalties) and 2 <= s.n_penalties <= 10000):
-        bad("n_penalties", f"is {s.n_penalties!r}; a path needs from 2 to 10000 α values")
-    if not (_is_num(s.penalty_ratio) and 0 < s.penalty_ratio < 1):
-        bad("penalty_ratio", f"is {s.penalty_ratio!r}; it must be between 0 and 1")
-    if not isinstance(s.l1_ratios, (tuple, list)) or not s.l1_ratios or len(s.l1_ratios) > 20:
-        bad("l1_ratios", "must list from 1 to 20 L1 ratios")
-    for r in s.l1_ratios:
-        if not (_is_num(r) and 0 < r < 1):
-            bad("l1_ratios", f"holds {r!r}; each L1 ratio must be strictly between 0 and 1")
-    if len(set(f"{float(r):g}" for r in s.l1_ratios)) != len(s.l1_ratios):
-        bad("l1_ratios", "lists the same ratio twice")
-    if s.alpha is not None and not (_is_num(s.alpha) and s.alpha > 0):
-        bad("alpha", f"is {s.alpha!r}; a fixed α must be a positive number (or empty for the CV choice)")
-    if s.alpha_rule not in ALPHA_RULES[1:]:
-        bad("alpha_rule", f"is {s.alpha_rule!r}; use one of {', '.join(ALPHA_RULES[1:])}")
-    if not isinstance(s.pins, (tuple, list)) or not all(isinstance(p, str) for p in s.pins):
-        bad("pins", "must be a list of column names")
-    if s.rank_tol is not None and not (_is_num(s.rank_tol) and 0 < s.rank_tol < 1):
-        bad("rank_tol", f"is {s.rank_tol!r}; a rank tolerance must be between 0 and 1 (or empty)")
+    s.check(DataError)
 
 
 def check_stress(config, design, table=None) -> None:

@@ -22,7 +22,8 @@ from regbench.errors import ModelError
 from regbench.models import cv as cvmod
 from regbench.models.gram import GramStats, gram_stats, per_fold
 from regbench.models.penalized import Problem, alpha_grid, fit_path, model_from_problem, solve_beta
-from regbench.models.results import ALPHA_RULES, FitResults, FitSettings, LinearModel, PenalizedFit
+from regbench.models import spec
+from regbench.models.results import FitResults, FitSettings, LinearModel, PenalizedFit
 from regbench.progress import check, report
 
 
@@ -35,21 +36,7 @@ def families(settings: FitSettings):
 
 
 def _validate(settings: FitSettings) -> None:
-    if int(settings.folds) < 2:
-        raise ModelError(f"folds: {settings.folds} is too few; cross-validation needs at least 2 folds")
-    if int(settings.n_penalties) < 2:
-        raise ModelError(f"n_penalties: {settings.n_penalties} is too few; a path needs at least 2 α values")
-    if not 0.0 < float(settings.penalty_ratio) < 1.0:
-        raise ModelError(f"penalty_ratio: {settings.penalty_ratio:g} must be between 0 and 1 (e.g. 0.001)")
-    if not settings.l1_ratios:
-        raise ModelError("l1_ratios: give at least one elastic-net L1 ratio between 0 and 1, e.g. 0.5")
-    for r in settings.l1_ratios:
-        if not 0.0 < float(r) < 1.0:
-            raise ModelError(f"l1_ratios: {r:g} is outside (0, 1); ridge (0) and lasso (1) are always fitted")
-    if settings.alpha is not None and not (np.isfinite(settings.alpha) and settings.alpha > 0):
-        raise ModelError(f"alpha: {settings.alpha:g} must be a positive number")
-    if settings.alpha_rule not in ALPHA_RULES[1:]:
-        raise ModelError(f"alpha_rule: '{settings.alpha_rule}' is not one of {', '.join(ALPHA_RULES[1:])}")
+    settings.check(ModelError, spec.label_plain)
 
 
 def _ols(design, settings):

@@ -16,9 +16,13 @@ SD and W = sum_i w_i; rho = 0 is ridge, rho = 1 lasso, in between elastic net.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Optional
+from typing import Optional, Tuple
 
 import numpy as np
+
+from regbench.errors import DataError
+from regbench.models import spec
+from regbench.models.spec import Choice, ListOf, Number, OrNone, Text, Whole, setting
 
 #: Names of the four model families, in the order every view lists them.
 MODEL_NAMES = ("ols", "ridge", "lasso", "elastic_net")
@@ -37,7 +41,13 @@ def model_label(name: str) -> str:
 
 @dataclass(frozen=True)
 class FitSettings:
-    """Engine settings.
+    """Engine settings, each declared once with its accepted values and help text.
+
+    The declarations (:func:`regbench.models.spec.setting`) are the one source
+    of every limit: the CLI options, the session, the project loader and the
+    engine all check through :meth:`check`.  To add a setting, add one declared
+    field here; ``to_dict``/``from_dict`` (``fit --json``, ``session.json``)
+    follow from it.
 
     Attributes
     ----------
@@ -62,36 +72,44 @@ class FitSettings:
         Relative rank tolerance for OLS (None: the engine's stated default).
     """
 
-    folds: int = 5
-    seed: int = 0
-    n_penalties: int = 100
-    penalty_ratio: float = 1e-3
-    l1_ratios: tuple = (0.5,)
-    alpha: Optional[float] = None
-    alpha_rule: str = "cv_min"
-    pins: tuple = ()
-    rank_tol: Optional[float] = None
+    folds: int = setting(5, Whole(2, 1000, unit="folds", purpose="cross-validation"),
+                         "cross-validation folds", flag="--folds")
+    seed: int = setting(0, Whole(0, 2**63 - 1), "seed for folds and random draws", flag="--seed")
+    n_penalties: int = setting(100, Whole(2, 10_000, unit="α values", purpose="a path"),
+                               "α values on each path", flag="--penalties")
+    penalty_ratio: float = setting(1e-3, Number(0.0, 1.0, hint="the smallest α as a share of the largest, e.g. 0.001"),
+                                   "smallest α on each path as a share of the largest")
+    l1_ratios: Tuple[float, ...] = setting(
+        (0.5,), ListOf(Number(0.0, 1.0, hint="ridge (0) and lasso (1) are always fitted"), "L1 ratio",
+                       min_len=1, max_len=20, unique=True),
+        "elastic-net L1 ratio(s), comma-separated", flag="--l1-ratio")
+    alpha: Optional[float] = setting(None, OrNone(Number(0.0), "the CV choice"),
+                                     "fix α for ridge, lasso and elastic net instead of the CV choice",
+                                     flag="--alpha")
+    alpha_rule: str = setting("cv_min", Choice(ALPHA_RULES[1:]),
+                              "CV choice of α: the minimum or the one-standard-error rule", flag="--alpha-rule")
+    pins: Tuple[str, ...] = setting((), ListOf(Text(), "column name"),
+                                    "comma-separated columns OLS must keep when it sets columns aside", flag="--pin")
+    rank_tol: Optional[float] = setting(None, OrNone(Number(0.0, 1.0), "the engine's default"),
+                                        "relative rank tolerance for OLS")
 
     def to_dict(self) -> dict:
-        return {
-            "folds": self.folds, "seed": self.seed, "n_penalties": self.n_penalties,
-            "penalty_ratio": self.penalty_ratio, "l1_ratios": list(self.l1_ratios),
-            "alpha": self.alpha, "alpha_rule": self.alpha_rule, "pins": list(self.pins),
-            "rank_tol": self.rank_tol,
-        }
+        """Plain JSON values of every setting, in declaration order."""
+        return spec.to_dict(self)
 
     @classmethod
     def from_dict(cls, d: dict) -> "FitSettings":
-        return cls(
-            folds=int(d.get("folds", 5)), seed=int(d.get("seed", 0)),
-            n_penalties=int(d.get("n_penalties", 100)),
-            penalty_ratio=float(d.get("penalty_ratio", 1e-3)),
-            l1_ratios=tuple(float(r) for r in d.get("l1_ratios", (0.5,))),
-            alpha=None if d.get("alpha") is None else float(d["alpha"]),
-            alpha_rule=str(d.get("alpha_rule", "cv_min")),
-            pins=tuple(d.get("pins", ())),
-            rank_tol=None if d.get("rank_tol") is None else float(d["rank_tol"]),
-        )
+        """Settings from plain values; missing keys take their defaults (no range check)."""
+        return spec.from_dict(cls, d)
+
+    def problems(self) -> list:
+        """(field, problem) for every setting out of range; empty when all are fine."""
+        return spec.problems(type(self), self)
+
+    def check(self, error=None, label=spec.label_setting) -> "FitSettings":
+        """Raise ``error`` (default DataError) naming the first setting out of range; return self."""
+        spec.check(type(self), self, error or DataError, label)
+        return self
 
 
 @dataclass(frozen=True)

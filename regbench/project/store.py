@@ -22,6 +22,7 @@ import pandas as pd
 
 from regbench import __version__
 from regbench.errors import ProjectError
+from regbench.models import spec
 from regbench.project.atomic import atomic_writer
 from regbench.project.migrate import FORMAT_VERSION, migrate
 
@@ -392,7 +393,7 @@ def _session_state(ar: _Archive, doc, table):
     from regbench.models.results import FitSettings
     from regbench.analysis.stress import KINDS as STRESS_KINDS
     from regbench.errors import DataError
-    from regbench.session import _State, check_settings, check_stress, penalized_names
+    from regbench.session import BOOTSTRAP, _State, check_stress, penalized_names
 
     label = f"{ar.label}: session.json"
 
@@ -436,30 +437,13 @@ def _session_state(ar: _Archive, doc, table):
     s = doc.get("settings")
     if not isinstance(s, dict):
         bad("settings", "is missing or not an object")
-    typed = {"folds": int, "seed": int, "n_penalties": int, "penalty_ratio": float, "alpha_rule": str}
-    for key, t in typed.items():
-        if key in s:
-            v = s[key]
-            ok = isinstance(v, t) if t is not float else isinstance(v, (int, float))
-            if isinstance(v, bool) or not ok:
-                bad(f"settings.{key}", f"is {v!r}, not {'a whole number' if t is int else 'a number' if t is float else 'text'}")
-    for key in ("alpha", "rank_tol"):
-        v = s.get(key)
-        if v is not None and (isinstance(v, bool) or not isinstance(v, (int, float))):
-            bad(f"settings.{key}", f"is {v!r}, not a number or empty")
-    for key, t in (("l1_ratios", (int, float)), ("pins", str)):
-        v = s.get(key, [])
-        if not (isinstance(v, list) and all(isinstance(x, t) and not isinstance(x, bool) for x in v)):
-            bad(f"settings.{key}", "must be a list")
-    unknown = set(s) - {"folds", "seed", "n_penalties", "penalty_ratio", "l1_ratios", "alpha", "alpha_rule",
-                        "pins", "rank_tol"}
-    if unknown:
-        bad("settings", f"has unknown key(s) {', '.join(sorted(unknown))}", "it may come from a newer regbench")
-    try:
-        settings = FitSettings.from_dict(s)
-        check_settings(settings)
-    except (DataError, ValueError, TypeError, OverflowError) as exc:
-        bad("settings", f"is out of range ({exc})")
+    found = spec.problems(FitSettings, s)
+    if found:
+        key, text = found[0]
+        if key not in spec.specs(FitSettings):
+            bad(f"settings.{key}", "is not a setting this version knows", "it may come from a newer regbench")
+        bad(f"settings.{key}", f"is unusable: {text}")
+    settings = FitSettings.from_dict(s)
     design_cols = set()
     try:
         design = build_design(table, roles)
@@ -529,8 +513,8 @@ def _session_state(ar: _Archive, doc, table):
             bad(f"stress[{i}]", f"is not a valid stress test ({exc})")
         configs.append(cfg)
     boot = doc.get("bootstrap", 0)
-    if isinstance(boot, bool) or not isinstance(boot, int) or not 0 <= boot <= 100_000:
-        bad("bootstrap", f"is {boot!r}, not a whole number from 0 to 100000")
+    if BOOTSTRAP.rule.problem(boot) is not None:
+        bad("bootstrap", f"is unusable: {BOOTSTRAP.rule.problem(boot)}")
     notes = doc.get("notes", "")
     if not isinstance(notes, str):
         bad("notes", "must be text")
