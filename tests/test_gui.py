@@ -204,11 +204,10 @@ def test_dragging_alpha_moves_the_coefficient_table(gh):
     assert after != before
     # Lasso at α at or above the largest path α keeps no column (KKT: max |xᵀr|/W <= α).
     assert all(v == 0.0 for v in after)
-    # The hover read-out names the column whose path passes under the cursor, with its value.
-    i = len(fit.path.alphas) - 1
-    j = int(np.argmax(np.abs(fit.path.coef_std[i])))
-    text = paths.describe_point(np.log10(fit.path.alphas[i]), fit.path.coef_std[i, j])
-    assert f"{fit.path.columns[j]} = {fit.path.coef_std[i, j]:.4g}" in text
+    # The read-out beside the handle lists the model's own coefficients at that α: none at all here.
+    fig = paths.figure.figure()
+    texts = [p.text for p in fig.prims if p.kind == "text"]
+    assert f"0 of {len(fit.path.columns)} columns used" in texts
     gh.show_panel("paths")
     paths.reset_btn.click()
     assert s.models()["lasso"].alpha == pytest.approx(fit.alpha, rel=1e-12)
@@ -639,7 +638,7 @@ def test_rapid_alpha_drags_are_computed_off_the_gui_thread_and_only_the_last_is_
     gh.show_panel("coefficients")
     shown = grid_column(gh.panel("coefficients").model, "Ridge")
     np.testing.assert_allclose(shown, models["ridge"].coef, rtol=1e-12)
-    assert paths.line.value() == pytest.approx(np.log10(drags[-1]))
+    assert paths.chosen_alpha() == pytest.approx(drags[-1])
     s.undo()
     assert "ridge" not in s.chosen_alpha and s.derived_ready   # undo brings back the comparisons too
 
@@ -689,3 +688,68 @@ def test_keep_an_alpha_as_an_extra_fit_and_remove_it(gh, qtbot):
     assert s.extra_fits == [] and name not in s.models()
     gh.show_panel("coefficients")
     assert model_label(name) not in gh.panel("coefficients").model.headers
+
+
+# -- the penalty figure: handle, keyboard, highlight ---------------------------------------
+
+
+def _press_drag_release(qtbot, widget, start, end):
+    from PySide6.QtTest import QTest
+
+    QTest.mousePress(widget, QtCore.Qt.LeftButton, QtCore.Qt.NoModifier, QtCore.QPoint(*start))
+    ev = QtGui.QMouseEvent(QtCore.QEvent.MouseMove, QtCore.QPointF(*end), QtCore.QPointF(*end),
+                           QtCore.Qt.NoButton, QtCore.Qt.LeftButton, QtCore.Qt.NoModifier)
+    QtWidgets.QApplication.sendEvent(widget, ev)
+    QTest.mouseRelease(widget, QtCore.Qt.LeftButton, QtCore.Qt.NoModifier, QtCore.QPoint(*end))
+
+
+def test_penalty_figure_handle_keyboard_and_highlight(gh, qtbot):
+    s = gh.session
+    gh.show_panel("paths")
+    paths = gh.panel("paths")
+    paths.family.setCurrentIndex(paths.family.findData("lasso"))
+    fig_w = paths.figure
+    fig = fig_w.figure()
+    grid = np.sort(s.results.penalized["lasso"].path.alphas)[::-1]
+    # A drag started a few pixels off the handle still takes the handle; nothing else moves.
+    regions = dict(fig.regions)
+    y = int((fig.regions["paths"][1] + fig.regions["paths"][3]) / 2)
+    hx = int(fig.handle_x)
+    target_x = int((fig.x0 + fig.handle_x) / 2)
+    _press_drag_release(qtbot, fig_w, (hx + 5, y), (target_x, y))
+    wait_idle(qtbot, gh)
+    expected = fig.alpha_at(target_x)
+    assert s.chosen_alpha["lasso"] == pytest.approx(expected, rel=1e-9)
+    assert fig_w.figure().regions == regions       # no pan, no zoom: the view is where it was
+    # Keyboard: → steps to the next grid α toward weaker penalties, ← back, End to the grid's end.
+    paths.move_alpha(float(grid[40]))
+    wait_idle(qtbot, gh)
+    fig_w.setFocus()
+    qtbot.keyClick(fig_w, QtCore.Qt.Key_Right)
+    assert s.chosen_alpha["lasso"] == pytest.approx(grid[41], rel=1e-12)
+    qtbot.keyClick(fig_w, QtCore.Qt.Key_Left, QtCore.Qt.ShiftModifier)
+    assert s.chosen_alpha["lasso"] == pytest.approx(grid[31], rel=1e-12)
+    qtbot.keyClick(fig_w, QtCore.Qt.Key_End)
+    assert s.chosen_alpha["lasso"] == pytest.approx(grid[-1], rel=1e-12)
+    # Typed: the value lands as typed, and a word is refused with a message, changing nothing.
+    paths.alpha_edit.setText("0.0125")
+    qtbot.keyClick(paths.alpha_edit, QtCore.Qt.Key_Return)
+    assert s.chosen_alpha["lasso"] == 0.0125
+    paths.alpha_edit.setText("lots")
+    qtbot.keyClick(paths.alpha_edit, QtCore.Qt.Key_Return)
+    assert s.chosen_alpha["lasso"] == 0.0125 and "positive number" in gh.status_label.text()
+    wait_idle(qtbot, gh)
+    # Click on a curve highlights its column; the rest are dimmed and its label is bold.
+    fig = fig_w.figure()
+    col = "day_temp_c"
+    xs, ys = fig.curves[col]
+    k = len(xs) - 3
+    qtbot.mouseClick(fig_w, QtCore.Qt.LeftButton, pos=QtCore.QPoint(int(round(xs[k])), int(round(ys[k]))))
+    assert paths.highlight.currentData() == col
+    fig = fig_w.figure()
+    bold = [p.text for p in fig.prims if p.kind == "text" and p.bold and p.role == f"label:{col}"]
+    assert bold == [col]
+    dimmed = {p.stroke for p in fig.prims if p.kind == "line" and p.role.startswith("curve:") and p.role != f"curve:{col}"}
+    assert dimmed == {"#c9c5ba"}
+    # Every path is labelled at its end (no legend), up to the room there is.
+    assert set(fig.labels) == set(s.results.penalized["lasso"].path.columns)

@@ -14,7 +14,9 @@ from regbench.errors import RegbenchError
 
 
 def export_png(plot_widget, path: str, width: int = 1200) -> str:
-    """PNG of a pyqtgraph PlotWidget at ``width`` pixels."""
+    """PNG of a pyqtgraph PlotWidget (or a widget that paints itself: ``render_to``) at ``width`` pixels."""
+    if hasattr(plot_widget, "render_to"):
+        return _painted_png(plot_widget, path, width)
     import pyqtgraph.exporters as pgx
 
     exporter = pgx.ImageExporter(plot_widget.getPlotItem() if hasattr(plot_widget, "getPlotItem") else plot_widget.scene())
@@ -48,7 +50,9 @@ def export_svg(widget, path: str, title: str = "regbench plot") -> str:
         raise RegbenchError(f"{os.path.basename(path)}: could not start the SVG file; check the folder is writable")
     try:
         painter.setRenderHint(QtGui.QPainter.Antialiasing)
-        if isinstance(widget, QtWidgets.QGraphicsView):
+        if hasattr(widget, "render_to"):
+            widget.render_to(painter, size.width(), size.height())
+        elif isinstance(widget, QtWidgets.QGraphicsView):
             # Render the scene itself so items stay vectors.
             source = widget.mapToScene(widget.viewport().rect()).boundingRect()
             widget.scene().render(painter, QtCore.QRectF(0, 0, size.width(), size.height()), source)
@@ -59,6 +63,27 @@ def export_svg(widget, path: str, title: str = "regbench plot") -> str:
     if not os.path.exists(tmp) or os.path.getsize(tmp) == 0:
         _drop(tmp)
         raise RegbenchError(f"{os.path.basename(path)}: the SVG came out empty; try PNG instead")
+    os.replace(tmp, path)
+    return path
+
+
+def _painted_png(widget, path: str, width: int) -> str:
+    """PNG of a self-painting figure laid out at its on-screen size and drawn at ``width`` pixels."""
+    size = widget.size()
+    w, h = max(size.width(), 600), max(size.height(), 400)
+    scale = max(width / w, 1.0)
+    image = QtGui.QImage(int(w * scale), int(h * scale), QtGui.QImage.Format_ARGB32)
+    image.fill(QtGui.QColor("#ffffff"))
+    painter = QtGui.QPainter(image)
+    try:
+        painter.scale(scale, scale)
+        widget.render_to(painter, w, h)
+    finally:
+        painter.end()
+    tmp = _beside(path)
+    if not image.save(tmp, "PNG"):
+        _drop(tmp)
+        raise RegbenchError(f"{os.path.basename(path)}: could not write the PNG; choose another folder")
     os.replace(tmp, path)
     return path
 

@@ -242,21 +242,15 @@ def _fits(session) -> str:
                                                                   "cv_1se": "one-standard-error rule",
                                                                   "fixed": "fixed in the settings"}.get(pf.alpha_rule, pf.alpha_rule)
         parts.append(f"<h3>{e(label)}: chosen α = {num(chosen)} ({e(how)})</h3>")
-        path = pf.path
-        series = [(c, path.alphas, path.coef_std[:, j]) for j, c in enumerate(path.columns)]
-        parts.append(figure(svg.line_chart(series, title=f"{label}: standardized coefficients along the path",
-                                           xlabel="penalty α (log scale)", ylabel="standardized coefficient",
-                                           log_x=True, vlines=[(chosen, "chosen α")], hline=0.0),
-                            f"Each line is one column; the dashed line marks the chosen α = {num(chosen)}."))
-        if pf.cv is not None:
-            cv = pf.cv
-            marks = [(chosen, "chosen"), (cv.alpha_min, "lowest"), (cv.alpha_1se, "1 SE")]
-            parts.append(figure(svg.line_chart(
-                [("CV error", cv.alphas, cv.mean)], band=(cv.alphas, cv.mean - cv.se, cv.mean + cv.se),
-                title=f"{label}: cross-validated error", xlabel="penalty α (log scale)",
-                ylabel="held-out mean squared error", log_x=True, vlines=marks),
-                f"{cv.n_folds} {'grouped ' if cv.grouped else ''}folds; band: ± one standard error. "
-                f"Lowest error at α = {num(cv.alpha_min)}, one-standard-error choice α = {num(cv.alpha_1se)}."))
+        cv = pf.cv
+        caption = ("Top: each column's standardized coefficient as the penalty weakens from left to right, "
+                   "labelled at its end; middle: how many columns the model uses; bottom: held-out error "
+                   "with a band of ± one standard error. The handle marks the chosen α, with the model's "
+                   "coefficients there beside it.")
+        if cv is not None:
+            caption += (f" {cv.n_folds} {'grouped ' if cv.grouped else ''}folds; lowest error at "
+                        f"α = {num(cv.alpha_min)}, simplest within one SE at α = {num(cv.alpha_1se)}.")
+        parts.append(figure(svg.penalty_figure(session, name), caption))
     parts.append("<h3>Coefficients side by side (original units)</h3>")
     names = list(models)
     rows = [("(intercept)", *[num(models[n].intercept) for n in names])]

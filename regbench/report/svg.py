@@ -208,3 +208,23 @@ def bar_chart(categories, groups, *, title: str, ylabel: str) -> str:
 def _short(text, n: int = 24) -> str:
     text = str(text)
     return text if len(text) <= n else text[: n - 1] + "…"
+
+
+def penalty_figure(session, name: str, width: int = 760, height: int = 470) -> str:
+    """The penalty figure of family ``name`` as the window draws it (paths, columns used, held-out error)."""
+    from regbench.palette import model_colour
+    from regbench.report.pathfig import FigureData, build_figure, figure_svg
+
+    pf = session.results.penalized[name]
+    alpha = session.alphas().get(name, pf.alpha)
+    model = session.models().get(name)
+    cols = list(pf.path.columns)
+    cv = pf.cv
+    data = FigureData(alphas=pf.path.alphas, coef=pf.path.coef_std, columns=cols, alpha=float(alpha),
+                      cv=(cv.alphas, cv.mean, cv.se, cv.alpha_min, cv.alpha_1se) if cv is not None else None,
+                      colour=model_colour(name),
+                      readout=list(zip(cols, map(float, model.coef_std))) if model is not None else None,
+                      n_used=int(np.count_nonzero(model.coef)) if model is not None else None,
+                      extras=[(e["name"], e["alpha"], model_colour(e["name"])) for e in session.extra_fits
+                              if e["family"] == name])
+    return figure_svg(build_figure(data, width, height), title=f"{name}: what the penalty does")

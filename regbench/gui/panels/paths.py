@@ -1,24 +1,30 @@
-"""How the penalty shapes each family: coefficient paths, the CV curve and the chosen α."""
+"""How the penalty shapes each family: one figure of paths, columns used, held-out error and the chosen α."""
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
-import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
+from regbench.formatting import number_text
 from regbench.gui.panels.base import Panel, caption, hbox
-from regbench.gui.style import PALETTE, model_colour, series_colour
+from regbench.gui.penaltyfigure import PenaltyFigure
+from regbench.gui.style import model_colour
 from regbench.models.results import model_label
+from regbench.report.pathfig import FigureData
 
 Qt = QtCore.Qt
-LEGEND_MAX = 14
+NO_HIGHLIGHT = "(none)"
+RULE_WORDS = {"cv_min": "the lowest held-out error", "cv_1se": "the simplest model within one SE",
+              "fixed": "a fixed value"}
 
 
 class PathsPanel(Panel):
     key = "paths"
-    title = "How the fits differ: the penalty paths"
-    nav = "Fits differ · paths"
-    # Drawn from the fits and the chosen α alone; the count of columns used waits for the worker.
+    title = "How the fits differ: what the penalty does"
+    nav = "Fits differ · penalty"
+    # Drawn from the fits and the chosen α alone; the exact read-out waits for the worker.
     uses_comparisons = False
 
     def build(self, body):
@@ -30,10 +36,18 @@ class PathsPanel(Panel):
         self.scale.addItem("standardized coefficients", "std")
         self.scale.addItem("coefficients in table units", "orig")
         self.scale.currentIndexChanged.connect(self._redraw)
-        self.alpha_text = QtWidgets.QLabel("")
+        self.alpha_edit = QtWidgets.QLineEdit()
+        self.alpha_edit.setFixedWidth(92)
+        self.alpha_edit.setToolTip("Type an α and press Enter; in the figure, ← → step along the grid")
+        self.alpha_edit.returnPressed.connect(self._typed_alpha)
         self.reset_btn = QtWidgets.QPushButton("Back to the CV choice")
         self.reset_btn.clicked.connect(self._reset_alpha)
-        lay.addWidget(hbox(caption("Family"), self.family, caption("Show"), self.scale, 1, self.alpha_text, self.reset_btn))
+        self.highlight = QtWidgets.QComboBox()
+        self.highlight.setMinimumContentsLength(12)
+        self.highlight.setSizeAdjustPolicy(QtWidgets.QComboBox.AdjustToMinimumContentsLengthWithIcon)
+        self.highlight.currentIndexChanged.connect(self._highlight_from_box)
+        lay.addWidget(hbox(caption("Family"), self.family, caption("Show"), self.scale, caption("Highlight"),
+                           self.highlight, 1, caption("α"), self.alpha_edit, self.reset_btn))
         self.keep_btn = QtWidgets.QPushButton("Keep this α as an extra fit")
         self.keep_btn.setToolTip("Add this family at the chosen α to the comparisons, beside the four chosen models")
         self.keep_btn.clicked.connect(self._keep_extra)
@@ -42,46 +56,19 @@ class PathsPanel(Panel):
         self.remove_btn = QtWidgets.QPushButton("Remove")
         self.remove_btn.clicked.connect(self._remove_extra)
         lay.addWidget(hbox(self.keep_btn, caption("Extra fits"), self.extras, self.remove_btn, stretch_last=True))
-        self.path_plot = pg.PlotWidget()
-        self.path_plot.export_name = "coefficient paths"
-        self.path_plot.showGrid(x=True, y=True, alpha=0.25)
-        self.path_plot.setLabel("bottom", "log10 α")
-        self.path_plot.setLabel("left", "coefficient")
-        self.cv_plot = pg.PlotWidget()
-        self.cv_plot.export_name = "cross-validation curve"
-        self.cv_plot.showGrid(x=True, y=True, alpha=0.25)
-        self.cv_plot.setLabel("bottom", "log10 α")
-        self.cv_plot.setLabel("left", "held-out MSE")
-        self.cv_plot.setXLink(self.path_plot)
-        for plot in (self.path_plot, self.cv_plot):
-            plot.getAxis("left").enableAutoSIPrefix(False)
-        self.readout = QtWidgets.QLabel(" ")
-        self.readout.setStyleSheet(f"color: {PALETTE['muted']};")
-        split = QtWidgets.QSplitter(Qt.Vertical)
-        split.addWidget(self.path_plot)
-        split.addWidget(self.cv_plot)
-        split.setSizes([480, 260])
-        lay.addWidget(split, 1)
-        lay.addWidget(self.readout)
-        pen = pg.mkPen(PALETTE["accent"], width=2)
-        self.line = pg.InfiniteLine(angle=90, movable=True, pen=pen, hoverPen=pg.mkPen(PALETTE["warn"], width=3),
-                                    label="chosen α", labelOpts={"position": 0.95, "color": PALETTE["accent"]})
-        self.cv_line = pg.InfiniteLine(angle=90, movable=True, pen=pen, hoverPen=pg.mkPen(PALETTE["warn"], width=3))
-        self.line.sigDragged.connect(lambda l: self._sync(self.cv_line, l.value()))
-        self.cv_line.sigDragged.connect(lambda l: self._sync(self.line, l.value()))
-        self.line.sigPositionChangeFinished.connect(self._line_moved)
-        self.cv_line.sigPositionChangeFinished.connect(self._line_moved)
-        self.path_plot.scene().sigMouseMoved.connect(self._hover)
-        self._curves = []
-        self._fit = None
-        self._drawn = None        # (fit, scale) the curves were drawn for
-        self._extra_lines = []
+        self.figure = PenaltyFigure()
+        self.figure.alpha_chosen.connect(self._figure_alpha)
+        self.figure.alpha_moving.connect(lambda a: self.alpha_edit.setText(number_text(a, 4)))
+        self.figure.column_picked.connect(self.set_highlight)
+        lay.addWidget(self.figure, 1)
+        self._highlight = None
 
     def plots(self):
-        return [self.path_plot, self.cv_plot]
+        return [self.figure]
 
     def view_state(self):
-        return {"family": self.family.currentData(), "scale": self.scale.currentData()}
+        return {"family": self.family.currentData(), "scale": self.scale.currentData(),
+                "highlight": self._highlight}
 
     def restore_view_state(self, state):
         i = self.scale.findData(state.get("scale"))
@@ -94,11 +81,26 @@ class PathsPanel(Panel):
             self.family.clear()
             self.family.addItem(model_label(state["family"]), state["family"])
             self.family.blockSignals(False)
+        hl = state.get("highlight")
+        self._highlight = hl if isinstance(hl, str) else None
+
+    def clear(self):
+        self.family.blockSignals(True)
+        self.family.clear()
+        self.family.blockSignals(False)
+        self.highlight.blockSignals(True)
+        self.highlight.clear()
+        self.highlight.blockSignals(False)
+        self.extras.clear()
+        self.figure.set_data(None)
+        self.alpha_edit.clear()
+        self._highlight = None
 
     # -- filling ---------------------------------------------------------------------
     def refresh(self, session):
         results = session.results
         if results is None:
+            self.clear()
             self.set_sentences(["Fit the models to see how the penalty changes each coefficient."])
             return
         names = list(results.penalized)
@@ -112,126 +114,98 @@ class PathsPanel(Panel):
         self.family.blockSignals(False)
         self._redraw()
 
-    def _chosen_alpha(self, name):
-        return self.session.alphas().get(name)
-
     def _redraw(self, *_):
         session = self.session
         if session is None or session.results is None or self.family.currentData() is None:
             return
         name = self.family.currentData()
         fit = session.results.penalized[name]
-        self._fit = fit
         std = self.scale.currentData() == "std"
         path = fit.path
-        x = np.log10(path.alphas)
-        coef = path.coef_std if std else path.coef
-        lo, hi = float(x.min()), float(x.max())
+        cols = list(path.columns)
+        if self._highlight not in cols:
+            self._highlight = None
+        self.highlight.blockSignals(True)
+        self.highlight.clear()
+        self.highlight.addItem(NO_HIGHLIGHT, None)
+        for c in cols:
+            self.highlight.addItem(c, c)
+        self.highlight.setCurrentIndex(max(0, self.highlight.findData(self._highlight)) if self._highlight else 0)
+        self.highlight.blockSignals(False)
+        alpha = session.alphas().get(name) or fit.alpha
+        model = session.models().get(name) if session.derived_ready else None
+        if model is not None and model.alpha is not None and not math.isclose(model.alpha, alpha, rel_tol=1e-12):
+            model = None
         cv = fit.cv
-        if self._drawn is None or self._drawn[0] is not fit or self._drawn[1] != std:
-            # The curves change with the family or the scale, not with α: an α update only moves lines.
-            self._draw_curves(name, fit, std, x, coef)
-        alpha = self._chosen_alpha(name) or fit.alpha
-        for line in (self.line, self.cv_line):
-            line.setBounds((lo - 1.0, hi + 1.0))
-            line.setValue(np.log10(alpha))
-        for plot, line in ((self.path_plot, self.line), (self.cv_plot, self.cv_line)):
-            if line not in plot.getPlotItem().items:
-                plot.addItem(line)
-        self._fill_extras(session, name)
-        rule = {"cv_min": "the lowest CV error", "cv_1se": "the one-SE rule", "fixed": "a fixed value"}.get(fit.alpha_rule, fit.alpha_rule)
-        model = self.session.models().get(name) if self.session.derived_ready else None
-        n_used = int(np.count_nonzero(model.coef)) if model is not None else 0
-        self.alpha_text.setText(f"chosen α = {alpha:.4g}")
-        s = [f"{model_label(name)} is shown at α = {alpha:.3g}"
-             + (f" ({rule})" if np.isclose(alpha, fit.alpha) else " (chosen by hand)")
-             + (f", where it uses {n_used} of {len(path.columns)} columns." if model is not None else ".")]
+        extras = [(e["name"], e["alpha"], model_colour(e["name"])) for e in session.extra_fits if e["family"] == name]
+        readout = None
+        n_used = None
+        if model is not None:
+            vals = model.coef_std if std else model.coef
+            readout = list(zip(cols, (float(v) for v in vals)))
+            n_used = int(np.count_nonzero(model.coef))
+        self.figure.set_data(FigureData(
+            alphas=path.alphas, coef=path.coef_std if std else path.coef, columns=cols, alpha=float(alpha),
+            cv=(cv.alphas, cv.mean, cv.se, cv.alpha_min, cv.alpha_1se) if cv is not None else None,
+            colour=model_colour(name), highlight=self._highlight, readout=readout, n_used=n_used, extras=extras,
+            ylabel="standardized coefficient" if std else "coefficient (table units)"))
+        if not self.alpha_edit.hasFocus():
+            self.alpha_edit.setText(number_text(alpha, 4))
+        self._fill_extras(session)
+        by_hand = name in session.chosen_alpha
+        rule = RULE_WORDS.get(fit.alpha_rule, fit.alpha_rule)
+        s = [f"{model_label(name)} is shown at α = {number_text(alpha, 3)}"
+             + (" (set by hand)" if by_hand else f" ({rule})")
+             + (f", where it uses {n_used} of {len(cols)} columns." if n_used is not None else ".")]
         if cv is not None:
-            s.append(f"Held-out error is lowest at α = {cv.alpha_min:.3g}; the simplest model within one standard "
-                     f"error of that is at α = {cv.alpha_1se:.3g}. Drag the line to try any α.")
+            s.append(f"Held-out error is lowest at α = {number_text(cv.alpha_min, 3)}; the simplest model within one "
+                     f"standard error of that is at α = {number_text(cv.alpha_1se, 3)}. Drag the handle, type an α, "
+                     "or step with ← →; click a curve or a name to follow one column.")
         self.set_sentences(s)
 
-    def _draw_curves(self, name, fit, std, x, coef):
-        path = fit.path
-        self.path_plot.clear()
-        self._curves = []
-        self._extra_lines = []
-        legend = None
-        if len(path.columns) <= LEGEND_MAX:
-            if self.path_plot.getPlotItem().legend is None:
-                legend = self.path_plot.addLegend(offset=(-10, 10), labelTextSize="8pt")
-            else:
-                legend = self.path_plot.getPlotItem().legend
-                legend.clear()
-        elif self.path_plot.getPlotItem().legend is not None:
-            self.path_plot.getPlotItem().legend.clear()
-        for j, col in enumerate(path.columns):
-            c = self.path_plot.plot(x, coef[:, j], pen=pg.mkPen(series_colour(j), width=1.6), name=col if legend else None)
-            self._curves.append(c)
-        self.path_plot.addItem(pg.InfiniteLine(pos=0, angle=0, pen=pg.mkPen(PALETTE["grid"])))
-        lo, hi = float(x.min()), float(x.max())
-        # Room to the right of the largest α, where the paths have met at 0, for the legend.
-        self.path_plot.setXRange(lo, hi + (0.34 * (hi - lo) if legend else 0.0), padding=0.02)
-        self.path_plot.setLabel("left", "standardized coefficient" if std else "coefficient (table units)")
-        self.cv_plot.clear()
-        cv = fit.cv
-        colour = model_colour(name)
-        if cv is not None:
-            cx = np.log10(cv.alphas)
-            faint = pg.mkColor(colour)
-            faint.setAlpha(120)
-            self.cv_plot.addItem(pg.ErrorBarItem(x=cx, y=cv.mean, height=2 * cv.se, beam=0.0, pen=pg.mkPen(faint, width=1)))
-            self.cv_plot.plot(cx, cv.mean, pen=pg.mkPen(colour, width=2), symbol="o", symbolSize=4,
-                              symbolBrush=colour, symbolPen=None)
-            # The two labels sit at different heights so they never overlap when the α values are close.
-            for a, lab, style, at in ((cv.alpha_min, "lowest error", Qt.DashLine, 0.9),
-                                      (cv.alpha_1se, "one SE simpler", Qt.DotLine, 0.7)):
-                i = int(np.argmin(np.abs(cv.alphas - a)))
-                self.cv_plot.plot([np.log10(a)], [cv.mean[i]], pen=None, symbol="d", symbolSize=11,
-                                  symbolBrush=PALETTE["warn"] if style == Qt.DashLine else PALETTE["muted"])
-                for plot in (self.path_plot, self.cv_plot):
-                    plot.addItem(pg.InfiniteLine(pos=np.log10(a), angle=90, pen=pg.mkPen(PALETTE["muted"], style=style),
-                                                 label=lab if plot is self.cv_plot else None,
-                                                 labelOpts={"position": at, "color": PALETTE["muted"]}))
-        self._drawn = (fit, std)
+    def set_highlight(self, column) -> None:
+        """Draw ``column``'s path in full and dim the others (None: all in colour)."""
+        self._highlight = column if isinstance(column, str) else None
+        if self.figure.data is not None:
+            self.figure.data.highlight = self._highlight
+            self.figure.set_data(self.figure.data)
+        self.highlight.blockSignals(True)
+        i = self.highlight.findData(self._highlight) if self._highlight else 0
+        self.highlight.setCurrentIndex(max(i, 0))
+        self.highlight.blockSignals(False)
 
-    @staticmethod
-    def _sync(line, value):
-        line.blockSignals(True)
-        line.setValue(value)
-        line.blockSignals(False)
+    def _highlight_from_box(self, *_):
+        self.set_highlight(self.highlight.currentData())
 
-    def _line_moved(self, line):
-        name = self.family.currentData()
-        if name is None:
-            return
-        self.window_.set_alpha(name, float(10 ** line.value()))
-
-    def _fill_extras(self, session, family):
+    def _fill_extras(self, session):
         extras = session.extra_fits
         self.extras.clear()
         for e in extras:
             self.extras.addItem(f"{e['name']}", e["name"])
         self.extras.setEnabled(bool(extras))
         self.remove_btn.setEnabled(bool(extras))
-        for line, plot in self._extra_lines:
-            plot.removeItem(line)
-        self._extra_lines = []
-        for e in extras:
-            if e["family"] != family:
-                continue
-            pen = pg.mkPen(model_colour(e["name"]), width=1.4, style=Qt.DashDotLine)
-            for plot in (self.path_plot, self.cv_plot):
-                line = pg.InfiniteLine(pos=np.log10(e["alpha"]), angle=90, pen=pen,
-                                       label=e["name"] if plot is self.path_plot else None,
-                                       labelOpts={"position": 0.08, "color": model_colour(e["name"])})
-                plot.addItem(line)
-                self._extra_lines.append((line, plot))
+
+    # -- choosing α ------------------------------------------------------------------
+    def _figure_alpha(self, alpha):
+        name = self.family.currentData()
+        if name is not None:
+            self.window_.set_alpha(name, float(alpha))
+
+    def _typed_alpha(self):
+        text = self.alpha_edit.text().strip().replace(",", ".").replace("−", "-")
+        try:
+            alpha = float(text)
+        except ValueError:
+            alpha = float("nan")
+        if not (math.isfinite(alpha) and alpha > 0):
+            self.window_.set_status(f"α must be a positive number, for example 0.05; “{text}” is not.")
+            return
+        self.move_alpha(alpha)
 
     def _keep_extra(self):
         name = self.family.currentData()
-        if name is not None:
-            self.window_.add_extra_fit(name, float(10 ** self.line.value()))
+        if name is not None and self.figure.data is not None:
+            self.window_.add_extra_fit(name, float(self.figure.data.alpha))
 
     def _remove_extra(self):
         name = self.extras.currentData()
@@ -243,29 +217,13 @@ class PathsPanel(Panel):
         if name is not None:
             self.window_.set_alpha(name, None)
 
+    def chosen_alpha(self):
+        """The α the handle shows (None before a fit)."""
+        return None if self.figure.data is None else float(self.figure.data.alpha)
+
     def move_alpha(self, alpha: float) -> None:
-        """Move the chosen-α line as a drag would (for keyboard use and tests)."""
-        self.line.setValue(np.log10(alpha))
-        self._sync(self.cv_line, self.line.value())
-        self.line.sigPositionChangeFinished.emit(self.line)
-
-    # -- hover read-out ------------------------------------------------------------------
-    def _hover(self, pos):
-        fit = self._fit
-        vb = self.path_plot.getPlotItem().vb
-        if fit is None or not self.path_plot.sceneBoundingRect().contains(pos):
+        """Move the handle as a drag would and keep the choice (typed values and tests)."""
+        if self.figure.data is None:
             return
-        pt = vb.mapSceneToView(pos)
-        self.readout.setText(self.describe_point(pt.x(), pt.y()))
-
-    def describe_point(self, log_alpha: float, y: float) -> str:
-        """The column whose path passes nearest to (log10 α, y), with its value there."""
-        fit = self._fit
-        if fit is None:
-            return ""
-        path = fit.path
-        x = np.log10(path.alphas)
-        i = int(np.argmin(np.abs(x - log_alpha)))
-        coef = path.coef_std if self.scale.currentData() == "std" else path.coef
-        j = int(np.argmin(np.abs(coef[i] - y)))
-        return f"α = {path.alphas[i]:.4g}   {path.columns[j]} = {coef[i, j]:.4g}"
+        self.figure._move_to(float(alpha))
+        self._figure_alpha(float(alpha))

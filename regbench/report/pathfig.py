@@ -1,0 +1,484 @@
+"""The penalty figure, drawn the same way in the window and in the report.
+
+One figure per penalized family, read left to right from the strongest penalty
+(every coefficient at 0) to the weakest (close to OLS):
+
+* the coefficient paths, each labelled at its right-hand end (no legend); a
+  highlighted column is drawn in full and the others dimmed;
+* a strip showing how many columns the model uses at each α;
+* the held-out error as a line inside a shaded band (± one standard error),
+  with the lowest-error and the simplest-within-one-SE choices as labelled
+  marks on the band;
+* the chosen α as a handle on the α axis with a thin guide, and a read-out of
+  the model's coefficients at that α beside it.
+
+:func:`build_figure` lays the figure out as a list of plain drawing primitives
+(no Qt, no SVG); the report writes them as SVG and the window paints them with
+QPainter, and the window hit-tests the same geometry.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Optional, Sequence
+
+import numpy as np
+
+from regbench.formatting import number_text
+from regbench.palette import PALETTE, series_colour
+
+#: Text metrics shared by both renderers (a sans-serif at 11 px averages about 6.3 px a character).
+FONT_PX = 11
+CHAR_PX = 6.3
+LABEL_GAP = 13.0
+READOUT_ROWS = 8
+
+
+@dataclass
+class Prim:
+    """One drawing primitive.
+
+    ``kind`` is 'line' (open polyline), 'poly' (filled polygon), 'text', 'circle' or 'rect';
+    ``pts`` holds (x, y) pairs in pixels; ``anchor`` is 'start', 'middle' or 'end'.
+    """
+
+    kind: str
+    pts: tuple = ()
+    stroke: Optional[str] = None
+    fill: Optional[str] = None
+    width: float = 1.0
+    dash: Optional[tuple] = None
+    opacity: float = 1.0
+    text: str = ""
+    size: float = FONT_PX
+    anchor: str = "start"
+    bold: bool = False
+    r: float = 0.0
+    w: float = 0.0
+    h: float = 0.0
+    role: str = ""
+
+
+@dataclass
+class Figure:
+    """A laid-out figure: primitives in drawing order plus the geometry for hit-testing."""
+
+    width: int
+    height: int
+    prims: list = field(default_factory=list)
+    #: name -> (x0, y0, x1, y1) of 'paths', 'strip', 'error', 'axis'
+    regions: dict = field(default_factory=dict)
+    #: column -> (xs, ys) pixel polyline of its path
+    curves: dict = field(default_factory=dict)
+    #: column -> (x, y, w, h) of its end label
+    labels: dict = field(default_factory=dict)
+    handle_x: float = 0.0
+    knob: tuple = (0.0, 0.0, 0.0, 0.0)
+    lx: float = 0.0    # log10 α at the left edge
+    rx: float = 1.0    # log10 α at the right edge
+    x0: float = 0.0    # pixel of the left edge
+    x1: float = 1.0    # pixel of the right edge
+
+    def alpha_at(self, px: float) -> float:
+        """α under pixel column ``px`` (clamped to the drawn range)."""
+        t = min(max((px - self.x0) / (self.x1 - self.x0), 0.0), 1.0)
+        return float(10 ** (self.lx + t * (self.rx - self.lx)))
+
+    def x_of(self, alpha: float) -> float:
+        return self.x0 + (math.log10(alpha) - self.lx) / (self.rx - self.lx) * (self.x1 - self.x0)
+
+    def column_at(self, x: float, y: float, tol: float = 6.0) -> Optional[str]:
+        """The column whose end label or path passes within ``tol`` pixels of (x, y), if any."""
+        for col, (lx, ly, lw, lh) in self.labels.items():
+            if lx - 2 <= x <= lx + lw + 2 and ly - 2 <= y <= ly + lh + 2:
+                return col
+        best, best_d = None, tol
+        for col, (xs, ys) in self.curves.items():
+            if len(xs) < 2 or x < xs[0] or x > xs[-1]:
+                continue
+            yy = float(np.interp(x, xs, ys))
+            d = abs(yy - y)
+            if d <= best_d:
+                best, best_d = col, d
+        return best
+
+    def on_handle(self, x: float, y: float, tol: float = 9.0) -> bool:
+        kx, ky, kw, kh = self.knob
+        if kx <= x <= kx + kw and ky <= y <= ky + kh:
+            return True
+        top = self.regions["paths"][1]
+        bottom = self.knob[1] + self.knob[3]
+        return abs(x - self.handle_x) <= tol and top <= y <= bottom
+
+
+@dataclass
+class FigureData:
+    """What the figure shows.
+
+    Parameters
+    ----------
+    alphas : array (k,)
+        The path's α grid (any order).
+    coef : array (k, p)
+        Coefficient per α and column (standardized or table units, as ``ylabel`` says).
+    columns : sequence of str
+    alpha : float
+        The chosen α.
+    cv : (alphas, mean, se, alpha_min, alpha_1se) or None
+    colour : str
+        The model's colour (error line and band).
+    highlight : str or None
+        A column drawn in full while the others are dimmed.
+    readout : sequence of (column, value) or None
+        The model's coefficients at ``alpha``; None reads them off the path (marked ≈).
+    n_used : int or None
+        Columns the model uses at ``alpha``; None counts the read-out's non-zero values.
+    extras : sequence of (name, alpha, colour)
+        Other fits of this family kept at their own α, marked on the axis.
+    ylabel : str
+    error_label : str
+    """
+
+    alphas: np.ndarray
+    coef: np.ndarray
+    columns: Sequence[str]
+    alpha: float
+    cv: Optional[tuple] = None
+    colour: str = PALETTE["accent"]
+    highlight: Optional[str] = None
+    readout: Optional[Sequence] = None
+    n_used: Optional[int] = None
+    extras: Sequence = ()
+    ylabel: str = "standardized coefficient"
+    error_label: str = "held-out error (mean squared)"
+
+
+def dim(colour: str, amount: float = 0.72, paper: str = "#ffffff") -> str:
+    """``colour`` mixed toward ``paper`` by ``amount`` (0 keeps it, 1 gives paper)."""
+    a = [int(colour[i:i + 2], 16) for i in (1, 3, 5)]
+    b = [int(paper[i:i + 2], 16) for i in (1, 3, 5)]
+    return "#" + "".join(f"{round(x + (y - x) * amount):02x}" for x, y in zip(a, b))
+
+
+def text_width(text: str, size: float = FONT_PX) -> float:
+    return len(text) * CHAR_PX * size / FONT_PX
+
+
+def spread(ys: Sequence[float], lo: float, hi: float, gap: float = LABEL_GAP) -> list:
+    """Move label centres apart to at least ``gap`` pixels, staying within [lo, hi], keeping order.
+
+    Labels that cannot all fit are squeezed evenly over the range (the caller drops some first).
+    """
+    n = len(ys)
+    if n == 0:
+        return []
+    order = np.argsort(ys, kind="stable")
+    y = np.asarray(ys, dtype=float)[order]
+    if gap * (n - 1) > hi - lo:
+        out = np.linspace(lo, hi, n) if n > 1 else np.array([(lo + hi) / 2])
+    else:
+        out = np.clip(y.copy(), lo, hi)
+        for i in range(1, n):        # push down
+            out[i] = max(out[i], out[i - 1] + gap)
+        overflow = out[-1] - hi
+        if overflow > 0:
+            out[-1] = hi
+            for i in range(n - 2, -1, -1):   # push back up from the bottom
+                out[i] = min(out[i], out[i + 1] - gap)
+    res = np.empty(n)
+    res[order] = out
+    return res.tolist()
+
+
+def ticks(lo: float, hi: float, n: int = 4) -> list:
+    """Round tick values covering [lo, hi]."""
+    if not (math.isfinite(lo) and math.isfinite(hi)) or hi <= lo:
+        return [lo]
+    raw = (hi - lo) / n
+    mag = 10 ** math.floor(math.log10(raw))
+    step = min((m * mag for m in (1, 2, 2.5, 5, 10) if m * mag >= raw), default=raw)
+    v, out = math.ceil(lo / step) * step, []
+    while v <= hi + 1e-9 * step:
+        out.append(round(v, 12))
+        v += step
+    return out
+
+
+def columns_used(coef: np.ndarray) -> np.ndarray:
+    """How many columns have a non-zero coefficient at each α of a path."""
+    c = np.asarray(coef, dtype=float)
+    scale = np.nanmax(np.abs(c)) if c.size else 0.0
+    return np.count_nonzero(np.abs(c) > 1e-12 * max(scale, 1e-300), axis=1)
+
+
+def interpolate_row(alphas: np.ndarray, coef: np.ndarray, alpha: float) -> np.ndarray:
+    """Coefficients at ``alpha`` read off the path (linear in log α between grid points)."""
+    la = np.log10(np.asarray(alphas, dtype=float))
+    order = np.argsort(la)
+    la, c = la[order], np.asarray(coef, dtype=float)[order]
+    x = math.log10(alpha)
+    return np.array([np.interp(x, la, c[:, j]) for j in range(c.shape[1])])
+
+
+def build_figure(d: FigureData, width: int, height: int) -> Figure:
+    """Lay out the penalty figure for ``d`` at ``width`` × ``height`` pixels."""
+    alphas = np.asarray(d.alphas, dtype=float)
+    coef = np.asarray(d.coef, dtype=float)
+    cols = list(d.columns)
+    p = len(cols)
+    fig = Figure(width=int(width), height=int(height))
+    P = fig.prims
+    ink, muted, faint, grid = PALETTE["text"], PALETTE["muted"], PALETTE["faint"], PALETTE["grid"]
+    accent = PALETTE["accent"]
+
+    # -- horizontal layout: α falls from left to right; labels sit right of the path ends
+    longest = max((len(c) for c in cols), default=4)
+    label_w = min(max(text_width("x" * min(longest, 26)) + 14, 90), 200)
+    ml, mr = 58, label_w + 10
+    fig.x0, fig.x1 = float(ml), float(width - mr)
+    la = np.log10(alphas)
+    lo, hi = float(la.min()), float(la.max())
+    if d.cv is not None:
+        cla = np.log10(np.asarray(d.cv[0], dtype=float))
+        lo, hi = min(lo, float(cla.min())), max(hi, float(cla.max()))
+    a_log = math.log10(d.alpha) if d.alpha and d.alpha > 0 else hi
+    if hi - lo < 1e-9:
+        lo, hi = lo - 0.5, hi + 0.5
+    pad = 0.02 * (hi - lo)
+    fig.lx, fig.rx = hi + pad, lo - pad          # left: the strongest penalty
+
+    def X(logv):
+        return fig.x0 + (logv - fig.lx) / (fig.rx - fig.lx) * (fig.x1 - fig.x0)
+
+    # -- vertical layout
+    top, axis_h, strip_h, gap = 8.0, 40.0, 30.0, 10.0
+    avail = height - top - axis_h - strip_h - 2 * gap
+    has_cv = d.cv is not None and len(d.cv[0]) > 1
+    paths_h = avail * (0.62 if has_cv else 1.0)
+    err_h = avail - paths_h if has_cv else 0.0
+    r_paths = (fig.x0, top, fig.x1, top + paths_h)
+    r_strip = (fig.x0, r_paths[3] + gap, fig.x1, r_paths[3] + gap + strip_h)
+    r_err = (fig.x0, r_strip[3] + gap, fig.x1, r_strip[3] + gap + err_h)
+    axis_y = (r_err[3] if has_cv else r_strip[3]) + 4
+    fig.regions = {"paths": r_paths, "strip": r_strip, "error": r_err if has_cv else None,
+                   "axis": (fig.x0, axis_y, fig.x1, axis_y + axis_h - 4)}
+
+    # -- α axis: decades, labelled as α values, with the direction in words
+    for t in range(math.ceil(min(fig.lx, fig.rx)), math.floor(max(fig.lx, fig.rx)) + 1):
+        xx = X(t)
+        for r in (r_paths, r_err) if has_cv else (r_paths,):
+            P.append(Prim("line", ((xx, r[1]), (xx, r[3])), stroke=grid, width=0.8, opacity=0.7))
+        P.append(Prim("line", ((xx, axis_y), (xx, axis_y + 4)), stroke=muted))
+        P.append(Prim("text", ((xx, axis_y + 15),), text=number_text(10.0 ** t, 3), fill=muted, anchor="middle"))
+    P.append(Prim("line", ((fig.x0, axis_y), (fig.x1, axis_y)), stroke=muted))
+    P.append(Prim("text", ((fig.x0, axis_y + 31),), text="← stronger penalty, fewer columns", fill=muted))
+    P.append(Prim("text", ((fig.x1, axis_y + 31),), text="weaker penalty, closer to OLS →", fill=muted, anchor="end"))
+    P.append(Prim("text", (((fig.x0 + fig.x1) / 2, axis_y + 31),), text="α", fill=ink, anchor="middle", bold=True))
+
+    # -- paths
+    finite = coef[np.isfinite(coef)]
+    y0, y1 = (float(finite.min()), float(finite.max())) if finite.size else (-1.0, 1.0)
+    y0, y1 = min(y0, 0.0), max(y1, 0.0)
+    if y1 - y0 < 1e-300:
+        y0, y1 = -1.0, 1.0
+    ypad = 0.06 * (y1 - y0)
+    y0, y1 = y0 - ypad, y1 + ypad
+
+    def Yp(v):
+        return r_paths[3] - (v - y0) / (y1 - y0) * (r_paths[3] - r_paths[1])
+
+    for t in ticks(y0, y1):
+        P.append(Prim("line", ((fig.x0, Yp(t)), (fig.x1, Yp(t))), stroke=grid, width=0.6, opacity=0.6))
+        P.append(Prim("text", ((fig.x0 - 6, Yp(t) + 4),), text=number_text(t, 3), fill=muted, anchor="end"))
+    P.append(Prim("line", ((fig.x0, Yp(0.0)), (fig.x1, Yp(0.0))), stroke=muted, width=0.8))
+    P.append(Prim("text", ((fig.x0 + 4, r_paths[1] + 11),), text=d.ylabel, fill=muted))
+
+    order = np.argsort(la)[::-1]          # left (large α) to right (small α)
+    xs = np.array([X(v) for v in la[order]])
+    hl = d.highlight if d.highlight in cols else None
+    colours = {c: series_colour(j) for j, c in enumerate(cols)}
+    for j, c in enumerate(cols):
+        ys = np.array([Yp(v) for v in coef[order, j]])
+        ok = np.isfinite(ys)
+        fig.curves[c] = (xs[ok], ys[ok])
+    drawing = [c for c in cols if c != hl] + ([hl] if hl else [])
+    for c in drawing:
+        cx, cy = fig.curves[c]
+        if len(cx) < 2:
+            continue
+        if hl is None:
+            P.append(Prim("line", tuple(zip(cx, cy)), stroke=colours[c], width=1.5, role=f"curve:{c}"))
+        elif c == hl:
+            P.append(Prim("line", tuple(zip(cx, cy)), stroke=colours[c], width=2.8, role=f"curve:{c}"))
+        else:
+            P.append(Prim("line", tuple(zip(cx, cy)), stroke=faint, width=1.1, role=f"curve:{c}"))
+
+    # End labels: as many as fit, the highlighted one and the largest ends first.
+    ends = {c: fig.curves[c][1][-1] for c in cols if len(fig.curves[c][1])}
+    room = int((r_paths[3] - r_paths[1]) // LABEL_GAP) + 1
+    ranked = sorted(ends, key=lambda c: (c != hl, -abs(coef[order[-1], cols.index(c)])))
+    shown = [c for c in ranked[:room]]
+    placed = spread([ends[c] for c in shown], r_paths[1] + 6, r_paths[3] - 6)
+    lab_x = fig.x1 + 8
+    for c, yy in zip(shown, placed):
+        text = c if len(c) <= 26 else c[:25] + "…"
+        colour = colours[c] if (hl is None or c == hl) else faint
+        ey = ends[c]
+        if abs(yy - ey) > 2:
+            P.append(Prim("line", ((fig.x1 + 1, ey), (lab_x - 2, yy)), stroke=colour, width=0.8))
+        P.append(Prim("text", ((lab_x, yy + 4),), text=text, fill=colour if colour != faint else muted,
+                      bold=(c == hl), opacity=1.0 if (hl is None or c == hl) else 0.75, role=f"label:{c}"))
+        fig.labels[c] = (lab_x, yy - 7, text_width(text), 14.0)
+    if len(shown) < len(ends):
+        P.append(Prim("text", ((lab_x, r_paths[3] + 8),), text=f"+{len(ends) - len(shown)} more (click a curve)",
+                      fill=muted, size=10))
+
+    # -- strip: columns used along α
+    used = columns_used(coef)[order]
+    sx0, sy0, sx1, sy1 = r_strip
+    P.append(Prim("rect", ((sx0, sy0),), w=sx1 - sx0, h=sy1 - sy0, fill=PALETTE["alt_base"]))
+    pts = [(xs[0], sy1)]
+    for i in range(len(xs)):
+        h = (used[i] / max(p, 1)) * (sy1 - sy0 - 2)
+        xl = xs[i - 1] if i else xs[0]
+        xm = (xl + xs[i]) / 2 if i else xs[0]
+        pts += [(xm, sy1 - h)] if i == 0 else [(xm, pts[-1][1]), (xm, sy1 - h)]
+    pts += [(xs[-1], pts[-1][1]), (xs[-1], sy1)]
+    P.append(Prim("poly", tuple(pts), fill=PALETTE["accent_soft"], stroke=accent, width=0.8))
+    P.append(Prim("text", ((sx0 - 6, sy0 + 12),), text="columns", fill=muted, anchor="end", size=10))
+    P.append(Prim("text", ((sx0 - 6, sy0 + 24),), text="used", fill=muted, anchor="end", size=10))
+    P.append(Prim("text", ((sx1 + 8, sy0 + 12),), text=f"of {p}", fill=muted, size=10))
+
+    # -- held-out error: a line in a band, the two choices as labelled marks
+    if has_cv:
+        ca, mean, se, a_min, a_1se = d.cv
+        ca, mean, se = (np.asarray(v, dtype=float) for v in (ca, mean, se))
+        co = np.argsort(np.log10(ca))[::-1]
+        ex = np.array([X(v) for v in np.log10(ca)[co]])
+        m, s = mean[co], se[co]
+        ok = np.isfinite(m) & np.isfinite(s)
+        e0 = float(np.min((m - s)[ok])) if ok.any() else 0.0
+        e1 = float(np.max((m + s)[ok])) if ok.any() else 1.0
+        if e1 - e0 < 1e-300:
+            e0, e1 = e0 - 0.5, e1 + 0.5
+        epad = 0.08 * (e1 - e0)
+        e0, e1 = e0 - epad, e1 + epad * 2.5   # headroom for the mark labels
+
+        def Ye(v):
+            return r_err[3] - (v - e0) / (e1 - e0) * (r_err[3] - r_err[1])
+
+        for t in ticks(e0, e1, 3):
+            if Ye(t) < r_err[1] + 8:
+                continue
+            P.append(Prim("line", ((fig.x0, Ye(t)), (fig.x1, Ye(t))), stroke=grid, width=0.6, opacity=0.6))
+            P.append(Prim("text", ((fig.x0 - 6, Ye(t) + 4),), text=number_text(t, 3), fill=muted, anchor="end"))
+        band = [(x, Ye(v)) for x, v in zip(ex[ok], (m + s)[ok])] + \
+               [(x, Ye(v)) for x, v in zip(ex[ok][::-1], (m - s)[ok][::-1])]
+        P.append(Prim("poly", tuple(band), fill=d.colour, opacity=0.18))
+        P.append(Prim("line", tuple((x, Ye(v)) for x, v in zip(ex[ok], m[ok])), stroke=d.colour, width=2.0))
+        P.append(Prim("text", ((fig.x0 + 4, r_err[1] + 11),), text=d.error_label, fill=muted))
+        marks = []
+        for a, text, filled in ((a_min, "lowest error", True), (a_1se, "simplest within 1 SE", False)):
+            if a is None or not (a > 0):
+                continue
+            i = int(np.argmin(np.abs(np.log10(ca) - math.log10(a))))
+            marks.append((X(math.log10(a)), Ye(mean[i]), Ye(mean[i] + se[i]), text, filled))
+        last_right = -1e9
+        for k, (mx, my, top_y, text, filled) in enumerate(sorted(marks)):
+            P.append(Prim("line", ((mx, top_y - 2), (mx, my)), stroke=ink, width=1.0, opacity=0.7))
+            P.append(Prim("circle", ((mx, my),), r=4.5, fill=ink if filled else PALETTE["base"], stroke=ink, width=1.4))
+            tw = text_width(text, 10)
+            ty = top_y - 6
+            anchor = "middle"
+            left = mx - tw / 2
+            if left < last_right + 6:        # labels of close marks go to either side
+                anchor, left = "start", mx + 4
+            if left + tw > fig.x1 + mr - 4:
+                anchor, left = "end", mx - tw
+            P.append(Prim("text", ((mx, ty),), text=text, fill=ink, size=10, anchor=anchor, role="mark"))
+            last_right = left + tw
+
+    # -- the chosen α: a guide, a knob on the axis, the read-out beside it
+    hx = X(min(max(a_log, min(fig.lx, fig.rx)), max(fig.lx, fig.rx)))
+    fig.handle_x = hx
+    bottom = r_err[3] if has_cv else r_strip[3]
+    P.append(Prim("line", ((hx, r_paths[1]), (hx, bottom)), stroke=accent, width=1.2, opacity=0.85, role="guide"))
+    knob_text = f"α {number_text(d.alpha, 3)}"
+    kw = text_width(knob_text) + 16
+    fig.knob = (hx - kw / 2, axis_y - 9, kw, 18.0)
+    P.append(Prim("rect", ((hx - kw / 2, axis_y - 9),), w=kw, h=18.0, fill=accent, stroke=accent, r=9.0, role="knob"))
+    P.append(Prim("text", ((hx, axis_y + 4),), text=knob_text, fill="#ffffff", anchor="middle", bold=True))
+
+    if d.readout is not None:
+        values = [(c, float(v)) for c, v in d.readout]
+        approx = False
+    else:
+        row = interpolate_row(alphas, coef, d.alpha)
+        values = list(zip(cols, row.tolist()))
+        approx = True
+    n_used = d.n_used if d.n_used is not None else sum(1 for _, v in values if v != 0.0)
+    ranked_v = sorted(values, key=lambda cv: (cv[0] != hl, -abs(cv[1]) if math.isfinite(cv[1]) else 0.0))
+    rows = [(c, v) for c, v in ranked_v if v != 0.0 or c == hl][:READOUT_ROWS]
+    head = f"{n_used} of {p} columns used"
+    lines = [(head, None, True)] + [(c if len(c) <= 18 else c[:17] + "…", v, c == hl) for c, v in rows]
+    if n_used > len(rows):
+        lines.append((f"… {n_used - len(rows)} more", None, False))
+    vals_w = max((text_width(("≈" if approx else "") + number_text(v, 4), 10) for _, v in rows), default=0.0)
+    names_w = max((text_width(t, 10) for t, v, _ in lines[1:] if v is not None), default=0.0)
+    box_w = max(text_width(head, 10) + 20, names_w + vals_w + 30, 140.0)
+    box_h = 8 + 14 * len(lines)
+    bx = hx + 10 if hx + 10 + box_w <= fig.x1 else hx - 10 - box_w
+    by = r_paths[1] + 4
+    P.append(Prim("rect", ((bx, by),), w=box_w, h=box_h, fill=PALETTE["base"], stroke=accent, opacity=0.93, r=3.0,
+                  role="readout"))
+    for k, (text, v, strong) in enumerate(lines):
+        ty = by + 16 + 14 * k
+        P.append(Prim("text", ((bx + 8, ty),), text=text, fill=ink if k else accent, size=10, bold=strong))
+        if v is not None:
+            P.append(Prim("text", ((bx + box_w - 8, ty),), text=("≈" if approx else "") + number_text(v, 4),
+                          fill=ink, size=10, anchor="end", bold=strong))
+    for name, a, colour in d.extras:
+        if a and a > 0:
+            ex_ = X(math.log10(a))
+            if fig.x0 <= ex_ <= fig.x1:
+                P.append(Prim("poly", ((ex_, axis_y - 12), (ex_ - 5, axis_y - 20), (ex_ + 5, axis_y - 20)),
+                              fill=colour))
+                P.append(Prim("text", ((ex_ + 7, axis_y - 13),), text=name, fill=colour, size=9))
+    return fig
+
+
+def figure_svg(fig: Figure, title: str = "") -> str:
+    """The laid-out figure as an inline SVG element."""
+    from html import escape
+
+    out = [f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {fig.width} {fig.height}" width="{fig.width}" '
+           f'height="{fig.height}" role="img" aria-label="{escape(title)}" class="chart">',
+           f'<rect x="0" y="0" width="{fig.width}" height="{fig.height}" fill="#ffffff"/>']
+    for p in fig.prims:
+        op = f' opacity="{p.opacity:.2f}"' if p.opacity < 1 else ""
+        dash = f' stroke-dasharray="{" ".join(str(x) for x in p.dash)}"' if p.dash else ""
+        if p.kind == "line":
+            pts = " ".join(f"{x:.1f},{y:.1f}" for x, y in p.pts)
+            out.append(f'<polyline points="{pts}" fill="none" stroke="{p.stroke}" stroke-width="{p.width}"{dash}{op}/>')
+        elif p.kind == "poly":
+            pts = " ".join(f"{x:.1f},{y:.1f}" for x, y in p.pts)
+            stroke = f' stroke="{p.stroke}" stroke-width="{p.width}"' if p.stroke else ' stroke="none"'
+            out.append(f'<polygon points="{pts}" fill="{p.fill or "none"}"{stroke}{op}/>')
+        elif p.kind == "circle":
+            (x, y), = p.pts
+            out.append(f'<circle cx="{x:.1f}" cy="{y:.1f}" r="{p.r}" fill="{p.fill or "none"}" '
+                       f'stroke="{p.stroke or "none"}" stroke-width="{p.width}"{op}/>')
+        elif p.kind == "rect":
+            (x, y), = p.pts
+            stroke = f' stroke="{p.stroke}"' if p.stroke else ""
+            out.append(f'<rect x="{x:.1f}" y="{y:.1f}" width="{p.w:.1f}" height="{p.h:.1f}" rx="{p.r}" '
+                       f'fill="{p.fill or "none"}"{stroke}{op}/>')
+        elif p.kind == "text":
+            (x, y), = p.pts
+            weight = ' font-weight="600"' if p.bold else ""
+            out.append(f'<text x="{x:.1f}" y="{y:.1f}" text-anchor="{p.anchor}" font-size="{p.size}" '
+                       f'font-family="system-ui, sans-serif" fill="{p.fill or PALETTE["text"]}"{weight}{op}>'
+                       f'{escape(p.text)}</text>')
+    out.append("</svg>")
+    return "".join(out)
