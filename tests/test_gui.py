@@ -142,38 +142,89 @@ def test_sample_fills_every_panel_with_sentences(gh):
     assert data.excluded_model.rowCount() == len(s.design.excluded) == s.table.n_rows - s.design.n
 
 
-def test_open_a_table_then_set_roles_in_the_side_panel(qtbot):
+def _pick(combo, value):
+    i = combo.findData(value)
+    assert i >= 0, value
+    combo.setCurrentIndex(i)
+    combo.activated.emit(i)
+
+
+def _tick(w, column, on=True, which="use"):
+    m = w.panel("data").columns_model
+    r = m.draft.names.index(column)
+    c = m.C_USE if which == "use" else m.C_CATS
+    assert m.flags(m.index(r, c)) & QtCore.Qt.ItemIsUserCheckable
+    assert m.setData(m.index(r, c), QtCore.Qt.Checked if on else QtCore.Qt.Unchecked, QtCore.Qt.CheckStateRole)
+
+
+def test_open_a_table_asks_before_fitting_then_the_sentence_sets_the_roles(qtbot):
     w = make_window(qtbot)
-    with qtbot.waitSignal(w.results_applied, timeout=FIT_TIMEOUT_MS):
+    with qtbot.waitSignal(w.session_changed, timeout=FIT_TIMEOUT_MS):
         w.open_path(SAMPLE_CSV)
     wait_idle(qtbot, w)
     s = w.session
-    # Defaults: the last numeric column is the target; a text column with a level per bed is left out.
+    # Nothing long starts before the person confirms: no fit, no stability refits.
+    assert s.results is None and not w.runner.busy()
+    assert "press Fit" in w.status_label.text()
+    # The stated rule: the last numeric column that is not an identifier is the target;
+    # a text column with a level per bed is left out, with the reason shown in the column list.
     assert s.roles.target == "yield_kg_m2"
     assert "bed" not in s.roles.predictors and "glasshouse" in s.roles.predictors
-    rp = w.roles_panel
-    rp.weights.setCurrentText("plants_per_bed")
-    rp.groups.setCurrentText("glasshouse")
-    rp.set_codes("week", True)
-    rp.boot.setValue(0)
+    cm = w.panel("data").columns_model
+    assert cm.part("bed").startswith("left out: text with 96 different values")
+    bar = w.question
+    _pick(bar.weights, "plants_per_bed")
+    _pick(bar.groups, "glasshouse")
+    _tick(w, "week", True, which="cats")
+    _tick(w, "week", True)
+    bar.settings_form.boot.setValue(0)
+    # Ticks show what the fit uses: the groups column loses its tick and says what it is for.
+    assert cm.data(cm.index(cm.draft.names.index("glasshouse"), cm.C_USE), QtCore.Qt.CheckStateRole) is None
+    assert cm.part("glasshouse") == "held-out groups" and "glasshouse" not in w.draft.roles().predictors
+    assert bar.fit_btn.text() == "Fit with these choices"
     with qtbot.waitSignal(w.results_applied, timeout=FIT_TIMEOUT_MS):
-        rp.apply_btn.click()
+        bar.fit_btn.click()
     wait_idle(qtbot, w)
     s = w.session
     assert s.roles.weights == "plants_per_bed" and s.roles.groups == "glasshouse"
-    assert "week" in s.roles.categorical
+    assert "week" in s.roles.categorical and s.bootstrap == 0
     # week 1..6 coded against its first level gives five indicator columns (design.py's coding).
     assert [c for c in s.design.columns if c.startswith("week=")] == [f"week={k}" for k in range(2, 7)]
     assert s.design.groups is not None and len(s.design.group_labels) == 8
     assert s.results is not None and s.results.fold_ids.shape == (s.design.n,)
+    assert bar.fit_btn.text() == "Fit"
+    close_quietly(w)
+
+
+def test_identifier_like_numeric_columns_are_left_out_with_a_reason(qtbot, tmp_path):
+    rng = np.random.default_rng(5)
+    n = 40
+    frame = pd.DataFrame({"row": np.arange(1, n + 1), "customer_id": rng.permutation(n) * 7 + 1000,
+                          "x1": rng.normal(size=n), "x2": rng.normal(size=n)})
+    frame["y"] = frame["x1"] - frame["x2"] + rng.normal(scale=0.1, size=n)
+    path = tmp_path / "ids.csv"
+    frame.to_csv(path, index=False)
+    w = make_window(qtbot)
+    with qtbot.waitSignal(w.session_changed, timeout=FIT_TIMEOUT_MS):
+        w.open_path(str(path))
+    wait_idle(qtbot, w)
+    s = w.session
+    assert s.roles.target == "y" and s.results is None
+    assert set(s.roles.predictors) == {"x1", "x2"}
+    cm = w.panel("data").columns_model
+    assert "like a row number" in cm.part("row")
+    assert "named like an identifier" in cm.part("customer_id")
+    # The target moves to x2: x2 stops being an input at once, and the tick says so.
+    _pick(w.question.target, "x2")
+    assert w.draft.roles().predictors == ("x1",)
+    assert cm.part("x2") == "explained (the target)"
     close_quietly(w)
 
 
 def test_roles_change_refits_and_undo_restores(gh, qtbot):
-    roles = gh.roles_panel
-    roles.set_predictor("day_temp_f", False)
+    _tick(gh, "day_temp_f", False)
     with qtbot.waitSignal(gh.results_applied, timeout=FIT_TIMEOUT_MS):
-        roles.apply_btn.click()
+        gh.question.fit_btn.click()
     wait_idle(qtbot, gh)
     s = gh.session
     assert "day_temp_f" not in s.design.columns
@@ -183,7 +234,7 @@ def test_roles_change_refits_and_undo_restores(gh, qtbot):
     gh.undo()
     wait_idle(qtbot, gh)
     assert "day_temp_f" in gh.session.design.columns
-    assert roles.roles().predictors == tuple(GREENHOUSE_ROLES["predictors"])
+    assert gh.draft.roles().predictors == tuple(GREENHOUSE_ROLES["predictors"])
 
 
 def test_dragging_alpha_moves_the_coefficient_table(gh):
@@ -493,7 +544,7 @@ def test_snapshot_writes_non_blank_pngs(tmp_path):
     paths = sorted(str(p) for p in out.glob("*.png"))
     assert paths == sorted(snapshot(project, str(out)))
     names = [os.path.basename(p) for p in paths]
-    assert len(paths) == 8 and "00_roles.png" in names and "02_overlaps.png" in names
+    assert len(paths) == 8 and "00_question.png" in names and "02_overlaps.png" in names
     for p in paths:
         img = QtGui.QImage(p)
         assert img.width() > 200 and img.height() > 200, p

@@ -1,85 +1,263 @@
-"""The side panel where a person says which column plays which part."""
+"""The question a person asks of the table, said as a sentence across the top of the window.
+
+    Explain [target ▾] from the ticked columns; each row counts [weights ▾] times;
+    hold out whole [groups ▾] groups.
+
+The ticks themselves live in the data view's column list (:class:`ColumnsModel`).
+Both edit one :class:`RoleDraft`; nothing is fitted until the person presses Fit.
+"""
 
 from __future__ import annotations
 
+import re
 from dataclasses import replace
+from typing import Optional
 
-from PySide6 import QtCore, QtWidgets
+import numpy as np
+from PySide6 import QtCore, QtGui, QtWidgets
 
-from regbench.data.design import Roles
+from regbench.data.design import Roles, looks_like_identifier
 from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC
-from regbench.gui.panels.base import caption
+from regbench.gui.style import PALETTE
 
 Qt = QtCore.Qt
-NONE = "(none)"
 #: A text column with more levels than this is not ticked by default (likely an identifier).
 DEFAULT_MAX_LEVELS = 20
-KIND_SHORT = {NUMERIC: "number", CATEGORICAL: "text", BOOLEAN: "yes/no", EMPTY: "empty"}
+KIND_WORDS = {NUMERIC: "number", CATEGORICAL: "text", BOOLEAN: "yes/no", EMPTY: "empty"}
+NO_WEIGHTS = "1 (no weights)"
+NO_GROUPS = "single rows"
+TARGET_RULE = "the last numeric column that is not an identifier"
+_ID_NAME = re.compile(r"(^|[_\W])(id|ids|row|rownames|index|idx|no|nr|key|serial)($|[_\W])", re.IGNORECASE)
+
+
+def identifier_reason(table, name: str) -> Optional[str]:
+    """Why ``name`` looks like an identifier rather than a measurement (None when it does not)."""
+    info = table.columns[name]
+    if info.kind == CATEGORICAL:
+        if looks_like_identifier(table, name) or info.distinct > DEFAULT_MAX_LEVELS:
+            return f"text with {info.distinct} different values: it names rows rather than measuring them"
+        return None
+    if info.kind != NUMERIC:
+        return None
+    filled = table.n_rows - info.missing
+    if filled < 3 or info.distinct != filled:
+        return None
+    v = table.frame[name].to_numpy(dtype=float)
+    v = v[np.isfinite(v)]
+    if v.size == 0 or not np.all(v == np.round(v)):
+        return None
+    if v.size > 1 and np.all(np.diff(v) == 1):
+        return "counts up by 1 from row to row, like a row number"
+    if _ID_NAME.search(name):
+        return "a different whole number on every row, named like an identifier"
+    return None
 
 
 def default_roles(table) -> Roles:
-    """A starting point for a table opened without roles: the last numeric column is the target."""
-    numeric = [c for c in table.names if table.columns[c].kind in (NUMERIC, BOOLEAN)]
-    if not numeric:
-        target = table.names[-1]
-    else:
+    """A stated starting point: the target is the last numeric column that is not an identifier;
+    every other column is ticked except identifiers and empty columns."""
+    ids = {c for c in table.names if identifier_reason(table, c)}
+    numeric = [c for c in table.names if table.columns[c].kind in (NUMERIC, BOOLEAN) and c not in ids]
+    if numeric:
         target = numeric[-1]
-    preds = []
-    for c in table.names:
-        info = table.columns[c]
-        if c == target or info.kind == EMPTY:
-            continue
-        if info.kind == CATEGORICAL and info.distinct > DEFAULT_MAX_LEVELS:
-            continue
-        preds.append(c)
-    return Roles(target=target, predictors=tuple(preds))
+    else:
+        target = next((c for c in table.names if table.columns[c].kind in (NUMERIC, BOOLEAN)), table.names[-1])
+    preds = tuple(c for c in table.names
+                  if c != target and table.columns[c].kind != EMPTY and c not in ids)
+    return Roles(target=target, predictors=preds)
 
 
-class RolesPanel(QtWidgets.QWidget):
-    """Target, predictors (with type, missing count, possible codes), weights, groups, fit settings."""
+class RoleDraft(QtCore.QObject):
+    """The roles and fit settings being chosen, before they are sent to the session."""
 
-    applied = QtCore.Signal(object, object, int)  # Roles, FitSettings, stability refits
-
-    C_NAME, C_KIND, C_MISSING, C_CODES = range(4)
+    changed = QtCore.Signal()
 
     def __init__(self, parent=None):
         super().__init__(parent)
-        self._table = None
-        self._settings = None
-        lay = QtWidgets.QVBoxLayout(self)
-        lay.setContentsMargins(10, 8, 10, 8)
-        form = QtWidgets.QFormLayout()
+        self.table = None
+        self.target: Optional[str] = None
+        self.weights: Optional[str] = None
+        self.groups: Optional[str] = None
+        self.ticked: set = set()
+        self.categorical: set = set()
+        self.settings = None
+        self.bootstrap = 0
+        self.unusable: dict = {}     # column -> why the fit cannot use it
+        self.left_out: dict = {}     # column -> why it was not ticked by default
+
+    def load(self, table, roles: Roles, settings, bootstrap: int, unusable: Optional[dict] = None) -> None:
+        self.table = table
+        self.target, self.weights, self.groups = roles.target, roles.weights, roles.groups
+        if roles.predictors:
+            self.ticked = set(roles.predictors)
+        else:   # empty means every other usable column, as the design builder reads it
+            self.ticked = {c for c in table.names if table.columns[c].kind != EMPTY
+                           and not looks_like_identifier(table, c)}
+        self.ticked -= {self.target, self.weights, self.groups}
+        self.categorical = set(roles.categorical)
+        self.settings = settings
+        self.bootstrap = int(bootstrap)
+        self.unusable = dict(unusable or {})
+        self.left_out = {c: r for c in table.names if c not in self.ticked and (r := identifier_reason(table, c))}
+        self.changed.emit()
+
+    @property
+    def names(self) -> list:
+        return list(self.table.names) if self.table is not None else []
+
+    def role_of(self, name: str) -> Optional[str]:
+        if name == self.target:
+            return "target"
+        if name == self.weights:
+            return "weights"
+        if name == self.groups:
+            return "groups"
+        return None
+
+    def uses(self, name: str) -> bool:
+        """True when the fit would use ``name`` as an input."""
+        return name in self.ticked and self.role_of(name) is None
+
+    def set_target(self, name: str) -> None:
+        self.target = name
+        self.changed.emit()
+
+    def set_weights(self, name: Optional[str]) -> None:
+        self.weights = name
+        self.changed.emit()
+
+    def set_groups(self, name: Optional[str]) -> None:
+        self.groups = name
+        self.changed.emit()
+
+    def set_ticked(self, name: str, on: bool) -> None:
+        (self.ticked.add if on else self.ticked.discard)(name)
+        self.changed.emit()
+
+    def tick_all(self, on: bool) -> None:
+        self.ticked = {c for c in self.names if self.table.columns[c].kind != EMPTY} if on else set()
+        self.changed.emit()
+
+    def set_categorical(self, name: str, on: bool) -> None:
+        (self.categorical.add if on else self.categorical.discard)(name)
+        self.changed.emit()
+
+    def set_settings(self, settings, bootstrap: Optional[int] = None) -> None:
+        self.settings = settings
+        if bootstrap is not None:
+            self.bootstrap = int(bootstrap)
+        self.changed.emit()
+
+    def roles(self) -> Roles:
+        preds = tuple(c for c in self.names if self.uses(c))
+        cats = tuple(c for c in preds if c in self.categorical and self.table.columns[c].kind == NUMERIC)
+        return Roles(target=self.target, predictors=preds, categorical=cats, weights=self.weights, groups=self.groups)
+
+    def differs_from(self, session) -> bool:
+        """True when Fit would change the session's roles, settings or refit count."""
+        if session is None or self.table is None:
+            return False
+        return (self.roles() != session.roles or self.settings != session.settings
+                or self.bootstrap != session.bootstrap)
+
+
+# == the sentence ===========================================================================
+
+
+class QuestionBar(QtWidgets.QFrame):
+    """"Explain [target] from the ticked columns; each row counts [weights] times; hold out whole [groups] groups."""
+
+    fit_requested = QtCore.Signal()
+
+    def __init__(self, draft: RoleDraft, parent=None):
+        super().__init__(parent)
+        self.setObjectName("question")
+        self.draft = draft
+        lay = QtWidgets.QHBoxLayout(self)
+        lay.setContentsMargins(14, 6, 10, 6)
+        lay.setSpacing(6)
+
+        def words(text):
+            lab = QtWidgets.QLabel(text)
+            lab.setObjectName("questionWords")
+            return lab
+
         self.target = QtWidgets.QComboBox()
         self.weights = QtWidgets.QComboBox()
         self.groups = QtWidgets.QComboBox()
-        form.addRow("Predict", self.target)
-        form.addRow("Row weights", self.weights)
-        form.addRow("Keep together", self.groups)
-        lay.addLayout(form)
-        hint = caption("Inputs: tick to use; tick 'Codes' to treat whole numbers as categories")
-        hint.setWordWrap(True)
-        lay.addWidget(hint)
-        self.tree = QtWidgets.QTreeWidget()
-        self.tree.setColumnCount(4)
-        self.tree.setHeaderLabels(["Column", "Kind", "Empty", "Codes"])
-        self.tree.setRootIsDecorated(False)
-        self.tree.setUniformRowHeights(True)
-        self.tree.header().setStretchLastSection(False)
-        self.tree.header().setSectionResizeMode(0, QtWidgets.QHeaderView.Stretch)
-        for c in (1, 2, 3):
-            self.tree.header().setSectionResizeMode(c, QtWidgets.QHeaderView.ResizeToContents)
-        lay.addWidget(self.tree, 1)
-        row = QtWidgets.QHBoxLayout()
-        all_btn = QtWidgets.QPushButton("All")
-        none_btn = QtWidgets.QPushButton("None")
-        all_btn.clicked.connect(lambda: self._tick_all(True))
-        none_btn.clicked.connect(lambda: self._tick_all(False))
-        row.addWidget(all_btn)
-        row.addWidget(none_btn)
-        row.addStretch(1)
-        lay.addLayout(row)
-        lay.addWidget(caption("Fitting"))
-        fform = QtWidgets.QFormLayout()
+        for combo in (self.target, self.weights, self.groups):
+            combo.setSizeAdjustPolicy(QtWidgets.QComboBox.AdjustToMinimumContentsLengthWithIcon)
+            combo.setMinimumContentsLength(9)
+        self.ticked_words = words("from the ticked columns;")
+        self.groups_before = words("hold out whole")
+        self.groups_after = words("groups.")
+        for w in (words("Explain"), self.target, self.ticked_words,
+                  words("each row counts"), self.weights, words("times;"),
+                  self.groups_before, self.groups, self.groups_after):
+            lay.addWidget(w)
+        lay.addStretch(1)
+        self.settings_btn = QtWidgets.QToolButton()
+        self.settings_btn.setText("Settings")
+        self.settings_btn.setToolTip("Cross-validation folds, L1 ratio, how α is chosen, stability refits")
+        self.settings_btn.setPopupMode(QtWidgets.QToolButton.InstantPopup)
+        self.settings_form = FitSettingsForm(draft)
+        menu = QtWidgets.QMenu(self.settings_btn)
+        act = QtWidgets.QWidgetAction(menu)
+        act.setDefaultWidget(self.settings_form)
+        menu.addAction(act)
+        self.settings_btn.setMenu(menu)
+        lay.addWidget(self.settings_btn)
+        self.fit_btn = QtWidgets.QPushButton("Fit")
+        self.fit_btn.setObjectName("primary")
+        self.fit_btn.setToolTip("Fit the models with these choices (Ctrl+R fits again as they are)")
+        self.fit_btn.clicked.connect(self.fit_requested)
+        lay.addWidget(self.fit_btn)
+        self.target.activated.connect(lambda *_: draft.set_target(self.target.currentText()))
+        self.weights.activated.connect(lambda *_: draft.set_weights(self.weights.currentData()))
+        self.groups.activated.connect(lambda *_: draft.set_groups(self.groups.currentData()))
+        draft.changed.connect(self.sync)
+        self.setEnabled(False)
+
+    def sync(self) -> None:
+        d = self.draft
+        if d.table is None:
+            self.setEnabled(False)
+            return
+        names = d.names
+        numeric = [c for c in names if d.table.columns[c].kind in (NUMERIC, BOOLEAN)]
+        for combo, items, current in ((self.target, [(c, c) for c in (numeric or names)], d.target),
+                                      (self.weights, [(NO_WEIGHTS, None)] + [(c, c) for c in numeric], d.weights),
+                                      (self.groups, [(NO_GROUPS, None)] + [(c, c) for c in names], d.groups)):
+            combo.blockSignals(True)
+            if [combo.itemData(i) for i in range(combo.count())] != [v for _, v in items]:
+                combo.clear()
+                for text, value in items:
+                    combo.addItem(text, value)
+            combo.setCurrentIndex(max(0, combo.findData(current)))
+            combo.blockSignals(False)
+        n = sum(1 for c in names if d.uses(c))
+        self.ticked_words.setText(f"from the {n} ticked column{'s' if n != 1 else ''};")
+        grouped = d.groups is not None
+        self.groups_before.setText("hold out whole" if grouped else "hold out")
+        self.groups_after.setText("groups." if grouped else "at random.")
+        self.setEnabled(True)
+
+    def set_pending(self, pending: bool, has_results: bool) -> None:
+        """Say on the Fit button whether pressing it would change anything."""
+        self.fit_btn.setText("Fit with these choices" if pending or not has_results else "Fit")
+        self.fit_btn.setProperty("pending", bool(pending or not has_results))
+        self.fit_btn.style().unpolish(self.fit_btn)
+        self.fit_btn.style().polish(self.fit_btn)
+
+
+class FitSettingsForm(QtWidgets.QWidget):
+    """Cross-validation folds, the elastic-net L1 ratio, how α is chosen, stability refits."""
+
+    def __init__(self, draft: RoleDraft, parent=None):
+        super().__init__(parent)
+        self.draft = draft
+        form = QtWidgets.QFormLayout(self)
+        form.setContentsMargins(12, 10, 12, 10)
         self.folds = QtWidgets.QSpinBox()
         self.folds.setRange(2, 50)
         self.l1 = QtWidgets.QDoubleSpinBox()
@@ -87,107 +265,169 @@ class RolesPanel(QtWidgets.QWidget):
         self.l1.setSingleStep(0.05)
         self.l1.setDecimals(2)
         self.rule = QtWidgets.QComboBox()
-        self.rule.addItem("lowest CV error", "cv_min")
+        self.rule.addItem("lowest held-out error", "cv_min")
         self.rule.addItem("simplest within one SE", "cv_1se")
         self.boot = QtWidgets.QSpinBox()
         self.boot.setRange(0, 2000)
         self.boot.setSingleStep(50)
-        self.boot.setValue(100)
-        fform.addRow("CV folds", self.folds)
-        fform.addRow("Elastic-net L1 ratio", self.l1)
-        fform.addRow("Choose α by", self.rule)
-        fform.addRow("Stability refits", self.boot)
-        lay.addLayout(fform)
-        self.apply_btn = QtWidgets.QPushButton("Apply and refit")
-        self.apply_btn.setObjectName("primary")
-        self.apply_btn.clicked.connect(self._apply)
-        lay.addWidget(self.apply_btn)
-        self.setEnabled(False)
+        form.addRow("Cross-validation folds", self.folds)
+        form.addRow("Elastic-net L1 ratio", self.l1)
+        form.addRow("Choose α by", self.rule)
+        form.addRow("Stability refits", self.boot)
+        for w in (self.folds, self.l1, self.boot):
+            w.valueChanged.connect(self._changed)
+        self.rule.currentIndexChanged.connect(self._changed)
+        draft.changed.connect(self.sync)
+        self._syncing = False
 
-    # -- filling ----------------------------------------------------------------------
-    def load(self, table, roles: Roles, settings, n_boot: int = None) -> None:
-        self._table, self._settings = table, settings
-        names = list(table.names)
-        numeric = [c for c in names if table.columns[c].kind in (NUMERIC, BOOLEAN)]
-        self.target.blockSignals(True)
-        self.target.clear()
-        self.target.addItems(numeric or names)
-        self.target.setCurrentText(roles.target)
-        self.target.blockSignals(False)
-        for combo, choices, current in ((self.weights, numeric, roles.weights), (self.groups, names, roles.groups)):
-            combo.clear()
-            combo.addItem(NONE)
-            combo.addItems(choices)
-            combo.setCurrentText(current if current else NONE)
-        if roles.predictors:
-            preds = set(roles.predictors)
-        else:  # empty means every other usable column, as the design builder reads it
-            skip = {roles.target, roles.weights, roles.groups}
-            preds = {c for c in names if c not in skip and table.columns[c].kind != EMPTY}
-        self.tree.clear()
-        for name in names:
-            info = table.columns[name]
-            item = QtWidgets.QTreeWidgetItem([name, KIND_SHORT.get(info.kind, info.kind),
-                                              str(info.missing) if info.missing else "", ""])
-            item.setToolTip(self.C_NAME, name)
-            item.setFlags(item.flags() | Qt.ItemIsUserCheckable)
-            item.setCheckState(self.C_NAME, Qt.Checked if name in preds else Qt.Unchecked)
-            if info.kind == NUMERIC:
-                item.setCheckState(self.C_CODES, Qt.Checked if name in roles.categorical else Qt.Unchecked)
-                if info.coded_categories:
-                    item.setText(self.C_CODES, "maybe")
-                    item.setToolTip(self.C_CODES, f"whole numbers with only {info.distinct} distinct values: "
-                                                  "perhaps category codes; tick to treat them as categories")
-            if info.missing:
-                item.setToolTip(self.C_MISSING, f"{info.missing} empty cells; rows using this column are left out")
-            self.tree.addTopLevelItem(item)
-        self.folds.setValue(settings.folds)
-        self.l1.setValue(float(settings.l1_ratios[0]) if settings.l1_ratios else 0.5)
-        self.rule.setCurrentIndex(max(0, self.rule.findData(settings.alpha_rule)))
-        if n_boot is not None:
-            self.boot.setValue(n_boot)
-        self.setEnabled(True)
-
-    def _tick_all(self, on: bool) -> None:
-        for i in range(self.tree.topLevelItemCount()):
-            self.tree.topLevelItem(i).setCheckState(self.C_NAME, Qt.Checked if on else Qt.Unchecked)
-
-    # -- reading ----------------------------------------------------------------------
-    def _item(self, name):
-        for i in range(self.tree.topLevelItemCount()):
-            it = self.tree.topLevelItem(i)
-            if it.text(self.C_NAME) == name:
-                return it
-        raise KeyError(name)
-
-    def set_predictor(self, name: str, on: bool) -> None:
-        self._item(name).setCheckState(self.C_NAME, Qt.Checked if on else Qt.Unchecked)
-
-    def set_codes(self, name: str, on: bool) -> None:
-        self._item(name).setCheckState(self.C_CODES, Qt.Checked if on else Qt.Unchecked)
-
-    def roles(self) -> Roles:
-        target = self.target.currentText()
-        weights = None if self.weights.currentText() == NONE else self.weights.currentText()
-        groups = None if self.groups.currentText() == NONE else self.groups.currentText()
-        preds, cats = [], []
-        for i in range(self.tree.topLevelItemCount()):
-            it = self.tree.topLevelItem(i)
-            name = it.text(self.C_NAME)
-            if name in (target, weights, groups):
-                continue
-            if it.checkState(self.C_NAME) == Qt.Checked:
-                preds.append(name)
-                if it.data(self.C_CODES, Qt.CheckStateRole) is not None and it.checkState(self.C_CODES) == Qt.Checked:
-                    cats.append(name)
-        return Roles(target=target, predictors=tuple(preds), categorical=tuple(cats), weights=weights, groups=groups)
-
-    def settings(self):
-        base = self._settings
-        ratios = (round(self.l1.value(), 2),) + tuple(base.l1_ratios[1:])
-        return replace(base, folds=self.folds.value(), l1_ratios=ratios, alpha_rule=self.rule.currentData())
-
-    def _apply(self) -> None:
-        if self._table is None:
+    def sync(self):
+        s = self.draft.settings
+        if s is None:
             return
-        self.applied.emit(self.roles(), self.settings(), self.boot.value())
+        self._syncing = True
+        self.folds.setValue(s.folds)
+        self.l1.setValue(float(s.l1_ratios[0]) if s.l1_ratios else 0.5)
+        self.rule.setCurrentIndex(max(0, self.rule.findData(s.alpha_rule)))
+        self.boot.setValue(self.draft.bootstrap)
+        self._syncing = False
+
+    def _changed(self, *_):
+        if self._syncing or self.draft.settings is None:
+            return
+        base = self.draft.settings
+        ratios = (round(self.l1.value(), 2),) + tuple(base.l1_ratios[1:])
+        self.draft.set_settings(replace(base, folds=self.folds.value(), l1_ratios=ratios,
+                                        alpha_rule=self.rule.currentData()), self.boot.value())
+
+
+# == the column list (shown in the data view) ==================================================
+
+
+class ColumnsModel(QtCore.QAbstractTableModel):
+    """One row per column: use it (tick), kind, empty cells, distinct values, as categories, its part in the fit."""
+
+    C_USE, C_NAME, C_KIND, C_EMPTY, C_DISTINCT, C_CATS, C_PART = range(7)
+    HEADERS = ("Use", "Column", "Kind", "Empty", "Values", "As categories", "Part in the fit")
+
+    def __init__(self, draft: RoleDraft, parent=None):
+        super().__init__(parent)
+        self.draft = draft
+        self._shown = None
+        draft.changed.connect(self._refresh)
+
+    def _refresh(self):
+        if self._shown is not self.draft.table:
+            self.beginResetModel()
+            self._shown = self.draft.table
+            self.endResetModel()
+        elif self.rowCount():
+            self.dataChanged.emit(self.index(0, 0), self.index(self.rowCount() - 1, self.columnCount() - 1))
+
+    def rowCount(self, parent=QtCore.QModelIndex()):
+        return 0 if parent.isValid() else len(self.draft.names)
+
+    def columnCount(self, parent=QtCore.QModelIndex()):
+        return 0 if parent.isValid() else len(self.HEADERS)
+
+    def headerData(self, section, orientation, role=Qt.DisplayRole):
+        if role == Qt.DisplayRole and orientation == Qt.Horizontal:
+            return self.HEADERS[section]
+        if role == Qt.ToolTipRole and orientation == Qt.Horizontal:
+            return {self.C_USE: "Tick the columns the models may use",
+                    self.C_CATS: "Treat whole-number codes as categories (one indicator per value)",
+                    self.C_PART: "What the fit does with the column"}.get(section)
+        return None
+
+    def _name(self, row):
+        return self.draft.names[row]
+
+    def part(self, name: str) -> str:
+        d = self.draft
+        role = d.role_of(name)
+        if role == "target":
+            return "explained (the target)"
+        if role == "weights":
+            return "row counts (weights)"
+        if role == "groups":
+            return "held-out groups"
+        info = d.table.columns[name]
+        if info.kind == EMPTY:
+            return "left out: no values"
+        if name in d.unusable and d.uses(name):
+            return "set aside before fitting: " + d.unusable[name]
+        if d.uses(name):
+            return "input" + (" (as categories)" if name in d.categorical and info.kind == NUMERIC else "")
+        if name in d.left_out:
+            return "left out: " + d.left_out[name]
+        return "not used"
+
+    def data(self, index, role=Qt.DisplayRole):
+        d = self.draft
+        if not index.isValid() or d.table is None:
+            return None
+        name = self._name(index.row())
+        info = d.table.columns[name]
+        c = index.column()
+        if role == Qt.CheckStateRole:
+            if c == self.C_USE and d.role_of(name) is None and info.kind != EMPTY:
+                return Qt.Checked if name in d.ticked else Qt.Unchecked
+            if c == self.C_CATS and info.kind == NUMERIC and d.role_of(name) is None:
+                return Qt.Checked if name in d.categorical else Qt.Unchecked
+            return None
+        if role == Qt.DisplayRole:
+            if c == self.C_NAME:
+                return name
+            if c == self.C_KIND:
+                return KIND_WORDS.get(info.kind, info.kind)
+            if c == self.C_EMPTY:
+                return str(info.missing) if info.missing else ""
+            if c == self.C_DISTINCT:
+                return str(info.distinct)
+            if c == self.C_CATS and info.kind == NUMERIC and info.coded_categories and d.role_of(name) is None:
+                return "suggested"
+            if c == self.C_PART:
+                return self.part(name)
+            return None
+        if role == Qt.ToolTipRole:
+            if c == self.C_CATS and info.coded_categories:
+                return (f"whole numbers with only {info.distinct} different values: they may be codes for "
+                        "categories; tick to give each value its own indicator column")
+            if c == self.C_EMPTY and info.missing:
+                return f"{info.missing} empty cells; rows where a used column is empty are left out of the fit"
+            if c in (self.C_PART, self.C_NAME):
+                return f"{name}: {self.part(name)}"
+            return None
+        if role == Qt.ForegroundRole:
+            if c == self.C_PART and not (d.uses(name) or d.role_of(name)):
+                return QtGui.QBrush(QtGui.QColor(PALETTE["muted"]))
+            if c == self.C_PART and d.role_of(name):
+                return QtGui.QBrush(QtGui.QColor(PALETTE["accent"]))
+            return None
+        if role == Qt.TextAlignmentRole and c in (self.C_EMPTY, self.C_DISTINCT):
+            return int(Qt.AlignRight | Qt.AlignVCenter)
+        return None
+
+    def flags(self, index):
+        f = Qt.ItemIsEnabled | Qt.ItemIsSelectable
+        if not index.isValid() or self.draft.table is None:
+            return f
+        name = self._name(index.row())
+        info = self.draft.table.columns[name]
+        if index.column() == self.C_USE and self.draft.role_of(name) is None and info.kind != EMPTY:
+            f |= Qt.ItemIsUserCheckable
+        if index.column() == self.C_CATS and info.kind == NUMERIC and self.draft.role_of(name) is None:
+            f |= Qt.ItemIsUserCheckable
+        return f
+
+    def setData(self, index, value, role=Qt.EditRole):
+        if role != Qt.CheckStateRole or not index.isValid():
+            return False
+        name = self._name(index.row())
+        on = Qt.CheckState(value) == Qt.Checked if not isinstance(value, bool) else value
+        if index.column() == self.C_USE:
+            self.draft.set_ticked(name, on)
+            return True
+        if index.column() == self.C_CATS:
+            self.draft.set_categorical(name, on)
+            return True
+        return False

@@ -27,6 +27,11 @@ QGroupBox {{ border: 1px solid {PALETTE['grid']}; border-radius: 4px; margin-top
 QGroupBox::title {{ subcontrol-origin: margin; left: 8px; padding: 0 4px; color: {PALETTE['muted']}; }}
 QComboBox, QSpinBox, QDoubleSpinBox, QLineEdit {{ background: {PALETTE['base']};
   border: 1px solid {PALETTE['grid']}; border-radius: 3px; padding: 2px 4px; }}
+QFrame#question {{ background: {PALETTE['panel']}; border-bottom: 1px solid {PALETTE['grid']}; }}
+QFrame#question QLabel#questionWords {{ font-size: 11pt; }}
+QFrame#question QComboBox {{ font-size: 11pt; font-weight: 600; color: {PALETTE['accent']}; }}
+QPushButton#primary[pending="false"] {{ background: {PALETTE['base']}; color: {PALETTE['text']};
+  border-color: {PALETTE['grid']}; }}
 QStatusBar {{ background: {PALETTE['panel']}; border-top: 1px solid {PALETTE['grid']}; }}
 QTabBar::tab {{ background: {PALETTE['alt_base']}; padding: 4px 12px; border: 1px solid {PALETTE['grid']}; }}
 QTabBar::tab:selected {{ background: {PALETTE['base']}; }}

@@ -1,4 +1,4 @@
-"""The main window: panels, the roles side panel, menus, the worker and the status bar."""
+"""The main window: the question across the top, the panels, menus, the worker and the status bar."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ from typing import Optional
 from PySide6 import QtCore, QtGui, QtWidgets
 
 from regbench.errors import RegbenchError
-from regbench.gui.roles import RolesPanel, default_roles
+from regbench.gui.roles import TARGET_RULE, QuestionBar, RoleDraft, default_roles
 from regbench.gui.style import STYLESHEET, configure_pyqtgraph
 from regbench.gui.tables import view_to_tsv
 from regbench.gui.worker import Runner
@@ -18,7 +18,6 @@ TABLE_EXTS = (".csv", ".tsv", ".tab", ".txt", ".xlsx", ".parquet", ".pq")
 PROJECT_EXT = ".regbench"
 MAX_RECENT = 8
 AUTOSAVE_MS = 60_000
-DEFAULT_BOOT = 100
 
 
 def recovery_path() -> str:
@@ -73,8 +72,8 @@ class MainWindow(QtWidgets.QMainWindow):
         self.derived_applied = 0      # comparisons installed (tests count them)
         self._stale: set = set()
         self._refresh_pending = False
+        self.draft = RoleDraft(self)
         self._build_central()
-        self._build_roles()
         self._build_status()
         self._build_menus()
         self.runner.started.connect(self._job_started)
@@ -106,24 +105,22 @@ class MainWindow(QtWidgets.QMainWindow):
         self.stack.addWidget(self.help_view)
         self.nav.addItem("Help")
         self.nav.currentRowChanged.connect(self._show_row)
+        self.question = QuestionBar(self.draft)
+        self.question.fit_requested.connect(self.fit_pressed)
+        self.draft.changed.connect(self._draft_changed)
         central = QtWidgets.QWidget()
-        lay = QtWidgets.QHBoxLayout(central)
-        lay.setContentsMargins(0, 0, 0, 0)
-        lay.setSpacing(0)
-        lay.addWidget(self.nav)
-        lay.addWidget(self.stack, 1)
+        outer = QtWidgets.QVBoxLayout(central)
+        outer.setContentsMargins(0, 0, 0, 0)
+        outer.setSpacing(0)
+        outer.addWidget(self.question)
+        row = QtWidgets.QHBoxLayout()
+        row.setContentsMargins(0, 0, 0, 0)
+        row.setSpacing(0)
+        row.addWidget(self.nav)
+        row.addWidget(self.stack, 1)
+        outer.addLayout(row, 1)
         self.setCentralWidget(central)
         self.nav.setCurrentRow(0)
-
-    def _build_roles(self):
-        self.roles_panel = RolesPanel()
-        self.roles_panel.applied.connect(self.apply_roles)
-        self.roles_dock = QtWidgets.QDockWidget("Roles", self)
-        self.roles_dock.setObjectName("roles")
-        self.roles_dock.setWidget(self.roles_panel)
-        self.roles_dock.setFeatures(QtWidgets.QDockWidget.DockWidgetMovable | QtWidgets.QDockWidget.DockWidgetClosable)
-        self.roles_dock.setMinimumWidth(355)
-        self.addDockWidget(Qt.RightDockWidgetArea, self.roles_dock)
 
     def _build_status(self):
         sb = self.statusBar()
@@ -170,8 +167,6 @@ class MainWindow(QtWidgets.QMainWindow):
         v = self.view_menu = mb.addMenu("&View")
         for i, panel in enumerate(self.panels):
             self._action(v, panel.nav, lambda checked=False, i=i: self.show_panel(i), f"Ctrl+{i + 1}")
-        v.addSeparator()
-        v.addAction(self.roles_dock.toggleViewAction())
         h = self.help_menu = mb.addMenu("&Help")
         self._action(h, "Words and cautions", lambda: self.nav.setCurrentRow(len(self.panels)), K.StandardKey.HelpContents)
 
@@ -241,7 +236,7 @@ class MainWindow(QtWidgets.QMainWindow):
         self.path = path
         self.dirty = dirty
         session.subscribe(self._on_session_event)
-        self.roles_panel.load(session.table, session.roles, session.settings, session.bootstrap)
+        self._load_draft()
         self._restore_view_state()
         self.refresh_all(now=True)
         self._update_title()
@@ -256,12 +251,35 @@ class MainWindow(QtWidgets.QMainWindow):
         elif self.has_results():
             self.request_derived()
 
+    def _load_draft(self) -> None:
+        s = self.session
+        unusable = {u.column: u.reason for u in (s.design.unusable if s.design is not None else ())}
+        self.draft.load(s.table, s.roles, s.settings, s.bootstrap, unusable)
+
+    def _draft_changed(self) -> None:
+        self.question.set_pending(self.draft.differs_from(self.session), self.has_results())
+
+    def fit_pressed(self) -> None:
+        """The Fit button: send the chosen roles and settings, then fit (only now does long work start)."""
+        if self.session is None:
+            return
+        if self.draft.differs_from(self.session):
+            self.apply_roles(self.draft.roles(), self.draft.settings, self.draft.bootstrap)
+        elif not self.has_results():
+            self.refit()
+        else:
+            self.set_status("The fit already matches these choices; Edit ▸ Refit fits again.")
+
     def has_results(self) -> bool:
         return self.session is not None and getattr(self.session, "results", None) is not None
 
     def _on_session_event(self, event, detail=None) -> None:
         if event not in ("saved", "loaded"):
             self.dirty = True
+        if event in ("roles", "settings", "bootstrap", "undo", "loaded"):
+            self._load_draft()
+        elif event == "results":
+            self._draft_changed()
         if self.session is not None and self.session.results is not None and not self.session.derived_ready:
             self.request_derived()
         self.refresh_all()
@@ -302,8 +320,16 @@ class MainWindow(QtWidgets.QMainWindow):
             progress(1, 2, "building the design")
             return Session.from_table(table, roles or default_roles(table), FitSettings())
 
+        def opened(session):
+            # Nothing long starts until the person has looked at the question and pressed Fit.
+            self.adopt(session, path=None, dirty=True, fit=roles is not None)
+            if roles is None:
+                self.show_panel("data")
+                self.set_status(f"Explaining {session.roles.target} ({TARGET_RULE}); change it in the sentence "
+                                "above, tick the columns to use, then press Fit.")
+
         self.runner.start(work, label=f"Reading {os.path.basename(path)}", slot="open",
-                          done=lambda s: self.adopt(s, path=None, dirty=True),
+                          done=opened,
                           failed=lambda exc: self.show_error("Cannot open the table", exc))
 
     def _adopt_opened(self, path, session, computed) -> None:
@@ -384,8 +410,6 @@ class MainWindow(QtWidgets.QMainWindow):
                 self.session.set_settings(settings)
         except RegbenchError as exc:
             self.show_error("These roles cannot be used", exc)
-            self.roles_panel.load(self.session.table, self.session.roles, self.session.settings,
-                                  self.session.bootstrap)
             return False
         self.refresh_all(now=True)
         self.refit()
@@ -468,7 +492,6 @@ class MainWindow(QtWidgets.QMainWindow):
         if not self.session.undo():
             self.set_status("Nothing to undo.")
             return
-        self.roles_panel.load(self.session.table, self.session.roles, self.session.settings, self.session.bootstrap)
         self.refresh_all(now=True)
         if not self.has_results():
             self.refit()

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from PySide6 import QtCore, QtWidgets
 
-from regbench.gui.panels.base import Panel, caption
+from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.tables import FrameModel, GridModel, make_view
 
 
@@ -14,25 +14,36 @@ class DataPanel(Panel):
     nav = "Data"
 
     def build(self, body):
+        from regbench.gui.roles import ColumnsModel
+
         lay = QtWidgets.QVBoxLayout(body)
         lay.setContentsMargins(0, 0, 0, 0)
-        split = QtWidgets.QSplitter(QtCore.Qt.Vertical)
+        split = QtWidgets.QSplitter(QtCore.Qt.Horizontal)
+        box1 = QtWidgets.QWidget()
+        l1 = QtWidgets.QVBoxLayout(box1)
+        l1.setContentsMargins(0, 0, 0, 0)
+        all_btn = QtWidgets.QPushButton("Tick all")
+        none_btn = QtWidgets.QPushButton("Untick all")
+        all_btn.clicked.connect(lambda: self.window_.draft.tick_all(True))
+        none_btn.clicked.connect(lambda: self.window_.draft.tick_all(False))
+        head = QtWidgets.QLabel("Columns: tick those the models may use")
+        head.setStyleSheet("color: #66707a; font-weight: 600;")
+        l1.addWidget(hbox(head, 1, all_btn, none_btn))
+        self.columns_model = ColumnsModel(self.window_.draft)
+        self.columns_view = make_view(self.columns_model)
+        self.columns_view.horizontalHeader().setSectionResizeMode(QtWidgets.QHeaderView.ResizeToContents)
+        self.columns_view.horizontalHeader().setStretchLastSection(True)
+        self.columns_view.verticalHeader().setVisible(False)
+        self.columns_model.modelReset.connect(self.columns_view.resizeColumnsToContents)
+        l1.addWidget(self.columns_view)
+        self.tabs = QtWidgets.QTabWidget()
         self.frame_model = FrameModel()
         self.frame_view = make_view(self.frame_model, stretch_last=False)
         self.frame_view.horizontalHeader().setDefaultSectionSize(110)
-        split.addWidget(self.frame_view)
-        lower = QtWidgets.QSplitter(QtCore.Qt.Horizontal)
-        box1 = QtWidgets.QWidget()
-        l1 = QtWidgets.QVBoxLayout(box1)
-        l1.setContentsMargins(0, 4, 0, 0)
-        l1.addWidget(caption("Columns"))
-        self.summary_model = GridModel()
-        self.summary_view = make_view(self.summary_model)
-        l1.addWidget(self.summary_view)
-        box2 = QtWidgets.QTabWidget()
+        self.tabs.addTab(self.frame_view, "Cells")
         self.excluded_model = GridModel()
         self.excluded_view = make_view(self.excluded_model)
-        box2.addTab(self.excluded_view, "Rows left out of the fit")
+        self.tabs.addTab(self.excluded_view, "Rows left out of the fit")
         self.notes = QtWidgets.QPlainTextEdit()
         self.notes.setPlaceholderText("Notes kept with the project (what the table is, what was asked, what you decided)")
         self.notes.textChanged.connect(lambda: self._notes_timer.start())
@@ -40,17 +51,14 @@ class DataPanel(Panel):
         self._notes_timer.setSingleShot(True)
         self._notes_timer.setInterval(600)
         self._notes_timer.timeout.connect(self.keep_notes)
-        box2.addTab(self.notes, "Notes")
-        self.tabs = box2
-        lower.addWidget(box1)
-        lower.addWidget(box2)
-        lower.setSizes([620, 380])
-        split.addWidget(lower)
-        split.setSizes([520, 300])
+        self.tabs.addTab(self.notes, "Notes")
+        split.addWidget(box1)
+        split.addWidget(self.tabs)
+        split.setSizes([720, 440])
         lay.addWidget(split)
 
     def views(self):
-        return [self.frame_view, self.summary_view, self.excluded_view]
+        return [self.columns_view, self.frame_view, self.excluded_view]
 
     def keep_notes(self):
         """Send the notes to the session (typing is gathered into one undo step)."""
@@ -68,35 +76,11 @@ class DataPanel(Panel):
         if self.frame_model.rowCount() != table.n_rows or getattr(self, "_frame_id", None) != id(table.frame):
             self.frame_model.set_frame(table.frame)
             self._frame_id = id(table.frame)
-        roles = session.roles
         design = session.design
-        used_sources = set(design.sources) if design is not None else set()
-        unusable = {u.column: u.reason for u in (design.unusable if design is not None else ())}
-        rows = []
-        for name in table.names:
-            info = table.columns[name]
-            if name == roles.target:
-                role = "target"
-            elif name == roles.weights:
-                role = "weights"
-            elif name == roles.groups:
-                role = "groups"
-            elif name in unusable:
-                role = "unusable: " + unusable[name]
-            elif name in used_sources:
-                role = "predictor"
-            else:
-                role = ""
-            kind = info.kind
-            if name in roles.categorical:
-                kind = "categorical (marked)"
-            rows.append([name, kind, info.missing, info.distinct,
-                         "possibly coded" if info.coded_categories else "", len(info.bad_cells) or "", role])
-        self.summary_model.set_rows(rows, ["Column", "Kind", "Missing", "Distinct", "Codes?", "Text cells", "Role"])
-        self.summary_view.resizeColumnsToContents()
         excluded = design.excluded if design is not None else ()
         self.excluded_model.set_rows([[e.row, e.column, e.reason] for e in excluded], ["Row", "Column", "Reason"])
         self.excluded_view.resizeColumnsToContents()
+        self.columns_view.resizeColumnsToContents()
         n = table.n_rows
         if design is None:
             self.set_sentences([f"{n:,} rows and {len(table.names)} columns were read from {table.source or 'the table'}."])
