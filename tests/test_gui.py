@@ -221,6 +221,46 @@ def test_identifier_like_numeric_columns_are_left_out_with_a_reason(qtbot, tmp_p
     close_quietly(w)
 
 
+def test_derived_column_picked_in_the_data_view_joins_the_fit(gh, qtbot):
+    data = gh.panel("data")
+    gh.show_panel("data")
+    # A log of a column with zeros or negatives is refused with the count of such rows (derive.py).
+    data.derive_op.setCurrentIndex(data.derive_op.findData("log"))
+    data.derive_a.setCurrentText("co2_ppm")
+    data.derive_btn.click()
+    assert "log(co2_ppm)" in gh.draft.names and gh.draft.uses("log(co2_ppm)")
+    assert gh.session.roles.derived == ()           # nothing changes until Fit
+    data.derive_op.setCurrentIndex(data.derive_op.findData("product"))
+    data.derive_a.setCurrentText("light_hours")
+    data.derive_b.setCurrentText("co2_ppm")
+    data.derive_btn.click()
+    with qtbot.waitSignal(gh.results_applied, timeout=FIT_TIMEOUT_MS):
+        gh.question.fit_btn.click()
+    wait_idle(qtbot, gh)
+    s = gh.session
+    assert [d.name for d in s.roles.derived] == ["log(co2_ppm)", "light_hours*co2_ppm"]
+    j = s.design.columns.index("log(co2_ppm)")
+    # The design column is the natural log of the table's column on the rows used (numpy).
+    used = np.setdiff1d(np.arange(s.table.n_rows), [e.row - 1 for e in s.design.excluded])
+    np.testing.assert_allclose(s.design.X[:, j], np.log(s.table.frame["co2_ppm"].to_numpy(float)[used]), rtol=1e-12)
+    gh.show_panel("coefficients")
+    assert "light_hours*co2_ppm" in gh.panel("coefficients").model.row_labels
+    # A log of a column holding values of 0 or less is refused, with the count of such rows.
+    gh.show_panel("data")
+    data.derive_op.setCurrentIndex(data.derive_op.findData("standardize"))
+    data.derive_a.setCurrentText("humidity_pct")
+    data.derive_btn.click()
+    z = gh.draft.table.frame["standardized(humidity_pct)"].to_numpy(float)
+    bad = int(np.sum(z <= 0))
+    assert bad > 0   # a standardized column has values below its mean (definition)
+    n = len(gh.errors)
+    data.derive_op.setCurrentIndex(data.derive_op.findData("log"))
+    data.derive_a.setCurrentText("standardized(humidity_pct)")
+    data.derive_btn.click()
+    assert len(gh.errors) == n + 1 and f"{bad} rows" in gh.errors[-1]
+    assert "log(standardized(humidity_pct))" not in gh.draft.names
+
+
 def test_roles_change_refits_and_undo_restores(gh, qtbot):
     _tick(gh, "day_temp_f", False)
     with qtbot.waitSignal(gh.results_applied, timeout=FIT_TIMEOUT_MS):
@@ -544,7 +584,7 @@ def test_snapshot_writes_non_blank_pngs(tmp_path):
     paths = sorted(str(p) for p in out.glob("*.png"))
     assert paths == sorted(snapshot(project, str(out)))
     names = [os.path.basename(p) for p in paths]
-    assert len(paths) == 8 and "00_question.png" in names and "02_overlaps.png" in names
+    assert len(paths) == 7 and "01_data.png" in names and "02_overlaps.png" in names
     for p in paths:
         img = QtGui.QImage(p)
         assert img.width() > 200 and img.height() > 200, p

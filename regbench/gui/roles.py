@@ -74,7 +74,9 @@ class RoleDraft(QtCore.QObject):
 
     def __init__(self, parent=None):
         super().__init__(parent)
-        self.table = None
+        self.table = None            # the table with the derived columns appended
+        self.base_table = None       # the table as read
+        self.derived: tuple = ()
         self.target: Optional[str] = None
         self.weights: Optional[str] = None
         self.groups: Optional[str] = None
@@ -86,7 +88,12 @@ class RoleDraft(QtCore.QObject):
         self.left_out: dict = {}     # column -> why it was not ticked by default
 
     def load(self, table, roles: Roles, settings, bootstrap: int, unusable: Optional[dict] = None) -> None:
-        self.table = table
+        """Take the session's choices; ``table`` is the table as read (derived columns are added here)."""
+        from regbench.data.derive import apply_derived
+
+        self.base_table = table
+        self.derived = tuple(roles.derived)
+        table = self.table = apply_derived(table, self.derived)
         self.target, self.weights, self.groups = roles.target, roles.weights, roles.groups
         if roles.predictors:
             self.ticked = set(roles.predictors)
@@ -142,6 +149,43 @@ class RoleDraft(QtCore.QObject):
         (self.categorical.add if on else self.categorical.discard)(name)
         self.changed.emit()
 
+    def add_derived(self, operation: str, columns) -> str:
+        """Add a derived column (ticked); raises DataError, changing nothing, when the operation cannot take it."""
+        from regbench.data.derive import apply_derived, make_derived
+
+        d = make_derived(operation, list(columns))
+        table = apply_derived(self.base_table, self.derived + (d,))
+        self.derived += (d,)
+        self.table = table
+        self.ticked.add(d.name)
+        self.changed.emit()
+        return d.name
+
+    def remove_derived(self, name: str) -> None:
+        """Remove a derived column and those built on it, and every choice that names them."""
+        from regbench.data.derive import apply_derived
+
+        gone, keep = {name}, []
+        for d in self.derived:
+            if d.name in gone or gone.intersection(d.columns):
+                gone.add(d.name)
+            else:
+                keep.append(d)
+        if self.target in gone:
+            from regbench.errors import DataError
+
+            raise DataError(f"'{name}' is what the models explain; choose another target before removing it")
+        self.derived = tuple(keep)
+        self.table = apply_derived(self.base_table, self.derived)
+        self.ticked -= gone
+        self.categorical -= gone
+        self.weights = None if self.weights in gone else self.weights
+        self.groups = None if self.groups in gone else self.groups
+        self.changed.emit()
+
+    def is_derived(self, name: str) -> bool:
+        return any(d.name == name for d in self.derived)
+
     def set_settings(self, settings, bootstrap: Optional[int] = None) -> None:
         self.settings = settings
         if bootstrap is not None:
@@ -151,7 +195,8 @@ class RoleDraft(QtCore.QObject):
     def roles(self) -> Roles:
         preds = tuple(c for c in self.names if self.uses(c))
         cats = tuple(c for c in preds if c in self.categorical and self.table.columns[c].kind == NUMERIC)
-        return Roles(target=self.target, predictors=preds, categorical=cats, weights=self.weights, groups=self.groups)
+        return Roles(target=self.target, predictors=preds, categorical=cats, weights=self.weights, groups=self.groups,
+                     derived=self.derived)
 
     def differs_from(self, session) -> bool:
         """True when Fit would change the session's roles, settings or refit count."""
@@ -378,7 +423,7 @@ class ColumnsModel(QtCore.QAbstractTableModel):
             if c == self.C_NAME:
                 return name
             if c == self.C_KIND:
-                return KIND_WORDS.get(info.kind, info.kind)
+                return "derived" if d.is_derived(name) else KIND_WORDS.get(info.kind, info.kind)
             if c == self.C_EMPTY:
                 return str(info.missing) if info.missing else ""
             if c == self.C_DISTINCT:

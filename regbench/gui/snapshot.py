@@ -8,7 +8,7 @@ SIZE = (1400, 900)
 
 
 def snapshot(project_path, out_dir, size=SIZE) -> list:
-    """Open ``project_path`` in a window of ``size`` and write one PNG per panel plus the question bar.
+    """Open ``project_path`` in a window of ``size`` and write one PNG per panel (the question sentence shows across the top of each).
 
     Returns
     -------
@@ -46,9 +46,6 @@ def snapshot(project_path, out_dir, size=SIZE) -> list:
         path = os.path.join(out_dir, f"{i + 1:02d}_{panel.key}.png")
         window.grab().save(path)
         paths.append(path)
-    path = os.path.join(out_dir, "00_question.png")
-    window.question.grab().save(path)
-    paths.append(path)
     window.dirty = False
     window.close()
     window.deleteLater()

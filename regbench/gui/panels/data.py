@@ -8,6 +8,10 @@ from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.tables import FrameModel, GridModel, make_view
 
 
+DERIVE_WORDS = {"log": "log", "log1p": "log(1 + x)", "sqrt": "square root", "square": "square",
+                "standardize": "standardized", "product": "product"}
+
+
 class DataPanel(Panel):
     key = "data"
     title = "The table"
@@ -31,11 +35,31 @@ class DataPanel(Panel):
         l1.addWidget(hbox(head, 1, all_btn, none_btn))
         self.columns_model = ColumnsModel(self.window_.draft)
         self.columns_view = make_view(self.columns_model)
-        self.columns_view.horizontalHeader().setSectionResizeMode(QtWidgets.QHeaderView.ResizeToContents)
-        self.columns_view.horizontalHeader().setStretchLastSection(True)
+        header = self.columns_view.horizontalHeader()
+        for c in range(ColumnsModel.C_PART):
+            header.setSectionResizeMode(c, QtWidgets.QHeaderView.ResizeToContents)
+        header.setSectionResizeMode(ColumnsModel.C_PART, QtWidgets.QHeaderView.Stretch)   # long reasons elide
         self.columns_view.verticalHeader().setVisible(False)
-        self.columns_model.modelReset.connect(self.columns_view.resizeColumnsToContents)
         l1.addWidget(self.columns_view)
+        self.derive_op = QtWidgets.QComboBox()
+        for op, text in DERIVE_WORDS.items():
+            self.derive_op.addItem(text, op)
+        self.derive_a = QtWidgets.QComboBox()
+        self.derive_b = QtWidgets.QComboBox()
+        for box in (self.derive_a, self.derive_b):
+            box.setSizeAdjustPolicy(QtWidgets.QComboBox.AdjustToMinimumContentsLengthWithIcon)
+            box.setMinimumContentsLength(10)
+        self.derive_and = QtWidgets.QLabel("and")
+        self.derive_op.currentIndexChanged.connect(self._derive_shape)
+        self.derive_btn = QtWidgets.QPushButton("Add column")
+        self.derive_btn.clicked.connect(self._add_derived)
+        self.underive_btn = QtWidgets.QPushButton("Remove it")
+        self.underive_btn.setToolTip("Remove the selected derived column")
+        self.underive_btn.clicked.connect(self._remove_derived)
+        l1.addWidget(hbox(caption("New column:"), self.derive_op, QtWidgets.QLabel("of"), self.derive_a,
+                          self.derive_and, self.derive_b, self.derive_btn, 1, self.underive_btn))
+        self._derive_shape()
+        self.window_.draft.changed.connect(self._fill_derive_columns)
         self.tabs = QtWidgets.QTabWidget()
         self.frame_model = FrameModel()
         self.frame_view = make_view(self.frame_model, stretch_last=False)
@@ -56,6 +80,57 @@ class DataPanel(Panel):
         split.addWidget(self.tabs)
         split.setSizes([720, 440])
         lay.addWidget(split)
+
+    # -- derived columns (computed by regbench.data.derive; nothing typed is run as code) ----------
+    def _derive_shape(self, *_):
+        two = self.derive_op.currentData() == "product"
+        self.derive_and.setVisible(two)
+        self.derive_b.setVisible(two)
+
+    def _fill_derive_columns(self):
+        from regbench.data.table import BOOLEAN, NUMERIC
+
+        draft = self.window_.draft
+        if draft.table is None:
+            return
+        numeric = [c for c in draft.names if draft.table.columns[c].kind in (NUMERIC, BOOLEAN)]
+        for box in (self.derive_a, self.derive_b):
+            current = box.currentText()
+            if [box.itemText(i) for i in range(box.count())] != numeric:
+                box.blockSignals(True)
+                box.clear()
+                box.addItems(numeric)
+                if current in numeric:
+                    box.setCurrentText(current)
+                box.blockSignals(False)
+
+    def _add_derived(self):
+        from regbench.errors import RegbenchError
+
+        op = self.derive_op.currentData()
+        cols = [self.derive_a.currentText()] + ([self.derive_b.currentText()] if op == "product" else [])
+        try:
+            name = self.window_.draft.add_derived(op, cols)
+        except RegbenchError as exc:
+            self.window_.show_error("Cannot add this column", exc)
+            return
+        self.window_.set_status(f"Added {name}; press Fit to use it.")
+
+    def _remove_derived(self):
+        from regbench.errors import RegbenchError
+
+        draft = self.window_.draft
+        rows = {i.row() for i in self.columns_view.selectionModel().selectedIndexes()}
+        names = [draft.names[r] for r in sorted(rows) if draft.is_derived(draft.names[r])]
+        if not names:
+            self.window_.set_status("Select a derived column in the list first.")
+            return
+        try:
+            for n in names:
+                if draft.is_derived(n):
+                    draft.remove_derived(n)
+        except RegbenchError as exc:
+            self.window_.show_error("Cannot remove this column", exc)
 
     def views(self):
         return [self.columns_view, self.frame_view, self.excluded_view]
@@ -80,7 +155,6 @@ class DataPanel(Panel):
         excluded = design.excluded if design is not None else ()
         self.excluded_model.set_rows([[e.row, e.column, e.reason] for e in excluded], ["Row", "Column", "Reason"])
         self.excluded_view.resizeColumnsToContents()
-        self.columns_view.resizeColumnsToContents()
         n = table.n_rows
         if design is None:
             self.set_sentences([f"{n:,} rows and {len(table.names)} columns were read from {table.source or 'the table'}."])
