@@ -182,3 +182,44 @@ def test_session_adds_and_removes_derived_columns_with_undo():
     with pytest.raises(DataError, match="0 or less"):
         session.add_derived("log", ["b"])
     assert len(session.roles.derived) == 2  # nothing changed
+
+
+def test_damaging_a_column_spoils_the_columns_derived_from_it():
+    # A feed that goes bad spoils what is computed from it: the derived columns follow the damage
+    # as fixed transforms (a mathematical fact checked against numpy on the damaged values).
+    from regbench.analysis.stress import StressConfig, damaged_design, run_stress
+
+    rng = np.random.default_rng(9)
+    n = 120
+    frame = pd.DataFrame({"price": rng.uniform(1, 9, n), "income": rng.uniform(2, 5, n)})
+    frame["sales"] = 3 * np.log(frame["price"]) + frame["income"] + rng.normal(size=n)
+    roles = Roles(target="sales", derived=(parse_derive("log:price"), parse_derive("product:price,income"),
+                                           parse_derive("standardize:price"), parse_derive("square:log(price)")))
+    design = build_design(_table(frame), roles)
+    col = {c: design.X[:, j] for j, c in enumerate(design.columns)}
+    price = col["price"]
+
+    bad = damaged_design(design, StressConfig("price", "rescale", 1.8))
+    got = {c: bad.X[:, j] for j, c in enumerate(design.columns)}
+    np.testing.assert_allclose(got["price"], 1.8 * price, rtol=1e-15)
+    np.testing.assert_allclose(got["log(price)"], np.log(1.8 * price), rtol=1e-13)
+    np.testing.assert_allclose(got["price*income"], 1.8 * price * col["income"], rtol=1e-13)
+    np.testing.assert_allclose(got["standardized(price)"], (1.8 * price - price.mean()) / price.std(), rtol=1e-9)
+    np.testing.assert_allclose(got["square(log(price))"], np.log(1.8 * price) ** 2, rtol=1e-12)
+    np.testing.assert_array_equal(got["income"], col["income"])
+
+    shuffled = damaged_design(design, StressConfig("price", "shuffle", None, seed=4))
+    sp = shuffled.X[:, design.columns.index("price")]
+    assert not np.array_equal(sp, price)
+    np.testing.assert_allclose(shuffled.X[:, design.columns.index("log(price)")], np.log(sp), rtol=1e-13)
+
+    # A model that uses only log(price) moves when price breaks.
+    from regbench.models.results import LinearModel
+
+    coef = np.zeros(design.p)
+    coef[design.columns.index("log(price)")] = 3.0
+    only_log = LinearModel("ols", design.columns, 0.0, coef, coef)
+    res = run_stress(design, {"ols": only_log}, StressConfig("price", "rescale", 1.8))
+    assert "log(price)" in res.columns
+    assert any("Computed from price, log(price), price*income" in t for t in res.sentences)
+    assert res.shifts["ols"].mean_shift == pytest.approx(3 * np.log(1.8), rel=1e-12)

@@ -266,13 +266,26 @@ class ColumnRanking:
 # -- damage -------------------------------------------------------------------------------
 
 
-def resolve_column(design, column: str) -> np.ndarray:
-    """Indices of the design columns to damage for ``column`` (a design or a table column name)."""
+def _own_columns(design, column: str) -> list:
     if column in design.columns:
-        return np.array([design.columns.index(column)])
-    idx = [j for j, s in enumerate(design.sources) if s == column]
+        return [design.columns.index(column)]
+    return [j for j, s in enumerate(design.sources) if s == column]
+
+
+def _followers(design, column: str) -> list:
+    """(design index, Derived) of the derived design columns computed from ``column``."""
+    from regbench.data.derive import dependents
+
+    names = {c: j for j, c in enumerate(design.columns)}
+    return [(names[d.name], d) for d in dependents(getattr(design, "derived", ()), column) if d.name in names]
+
+
+def resolve_column(design, column: str) -> np.ndarray:
+    """Indices of the design columns to damage for ``column`` (a design or a table column name),
+    followed by those of the derived columns computed from it, which the damage spoils too."""
+    idx = _own_columns(design, column)
     if idx:
-        return np.array(idx)
+        return np.array(idx + [j for j, _ in _followers(design, column) if j not in idx])
     sources = list(dict.fromkeys(design.sources))
     extra = [c for c in design.columns if c not in sources]
     msg = f"'{column}' is not a predictor of this design; choose one of: {', '.join(sources)}"
@@ -282,7 +295,14 @@ def resolve_column(design, column: str) -> np.ndarray:
 
 
 def damage_block(design, idx: np.ndarray, config: StressConfig) -> np.ndarray:
-    """The damaged values of design columns ``idx`` (an (n, k) copy); the design is untouched."""
+    """The damaged values of design columns ``idx`` (an (n, k) copy); the design is untouched.
+
+    Derived columns among ``idx`` that are computed from the damaged column are not damaged
+    on their own: they are recomputed from the damaged values.
+    """
+    follow = [(j, d) for j, d in _followers(design, config.column) if j in idx]
+    if follow:
+        return _damage_with_followers(design, idx, config, follow)
     strength = config.resolved_strength()
     rng = np.random.default_rng(config.seed)
     block = design.X[:, idx].copy()
@@ -318,6 +338,29 @@ def damage_block(design, idx: np.ndarray, config: StressConfig) -> np.ndarray:
     elif kind == "missing":
         rows = some_rows(strength)
         block[rows] = mean if fill is None else fill
+    return block
+
+
+def _damage_with_followers(design, idx, config, follow) -> np.ndarray:
+    from regbench.data.derive import recompute
+
+    idx = list(idx)
+    own = [j for j in idx if j not in {k for k, _ in follow}]
+    block = design.X[:, idx].copy()
+    if own:
+        block[:, [idx.index(j) for j in own]] = damage_block(design, np.array(own), config)
+    current = {design.columns[j]: block[:, idx.index(j)] for j in own}
+    if config.column not in current and len(own) == 1:
+        current[config.column] = block[:, idx.index(own[0])]
+    for j, d in follow:
+        names = set(design.columns)
+        if not all(c in current or c in names for c in d.columns):
+            continue  # an input is not in the design: the derived column cannot be recomputed here
+        inputs = [current[c] if c in current else design.X[:, design.columns.index(c)] for c in d.columns]
+        clean = [design.X[:, design.columns.index(c)] if c in names else current[c] for c in d.columns]
+        values = recompute(d, inputs, clean, design.X[:, j])
+        block[:, idx.index(j)] = values
+        current[d.name] = values
     return block
 
 
@@ -449,6 +492,10 @@ def _stress_sentences(design, config, strength, tol, names, shifts, refit: bool)
             clause = f"{_join(labels)} {'does' if len(still) == 1 else 'do'} not move at all"
         first += ("; " if parts else "") + clause
     out = [first + "."]
+    follow = [d.name for _, d in _followers(design, config.column)]
+    if follow:
+        out.append(f"Computed from {config.column}, {_join(follow)} {'is' if len(follow) == 1 else 'are'} "
+                   "spoiled with it.")
     finite = [k for k in names if np.isfinite(shifts[k].error_damaged)]
     if movers and finite:
         worst = max(movers, key=lambda k: shifts[k].shift_rmse if np.isfinite(shifts[k].shift_rmse) else np.inf)

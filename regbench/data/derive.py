@@ -152,31 +152,74 @@ def _compute(d: Derived, sources: list, name: str) -> np.ndarray:
                 f"derived column '{name}': {rows.size} row{'s' if rows.size != 1 else ''} of '{d.columns[0]}' "
                 f"{'hold' if rows.size != 1 else 'holds'} {what} (first: row {r + 1}, value {x[r]:g}); {todo}")
 
-    with np.errstate(all="ignore"):
-        if op == "log":
-            refuse(x <= 0, "0 or less", "use log1p for counts with zeros, or leave the column as it is")
-            out = np.log(x)
-        elif op == "log1p":
-            refuse(x <= -1, "−1 or less", "log(1 + value) needs values above −1")
-            out = np.log1p(x)
-        elif op == "sqrt":
-            refuse(x < 0, "a negative value", "a square root needs values of 0 or more")
-            out = np.sqrt(x)
-        elif op == "square":
-            out = x * x
-        elif op == "standardize":
-            v = x[have]
-            sd = float(np.std(v)) if v.size else 0.0
-            if not sd > 0:
-                raise DataError(f"derived column '{name}': '{d.columns[0]}' has the same value on every row "
-                                "with a value, so it cannot be standardized")
-            out = (x - float(np.mean(v))) / sd
-        else:  # product
-            out = x * sources[1]
-    out = np.where(np.isfinite(x) & (np.isfinite(sources[1]) if op == "product" else True), out, np.nan)
+    if op == "log":
+        refuse(x <= 0, "0 or less", "use log1p for counts with zeros, or leave the column as it is")
+    elif op == "log1p":
+        refuse(x <= -1, "−1 or less", "log(1 + value) needs values above −1")
+    elif op == "sqrt":
+        refuse(x < 0, "a negative value", "a square root needs values of 0 or more")
+    elif op == "standardize":
+        v = x[have]
+        if not (v.size and float(np.std(v)) > 0):
+            raise DataError(f"derived column '{name}': '{d.columns[0]}' has the same value on every row "
+                            "with a value, so it cannot be standardized")
+    out = _values(d, sources)
     overflow = np.isinf(out)
     if overflow.any():
         r = int(np.flatnonzero(overflow)[0])
         raise DataError(f"derived column '{name}': row {r + 1} gives a number too large to hold; "
                         "rescale the source column first (e.g. another unit)")
     return out
+
+
+def _values(d: Derived, sources: list, affine=None) -> np.ndarray:
+    """The operation on the values, NaN where an input is missing or outside the domain."""
+    x = sources[0]
+    op = d.operation
+    with np.errstate(all="ignore"):
+        if op == "log":
+            out = np.log(np.where(x > 0, x, np.nan))
+        elif op == "log1p":
+            out = np.log1p(np.where(x > -1, x, np.nan))
+        elif op == "sqrt":
+            out = np.sqrt(np.where(x >= 0, x, np.nan))
+        elif op == "square":
+            out = x * x
+        elif op == "standardize":
+            if affine is None:
+                v = x[np.isfinite(x)]
+                affine = (float(np.mean(v)), float(np.std(v)))
+            out = (x - affine[0]) / affine[1]
+        else:  # product
+            out = x * sources[1]
+    ok = np.isfinite(x) & (np.isfinite(sources[1]) if op == "product" else True)
+    return np.where(ok, out, np.nan)
+
+
+def recompute(d: Derived, inputs: list, clean_inputs: list, clean_values: np.ndarray) -> np.ndarray:
+    """The derived column recomputed from changed inputs, as a fixed transform.
+
+    The stress test damages a column and every derived column built on it follows, the way
+    a feed that goes bad spoils what is computed from it.  A standardized column keeps the
+    mean and SD it was made with (recovered exactly from the clean values), as a pipeline
+    that stored them would; a log of a value that became 0 or less is missing (NaN), which
+    the stress test counts as a moved prediction.
+    """
+    affine = None
+    if d.operation == "standardize":
+        x, z = np.asarray(clean_inputs[0], float), np.asarray(clean_values, float)
+        ok = np.isfinite(x) & np.isfinite(z)
+        i, j = np.argmin(np.where(ok, x, np.inf)), np.argmax(np.where(ok, x, -np.inf))
+        sd = (x[j] - x[i]) / (z[j] - z[i])
+        affine = (float(x[i] - z[i] * sd), float(sd))
+    return _values(d, [np.asarray(v, float) for v in inputs], affine)
+
+
+def dependents(derived: Sequence[Derived], column: str) -> tuple:
+    """The derived columns computed from ``column``, directly or through other derived columns, in order."""
+    spoiled, out = {column}, []
+    for d in derived:
+        if spoiled.intersection(d.columns):
+            spoiled.add(d.name)
+            out.append(d)
+    return tuple(out)
