@@ -146,7 +146,8 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None, 
 
 
 def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None) -> OLSResult:
-    from scipy import linalg, stats
+    # scipy.special's Student t functions, not scipy.stats: the latter costs a second of start-up.
+    from scipy import linalg, special
 
     columns = tuple(design.columns)
     p = len(columns)
@@ -232,8 +233,8 @@ def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None) -> OLSResult:
         tval = coef / se
     tval[aside] = np.nan
     if df > 0:
-        pval = 2.0 * stats.t.sf(np.abs(tval), df)
-        q = stats.t.ppf(0.975, df)
+        pval = 2.0 * special.stdtr(df, -np.abs(tval))
+        q = special.stdtrit(df, 0.975)
     else:
         pval = np.full(p, np.nan)
         q = np.nan
