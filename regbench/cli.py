@@ -46,6 +46,12 @@ def _add_table_options(p: argparse.ArgumentParser, table: bool = True) -> None:
     p.add_argument("--encoding", help="text encoding of a CSV/TSV file (default UTF-8)")
     p.add_argument("--sheet", help="Excel sheet (default: the first)")
     _add_settings_options(p)
+    p.add_argument("--memory-budget", metavar="SIZE",
+                   help="memory the table may take, e.g. 500MB or 2GB; a larger Parquet/CSV table (or a folder "
+                        "of Parquet files) is read in batches (default: $REGBENCH_MEMORY_BUDGET, else no limit)")
+    p.add_argument("--cluster", metavar="ADDRESS",
+                   help="run the pass over the rows on a Dask cluster: 'local' starts one on this machine, "
+                        "tcp://HOST:PORT uses a running scheduler (Parquet tables)")
     p.add_argument("--derive", action="append", default=[], metavar="OP:COLUMN",
                    help="add a derived column, repeatable: log:C, log1p:C, sqrt:C, square:C, standardize:C "
                         "or product:C1,C2; it is named e.g. log(C) or C1*C2 and joins listed predictors")
@@ -198,11 +204,51 @@ def _progress_to_stderr(done: int, total: int, message: str) -> None:
             sys.stderr.write("\n")
 
 
+def _out_of_memory_route(args):
+    """``(budget, cluster)`` when the table is to be read in batches or on a cluster, else None."""
+    from regbench.data.stream import memory_budget_from_env, parse_size, should_stream
+
+    budget = parse_size(args.memory_budget) if getattr(args, "memory_budget", None) else memory_budget_from_env()
+    cluster = getattr(args, "cluster", None)
+    if cluster or should_stream(args.table, budget):
+        return budget, cluster
+    return None
+
+
+def _stream_fit(args, settings, budget, cluster):
+    from regbench.data.stream import stream_fit
+
+    if getattr(args, "encoding", None) or getattr(args, "sheet", None):
+        raise RegbenchError("--encoding and --sheet apply to tables read in memory; the streamed route reads "
+                            "UTF-8 CSV and Parquet")
+    if cluster:
+        from regbench.cluster import cluster_fit
+
+        return cluster_fit(args.table, roles_from_args(args), settings, address=cluster, memory_budget=budget,
+                           progress=_progress_to_stderr)
+    return stream_fit(args.table, roles_from_args(args), settings, memory_budget=budget,
+                      progress=_progress_to_stderr)
+
+
 def cmd_fit(args) -> int:
     settings = settings_from_args(args)
+    from regbench.models.export import fit_summary_text, fit_to_json
+
+    route = _out_of_memory_route(args)
+    if route is not None:
+        streamed = _stream_fit(args, settings, *route)
+        design, results = streamed.design, streamed.results
+        if args.json:
+            out = fit_to_json(design, results)
+            out.update(streamed.notes())
+            write_json(out, args.json)
+        else:
+            note = streamed.notes()["row_sample"]["note"]
+            sys.stdout.write(fit_summary_text(design, results).replace(
+                f"{design.n} rows used", f"{streamed.rows_used} rows used", 1) + f"\n({note})\n")
+        return EXIT_OK
     _, design = load_design(args)
     from regbench.models.engine import fit_all
-    from regbench.models.export import fit_summary_text, fit_to_json
 
     results = fit_all(design, settings, progress=_progress_to_stderr)
     if args.json:
@@ -212,9 +258,19 @@ def cmd_fit(args) -> int:
     return EXIT_OK
 
 
+def _refuse_out_of_memory(args, what: str) -> None:
+    route = _out_of_memory_route(args)
+    if route is not None:
+        budget, cluster = route
+        why = f"the cluster route ({cluster})" if cluster else f"a table beyond --memory-budget ({budget:,} bytes)"
+        raise RegbenchError(f"{args.table}: {what} needs the rows in memory and is not available on {why}; "
+                            "use `regbench fit` with the same options for every fitted number, or raise the budget")
+
+
 def cmd_stress(args) -> int:
     from regbench.analysis.stress import stress_command
 
+    _refuse_out_of_memory(args, "the stress test")
     _, design = load_design(args)
     out = stress_command(design, settings_from_args(args), column=args.column, all_columns=args.all_columns,
                          kind=args.kind, strength=args.strength, seed=args.seed, tolerance=args.tolerance,
@@ -230,6 +286,7 @@ def cmd_new(args) -> int:
     from regbench.session import Session
     from regbench.project import save_project
 
+    _refuse_out_of_memory(args, "a project (it keeps its table inside)")
     session = Session.from_table_file(args.table, roles_from_args(args), settings_from_args(args),
                                       encoding=args.encoding, sheet=args.sheet)
     session.compute(progress=_progress_to_stderr, bootstrap=args.bootstrap)

@@ -1,0 +1,629 @@
+"""Tables larger than memory: the one pass over the rows, read batch by batch.
+
+A Parquet file, a folder of Parquet files, or a CSV file (through pyarrow's
+streaming CSV reader) is cut into *parts* (a Parquet row group or file; the
+whole CSV) and each part is read in batches of a bounded number of rows.  Two
+passes run over the parts, each with memory bounded by the batch:
+
+1. *Rows*: which rows can be used (the reasons of the in-memory route: a
+   missing or non-finite target, predictor or weight, a negative weight, a
+   missing group), each group's weight and row count, and each predictor's
+   range on the usable rows (a constant column is set aside, as in memory).
+2. *Statistics*: the cross-products of every CV fold, merged as centred
+   co-moments, and the triangular factor of the rows for OLS
+   (:class:`regbench.models.gram.FoldAccumulator`,
+   :class:`~regbench.models.gram.FactorAccumulator`), plus a seeded sample of
+   rows for the views that need rows (scatter plots, residuals, per-row stress).
+
+Only statistics of size p×p (and per-group sums) leave a part, so the same
+two functions run as tasks on a cluster (:mod:`regbench.cluster`).  The folds
+are those of the in-memory route (same seed, same groups, same row order), so
+the fit equals the in-memory fit to round-off.
+
+What the streamed route does not do: categorical (text) predictors are not
+coded (name numeric predictors, or read the table in memory), and rows with
+text in a numeric column are refused with the column named rather than
+excluded one by one.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Optional
+
+import numpy as np
+
+from regbench.errors import DataError
+
+#: Rows kept for row-level views when the table is streamed (seeded sample).
+SAMPLE_ROWS = 20_000
+#: The in-memory route needs about this many times the table's float64 size (measured:
+#: reading, typing, the design and the fit's temporaries; 4.7 GB for an 800 MB table).
+IN_MEMORY_FACTOR = 6.0
+#: Excluded rows listed one by one; beyond this they are counted.
+MAX_LISTED_EXCLUSIONS = 1000
+
+_SIZE = re.compile(r"^\s*([0-9]*\.?[0-9]+)\s*([kmgt]?i?b?)\s*$", re.IGNORECASE)
+_UNITS = {"": 1, "b": 1, "k": 10**3, "kb": 10**3, "kib": 2**10, "m": 10**6, "mb": 10**6, "mib": 2**20,
+          "g": 10**9, "gb": 10**9, "gib": 2**30, "t": 10**12, "tb": 10**12, "tib": 2**40}
+
+
+def parse_size(text, what: str = "--memory-budget") -> int:
+    """Bytes in ``'500MB'``, ``'2GB'``, ``'1.5GiB'``, ``'800000000'``."""
+    if isinstance(text, (int, float)) and not isinstance(text, bool):
+        value = float(text)
+    else:
+        m = _SIZE.match(str(text))
+        unit = m.group(2).lower() if m else None
+        if not m or unit not in _UNITS:
+            raise DataError(f"{what}: '{text}' is not a size; write e.g. 500MB, 2GB or 1.5GiB")
+        value = float(m.group(1)) * _UNITS[unit]
+    if not value >= 1e6:
+        raise DataError(f"{what}: {text} is below 1 MB; give at least a few hundred MB, e.g. 500MB")
+    return int(value)
+
+
+@dataclass(frozen=True)
+class Part:
+    """One piece of the table read as a whole by one task: a Parquet row group or file, or a CSV file."""
+
+    path: str
+    kind: str  # "parquet" or "csv"
+    row_group: Optional[int]
+    rows: Optional[int]  # known for Parquet
+    first_row: int  # 0-based table row of its first row (Parquet); CSV parts come one per file
+
+
+def _is_csv(path: Path) -> bool:
+    return path.suffix.lower() in (".csv", ".txt", ".tsv")
+
+
+def parts_of(path) -> list:
+    """The parts of a Parquet file, a folder of Parquet files or a CSV file, in row order."""
+    import pyarrow.parquet as pq
+
+    path = Path(path)
+    if not path.exists():
+        raise DataError(f"{path}: no such file or folder")
+    if path.is_dir():
+        files = sorted(p for p in path.rglob("*.parquet") if p.is_file())
+        if not files:
+            raise DataError(f"{path}: the folder holds no .parquet file; give a Parquet file, a folder of them or a CSV")
+    elif _is_csv(path):
+        return [Part(str(path), "csv", None, None, 0)]
+    else:
+        files = [path]
+    out = []
+    first = 0
+    for f in files:
+        try:
+            meta = pq.ParquetFile(f).metadata
+        except Exception as exc:  # pyarrow raises several kinds for a damaged file
+            raise DataError(f"{f}: not a readable Parquet file ({exc}); export it again") from None
+        for g in range(meta.num_row_groups):
+            n = meta.row_group(g).num_rows
+            out.append(Part(str(f), "parquet", g, n, first))
+            first += n
+    return out
+
+
+def table_columns(path) -> list:
+    """Column names of the table (from the Parquet schema or the CSV header)."""
+    parts = parts_of(path)
+    if parts[0].kind == "csv":
+        import pyarrow.csv as pacsv
+
+        with pacsv.open_csv(parts[0].path) as reader:
+            return list(reader.schema.names)
+    import pyarrow.parquet as pq
+
+    return list(pq.ParquetFile(parts[0].path).schema_arrow.names)
+
+
+def table_rows(path) -> Optional[int]:
+    """Row count from the Parquet metadata (None for CSV, which must be read to know)."""
+    parts = parts_of(path)
+    if any(p.rows is None for p in parts):
+        return None
+    return sum(p.rows for p in parts)
+
+
+def estimate_in_memory_bytes(path, n_columns: Optional[int] = None) -> Optional[int]:
+    """What reading the table in memory would take, roughly (None when unknown in advance)."""
+    p = Path(path)
+    rows = table_rows(p)
+    if rows is None:
+        # A CSV of numbers holds about 10-20 characters per cell, a float64 8 bytes.
+        size = p.stat().st_size if p.is_file() else 0
+        return int(IN_MEMORY_FACTOR * size * 0.6)
+    cols = n_columns or len(table_columns(p))
+    return int(IN_MEMORY_FACTOR * rows * cols * 8)
+
+
+def batch_rows_for(budget: Optional[int], n_columns: int) -> int:
+    """Rows per batch so that a batch and its temporaries (about 6 copies) use an eighth of the budget."""
+    if budget is None:
+        return 65_536
+    return int(max(1024, min(1_000_000, budget / 8 / (6 * 8 * max(n_columns, 1)))))
+
+
+def read_batches(part: Part, columns, batch_rows: int, numeric=()):
+    """Batches of ``part`` as dicts of column name -> numpy array (float64 for ``numeric``, else object)."""
+    import pyarrow as pa
+
+    if part.kind == "parquet":
+        import pyarrow.parquet as pq
+
+        f = pq.ParquetFile(part.path)
+        it = f.iter_batches(batch_size=batch_rows, row_groups=[part.row_group], columns=list(columns))
+    else:
+        import pyarrow.csv as pacsv
+
+        types = {c: pa.float64() for c in numeric}
+        types.update({c: pa.string() for c in columns if c not in numeric})
+        block = max(1 << 20, batch_rows * 12 * max(len(columns), 1))
+        try:
+            reader = pacsv.open_csv(part.path, read_options=pacsv.ReadOptions(block_size=block),
+                                    convert_options=pacsv.ConvertOptions(column_types=types,
+                                                                         include_columns=list(columns)))
+        except pa.ArrowInvalid as exc:
+            raise DataError(f"{part.path}: cannot be read as a table of numbers ({exc}); read it without "
+                            "--memory-budget to have bad cells listed row by row") from None
+        it = _csv_batches(reader, part.path)
+    for batch in it:
+        yield {name: _to_numpy(batch.column(i), name in numeric, part.path, name)
+               for i, name in enumerate(batch.schema.names)}
+
+
+def _csv_batches(reader, path):
+    import pyarrow as pa
+
+    while True:
+        try:
+            batch = reader.read_next_batch()
+        except StopIteration:
+            return
+        except pa.ArrowInvalid as exc:
+            raise DataError(f"{path}: a cell is not a number ({exc}); fix the cell or read the table without "
+                            "--memory-budget to have bad cells listed row by row") from None
+        yield batch
+
+
+def _to_numpy(arr, numeric: bool, path, name):
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if numeric:
+        t = arr.type
+        if pa.types.is_boolean(t):
+            arr = pc.cast(arr, pa.int8())
+        elif not (pa.types.is_integer(t) or pa.types.is_floating(t) or pa.types.is_decimal(t)):
+            raise DataError(f"{path}: column '{name}' holds {t}, not numbers; the streamed route needs numeric "
+                            "predictors, target and weights (name other predictors, or read the table in memory)")
+        return arr.to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
+    return arr.to_numpy(zero_copy_only=False)
+
+
+# --------------------------------------------------------------------------- the two passes
+
+
+@dataclass
+class RowsInfo:
+    """What the first pass learns from one part (or several, merged)."""
+
+    n_rows: int = 0
+    n_kept: int = 0
+    excluded: list = field(default_factory=list)  # (table row 1-based, column, reason)
+    n_excluded: int = 0
+    groups: dict = field(default_factory=dict)  # label text -> [weight, rows]
+    y_range: tuple = (np.inf, -np.inf)
+    x_min: Optional[np.ndarray] = None
+    x_max: Optional[np.ndarray] = None
+    w_pos: int = 0
+
+    def merge(self, other: "RowsInfo") -> "RowsInfo":
+        out = RowsInfo(n_rows=self.n_rows + other.n_rows, n_kept=self.n_kept + other.n_kept,
+                       excluded=(self.excluded + other.excluded)[:MAX_LISTED_EXCLUSIONS],
+                       n_excluded=self.n_excluded + other.n_excluded, groups=dict(self.groups),
+                       y_range=(min(self.y_range[0], other.y_range[0]), max(self.y_range[1], other.y_range[1])),
+                       w_pos=self.w_pos + other.w_pos)
+        for k, (gw, gn) in other.groups.items():
+            a = out.groups.get(k, [0.0, 0])
+            out.groups[k] = [a[0] + gw, a[1] + gn]
+        mins = [m for m in (self.x_min, other.x_min) if m is not None]
+        maxs = [m for m in (self.x_max, other.x_max) if m is not None]
+        out.x_min = np.minimum.reduce(mins) if mins else None
+        out.x_max = np.maximum.reduce(maxs) if maxs else None
+        return out
+
+
+@dataclass(frozen=True)
+class Plan:
+    """What both passes read: the roles resolved against the table's columns."""
+
+    target: str
+    predictors: tuple
+    weights: Optional[str]
+    groups: Optional[str]
+    batch_rows: int
+
+    @property
+    def numeric(self) -> tuple:
+        return (self.target,) + self.predictors + ((self.weights,) if self.weights else ())
+
+    @property
+    def columns(self) -> tuple:
+        return self.numeric + ((self.groups,) if self.groups else ())
+
+
+def _level_texts(values) -> np.ndarray:
+    from regbench.data.design import _level_text
+
+    out = np.empty(len(values), dtype=object)
+    for i, v in enumerate(values):
+        out[i] = _level_text(float(v) if isinstance(v, (int, np.integer)) and not isinstance(v, bool) else v)
+    return out
+
+
+def _keep_mask(b: dict, plan: Plan, first_row: int, info: Optional[RowsInfo]):
+    """Usable rows of a batch; records the reasons of the others in ``info`` (first reason per row)."""
+    y = b[plan.target]
+    n = y.shape[0]
+    keep = np.ones(n, dtype=bool)
+    checks = [(plan.target, ~np.isfinite(y), "target is missing or not finite")]
+    if plan.weights:
+        w = b[plan.weights]
+        checks.append((plan.weights, ~np.isfinite(w) | (w < 0), "weight is missing, infinite or negative"))
+    if plan.groups:
+        g = b[plan.groups]
+        miss = np.array([v is None or (isinstance(v, float) and np.isnan(v)) for v in g], dtype=bool) \
+            if g.dtype == object else ~np.isfinite(g.astype(float))
+        checks.append((plan.groups, miss, "group is missing"))
+    for c in plan.predictors:
+        checks.append((c, ~np.isfinite(b[c]), "value is missing or not finite"))
+    found = []
+    for col, bad, why in checks:
+        new = bad & keep
+        if new.any():
+            if info is not None:
+                info.n_excluded += int(new.sum())
+                found.extend((first_row + int(i) + 1, col, why) for i in np.flatnonzero(new)[:MAX_LISTED_EXCLUSIONS])
+            keep &= ~bad
+    if found:
+        room = max(MAX_LISTED_EXCLUSIONS - len(info.excluded), 0)
+        info.excluded.extend(sorted(found)[:room])
+    return keep
+
+
+def _part_first_row(part: Part, offset: int) -> int:
+    return part.first_row if part.kind == "parquet" else offset
+
+
+def rows_pass(part: Part, plan: Plan, cancel=None) -> RowsInfo:
+    """First pass over one part."""
+    from regbench.progress import check
+
+    info = RowsInfo()
+    offset = 0
+    for b in read_batches(part, plan.columns, plan.batch_rows, plan.numeric):
+        check(cancel)
+        n = b[plan.target].shape[0]
+        keep = _keep_mask(b, plan, _part_first_row(part, offset), info)
+        offset += n
+        info.n_rows += n
+        info.n_kept += int(keep.sum())
+        if not keep.any():
+            continue
+        w = b[plan.weights][keep] if plan.weights else np.ones(int(keep.sum()))
+        pos = w > 0
+        info.w_pos += int(pos.sum())
+        if plan.groups:
+            labels, codes = np.unique(_level_texts(b[plan.groups][keep]).astype(str), return_inverse=True)
+            gw = np.bincount(codes, weights=w, minlength=labels.size)
+            gn = np.bincount(codes, minlength=labels.size)
+            for lab, a, c in zip(labels, gw, gn):
+                cur = info.groups.setdefault(str(lab), [0.0, 0])
+                cur[0] += float(a)
+                cur[1] += int(c)
+        if pos.any():
+            y = b[plan.target][keep][pos]
+            info.y_range = (min(info.y_range[0], float(y.min())), max(info.y_range[1], float(y.max())))
+            X = np.column_stack([b[c][keep][pos] for c in plan.predictors])
+            mn, mx = X.min(axis=0), X.max(axis=0)
+            info.x_min = mn if info.x_min is None else np.minimum(info.x_min, mn)
+            info.x_max = mx if info.x_max is None else np.maximum(info.x_max, mx)
+    return info
+
+
+def fold_of_groups(group_weight: np.ndarray, group_rows: np.ndarray, K: int, seed: int) -> np.ndarray:
+    """Fold of each group (groups in sorted label order), as :func:`regbench.models.cv.fold_ids` assigns it."""
+    g = group_weight.size
+    rng = np.random.default_rng(seed)
+    gw = np.asarray(group_weight, dtype=float)
+    gn = np.asarray(group_rows, dtype=float)
+    perm = rng.permutation(g)
+    order = perm[np.lexsort((-gn[perm], -gw[perm]))]
+    load_w = np.zeros(K)
+    load_n = np.zeros(K)
+    out = np.empty(g, dtype=np.int64)
+    for grp in order:
+        k = int(np.lexsort((load_n, load_w))[0])
+        out[grp] = k
+        load_w[k] += gw[grp]
+        load_n[k] += gn[grp]
+    return out
+
+
+@dataclass(frozen=True)
+class Folds:
+    """How pass 2 finds the fold of a usable row: by its group, or by its rank among usable rows."""
+
+    K: int
+    group_fold: Optional[dict] = None  # label -> fold
+    row_folds: Optional[np.ndarray] = None  # (n_kept,) when there are no groups
+
+
+def stats_pass(part: Part, plan: Plan, folds: Folds, kept_before: int, sample: np.ndarray, cancel=None):
+    """Second pass over one part: fold statistics, the OLS factor and the sampled rows.
+
+    Parameters
+    ----------
+    kept_before : int
+        Usable rows in the parts before this one (positions in ``folds.row_folds`` and ``sample``).
+    sample : ndarray of int
+        Sorted positions (among all usable rows) of the rows to keep for row-level views.
+
+    Returns
+    -------
+    (FoldAccumulator, FactorAccumulator, dict of sampled columns)
+    """
+    from regbench.models.gram import FactorAccumulator, FoldAccumulator
+    from regbench.progress import check
+
+    p = len(plan.predictors)
+    facc = FoldAccumulator(p, folds.K)
+    racc = FactorAccumulator(p)
+    got = {"X": [], "y": [], "w": [], "g": [], "row": [], "fold": []}
+    pos = kept_before
+    offset = 0
+    for b in read_batches(part, plan.columns, plan.batch_rows, plan.numeric):
+        check(cancel)
+        n = b[plan.target].shape[0]
+        first = _part_first_row(part, offset)
+        keep = _keep_mask(b, plan, first, None)
+        offset += n
+        m = int(keep.sum())
+        if not m:
+            continue
+        X = np.empty((m, p))
+        for j, c in enumerate(plan.predictors):
+            X[:, j] = b[c][keep]
+        y = b[plan.target][keep]
+        w = b[plan.weights][keep] if plan.weights else np.ones(m)
+        gtext = _level_texts(b[plan.groups][keep]).astype(str) if plan.groups else None
+        if folds.group_fold is not None:
+            ids = np.array([folds.group_fold[t] for t in gtext], dtype=np.int64)
+        else:
+            ids = folds.row_folds[pos:pos + m]
+        facc.add(X, y, w, ids)
+        racc.add(X, y, w)
+        lo, hi = np.searchsorted(sample, [pos, pos + m])
+        if hi > lo:
+            local = sample[lo:hi] - pos
+            got["X"].append(X[local])
+            got["y"].append(y[local])
+            got["w"].append(w[local])
+            got["fold"].append(ids[local])
+            got["row"].append(first + np.flatnonzero(keep)[local] + 1)
+            if gtext is not None:
+                got["g"].append(gtext[local])
+        pos += m
+    return facc, racc, got
+
+
+# --------------------------------------------------------------------------- driver
+
+
+@dataclass(frozen=True)
+class StreamedFit:
+    """A fit from a streamed (or distributed) pass.
+
+    Attributes
+    ----------
+    design : Design
+        The seeded sample of usable rows (for row-level views); ``n_table_rows``
+        counts every table row.
+    results : FitResults
+        Fitted on every usable row; ``fold_ids`` are the sample rows' folds.
+    rows_used : int
+        Usable rows (all of them, not the sample).
+    sampled : bool
+        True when ``design`` holds a sample rather than every usable row.
+    excluded_total : int
+        Excluded rows (``design.excluded`` lists at most :data:`MAX_LISTED_EXCLUSIONS`).
+    route : str
+        ``'streamed'`` or ``'cluster'``.
+    """
+
+    design: object
+    results: object
+    rows_used: int
+    sampled: bool
+    excluded_total: int
+    route: str = "streamed"
+
+    def notes(self) -> dict:
+        """What the fit JSON and the report say about the route and the sample."""
+        return {"route": self.route, "rows_used": int(self.rows_used), "row_sample": {
+            "sampled": bool(self.sampled), "rows": int(self.design.n), "seed": int(self.results.settings.seed),
+            "note": (f"row-level views use a seeded sample of {self.design.n:,} of the {self.rows_used:,} rows; "
+                     "every fitted number uses all rows") if self.sampled else "row-level views use every row"}}
+
+
+def plan_for(path, roles, budget: Optional[int]) -> Plan:
+    """Resolve the roles against the table's columns for the streamed route."""
+    names = table_columns(path)
+    src = str(path)
+    for col in (roles.target, roles.weights, roles.groups, *roles.predictors):
+        if col is not None and col not in names:
+            raise DataError(f"{src}: no column '{col}'; columns are: {', '.join(names)}")
+    if roles.categorical:
+        raise DataError(f"{src}: categorical predictors ({', '.join(roles.categorical)}) are not coded on the "
+                        "streamed route; leave them out or read the table in memory (no --memory-budget)")
+    if getattr(roles, "derived", ()):
+        raise DataError(f"{src}: derived columns are not computed on the streamed route; read the table in "
+                        "memory (no --memory-budget)")
+    skip = {roles.target, roles.weights, roles.groups}
+    predictors = tuple(roles.predictors) or tuple(c for c in names if c not in skip)
+    if not predictors:
+        raise DataError(f"{src}: no predictor columns; choose at least one column besides the target")
+    return Plan(target=roles.target, predictors=predictors, weights=roles.weights, groups=roles.groups,
+                batch_rows=batch_rows_for(budget, len(predictors) + 3))
+
+
+def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sample_rows: int = SAMPLE_ROWS,
+               progress=None, cancel=None, runner=None) -> StreamedFit:
+    """Fit every model on a table read in batches (or by cluster workers through ``runner``).
+
+    Parameters
+    ----------
+    path : path
+        A Parquet file, a folder of Parquet files or a CSV file.
+    roles : Roles
+    settings : FitSettings
+    memory_budget : int, optional
+        Bytes; sets the batch size.
+    sample_rows : int
+        Usable rows kept (seeded) for row-level views.
+    progress, cancel : callables, optional
+    runner : callable(function, list of argument tuples) -> list, optional
+        Runs one pass over the parts; the default runs them here in order.
+
+    Returns
+    -------
+    StreamedFit
+    """
+    from regbench.progress import check, report
+
+    run = runner or (lambda fn, args: [fn(*a) for a in args])
+    plan = plan_for(path, roles, memory_budget)
+    parts = parts_of(path)
+    total = 4
+    report(progress, 0, total, f"reading {len(parts)} part(s) of {Path(path).name}: which rows are usable")
+    infos = run(rows_pass, [(part, plan) for part in parts])
+    check(cancel)
+    info = infos[0]
+    for other in infos[1:]:
+        info = info.merge(other)
+    src = str(path)
+    if info.n_kept == 0:
+        raise DataError(f"{src}: every row was excluded (first reason: row {info.excluded[0][0]}, column "
+                        f"'{info.excluded[0][1]}': {info.excluded[0][2]}); check the roles and the missing values"
+                        if info.excluded else f"{src}: the table has no rows")
+    if info.w_pos == 0:
+        raise DataError(f"{src}: weights column '{plan.weights}' is zero on every usable row; weights must add up to "
+                        "more than 0")
+    if info.y_range[0] == info.y_range[1]:
+        raise DataError(f"{src}: target '{plan.target}' has the same value ({info.y_range[0]:g}) on every usable "
+                        "row, so there is nothing to explain; choose another target")
+    from regbench.data.design import Design, ExcludedRow, UnusableColumn
+
+    constant = info.x_min == info.x_max
+    unusable = tuple(UnusableColumn(c, f"constant ({info.x_min[j]:g}) on every usable row")
+                     for j, c in enumerate(plan.predictors) if constant[j])
+    usable = tuple(c for j, c in enumerate(plan.predictors) if not constant[j])
+    if not usable:
+        raise DataError(f"{src}: no usable predictor remains; choose other predictors")
+    if len(usable) >= info.w_pos:
+        raise DataError(f"{src}: {len(usable)} predictor columns but only {info.w_pos} usable rows; a linear model "
+                        "needs more rows than predictors. Choose fewer predictors or add rows")
+    plan2 = Plan(plan.target, usable, plan.weights, plan.groups, plan.batch_rows)
+    K = int(settings.folds)
+    labels = tuple(sorted(info.groups))
+    if plan.groups:
+        if len(labels) < K:
+            raise DataError(f"'{plan.groups}' has only {len(labels)} groups for {K} folds; choose at most "
+                            f"{len(labels)} folds (every group must stay inside one fold)")
+        gw = np.array([info.groups[k][0] for k in labels])
+        gn = np.array([info.groups[k][1] for k in labels])
+        fog = fold_of_groups(gw, gn, K, settings.seed)
+        folds = Folds(K, group_fold={lab: int(f) for lab, f in zip(labels, fog)})
+    else:
+        from regbench.models.cv import fold_ids
+
+        folds = Folds(K, row_folds=fold_ids(info.n_kept, K, settings.seed))
+    rng = np.random.default_rng(settings.seed)
+    sampled = info.n_kept > sample_rows
+    sample = np.sort(rng.choice(info.n_kept, sample_rows, replace=False)) if sampled else np.arange(info.n_kept)
+    before = np.concatenate([[0], np.cumsum([i.n_kept for i in infos])[:-1]]).astype(int)
+    report(progress, 1, total, "gathering the cross-products of every fold")
+    outs = run(stats_pass, [(part, plan2, folds, int(kb), sample) for part, kb in zip(parts, before)])
+    check(cancel)
+    facc, racc, got = outs[0]
+    for f2, r2, g2 in outs[1:]:
+        facc = facc.combine(f2)
+        racc = racc.combine(r2)
+        for k in got:
+            got[k] += g2[k]
+    full, fold_stats = facc.result()
+    cat = lambda k, shape: np.concatenate(got[k]) if got[k] else np.zeros(shape)  # noqa: E731
+    gtext = cat("g", 0) if plan.groups else None
+    code = {lab: i for i, lab in enumerate(labels)}
+    design = Design(
+        X=np.ascontiguousarray(cat("X", (0, len(usable)))), y=cat("y", 0), weights=cat("w", 0),
+        groups=None if gtext is None else np.array([code[t] for t in gtext], dtype=np.int64),
+        columns=usable, sources=usable, target=plan.target, row_numbers=cat("row", 0).astype(np.int64),
+        excluded=tuple(ExcludedRow(r, c, why) for r, c, why in info.excluded), unusable=unusable,
+        group_labels=labels, weights_column=plan.weights, groups_column=plan.groups, n_table_rows=info.n_rows)
+    report(progress, 2, total, "fitting every model from the cross-products")
+    results = fit_from_stats(design, settings, full, fold_stats, racc, cat("fold", 0).astype(np.int64),
+                             info.n_kept, cancel=cancel)
+    report(progress, total, total, "done")
+    return StreamedFit(design=design, results=results, rows_used=info.n_kept, sampled=bool(sampled),
+                       excluded_total=info.n_excluded, route="streamed" if runner is None else "cluster")
+
+
+def fit_from_stats(design, settings, full, folds, factor, fold_ids, n_obs, cancel=None):
+    """``fit_all`` from gathered statistics: OLS from the merged factor, the rest from the fold Grams."""
+    from regbench.models import engine
+    from regbench.models.diagnostics import diagnose
+    from regbench.models.ols import factor_rows, fit_ols, one_blas_thread
+    from regbench.models.penalized import Problem
+    from regbench.models.results import FitResults
+    from regbench.progress import check
+
+    engine._validate(settings)
+    with one_blas_thread():
+        ols = fit_ols(design, settings.pins, settings.rank_tol, factor=factor_rows(factor.factor(), factor.W, factor.n))
+        diag = diagnose(design, ols)
+        problem = Problem.from_stats(full)
+        train = [Problem.from_stats(engine._training(full, f, k)) for k, f in enumerate(folds)]
+        grouped = design.groups_column is not None
+        penalized = {}
+        for name, rho in engine.families(settings):
+            check(cancel)
+            penalized[name] = engine._family(design, settings, problem, train, folds, name, rho, grouped, cancel)
+    return FitResults(columns=tuple(design.columns), settings=settings, ols=ols, diagnostics=diag,
+                      penalized=penalized, fold_ids=fold_ids, n_obs=int(n_obs), gram=full)
+
+
+def should_stream(path, budget: Optional[int]) -> bool:
+    """True when the table cannot be read in memory within ``budget`` (or is a folder of parts)."""
+    p = Path(path)
+    if p.is_dir():
+        return True
+    if budget is None:
+        return False
+    if not (p.suffix.lower() in (".parquet", ".pq") or _is_csv(p)):
+        return False
+    est = estimate_in_memory_bytes(p)
+    return est is not None and est > budget
+
+
+def memory_budget_from_env() -> Optional[int]:
+    """``REGBENCH_MEMORY_BUDGET`` when set (e.g. ``2GB``), else None."""
+    v = os.environ.get("REGBENCH_MEMORY_BUDGET")
+    return parse_size(v, "REGBENCH_MEMORY_BUDGET") if v else None
