@@ -153,3 +153,38 @@ def test_cli_fit_streams_beyond_the_budget_and_says_so(tmp_path, capsys):
     assert not (tmp_path / "p.regbench").exists()
     assert main(["fit", *base, "--memory-budget", "plenty"]) == 2
     assert "--memory-budget: 'plenty' is not a size" in capsys.readouterr().err
+
+
+@pytest.mark.timeout(240)
+def test_cluster_route_on_a_local_cluster_equals_the_in_memory_fit(tmp_path):
+    pytest.importorskip("dask.distributed")
+    from dask.distributed import Client, LocalCluster
+
+    from regbench.cluster import cluster_fit
+
+    f = _frame(seed=6)
+    folder = tmp_path / "parts"
+    folder.mkdir()
+    for i, a in enumerate(range(0, len(f), 300)):
+        f.iloc[a:a + 300].to_parquet(folder / f"part-{i:03d}.parquet", index=False, row_group_size=150)
+    roles = Roles(target="y", weights="w", groups="site")
+    settings = FitSettings(folds=5, seed=2)
+    whole = tmp_path / "t.parquet"
+    f.to_parquet(whole, index=False)
+    design = build_design(read_table(whole), roles)
+    results = fit_all(design, settings)
+    # One worker in this process (in-process transport: no network at all).
+    with LocalCluster(n_workers=1, threads_per_worker=2, processes=False,
+                      dashboard_address=None) as cluster, Client(cluster) as client:
+        s = cluster_fit(folder, roles, settings, client=client)
+        assert len(client.scheduler_info()["workers"]) == 1
+    assert s.route == "cluster"
+    _compare(s, design, results)
+
+
+def test_cluster_address_must_be_local_or_a_scheduler():
+    pytest.importorskip("dask.distributed")
+    from regbench.cluster import ClusterError, connect
+
+    with pytest.raises(ClusterError, match="not 'local' or a scheduler address"):
+        connect("my-cluster")

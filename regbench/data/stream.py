@@ -372,9 +372,11 @@ def stats_pass(part: Part, plan: Plan, folds: Folds, kept_before: int, sample: n
     Parameters
     ----------
     kept_before : int
-        Usable rows in the parts before this one (positions in ``folds.row_folds`` and ``sample``).
+        Usable rows in the parts before this one (``sample`` holds positions among all usable rows).
+    folds : Folds
+        Without groups, ``row_folds`` holds the folds of this part's usable rows only.
     sample : ndarray of int
-        Sorted positions (among all usable rows) of the rows to keep for row-level views.
+        Sorted positions (among all usable rows) of this part's rows to keep for row-level views.
 
     Returns
     -------
@@ -407,7 +409,7 @@ def stats_pass(part: Part, plan: Plan, folds: Folds, kept_before: int, sample: n
         if folds.group_fold is not None:
             ids = np.array([folds.group_fold[t] for t in gtext], dtype=np.int64)
         else:
-            ids = folds.row_folds[pos:pos + m]
+            ids = folds.row_folds[pos - kept_before:pos - kept_before + m]
         facc.add(X, y, w, ids)
         racc.add(X, y, w)
         lo, hi = np.searchsorted(sample, [pos, pos + m])
@@ -558,9 +560,16 @@ def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sa
     rng = np.random.default_rng(settings.seed)
     sampled = info.n_kept > sample_rows
     sample = np.sort(rng.choice(info.n_kept, sample_rows, replace=False)) if sampled else np.arange(info.n_kept)
-    before = np.concatenate([[0], np.cumsum([i.n_kept for i in infos])[:-1]]).astype(int)
+    before = np.concatenate([[0], np.cumsum([i.n_kept for i in infos])]).astype(int)
     report(progress, 1, total, "gathering the cross-products of every fold")
-    outs = run(stats_pass, [(part, plan2, folds, int(kb), sample) for part, kb in zip(parts, before)])
+    # Each part gets only its own rows' folds and sample positions.
+    args = []
+    for k, part in enumerate(parts):
+        a, b = int(before[k]), int(before[k + 1])
+        own = folds if folds.row_folds is None else Folds(K, row_folds=folds.row_folds[a:b])
+        lo, hi = np.searchsorted(sample, [a, b])
+        args.append((part, plan2, own, a, sample[lo:hi]))
+    outs = run(stats_pass, args)
     check(cancel)
     facc, racc, got = outs[0]
     for f2, r2, g2 in outs[1:]:
