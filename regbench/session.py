@@ -15,6 +15,7 @@ results when its cache did not match; compute them the same way.
 
 from __future__ import annotations
 
+import contextlib
 import copy
 import hashlib
 import json
@@ -254,6 +255,26 @@ class Session:
             "bootstrap": s.bootstrap,
         })
 
+    @property
+    def dirty(self) -> bool:
+        """Changed since the last save or load (an undo back to that state makes it clean again)."""
+        return self._dirty
+
+    @dirty.setter
+    def dirty(self, value: bool) -> None:
+        self._dirty = bool(value)
+        if not value:
+            self._clean_state = self._state
+
+    @contextlib.contextmanager
+    def document_state_kept(self):
+        """Within this block a save (a recovery copy elsewhere) leaves ``path`` and the unsaved state as they were."""
+        kept = (self.path, self._dirty, getattr(self, "_clean_state", None))
+        try:
+            yield self
+        finally:
+            self.path, self._dirty, self._clean_state = kept
+
     # -- observers ------------------------------------------------------------------------
 
     def subscribe(self, callback: Callable[[str, object], None]) -> None:
@@ -443,7 +464,7 @@ class Session:
             return False
         self._restore(self._undo.pop())
         self._last_tag = None
-        self.dirty = True
+        self._dirty = self._state != getattr(self, "_clean_state", None)
         self._notify("undo", None)
         return True
 

@@ -69,7 +69,7 @@ def test_every_pair_in_model_order_on_both_splits(case):
     ]
 
 
-def test_sentences_call_near_identical_models_interchangeable(case):
+def test_sentences_call_near_identical_models_practically_the_same(case):
     d, models, _ = case
     # Held-out predictions equal to training ones: the OLS/ridge gap is tiny against their error.
     held = {k: m.predict(d.X) for k, m in models.items()}
@@ -77,10 +77,10 @@ def test_sentences_call_near_identical_models_interchangeable(case):
     p = ag.pair("ols", "ridge")
     assert p.rmse < TINY_SHARE * min(ag.own_error["ols"]["held_out"], ag.own_error["ridge"]["held_out"])
     first = [s for s in ag.sentences if s.startswith("OLS and ridge")]
-    assert len(first) == 1 and "interchangeable" in first[0] and "growth" in first[0]
+    assert len(first) == 1 and "practically the same predictions" in first[0] and "growth" in first[0]
     assert "held-out rows" in first[0]
     lasso = [s for s in ag.sentences if s.startswith("OLS and lasso")][0]
-    assert "interchangeable" not in lasso and "changes the predictions" in lasso
+    assert "practically the same" not in lasso and "changes the predictions" in lasso
 
 
 def test_units_and_group_words_in_sentences(case):

@@ -42,7 +42,7 @@ def test_one_column_json(capsys):
 def test_categorical_column_text_summary(capsys):
     code, out, err = run(capsys, "--column", "variety", "--kind", "rescale", "--strength", "2")
     assert code == 0, err
-    assert "variety" in out and "shift RMS" in out and "Elastic net" in out
+    assert "variety" in out and "RMS shift" in out and "Elastic net" in out
 
 
 def test_all_columns_ranking(capsys):

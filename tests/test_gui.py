@@ -77,8 +77,10 @@ def gh(qtbot):
 
 
 def grid_column(model, header):
+    """A column of a grid; in the coefficient table, the column's rows after the intercept row."""
     j = model.headers.index(header)
-    return [model.rows[i][j] for i in range(len(model.rows))]
+    first = 1 if model.row_labels and model.row_labels[0] == "(intercept)" else 0
+    return [model.rows[i][j] for i in range(first, len(model.rows))]
 
 
 # -- the data view ------------------------------------------------------------------------
@@ -124,7 +126,10 @@ def test_sample_fills_every_panel_with_sentences(gh):
         assert panel.sentences.text().strip(), panel.key
     assert gh.errors == []
     coef = gh.panel("coefficients").model
-    assert coef.row_labels == list(s.design.columns)
+    assert coef.row_labels == ["(intercept)"] + list(s.design.columns)
+    # The intercept row holds each model's intercept; OLS's with its standard error.
+    assert coef.rows[0][coef.headers.index("OLS")] == pytest.approx(s.results.ols.intercept, rel=1e-12)
+    assert coef.rows[0][coef.headers.index("OLS SE")] == pytest.approx(s.results.ols.intercept_se, rel=1e-12)
     ols_col = grid_column(coef, "OLS")
     # Exact aliases of the greenhouse table (demo.py): mean = (day + night) / 2, °F = 1.8 °C + 32.
     assert ols_col[s.design.columns.index("mean_temp_c")] == "set aside"
@@ -431,8 +436,41 @@ def test_copy_table_is_tab_separated(gh):
     assert QtWidgets.QApplication.clipboard().text() == text
     lines = text.strip("\n").split("\n")
     assert lines[0].split("\t")[1:4] == ["OLS", "OLS SE", "OLS p"]
-    assert len(lines) == 1 + gh.session.design.p
+    assert len(lines) == 2 + gh.session.design.p     # header, intercept, one row per design column
     assert all(len(line.split("\t")) == len(lines[0].split("\t")) for line in lines)
+    # Full precision: every number reads back as the very float the table holds.
+    model = gh.panel("coefficients").model
+    j = model.headers.index("Ridge")
+    for r, line in enumerate(lines[1:]):
+        cell = line.split("\t")[j + 1]
+        v = model.rows[r][j]
+        if isinstance(v, float):
+            assert float(cell) == v
+    # A selection of several cells copies just those; one clicked cell copies the whole table.
+    view = gh.panel("coefficients").view
+    view.selectionModel().select(model.index(1, j), QtCore.QItemSelectionModel.ClearAndSelect)
+    assert gh.copy_table() == text
+    sel = QtCore.QItemSelection(model.index(1, j), model.index(3, j))
+    view.selectionModel().select(sel, QtCore.QItemSelectionModel.ClearAndSelect)
+    part = gh.copy_table().strip("\n").split("\n")
+    assert len(part) == 4 and [float(x.split("\t")[1]) for x in part[1:]] == [model.rows[r][j] for r in (1, 2, 3)]
+    assert "at full precision" in gh.status_label.text()
+
+
+def test_export_table_as_csv_at_full_precision(gh, tmp_path):
+    import csv
+
+    gh.show_panel("coefficients")
+    model = gh.panel("coefficients").model
+    path = str(tmp_path / "coef.csv")
+    gh.panel("coefficients").view.setFocus()
+    assert gh.export_table(path)
+    with open(path, newline="", encoding="utf-8") as fh:
+        rows = list(csv.reader(fh))
+    assert rows[0][1:] == model.headers
+    assert [r[0] for r in rows[1:]] == model.row_labels
+    j = model.headers.index("Lasso")
+    assert [float(r[j + 1]) for r in rows[1:]] == [float(model.rows[i][j]) for i in range(len(model.rows))]
 
 
 # -- errors, prompts, recovery ------------------------------------------------------------
@@ -844,3 +882,151 @@ def test_penalty_figure_handle_keyboard_and_highlight(gh, qtbot):
     assert dimmed == {"#c9c5ba"}
     # Every path is labelled at its end (no legend), up to the room there is.
     assert set(fig.labels) == set(s.results.penalized["lasso"].path.columns)
+
+
+# -- views and defects found on real tables --------------------------------------------------
+
+
+def test_fit_quality_panel_shows_the_analysis_numbers(gh, qtbot):
+    from regbench.analysis.fit_quality import fit_quality
+    from regbench.formatting import natural_key
+    from regbench.models.results import model_label
+
+    s = gh.session
+    gh.show_panel("fit")
+    panel = gh.panel("fit")
+    want = fit_quality(s.design, s.models(), s.heldout())
+    shown = dict(zip(grid_column(panel.fit_model, "Model"), grid_column(panel.fit_model, "RMSE held-out")))
+    for n in s.models():
+        assert shown[model_label(n)] == pytest.approx(want.fit(n, "held_out").rmse, rel=1e-12)
+    # The held-out RMSE is the weighted RMS of observed − held-out prediction (definition, numpy).
+    d = s.design
+    r = d.y - s.heldout()["ols"]
+    assert shown["OLS"] == pytest.approx(np.sqrt(np.sum(d.weights * r * r) / d.weights.sum()), rel=1e-10)
+    groups = grid_column(panel.group_model, "glasshouse")
+    assert groups == sorted(groups, key=natural_key) and len(groups) == 8
+    for view in ("observed", "residual", "column"):
+        panel.view_box.setCurrentIndex(panel.view_box.findData(view))
+        items = [i for i in panel.plot.getPlotItem().items if hasattr(i, "points")]
+        assert items and len(items[0].points()) == d.n
+
+
+def test_a_new_table_clears_every_panel(gh, qtbot, tmp_path):
+    gh.show_panel("stress")
+    assert gh.panel("stress").shift_model.rowCount() > 0
+    rng = np.random.default_rng(2)
+    frame = pd.DataFrame({"a": rng.normal(size=30), "b": rng.normal(size=30)})
+    frame["z"] = frame["a"] + rng.normal(size=30)
+    path = tmp_path / "other.csv"
+    frame.to_csv(path, index=False)
+    gh.dirty = False
+    with qtbot.waitSignal(gh.session_changed, timeout=FIT_TIMEOUT_MS):
+        gh.open_path(str(path))
+    wait_idle(qtbot, gh)
+    stress, paths = gh.panel("stress"), gh.panel("paths")
+    assert stress.shift_model.rowCount() == 0 and stress.rank_model.rowCount() == 0 and stress.history.count() == 0
+    assert stress.result is None and stress.ranking is None
+    assert paths.figure.data is None and paths.family.count() == 0
+    for p in gh.panels:
+        gh.show_panel(p.key)
+        gh._refresh_panel(p)
+        assert "glasshouse" not in p.sentences.text() and "yield" not in p.sentences.text(), p.key
+
+
+def test_stress_offers_only_damage_that_suits_the_column(gh):
+    gh.show_panel("stress")
+    stress = gh.panel("stress")
+    stress.column.setCurrentText("variety")      # text categories
+    kinds = [stress.kind.itemData(i) for i in range(stress.kind.count())]
+    assert kinds == ["shuffle", "constant", "missing"]
+    stress.column.setCurrentText("day_temp_c")
+    kinds = [stress.kind.itemData(i) for i in range(stress.kind.count())]
+    assert "rescale" in kinds and "noise" in kinds
+
+
+def test_column_ranking_follows_alpha_changes_and_undo(gh, qtbot):
+    s = gh.session
+    gh.show_panel("stress")
+    stress = gh.panel("stress")
+    stress.column.setCurrentText("day_temp_c")
+    stress.kind.setCurrentIndex(stress.kind.findData("rescale"))
+    stress.rank_btn.click()
+    wait_idle(qtbot, gh)
+    first = [list(r) for r in stress.rank_model.rows]
+    # Rescaling makes no sense for category columns: they are not ranked by it.
+    assert "variety" not in grid_column(stress.rank_model, "Column") and first
+    gh.set_alpha("lasso", float(s.results.penalized["lasso"].path.alphas[10]))
+    wait_idle(qtbot, gh)
+    gh.show_panel("stress")
+    wait_idle(qtbot, gh)
+    second = [list(r) for r in stress.rank_model.rows]
+    assert second and second != first and stress.ranking is not None
+    gh.undo()
+    wait_idle(qtbot, gh)
+    gh.show_panel("stress")
+    assert [list(r) for r in stress.rank_model.rows] == first
+
+
+def test_undo_back_to_the_saved_state_is_not_unsaved(gh, qtbot, tmp_path):
+    path = str(tmp_path / "gh.regbench")
+    assert gh.save_to(path) and not gh.dirty
+    gh.set_alpha("ridge", 0.3)
+    assert gh.dirty and "•" in gh.windowTitle()
+    gh.undo()
+    wait_idle(qtbot, gh)
+    assert not gh.dirty and "•" not in gh.windowTitle()
+    assert gh.session.path == gh.path == path   # the path lives in the session, the window reads it
+
+
+def test_window_messages_speak_of_the_window(gh, qtbot, tmp_path, monkeypatch):
+    # A table saved in Windows-1252: the window asks for the encoding instead of giving a command-line flag.
+    text = "temp,yield\n20,1.5\n21,1.7\n22,1.6\n23,1.9\n24,2.1\n"
+    bad = tmp_path / "café.csv"
+    bad.write_bytes(text.replace("temp", "températ").encode("cp1252"))
+    asked = []
+    monkeypatch.setattr(gh, "ask_encoding", lambda name: asked.append(name) or "cp1252")
+    gh.dirty = False
+    with qtbot.waitSignal(gh.session_changed, timeout=FIT_TIMEOUT_MS):
+        gh.open_path(str(bad))
+    wait_idle(qtbot, gh)
+    assert asked == ["café.csv"] and "températ" in gh.session.table.names
+    # Cancelled: the message names no command-line option.
+    monkeypatch.setattr(gh, "ask_encoding", lambda name: None)
+    n = len(gh.errors)
+    gh.dirty = False
+    gh.open_path(str(bad))
+    qtbot.waitUntil(lambda: len(gh.errors) > n, timeout=10_000)
+    assert "--" not in gh.errors[-1] and "encoding" in gh.errors[-1]
+    # A damaged project (cut short) is called damaged.
+    proj = tmp_path / "cut.regbench"
+    assert gh.save_to(str(proj))
+    data = proj.read_bytes()
+    proj.write_bytes(data[: len(data) // 2])
+    n = len(gh.errors)
+    gh.open_path(str(proj))
+    qtbot.waitUntil(lambda: len(gh.errors) > n, timeout=10_000)
+    assert "damaged" in gh.errors[-1]
+    # A plain-text memo is not a table of numbers, and the message says so.
+    memo = tmp_path / "memo.txt"
+    memo.write_text("Meeting notes\nAsk the growers about the new sensors\nBring the yield sheets\n")
+    n = len(gh.errors)
+    gh.dirty = False
+    gh.open_path(str(memo))
+    qtbot.waitUntil(lambda: len(gh.errors) > n, timeout=10_000)
+    assert "no column of numbers" in gh.errors[-1] and "target" not in gh.errors[-1]
+
+
+def test_a_table_wider_than_long_opens(qtbot, tmp_path):
+    rng = np.random.default_rng(9)
+    n, p = 12, 30
+    frame = pd.DataFrame(rng.normal(size=(n, p)), columns=[f"x{j}" for j in range(p)])
+    frame["y"] = frame["x0"] + rng.normal(scale=0.1, size=n)
+    path = tmp_path / "wide.csv"
+    frame.to_csv(path, index=False)
+    w = make_window(qtbot)
+    with qtbot.waitSignal(w.session_changed, timeout=FIT_TIMEOUT_MS):
+        w.open_path(str(path))
+    wait_idle(qtbot, w)
+    assert w.session is not None and w.session.roles.target == "y" and w.errors == []
+    assert w.panel("data").columns_model.rowCount() == p + 1
+    close_quietly(w)

@@ -25,7 +25,7 @@ import numpy as np
 from regbench.errors import DataError
 from regbench.models.results import model_label
 
-#: Pair RMS difference below this share of the smaller own error: "interchangeable".
+#: Pair RMS difference below this share of the smaller own error: "practically the same predictions".
 TINY_SHARE = 0.10
 #: Below this share: "close"; above it the choice between the two models matters.
 SMALL_SHARE = 0.50
@@ -272,7 +272,7 @@ def _sentences(design, names, pairs, own, units, tiny_share) -> tuple:
             continue
         head = f"{la} and {in_sentence(lb)} differ by {fmt(p.rmse)}{u} RMS on {_rows_words(design, split)} while {miss}"
         if ratio < tiny_share:
-            tail = (f": their predictions are interchangeable for planning (the difference is under "
+            tail = (f": either gives practically the same predictions (the difference is under "
                     f"{tiny_share:.0%} of the smaller error).")
         elif ratio < SMALL_SHARE:
             tail = (f": they predict alike, though the difference is {ratio:.0%} of the smaller error "

@@ -574,13 +574,13 @@ _PARTICIPLE = {"shuffle": "shuffled", "noise": "noised", "constant": "frozen", "
 
 
 def rank_columns(design, models: dict, kind: str = "shuffle", strength: Optional[float] = None, seed: int = 0,
-                 progress=None, cancel=None) -> ColumnRanking:
-    """Damage every source column in turn and rank the columns by how far each model moves.
+                 progress=None, cancel=None, columns=None) -> ColumnRanking:
+    """Damage every source column (or those in ``columns``) in turn and rank them by how far each model moves.
 
     Categorical predictors are damaged as a whole block.  Progress is reported per
     column and ``cancel`` is checked between columns.
     """
-    columns = tuple(dict.fromkeys(design.sources))
+    columns = tuple(dict.fromkeys(design.sources)) if columns is None else tuple(columns)
     resolved = StressConfig(columns[0], kind, strength).resolved_strength()
     names = tuple(models)
     clean = {k: m.predict(design.X) for k, m in models.items()}
@@ -701,12 +701,12 @@ def _stress_text(design, res: StressResult) -> str:
     strength = "" if res.strength is None else f", strength {fmt(res.strength)}"
     lines = [f"Stress test on {design.target}: {res.kind} {res.column}{strength}, seed {res.config.seed}; "
              f"tolerance {fmt(res.tolerance)}", ""]
-    head = f"{'model':<28}{'shift RMS':>12}{'mean shift':>12}{'moved':>8}{'error clean':>13}{'error damaged':>15}"
+    head = f"{'model':<28}{'RMS shift':>12}{'mean shift':>12}{'rows moved':>12}{'error before':>14}{'error after':>13}"
     lines.append(head)
     for k in res.models:
         s = res.shifts[k]
-        lines.append(f"{model_label(k):<28}{fmt(s.shift_rmse):>12}{fmt(s.mean_shift):>12}{s.moved_share:>8.0%}"
-                     f"{fmt(s.error_clean):>13}{fmt(s.error_damaged):>15}")
+        lines.append(f"{model_label(k):<28}{fmt(s.shift_rmse):>12}{fmt(s.mean_shift):>12}{s.moved_share:>12.0%}"
+                     f"{fmt(s.error_clean):>14}{fmt(s.error_damaged):>13}")
     lines.append("")
     lines.extend(res.sentences)
     return "\n".join(lines)

@@ -97,6 +97,37 @@ def export_plot(widget, path: str) -> str:
     raise RegbenchError(f"{os.path.basename(path)}: plots are written as .png or .svg; choose one of those")
 
 
+def export_csv(model, path: str) -> str:
+    """A table model as CSV (UTF-8, header line first) with every number at full precision."""
+    import csv
+
+    from regbench.gui.tables import cell_text
+
+    from PySide6.QtCore import Qt
+
+    tmp = _beside(path)
+    try:
+        with open(tmp, "w", encoding="utf-8", newline="") as fh:
+            out = csv.writer(fh)
+            cols = range(model.columnCount())
+            labels = [model.headerData(r, Qt.Vertical) for r in range(model.rowCount())]
+            named_rows = any(lab is not None and lab != str(r + 1) for r, lab in enumerate(labels))
+            head = [("" if model.headerData(c, Qt.Horizontal) is None else str(model.headerData(c, Qt.Horizontal)))
+                    for c in cols]
+            out.writerow(([""] if named_rows else []) + head)
+            for r in range(model.rowCount()):
+                row = [cell_text(model, r, c) for c in cols]
+                out.writerow(([labels[r]] if named_rows else []) + row)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except OSError as exc:
+        _drop(tmp)
+        raise RegbenchError(f"{os.path.basename(path)}: could not write the CSV ({exc.strerror or exc}); "
+                            "choose another folder") from None
+    return path
+
+
 def _beside(path: str) -> str:
     d, b = os.path.split(os.path.abspath(path))
     ext = os.path.splitext(b)[1]

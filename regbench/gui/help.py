@@ -12,8 +12,18 @@ TERMS = (
     ("L1 ratio (ρ)", "The mix of the two penalties: ρ = 0 is ridge (squares only, keeps every column), "
      "ρ = 1 is lasso (absolute values only, sets columns to exactly zero), in between is elastic net."),
     ("Chosen α", "The α each penalized model is shown at. By default the one with the lowest "
-     "cross-validated error, or the largest α whose error is within one standard error of that "
-     "lowest (simpler, usually almost as good). Drag the line on the path panel to choose your own."),
+     "held-out error ('lowest error' on the figure), or the largest α whose error is within one standard "
+     "error of that lowest ('simplest within 1 SE': simpler, usually almost as good). In 'Fits differ · "
+     "penalty', drag the α handle, type a value, or step along the grid with ← → to choose your own."),
+    ("Columns used", "How many columns a penalized model gives a coefficient other than 0 at an α; the strip "
+     "under the paths shows it along α."),
+    ("Row counts (weights)", "A column saying how many times each row counts (\"each row counts … times\" in "
+     "the sentence at the top); with none, every row counts once."),
+    ("Held-out groups", "A column whose values name groups (glasshouses, batches, sites); cross-validation "
+     "and the stability refits keep every row of a group on the same side (\"hold out whole … groups\")."),
+    ("As categories", "Whole-number codes (1, 2, 3 for three varieties) read as categories: each value gets "
+     "its own indicator column instead of one slope. The column list suggests it for whole numbers with "
+     "few different values."),
     ("Set aside", "A column OLS leaves out because the columns it kept already reproduce it exactly "
      "(or up to round-off), such as a mean next to the values averaged or one temperature in two "
      "units. The window shows the combination that reproduces it and which other column could "
@@ -28,9 +38,10 @@ TERMS = (
      "difference, correlation, mean difference with limits of agreement — judged beside each "
      "model's own error, on the training rows and on held-out rows."),
     ("Stress test", "The fitted models stay as they are while one input is damaged (shuffled, noised, "
-     "frozen, rescaled, partly replaced with wild values); the panel shows how far each model's "
-     "predictions move. A model that spreads weight over overlapping columns moves differently "
-     "from one that relies on a single column."),
+     "frozen, rescaled, partly replaced with wild values; columns of categories are only shuffled, frozen "
+     "or emptied); the panel shows how far each model's predictions move: the RMS shift, and the rows "
+     "moved (the percentage of predictions that shift by more than the tolerance). A model that spreads "
+     "weight over overlapping columns moves differently from one that relies on a single column."),
     ("Stability", "The models are refitted on bootstrap resamples of the rows (whole groups when a "
      "group column is set): how often each column is selected by lasso and elastic net, how often "
      "OLS sets it aside, and how much its coefficient varies."),
@@ -48,10 +59,18 @@ CAUTIONS = (
 )
 
 
-def help_html() -> str:
+def help_html(panels=None) -> str:
+    """The help text; ``panels`` are (menu name, question) pairs, by default the window's own."""
+    if panels is None:
+        from regbench.gui.window import _panel_classes
+
+        panels = [(cls.nav, cls.title) for cls in _panel_classes()]
     rows = "".join(f"<dt><b>{t}</b></dt><dd>{d}</dd>" for t, d in TERMS)
     cautions = "".join(f"<li>{c}</li>" for c in CAUTIONS)
+    views = "".join(f"<tr><td><b>{n}</b></td><td>{t}</td></tr>" for n, t in panels)
     return (
+        "<h2>The panels</h2><p>Named here as in the list on the left and the View menu.</p>"
+        f"<table cellpadding='3'>{views}</table>"
         "<h2>Words used in this window</h2>"
         f"<dl>{rows}</dl>"
         "<h2>Cautions</h2>"

@@ -41,6 +41,7 @@ class PenaltyFigure(QtWidgets.QWidget):
         self.data: Optional[FigureData] = None
         self._fig = None
         self._fig_size = None
+        self._pixmap = None          # the figure painted once; repaints (focus, hover) only blit it
         self._dragging = False
         self.setToolTip("Drag the α handle, or use ← → (Shift: ten steps); click a curve or a name to highlight it")
 
@@ -48,6 +49,7 @@ class PenaltyFigure(QtWidgets.QWidget):
     def set_data(self, data: Optional[FigureData]) -> None:
         self.data = data
         self._fig = None
+        self._pixmap = None
         self.update()
 
     def figure(self, width: Optional[int] = None, height: Optional[int] = None):
@@ -60,6 +62,7 @@ class PenaltyFigure(QtWidgets.QWidget):
         if self._fig is None or self._fig_size != (w, h):
             self._fig = build_figure(self.data, w, h)
             self._fig_size = (w, h)
+            self._pixmap = None
         return self._fig
 
     def grid(self) -> np.ndarray:
@@ -70,10 +73,22 @@ class PenaltyFigure(QtWidgets.QWidget):
     def paintEvent(self, event):
         painter = QtGui.QPainter(self)
         try:
-            painter.fillRect(self.rect(), QtGui.QColor("#ffffff"))
             fig = self.figure()
-            if fig is not None:
-                paint_figure(painter, fig)
+            if fig is None:
+                painter.fillRect(self.rect(), QtGui.QColor("#ffffff"))
+            else:
+                if self._pixmap is None:
+                    ratio = self.devicePixelRatioF()
+                    pm = QtGui.QPixmap(int(self.width() * ratio), int(self.height() * ratio))
+                    pm.setDevicePixelRatio(ratio)
+                    pm.fill(QtGui.QColor("#ffffff"))
+                    p2 = QtGui.QPainter(pm)
+                    try:
+                        paint_figure(p2, fig)
+                    finally:
+                        p2.end()
+                    self._pixmap = pm
+                painter.drawPixmap(0, 0, self._pixmap)
             if self.hasFocus() and fig is not None:
                 kx, ky, kw, kh = fig.knob
                 pen = QtGui.QPen(QtGui.QColor("#26303a"), 1, Qt.DotLine)
@@ -146,6 +161,7 @@ class PenaltyFigure(QtWidgets.QWidget):
         self.data.readout = None       # read off the path until the exact model arrives
         self.data.n_used = None
         self._fig = None
+        self._pixmap = None
         self.update()
         self.alpha_moving.emit(float(alpha))
 
@@ -203,20 +219,30 @@ def paint_figure(painter: QtGui.QPainter, fig) -> None:
     painter.setRenderHint(QtGui.QPainter.Antialiasing, True)
     painter.setRenderHint(QtGui.QPainter.TextAntialiasing, True)
     base_font = QtGui.QFont(painter.font())
-    fonts = {}
+    fonts, pens, brushes = {}, {}, {}
+    no_pen, no_brush = QtGui.QPen(Qt.NoPen), QtGui.QBrush(Qt.NoBrush)
     for p in fig.prims:
         painter.setOpacity(p.opacity)
         if p.kind in ("line", "poly", "circle", "rect"):
             if p.stroke:
-                pen = QtGui.QPen(QtGui.QColor(p.stroke), p.width)
-                if p.dash:
-                    pen.setDashPattern([float(x) / max(p.width, 0.1) for x in p.dash])
+                key = (p.stroke, p.width, p.dash)
+                pen = pens.get(key)
+                if pen is None:
+                    pen = pens[key] = QtGui.QPen(QtGui.QColor(p.stroke), p.width)
+                    if p.dash:
+                        pen.setDashPattern([float(x) / max(p.width, 0.1) for x in p.dash])
                 painter.setPen(pen)
             else:
-                painter.setPen(Qt.NoPen)
-            painter.setBrush(QtGui.QBrush(QtGui.QColor(p.fill)) if p.fill else Qt.NoBrush)
+                painter.setPen(no_pen)
+            if p.fill:
+                brush = brushes.get(p.fill)
+                if brush is None:
+                    brush = brushes[p.fill] = QtGui.QBrush(QtGui.QColor(p.fill))
+                painter.setBrush(brush)
+            else:
+                painter.setBrush(no_brush)
         if p.kind == "line":
-            painter.setBrush(Qt.NoBrush)
+            painter.setBrush(no_brush)
             painter.drawPolyline(QtGui.QPolygonF([QtCore.QPointF(x, y) for x, y in p.pts]))
         elif p.kind == "poly":
             painter.drawPolygon(QtGui.QPolygonF([QtCore.QPointF(x, y) for x, y in p.pts]))

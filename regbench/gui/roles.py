@@ -67,6 +67,36 @@ def default_roles(table) -> Roles:
     return Roles(target=target, predictors=preds)
 
 
+def openable_roles(table, roles: Roles):
+    """``roles``, or fewer ticked columns when the table has too many for its rows, so that it opens.
+
+    Returns (roles, note); note says what was left unticked (None when nothing was).
+    """
+    from regbench.data.design import build_design
+    from regbench.errors import DataError
+
+    try:
+        build_design(table, roles)
+        return roles, None
+    except DataError as exc:
+        if "usable rows" not in str(exc) or not roles.predictors:
+            raise
+    preds = list(roles.predictors)
+    k = max(1, min(len(preds) - 1, table.n_rows - 3))
+    while k >= 1:
+        trial = replace(roles, predictors=tuple(preds[:k]))
+        try:
+            build_design(table, trial)
+        except DataError as exc:
+            if "usable rows" not in str(exc):
+                raise
+            k //= 2
+            continue
+        return trial, (f"The table has {len(preds)} usable columns for {table.n_rows} rows: the first {k} are "
+                       "ticked so that it opens; choose the ones you want in the column list.")
+    raise DataError(f"{table.source or 'the table'}: too few rows to fit even one column; add rows")
+
+
 class RoleDraft(QtCore.QObject):
     """The roles and fit settings being chosen, before they are sent to the session."""
 

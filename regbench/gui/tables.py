@@ -68,6 +68,10 @@ class FrameModel(QtCore.QAbstractTableModel):
             return self._names[section] if section < len(self._names) else None
         return str(section + 1)
 
+    def raw_text(self, r: int, c: int) -> str:
+        """The cell at full precision (copy and CSV export)."""
+        return full_text(self._cols[c][r])
+
 
 class GridModel(QtCore.QAbstractTableModel):
     """A small read-only grid of values with optional per-cell colours and tips.
@@ -86,8 +90,11 @@ class GridModel(QtCore.QAbstractTableModel):
         super().__init__(parent)
         self.set_rows(rows, headers, row_labels)
 
-    def set_rows(self, rows, headers, row_labels=None, backgrounds=None, foregrounds=None, tips=None, digits=4):
+    def set_rows(self, rows, headers, row_labels=None, backgrounds=None, foregrounds=None, tips=None, digits=4,
+                 percent_cols=()):
+        """Show ``rows``; columns in ``percent_cols`` hold shares (0.962) shown as percentages (96.2 %)."""
         self.beginResetModel()
+        self.percent_cols = frozenset(percent_cols)
         self.rows = [list(r) for r in rows]
         self.headers = list(headers)
         self.row_labels = list(row_labels) if row_labels is not None else None
@@ -106,12 +113,18 @@ class GridModel(QtCore.QAbstractTableModel):
     def value(self, r: int, c: int):
         return self.rows[r][c]
 
+    def raw_text(self, r: int, c: int) -> str:
+        """The cell at full precision (copy and CSV export); shares stay shares (0.9625, not 96 %)."""
+        return full_text(self.rows[r][c] if c < len(self.rows[r]) else None)
+
     def data(self, index, role=Qt.DisplayRole):
         if role not in _GRID_ROLES:  # sizing asks for many roles per cell; answer the rest at once
             return None
         r, c = index.row(), index.column()
         v = self.rows[r][c] if c < len(self.rows[r]) else None
         if role == Qt.DisplayRole:
+            if c in self.percent_cols and isinstance(v, (float, int, np.floating, np.integer)) and not isinstance(v, bool):
+                return percent_text(float(v))
             return fmt(v, self.digits)
         if role == Qt.TextAlignmentRole:
             if isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool):
@@ -154,6 +167,35 @@ def make_view(model: QtCore.QAbstractTableModel, stretch_last: bool = True) -> Q
     return view
 
 
+def full_text(v) -> str:
+    """A value as text with every digit a float holds (the shortest text that reads back the same)."""
+    if v is None:
+        return ""
+    if isinstance(v, (bool, np.bool_)):
+        return "yes" if v else "no"
+    if isinstance(v, (int, np.integer)):
+        return str(int(v))
+    if isinstance(v, (float, np.floating)):
+        v = float(v)
+        return "" if np.isnan(v) else repr(v)
+    return str(v)
+
+
+def percent_text(v: float) -> str:
+    """A share as a percentage, as the sentences write it (0.9625 -> '96.3 %')."""
+    if not np.isfinite(v):
+        return ""
+    return f"{100 * v:.1f} %" if abs(v) < 0.9995 or v == 1 else f"{100 * v:.0f} %"
+
+
+def cell_text(model, r: int, c: int) -> str:
+    """Full-precision text of a cell when the model has it, else what the cell shows."""
+    if hasattr(model, "raw_text"):
+        return model.raw_text(r, c)
+    v = model.data(model.index(r, c))
+    return "" if v is None else str(v)
+
+
 def model_to_tsv(model: QtCore.QAbstractItemModel, rows: Optional[Sequence[int]] = None,
                  cols: Optional[Sequence[int]] = None) -> str:
     """Tab-separated text of a model (header line first), for the clipboard."""
@@ -163,15 +205,15 @@ def model_to_tsv(model: QtCore.QAbstractItemModel, rows: Optional[Sequence[int]]
     vheader = [clean(model.headerData(r, Qt.Vertical)) for r in rows]
     lines = ["\t".join([""] + [clean(model.headerData(c, Qt.Horizontal)) for c in cols])]
     for r, label in zip(rows, vheader):
-        lines.append("\t".join([label] + [clean(model.data(model.index(r, c))) for c in cols]))
+        lines.append("\t".join([label] + [clean(cell_text(model, r, c)) for c in cols]))
     return "\n".join(lines) + "\n"
 
 
 def view_to_tsv(view: QtWidgets.QTableView) -> str:
-    """The selected cells of a view (or the whole table if nothing is selected)."""
+    """The selected cells of a view at full precision (the whole table when at most one cell is selected)."""
     model = view.model()
     sel = view.selectionModel().selectedIndexes() if view.selectionModel() else []
-    if not sel:
+    if len(sel) <= 1:
         return model_to_tsv(model)
     rows = sorted({i.row() for i in sel})
     cols = sorted({i.column() for i in sel})

@@ -7,8 +7,8 @@ from typing import Optional
 
 from PySide6 import QtCore, QtGui, QtWidgets
 
-from regbench.errors import RegbenchError
-from regbench.gui.roles import TARGET_RULE, QuestionBar, RoleDraft, default_roles
+from regbench.errors import DataError, ProjectError, RegbenchError
+from regbench.gui.roles import TARGET_RULE, QuestionBar, RoleDraft, default_roles, openable_roles
 from regbench.gui.style import STYLESHEET, configure_pyqtgraph
 from regbench.gui.tables import view_to_tsv
 from regbench.gui.worker import Runner
@@ -18,6 +18,42 @@ TABLE_EXTS = (".csv", ".tsv", ".tab", ".txt", ".xlsx", ".parquet", ".pq")
 PROJECT_EXT = ".regbench"
 MAX_RECENT = 8
 AUTOSAVE_MS = 60_000
+
+
+#: The panels each kind of session change redraws; a kind not listed redraws every panel.  Panels that
+#: read the comparisons at the chosen α are redrawn when the worker installs them ("results").
+REDRAWS = {
+    "notes": (),
+    "view_state": (),
+    "saved": (),
+    "alpha": ("paths", "stability"),
+    "extra_fits": ("paths",),
+    "stress": ("stress",),
+    "bootstrap": ("stability",),
+}
+
+
+#: Encodings offered when a table is not UTF-8 (label -> Python codec name).
+ENCODINGS = {"Windows Western (cp1252)": "cp1252", "Latin-1 (ISO 8859-1)": "latin-1",
+             "Central European (cp1250)": "cp1250", "Cyrillic (cp1251)": "cp1251", "Mac Roman": "mac_roman",
+             "UTF-16": "utf-16"}
+
+
+def _project_words(exc):
+    """A project that cannot be read is called damaged when that is the likely cause."""
+    msg = str(exc)
+    if isinstance(exc, RegbenchError) and "not a regbench project (not a readable zip archive" in msg:
+        return ProjectError(msg.replace("not a regbench project (not a readable zip archive",
+                                        "damaged: it cannot be read as a project (not a readable zip archive", 1))
+    return exc
+
+
+def _window_words(msg: str) -> str:
+    """Advice written for the command line, said the window's way."""
+    import re
+
+    return re.sub(r"name its encoding \(for example --encoding [\w-]+\)",
+                  "open it again and choose its encoding when the window asks", msg)
 
 
 def recovery_path() -> str:
@@ -31,13 +67,15 @@ def _panel_classes():
     from regbench.gui.panels.agreement import AgreementPanel
     from regbench.gui.panels.coefficients import CoefficientsPanel
     from regbench.gui.panels.data import DataPanel
+    from regbench.gui.panels.fitquality import FitQualityPanel
     from regbench.gui.panels.overlaps import OverlapsPanel
     from regbench.gui.panels.paths import PathsPanel
     from regbench.gui.panels.stability import StabilityPanel
     from regbench.gui.panels.stress import StressPanel
 
-    # The order a stakeholder asks in; Ctrl+1..7 follow it.
-    return (DataPanel, OverlapsPanel, PathsPanel, CoefficientsPanel, AgreementPanel, StressPanel, StabilityPanel)
+    # The order a stakeholder asks in; Ctrl+1..9 follow it.
+    return (DataPanel, OverlapsPanel, PathsPanel, CoefficientsPanel, FitQualityPanel, AgreementPanel, StressPanel,
+            StabilityPanel)
 
 
 class MainWindow(QtWidgets.QMainWindow):
@@ -61,8 +99,6 @@ class MainWindow(QtWidgets.QMainWindow):
         self.resize(1400, 900)
         self.setAcceptDrops(True)
         self.session = None
-        self.path: Optional[str] = None
-        self.dirty = False
         self.errors: list = []          # every message shown, newest last
         self.last_error_box = None
         self.runner = Runner(self)
@@ -87,11 +123,32 @@ class MainWindow(QtWidgets.QMainWindow):
         self._update_title()
         self._update_actions()
 
+    # == document state (kept in the session, read here) ================================
+    @property
+    def path(self) -> Optional[str]:
+        """The project file of the session (None until saved or when opened from a table)."""
+        return self.session.path if self.session is not None else None
+
+    @path.setter
+    def path(self, value: Optional[str]) -> None:
+        if self.session is not None:
+            self.session.path = value
+
+    @property
+    def dirty(self) -> bool:
+        """The session has changes that are not saved."""
+        return bool(self.session is not None and self.session.dirty)
+
+    @dirty.setter
+    def dirty(self, value: bool) -> None:
+        if self.session is not None:
+            self.session.dirty = value
+
     # == building ====================================================================
     def _build_central(self):
         self.nav = QtWidgets.QListWidget()
         self.nav.setObjectName("nav")
-        self.nav.setFixedWidth(200)
+        self.nav.setFixedWidth(218)
         self.stack = QtWidgets.QStackedWidget()
         self.panels = []
         for cls in _panel_classes():
@@ -157,6 +214,7 @@ class MainWindow(QtWidgets.QMainWindow):
         f.addSeparator()
         self.act_report = self._action(f, "Export report…", self.export_report_dialog)
         self.act_plot = self._action(f, "Export plot (PNG/SVG)…", self.export_plot_dialog)
+        self.act_csv = self._action(f, "Export table (CSV)…", self.export_table_dialog)
         f.addSeparator()
         self._action(f, "Quit", self.close, K.StandardKey.Quit)
         e = self.edit_menu = mb.addMenu("&Edit")
@@ -232,6 +290,9 @@ class MainWindow(QtWidgets.QMainWindow):
         if self.session is not None:
             self.session.unsubscribe(self._on_session_event)
         self.runner.cancel_all()
+        if session is not self.session:
+            for p in self.panels:   # nothing of the previous table may linger on any panel
+                p.clear()
         self.session = session
         self.path = path
         self.dirty = dirty
@@ -274,23 +335,32 @@ class MainWindow(QtWidgets.QMainWindow):
         return self.session is not None and getattr(self.session, "results", None) is not None
 
     def _on_session_event(self, event, detail=None) -> None:
-        if event not in ("saved", "loaded"):
-            self.dirty = True
         if event in ("roles", "settings", "bootstrap", "undo", "loaded"):
             self._load_draft()
         elif event == "results":
             self._draft_changed()
         if self.session is not None and self.session.results is not None and not self.session.derived_ready:
             self.request_derived()
-        self.refresh_all()
+        self.refresh_for(event)
         self._update_title()
         self._update_actions()
 
+    def refresh_for(self, event: str) -> None:
+        """Mark out of date only the panels that kind of change affects (see REDRAWS)."""
+        keys = REDRAWS.get(event)
+        if keys is None:
+            self.refresh_all()
+            return
+        self._stale |= {p.key for p in self.panels if p.key in keys}
+        if keys and not self._refresh_pending:
+            self._refresh_pending = True
+            QtCore.QTimer.singleShot(0, self._do_refresh)
+
     # == opening =====================================================================
-    def open_path(self, path: str, roles=None) -> None:
+    def open_path(self, path: str, roles=None, encoding: Optional[str] = None, confirmed: bool = False) -> None:
         """Open a table (new session with default or given roles) or a project, off the GUI thread."""
         path = os.fspath(path)
-        if not self._confirm_discard():
+        if not confirmed and not self._confirm_discard():
             return
         ext = os.path.splitext(path)[1].lower()
         if ext == PROJECT_EXT:
@@ -306,7 +376,7 @@ class MainWindow(QtWidgets.QMainWindow):
 
             self.runner.start(work, label=f"Opening {os.path.basename(path)}", slot="open",
                               done=lambda out: self._adopt_opened(path, *out),
-                              failed=lambda exc: self.show_error("Cannot open the project", exc),
+                              failed=lambda exc: self.show_error("Cannot open the project", _project_words(exc)),
                               cancelled=lambda: self.set_status("Opening cancelled; nothing was changed."))
             return
 
@@ -316,21 +386,44 @@ class MainWindow(QtWidgets.QMainWindow):
             from regbench.session import Session
 
             progress(0, 2, f"reading {os.path.basename(path)}")
-            table = read_table(path)
+            table = read_table(path, encoding=encoding)
             progress(1, 2, "building the design")
-            return Session.from_table(table, roles or default_roles(table), FitSettings())
+            if roles is not None:
+                return Session.from_table(table, roles, FitSettings()), None
+            start = default_roles(table)
+            if table.columns[start.target].kind not in ("numeric", "boolean"):
+                raise DataError(f"{os.path.basename(path)}: no column of numbers to explain among its "
+                                f"{len(table.names)} column{'s' if len(table.names) != 1 else ''}; open a table "
+                                "with at least one numeric column")
+            usable, note = openable_roles(table, start)
+            return Session.from_table(table, usable, FitSettings()), note
 
-        def opened(session):
+        def opened(out):
+            session, note = out
             # Nothing long starts until the person has looked at the question and pressed Fit.
             self.adopt(session, path=None, dirty=True, fit=roles is not None)
             if roles is None:
                 self.show_panel("data")
-                self.set_status(f"Explaining {session.roles.target} ({TARGET_RULE}); change it in the sentence "
+                self.set_status((note + " " if note else "")
+                                + f"Explaining {session.roles.target} ({TARGET_RULE}); change it in the sentence "
                                 "above, tick the columns to use, then press Fit.")
 
-        self.runner.start(work, label=f"Reading {os.path.basename(path)}", slot="open",
-                          done=opened,
-                          failed=lambda exc: self.show_error("Cannot open the table", exc))
+        def failed(exc):
+            if encoding is None and "not UTF-8" in str(exc):
+                chosen = self.ask_encoding(os.path.basename(path))
+                if chosen:
+                    self.open_path(path, roles, encoding=chosen, confirmed=True)
+                    return
+            self.show_error("Cannot open the table", exc)
+
+        self.runner.start(work, label=f"Reading {os.path.basename(path)}", slot="open", done=opened, failed=failed)
+
+    def ask_encoding(self, name: str) -> Optional[str]:
+        """Ask which text encoding a file that is not UTF-8 uses; None when the person cancels."""
+        choice, ok = QtWidgets.QInputDialog.getItem(
+            self, "Text encoding", f"{name} is not UTF-8 text. Which encoding was it saved in?",
+            list(ENCODINGS), 0, False)
+        return ENCODINGS[choice] if ok and choice in ENCODINGS else None
 
     def _adopt_opened(self, path, session, computed) -> None:
         """Adopt a project read on the worker; install results fitted there (GUI thread)."""
@@ -614,17 +707,51 @@ class MainWindow(QtWidgets.QMainWindow):
         self.set_status(f"Wrote {os.path.basename(path)}.")
         return True
 
-    def copy_table(self) -> str:
+    def _current_view(self):
+        """The table with the keyboard focus, else the current panel's first table."""
         w = QtWidgets.QApplication.focusWidget()
         p = self.current_panel()
         views = p.views() if p is not None else []
-        view = w if isinstance(w, QtWidgets.QTableView) else (views[0] if views else None)
+        return w if isinstance(w, QtWidgets.QTableView) else (views[0] if views else None)
+
+    def copy_table(self) -> str:
+        """Copy the selected cells (or the whole table) at full precision, tab-separated."""
+        view = self._current_view()
         if view is None:
             return ""
         text = view_to_tsv(view)
         QtWidgets.QApplication.clipboard().setText(text)
-        self.set_status(f"Copied {text.count(chr(10)) - 1} rows.")
+        lines = text.count(chr(10)) - 1
+        width = text.split(chr(10), 1)[0].count(chr(9))
+        self.set_status(f"Copied {lines} row{'s' if lines != 1 else ''} × {width} column{'s' if width != 1 else ''} "
+                        "at full precision.")
         return text
+
+    def export_table_dialog(self):
+        view = self._current_view()
+        if view is None:
+            self.show_error("No table here", RegbenchError("this panel has no table; switch to a panel with a table"))
+            return
+        p = self.current_panel()
+        path, _ = QtWidgets.QFileDialog.getSaveFileName(self, "Export table", f"{p.key if p else 'table'}.csv",
+                                                        "CSV (*.csv)")
+        if path:
+            self.export_table(path, view)
+
+    def export_table(self, path: str, view=None) -> bool:
+        """Write a table of the current panel as CSV at full precision."""
+        from regbench.gui.export import export_csv
+
+        view = view or self._current_view()
+        try:
+            if view is None:
+                raise RegbenchError("this panel has no table; switch to a panel with a table")
+            export_csv(view.model(), path)
+        except RegbenchError as exc:
+            self.show_error("Cannot export the table", exc)
+            return False
+        self.set_status(f"Wrote {os.path.basename(path)}.")
+        return True
 
     # == recovery ====================================================================
     def autosave(self) -> bool:
@@ -635,7 +762,8 @@ class MainWindow(QtWidgets.QMainWindow):
         path = recovery_path()
         try:
             os.makedirs(os.path.dirname(path), exist_ok=True)
-            save_project(self.session, path)
+            with self.session.document_state_kept():   # the recovery copy is not the document's file
+                save_project(self.session, path)
         except (RegbenchError, OSError) as exc:
             self.set_status(f"Recovery copy not written: {exc}")
             return False
@@ -694,7 +822,7 @@ class MainWindow(QtWidgets.QMainWindow):
     # == dialogs and status ==========================================================
     def show_error(self, title: str, exc: BaseException) -> None:
         """A clear message in a dialog that does not block the window."""
-        msg = str(exc) or type(exc).__name__
+        msg = _window_words(str(exc) or type(exc).__name__)
         if not isinstance(exc, RegbenchError):
             msg = f"An unexpected problem ({type(exc).__name__}): {msg}. Nothing was changed; please report it."
         self.errors.append(msg)
@@ -733,7 +861,8 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def _update_actions(self):
         has = self.session is not None
-        for a in (self.act_save, self.act_save_as, self.act_report, self.act_plot, self.act_undo, self.act_refit):
+        for a in (self.act_save, self.act_save_as, self.act_report, self.act_plot, self.act_csv, self.act_undo,
+                  self.act_refit):
             a.setEnabled(has)
 
     # == worker feedback =============================================================

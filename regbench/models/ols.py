@@ -712,13 +712,14 @@ def set_aside_sentence(sa: SetAside) -> str:
             return (f"{sa.column} was set aside: it is constant ({format_number(sa.intercept)}) on every "
                     "row with weight, so the intercept already carries it.")
         return (f"{sa.column} was set aside: it is almost constant ({format_number(sa.intercept)}, "
-                f"left over: {_small(sa.residual)}), so the intercept nearly carries it.")
+                f"varying by {_small(sa.residual)} RMS), so the intercept nearly carries it.")
     alts = _join(sa.alternatives, "or")
     expr = combination_text(sa)
     if sa.exact:
-        return (f"{sa.column} was set aside: it equals {expr} exactly (left over: {_small(sa.residual)}); "
+        return (f"{sa.column} was set aside: it equals {expr} exactly (the two differ by {_small(sa.residual)} RMS, "
+                "round-off); "
                 f"keeping it instead of {alts} gives the same predictions.")
     share = 100.0 * sa.relative_residual
-    return (f"{sa.column} was set aside: it almost equals {expr} (left over: {_small(sa.residual)}, "
+    return (f"{sa.column} was set aside: it almost equals {expr} (the two differ by {_small(sa.residual)} RMS, "
             f"{_small(share)}% of its spread, within the rank tolerance); keeping it instead of {alts} "
             "gives almost the same predictions.")

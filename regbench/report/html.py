@@ -329,7 +329,7 @@ def _stress(session) -> str:
             s = res.shifts[n]
             rows.append((model_label(n), "yes" if s.uses_column else "no", num(s.shift_rmse), num(s.mean_shift),
                          pct(s.moved_share), num(s.error_clean), num(s.error_damaged)))
-        parts.append(table(["Model", "Uses the column", "Shift RMSE", "Mean shift",
+        parts.append(table(["Model", f"Uses {res.column}", "RMS shift", "Mean shift",
                             f"Rows moved > {num(res.tolerance)}", "Error before", "Error after"], rows))
         del cfg
     for sw in session.stress_sweeps():

@@ -77,6 +77,7 @@ class AgreementPanel(Panel):
         if ag is None:
             self.set_sentences(["Fit the models to compare their predictions."])
             self.pair_model.set_rows([], [])
+            self.own_model.set_rows([], [])
             self.plot.clear()
             return
         names = list(ag.models)

@@ -47,6 +47,10 @@ class Panel(QtWidgets.QWidget):
     def refresh(self, session) -> None:
         raise NotImplementedError
 
+    def clear(self) -> None:
+        """Forget what was shown for another session (called before a new one is adopted)."""
+        self.set_sentences([])
+
     def plots(self) -> list:
         """pyqtgraph PlotWidgets this panel can export."""
         return []

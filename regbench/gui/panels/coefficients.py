@@ -12,12 +12,13 @@ from regbench.gui.tables import GridModel, WARN_BG, make_view
 from regbench.models.results import model_label
 
 Qt = QtCore.Qt
+INTERCEPT = "(intercept)"
 
 
 class CoefficientsPanel(Panel):
     key = "coefficients"
     title = "How the fits differ: coefficients side by side"
-    nav = "Fits differ · weights"
+    nav = "Fits differ · coefficients"
     uses_comparisons = True
 
     def build(self, body):
@@ -26,11 +27,13 @@ class CoefficientsPanel(Panel):
         self.scale = QtWidgets.QComboBox()
         self.scale.addItem("in table units", "orig")
         self.scale.addItem("standardized (per SD of the column)", "std")
-        self.scale.currentIndexChanged.connect(lambda *_: self.window_._refresh_panel(self))
+        self.scale.currentIndexChanged.connect(lambda *_: self.session is not None and self.refresh(self.session))
         lay.addWidget(hbox(caption("Coefficients"), self.scale, stretch_last=True))
         split = QtWidgets.QSplitter(Qt.Horizontal)
         self.model = GridModel()
         self.view = make_view(self.model)
+        self.view.verticalHeader().sectionClicked.connect(self._row_clicked)
+        self.view.verticalHeader().setToolTip("Click a column's name to follow its path in 'Fits differ · penalty'")
         split.addWidget(self.view)
         self.plot = pg.PlotWidget()
         self.plot.export_name = "standardized coefficients"
@@ -40,6 +43,13 @@ class CoefficientsPanel(Panel):
         split.setSizes([640, 360])
         self.plot.getAxis("bottom").enableAutoSIPrefix(False)
         lay.addWidget(split, 1)
+
+    def _row_clicked(self, row: int) -> None:
+        """A column's name was clicked: highlight its path in the penalty figure."""
+        labels = self.model.row_labels or []
+        if 0 < row < len(labels):
+            self.window_.panel("paths").set_highlight(labels[row])
+            self.window_.set_status(f"{labels[row]} is highlighted in 'Fits differ · penalty'.")
 
     def plots(self):
         return [self.plot]
@@ -74,6 +84,13 @@ class CoefficientsPanel(Panel):
             if n == "ols":
                 headers += ["OLS SE", "OLS p"]
         rows, bg, fg, tips = [], {}, {}, {}
+        # The intercept first, in table units whatever the scale (standardizing leaves it in the target's units).
+        row = []
+        for n in names:
+            row.append(float(models[n].intercept))
+            if n == "ols":
+                row += [float(ols.intercept_se), None]
+        rows.append(row)
         for i, c in enumerate(cols):
             row = []
             for n in names:
@@ -95,7 +112,11 @@ class CoefficientsPanel(Panel):
                         se = se * float(m.coef_std[i] / m.coef[i]) if m.coef[i] != 0 else float("nan")
                     row += [se, float(ols.p_values[i])]
             rows.append(row)
-        self.model.set_rows(rows, headers, row_labels=cols, backgrounds=bg, foregrounds=fg, tips=tips)
+        shift = {(r + 1, k): v for d in (bg,) for (r, k), v in d.items()}
+        bg = shift
+        fg = {(r + 1, k): v for (r, k), v in fg.items()}
+        tips = {(r + 1, k): v for (r, k), v in tips.items()}
+        self.model.set_rows(rows, headers, row_labels=[INTERCEPT] + cols, backgrounds=bg, foregrounds=fg, tips=tips)
         self.view.resizeColumnsToContents()
         self._draw(models, cols)
         st = session.structure()

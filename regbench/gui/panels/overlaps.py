@@ -104,6 +104,9 @@ class OverlapsPanel(Panel):
         design = session.design
         self._draw_corr(design)
         if results is None:
+            self.aside_text.clear()
+            self.vif_model.set_rows([], [])
+            self.ci_model.set_rows([], [])
             self.set_sentences(["Fit the models to see which columns OLS sets aside."])
             return
         ols, diag = results.ols, results.diagnostics
@@ -145,8 +148,9 @@ class OverlapsPanel(Panel):
         if design is None or design.p == 0:
             self.image.clear()
             return
-        if self._corr is not None and self._corr_cols == design.columns and self._corr_n == design.n:
+        if self._corr is not None and getattr(self, "_corr_design", None) is design:
             return
+        self._corr_design = design
         X = design.X
         if design.n > 200_000:  # a seeded row sample keeps the map quick on big tables
             rows = np.random.default_rng(0).choice(design.n, 200_000, replace=False)

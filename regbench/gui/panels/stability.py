@@ -56,7 +56,7 @@ class StabilityPanel(Panel):
             self.model.set_rows([], [])
             self.plot.clear()
             self.note.setText("")
-            self.set_sentences(["No bootstrap refits yet: set 'Stability refits' in the roles panel above 0 and refit."
+            self.set_sentences(["No bootstrap refits yet: set 'Stability refits' above 0 under Settings (top right), then press Fit."
                                 if session.results is not None else "Fit the models to check their stability."])
             return
         self.note.setText("" if session.stability_current else

@@ -23,6 +23,26 @@ KIND_WORDS = {
 }
 
 
+#: Damage that means something for a column of categories (codes or text): no unit, no spread.
+CATEGORY_KINDS = ("shuffle", "constant", "missing")
+
+
+def kinds_for(session, column: str) -> tuple:
+    """The kinds of damage that make sense for ``column``: rescaling or adding noise to category codes does not."""
+    from regbench.analysis.stress import KINDS
+    from regbench.data.table import BOOLEAN, CATEGORICAL
+
+    if session is None or not column:
+        return KINDS
+    try:
+        info = session.columns_table.columns[column] if hasattr(session, "columns_table") else session.table.columns[column]
+    except KeyError:
+        return KINDS
+    if info.kind in (CATEGORICAL, BOOLEAN) or column in session.roles.categorical:
+        return CATEGORY_KINDS
+    return KINDS
+
+
 class StressPanel(Panel):
     key = "stress"
     title = "When an input breaks: the stress test"
@@ -40,6 +60,7 @@ class StressPanel(Panel):
         for k in KINDS:
             self.kind.addItem(KIND_WORDS.get(k, k), k)
         self.kind.currentIndexChanged.connect(self._kind_changed)
+        self.column.currentIndexChanged.connect(self._offer_kinds)
         self.use_default = QtWidgets.QCheckBox("default")
         self.use_default.setChecked(True)
         self.strength = QtWidgets.QDoubleSpinBox()
@@ -60,7 +81,7 @@ class StressPanel(Panel):
         self.history = QtWidgets.QComboBox()
         self.history.setMinimumWidth(220)
         self.history.currentIndexChanged.connect(self._show_history)
-        lay.addWidget(hbox(self.run_btn, self.rank_btn, caption("Tests kept in this session"), self.history,
+        lay.addWidget(hbox(self.run_btn, self.rank_btn, caption("Kept tests"), self.history,
                            stretch_last=True))
         split = QtWidgets.QSplitter(Qt.Horizontal)
         left = QtWidgets.QWidget()
@@ -70,7 +91,8 @@ class StressPanel(Panel):
         self.shift_model = GridModel()
         self.shift_view = make_view(self.shift_model)
         ll.addWidget(self.shift_view, 1)
-        ll.addWidget(caption("Every column damaged in turn (shift RMS of predictions)"))
+        self.rank_caption = caption("Every column damaged in turn (RMS shift of predictions)")
+        ll.addWidget(self.rank_caption)
         self.rank_model = GridModel()
         self.rank_view = make_view(self.rank_model)
         ll.addWidget(self.rank_view, 1)
@@ -81,11 +103,42 @@ class StressPanel(Panel):
         self.plot.setLabel("left", "RMS shift of predictions")
         self.plot.getAxis("left").enableAutoSIPrefix(False)
         split.addWidget(self.plot)
-        split.setSizes([560, 440])
+        split.setSizes([700, 460])
         lay.addWidget(split, 1)
         self.result = None
         self.sweep = None
         self.ranking = None
+        self._rank_request = None    # (kind, strength, seed) the person asked to rank by
+        self._rankings = {}          # session key -> ranking at those choices (undo brings one back)
+        self._rank_job_key = None
+        self._kind_changed()
+
+    def clear(self):
+        """Forget everything shown for another session (a new table must not show the old results)."""
+        self.result = self.sweep = self.ranking = None
+        self._rank_request = None
+        self._rankings = {}
+        self._rank_job_key = None
+        self.shift_model.set_rows([], [])
+        self.rank_model.set_rows([], [])
+        self.history.clear()
+        self.column.clear()
+        self.plot.clear()
+        self.set_sentences([])
+
+    def _offer_kinds(self, *_):
+        """Only the damage that makes sense for the chosen column's kind."""
+        from regbench.analysis.stress import KINDS
+
+        allowed = kinds_for(self.session, self.column.currentText())
+        current = self.kind.currentData()
+        self.kind.blockSignals(True)
+        self.kind.clear()
+        for k in KINDS:
+            if k in allowed:
+                self.kind.addItem(KIND_WORDS.get(k, k), k)
+        self.kind.setCurrentIndex(max(0, self.kind.findData(current)))
+        self.kind.blockSignals(False)
         self._kind_changed()
 
     def plots(self):
@@ -159,27 +212,55 @@ class StressPanel(Panel):
         return False
 
     def rank(self):
+        """Damage every column in turn (with the kind chosen) and rank them; kept across α changes and undo."""
         session = self.session
         if session is None or session.results is None:
             return
-        if not self._models_ready(session):
+        strength = None if self.use_default.isChecked() else float(self.strength.value())
+        self._rank_request = (self.kind.currentData(), strength, int(self.seed.value()))
+        self._rankings = {}
+        self._start_ranking(session)
+
+    def _start_ranking(self, session):
+        if self._rank_request is None or not self._models_ready(session):
+            return
+        key = session.key()
+        if key in self._rankings or self._rank_job_key == key:
             return
         design, models = session.design, session.models()
-        kind = self.kind.currentData()
-        strength = None if self.use_default.isChecked() else float(self.strength.value())
-        seed = int(self.seed.value())
+        kind, strength, seed = self._rank_request
+        columns = tuple(c for c in dict.fromkeys(design.sources) if kind in kinds_for(session, c))
+        if not columns:
+            self.window_.set_status(f"No column can take '{KIND_WORDS.get(kind, kind)}'.")
+            return
 
         def work(progress, cancel):
             from regbench.analysis.stress import rank_columns
 
-            return rank_columns(design, models, kind=kind, strength=strength, seed=seed, progress=progress, cancel=cancel)
+            return rank_columns(design, models, kind=kind, strength=strength, seed=seed, columns=columns,
+                                progress=progress, cancel=cancel)
 
         def done(rk):
-            self.ranking = rk
-            self._show_ranking(rk)
-            self.set_sentences(list(rk.sentences[:3]))
+            self._rank_job_key = None
+            if self.session is not session:
+                return
+            self._rankings[key] = rk
+            if session.key() == key:
+                self.ranking = rk
+                self._show_ranking(rk)
+                self.set_sentences(list(rk.sentences[:3]))
+            else:
+                self._start_ranking(session)
 
-        self.window_.run_job(work, "Ranking the columns", done, slot="stress")
+        def stopped(exc=None):
+            if self._rank_job_key == key:
+                self._rank_job_key = None
+            if exc is not None:
+                self.window_.show_error("Ranking the columns did not finish", exc)
+
+        self._rank_job_key = key
+        self.window_.runner.start(work, label="Ranking the columns", slot="rank", done=done,
+                                  failed=stopped, cancelled=stopped)
 
     # -- display ------------------------------------------------------------------------
     def refresh(self, session):
@@ -192,6 +273,7 @@ class StressPanel(Panel):
         if cur in cols:
             self.column.setCurrentText(cur)
         self.column.blockSignals(False)
+        self._offer_kinds()
         if session.results is None:
             self.set_sentences(["Fit the models, then damage one input to see which model moves."])
             return
@@ -207,8 +289,15 @@ class StressPanel(Panel):
             self._show_history()
         else:
             self.set_sentences(["No stress test yet: choose a column and a kind of damage, then Run."])
-        if self.ranking is not None and self.ranking.models == tuple(session.models()):
-            self._show_ranking(self.ranking)
+        if self._rank_request is not None:
+            rk = self._rankings.get(session.key())
+            if rk is not None:
+                self.ranking = rk
+                self._show_ranking(rk)
+            else:
+                # The models moved (a new α, an undo): rank again at the new choices, saying so meanwhile.
+                self.rank_model.set_rows([["ranking again for the models now chosen…"]], ["Column"])
+                self._start_ranking(session)
 
     def _show_history(self, *_):
         session = self.session
@@ -236,8 +325,9 @@ class StressPanel(Panel):
                          s.moved_share, s.error_clean, s.error_damaged])
             if worst > 0 and s.shift_rmse == worst:
                 bg[(r, 2)] = WARN_BG
-        self.shift_model.set_rows(rows, ["Model", "Uses it", "RMS shift", "Mean shift", "Share moved",
-                                         "Error before", "Error after"], backgrounds=bg)
+        self.shift_model.set_rows(rows, ["Model", f"Uses {res.config.column}", "RMS shift", "Mean shift",
+                                         "Rows moved", "Error before", "Error after"], backgrounds=bg,
+                                  percent_cols=(4,))
         self.shift_view.resizeColumnsToContents()
         self.plot.clear()
         legend = self.plot.getPlotItem().legend or self.plot.addLegend(offset=(10, 10), labelTextSize="8pt")
@@ -258,4 +348,6 @@ class StressPanel(Panel):
         order = np.argsort(-shift.max(axis=0))
         rows = [[rk.columns[j]] + [float(shift[i, j]) for i in range(len(rk.models))] for j in order]
         self.rank_model.set_rows(rows, ["Column"] + [model_label(n) for n in rk.models])
+        self.rank_caption.setText(f"Every column damaged in turn ({KIND_WORDS.get(rk.kind, rk.kind)}): "
+                                  "RMS shift of predictions")
         self.rank_view.resizeColumnsToContents()
