@@ -111,6 +111,9 @@ def build_parser() -> argparse.ArgumentParser:
     _add_table_options(p)
     p.add_argument("-o", "--output", required=True, help="project file to write (.regbench)")
     p.add_argument("--bootstrap", type=int, default=200, help="stability refits (default 200; 0 to skip)")
+    p.add_argument("--chosen-alpha", action="append", default=[], metavar="MODEL=ALPHA",
+                   help="show a penalized model at an α chosen by hand instead of the cross-validated one, "
+                        "repeatable, e.g. ridge=0.5 (the window's α handle)")
 
     p = sub.add_parser("inspect", help="show what a project file holds and check its table hash")
     p.add_argument("project")
@@ -289,6 +292,15 @@ def cmd_new(args) -> int:
     _refuse_out_of_memory(args, "a project (it keeps its table inside)")
     session = Session.from_table_file(args.table, roles_from_args(args), settings_from_args(args),
                                       encoding=args.encoding, sheet=args.sheet)
+    for text in args.chosen_alpha:
+        name, sep, value = text.partition("=")
+        try:
+            alpha = float(value)
+        except ValueError:
+            alpha = None
+        if not sep or alpha is None:
+            raise RegbenchError(f"--chosen-alpha: '{text}' is not MODEL=ALPHA; e.g. ridge=0.5")
+        session.set_alpha(name.strip(), alpha)
     session.compute(progress=_progress_to_stderr, bootstrap=args.bootstrap)
     save_project(session, args.output)
     sys.stdout.write(f"saved {args.output}: {session.design.n} rows used, {len(session.design.excluded)} excluded\n")

@@ -1030,3 +1030,20 @@ def test_a_table_wider_than_long_opens(qtbot, tmp_path):
     assert w.session is not None and w.session.roles.target == "y" and w.errors == []
     assert w.panel("data").columns_model.rowCount() == p + 1
     close_quietly(w)
+
+
+def test_clicking_a_column_name_highlights_its_path_and_help_uses_menu_names(gh):
+    from regbench.gui.help import help_html
+
+    gh.show_panel("coefficients")
+    coef = gh.panel("coefficients")
+    row = coef.model.row_labels.index("light_hours")
+    coef.view.verticalHeader().sectionClicked.emit(row)
+    paths = gh.panel("paths")
+    assert paths.highlight.currentData() == "light_hours"
+    gh.show_panel("paths")
+    assert paths.figure.data.highlight == "light_hours"
+    html = help_html()
+    for p in gh.panels:   # the help names each panel as the list and the View menu do
+        assert f"<b>{p.nav}</b>" in html
+    assert [a.text() for a in gh.view_menu.actions() if a.text()][:len(gh.panels)] == [p.nav for p in gh.panels]

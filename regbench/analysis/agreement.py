@@ -284,7 +284,7 @@ def _sentences(design, names, pairs, own, units, tiny_share) -> tuple:
     if len(use) > 1:
         n_tiny = sum(r < tiny_share for r in verdicts)
         if n_tiny == len(use):
-            out.insert(0, f"All {len(names)} models predict {design.target} interchangeably on "
+            out.insert(0, f"All {len(names)} models give practically the same predictions of {design.target} on "
                           f"{_rows_words(design, split)}: every pair differs by less than {tiny_share:.0%} of its own error.")
         elif n_tiny == 0 and all(r >= SMALL_SHARE for r in verdicts):
             out.insert(0, f"No two models predict {design.target} alike on {_rows_words(design, split)}.")

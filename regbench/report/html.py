@@ -18,6 +18,7 @@ import numpy as np
 from regbench import __version__
 from regbench.formatting import number_text
 from regbench.models.results import model_label
+from regbench.palette import model_colour
 from regbench.report import svg
 
 #: Section ids and headings, in the order the report shows them.
@@ -178,7 +179,7 @@ def _question(session) -> str:
                                                                    "beside the first)"),
             ("Categorical marks", ", ".join(r.categorical) or "none"),
             ("Row weights", r.weights or "none (every row counts once)"),
-            ("Groups kept together", f"{r.groups} ({len(d.group_labels)} groups)" if r.groups else "none")]
+            ("Held-out groups", f"{r.groups} ({len(d.group_labels)} groups)" if r.groups else "none")]
     parts.append(table(None, info))
     parts.append("<h3>Rows left out, and why</h3>")
     if d.excluded:
@@ -262,7 +263,7 @@ def _fits(session) -> str:
                  "elastic net: not selected at this α).</p>")
     groups = [(model_label(n), models[n].coef_std) for n in names]
     parts.append(figure(svg.bar_chart(list(res.columns), groups, title="Standardized coefficients by model",
-                                      ylabel="coefficient × column SD"),
+                                      ylabel="coefficient × column SD", colours=[model_colour(n) for n in names]),
                         "Standardized so columns in different units compare."))
     return "".join(parts)
 
@@ -335,7 +336,8 @@ def _stress(session) -> str:
     for sw in session.stress_sweeps():
         series = [(model_label(n), sw.strengths, sw.shift_rmse[n]) for n in sw.models]
         parts.append(figure(svg.line_chart(series, title=f"{sw.column}: {sw.kind} at increasing strength",
-                                           xlabel=f"{sw.kind} strength", ylabel="prediction shift (RMSE)"),
+                                           xlabel=f"{sw.kind} strength", ylabel="RMS shift of predictions",
+                                           colours=[model_colour(n) for n in sw.models]),
                             "How far each model's predictions move as the damage grows; a flat line at 0 "
                             "means the model does not use the column."))
         parts.append(sentences(sw.sentences))
@@ -361,7 +363,8 @@ def _stability(session) -> str:
     if sel:
         parts.append(figure(svg.bar_chart(list(st.columns), [(model_label(m), st.selected_freq[m]) for m in sel],
                                           title="Share of refits in which a column is selected",
-                                          ylabel="share of refits (1 = every refit)"),
+                                          ylabel="share of refits (1 = every refit)",
+                                          colours=[model_colour(m) for m in sel]),
                             "A column selected in about half the refits is a toss-up between overlapping columns."))
     parts.append("<h3>How far each coefficient moves (5–95% of refits, original units)</h3>")
     models = [m for m in st.models if m in st.coef_q05]
@@ -437,6 +440,10 @@ def _command(session) -> str:
         args += ["--alpha", repr(float(s.alpha))]
     if s.pins:
         args += ["--pin", ",".join(s.pins)]
+    for d in getattr(r, "derived", ()):
+        args += ["--derive", d.spec]
+    for name, alpha in sorted(session.chosen_alpha.items()):
+        args += ["--chosen-alpha", f"{name}={float(alpha)!r}"]
     args += ["--bootstrap", str(session.bootstrap), "-o", "project.regbench"]
     return " ".join(shlex.quote(a) for a in args)
 

@@ -11,9 +11,8 @@ from html import escape
 
 import numpy as np
 
-#: Our palette: distinguishable in print and for common colour-vision deficiencies.
-PALETTE = ("#1f5f8b", "#c8553d", "#2e8b57", "#8a5a9e", "#d4a017", "#4a4a4a", "#0f9bb0", "#a0522d",
-           "#6b8e23", "#b03060")
+#: Lines that are not models take the window's column colours.
+from regbench.palette import SERIES as PALETTE  # noqa: E402
 
 DASHES = ("6 3", "2 2", "8 3 2 3")
 
@@ -45,7 +44,7 @@ def _ticks(lo: float, hi: float, n: int = 5):
 
 
 def line_chart(series, *, title: str, xlabel: str, ylabel: str, log_x: bool = False, vlines=(), band=None,
-               hline=None) -> str:
+               hline=None, colours=None) -> str:
     """An SVG line chart.
 
     Parameters
@@ -57,6 +56,8 @@ def line_chart(series, *, title: str, xlabel: str, ylabel: str, log_x: bool = Fa
         Marked positions (e.g. the chosen α).
     band : (xs, lo, hi) or None
         A shaded band (e.g. CV mean ± one standard error).
+    colours : list of str, optional
+        One colour per series (the window's model colours); default the shared column colours.
     """
     def tx(x):
         return np.log10(x) if log_x else np.asarray(x, dtype=float)
@@ -120,7 +121,7 @@ def line_chart(series, *, title: str, xlabel: str, ylabel: str, log_x: bool = Fa
     for k, (label, xs, ys) in enumerate(series):
         x, y = tx(np.asarray(xs, dtype=float)), np.asarray(ys, dtype=float)
         ok = np.isfinite(x) & np.isfinite(y)
-        colour = PALETTE[k % len(PALETTE)]
+        colour = colours[k] if colours is not None and k < len(colours) else PALETTE[k % len(PALETTE)]
         # Past the palette, lines repeat a colour with a dash pattern so each stays distinct.
         dash = "" if k < len(PALETTE) else f' stroke-dasharray="{DASHES[(k // len(PALETTE) - 1) % len(DASHES)]}"'
         if ok.sum() >= 2:
@@ -149,7 +150,7 @@ def line_chart(series, *, title: str, xlabel: str, ylabel: str, log_x: bool = Fa
     return "".join(out)
 
 
-def bar_chart(categories, groups, *, title: str, ylabel: str) -> str:
+def bar_chart(categories, groups, *, title: str, ylabel: str, colours=None) -> str:
     """Horizontal grouped bars: one row per category, one bar per group.
 
     Parameters
@@ -158,7 +159,10 @@ def bar_chart(categories, groups, *, title: str, ylabel: str) -> str:
         Row labels (e.g. design columns).
     groups : list of (label, values)
         One series per model, values aligned with ``categories``.
+    colours : list of str, optional
+        One colour per group (the window's model colours).
     """
+    colour_of = (lambda k: colours[k]) if colours is not None else (lambda k: PALETTE[k % len(PALETTE)])
     n, g = len(categories), max(len(groups), 1)
     row_h = max(10, 6 * g + 6)
     left, right = 190, 160
@@ -195,10 +199,10 @@ def bar_chart(categories, groups, *, title: str, ylabel: str) -> str:
                 continue
             a, b = sorted((px(0), px(v)))
             out.append(f'<rect x="{a:.1f}" y="{y + 3 + k * bh:.1f}" width="{max(b - a, 0.6):.1f}" '
-                       f'height="{bh - 0.5:.1f}" fill="{PALETTE[k % len(PALETTE)]}"/>')
+                       f'height="{bh - 0.5:.1f}" fill="{colour_of(k)}"/>')
     for k, (label, _) in enumerate(groups[:12]):
         ly = top + 10 + 15 * k
-        out.append(f'<rect x="{left + pw + 12}" y="{ly - 6}" width="12" height="8" fill="{PALETTE[k % len(PALETTE)]}"/>')
+        out.append(f'<rect x="{left + pw + 12}" y="{ly - 6}" width="12" height="8" fill="{colour_of(k)}"/>')
         out.append(f'<text x="{left + pw + 28}" y="{ly + 2}" class="lg">{escape(_short(label))}</text>')
     out.append(f'<text x="{left + pw / 2:.1f}" y="{height - 6}" text-anchor="middle" class="al">{escape(ylabel)}</text>')
     out.append("</svg>")

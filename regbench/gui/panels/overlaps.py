@@ -88,7 +88,7 @@ class OverlapsPanel(Panel):
         split.addWidget(self.tabs)
         split.setStretchFactor(0, 1)
         split.setStretchFactor(1, 1)
-        split.setSizes([380, 440])   # room for the VIF table's explanation column
+        split.setSizes([560, 480])   # room for the VIF table's explanation column
         lay.addWidget(split)
         self._corr = None
         self._corr_cols = ()
