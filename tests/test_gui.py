@@ -1040,8 +1040,8 @@ def test_clicking_a_column_name_highlights_its_path_and_help_uses_menu_names(gh)
     row = coef.model.row_labels.index("light_hours")
     coef.view.verticalHeader().sectionClicked.emit(row)
     paths = gh.panel("paths")
-    assert paths.highlight.currentData() == "light_hours"
     gh.show_panel("paths")
+    assert paths.highlight.currentData() == "light_hours"
     assert paths.figure.data.highlight == "light_hours"
     html = help_html()
     for p in gh.panels:   # the help names each panel as the list and the View menu do
