@@ -163,10 +163,12 @@ class OverlapsPanel(Panel):
         self.image.setImage(np.nan_to_num(C.T), levels=(-1, 1))
         p = design.p
         short = [c if len(c) <= 18 else c[:16] + "…" for c in design.columns]
-        step = 1 if p <= 40 else max(1, p // 20)
-        # Names down the side, their numbers along the bottom (long names would collide there).
-        self.corr_plot.getAxis("left").setTicks([[(j + 0.5, f"{short[j]}  {j + 1}") for j in range(0, p, step)]])
-        self.corr_plot.getAxis("bottom").setTicks([[(j + 0.5, str(j + 1)) for j in range(0, p, step)]])
+        # Names down the side, their numbers along the bottom (long names would collide there); beyond what
+        # the map's height and width hold, every k-th label only, so they never run together.
+        side = 1 if p <= 30 else -(-p // 30)
+        bottom = 1 if p <= 20 else -(-p // 20)
+        self.corr_plot.getAxis("left").setTicks([[(j + 0.5, f"{short[j]}  {j + 1}") for j in range(0, p, side)]])
+        self.corr_plot.getAxis("bottom").setTicks([[(j + 0.5, str(j + 1)) for j in range(0, p, bottom)]])
         self.corr_plot.setRange(xRange=(0, p), yRange=(0, p), padding=0)
 
     def _hover(self, pos):
