@@ -140,7 +140,12 @@ class RoleDraft(QtCore.QObject):
 
     @property
     def names(self) -> list:
-        return list(self.table.names) if self.table is not None else []
+        """The column names (kept: the data view asks for them per cell)."""
+        if self.table is None:
+            return []
+        if getattr(self, "_names_of", None) is not self.table:
+            self._names, self._names_of = [str(c) for c in self.table.names], self.table
+        return self._names
 
     def role_of(self, name: str) -> Optional[str]:
         if name == self.target:
