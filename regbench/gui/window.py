@@ -20,14 +20,14 @@ MAX_RECENT = 8
 AUTOSAVE_MS = 60_000
 
 
-#: The panels each kind of session change redraws; a kind not listed redraws every panel.  Panels that
-#: read the comparisons at the chosen α are redrawn when the worker installs them ("results").
+#: The panels each kind of session change marks out of date ("comparisons": every panel that reads the
+#: models at the chosen α, redrawn once the worker has them); a kind not listed marks every panel.
 REDRAWS = {
     "notes": (),
     "view_state": (),
     "saved": (),
-    "alpha": ("paths", "stability"),
-    "extra_fits": ("paths",),
+    "alpha": ("paths", "stability", "comparisons"),
+    "extra_fits": ("paths", "comparisons"),
     "stress": ("stress",),
     "bootstrap": ("stability",),
 }
@@ -351,7 +351,7 @@ class MainWindow(QtWidgets.QMainWindow):
         if keys is None:
             self.refresh_all()
             return
-        self._stale |= {p.key for p in self.panels if p.key in keys}
+        self._stale |= {p.key for p in self.panels if p.key in keys or ("comparisons" in keys and p.uses_comparisons)}
         if keys and not self._refresh_pending:
             self._refresh_pending = True
             QtCore.QTimer.singleShot(0, self._do_refresh)
