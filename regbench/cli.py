@@ -45,6 +45,10 @@ def _add_table_options(p: argparse.ArgumentParser, table: bool = True) -> None:
     p.add_argument("--groups", help="column whose groups stay together in held-out checks")
     p.add_argument("--encoding", help="text encoding of a CSV/TSV file (default UTF-8)")
     p.add_argument("--sheet", help="Excel sheet (default: the first)")
+    p.add_argument("--decimal", choices=(".", ","), default=".",
+                   help="decimal mark of numbers written in text cells (default '.'; ',' for 3,5)")
+    p.add_argument("--thousands", choices=(",", ".", " ", "'"),
+                   help="thousands separator to remove from numbers written in text cells (default: none)")
     _add_settings_options(p)
     p.add_argument("--memory-budget", metavar="SIZE",
                    help="memory the table may take, e.g. 500MB or 2GB; a larger Parquet/CSV table (or a folder "
@@ -176,8 +180,31 @@ def roles_from_args(args):
 def load_design(args):
     from regbench.data import build_design, read_table
 
-    table = read_table(args.table, encoding=args.encoding, sheet=args.sheet)
+    table = read_table(args.table, **_read_options(args))
     return table, build_design(table, roles_from_args(args))
+
+
+def _read_options(args) -> dict:
+    return {"encoding": args.encoding, "sheet": args.sheet, "decimal": args.decimal, "thousands": args.thousands}
+
+
+#: The core's neutral advice, with the flag that does it on the command line.
+_HINTS = (
+    ("choose the file's real text encoding", " (--encoding NAME)"),
+    ("or choose its text encoding", " (--encoding NAME)"),
+    ("read the file with a decimal comma", " (--decimal ,)"),
+    ("read the file with ',' as the thousands separator", " (--thousands ,)"),
+    ("choose the sheet", " (--sheet NAME)"),
+)
+
+
+def _with_flags(text: str) -> str:
+    for phrase, flag in _HINTS:
+        at = text.find(phrase)
+        if at >= 0 and flag not in text:
+            end = at + len(phrase)
+            text = text[:end] + flag + text[end:]
+    return text
 
 
 def write_json(obj, where: Optional[str]) -> None:
@@ -221,9 +248,10 @@ def _out_of_memory_route(args):
 def _stream_fit(args, settings, budget, cluster):
     from regbench.data.stream import stream_fit
 
-    if getattr(args, "encoding", None) or getattr(args, "sheet", None):
-        raise RegbenchError("--encoding and --sheet apply to tables read in memory; the streamed route reads "
-                            "UTF-8 CSV and Parquet")
+    if (getattr(args, "encoding", None) or getattr(args, "sheet", None) or getattr(args, "decimal", ".") != "."
+            or getattr(args, "thousands", None)):
+        raise RegbenchError("--encoding, --sheet, --decimal and --thousands apply to tables read in memory; the "
+                            "streamed route reads UTF-8 CSV with '.' decimals and Parquet")
     if cluster:
         from regbench.cluster import cluster_fit
 
@@ -274,8 +302,9 @@ def cmd_stress(args) -> int:
     from regbench.analysis.stress import stress_command
 
     _refuse_out_of_memory(args, "the stress test")
+    settings = settings_from_args(args)
     _, design = load_design(args)
-    out = stress_command(design, settings_from_args(args), column=args.column, all_columns=args.all_columns,
+    out = stress_command(design, settings, column=args.column, all_columns=args.all_columns,
                          kind=args.kind, strength=args.strength, seed=args.seed, tolerance=args.tolerance,
                          progress=_progress_to_stderr)
     if args.json:
@@ -290,8 +319,8 @@ def cmd_new(args) -> int:
     from regbench.project import save_project
 
     _refuse_out_of_memory(args, "a project (it keeps its table inside)")
-    session = Session.from_table_file(args.table, roles_from_args(args), settings_from_args(args),
-                                      encoding=args.encoding, sheet=args.sheet)
+    settings = settings_from_args(args)
+    session = Session.from_table_file(args.table, roles_from_args(args), settings, **_read_options(args))
     for text in args.chosen_alpha:
         name, sep, value = text.partition("=")
         try:
@@ -373,8 +402,17 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
                 return COMMANDS[args.command](args)
         return COMMANDS[args.command](args)
     except RegbenchError as exc:
-        sys.stderr.write(f"regbench {args.command}: {exc}\n")
+        sys.stderr.write(f"regbench {args.command}: {_with_flags(str(exc))}\n")
         return EXIT_USAGE
     except KeyboardInterrupt:
         sys.stderr.write(f"regbench {args.command}: interrupted\n")
         return 130
+    except MemoryError:
+        sys.stderr.write(f"regbench {args.command}: ran out of memory; use a smaller table or fewer α values, "
+                         "folds or refits\n")
+        return EXIT_USAGE
+    except OSError as exc:  # a file the command reads or writes: name it, no traceback
+        where = f" {exc.filename}" if getattr(exc, "filename", None) else ""
+        sys.stderr.write(f"regbench {args.command}: cannot read or write{where}: {exc.strerror or exc}; "
+                         "check the path, its permissions and the free space\n")
+        return EXIT_USAGE

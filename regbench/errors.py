@@ -7,8 +7,28 @@ one line and exits with status 2; the GUI shows it in a dialog.
 """
 
 
+import re
+
+_CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f\u2028\u2029]")
+
+
+def one_line(text) -> str:
+    """``text`` on one line: line breaks and other control characters (from a file's cell or
+    column name, or a library's message) shown as escapes, runs of spaces kept short."""
+    text = str(text)
+    if _CONTROL.search(text):
+        text = _CONTROL.sub(lambda m: {"\n": "\\n", "\r": "\\r", "\t": " "}.get(m.group(), f"\\x{ord(m.group()):02x}"
+                                       if ord(m.group()) < 256 else f"\\u{ord(m.group()):04x}"), text)
+    return text
+
+
 class RegbenchError(Exception):
-    """Base class for errors a person can act on."""
+    """Base class for errors a person can act on.  The message is kept to one line."""
+
+    def __init__(self, *args):
+        if args:
+            args = (one_line(args[0]),) + args[1:]
+        super().__init__(*args)
 
 
 class DataError(RegbenchError):

@@ -188,10 +188,10 @@ class Session:
     # -- constructors --------------------------------------------------------------------
 
     @classmethod
-    def from_table_file(cls, path, roles, settings=None, encoding=None, sheet=None) -> "Session":
+    def from_table_file(cls, path, roles, settings=None, encoding=None, sheet=None, **read_options) -> "Session":
         from regbench.data.reader import read_table
 
-        return cls(read_table(path, encoding=encoding, sheet=sheet), roles, settings)
+        return cls(read_table(path, encoding=encoding, sheet=sheet, **read_options), roles, settings)
 
     @classmethod
     def from_table(cls, table: Table, roles, settings=None) -> "Session":

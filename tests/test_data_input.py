@@ -215,7 +215,7 @@ def test_missing_file_and_unknown_type(tmp_path):
 
 
 def test_ragged_row_is_named(tmp_path):
-    with pytest.raises(DataError, match=r"r\.csv: data row 2 has 4 cells but the header has 2"):
+    with pytest.raises(DataError, match=r"r\.csv: data row 2 \(line 3\) has 4 cells but the header has 2"):
         read_table(write(tmp_path, "r.csv", "y,x\n1,2\n3,4,5,6\n"))
 
 
@@ -259,7 +259,9 @@ def test_fast_and_careful_csv_readers_agree(tmp_path, monkeypatch):
     assert fast.names == careful.names
     assert fast.columns == careful.columns
     pd.testing.assert_frame_equal(fast.frame, careful.frame)
-    assert fast.columns["x"].bad_cells == ((4, "oops"),)
+    # Row numbers count the blank line (row 5 is the fifth line under the header), as a spreadsheet shows it.
+    assert fast.columns["x"].bad_cells == ((5, "oops"),)
+    assert fast.line_numbers == careful.line_numbers == (1, 2, 4, 5, 6, 7)
     assert fast.frame["x"].tolist()[:2] == [2.0, 3.0] and fast.frame["x"].iat[4] == -7.0
 
 

@@ -72,7 +72,8 @@ class Roles:
 
 @dataclass(frozen=True)
 class ExcludedRow:
-    """A row left out of the fit. ``row`` is 1-based among the table's data rows."""
+    """A row left out of the fit. ``row`` counts the lines below the header, blank lines
+    included (row 1 is the first line under the header)."""
 
     row: int
     column: str
@@ -118,6 +119,9 @@ class Design:
     group_labels : tuple of str
         The text of each group code.
     weights_column, groups_column : str or None
+    column_notes : tuple of (column, note, read_as_text)
+        How the reader read columns of the table when that needs saying (percentages,
+        decimal commas, a column that looks numeric read as text and why).
     """
 
     X: np.ndarray
@@ -136,6 +140,7 @@ class Design:
     n_table_rows: int = 0
     #: The derived columns (regbench.data.derive.Derived) applied before the design was built.
     derived: tuple = ()
+    column_notes: tuple = ()
 
     @property
     def n(self) -> int:
@@ -240,26 +245,39 @@ def build_design(table: Table, roles: Roles) -> Design:
         table.info(col)
     if roles.weights is not None and roles.weights == roles.target:
         raise DataError(f"column '{roles.target}' cannot be both the target and the weights")
+    for label, col in (("target", roles.target), ("weights", roles.weights), ("groups", roles.groups)):
+        if col is not None and col in roles.predictors:
+            raise DataError(f"{src}: column '{col}' is the {label} and is also named among the predictors; "
+                            f"remove it from the predictors (or choose another {label})")
     tinfo = table.info(roles.target)
+    notes = tuple((c, table.columns[c].note, table.columns[c].kind == CATEGORICAL)
+                  for c in table.names if getattr(table.columns[c], "note", ""))
     if tinfo.kind not in (NUMERIC, BOOLEAN):
         numeric = [c for c in table.names if table.columns[c].kind == NUMERIC]
+        why = f" (it {tinfo.note})" if getattr(tinfo, "note", "") else ""
         raise DataError(
-            f"{src}: target '{roles.target}' is {tinfo.kind}, not numeric; choose a numeric target"
+            f"{src}: target '{roles.target}' is {tinfo.kind}, not numeric{why}; choose a numeric target"
             + (f" (numeric columns: {', '.join(numeric)})" if numeric else " (the table has no numeric column)")
         )
     predictors = roles.predictors or default_predictors(table, roles)
     unusable = []
     if not roles.predictors:
         for c in table.names:
-            if c not in {roles.target, roles.weights, roles.groups} and looks_like_identifier(table, c):
+            if c in {roles.target, roles.weights, roles.groups}:
+                continue
+            if looks_like_identifier(table, c):
+                why = f" ({table.columns[c].note})" if table.columns[c].note else ""
                 unusable.append(UnusableColumn(
-                    c, f"text with {table.columns[c].distinct} different values looks like an identifier; "
+                    c, f"text with {table.columns[c].distinct} different values looks like an identifier{why}; "
                        "not used by default (name it among the predictors to use it)"))
+            elif table.columns[c].kind == EMPTY:
+                unusable.append(UnusableColumn(c, "every cell is empty"))
     predictors = tuple(c for c in predictors if c not in {roles.target, roles.weights, roles.groups})
     if not predictors:
         raise DataError(f"{src}: no predictor columns; choose at least one column besides the target")
     frame = table.frame
     n = len(frame)
+    rn = table.row_numbers if hasattr(table, "row_numbers") else np.arange(1, n + 1)
     reasons: dict = {}
 
     def exclude(mask, column, why):
@@ -270,7 +288,7 @@ def build_design(table: Table, roles: Roles) -> Design:
     y_all = frame[roles.target].to_numpy(dtype=float)
     bad_text = dict(tinfo.bad_cells)
     exclude(~np.isfinite(y_all), roles.target,
-            lambda i: f"text '{bad_text[i + 1]}' where a number was expected" if (i + 1) in bad_text
+            lambda i: f"text '{bad_text[rn[i]]}' where a number was expected" if rn[i] in bad_text
             else ("target is infinite" if np.isinf(y_all[i]) else "target is missing"))
 
     if roles.weights is not None:
@@ -282,8 +300,8 @@ def build_design(table: Table, roles: Roles) -> Design:
 
         def wreason(i):
             v = w_all[i]
-            if (i + 1) in wbad:
-                return f"weight is text '{wbad[i + 1]}'"
+            if rn[i] in wbad:
+                return f"weight is text '{wbad[rn[i]]}'"
             if np.isnan(v):
                 return "weight is missing"
             if np.isinf(v):
@@ -317,7 +335,7 @@ def build_design(table: Table, roles: Roles) -> Design:
             x = raw.to_numpy(dtype=float)
             bad = dict(info.bad_cells)
             exclude(~np.isfinite(x), col,
-                    lambda i, x=x, bad=bad: f"text '{bad[i + 1]}' where a number was expected" if (i + 1) in bad
+                    lambda i, x=x, bad=bad: f"text '{bad[rn[i]]}' where a number was expected" if rn[i] in bad
                     else ("value is infinite" if np.isinf(x[i]) else "value is missing"))
             blocks.append(("num", col, x))
 
@@ -326,7 +344,7 @@ def build_design(table: Table, roles: Roles) -> Design:
         keep[list(reasons)] = False
     # Zero weight is allowed: such a row contributes nothing to the fit but is still predicted.
     rows = np.flatnonzero(keep)
-    excluded = tuple(ExcludedRow(int(i) + 1, c, r) for i, (c, r) in sorted(reasons.items()))
+    excluded = tuple(ExcludedRow(int(rn[i]), c, r) for i, (c, r) in sorted(reasons.items()))
     if rows.size == 0:
         raise DataError(
             f"{src}: every row was excluded (first reason: row {excluded[0].row}, "
@@ -366,12 +384,16 @@ def build_design(table: Table, roles: Roles) -> Design:
     if not mats:
         reasons_txt = "; ".join(f"{u.column}: {u.reason}" for u in unusable)
         raise DataError(f"{src}: no usable predictor remains ({reasons_txt}); choose other predictors")
+    _check_unique_names(names, sources, src)
     X = np.hstack(mats)
     if len(names) >= int(np.count_nonzero(w > 0)):
+        texty = [(c, note) for c, note, as_text in notes if as_text and c in {b[1] for b in blocks}]
+        why = (f" (column '{texty[0][0]}' {texty[0][1]})" if texty else "")
         raise DataError(
-            f"{src}: {len(names)} predictor columns but only {int(np.count_nonzero(w > 0))} usable rows; "
+            f"{src}: {len(names)} predictor columns but only {int(np.count_nonzero(w > 0))} usable rows{why}; "
             "a linear model needs more rows than predictors. Choose fewer predictors or add rows"
         )
+    _check_magnitudes(src, X, names, y, w, rn[rows], roles)
     groups = None
     labels = ()
     if roles.groups is not None:
@@ -395,7 +417,40 @@ def build_design(table: Table, roles: Roles) -> Design:
         groups_column=roles.groups,
         n_table_rows=n,
         derived=tuple(roles.derived),
+        column_notes=notes,
     )
+
+
+def _check_unique_names(names, sources, src) -> None:
+    """A coded level's name (``c=b``) can equal another column's name; the design needs one name each."""
+    seen = {}
+    for name, source in zip(names, sources):
+        if name in seen:
+            raise DataError(
+                f"{src}: design column '{name}' would come from both column '{seen[name]}' and column '{source}' "
+                f"(a category level is named COLUMN=LEVEL); rename column '{name}'"
+            )
+        seen[name] = source
+
+
+#: Largest magnitude a value may have: its square, summed over many rows, must stay finite in float64.
+MAX_MAGNITUDE = 1e150
+
+
+def _check_magnitudes(src, X, names, y, w, rows, roles) -> None:
+    """Refuse values so large that their squares overflow: the fit would be meaningless."""
+    for label, col, vals in [("target", roles.target, y), ("weights", roles.weights, w)] + [
+            ("column", names[j], X[:, j]) for j in range(X.shape[1])]:
+        if col is None or vals.size == 0:
+            continue
+        big = np.flatnonzero(np.abs(vals) > MAX_MAGNITUDE)
+        if big.size:
+            i = int(big[0])
+            more = f" (and {big.size - 1} more rows)" if big.size > 1 else ""
+            raise DataError(
+                f"{src}: {label} '{col}' row {int(rows[i])} holds {vals[i]:.6g}{more}, too large to compute with "
+                "(its square overflows); check that cell for a typing or unit slip, or rescale the column"
+            )
 
 
 def design_from_arrays(X, y, columns: Sequence[str] = None, weights=None, groups=None, target: str = "y") -> Design:
@@ -419,6 +474,6 @@ def design_from_arrays(X, y, columns: Sequence[str] = None, weights=None, groups
 
 
 def _level_text(v) -> str:
-    if isinstance(v, float) and v == int(v):
+    if isinstance(v, float) and np.isfinite(v) and v == int(v):
         return str(int(v))
     return str(v)

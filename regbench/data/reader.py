@@ -8,7 +8,10 @@ from __future__ import annotations
 
 import io
 import os
+import re
+import stat
 from collections import Counter
+from dataclasses import dataclass, replace
 from typing import Optional
 
 import numpy as np
@@ -27,10 +30,62 @@ CODED_MAX_LEVELS = 10
 #: the other cells are then reported as bad text rather than turning the column into text.
 NUMERIC_SHARE = 0.8
 
+#: A text column with at least this share of number cells "looks numeric": its note says why it is text.
+LOOKS_NUMERIC_SHARE = 0.3
+_NUMBER = r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?"
+_PERCENT = re.compile(r"\s*(" + _NUMBER + r")\s*%\s*")
+_DECIMAL_COMMA = re.compile(r"\s*[-+]?\d{1,3}(?:[.\s\u00a0']\d{3})*,\d+\s*|\s*[-+]?\d+,\d+\s*")
+_THOUSANDS_COMMA = re.compile(r"\s*[-+]?\d{1,3}(?:,\d{3})+(?:\.\d+)?\s*")
+
+
+@dataclass(frozen=True)
+class NumberStyle:
+    """How numbers are written in a file's text cells.
+
+    Attributes
+    ----------
+    decimal : {".", ","}
+        The decimal mark.
+    thousands : str or None
+        A thousands separator to remove (",", ".", " " or "'"), or None.
+    """
+
+    decimal: str = "."
+    thousands: Optional[str] = None
+
+    def check(self) -> "NumberStyle":
+        if self.decimal not in (".", ","):
+            raise DataError(f"decimal mark '{self.decimal}' is not known; use '.' or ','")
+        if self.thousands is not None and (self.thousands not in (",", ".", " ", "'")
+                                           or self.thousands == self.decimal):
+            raise DataError(f"thousands separator '{self.thousands}' is not known or equals the decimal mark; "
+                            "use ',', '.', ' ' or \"'\" (not the decimal mark)")
+        return self
+
+    @property
+    def plain(self) -> bool:
+        return self.decimal == "." and self.thousands is None
+
+
+PLAIN = NumberStyle()
+
+#: First bytes of files that are not text tables, so a wrong name gets a message that says what they are.
+_MAGIC = (
+    (b"\x1f\x8b", "gzip-compressed data, not text; unpack it first"),
+    (b"PAR1", "a Parquet file, not text; give it the .parquet ending"),
+    (b"PK\x03\x04", "a zip archive (an .xlsx workbook is one), not text; give a workbook the .xlsx ending, "
+                     "or unpack the archive"),
+    (b"\xd0\xcf\x11\xe0", "an old-style Excel (.xls) or other binary office file; save it as .xlsx or CSV"),
+    (b"BZh", "bzip2-compressed data, not text; unpack it first"),
+    (b"\xfd7zXZ", "xz-compressed data, not text; unpack it first"),
+    (b"\x28\xb5\x2f\xfd", "zstd-compressed data, not text; unpack it first"),
+)
+
 SUPPORTED = {".csv": "csv", ".tsv": "tsv", ".tab": "tsv", ".txt": "csv", ".xlsx": "xlsx", ".parquet": "parquet", ".pq": "parquet"}
 
 
-def read_table(path, *, encoding: Optional[str] = None, sheet: Optional[str] = None) -> Table:
+def read_table(path, *, encoding: Optional[str] = None, sheet: Optional[str] = None,
+               decimal: str = ".", thousands: Optional[str] = None) -> Table:
     """Read a table file.
 
     Parameters
@@ -42,6 +97,10 @@ def read_table(path, *, encoding: Optional[str] = None, sheet: Optional[str] = N
         UTF-16 with a BOM; anything else must be named.
     sheet : str, optional
         Excel sheet; the first sheet by default.
+    decimal : {".", ","}
+        Decimal mark of numbers written as text (CSV/TSV cells, text cells of a workbook).
+    thousands : str, optional
+        Thousands separator to remove from numbers written as text.
 
     Returns
     -------
@@ -54,10 +113,18 @@ def read_table(path, *, encoding: Optional[str] = None, sheet: Optional[str] = N
     """
     path = os.fspath(path)
     name = os.path.basename(path)
-    if not os.path.exists(path):
-        raise DataError(f"{name}: no such file ({path}); check the path")
-    if os.path.isdir(path):
+    style = NumberStyle(decimal, thousands).check()
+    try:
+        st = os.stat(path)
+    except FileNotFoundError:
+        raise DataError(f"{name}: no such file ({path}); check the path") from None
+    except OSError as exc:
+        raise DataError(f"{name}: cannot be read ({exc.strerror}); check the path and its permissions") from None
+    if stat.S_ISDIR(st.st_mode):
         raise DataError(f"{name}: is a folder, not a table file")
+    if not stat.S_ISREG(st.st_mode):
+        # A pipe or a device would block or never end; never open one.
+        raise DataError(f"{name}: is not a regular file (a pipe, socket or device); save the table to a file first")
     ext = os.path.splitext(path)[1].lower()
     fmt = SUPPORTED.get(ext)
     if fmt is None:
@@ -65,14 +132,33 @@ def read_table(path, *, encoding: Optional[str] = None, sheet: Optional[str] = N
             f"{name}: unknown table type '{ext or '(none)'}'; use one of "
             + ", ".join(sorted(set(SUPPORTED)))
         )
-    if os.path.getsize(path) == 0:
+    if st.st_size == 0:
         raise DataError(f"{name}: the file is empty; it needs a header row and at least one data row")
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(8)
+    except OSError as exc:
+        raise DataError(f"{name}: cannot be read ({exc.strerror}); check the file's permissions") from None
     if fmt in ("csv", "tsv"):
-        return _read_text(path, name, "\t" if fmt == "tsv" else None, encoding)
+        return _read_text(path, name, "\t" if fmt == "tsv" else None, encoding, style)
     if fmt == "xlsx":
+        if not head.startswith(b"PK\x03\x04"):
+            _refuse_foreign(head, name, "an .xlsx workbook")
         header, rows = _read_xlsx(path, name, sheet)
-        return _typed(header, rows, name)
+        return _typed(header, rows, name, style)
+    if not head.startswith(b"PAR1"):
+        _refuse_foreign(head, name, "a Parquet file")
     return _read_parquet(path, name)
+
+
+def _refuse_foreign(head: bytes, name: str, expected: str) -> None:
+    for magic, what in _MAGIC:
+        if head.startswith(magic):
+            raise DataError(f"{name}: is {what.split(';')[0]}, not {expected}; give the file the ending of what it "
+                            "holds")
+    if expected != "text":
+        raise DataError(f"{name}: does not start like {expected}; check that the file ending matches what it holds "
+                        "(a CSV file needs the .csv ending)")
 
 
 def table_from_frame(frame: pd.DataFrame, source: str = "data frame") -> Table:
@@ -88,73 +174,128 @@ def _decode(raw: bytes, name: str, encoding: Optional[str]) -> str:
     if encoding:
         try:
             return raw.decode(encoding)
-        except (UnicodeDecodeError, LookupError) as exc:
-            raise DataError(f"{name}: cannot be read as {encoding} ({exc}); name the file's real encoding") from None
+        except UnicodeDecodeError as exc:
+            line = raw[: exc.start].count(b"\n") + 1
+            raise DataError(f"{name}: cannot be read as {encoding} (byte {exc.start}, line {line}); "
+                            "choose the file's real text encoding") from None
+        except LookupError:
+            raise DataError(f"{name}: '{encoding}' is not a text encoding this program knows; choose another "
+                            "(for example utf-8, cp1252 or latin-1)") from None
     if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
         try:
             return raw.decode("utf-16")
         except UnicodeDecodeError as exc:
-            raise DataError(f"{name}: damaged UTF-16 text at byte {exc.start}") from None
+            raise DataError(f"{name}: damaged UTF-16 text at byte {exc.start}; export the table again") from None
+    for magic, what in _MAGIC:
+        if raw.startswith(magic):
+            raise DataError(f"{name}: is {what}")
     try:
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         line = raw[: exc.start].count(b"\n") + 1
         raise DataError(
             f"{name}: not UTF-8 text (byte {exc.start}, line {line}); re-save the file as UTF-8, "
-            "or name its encoding (for example --encoding cp1252)"
+            "or choose its text encoding (for example cp1252)"
         ) from None
 
 
-def _read_text(path, name, sep, encoding):
+def _line_ends(text: str) -> str:
+    """Old-Mac files end lines with CR alone; read them like any other."""
+    if "\r" not in text:
+        return text
+    text = text.replace("\r\n", "\n")
+    if "\r" in text and text.count("\r") >= text.count("\n"):
+        text = text.replace("\r", "\n")
+    return text
+
+
+def _read_text(path, name, sep, encoding, style=PLAIN):
     import csv
 
-    with open(path, "rb") as fh:
-        raw = fh.read()
+    try:
+        with open(path, "rb") as fh:
+            raw = fh.read()
+    except OSError as exc:
+        raise DataError(f"{name}: cannot be read ({exc.strerror}); check the file's permissions") from None
     text = _decode(raw, name, encoding)
     if not text.strip():
         raise DataError(f"{name}: the file holds no text; it needs a header row and at least one data row")
     if "\x00" in text:
         raise DataError(f"{name}: holds NUL bytes, so it is not a text table; export it again as CSV")
+    text = _line_ends(text)
+    # Lines above the header that are blank are not part of the table; row numbers count from the header.
+    stripped = text.lstrip("\n \t")
+    lead = text[: len(text) - len(stripped)].count("\n")
+    text = text[len(text) - len(stripped):] if lead else text
     if sep is None:
         try:
             sep = csv.Sniffer().sniff(text[:20000], delimiters=",;\t").delimiter
         except csv.Error:
             sep = ","
-    fast = _read_text_fast(text, name, sep)
+    fast = _read_text_fast(text, name, sep, style)
     if fast is not None:
         return fast
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=sep)
+    records = []  # (first line, last line, cells); line 1 is the header line
+    prev = 0
     try:
-        all_rows = [r for r in reader]
+        for r in reader:
+            records.append((prev + 1, reader.line_num, r))
+            prev = reader.line_num
     except csv.Error as exc:
-        raise DataError(f"{name}: line {reader.line_num}: {exc}; fix the quoting on that line") from None
-    all_rows = [r for r in all_rows if any(c.strip() for c in r)]
-    if not all_rows:
+        raise DataError(f"{name}: line {reader.line_num + lead}: {exc}; fix the quoting on that line") from None
+    _check_quotes(records, name, sep, lead)
+    records = [rec for rec in records if any(c.strip() for c in rec[2])]
+    if not records:
         raise DataError(f"{name}: the file holds no rows")
-    header = [h.strip() for h in all_rows[0]]
-    body = all_rows[1:]
+    header = [h.strip() for h in records[0][2]]
+    head_line = records[0][0]
+    body = [rec[2] for rec in records[1:]]
+    rows = [rec[0] - head_line for rec in records[1:]]
     width = len(header)
-    for i, r in enumerate(body, start=1):
+    for i, r in enumerate(body):
         if len(r) != width:
             # Trailing empty cells are harmless; anything else shifts columns.
             if len(r) > width and not any(c.strip() for c in r[width:]):
-                body[i - 1] = r[:width]
+                body[i] = r[:width]
                 continue
             if len(r) < width:
-                body[i - 1] = r + [""] * (width - len(r))
+                body[i] = r + [""] * (width - len(r))
                 continue
             raise DataError(
-                f"{name}: data row {i} has {len(r)} cells but the header has {width}; "
-                "check for an unquoted separator in that row"
+                f"{name}: data row {rows[i]} (line {rows[i] + head_line + lead}) has {len(r)} cells but the header "
+                f"has {width}; check for an unquoted separator in that row"
             )
     _check_header(header, name)
     if not body:
         raise DataError(f"{name}: the header is there but no data rows follow")
     frame = pd.DataFrame(body, columns=range(width), dtype=object)
-    return _typed_text_frame(frame, header, name)
+    if rows == list(range(1, len(rows) + 1)):
+        rows = None
+    table = _typed_text_frame(frame, header, name, style, rows)
+    return _with_line_numbers(table, rows)
 
 
-def _read_text_fast(text, name, sep):
+def _check_quotes(records, name, sep, lead):
+    """A quote left open swallows the rows after it into one cell: refuse, naming the lines."""
+    for first, last, cells in records:
+        if last > first and any("\n" in c and sep in c for c in cells):
+            where = f"lines {first + lead}–{last + lead}"
+            raise DataError(
+                f"{name}: a quote (\") opened on line {first + lead} is not closed until the end of line "
+                f"{last + lead}, so {where} would be read as one cell; close or remove that quote"
+            )
+
+
+def _with_line_numbers(table: Table, rows) -> Table:
+    """Give a table the row numbers of its file when blank lines made them differ from 1..n
+    (its cells were typed with the same ``rows``)."""
+    if rows is None:
+        return table
+    return replace(table, line_numbers=tuple(int(r) for r in rows))
+
+
+def _read_text_fast(text, name, sep, style=PLAIN):
     """pandas' C parser; None when the file needs the careful reader.
 
     The careful reader (Python's csv module) gives exact row numbers for ragged rows and bad
@@ -167,16 +308,17 @@ def _read_text_fast(text, name, sep):
     import csv
 
     first = next(csv.reader(io.StringIO(text.split("\n", 1)[0]), delimiter=sep), None)
-    if not first:
+    if not first or '"' in text.split("\n", 1)[0]:
         return None
     header = [h.strip() for h in first]
     _check_header(header, name)
     na = sorted({v for t in MISSING_TEXTS for v in (t, t.upper(), t.title())})
+    numbers = {} if style.plain else {"decimal": style.decimal, "thousands": style.thousands}
     try:
         frame = pd.read_csv(
             io.StringIO(text), sep=sep, header=None, skiprows=1, names=range(len(header)),
             keep_default_na=False, na_values=na, skip_blank_lines=True, engine="c",
-            index_col=False, dtype_backend="numpy_nullable",
+            index_col=False, dtype_backend="numpy_nullable", **numbers,
         )
     except Exception:  # any parser complaint: let the careful reader name the row
         return None
@@ -186,6 +328,10 @@ def _read_text_fast(text, name, sep):
     if len(frame) == 0:
         raise DataError(f"{name}: the header is there but no data rows follow")
     n = len(frame)
+    rows = _fast_row_numbers(text, sep, n)
+    if rows is None:
+        return None
+    rows = None if rows is True else rows
     data, infos = {}, {}
     for j, h in enumerate(header):
         col = frame.iloc[:, j]
@@ -196,26 +342,106 @@ def _read_text_fast(text, name, sep):
             raw = pd.read_csv(io.StringIO(text), sep=sep, header=None, skiprows=1, usecols=[j], dtype=str,
                               keep_default_na=False, na_filter=False, skip_blank_lines=True,
                               engine="c", index_col=False).iloc[:, 0]
+            if raw.str.contains("\n", regex=False).any():
+                return None  # a quoted cell over several lines: the careful reader checks its quotes
             if blank.any():
                 raw = raw.loc[~blank].reset_index(drop=True)
-            values, info = _type_text_series(h, raw, n)
+            values, info = _type_text_series(h, raw, n, style, rows)
         data[h] = values
         infos[h] = info
-    return Table(frame=pd.DataFrame(data, index=pd.RangeIndex(n)), columns=infos, source=name)
+    table = Table(frame=pd.DataFrame(data, index=pd.RangeIndex(n)), columns=infos, source=name)
+    return _with_line_numbers(table, rows)
 
 
-def _typed_text_frame(frame, header, name) -> Table:
+def _fast_row_numbers(text, sep, n):
+    """True when the n rows are the n lines under the header; else each row's line below the
+    header (blank lines counted); None when that cannot be told without the careful reader."""
+    body = text.split("\n")[1:]
+    while body and not body[-1].strip():
+        body.pop()
+    if len(body) == n:
+        return True
+    rows = []
+    for k, line in enumerate(body, start=1):
+        if not line.strip():
+            continue
+        if all(c.strip().lower() in MISSING_TEXTS for c in line.split(sep)):
+            continue  # the parser's all-missing rows, dropped above
+        rows.append(k)
+    return rows if len(rows) == n else None
+
+
+def _typed_text_frame(frame, header, name, style=PLAIN, rows=None) -> Table:
     """Type columns of text cells, vectorized per column (the rules of :func:`_type_column`)."""
     n = len(frame)
     data, infos = {}, {}
     for j, h in enumerate(header):
-        values, info = _type_text_series(h, frame.iloc[:, j], n)
+        values, info = _type_text_series(h, frame.iloc[:, j], n, style, rows)
         data[h] = values
         infos[h] = info
     return Table(frame=pd.DataFrame(data, index=pd.RangeIndex(n)), columns=infos, source=name)
 
 
-def _type_text_series(name, col, n):
+def _parse_numbers(texts: pd.Series, style=PLAIN) -> np.ndarray:
+    s = texts.str.replace("\u2212", "-", regex=False)
+    if style.thousands is not None:
+        s = s.str.replace(style.thousands, "", regex=False)
+    if style.decimal == ",":
+        s = s.str.replace(",", ".", regex=False)
+    return pd.to_numeric(s, errors="coerce").to_numpy(dtype=float)
+
+
+def _percentages(texts: pd.Series, bad: np.ndarray, style=PLAIN):
+    """Values of the cells among ``bad`` written as percentages ('12.3%' -> 12.3), NaN elsewhere."""
+    out = np.full(len(texts), np.nan)
+    idx = np.flatnonzero(bad)
+    if not idx.size:
+        return out
+    sub = texts.iloc[idx]
+    if style.thousands is not None:
+        sub = sub.str.replace(style.thousands, "", regex=False)
+    if style.decimal == ",":
+        sub = sub.str.replace(",", ".", regex=False)
+    got = sub.str.fullmatch(_PERCENT.pattern)
+    ok = got.fillna(False).to_numpy(dtype=bool)
+    if ok.any():
+        out[idx[ok]] = pd.to_numeric(sub[ok].str.replace("%", "", regex=False).str.strip(), errors="coerce").to_numpy()
+    return out
+
+
+def _why_text(texts: pd.Series, present: np.ndarray, bad: np.ndarray, rows=None) -> str:
+    """The note for a column that looks numeric but is read as text, naming rows and cells."""
+    idx = np.flatnonzero(bad)
+    cells = [str(texts.iat[i]) for i in idx]
+    comma = [bool(_DECIMAL_COMMA.fullmatch(c) or _THOUSANDS_COMMA.fullmatch(c)) for c in cells]
+    n_num = int(present.sum() - bad.sum())
+    looks = n_num + sum(comma)
+    total = int(present.sum())
+    if looks == 0 or looks < LOOKS_NUMERIC_SHARE * total:
+        return ""
+    rown = [int(rows[i]) if rows is not None else int(i) + 1 for i in idx]
+    if all(comma):
+        shown = _rows_text(rown)
+        sample = ", ".join(repr(c) for c in cells[:3])
+        if all(_THOUSANDS_COMMA.fullmatch(c) for c in cells):
+            todo = ("read the file with ',' as the thousands separator if these are thousands, or with a decimal "
+                    "comma if they are decimals")
+        else:
+            todo = "read the file with a decimal comma"
+        return (f"looks numeric but was read as text because rows {shown} hold numbers written with a comma "
+                f"({sample}); {todo}")
+    other = [(r, c) for r, c, k in zip(rown, cells, comma) if not k]
+    shown = _rows_text([r for r, _ in other])
+    sample = ", ".join(repr(c) for _, c in other[:3])
+    return (f"looks numeric ({looks} of {total} cells are numbers) but was read as text because rows {shown} "
+            f"hold {sample}; make those cells numbers or leave them empty, or keep the column as text")
+
+
+def _rows_text(rows) -> str:
+    return ", ".join(str(r) for r in rows[:5]) + (f" (and {len(rows) - 5} more)" if len(rows) > 5 else "")
+
+
+def _type_text_series(name, col, n, style=PLAIN, rows=None):
     stripped = col.astype(object).where(col.notna(), None).str.strip()
     lowered = stripped.str.lower()
     present = ~(stripped.isna() | lowered.isin(MISSING_TEXTS)).to_numpy()
@@ -228,18 +454,29 @@ def _type_text_series(name, col, n):
         vals[present] = lowered[present].isin(_TRUE).to_numpy().astype(float)
         return vals, ColumnInfo(name, BOOLEAN, missing, len(uniq))
     texts = stripped.where(present, None)
-    nums = pd.to_numeric(texts.str.replace("\u2212", "-", regex=False), errors="coerce").to_numpy(dtype=float)
+    nums = _parse_numbers(texts, style)
     bad = present & np.isnan(nums)
+    note = ""
+    if bad.any():
+        pct = _percentages(texts, bad, style)
+        if np.isfinite(pct).any():
+            nums = np.where(np.isfinite(pct), pct, nums)
+            bad = present & np.isnan(nums)
+            k = int(np.isfinite(pct).sum())
+            note = (f"{k} cell{'s' if k > 1 else ''} written as percentages read as numbers of percent "
+                    f"('{texts.iat[int(np.flatnonzero(np.isfinite(pct))[0])]}' is read as "
+                    f"{pct[np.isfinite(pct)][0]:g})")
     n_num = int(present.sum() - bad.sum())
     if n_num and n_num >= NUMERIC_SHARE * present.sum():
         nums = np.where(present, nums, np.nan)
         _, info = _type_numeric_column(name, nums, n)
         bad_idx = np.flatnonzero(bad)
-        bad_cells = tuple((int(i) + 1, texts.iat[i]) for i in bad_idx)
-        return nums, ColumnInfo(name, NUMERIC, missing, info.distinct, info.coded_categories, bad_cells)
+        bad_cells = tuple((int(rows[i]) if rows is not None else int(i) + 1, texts.iat[i]) for i in bad_idx)
+        return nums, ColumnInfo(name, NUMERIC, missing, info.distinct, info.coded_categories, bad_cells, note)
     vals = texts.to_numpy(dtype=object, copy=True)
     vals[~present] = None  # the Table's convention for a missing category (not NaN)
-    return vals, ColumnInfo(name, CATEGORICAL, missing, len(set(vals[present])))
+    return vals, ColumnInfo(name, CATEGORICAL, missing, len(set(vals[present])),
+                            note=_why_text(texts, present, bad, rows))
 
 
 def _read_xlsx(path, name, sheet):
@@ -304,7 +541,7 @@ def _check_header(header, name):
         )
 
 
-def _typed(header, rows, name) -> Table:
+def _typed(header, rows, name, style=PLAIN) -> Table:
     _check_header(header, name)
     if not rows:
         raise DataError(f"{name}: the header is there but no data rows follow")
@@ -313,7 +550,7 @@ def _typed(header, rows, name) -> Table:
     infos = {}
     cols = list(zip(*rows)) if rows else [() for _ in header]
     for j, h in enumerate(header):
-        values, info = _type_column(h, cols[j], n)
+        values, info = _type_column(h, cols[j], n, style)
         data[h] = values
         infos[h] = info
     frame = pd.DataFrame(data, index=pd.RangeIndex(n))
@@ -371,19 +608,26 @@ def _cell_text(v):
     return None if s.lower() in MISSING_TEXTS else s
 
 
-def _to_number(v):
+def _to_number(v, style=PLAIN):
     if isinstance(v, (bool, np.bool_)):
         return None
     if isinstance(v, (int, float, np.integer, np.floating)):
-        return float(v)
+        try:
+            return float(v)
+        except OverflowError:  # a whole number beyond float range
+            return None
     s = str(v).strip().replace("\u2212", "-")
+    if style.thousands is not None:
+        s = s.replace(style.thousands, "")
+    if style.decimal == ",":
+        s = s.replace(",", ".")
     try:
         return float(s)
     except ValueError:
         return None
 
 
-def _type_column(name, cells, n):
+def _type_column(name, cells, n, style=PLAIN):
     texts = [_cell_text(v) for v in cells]
     present = [i for i, t in enumerate(texts) if t is not None]
     missing = n - len(present)
@@ -398,15 +642,32 @@ def _type_column(name, cells, n):
     nums = np.full(n, np.nan)
     bad = []
     for i in present:
-        x = _to_number(cells[i])
+        x = _to_number(cells[i], style)
         if x is None:
             bad.append(i)
         else:
             nums[i] = x
+    note = ""
+    series = pd.Series(texts, dtype=object)
+    pmask = np.zeros(n, dtype=bool)
+    pmask[present] = True
+    if bad:
+        bmask = np.zeros(n, dtype=bool)
+        bmask[bad] = True
+        pct = _percentages(series, bmask, style)
+        if np.isfinite(pct).any():
+            hit = np.flatnonzero(np.isfinite(pct))
+            nums[hit] = pct[hit]
+            bad = [i for i in bad if not np.isfinite(pct[i])]
+            note = (f"{hit.size} cell{'s' if hit.size > 1 else ''} written as percentages read as numbers of "
+                    f"percent ('{texts[hit[0]]}' is read as {pct[hit[0]]:g})")
     n_num = len(present) - len(bad)
     if n_num and n_num >= NUMERIC_SHARE * len(present):
         _, info = _type_numeric_column(name, nums, n)
         bad_cells = tuple((i + 1, texts[i]) for i in bad)
-        return nums, ColumnInfo(name, NUMERIC, missing, info.distinct, info.coded_categories, bad_cells)
+        return nums, ColumnInfo(name, NUMERIC, missing, info.distinct, info.coded_categories, bad_cells, note)
+    bmask = np.zeros(n, dtype=bool)
+    bmask[bad] = True
     vals = np.array([texts[i] if texts[i] is not None else None for i in range(n)], dtype=object)
-    return vals, ColumnInfo(name, CATEGORICAL, missing, len({texts[i] for i in present}))
+    return vals, ColumnInfo(name, CATEGORICAL, missing, len({texts[i] for i in present}),
+                            note=_why_text(series, pmask, bmask))

@@ -32,6 +32,10 @@ class ColumnInfo:
     bad_cells : tuple of (row, text)
         Text found in an otherwise numeric column (row is 1-based among the
         data rows).  Rows using this column are excluded and reported.
+    note : str
+        How the reader read the column when that needs saying: percentages or decimal
+        commas read as numbers, or why a column that looks numeric was read as text.
+        Empty when there is nothing to say.
     """
 
     name: str
@@ -40,6 +44,12 @@ class ColumnInfo:
     distinct: int
     coded_categories: bool = False
     bad_cells: tuple = ()
+    note: str = ""
+
+    @property
+    def read_as_text(self) -> bool:
+        """True when the column looks numeric but was read as text (``note`` says why)."""
+        return self.kind == CATEGORICAL and bool(self.note)
 
 
 @dataclass(frozen=True)
@@ -51,16 +61,32 @@ class Table:
     frame : pandas.DataFrame
         Numeric columns as float64 (NaN where missing or bad text), boolean
         columns as float64 0/1, categorical columns as text (pandas' string or object dtype; missing is None or NaN, test with ``pandas.isna``).
-        The index is 0..n-1; row number ``i + 1`` is what messages call row i+1.
+        The index is 0..n-1; messages call index ``i`` row ``row_numbers[i]``.
     columns : mapping of name to ColumnInfo
     source : str
         Where the table came from (a path or a description).
+    notes : tuple of str
+        Sentences about how the file was read.
+    line_numbers : tuple of int, optional
+        The row number of each table row counted as lines below the header, blank lines
+        included (row 1 is the first line under the header), when blank lines made it differ
+        from ``i + 1``; empty otherwise.
     """
 
     frame: pd.DataFrame
     columns: Mapping[str, ColumnInfo]
     source: str = ""
     notes: tuple = field(default_factory=tuple)
+    line_numbers: tuple = ()
+
+    @property
+    def row_numbers(self):
+        """Row number of each table row as messages and reports give it (numpy int array)."""
+        import numpy as np
+
+        if self.line_numbers:
+            return np.asarray(self.line_numbers, dtype=np.int64)
+        return np.arange(1, len(self.frame) + 1, dtype=np.int64)
 
     @property
     def n_rows(self) -> int:

@@ -114,6 +114,8 @@ def fit_to_json(design, results) -> dict:
         "rows_excluded": [e.to_dict() for e in design.excluded],
         "unusable": [u.to_dict() for u in design.unusable],
         "derived_columns": [{"name": x.name, **x.to_dict()} for x in getattr(design, "derived", ())],
+        "read_as_text": [{"column": c, "reason": note} for c, note, as_text in design.column_notes if as_text],
+        "read_notes": [{"column": c, "note": note} for c, note, as_text in design.column_notes if not as_text],
         "models": models,
         "diagnostics": {
             "vif": _by_column(d.columns, d.vif),
@@ -156,6 +158,11 @@ def fit_summary_text(design, results) -> str:
         lines.append("Columns not used")
         for u in design.unusable:
             lines.append(f"  {u.column}: {u.reason}")
+    if design.column_notes:
+        lines.append("")
+        lines.append("How columns were read")
+        for c, note, _ in design.column_notes:
+            lines.append(f"  {c}: {note}")
 
     lines.append("")
     lines.append("What overlaps")

@@ -14,6 +14,7 @@ import json
 import math
 import os
 import posixpath
+import stat
 import zipfile
 from datetime import datetime, timezone
 
@@ -75,16 +76,20 @@ def table_to_parquet(table) -> bytes:
 
 
 def table_meta(table) -> dict:
-    return {
+    meta = {
         "source": table.source,
         "notes": [str(n) for n in table.notes],
         "rows": table.n_rows,
         "columns": [
             {"name": i.name, "kind": i.kind, "missing": int(i.missing), "distinct": int(i.distinct),
-             "coded_categories": bool(i.coded_categories), "bad_cells": [[int(r), str(t)] for r, t in i.bad_cells]}
+             "coded_categories": bool(i.coded_categories), "bad_cells": [[int(r), str(t)] for r, t in i.bad_cells],
+             **({"note": i.note} if getattr(i, "note", "") else {})}
             for i in (table.columns[n] for n in table.names)
         ],
     }
+    if getattr(table, "line_numbers", ()):
+        meta["line_numbers"] = [int(r) for r in table.line_numbers]
+    return meta
 
 
 # -- saving --------------------------------------------------------------------------------
@@ -167,12 +172,23 @@ class _Archive:
     def __init__(self, path):
         self.path = os.fspath(path)
         self.label = os.path.basename(self.path)
-        if not os.path.exists(self.path):
-            raise ProjectError(f"{self.label}: no such file ({self.path}); check the path")
-        if os.path.isdir(self.path):
+        try:
+            st = os.stat(self.path)
+        except FileNotFoundError:
+            raise ProjectError(f"{self.label}: no such file ({self.path}); check the path") from None
+        except OSError as exc:
+            raise ProjectError(f"{self.label}: cannot be read ({exc.strerror}); check the path and its "
+                               "permissions") from None
+        if stat.S_ISDIR(st.st_mode):
             raise ProjectError(f"{self.label}: is a folder, not a project file")
+        if not stat.S_ISREG(st.st_mode):
+            # Opening a pipe or a device for reading could block forever: never open one.
+            raise ProjectError(f"{self.label}: is not a regular file (a pipe, socket or device), so it is not a "
+                               "project file; open a .regbench file")
         try:
             self.zf = zipfile.ZipFile(self.path)
+        except PermissionError as exc:
+            raise ProjectError(f"{self.label}: cannot be read ({exc.strerror}); check the file's permissions") from None
         except Exception as exc:  # zipfile raises BadZipFile, NotImplementedError, OSError, ... on damaged files
             raise ProjectError(f"{self.label}: not a regbench project (not a readable zip archive: {exc}); "
                                "open a .regbench file, or load a table with 'new from table'") from None
@@ -228,7 +244,8 @@ class _Archive:
         if data is None:
             data = self.raw(name, JSON_LIMITS.get(name, MAX_MEMBER))
         try:
-            return json.loads(data.decode("utf-8"), parse_constant=_no_constant)
+            return json.loads(data.decode("utf-8"), parse_constant=_no_constant, parse_float=_finite_float,
+                              parse_int=_bounded_int)
         except (UnicodeDecodeError, ValueError) as exc:
             raise ProjectError(f"{self.label}: member '{name}' is not valid JSON ({exc}); the file is damaged") from None
         except RecursionError:
@@ -237,6 +254,23 @@ class _Archive:
 
 def _no_constant(name):
     raise ValueError(f"{name} is not allowed in a project file")
+
+
+#: The longest whole number a project holds (seeds are below 2**63: 19 digits).
+MAX_INT_DIGITS = 20
+
+
+def _finite_float(text):
+    v = float(text)
+    if not math.isfinite(v):
+        raise ValueError(f"the number {text[:30]} is out of range (it would be read as infinity)")
+    return v
+
+
+def _bounded_int(text):
+    if len(text.lstrip("-")) > MAX_INT_DIGITS:
+        raise ValueError(f"the whole number {text[:12]}… has {len(text.lstrip('-'))} digits, more than a project holds")
+    return int(text)
 
 
 def _manifest(ar: _Archive) -> dict:
@@ -333,6 +367,12 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
     notes = meta.get("notes", [])
     if not (isinstance(notes, list) and all(isinstance(n, str) for n in notes)):
         bad("notes", "must be a list of text")
+    lines = meta.get("line_numbers", [])
+    if not (isinstance(lines, list) and all(isinstance(r, int) and not isinstance(r, bool) for r in lines)
+            and (not lines or (len(lines) == rows and lines[0] >= 1
+                               and all(a < b for a, b in zip(lines, lines[1:]))))):
+        bad("line_numbers", "must list one increasing row number >= 1 per row")
+    _check_parquet_sizes(ar, data, rows, cols, bad)
     try:
         tab = pq.read_table(pa.BufferReader(data))
     except Exception as exc:  # pyarrow raises several types on damaged data
@@ -363,6 +403,8 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
                 bad(f"{f}.{k}", f"is {v!r}, not a whole number >= 0")
         if not isinstance(c.get("coded_categories", False), bool):
             bad(f + ".coded_categories", "must be true or false")
+        if not isinstance(c.get("note", ""), str):
+            bad(f + ".note", "must be text")
         cells = c.get("bad_cells", [])
         if not isinstance(cells, list):
             bad(f + ".bad_cells", "must be a list of [row, text]")
@@ -380,10 +422,45 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
                 bad(f + ".kind", f"is {kind} but table.parquet stores '{name}' as {arr.type}")
             data_cols[name] = arr.to_numpy(zero_copy_only=False).astype(np.float64, copy=True)
         infos[name] = ColumnInfo(name, kind, c["missing"], c["distinct"], bool(c.get("coded_categories", False)),
-                                 tuple((int(r), str(t)) for r, t in cells))
+                                 tuple((int(r), str(t)) for r, t in cells), c.get("note", ""))
     # The same construction as the reader, so dtypes come back as they were.
     frame = pd.DataFrame(data_cols, index=pd.RangeIndex(rows))
-    return Table(frame=frame, columns=infos, source=meta.get("source", ""), notes=tuple(notes))
+    return Table(frame=frame, columns=infos, source=meta.get("source", ""), notes=tuple(notes),
+                 line_numbers=tuple(lines))
+
+
+#: Bytes a table cell may take once decompressed (a float takes 8; text is held to this on average).
+MAX_CELL_BYTES = 1024
+
+
+def _check_parquet_sizes(ar, data: bytes, rows, cols, bad) -> None:
+    """Compare the Parquet footer with session.json before any data page is decompressed, so a
+    small file that would expand to gigabytes is refused by its metadata."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    try:
+        meta = pq.ParquetFile(pa.BufferReader(data)).metadata
+    except Exception as exc:  # pyarrow raises several types on a damaged footer
+        raise ProjectError(f"{ar.label}: member 'table.parquet' is not a readable Parquet table "
+                           f"({type(exc).__name__}: {str(exc)[:200]}); the file is damaged") from None
+    if meta.num_rows != rows:
+        bad("rows", f"says {rows} but table.parquet declares {meta.num_rows} rows")
+    if meta.num_columns != len(cols):
+        bad("columns", f"lists {len(cols)} columns but table.parquet declares {meta.num_columns}")
+    limit = rows * len(cols) * MAX_CELL_BYTES + 16 * 1024**2
+    total = 0
+    try:
+        for g in range(meta.num_row_groups):
+            rg = meta.row_group(g)
+            for j in range(rg.num_columns):
+                total += max(int(rg.column(j).total_uncompressed_size), 0)
+    except Exception as exc:
+        raise ProjectError(f"{ar.label}: member 'table.parquet' has a damaged footer ({type(exc).__name__}); "
+                           "the file is damaged") from None
+    if total > limit:
+        raise ProjectError(f"{ar.label}: member 'table.parquet' would decompress to {total:,} bytes, far more than "
+                           f"{rows} rows × {len(cols)} columns need; the file is damaged or hostile; refused")
 
 
 # -- session.json --------------------------------------------------------------------------

@@ -191,6 +191,9 @@ def _question(session) -> str:
         parts.append(table(["Column", "Reason"], [(u.column, u.reason) for u in d.unusable]))
     else:
         parts.append("<p>Every chosen predictor carries usable information.</p>")
+    if d.column_notes:
+        parts.append("<h3>How columns were read</h3>")
+        parts.append(table(["Column", "How it was read"], [(c, note) for c, note, _ in d.column_notes]))
     return "".join(parts)
 
 
