@@ -409,7 +409,7 @@ def build_design(table: Table, roles: Roles) -> Design:
         columns=tuple(names),
         sources=tuple(sources),
         target=roles.target,
-        row_numbers=rows + 1,
+        row_numbers=np.asarray(rn)[rows],
         excluded=excluded,
         unusable=tuple(unusable),
         group_labels=labels,

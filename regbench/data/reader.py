@@ -144,8 +144,8 @@ def read_table(path, *, encoding: Optional[str] = None, sheet: Optional[str] = N
     if fmt == "xlsx":
         if not head.startswith(b"PK\x03\x04"):
             _refuse_foreign(head, name, "an .xlsx workbook")
-        header, rows = _read_xlsx(path, name, sheet)
-        return _typed(header, rows, name, style)
+        header, rows, line_rows = _read_xlsx(path, name, sheet)
+        return _typed(header, rows, name, style, line_rows)
     if not head.startswith(b"PAR1"):
         _refuse_foreign(head, name, "a Parquet file")
     return _read_parquet(path, name)
@@ -484,29 +484,110 @@ def _read_xlsx(path, name, sheet):
         import openpyxl
     except ImportError:  # pragma: no cover - declared dependency
         raise DataError("reading .xlsx needs the openpyxl package; reinstall regbench") from None
+    _check_xlsx_xml(path, name)
     try:
         wb = openpyxl.load_workbook(path, read_only=True, data_only=True)
     except Exception as exc:  # openpyxl raises many kinds for a damaged file
-        raise DataError(f"{name}: not a readable .xlsx workbook ({type(exc).__name__}); open and re-save it in a spreadsheet program") from None
+        raise DataError(f"{name}: not a readable .xlsx workbook ({type(exc).__name__}); open and re-save it in a "
+                        "spreadsheet program") from None
     try:
         if sheet is None:
+            if not wb.worksheets:
+                raise DataError(f"{name}: the workbook has no worksheet; save the table on a sheet")
             ws = wb.worksheets[0]
         elif sheet in wb.sheetnames:
             ws = wb[sheet]
         else:
-            raise DataError(f"{name}: no sheet '{sheet}'; sheets are: {', '.join(wb.sheetnames)}")
-        rows = [list(r) for r in ws.iter_rows(values_only=True)]
+            raise DataError(f"{name}: no sheet '{sheet}'; sheets are: {', '.join(wb.sheetnames)}; choose the sheet")
+        label = ws.title
+        try:
+            rows = [list(r) for r in ws.iter_rows(values_only=True)]
+        except DataError:
+            raise
+        except Exception as exc:  # damaged sheet XML, refused entities, ...
+            raise DataError(f"{name}: sheet '{label}' cannot be read ({type(exc).__name__}); open and re-save the "
+                            "workbook in a spreadsheet program") from None
+        others = [w.title for w in wb.worksheets if w.title != label and _sheet_has_data(w)]
     finally:
         wb.close()
-    rows = [r for r in rows if any(c is not None and str(c).strip() for c in r)]
-    if not rows:
-        raise DataError(f"{name}: the first sheet is empty; it needs a header row and data rows")
-    header = ["" if c is None else str(c).strip() for c in rows[0]]
-    while header and header[-1] == "" and all(len(r) < len(header) or r[len(header) - 1] is None for r in rows[1:]):
+    keep = [i for i, r in enumerate(rows) if any(c is not None and str(c).strip() for c in r)]
+    if not keep:
+        where = "the first sheet" if sheet is None else "sheet"
+        hint = (f"sheets with data: {', '.join(repr(o) for o in others)}; choose the sheet" if others
+                else "no sheet of the workbook holds data")
+        raise DataError(f"{name}: {where} '{label}' is empty; {hint}")
+    _check_formulas(path, name, label, rows)
+    head_at = keep[0]
+    header = ["" if c is None else str(c).strip() for c in rows[head_at]]
+    body_idx = keep[1:]
+    body_rows = [rows[i] for i in body_idx]
+    while header and header[-1] == "" and all(len(r) < len(header) or r[len(header) - 1] is None for r in body_rows):
         header.pop()
     width = len(header)
-    body = [(list(r) + [None] * width)[:width] for r in rows[1:]]
-    return header, body
+    body = [(list(r) + [None] * width)[:width] for r in body_rows]
+    line_rows = [i - head_at for i in body_idx]
+    return header, body, (None if line_rows == list(range(1, len(body) + 1)) else line_rows)
+
+
+def _sheet_has_data(ws) -> bool:
+    try:
+        for r in ws.iter_rows(values_only=True, max_row=200):
+            if any(c is not None and str(c).strip() for c in r):
+                return True
+    except Exception:
+        return False
+    return False
+
+
+def _check_xlsx_xml(path, name):
+    """Refuse XML with a document type (entity definitions: expansion bombs or external files)
+    before any parser sees it.  openpyxl's own files never carry one."""
+    import zipfile
+
+    try:
+        with zipfile.ZipFile(path) as zf:
+            for info in zf.infolist():
+                if not info.filename.endswith((".xml", ".rels", ".vml")):
+                    continue
+                with zf.open(info) as fh:
+                    head = fh.read(4096)
+                if b"<!DOCTYPE" in head or b"<!ENTITY" in head or b"<!doctype" in head:
+                    raise DataError(f"{name}: part '{info.filename}' of the workbook declares XML entities, which "
+                                    "a spreadsheet never needs (refused for safety); save the table again from a "
+                                    "spreadsheet program")
+    except DataError:
+        raise
+    except Exception as exc:
+        raise DataError(f"{name}: not a readable .xlsx workbook ({type(exc).__name__}); open and re-save it in a "
+                        "spreadsheet program") from None
+
+
+def _check_formulas(path, name, label, rows):
+    """A formula cell saved without its computed value reads as empty: name it instead of losing it."""
+    import openpyxl
+    from openpyxl.utils import get_column_letter
+
+    if not any(c is None for r in rows for c in r):
+        return
+    try:
+        wb = openpyxl.load_workbook(path, read_only=True, data_only=False)
+        try:
+            formulas = [list(r) for r in wb[label].iter_rows(values_only=True)]
+        finally:
+            wb.close()
+    except Exception:
+        return
+    found = []
+    for i, (vr, fr) in enumerate(zip(rows, formulas)):
+        for j, (v, f) in enumerate(zip(vr, fr)):
+            if v is None and f is not None and (isinstance(f, str) and f.startswith("=") or "Formula" in type(f).__name__):
+                found.append(f"{get_column_letter(j + 1)}{i + 1}")
+    if found:
+        more = f" (and {len(found) - 3} more)" if len(found) > 3 else ""
+        raise DataError(f"{name}: sheet '{label}' cell{'s' if len(found) > 1 else ''} {', '.join(found[:3])}{more} "
+                        "hold a formula saved without its computed value (the program that wrote the file did not "
+                        "compute it); open the workbook in a spreadsheet program and save it, or replace the "
+                        "formulas by their values")
 
 
 def _read_parquet(path, name):
@@ -515,9 +596,16 @@ def _read_parquet(path, name):
     except ImportError:  # pragma: no cover - declared dependency
         raise DataError("reading Parquet needs the pyarrow package; reinstall regbench") from None
     try:
+        names = [str(n) for n in pq.read_schema(path).names]
+    except Exception as exc:
+        raise DataError(f"{name}: not a readable Parquet file ({type(exc).__name__}: {str(exc)[:200]}); export "
+                        "it again") from None
+    _check_header(names, name)
+    try:
         tab = pq.read_table(path)
     except Exception as exc:
-        raise DataError(f"{name}: not a readable Parquet file ({type(exc).__name__}: {exc})") from None
+        raise DataError(f"{name}: not a readable Parquet file ({type(exc).__name__}: {str(exc)[:200]}); export "
+                        "it again") from None
     header = [str(c) for c in tab.column_names]
     _check_header(header, name)
     frame = tab.to_pandas()
@@ -541,7 +629,7 @@ def _check_header(header, name):
         )
 
 
-def _typed(header, rows, name, style=PLAIN) -> Table:
+def _typed(header, rows, name, style=PLAIN, line_rows=None) -> Table:
     _check_header(header, name)
     if not rows:
         raise DataError(f"{name}: the header is there but no data rows follow")
@@ -550,11 +638,11 @@ def _typed(header, rows, name, style=PLAIN) -> Table:
     infos = {}
     cols = list(zip(*rows)) if rows else [() for _ in header]
     for j, h in enumerate(header):
-        values, info = _type_column(h, cols[j], n, style)
+        values, info = _type_column(h, cols[j], n, style, line_rows)
         data[h] = values
         infos[h] = info
     frame = pd.DataFrame(data, index=pd.RangeIndex(n))
-    return Table(frame=frame, columns=infos, source=name)
+    return _with_line_numbers(Table(frame=frame, columns=infos, source=name), line_rows)
 
 
 def _typed_frame(frame: pd.DataFrame, header, name) -> Table:
@@ -627,7 +715,7 @@ def _to_number(v, style=PLAIN):
         return None
 
 
-def _type_column(name, cells, n, style=PLAIN):
+def _type_column(name, cells, n, style=PLAIN, rows=None):
     texts = [_cell_text(v) for v in cells]
     present = [i for i, t in enumerate(texts) if t is not None]
     missing = n - len(present)
@@ -664,10 +752,10 @@ def _type_column(name, cells, n, style=PLAIN):
     n_num = len(present) - len(bad)
     if n_num and n_num >= NUMERIC_SHARE * len(present):
         _, info = _type_numeric_column(name, nums, n)
-        bad_cells = tuple((i + 1, texts[i]) for i in bad)
+        bad_cells = tuple((int(rows[i]) if rows is not None else i + 1, texts[i]) for i in bad)
         return nums, ColumnInfo(name, NUMERIC, missing, info.distinct, info.coded_categories, bad_cells, note)
     bmask = np.zeros(n, dtype=bool)
     bmask[bad] = True
     vals = np.array([texts[i] if texts[i] is not None else None for i in range(n)], dtype=object)
     return vals, ColumnInfo(name, CATEGORICAL, missing, len({texts[i] for i in present}),
-                            note=_why_text(series, pmask, bmask))
+                            note=_why_text(series, pmask, bmask, rows))

@@ -34,6 +34,14 @@ def _array(a, shape, what, kind="f"):
           f"{what} must be an array of shape {shape}")
 
 
+def _whole(v, lo, hi) -> bool:
+    return isinstance(v, (int, np.integer)) and not isinstance(v, bool) and lo <= v <= hi
+
+
+def _finite(v) -> bool:
+    return isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool) and bool(np.isfinite(v))
+
+
 def _names(t, what):
     _need(isinstance(t, tuple) and all(isinstance(x, str) for x in t), f"{what} must be a tuple of names")
 
@@ -182,7 +190,16 @@ def check_stability(st, design) -> None:
             _array(v, (p,), f"stability.{field}[{k!r}]")
     _need(isinstance(st.coef_draws, dict) and all(isinstance(v, np.ndarray) and v.ndim == 2 and v.shape[1] == p
                                                    for v in st.coef_draws.values()), "stability.coef_draws is damaged")
-    _need(isinstance(st.alphas, dict) and all(isinstance(k, str) and isinstance(v, (int, float))
+    _need(_whole(st.n_boot, 0, 100_000), "stability.n_boot must be a whole number from 0 to 100000")
+    _need(_whole(st.seed, 0, 2**63 - 1), "stability.seed must be a whole number from 0 to 2^63 - 1")
+    _need(isinstance(st.grouped, bool), "stability.grouped must be true or false")
+    # Every per-model table names the same models, so a view never meets a model it cannot find.
+    models = set(st.models)
+    for field in ("selected_freq", "coef_mean", "coef_sd", "coef_q05", "coef_q95", "coef_draws"):
+        _need(set(getattr(st, field)) == models, f"stability.{field} must hold exactly the models {sorted(models)}")
+    _need(all(v.shape[0] == st.n_boot for v in st.coef_draws.values()),
+          "stability.coef_draws must hold one row per refit (n_boot)")
+    _need(isinstance(st.alphas, dict) and all(isinstance(k, str) and k in models and _finite(v) and v > 0
                                               for k, v in st.alphas.items()), "stability.alphas is damaged")
     _need(isinstance(st.sentences, tuple) and all(isinstance(s, str) for s in st.sentences),
           "stability.sentences must be text")

@@ -768,28 +768,39 @@ def inspect_project(path) -> dict:
 
 
 def inspect_text(info: dict) -> str:
-    """Plain-text rendering of :func:`inspect_project`."""
+    """Plain-text rendering of :func:`inspect_project` (a damaged session.json shows as damaged, never fails)."""
+    from regbench.errors import one_line
+
+    def show(v, limit=200):
+        return one_line(v if isinstance(v, str) else json.dumps(v, ensure_ascii=False, default=str))[:limit]
+
+    rows, cols = info.get("table_rows"), info.get("table_columns")
     lines = [
-        f"project      {info['path']}",
-        f"format       {info['format']} version {info['format_version']} (made by regbench {info['app_version']})",
-        f"created      {info['created']}",
-        f"saved        {info['saved']}",
-        f"table        {info['table_rows']} rows × {info['table_columns']} columns, sha256 {info['table_sha256'][:16]}…",
+        f"project      {show(info['path'])}",
+        f"format       {info['format']} version {info['format_version']} (made by regbench {show(info['app_version'])})",
+        f"created      {show(info['created'])}",
+        f"saved        {show(info['saved'])}",
+        f"table        {show(rows)} rows × {show(cols)} columns, sha256 {show(info['table_sha256'])[:16]}…",
         f"hash check   {info['hash_check']}",
     ]
-    roles = info.get("roles") or {}
-    if roles:
-        preds = roles.get("predictors") or ["(every other usable column)"]
-        lines.append(f"target       {roles.get('target')}")
-        lines.append(f"predictors   {', '.join(map(str, preds))}")
-        if roles.get("categorical"):
-            lines.append(f"categorical  {', '.join(map(str, roles['categorical']))}")
-        lines.append(f"weights      {roles.get('weights') or '(none)'}")
-        lines.append(f"groups       {roles.get('groups') or '(none)'}")
-    s = info.get("settings") or {}
-    if s:
-        lines.append("settings     " + ", ".join(f"{k}={v}" for k, v in s.items()))
-    lines.append(f"stress tests {info.get('stress_tests', 0)}; bootstrap refits {info.get('bootstrap')}")
+    roles = info.get("roles")
+    if isinstance(roles, dict) and roles:
+        preds = roles.get("predictors")
+        preds = preds if isinstance(preds, list) and preds else ["(every other usable column)"]
+        lines.append(f"target       {show(roles.get('target'))}")
+        lines.append(f"predictors   {show(', '.join(map(str, preds)))}")
+        if isinstance(roles.get("categorical"), list) and roles["categorical"]:
+            lines.append(f"categorical  {show(', '.join(map(str, roles['categorical'])))}")
+        lines.append(f"weights      {show(roles.get('weights') or '(none)')}")
+        lines.append(f"groups       {show(roles.get('groups') or '(none)')}")
+    elif roles is not None:
+        lines.append(f"roles        (damaged: {show(roles, 60)})")
+    s = info.get("settings")
+    if isinstance(s, dict) and s:
+        lines.append("settings     " + show(", ".join(f"{k}={show(v, 60)}" for k, v in s.items()), 400))
+    elif s is not None:
+        lines.append(f"settings     (damaged: {show(s, 60)})")
+    lines.append(f"stress tests {show(info.get('stress_tests', 0))}; bootstrap refits {show(info.get('bootstrap'))}")
     lines.append(f"cached results {'present' if info['cached_results'] else 'absent'}"
                  f" ({info['cached_arrays']} arrays)")
     lines.append("members:")
@@ -797,10 +808,10 @@ def inspect_text(info: dict) -> str:
     for e in info["members"]:
         if e in arrays:
             continue
-        check = info["member_checks"].get(e["name"], "")
-        lines.append(f"  {e['name']:<28} {e['size']:>12,d} bytes  {check}")
+        check = show(info["member_checks"].get(e["name"], ""), 400)
+        lines.append(f"  {show(e['name'], 60):<28} {e['size']:>12,d} bytes  {check}")
     if arrays:
         failed = [e["name"] for e in arrays if info["member_checks"].get(e["name"]) != "ok"]
         lines.append(f"  {RESULTS_DIR + '*.npy':<28} {sum(e['size'] for e in arrays):>12,d} bytes  "
-                     f"{len(arrays)} arrays, " + (f"failed: {', '.join(failed)}" if failed else "all ok"))
+                     f"{len(arrays)} arrays, " + (f"failed: {show(', '.join(failed), 400)}" if failed else "all ok"))
     return "\n".join(lines)
