@@ -203,6 +203,8 @@ def _with_flags(text: str) -> str:
         at = text.find(phrase)
         if at >= 0 and flag not in text:
             end = at + len(phrase)
+            if text.startswith(" (", end) and text.find(")", end) > 0:  # after the phrase's own example
+                end = text.find(")", end) + 1
             text = text[:end] + flag + text[end:]
     return text
 

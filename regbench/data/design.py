@@ -219,11 +219,13 @@ def looks_like_identifier(table: Table, column: str) -> bool:
 
 def default_predictors(table: Table, roles: Roles) -> tuple:
     """Every column that is not the target, the weights or the groups, is not empty and
-    does not look like an identifier (see :func:`looks_like_identifier`)."""
+    does not look like an identifier (see :func:`looks_like_identifier`) and was not read as text
+    although it looks numeric (see ``ColumnInfo.read_as_text``)."""
     skip = {roles.target, roles.weights, roles.groups}
     return tuple(
         c for c in table.names
         if c not in skip and table.columns[c].kind != EMPTY and not looks_like_identifier(table, c)
+        and not table.columns[c].read_as_text
     )
 
 
@@ -265,10 +267,14 @@ def build_design(table: Table, roles: Roles) -> Design:
         for c in table.names:
             if c in {roles.target, roles.weights, roles.groups}:
                 continue
-            if looks_like_identifier(table, c):
-                why = f" ({table.columns[c].note})" if table.columns[c].note else ""
+            if table.columns[c].read_as_text:
+                # One-hot coding a mistyped number column would give one indicator per value.
                 unusable.append(UnusableColumn(
-                    c, f"text with {table.columns[c].distinct} different values looks like an identifier{why}; "
+                    c, f"{table.columns[c].note}; not used by default (name it among the predictors to use its "
+                       "values as categories)"))
+            elif looks_like_identifier(table, c):
+                unusable.append(UnusableColumn(
+                    c, f"text with {table.columns[c].distinct} different values looks like an identifier; "
                        "not used by default (name it among the predictors to use it)"))
             elif table.columns[c].kind == EMPTY:
                 unusable.append(UnusableColumn(c, "every cell is empty"))

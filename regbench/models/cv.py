@@ -57,6 +57,8 @@ def fold_ids(n: int, K: int, seed: int = 0, groups: Optional[np.ndarray] = None,
     rng = np.random.default_rng(seed)
     if groups is None:
         if n < K:
+            if n < 2:
+                raise ModelError(f"only {n} row, too few for cross-validation; add rows")
             raise ModelError(f"only {n} rows for {K} folds; choose at most {n} folds")
         ids = np.empty(n, dtype=np.int64)
         ids[rng.permutation(n)] = np.arange(n) % K
@@ -64,6 +66,10 @@ def fold_ids(n: int, K: int, seed: int = 0, groups: Optional[np.ndarray] = None,
     groups = np.asarray(groups)
     labels, code = np.unique(groups, return_inverse=True)
     g = labels.size
+    if g < 2:
+        name = f"'{groups_column}'" if groups_column else "the group column"
+        raise ModelError(f"{name} has only one group among the rows used, so no group can be held out; choose a "
+                         "group column with at least 2 groups, or none")
     if g < K:
         name = f"'{groups_column}'" if groups_column else "the group column"
         raise ModelError(f"{name} has only {g} groups for {K} folds; choose at most {g} folds "
