@@ -171,13 +171,13 @@ CASES = [
      "'g' has only one group among the rows used, so no group can be held out"),
     ("every-row-excluded", "all.csv", b"y,x,z\n1,1,\n2,2,\n3,,5\n", ["--predictors", "x,z"], "every row was excluded"),
     # -- settings: the same limits as a project and the window
-    ("negative-seed", "s.csv", rows(), ["--seed", "-1"], "--seed is -1; use a whole number from 0 to 9223372036854775807"),
-    ("seed-too-large", "s2.csv", rows(), ["--seed", str(2**63)], f"--seed is {2**63}; use a whole number from 0 to"),
-    ("penalties-too-many", "p.csv", rows(), ["--penalties", "100000000"], "--penalties is 100000000; a path needs from 2 to"),
+    ("negative-seed", "s.csv", rows(), ["--seed", "-1"], "--seed: -1 is out of range; use a whole number from 0 to 9223372036854775807"),
+    ("seed-too-large", "s2.csv", rows(), ["--seed", str(2**63)], f"--seed: {2**63} is out of range; use a whole number from 0 to"),
+    ("penalties-too-many", "p.csv", rows(), ["--penalties", "100000000"], "--penalties: 100000000 is too many; a path takes at most 10000 α values"),
     ("penalties-too-few", "p1.csv", rows(), ["--penalties", "1"], "--penalties: 1 is too few"),
-    ("l1-ratio-repeated", "l.csv", rows(), ["--l1-ratio", "0.5,0.5"], "--l1-ratio lists the same ratio twice"),
+    ("l1-ratio-repeated", "l.csv", rows(), ["--l1-ratio", "0.5,0.5"], "--l1-ratio: lists 0.5 twice; give each L1 ratio once"),
     ("l1-ratio-too-many", "l2.csv", rows(), ["--l1-ratio", ",".join(f"0.{k:02d}" for k in range(1, 23))],
-     "--l1-ratio must list from 1 to 20 L1 ratios"),
+     "--l1-ratio: lists 22 L1 ratios; give from 1 to 20 L1 ratios"),
     ("l1-ratio-outside", "l3.csv", rows(), ["--l1-ratio", "1.5"], "--l1-ratio: 1.5 is outside (0, 1)"),
     ("folds-too-few", "f.csv", rows(), ["--folds", "1"], "--folds: 1 is too few"),
     # -- workbooks

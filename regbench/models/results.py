@@ -77,7 +77,9 @@ class FitSettings:
     seed: int = setting(0, Whole(0, 2**63 - 1), "seed for folds and random draws", flag="--seed")
     n_penalties: int = setting(100, Whole(2, 10_000, unit="α values", purpose="a path"),
                                "α values on each path", flag="--penalties")
-    penalty_ratio: float = setting(1e-3, Number(0.0, 1.0, hint="the smallest α as a share of the largest, e.g. 0.001"),
+    # The low end keeps the smallest α a normal float: below it the path's grid underflows to 0.
+    penalty_ratio: float = setting(1e-3, Number(1e-12, 1.0, low_closed=True,
+                                                hint="the smallest α as a share of the largest, e.g. 0.001"),
                                    "smallest α on each path as a share of the largest")
     l1_ratios: Tuple[float, ...] = setting(
         (0.5,), ListOf(Number(0.0, 1.0, hint="ridge (0) and lasso (1) are always fitted"), "L1 ratio",
