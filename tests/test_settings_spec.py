@@ -77,7 +77,8 @@ def test_every_route_refuses_the_same_value_with_the_same_words(tmp_path, capsys
     ("folds", 1001, "cross-validation takes at most 1000 folds"),
     ("folds", "five", "'five' is not a whole number"),
     ("l1_ratios", [0.5, 0.5], "lists 0.5 twice"),
-    ("penalty_ratio", 0, "0 is outside (0, 1)"),
+    ("penalty_ratio", 0, "0 is outside [1e-12, 1)"),
+    ("penalty_ratio", 5e-324, "is outside [1e-12, 1)"),  # a grid from it underflows to 0
     ("seed", True, "True is not a whole number"),
 ])
 def test_project_loader_uses_the_same_limits(tmp_path, field, value, words):
