@@ -117,7 +117,7 @@ CASES = [
     ("blank", "blank.csv", b"\n \n\n", [], "the file holds no text"),
     ("header-only", "h.csv", b"y,x\n", [], "the header is there but no data rows follow"),
     ("missing", "nope.csv", None, [], "nope.csv: no such file"),
-    ("folder", None, folder_table, [], "dir.csv: is a folder"),
+    ("folder", None, folder_table, [], "dir.csv: the folder holds no .parquet file"),
     ("unknown-ending", "t.json", b"{}", [], "unknown table type '.json'"),
     ("gzip-as-csv", "g.csv", gzip.compress(rows()), [], "g.csv: is gzip-compressed data, not text; unpack it first"),
     ("parquet-as-csv", None, parquet_as_csv, [], "data.csv: is a Parquet file, not text; give it the .parquet ending"),
