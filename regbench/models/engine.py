@@ -21,9 +21,10 @@ import numpy as np
 from regbench.errors import ModelError
 from regbench.models import cv as cvmod
 from regbench.models.gram import GramStats, gram_stats, per_fold
-from regbench.models.penalized import Problem, alpha_grid, fit_path, model_from_problem, solve_beta
 from regbench.models import spec
-from regbench.models.results import FitResults, FitSettings, LinearModel, PenalizedFit
+from regbench.models.penalized import (GAP_TOL, Problem, alpha_grid, duality_gaps, fit_path, model_from_problem,
+                                      solve_beta)
+from regbench.models.results import Convergence, FitResults, FitSettings, LinearModel, PenalizedFit
 from regbench.progress import check, report
 
 
@@ -106,10 +107,14 @@ def _training(full: GramStats, fold: GramStats, k: int) -> GramStats:
 def _family(design, settings, problem, train, folds, name, rho, grouped, cancel) -> PenalizedFit:
     grid = alpha_grid(problem.c, rho, int(settings.n_penalties), float(settings.penalty_ratio), evals=problem.evals)
     path = fit_path(None, name, rho, grid, design.columns, problem=problem)
+    path_gaps = duality_gaps(problem, path.coef_std, grid, rho)
+    fold_gaps = np.empty(len(folds))
     errors = np.empty((len(folds), grid.size))
     for k, (tp, f) in enumerate(zip(train, folds)):
         check(cancel)
-        coef, b0 = tp.to_original(solve_beta(tp, grid, rho))
+        beta_k = solve_beta(tp, grid, rho)
+        fold_gaps[k] = float(np.max(duality_gaps(tp, beta_k, grid, rho), initial=0.0))
+        coef, b0 = tp.to_original(beta_k)
         errors[k] = cvmod.heldout_mse(f, coef, b0)
     cvres = cvmod.summarize(grid, errors, grouped)
     if settings.alpha is not None:
@@ -117,18 +122,30 @@ def _family(design, settings, problem, train, folds, name, rho, grouped, cancel)
     else:
         rule = settings.alpha_rule
         alpha = cvres.alpha_min if rule == "cv_min" else cvres.alpha_1se
-    model = _model_on_path(problem, path, name, rho, alpha, design.columns)
-    return PenalizedFit(name=name, l1_ratio=rho, path=path, cv=cvres, alpha=alpha, alpha_rule=rule, model=model)
+    model = _model_on_path(problem, path, name, rho, alpha, design.columns, path_gaps)
+    conv = certificate(path_gaps, model.gap, fold_gaps)
+    return PenalizedFit(name=name, l1_ratio=rho, path=path, cv=cvres, alpha=alpha, alpha_rule=rule, model=model,
+                        convergence=conv)
 
 
-def _model_on_path(problem, path, name, rho, alpha, columns) -> LinearModel:
+def certificate(path_gaps, model_gap, fold_gaps=()) -> Convergence:
+    """The family's :class:`Convergence` from the gaps of its path, chosen fit and folds."""
+    where = [("path", float(np.max(path_gaps, initial=0.0))), ("chosen fit", float(model_gap or 0.0))]
+    where += [(f"fold {k + 1}", float(g)) for k, g in enumerate(fold_gaps)]
+    worst, top = max(where, key=lambda t: t[1])
+    return Convergence(converged=bool(top <= GAP_TOL), max_gap=top, tolerance=GAP_TOL,
+                       gaps=np.asarray(path_gaps, dtype=float).copy(), worst=worst)
+
+
+def _model_on_path(problem, path, name, rho, alpha, columns, path_gaps) -> LinearModel:
     """The exact fit at ``alpha``: a path point when α is on the grid, else a warm-started solve."""
     hit = np.flatnonzero(path.alphas == alpha)
     if hit.size:
         i = int(hit[0])
+        gap = float(path_gaps[i])
         return LinearModel(name=name, columns=tuple(columns), intercept=float(path.intercepts[i]),
                            coef=path.coef[i].copy(), coef_std=path.coef_std[i].copy(), alpha=float(alpha),
-                           l1_ratio=float(rho))
+                           l1_ratio=float(rho), gap=gap, converged=bool(gap <= GAP_TOL))
     i = int(np.argmin(np.abs(np.log(path.alphas) - np.log(alpha))))
     return model_from_problem(problem, name, rho, alpha, columns, coef_init=path.coef_std[i])
 

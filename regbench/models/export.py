@@ -74,6 +74,7 @@ def _penalized_json(pf, columns) -> dict:
             "coefficients": {c: [_num(v) for v in pf.path.coef[:, j]] for j, c in enumerate(columns)},
         },
         "cv": None,
+        "convergence": None if pf.convergence is None else pf.convergence.to_dict(),
     }
     if pf.cv is not None:
         cv = pf.cv
@@ -210,6 +211,8 @@ def fit_summary_text(design, results) -> str:
             cv_txt = f", held-out RMSE {_fmt(math.sqrt(max(pf.cv.mean[i], 0.0)))} (at the nearest grid α)"
         lines.append(f"  {model_label(name)}: α {_fmt(pf.alpha)} ({rules.get(pf.alpha_rule, pf.alpha_rule)}), "
                      f"L1 ratio {_fmt(pf.l1_ratio)}{cv_txt}")
+        if pf.convergence is not None and not pf.convergence.converged:
+            lines.append("    " + pf.convergence.sentence())
     lines.append("")
     lines.append("Penalty objective: " + OBJECTIVE + ".")
     lines.append("These are associations, not causes; judge models on held-out groups; "

@@ -47,6 +47,9 @@ MIN_GRID_RATIO = 1e-3
 #: Duality-gap tolerance handed to scikit-learn's coordinate descent (relative to ‖y‖²/n).
 CD_TOL = 1e-10
 CD_MAX_ITER = 100_000
+#: A fit is certified converged when its duality gap is at most this share of the
+#: weighted variance of y on the rows fitted (the objective at β = 0 is half of it).
+GAP_TOL = 1e-8
 #: Eigenvalues below this share of the largest count as null directions of G.
 EIG_RTOL = 1e-12
 
@@ -63,6 +66,7 @@ class Problem:
     live: np.ndarray  # columns with sd > 0
     evals: np.ndarray  # eigenvalues of G[live][:, live], ascending
     evecs: np.ndarray
+    var_y: float = 1.0  # ỹᵀWỹ/W, twice the objective at β = 0 (for the duality gap)
 
     @classmethod
     def from_stats(cls, stats: GramStats) -> "Problem":
@@ -70,7 +74,8 @@ class Problem:
         live = sd > 0
         Gl = G[np.ix_(live, live)]
         lam, V = np.linalg.eigh(Gl) if Gl.size else (np.zeros(0), np.zeros((0, 0)))
-        return cls(G=G, c=c, mean=mean, sd=sd, mean_y=stats.mean_y(), live=live, evals=lam, evecs=V)
+        var_y = max(stats.centered_yy() / stats.W, 0.0)
+        return cls(G=G, c=c, mean=mean, sd=sd, mean_y=stats.mean_y(), live=live, evals=lam, evecs=V, var_y=var_y)
 
     def to_original(self, beta: np.ndarray):
         """Standardized coefficients (…, p) → original-unit coefficients and intercepts."""
@@ -248,8 +253,9 @@ def model_from_problem(problem: Problem, name: str, l1_ratio: float, alpha: floa
     """The exact fit of one family at one α."""
     beta = solve_beta(problem, [alpha], l1_ratio, coef_init=coef_init)[0]
     coef, intercept = problem.to_original(beta)
+    gap = float(duality_gaps(problem, beta, [alpha], l1_ratio)[0])
     return LinearModel(name=name, columns=tuple(columns), intercept=float(intercept), coef=coef, coef_std=beta,
-                       alpha=float(alpha), l1_ratio=float(l1_ratio))
+                       alpha=float(alpha), l1_ratio=float(l1_ratio), gap=gap, converged=bool(gap <= GAP_TOL))
 
 
 def kkt_violation(problem: Problem, beta: np.ndarray, alpha: float, l1_ratio: float) -> float:
@@ -264,3 +270,54 @@ def kkt_violation(problem: Problem, beta: np.ndarray, alpha: float, l1_ratio: fl
     v_zero = np.max(np.abs(g[zero]) - bound, initial=0.0)
     v_nz = np.max(np.abs(g[~zero] - bound * np.sign(beta[~zero])), initial=0.0)
     return float(max(v_zero, v_nz))
+
+
+def duality_gaps(problem: Problem, beta, alphas, l1_ratio: float) -> np.ndarray:
+    """Duality gap of each fit, as a share of the weighted variance of y.
+
+    Parameters
+    ----------
+    problem : Problem
+    beta : ndarray (m, p)
+        Standardized coefficients, one fit per row.
+    alphas : ndarray (m,)
+    l1_ratio : float
+
+    Returns
+    -------
+    ndarray (m,)
+        ``(P(β) − D(θ)) / var_y``: P is the objective of the module docstring
+        (β's primal value), D the Fenchel dual at the point θ built from β's
+        residual, so the true optimum lies within the gap of P(β).  With
+        λ₁ = αρ and λ₂ = α(1−ρ), and R the weighted residual (all in the
+        Gram's terms, ‖R‖² = var_y − 2cᵀβ + βᵀGβ, ⟨y, R⟩ = var_y − cᵀβ,
+        u = X̃ᵀR = c − Gβ)::
+
+            P = ½‖R‖² + λ₁‖β‖₁ + λ₂/2·‖β‖²
+            ρ < 1:  θ = R,   D = ⟨y, R⟩ − ½‖R‖² − Σ (|u_j| − λ₁)₊² / (2λ₂)
+            ρ = 1:  θ = sR,  s = min(1, λ₁/‖u‖∞),  D = s⟨y, R⟩ − ½s²‖R‖²
+
+        (the lasso's dual point is scaled into its feasible set ‖X̃ᵀθ‖∞ ≤ λ₁).
+    """
+    B = np.atleast_2d(np.asarray(beta, dtype=float))
+    alphas = np.atleast_1d(np.asarray(alphas, dtype=float))
+    G, c, vy = problem.G, problem.c, float(problem.var_y)
+    nz = np.flatnonzero(np.any(B != 0.0, axis=0))
+    Gb = B[:, nz] @ G[nz, :]  # (m, p): only columns some fit uses enter
+    cb = B @ c
+    RR = np.clip(vy - 2.0 * cb + np.einsum("ij,ij->i", Gb, B), 0.0, None)
+    yR = vy - cb
+    U = c[None, :] - Gb
+    l1 = alphas * l1_ratio
+    l2 = alphas * (1.0 - l1_ratio)
+    primal = 0.5 * RR + l1 * np.abs(B).sum(axis=1) + 0.5 * l2 * np.einsum("ij,ij->i", B, B)
+    if l1_ratio < 1.0:
+        excess = np.clip(np.abs(U) - l1[:, None], 0.0, None)
+        dual = yR - 0.5 * RR - np.einsum("ij,ij->i", excess, excess) / (2.0 * l2)
+    else:
+        top = np.max(np.abs(U), axis=1, initial=0.0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            s = np.where(top > l1, l1 / np.where(top > 0, top, 1.0), 1.0)
+        dual = s * yR - 0.5 * s * s * RR
+    gap = np.clip(primal - dual, 0.0, None)
+    return gap / max(vy, np.finfo(float).tiny)

@@ -140,6 +140,11 @@ class LinearModel:
     coef_std: np.ndarray
     alpha: Optional[float] = None
     l1_ratio: Optional[float] = None
+    #: Duality gap of a penalized fit as a share of the weighted variance of y
+    #: (see :class:`Convergence`); None for OLS and for fits saved before it existed.
+    gap: Optional[float] = None
+    #: Whether ``gap`` is within the solver's tolerance; None when not known.
+    converged: Optional[bool] = None
 
     @property
     def used(self) -> np.ndarray:
@@ -304,6 +309,50 @@ class CVResult:
 
 
 @dataclass(frozen=True)
+class Convergence:
+    """The duality-gap certificate of one penalized family.
+
+    A duality gap bounds how far a fit's objective is above the true optimum;
+    here it is a share of the weighted variance of y on the rows fitted (the
+    objective at β = 0 is half of that), so one tolerance serves every table.
+
+    Attributes
+    ----------
+    converged : bool
+        Every fit of the family (each α of the path, the chosen fit, and each
+        cross-validation fold's fits) has a gap within ``tolerance``.
+    max_gap : float
+        The largest of those gaps.
+    tolerance : float
+    gaps : ndarray (k,)
+        The gap at each α of the path.
+    worst : str
+        Where ``max_gap`` occurred: 'path', 'chosen fit' or 'fold K'.
+    """
+
+    converged: bool
+    max_gap: float
+    tolerance: float
+    gaps: np.ndarray
+    worst: str = "path"
+
+    def to_dict(self) -> dict:
+        return {"converged": bool(self.converged), "max_gap": float(self.max_gap), "tolerance": float(self.tolerance)}
+
+    def sentence(self) -> str:
+        """One line for people: certified, or flagged with where the solver stopped short."""
+        from regbench.formatting import number_text
+
+        gap, tol = number_text(self.max_gap, 2), number_text(self.tolerance, 2)
+        if self.converged:
+            return (f"Solver converged: largest duality gap {gap} of the variance of y "
+                    f"(tolerance {tol}).")
+        return (f"NOT CONVERGED: the solver stopped with a duality gap of {gap} of the variance of y "
+                f"({self.worst}), above the tolerance {tol}; these coefficients are not the exact "
+                "optimum. Refit, or report the problem with the table.")
+
+
+@dataclass(frozen=True)
 class PenalizedFit:
     """One penalized model family: its path, its CV curve and the chosen model."""
 
@@ -314,6 +363,8 @@ class PenalizedFit:
     alpha: float
     alpha_rule: str
     model: LinearModel
+    #: None on results saved before the certificate existed.
+    convergence: Optional[Convergence] = None
 
 
 @dataclass(frozen=True)

@@ -68,6 +68,7 @@ thead th { background: var(--soft); border-bottom: 2px solid var(--line); }
 td.zero { color: #9aa3ab; }
 td.neg { color: #8c2d19; }
 .muted { color: var(--muted); }
+p.warn { color: #8c2d19; font-weight: 600; }
 figure { margin: 10px 0 16px; }
 figure figcaption { font-size: 12px; color: var(--muted); }
 svg.chart { max-width: 100%; height: auto; }
@@ -246,6 +247,7 @@ def _fits(session) -> str:
                                                                   "cv_1se": "one-standard-error rule",
                                                                   "fixed": "fixed in the settings"}.get(pf.alpha_rule, pf.alpha_rule)
         parts.append(f"<h3>{e(label)}: chosen α = {num(chosen)} ({e(how)})</h3>")
+        parts.append(_convergence(pf, models.get(name)))
         cv = pf.cv
         caption = ("Top: each column's standardized coefficient as the penalty weakens from left to right, "
                    "labelled at its end; middle: how many columns the model uses; bottom: held-out error "
@@ -269,6 +271,17 @@ def _fits(session) -> str:
                                       ylabel="coefficient × column SD", colours=[model_colour(n) for n in names]),
                         "Standardized so columns in different units compare."))
     return "".join(parts)
+
+
+def _convergence(pf, model) -> str:
+    """The solver's certificate for one family; a fit that stopped short is flagged, never passed over."""
+    conv = pf.convergence
+    lines = []
+    if conv is not None:
+        lines.append((conv.converged, conv.sentence()))
+    if model is not None and model.converged is False and model is not pf.model:
+        lines.append((False, f"NOT CONVERGED at the chosen α: duality gap {num(model.gap, 2)} of the variance of y."))
+    return "".join(f'<p class="{"muted" if ok else "warn"}">{e(text)}</p>' for ok, text in lines)
 
 
 def _agreement(session) -> str:
