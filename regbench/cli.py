@@ -79,9 +79,11 @@ def _add_settings_options(p: argparse.ArgumentParser) -> None:
             kwargs.update(type=float, default=default)
         elif isinstance(rule, spec.Choice):
             kwargs.update(choices=rule.choices, default=default, metavar=None)
+        elif isinstance(rule, spec.PerColumn):
+            kwargs.update(action="append", default=[], metavar="COL=VALUE")
         elif isinstance(rule, spec.ListOf):
             kwargs.update(default=",".join(f"{v:g}" if isinstance(v, float) else str(v) for v in default) or None)
-        if kwargs.get("default") is not None:
+        if kwargs.get("default") not in (None, []):
             kwargs["help"] += f" (default {kwargs['default']})"
         p.add_argument(declared.flag, **kwargs)
 
@@ -151,7 +153,9 @@ def settings_from_args(args):
         if declared.flag is None or not hasattr(args, name):
             continue
         v = getattr(args, name)
-        if isinstance(declared.rule, spec.ListOf):
+        if isinstance(declared.rule, spec.PerColumn):
+            v = _per_column(v, declared.flag)
+        elif isinstance(declared.rule, spec.ListOf):
             each = declared.rule.each
             v = _float_list(v, declared.flag) if isinstance(each, spec.Number) else _csv_list(v)
             if not v and declared.rule.min_len:
@@ -159,6 +163,24 @@ def settings_from_args(args):
         values[name] = v
     spec.check(FitSettings, values, RegbenchError, spec.label_flag)
     return FitSettings.from_dict(values)
+
+
+def _per_column(items, flag: str) -> tuple:
+    """``COL=VALUE`` options -> ((column, value), ...); the column name may itself hold '='."""
+    out = {}
+    for item in items or ():
+        col, sep, val = str(item).rpartition("=")
+        col = col.strip()
+        try:
+            v = float(val)
+        except ValueError:
+            v = None
+        if not sep or not col or v is None:
+            raise RegbenchError(f"{flag}: '{item}' is not COLUMN=VALUE with a number (e.g. {flag} dose=0)")
+        if col in out:
+            raise RegbenchError(f"{flag}: '{col}' is given twice; give each column once")
+        out[col] = v
+    return tuple(out.items())
 
 
 def roles_from_args(args):

@@ -328,8 +328,14 @@ class Session:
         Raises DataError (and changes nothing) when the roles cannot be used.
         """
         roles = _roles(roles)
-        build_design(self.table, roles)  # raise before anything changes
-        self._edit("roles", replace(self._state, roles=roles), "roles", roles)
+        design = build_design(self.table, roles)  # raise before anything changes
+        state = replace(self._state, roles=roles)
+        # A penalty factor of a column that is no longer a predictor has nothing to act on.
+        keep = set(design.sources) | {u.column for u in design.unusable}
+        pf = tuple((c, v) for c, v in self.settings.penalty_factors if c in keep)
+        if pf != tuple(self.settings.penalty_factors):
+            state = replace(state, settings=replace(self.settings, penalty_factors=pf))
+        self._edit("roles", state, "roles", roles)
 
     def add_derived(self, operation: str, columns) -> str:
         """Add a derived column (see :mod:`regbench.data.derive`); returns its name.
@@ -380,6 +386,25 @@ class Session:
     def set_settings(self, settings: FitSettings) -> None:
         settings = _normalized(settings)
         self._edit("settings", replace(self._state, settings=settings), "settings", settings)
+
+    def set_penalty_factor(self, column: str, factor: Optional[float]) -> None:
+        """Set the penalty factor of a predictor column (None or 1: back to the default).
+
+        Every penalized model then penalizes the column's coefficient by α·factor
+        (0: unpenalized and always kept); a categorical column's factor applies to
+        all its indicators.  The fits are cleared.  Raises DataError (and changes
+        nothing) for a column that is not a predictor or a factor out of range.
+        """
+        design = build_design(self.table, self.roles)
+        if column not in set(design.sources) | {u.column for u in design.unusable}:
+            raise DataError(f"'{column}' is not a predictor of this session; "
+                            f"predictors are: {', '.join(dict.fromkeys(design.sources))}")
+        given = dict(self.settings.penalty_factors)
+        if factor is None or (_is_num(factor) and float(factor) == 1.0):
+            given.pop(column, None)
+        else:
+            given[column] = float(factor) if _is_num(factor) else factor
+        self.set_settings(replace(self.settings, penalty_factors=tuple(given.items())))
 
     def set_alpha(self, name: str, alpha: Optional[float]) -> None:
         """Override the CV choice of α for model ``name`` (None: back to the CV choice)."""

@@ -22,8 +22,8 @@ from regbench.errors import ModelError
 from regbench.models import cv as cvmod
 from regbench.models.gram import GramStats, gram_stats, per_fold
 from regbench.models import spec
-from regbench.models.penalized import (GAP_TOL, Problem, alpha_grid, duality_gaps, fit_path, model_from_problem,
-                                      solve_beta)
+from regbench.models.penalized import (GAP_TOL, Problem, alpha_grid, duality_gaps, factor_evals, factor_scores,
+                                      fit_path, model_from_problem, solve_beta)
 from regbench.models.results import Convergence, FitResults, FitSettings, LinearModel, PenalizedFit
 from regbench.progress import check, report
 
@@ -38,6 +38,30 @@ def families(settings: FitSettings):
 
 def _validate(settings: FitSettings) -> None:
     settings.check(ModelError, spec.label_plain)
+
+
+def design_factors(design, settings: FitSettings):
+    """Penalty factor of each design column (None when every factor is 1).
+
+    A factor set for a table column applies to every design column built from it
+    (each indicator of a categorical column).  A factor naming a column that is
+    not a predictor of this design is refused; one naming a predictor set aside
+    before fitting (constant, empty) has nothing to act on and is ignored.
+    """
+    given = dict(settings.penalty_factors)
+    if not given:
+        return None
+    sources = tuple(getattr(design, "sources", None) or design.columns)
+    known = set(sources) | {u.column for u in getattr(design, "unusable", ())}
+    for col in given:
+        if col not in known:
+            raise ModelError(f"penalty factor for '{col}': not a predictor of this fit; "
+                             f"predictors are: {', '.join(dict.fromkeys(sources))}")
+    return np.array([float(given.get(s, 1.0)) for s in sources])
+
+
+def _problem(stats: GramStats, design, settings: FitSettings) -> Problem:
+    return Problem.from_stats(stats, design_factors(design, settings))
 
 
 def _ols(design, settings):
@@ -83,8 +107,8 @@ def fit_all(design, settings: FitSettings = FitSettings(), progress=None, cancel
     diag = diagnose(design, ols)
     check(cancel)
     step += 1
-    problem = Problem.from_stats(full)
-    train = [Problem.from_stats(_training(full, f, k)) for k, f in enumerate(folds)]
+    problem = _problem(full, design, settings)
+    train = [_problem(_training(full, f, k), design, settings) for k, f in enumerate(folds)]
     grouped = design.groups is not None
     penalized = {}
     for name, rho in fams:
@@ -105,7 +129,11 @@ def _training(full: GramStats, fold: GramStats, k: int) -> GramStats:
 
 
 def _family(design, settings, problem, train, folds, name, rho, grouped, cancel) -> PenalizedFit:
-    grid = alpha_grid(problem.c, rho, int(settings.n_penalties), float(settings.penalty_ratio), evals=problem.evals)
+    # With penalty factors the grid's top comes from the penalized columns after
+    # partialling out the unpenalized ones (|c_j|/v_j), the ridge bottom from the
+    # problem the factors turn ridge into.
+    grid = alpha_grid(factor_scores(problem), rho, int(settings.n_penalties), float(settings.penalty_ratio),
+                      evals=factor_evals(problem))
     path = fit_path(None, name, rho, grid, design.columns, problem=problem)
     path_gaps = duality_gaps(problem, path.coef_std, grid, rho)
     fold_gaps = np.empty(len(folds))
@@ -167,7 +195,7 @@ def model_at(design, results: FitResults, name: str, alpha: float) -> LinearMode
         raise ModelError(f"α = {alpha:g} for {name}: α must be a positive number")
     rho = _l1_ratio_of(results, name)
     stats = results.gram if isinstance(results.gram, GramStats) else gram_stats(design.X, design.y, design.weights)
-    problem = Problem.from_stats(stats)
+    problem = _problem(stats, design, results.settings)
     init = None
     pf = results.penalized.get(name)
     if pf is not None and rho > 0:
@@ -209,7 +237,7 @@ def heldout_predictions(design, results: FitResults, models: dict) -> dict:
                 fm = _ols_on_stats(design, train_stats[k], ids != k, results.ols.kept)
             else:
                 if problems[k] is None:
-                    problems[k] = Problem.from_stats(train_stats[k])
+                    problems[k] = _problem(train_stats[k], design, results.settings)
                 rho = float(m.l1_ratio) if m.l1_ratio is not None else _l1_ratio_of(results, name)
                 fm = model_from_problem(problems[k], name, rho, float(m.alpha), design.columns, coef_init=m.coef_std)
             pred[rows[k]] = fm.predict(design.X[rows[k]])
@@ -265,7 +293,7 @@ def fit_models_at(design, settings: FitSettings, alphas: Optional[dict] = None) 
     """
     alphas = dict(alphas or {})
     out = {"ols": _ols(design, settings).model}
-    problem = Problem.from_stats(gram_stats(design.X, design.y, design.weights))
+    problem = _problem(gram_stats(design.X, design.y, design.weights), design, settings)
     for name, rho in families(settings):
         a = alphas.get(name, settings.alpha)
         if a is None:

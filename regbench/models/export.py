@@ -16,8 +16,9 @@ import numpy as np
 from regbench.models.results import model_label
 
 #: The objective, in the words the README and help use.
-OBJECTIVE = ("minimise (1/(2W))·Σ wᵢ(yᵢ − b₀ − x̃ᵢβ)² + α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²), "
-             "x̃ = predictors standardized by weighted mean and weighted population SD, W = Σwᵢ")
+OBJECTIVE = ("minimise (1/(2W))·Σ wᵢ(yᵢ − b₀ − x̃ᵢβ)² + α·Σⱼ vⱼ(ρ|βⱼ| + (1−ρ)/2·βⱼ²), "
+             "x̃ = predictors standardized by weighted mean and weighted population SD, W = Σwᵢ, "
+             "vⱼ = the column's penalty factor (1 unless set)")
 
 
 def _num(v):
@@ -213,6 +214,9 @@ def fit_summary_text(design, results) -> str:
                      f"L1 ratio {_fmt(pf.l1_ratio)}{cv_txt}")
         if pf.convergence is not None and not pf.convergence.converged:
             lines.append("    " + pf.convergence.sentence())
+    if results.settings.penalty_factors:
+        lines.append("  Penalty factors: " + ", ".join(f"{c} {_fmt(v)}" for c, v in results.settings.penalty_factors)
+                     + " (0: unpenalized, always kept); every other column 1.")
     lines.append("")
     lines.append("Penalty objective: " + OBJECTIVE + ".")
     lines.append("These are associations, not causes; judge models on held-out groups; "

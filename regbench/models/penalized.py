@@ -36,6 +36,7 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass
+from typing import Optional
 
 import numpy as np
 
@@ -67,15 +68,23 @@ class Problem:
     evals: np.ndarray  # eigenvalues of G[live][:, live], ascending
     evecs: np.ndarray
     var_y: float = 1.0  # ỹᵀWỹ/W, twice the objective at β = 0 (for the duality gap)
+    #: Penalty factor vⱼ ≥ 0 of each column; None when every factor is 1.
+    factors: Optional[np.ndarray] = None
 
     @classmethod
-    def from_stats(cls, stats: GramStats) -> "Problem":
+    def from_stats(cls, stats: GramStats, factors=None) -> "Problem":
+        """The standardized problem of ``stats``; ``factors`` (p,) are the columns' penalty factors."""
+        if factors is not None:
+            factors = np.asarray(factors, dtype=float)
+            if np.all(factors == 1.0):
+                factors = None
         G, c, mean, sd = stats.standardized()
         live = sd > 0
         Gl = G[np.ix_(live, live)]
         lam, V = np.linalg.eigh(Gl) if Gl.size else (np.zeros(0), np.zeros((0, 0)))
         var_y = max(stats.centered_yy() / stats.W, 0.0)
-        return cls(G=G, c=c, mean=mean, sd=sd, mean_y=stats.mean_y(), live=live, evals=lam, evecs=V, var_y=var_y)
+        return cls(G=G, c=c, mean=mean, sd=sd, mean_y=stats.mean_y(), live=live, evals=lam, evecs=V, var_y=var_y,
+                   factors=factors)
 
     def to_original(self, beta: np.ndarray):
         """Standardized coefficients (…, p) → original-unit coefficients and intercepts."""
@@ -227,6 +236,8 @@ def _merge_copies(problem: Problem, beta: np.ndarray) -> None:
 
 def solve_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None) -> np.ndarray:
     """Standardized coefficients of the family with L1 ratio ``l1_ratio`` at each α."""
+    if problem.factors is not None:
+        return factor_beta(problem, alphas, l1_ratio, coef_init=coef_init)
     if l1_ratio == 0.0:
         return ridge_beta(problem, alphas)
     return enet_beta(problem, alphas, l1_ratio, coef_init=coef_init)
@@ -301,23 +312,184 @@ def duality_gaps(problem: Problem, beta, alphas, l1_ratio: float) -> np.ndarray:
     """
     B = np.atleast_2d(np.asarray(beta, dtype=float))
     alphas = np.atleast_1d(np.asarray(alphas, dtype=float))
-    G, c, vy = problem.G, problem.c, float(problem.var_y)
+    scale = max(float(problem.var_y), np.finfo(float).tiny)
+    if problem.factors is not None:
+        # Unpenalized columns are partialled out (their coefficients are exact given
+        # the others), and λ₁, λ₂ carry each column's factor.
+        red = _reduce(problem)
+        if red.pen.size == 0:
+            return np.zeros(B.shape[0])
+        return _gaps(red.sub.G, red.sub.c, red.sub.var_y, B[:, red.pen], alphas, l1_ratio, red.v) / scale
+    return _gaps(problem.G, problem.c, float(problem.var_y), B, alphas, l1_ratio, None) / scale
+
+
+def _gaps(G, c, vy, B, alphas, l1_ratio, v):
     nz = np.flatnonzero(np.any(B != 0.0, axis=0))
     Gb = B[:, nz] @ G[nz, :]  # (m, p): only columns some fit uses enter
     cb = B @ c
     RR = np.clip(vy - 2.0 * cb + np.einsum("ij,ij->i", Gb, B), 0.0, None)
     yR = vy - cb
     U = c[None, :] - Gb
-    l1 = alphas * l1_ratio
-    l2 = alphas * (1.0 - l1_ratio)
-    primal = 0.5 * RR + l1 * np.abs(B).sum(axis=1) + 0.5 * l2 * np.einsum("ij,ij->i", B, B)
+    v = np.ones(B.shape[1]) if v is None else v
+    l1 = (alphas * l1_ratio)[:, None] * v[None, :]  # (m, p)
+    l2 = (alphas * (1.0 - l1_ratio))[:, None] * v[None, :]
+    primal = 0.5 * RR + np.sum(l1 * np.abs(B), axis=1) + 0.5 * np.sum(l2 * B * B, axis=1)
     if l1_ratio < 1.0:
-        excess = np.clip(np.abs(U) - l1[:, None], 0.0, None)
-        dual = yR - 0.5 * RR - np.einsum("ij,ij->i", excess, excess) / (2.0 * l2)
+        excess = np.clip(np.abs(U) - l1, 0.0, None)
+        dual = yR - 0.5 * RR - np.sum(excess * excess / (2.0 * l2), axis=1)
     else:
-        top = np.max(np.abs(U), axis=1, initial=0.0)
+        # Scale θ = sR into the feasible set |uⱼ|·s ≤ λ₁ⱼ of every column.
         with np.errstate(divide="ignore", invalid="ignore"):
-            s = np.where(top > l1, l1 / np.where(top > 0, top, 1.0), 1.0)
+            ratio = np.where(np.abs(U) > l1, l1 / np.abs(U), 1.0)
+        s = np.min(ratio, axis=1, initial=1.0)
         dual = s * yR - 0.5 * s * s * RR
-    gap = np.clip(primal - dual, 0.0, None)
-    return gap / max(vy, np.finfo(float).tiny)
+    return np.clip(primal - dual, 0.0, None)
+
+
+# -- penalty factors ---------------------------------------------------------------------------
+#
+# With factors the penalty is α·Σⱼ vⱼ(ρ|βⱼ| + (1−ρ)/2·βⱼ²).  Columns with vⱼ = 0 are
+# unpenalized: for fixed penalized coefficients β_P their best coefficients are
+# β_U = G_UU⁺(c_U − G_UP β_P), so they are partialled out first and the penalized
+# columns solve the reduced problem (G_PP − G_PU G_UU⁺ G_UP, c_P − G_PU G_UU⁺ c_U).
+# On that reduced problem an exact rescaling turns the factors into a plain penalty
+# where one exists:
+#   * every factor 1: the plain solver as is;
+#   * ridge: γ = √v·β turns Σ vⱼβⱼ² into ‖γ‖² (closed form by eigen-decomposition);
+#   * lasso: γ = v·β turns Σ vⱼ|βⱼ| into ‖γ‖₁ (the plain lasso path with warm starts);
+#   * elastic net: no one rescaling serves both parts, so each α folds its weighted
+#     ridge part into the Gram, H = G + α(1−ρ)·diag(v), and solves the lasso γ = v·β
+#     on (S H S, S c), S = diag(1/v), warm-started from the previous α
+#     (coordinate descent with covariance updates, Friedman, Hastie & Tibshirani 2010).
+
+#: A reduced column whose variance left after partialling out the unpenalized
+#: columns is below this (of the standardized 1) is taken as explained by them.
+REDUCED_RTOL = 1e-10
+
+
+@dataclass(frozen=True)
+class _Reduced:
+    free: np.ndarray  # indices of unpenalized live columns
+    pen: np.ndarray  # indices of penalized live columns
+    M: np.ndarray  # G_UU⁺ G_UP
+    b0: np.ndarray  # G_UU⁺ c_U
+    sub: Problem  # the reduced problem over ``pen``
+    v: np.ndarray  # factors of ``pen``
+
+
+def _sub_problem(G: np.ndarray, c: np.ndarray, var_y: float) -> Problem:
+    k = c.shape[0]
+    live = np.diag(G) > REDUCED_RTOL if k else np.zeros(0, dtype=bool)
+    Gl = G[np.ix_(live, live)]
+    lam, V = np.linalg.eigh(Gl) if Gl.size else (np.zeros(0), np.zeros((0, 0)))
+    return Problem(G=G, c=c, mean=np.zeros(k), sd=np.ones(k), mean_y=0.0, live=live, evals=lam, evecs=V,
+                   var_y=var_y)
+
+
+def _reduce(problem: Problem, scale=None) -> _Reduced:
+    """Partial the unpenalized columns out; ``scale`` (p,) rescales the penalized ones (γ = β/scale)."""
+    v = problem.factors
+    free = np.flatnonzero(problem.live & (v == 0.0))
+    pen = np.flatnonzero(problem.live & (v > 0.0))
+    G, c = problem.G, problem.c
+    Gpp, cp = G[np.ix_(pen, pen)], c[pen]
+    var_y = float(problem.var_y)
+    if free.size:
+        lam, V = np.linalg.eigh(G[np.ix_(free, free)])
+        keep = lam > EIG_RTOL * max(float(lam[-1]), np.finfo(float).tiny)
+        pinv = (V[:, keep] / lam[keep]) @ V[:, keep].T
+        Gup = G[np.ix_(free, pen)]
+        M = pinv @ Gup
+        b0 = pinv @ c[free]
+        Gpp = Gpp - Gup.T @ M
+        cp = cp - Gup.T @ b0
+        var_y = max(var_y - float(c[free] @ b0), 0.0)
+    else:
+        M, b0 = np.zeros((0, pen.size)), np.zeros(0)
+    if scale is not None:
+        s = scale[pen]
+        Gpp, cp = Gpp * np.outer(s, s), cp * s
+    sub = _sub_problem(0.5 * (Gpp + Gpp.T), cp, var_y)
+    return _Reduced(free=free, pen=pen, M=M, b0=b0, sub=sub, v=v[pen])
+
+
+def factor_scores(problem: Problem) -> np.ndarray:
+    """|cⱼ|/vⱼ of the penalized columns after partialling out the unpenalized ones.
+
+    The largest is ``ρ·α_max``: above it every penalized coefficient is 0
+    (the KKT condition |c_j| ≤ αρvⱼ at β_P = 0).
+    """
+    if problem.factors is None:
+        return np.abs(problem.c)
+    r = _reduce(problem)
+    return np.abs(r.sub.c) / r.v if r.v.size else np.zeros(0)
+
+
+def factor_evals(problem: Problem) -> np.ndarray:
+    """Eigenvalues of the ridge problem the factors turn into (for the bottom of the ridge grid)."""
+    if problem.factors is None:
+        return problem.evals
+    v = problem.factors
+    scale = np.where(v > 0, 1.0 / np.sqrt(np.where(v > 0, v, 1.0)), 0.0)
+    return _reduce(problem, scale).sub.evals
+
+
+def factor_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None) -> np.ndarray:
+    """Standardized coefficients (len(alphas), p) with the problem's penalty factors."""
+    alphas = np.atleast_1d(np.asarray(alphas, dtype=float))
+    p = problem.c.shape[0]
+    out = np.zeros((alphas.size, p))
+    v = problem.factors
+    safe = np.where(v > 0, v, 1.0)
+    if l1_ratio == 0.0:
+        scale = np.where(v > 0, 1.0 / np.sqrt(safe), 0.0)
+    elif l1_ratio == 1.0 or np.all(v[problem.live & (v > 0)] == 1.0):
+        scale = np.where(v > 0, 1.0 / safe, 0.0) if l1_ratio == 1.0 else np.where(v > 0, 1.0, 0.0)
+    else:
+        scale = None
+    red = _reduce(problem, scale)
+    init = None
+    if coef_init is not None and red.pen.size:
+        init = np.asarray(coef_init, dtype=float)[red.pen]
+    if red.pen.size:
+        if scale is not None:
+            s = scale[red.pen]
+            g0 = None if init is None else init / s
+            beta_p = solve_beta(red.sub, alphas, l1_ratio, coef_init=g0) * s
+        else:
+            beta_p = _weighted_enet(red.sub, red.v, alphas, l1_ratio, init)
+        out[:, red.pen] = beta_p
+    if red.free.size:
+        out[:, red.free] = red.b0[None, :] - beta_p @ red.M.T if red.pen.size else red.b0[None, :]
+    return out
+
+
+def _weighted_enet(sub: Problem, v: np.ndarray, alphas: np.ndarray, l1_ratio: float, init) -> np.ndarray:
+    """Elastic net with factors ``v`` on a reduced problem: one lasso solve per α, warm-started."""
+    from sklearn.exceptions import ConvergenceWarning
+    from sklearn.linear_model import enet_path
+
+    out = np.zeros((alphas.size, sub.c.shape[0]))
+    live = np.flatnonzero(sub.live)
+    if live.size == 0:
+        return out
+    Gl, cl, vl = sub.G[np.ix_(live, live)], sub.c[live], v[live]
+    s = 1.0 / vl
+    ss = np.outer(s, s)
+    q = np.ascontiguousarray(cl * s)
+    # enet_path needs rows only for their shape and ‖y‖²: one row of norm² var_y
+    # keeps its objective equal to ours (its n_samples scaling is then 1).
+    X1 = np.zeros((1, live.size), order="F")
+    y1 = np.array([np.sqrt(max(sub.var_y, 0.0))])
+    gamma = np.zeros(live.size) if init is None else np.asarray(init, dtype=float)[live] / s
+    for i in np.argsort(-alphas, kind="stable"):
+        a = float(alphas[i])
+        Q = np.ascontiguousarray((Gl + np.diag(a * (1.0 - l1_ratio) * vl)) * ss)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ConvergenceWarning)
+            _, coefs, _ = enet_path(X1, y1, l1_ratio=1.0, alphas=[a * l1_ratio], precompute=Q, Xy=q, copy_X=False,
+                                    coef_init=np.asfortranarray(gamma), check_input=False, tol=CD_TOL,
+                                    max_iter=CD_MAX_ITER)
+        gamma = coefs[:, 0]
+        out[i, live] = gamma * s
+    return out

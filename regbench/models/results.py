@@ -22,7 +22,7 @@ import numpy as np
 
 from regbench.errors import DataError
 from regbench.models import spec
-from regbench.models.spec import Choice, ListOf, Number, OrNone, Text, Whole, setting
+from regbench.models.spec import Choice, ListOf, Number, OrNone, PerColumn, Text, Whole, setting
 
 #: Names of the four model families, in the order every view lists them.
 MODEL_NAMES = ("ols", "ridge", "lasso", "elastic_net")
@@ -70,6 +70,10 @@ class FitSettings:
         Columns OLS must keep when deciding what to set aside.
     rank_tol : float or None
         Relative rank tolerance for OLS (None: the engine's stated default).
+    penalty_factors : tuple of (str, float)
+        Penalty factor vⱼ ≥ 0 of a table column in every penalized model (1 when
+        not listed; 0: unpenalized, always kept).  A categorical column's factor
+        applies to all its indicator columns.
     """
 
     folds: int = setting(5, Whole(2, 1000, unit="folds", purpose="cross-validation"),
@@ -94,10 +98,19 @@ class FitSettings:
                                     "comma-separated columns OLS must keep when it sets columns aside", flag="--pin")
     rank_tol: Optional[float] = setting(None, OrNone(Number(0.0, 1.0), "the engine's default"),
                                         "relative rank tolerance for OLS")
+    penalty_factors: Tuple[Tuple[str, float], ...] = setting(
+        (), PerColumn(Number(0.0, 1e6, low_closed=True, high_closed=True,
+                             hint="0 leaves the column unpenalized (always kept), 1 is the default")),
+        "penalty factor of a column in every penalized model (0: unpenalized, always kept; 2: penalized "
+        "twice as hard); repeat for more columns", flag="--penalty-factor")
 
     def to_dict(self) -> dict:
         """Plain JSON values of every setting, in declaration order."""
-        return spec.to_dict(self)
+        out = spec.to_dict(self)
+        # Written only when set, so settings without factors (and their cache keys) stay as before.
+        if not self.penalty_factors:
+            out.pop("penalty_factors", None)
+        return out
 
     @classmethod
     def from_dict(cls, d: dict) -> "FitSettings":

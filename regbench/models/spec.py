@@ -235,6 +235,38 @@ class ListOf(Rule):
 
 
 @dataclass(frozen=True)
+class PerColumn(Rule):
+    """Column name → value pairs, each value passing ``each``: a tuple of pairs in
+    Python, an object ``{column: value}`` in JSON."""
+
+    each: Rule
+
+    def problem(self, value):
+        items = list(value.items()) if isinstance(value, dict) else value
+        if not isinstance(items, (tuple, list)):
+            return f"{_g(value)} is not a list of column = value pairs"
+        seen = set()
+        for pair in items:
+            if not (isinstance(pair, (tuple, list)) and len(pair) == 2 and isinstance(pair[0], str)):
+                return f"{_g(pair)} is not a column = value pair"
+            col, v = pair
+            p = self.each.problem(v)
+            if p is not None:
+                return f"{col}: {p}"
+            if col in seen:
+                return f"names '{col}' twice; give each column once"
+            seen.add(col)
+        return None
+
+    def coerce(self, value):
+        items = value.items() if isinstance(value, dict) else value
+        return tuple((str(c), self.each.coerce(v)) for c, v in items)
+
+    def dump(self, value):
+        return {c: self.each.dump(v) for c, v in value}
+
+
+@dataclass(frozen=True)
 class Spec:
     """One declared setting: rule, help text and, when it has one, its CLI flag."""
 

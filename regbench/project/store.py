@@ -520,7 +520,12 @@ def _session_state(ar: _Archive, doc, table):
         if key not in spec.specs(FitSettings):
             bad(f"settings.{key}", "is not a setting this version knows", "it may come from a newer regbench")
         bad(f"settings.{key}", f"is unusable: {text}")
+    if not isinstance(s.get("penalty_factors", {}), dict):
+        bad("settings.penalty_factors", "must be an object of column name -> factor")
     settings = FitSettings.from_dict(s)
+    for c, v in s.get("penalty_factors", {}).items():
+        if c not in names:
+            bad(f"settings.penalty_factors.{c}", "names a column that is not in the table")
     design_cols = set()
     try:
         design = build_design(table, roles)

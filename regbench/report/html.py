@@ -421,6 +421,8 @@ def _reproduce(session) -> str:
             ("Smallest α / largest α", num(s.penalty_ratio)), ("Elastic-net L1 ratios", ", ".join(f"{r:g}" for r in s.l1_ratios)),
             ("α choice", "fixed α = " + num(s.alpha) if s.alpha is not None else s.alpha_rule),
             ("Columns OLS must keep", ", ".join(s.pins) or "none"),
+            ("Penalty factors (penalized models)", ", ".join(f"{c} {num(v)}" for c, v in s.penalty_factors)
+             or "1 for every column"),
             ("OLS rank tolerance", "engine default" if s.rank_tol is None else num(s.rank_tol)),
             ("α set by hand", ", ".join(f"{model_label(k)} {num(v)}" for k, v in session.chosen_alpha.items()) or "none"),
             ("Extra fits", ", ".join(f"{x['name']} ({model_label(x['family'])}, α {num(x['alpha'])})"
@@ -429,8 +431,9 @@ def _reproduce(session) -> str:
             ("Table content SHA-256", session.table_hash),
             ("Project file", session.path or "(not saved)")]
     parts = [f"<p>To fit the same models again from the table:</p><pre class=\"cmd\">{e(_command(session))}</pre>",
-             "<p>Penalized models minimise (1/(2W))·Σ wᵢ(yᵢ − b₀ − xᵢβ)² + α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²) on "
-             "weighted-standardized columns (W = Σ wᵢ); ρ = 0 is ridge, ρ = 1 lasso. Coefficients are shown in "
+             "<p>Penalized models minimise (1/(2W))·Σ wᵢ(yᵢ − b₀ − xᵢβ)² + α·Σⱼ vⱼ(ρ|βⱼ| + (1−ρ)/2·βⱼ²) on "
+             "weighted-standardized columns (W = Σ wᵢ; vⱼ the column's penalty factor, 1 unless set); "
+             "ρ = 0 is ridge, ρ = 1 lasso. Coefficients are shown in "
              "the table's units unless marked standardized.</p>",
              table(["Setting", "Value"], rows), "<h3>Software</h3>", table(["Package", "Version"], _versions())]
     return "".join(parts)
@@ -460,6 +463,8 @@ def _command(session) -> str:
         args += ["--derive", d.spec]
     for name, alpha in sorted(session.chosen_alpha.items()):
         args += ["--chosen-alpha", f"{name}={float(alpha)!r}"]
+    for c, v in s.penalty_factors:
+        args += ["--penalty-factor", f"{c}={v:g}"]
     args += ["--bootstrap", str(session.bootstrap), "-o", "project.regbench"]
     return " ".join(shlex.quote(a) for a in args)
 
