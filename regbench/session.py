@@ -400,10 +400,10 @@ class Session:
             raise DataError(f"'{column}' is not a predictor of this session; "
                             f"predictors are: {', '.join(dict.fromkeys(design.sources))}")
         given = dict(self.settings.penalty_factors)
-        if factor is None or (_is_num(factor) and float(factor) == 1.0):
+        if factor is None or (isinstance(factor, (int, float)) and not isinstance(factor, bool) and factor == 1):
             given.pop(column, None)
         else:
-            given[column] = float(factor) if _is_num(factor) else factor
+            given[column] = factor  # checked with every other setting by set_settings
         self.set_settings(replace(self.settings, penalty_factors=tuple(given.items())))
 
     def set_alpha(self, name: str, alpha: Optional[float]) -> None:
