@@ -79,11 +79,14 @@ def _add_settings_options(p: argparse.ArgumentParser) -> None:
             kwargs.update(type=float, default=default)
         elif isinstance(rule, spec.Choice):
             kwargs.update(choices=rule.choices, default=default, metavar=None)
+        elif isinstance(rule, spec.Flag):
+            kwargs.update(action="store_true", default=default)
+            kwargs.pop("metavar")
         elif isinstance(rule, spec.PerColumn):
             kwargs.update(action="append", default=[], metavar="COL=VALUE")
         elif isinstance(rule, spec.ListOf):
             kwargs.update(default=",".join(f"{v:g}" if isinstance(v, float) else str(v) for v in default) or None)
-        if kwargs.get("default") not in (None, []):
+        if kwargs.get("default") not in (None, [], False):
             kwargs["help"] += f" (default {kwargs['default']})"
         p.add_argument(declared.flag, **kwargs)
 

@@ -40,6 +40,11 @@ DEFAULT_BOOTSTRAP = 200
 BOOTSTRAP = spec.Spec(spec.Whole(0, 100_000), "stability refits (0 skips the stability check)", flag="--bootstrap")
 
 
+def relaxations_of(results) -> dict:
+    """Relaxation γ of each relaxed family in ``results`` (empty when none is fitted)."""
+    return {n: float(pf.relaxation) for n, pf in results.penalized.items() if pf.relaxation is not None}
+
+
 def penalized_names(settings: FitSettings) -> tuple:
     """Names of the penalized families ``fit_all`` produces for ``settings``."""
     from regbench.models.engine import families
@@ -540,7 +545,8 @@ class Session:
 
             report(progress, 200, total * 100, f"stability ({n_boot} refits)")
             stability = bootstrap_stability(design, state.settings, alphas, n_boot=n_boot, seed=state.settings.seed,
-                                            progress=_within(progress, 2, total), cancel=cancel)
+                                            progress=_within(progress, 2, total), cancel=cancel,
+                                            relaxations=relaxations_of(results))
         report(progress, total * 100, total * 100, "done")
         return ComputedResults(fit_key=fit_key, key=key, results=results, stability=stability,
                                stability_alphas=alphas if stability is not None else {}, **derived)

@@ -47,8 +47,8 @@ class GroupRefits:
         α of each penalized family.
     """
 
-    def __init__(self, design, settings, alphas: dict):
-        from regbench.models.engine import families
+    def __init__(self, design, settings, alphas: dict, relaxations=None):
+        from regbench.models.engine import families, relaxation_for
 
         if design.groups is None:
             raise ModelError("refits from group cross-products need a group column")
@@ -62,7 +62,7 @@ class GroupRefits:
                 raise ModelError(f"no α given for {name}; pass one per model or set a fixed α in the settings")
             if not (np.isfinite(a) and a > 0):
                 raise ModelError(f"α = {a:g} for {name}: α must be a positive number")
-            self.families.append((name, float(rho), float(a)))
+            self.families.append((name, float(rho), float(a), relaxation_for(settings, name, relaxations)))
         _, parts = per_fold(design.X, design.y, design.weights, design.groups, self.n_groups)
         self.shift_x, self.shift_y = parts[0].shift_x, parts[0].shift_y
         self.W = np.array([s.W for s in parts])
@@ -97,16 +97,17 @@ class GroupRefits:
 
     def refit(self, counts: np.ndarray) -> dict:
         """OLS and each penalized family on the draw; dict of name -> LinearModel, OLS first."""
-        from regbench.models.penalized import Problem, model_from_problem
+        from regbench.models.engine import problem_for
+        from regbench.models.penalized import model_from_problem
 
         st = self.stats(counts)
         if not st.W > 0:
             raise ModelError("the rows being fitted have total weight 0; there is nothing to fit")
         columns = tuple(self.design.columns)
         out = {"ols": self._ols(st, counts)}
-        problem = Problem.from_stats(st)
-        for name, rho, a in self.families:
-            out[name] = model_from_problem(problem, name, rho, a, columns)
+        problem = problem_for(st, self.design, self.settings)  # with the settings' penalty factors
+        for name, rho, a, gamma in self.families:
+            out[name] = model_from_problem(problem, name, rho, a, columns, relaxation=gamma)
         return out
 
     def _ols(self, st: GramStats, counts) -> LinearModel:

@@ -118,7 +118,7 @@ def group_counts(n_groups: int, rng: np.random.Generator) -> np.ndarray:
 
 
 def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed: int = 0, progress=None,
-                        cancel=None, method: str = "auto") -> Stability:
+                        cancel=None, method: str = "auto", relaxations=None) -> Stability:
     """Refit every model on bootstrap samples at the fixed α of each family.
 
     Parameters
@@ -156,10 +156,10 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
     if method == "groups" and design.groups is None:
         raise DataError("stability from group cross-products needs a group column")
     with one_blas_thread():
-        return _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups)
+        return _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups, relaxations)
 
 
-def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups) -> Stability:
+def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups, relaxations=None) -> Stability:
     from regbench.models.engine import fit_models_at
     from regbench.models.ols import fit_ols
 
@@ -172,7 +172,7 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
     if by_groups:
         from regbench.analysis.group_refits import GroupRefits
 
-        refitter = GroupRefits(design, settings, alphas)
+        refitter = GroupRefits(design, settings, alphas, relaxations)
     for b in range(n_boot):
         check(cancel)
         try:
@@ -184,7 +184,8 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
                 counts = resample_counts(design, rng)
                 drawn = design.y[(counts > 0) & (design.weights > 0)]
                 flat += int(drawn.size == 0 or np.ptp(drawn) == 0)
-                models = fit_models_at(replace(design, weights=design.weights * counts), settings, alphas)
+                models = fit_models_at(replace(design, weights=design.weights * counts), settings, alphas,
+                                       relaxations)
         except ModelError as exc:
             what = "groups" if design.groups is not None else "rows"
             raise ModelError(f"bootstrap refit {b + 1} of {n_boot} (seed {seed}) could not be fitted on the {what} "

@@ -24,7 +24,9 @@ from regbench.models.gram import GramStats, gram_stats, per_fold
 from regbench.models import spec
 from regbench.models.penalized import (GAP_TOL, Problem, alpha_grid, duality_gaps, factor_evals, factor_scores,
                                       fit_path, model_from_problem, solve_beta)
-from regbench.models.results import Convergence, FitResults, FitSettings, LinearModel, PenalizedFit
+from regbench.models.relaxed import RELAXATION_GRID, base_of, blend, choose, refit_selected
+from regbench.models.results import (Convergence, FitResults, FitSettings, LinearModel, PathResult, PenalizedFit,
+                                     RelaxationCV)
 from regbench.progress import check, report
 
 
@@ -33,6 +35,8 @@ def families(settings: FitSettings):
     out = [("ridge", 0.0), ("lasso", 1.0)]
     for i, r in enumerate(settings.l1_ratios):
         out.append(("elastic_net" if i == 0 else f"elastic_net_{float(r):g}", float(r)))
+    if settings.fits_relaxed:
+        out += [("relaxed_lasso", 1.0), ("relaxed_elastic_net", float(settings.l1_ratios[0]))]
     return out
 
 
@@ -60,8 +64,12 @@ def design_factors(design, settings: FitSettings):
     return np.array([float(given.get(s, 1.0)) for s in sources])
 
 
-def _problem(stats: GramStats, design, settings: FitSettings) -> Problem:
+def problem_for(stats: GramStats, design, settings: FitSettings) -> Problem:
+    """The standardized problem of ``stats`` with the settings' penalty factors on ``design``'s columns."""
     return Problem.from_stats(stats, design_factors(design, settings))
+
+
+_problem = problem_for
 
 
 def _ols(design, settings):
@@ -111,9 +119,16 @@ def fit_all(design, settings: FitSettings = FitSettings(), progress=None, cancel
     train = [_problem(_training(full, f, k), design, settings) for k, f in enumerate(folds)]
     grouped = design.groups is not None
     penalized = {}
+    fold_betas = {}  # each family's fold fits along its grid, for the relaxed families
     for name, rho in fams:
         report(progress, step, total, f"{name.replace('_', ' ')}: path and cross-validation")
-        penalized[name] = _family(design, settings, problem, train, folds, name, rho, grouped, cancel)
+        base = base_of(name)
+        if base is None:
+            penalized[name] = _family(design, settings, problem, train, folds, name, rho, grouped, cancel,
+                                      keep=fold_betas)
+        else:
+            penalized[name] = _relaxed_family(design, settings, problem, train, folds, name, penalized[base],
+                                              fold_betas[base], grouped, cancel)
         check(cancel)
         step += 1
     report(progress, step, total, "done")
@@ -128,7 +143,7 @@ def _training(full: GramStats, fold: GramStats, k: int) -> GramStats:
     return t
 
 
-def _family(design, settings, problem, train, folds, name, rho, grouped, cancel) -> PenalizedFit:
+def _family(design, settings, problem, train, folds, name, rho, grouped, cancel, keep=None) -> PenalizedFit:
     # With penalty factors the grid's top comes from the penalized columns after
     # partialling out the unpenalized ones (|c_j|/v_j), the ridge bottom from the
     # problem the factors turn ridge into.
@@ -141,6 +156,8 @@ def _family(design, settings, problem, train, folds, name, rho, grouped, cancel)
     for k, (tp, f) in enumerate(zip(train, folds)):
         check(cancel)
         beta_k = solve_beta(tp, grid, rho)
+        if keep is not None:
+            keep.setdefault(name, []).append(beta_k)
         fold_gaps[k] = float(np.max(duality_gaps(tp, beta_k, grid, rho), initial=0.0))
         coef, b0 = tp.to_original(beta_k)
         errors[k] = cvmod.heldout_mse(f, coef, b0)
@@ -154,6 +171,62 @@ def _family(design, settings, problem, train, folds, name, rho, grouped, cancel)
     conv = certificate(path_gaps, model.gap, fold_gaps)
     return PenalizedFit(name=name, l1_ratio=rho, path=path, cv=cvres, alpha=alpha, alpha_rule=rule, model=model,
                         convergence=conv)
+
+
+def _relaxed_family(design, settings, problem, train, folds, name, base: PenalizedFit, base_folds, grouped,
+                    cancel) -> PenalizedFit:
+    """A relaxed family from its base family's path and fold fits (same grid, same folds).
+
+    Each fold's penalized fit at each α is refitted without penalty on the
+    columns it selected; every relaxation γ of the grid (or the fixed one) is
+    scored on the held-out fold, and (α, γ) is chosen by the α rule (see
+    :func:`regbench.models.relaxed.choose`).
+    """
+    grid = base.path.alphas
+    rho = float(base.l1_ratio)
+    gammas = (float(settings.relaxation),) if settings.relaxation is not None else RELAXATION_GRID
+    errors = np.empty((len(folds), len(gammas), grid.size))
+    for k, (tp, f) in enumerate(zip(train, folds)):
+        check(cancel)
+        bp = base_folds[k]
+        br = refit_selected(tp, bp)
+        for g, gamma in enumerate(gammas):
+            coef, b0 = tp.to_original(blend(bp, br, gamma))
+            errors[k, g] = cvmod.heldout_mse(f, coef, b0)
+    cvs = [cvmod.summarize(grid, errors[:, g], grouped) for g in range(len(gammas))]
+    mean = np.stack([c.mean for c in cvs])
+    se = np.stack([c.se for c in cvs])
+    if settings.alpha is not None:
+        alpha, rule = float(settings.alpha), "fixed"
+        i = int(np.argmin(np.abs(np.log(grid) - np.log(alpha))))
+        g = int(np.nanargmin(mean[:, i]))
+    else:
+        rule = settings.alpha_rule
+        i, g = choose(grid, gammas, mean, se, rule)
+        alpha = float(grid[i])
+    gamma = float(gammas[g])
+    beta_path = blend(base.path.coef_std, refit_selected(problem, base.path.coef_std), gamma)
+    coef, intercepts = problem.to_original(beta_path)
+    path = PathResult(name=name, l1_ratio=rho, alphas=grid.copy(), coef=coef, coef_std=beta_path,
+                      intercepts=np.asarray(intercepts, dtype=float), columns=tuple(design.columns))
+    bm = base.model
+    if bm.alpha == alpha:
+        beta = blend(bm.coef_std, refit_selected(problem, bm.coef_std), gamma)
+        c, b0 = problem.to_original(beta)
+        model = LinearModel(name=name, columns=tuple(design.columns), intercept=float(b0), coef=c, coef_std=beta,
+                            alpha=alpha, l1_ratio=rho, gap=bm.gap, converged=bm.converged, relaxation=gamma)
+    else:
+        model = model_from_problem(problem, name, rho, alpha, design.columns, coef_init=bm.coef_std,
+                                   relaxation=gamma)
+    # The penalized fits behind the path and the folds are the base family's: so is the certificate,
+    # with the chosen fit's own gap when it was solved here.
+    conv = base.convergence
+    if conv is not None and model.gap is not None and model.gap > conv.max_gap:
+        conv = Convergence(converged=bool(conv.converged and model.converged), max_gap=float(model.gap),
+                           tolerance=conv.tolerance, gaps=conv.gaps.copy(), worst="chosen fit")
+    rcv = RelaxationCV(relaxations=np.asarray(gammas, dtype=float), alphas=grid.copy(), mean=mean, se=se)
+    return PenalizedFit(name=name, l1_ratio=rho, path=path, cv=cvs[g], alpha=alpha, alpha_rule=rule, model=model,
+                        convergence=conv, relaxation=gamma, relaxation_cv=rcv)
 
 
 def certificate(path_gaps, model_gap, fold_gaps=()) -> Convergence:
@@ -197,11 +270,24 @@ def model_at(design, results: FitResults, name: str, alpha: float) -> LinearMode
     stats = results.gram if isinstance(results.gram, GramStats) else gram_stats(design.X, design.y, design.weights)
     problem = _problem(stats, design, results.settings)
     init = None
-    pf = results.penalized.get(name)
+    pf = results.penalized.get(base_of(name) or name)
     if pf is not None and rho > 0:
         i = int(np.argmin(np.abs(np.log(pf.path.alphas) - np.log(alpha))))
         init = pf.path.coef_std[i]
-    return model_from_problem(problem, name, rho, float(alpha), design.columns, coef_init=init)
+    return model_from_problem(problem, name, rho, float(alpha), design.columns, coef_init=init,
+                              relaxation=_relaxation_of(results, name))
+
+
+def _relaxation_of(results: FitResults, name: str):
+    """The relaxation γ of a relaxed family (None for any other)."""
+    if base_of(name) is None:
+        return None
+    pf = results.penalized.get(name)
+    if pf is not None and pf.relaxation is not None:
+        return float(pf.relaxation)
+    if results.settings.relaxation is not None:
+        return float(results.settings.relaxation)
+    raise ModelError(f"{name}: its relaxation is not known; fit again")
 
 
 def heldout_predictions(design, results: FitResults, models: dict) -> dict:
@@ -239,7 +325,8 @@ def heldout_predictions(design, results: FitResults, models: dict) -> dict:
                 if problems[k] is None:
                     problems[k] = _problem(train_stats[k], design, results.settings)
                 rho = float(m.l1_ratio) if m.l1_ratio is not None else _l1_ratio_of(results, name)
-                fm = model_from_problem(problems[k], name, rho, float(m.alpha), design.columns, coef_init=m.coef_std)
+                fm = model_from_problem(problems[k], name, rho, float(m.alpha), design.columns, coef_init=m.coef_std,
+                                        relaxation=m.relaxation)
             pred[rows[k]] = fm.predict(design.X[rows[k]])
         out[name] = pred
     return out
@@ -277,7 +364,8 @@ def _ols_on_stats(design, stats: GramStats, train_rows, kept) -> LinearModel:
                        coef_std=coef * stats.sd_x())
 
 
-def fit_models_at(design, settings: FitSettings, alphas: Optional[dict] = None) -> dict:
+def fit_models_at(design, settings: FitSettings, alphas: Optional[dict] = None,
+                  relaxations: Optional[dict] = None) -> dict:
     """OLS and each penalized family at a given α; no path and no CV (for refits).
 
     Parameters
@@ -286,6 +374,9 @@ def fit_models_at(design, settings: FitSettings, alphas: Optional[dict] = None) 
     settings : FitSettings
     alphas : dict of name -> float, optional
         α of each penalized family; a family missing here uses ``settings.alpha``.
+    relaxations : dict of name -> float, optional
+        Relaxation γ of each relaxed family; a family missing here uses
+        ``settings.relaxation``.
 
     Returns
     -------
@@ -300,5 +391,16 @@ def fit_models_at(design, settings: FitSettings, alphas: Optional[dict] = None) 
             raise ModelError(f"no α given for {name}; pass one per model or set a fixed α in the settings")
         if not (np.isfinite(a) and a > 0):
             raise ModelError(f"α = {a:g} for {name}: α must be a positive number")
-        out[name] = model_from_problem(problem, name, rho, float(a), design.columns)
+        out[name] = model_from_problem(problem, name, rho, float(a), design.columns,
+                                       relaxation=relaxation_for(settings, name, relaxations))
     return out
+
+
+def relaxation_for(settings: FitSettings, name: str, relaxations: Optional[dict] = None):
+    """γ of relaxed family ``name`` from ``relaxations`` or the settings (None for other families)."""
+    if base_of(name) is None:
+        return None
+    g = (relaxations or {}).get(name, settings.relaxation)
+    if g is None:
+        raise ModelError(f"no relaxation given for {name}; pass one per relaxed model or fix it in the settings")
+    return float(g)

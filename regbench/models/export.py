@@ -77,6 +77,16 @@ def _penalized_json(pf, columns) -> dict:
         "cv": None,
         "convergence": None if pf.convergence is None else pf.convergence.to_dict(),
     }
+    if pf.relaxation is not None:
+        # Relaxed families: the chosen γ and the CV error over (γ, α); `path` is along α at that γ.
+        out["relaxation"] = _num(pf.relaxation)
+        rcv = pf.relaxation_cv
+        if rcv is not None:
+            out["relaxation_cv"] = {
+                "relaxations": [_num(g) for g in rcv.relaxations],
+                "mean": [[_num(v) for v in row] for row in rcv.mean],
+                "se": [[_num(v) for v in row] for row in rcv.se],
+            }
     if pf.cv is not None:
         cv = pf.cv
         out["cv"] = {
@@ -210,8 +220,9 @@ def fit_summary_text(design, results) -> str:
         if pf.cv is not None:
             i = int(np.argmin(np.abs(np.log(pf.cv.alphas) - np.log(pf.alpha))))
             cv_txt = f", held-out RMSE {_fmt(math.sqrt(max(pf.cv.mean[i], 0.0)))} (at the nearest grid α)"
+        relax = "" if pf.relaxation is None else f", relaxation {_fmt(pf.relaxation)}"
         lines.append(f"  {model_label(name)}: α {_fmt(pf.alpha)} ({rules.get(pf.alpha_rule, pf.alpha_rule)}), "
-                     f"L1 ratio {_fmt(pf.l1_ratio)}{cv_txt}")
+                     f"L1 ratio {_fmt(pf.l1_ratio)}{relax}{cv_txt}")
         if pf.convergence is not None and not pf.convergence.converged:
             lines.append("    " + pf.convergence.sentence())
     if results.settings.penalty_factors:

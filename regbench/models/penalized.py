@@ -260,13 +260,24 @@ def fit_path(stats: GramStats, name: str, l1_ratio: float, alphas, columns, prob
 
 
 def model_from_problem(problem: Problem, name: str, l1_ratio: float, alpha: float, columns,
-                       coef_init=None) -> LinearModel:
-    """The exact fit of one family at one α."""
+                       coef_init=None, relaxation=None) -> LinearModel:
+    """The exact fit of one family at one α.
+
+    With ``relaxation`` γ (relaxed families) the penalized fit at α is blended
+    with the unpenalized refit on the columns it selected
+    (:mod:`regbench.models.relaxed`); the duality gap is the penalized fit's.
+    """
     beta = solve_beta(problem, [alpha], l1_ratio, coef_init=coef_init)[0]
-    coef, intercept = problem.to_original(beta)
     gap = float(duality_gaps(problem, beta, [alpha], l1_ratio)[0])
+    if relaxation is not None:
+        from regbench.models.relaxed import blend, refit_selected
+
+        beta = blend(beta, refit_selected(problem, beta), relaxation)
+        relaxation = float(relaxation)
+    coef, intercept = problem.to_original(beta)
     return LinearModel(name=name, columns=tuple(columns), intercept=float(intercept), coef=coef, coef_std=beta,
-                       alpha=float(alpha), l1_ratio=float(l1_ratio), gap=gap, converged=bool(gap <= GAP_TOL))
+                       alpha=float(alpha), l1_ratio=float(l1_ratio), gap=gap, converged=bool(gap <= GAP_TOL),
+                       relaxation=relaxation)
 
 
 def kkt_violation(problem: Problem, beta: np.ndarray, alpha: float, l1_ratio: float) -> float:

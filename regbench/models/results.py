@@ -22,11 +22,12 @@ import numpy as np
 
 from regbench.errors import DataError
 from regbench.models import spec
-from regbench.models.spec import Choice, ListOf, Number, OrNone, PerColumn, Text, Whole, setting
+from regbench.models.spec import Choice, Flag, ListOf, Number, OrNone, PerColumn, Text, Whole, setting
 
 #: Names of the four model families, in the order every view lists them.
 MODEL_NAMES = ("ols", "ridge", "lasso", "elastic_net")
-MODEL_LABELS = {"ols": "OLS", "ridge": "Ridge", "lasso": "Lasso", "elastic_net": "Elastic net"}
+MODEL_LABELS = {"ols": "OLS", "ridge": "Ridge", "lasso": "Lasso", "elastic_net": "Elastic net",
+                "relaxed_lasso": "Relaxed lasso", "relaxed_elastic_net": "Relaxed elastic net"}
 ALPHA_RULES = ("fixed", "cv_min", "cv_1se")
 
 
@@ -74,6 +75,12 @@ class FitSettings:
         Penalty factor vⱼ ≥ 0 of a table column in every penalized model (1 when
         not listed; 0: unpenalized, always kept).  A categorical column's factor
         applies to all its indicator columns.
+    relaxed : bool
+        Also fit the relaxed lasso and relaxed elastic net ('relaxed_lasso',
+        'relaxed_elastic_net'; see :mod:`regbench.models.relaxed`).
+    relaxation : float or None
+        Fixed relaxation γ in [0, 1] of the relaxed families instead of the CV
+        choice; setting it also fits them.
     """
 
     folds: int = setting(5, Whole(2, 1000, unit="folds", purpose="cross-validation"),
@@ -103,14 +110,31 @@ class FitSettings:
                              hint="0 leaves the column unpenalized (always kept), 1 is the default")),
         "penalty factor of a column in every penalized model (0: unpenalized, always kept; 2: penalized "
         "twice as hard); repeat for more columns", flag="--penalty-factor")
+    relaxed: bool = setting(False, Flag(), "also fit the relaxed lasso and relaxed elastic net (a refit on the "
+                            "columns each selected, relaxation chosen by cross-validation)", flag="--relaxed")
+    relaxation: Optional[float] = setting(
+        None, OrNone(Number(0.0, 1.0, low_closed=True, high_closed=True,
+                            hint="0 is the penalized fit, 1 the unpenalized refit on its selected columns"),
+                     "the CV choice"),
+        "fix the relaxation of the relaxed lasso and elastic net (0: the penalized fit, 1: the unpenalized "
+        "refit on the columns it selected) instead of the CV choice; implies --relaxed", flag="--relaxation")
 
     def to_dict(self) -> dict:
         """Plain JSON values of every setting, in declaration order."""
         out = spec.to_dict(self)
-        # Written only when set, so settings without factors (and their cache keys) stay as before.
+        # Written only when set, so settings without them (and their cache keys) stay as before.
         if not self.penalty_factors:
             out.pop("penalty_factors", None)
+        if not self.relaxed:
+            out.pop("relaxed", None)
+        if self.relaxation is None:
+            out.pop("relaxation", None)
         return out
+
+    @property
+    def fits_relaxed(self) -> bool:
+        """Whether the relaxed families are fitted."""
+        return bool(self.relaxed) or self.relaxation is not None
 
     @classmethod
     def from_dict(cls, d: dict) -> "FitSettings":
@@ -158,6 +182,8 @@ class LinearModel:
     gap: Optional[float] = None
     #: Whether ``gap`` is within the solver's tolerance; None when not known.
     converged: Optional[bool] = None
+    #: Relaxation γ of a relaxed family's model (see :mod:`regbench.models.relaxed`); None otherwise.
+    relaxation: Optional[float] = None
 
     @property
     def used(self) -> np.ndarray:
@@ -366,6 +392,19 @@ class Convergence:
 
 
 @dataclass(frozen=True)
+class RelaxationCV:
+    """Cross-validated error of a relaxed family over (relaxation γ, α), on the same folds as α.
+
+    ``mean`` and ``se`` have shape (len(relaxations), len(alphas)).
+    """
+
+    relaxations: np.ndarray
+    alphas: np.ndarray
+    mean: np.ndarray
+    se: np.ndarray
+
+
+@dataclass(frozen=True)
 class PenalizedFit:
     """One penalized model family: its path, its CV curve and the chosen model."""
 
@@ -378,6 +417,9 @@ class PenalizedFit:
     model: LinearModel
     #: None on results saved before the certificate existed.
     convergence: Optional[Convergence] = None
+    #: Chosen (or fixed) relaxation γ of a relaxed family; None for the other families.
+    relaxation: Optional[float] = None
+    relaxation_cv: Optional[RelaxationCV] = None
 
 
 @dataclass(frozen=True)

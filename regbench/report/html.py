@@ -246,7 +246,13 @@ def _fits(session) -> str:
         how = "set by hand" if name in session.chosen_alpha else {"cv_min": "lowest CV error",
                                                                   "cv_1se": "one-standard-error rule",
                                                                   "fixed": "fixed in the settings"}.get(pf.alpha_rule, pf.alpha_rule)
-        parts.append(f"<h3>{e(label)}: chosen α = {num(chosen)} ({e(how)})</h3>")
+        relax = "" if pf.relaxation is None else f", relaxation γ = {num(pf.relaxation)}"
+        parts.append(f"<h3>{e(label)}: chosen α = {num(chosen)} ({e(how)}){e(relax)}</h3>")
+        if pf.relaxation is not None:
+            parts.append('<p class="muted">' + e(
+                f"A refit without penalty on the columns {model_label(name.replace('relaxed_', '')).lower()} "
+                f"selected at each α, blended with it: coefficients = (1 − γ)·penalized + γ·refit; "
+                "γ = 0 is the penalized fit, γ = 1 the unpenalized refit (Meinshausen 2007).") + "</p>")
         parts.append(_convergence(pf, models.get(name)))
         cv = pf.cv
         caption = ("Top: each column's standardized coefficient as the penalty weakens from left to right, "
@@ -421,6 +427,8 @@ def _reproduce(session) -> str:
             ("Smallest α / largest α", num(s.penalty_ratio)), ("Elastic-net L1 ratios", ", ".join(f"{r:g}" for r in s.l1_ratios)),
             ("α choice", "fixed α = " + num(s.alpha) if s.alpha is not None else s.alpha_rule),
             ("Columns OLS must keep", ", ".join(s.pins) or "none"),
+            ("Relaxed lasso and elastic net", ("relaxation fixed at " + num(s.relaxation)) if s.relaxation is not None
+             else "relaxation by cross-validation" if s.relaxed else "not fitted"),
             ("Penalty factors (penalized models)", ", ".join(f"{c} {num(v)}" for c, v in s.penalty_factors)
              or "1 for every column"),
             ("OLS rank tolerance", "engine default" if s.rank_tol is None else num(s.rank_tol)),
@@ -465,6 +473,10 @@ def _command(session) -> str:
         args += ["--chosen-alpha", f"{name}={float(alpha)!r}"]
     for c, v in s.penalty_factors:
         args += ["--penalty-factor", f"{c}={v:g}"]
+    if s.relaxation is not None:
+        args += ["--relaxation", f"{s.relaxation:g}"]
+    elif s.relaxed:
+        args += ["--relaxed"]
     args += ["--bootstrap", str(session.bootstrap), "-o", "project.regbench"]
     return " ".join(shlex.quote(a) for a in args)
 
