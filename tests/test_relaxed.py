@@ -157,3 +157,25 @@ def test_cli_relaxed_json_and_session_report(tmp_path, capsys):
     assert back.cache_status == "used"
     assert back.results.penalized["relaxed_lasso"].relaxation == s.results.penalized["relaxed_lasso"].relaxation
     assert back.models()["relaxed_lasso"].alpha == 0.05
+    # A damaged relaxation in session.json is refused with the field named.
+    import hashlib
+    import zipfile
+
+    from regbench.errors import ProjectError
+
+    with zipfile.ZipFile(path) as zf:
+        members = {i.filename: zf.read(i) for i in zf.infolist()}
+    doc = json.loads(members["session.json"])
+    assert doc["settings"]["relaxed"] is True and "relaxation" not in doc["settings"]
+    doc["settings"]["relaxation"] = 2
+    members["session.json"] = json.dumps(doc).encode()
+    man = json.loads(members["manifest.json"])
+    man["members"] = [{"name": n, "size": len(b), "sha256": hashlib.sha256(b).hexdigest()}
+                      for n, b in members.items() if n != "manifest.json"]
+    members["manifest.json"] = json.dumps(man).encode()
+    bad = tmp_path / "bad.regbench"
+    with zipfile.ZipFile(bad, "w") as zf:
+        for n, b in members.items():
+            zf.writestr(n, b)
+    with pytest.raises(ProjectError, match="settings.relaxation"):
+        load_project(bad, compute=False)
