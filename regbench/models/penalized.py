@@ -35,7 +35,7 @@ One grid per family, from the whole design, is shared by every CV fold.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Optional
 
 import numpy as np
@@ -70,6 +70,8 @@ class Problem:
     var_y: float = 1.0  # ỹᵀWỹ/W, twice the objective at β = 0 (for the duality gap)
     #: Penalty factor vⱼ ≥ 0 of each column; None when every factor is 1.
     factors: Optional[np.ndarray] = None
+    #: Reduced problems with the factors, built once per problem (see :func:`_reduce`).
+    _reduced: dict = field(default_factory=dict, compare=False, repr=False)
 
     @classmethod
     def from_stats(cls, stats: GramStats, factors=None) -> "Problem":
@@ -397,8 +399,23 @@ def _sub_problem(G: np.ndarray, c: np.ndarray, var_y: float) -> Problem:
                    var_y=var_y)
 
 
-def _reduce(problem: Problem, scale=None) -> _Reduced:
-    """Partial the unpenalized columns out; ``scale`` (p,) rescales the penalized ones (γ = β/scale)."""
+def _reduce(problem: Problem, kind: str = "plain") -> _Reduced:
+    """The problem with its unpenalized columns partialled out, built once per ``kind``.
+
+    ``kind`` rescales the penalized columns (γ = β/scale): 'plain' not at all,
+    'ridge' by 1/√v, 'lasso' by 1/v.
+    """
+    v = problem.factors
+    if kind != "plain" and np.all(v[v > 0] == 1.0):
+        kind = "plain"  # factors of 0 and 1 only: no rescaling, one reduction serves every family
+    if kind not in problem._reduced:
+        safe = np.where(v > 0, v, 1.0)
+        scale = {"plain": None, "ridge": 1.0 / np.sqrt(safe), "lasso": 1.0 / safe}[kind]
+        problem._reduced[kind] = _build_reduced(problem, scale)
+    return problem._reduced[kind]
+
+
+def _build_reduced(problem: Problem, scale) -> _Reduced:
     v = problem.factors
     free = np.flatnonzero(problem.live & (v == 0.0))
     pen = np.flatnonzero(problem.live & (v > 0.0))
@@ -440,9 +457,7 @@ def factor_evals(problem: Problem) -> np.ndarray:
     """Eigenvalues of the ridge problem the factors turn into (for the bottom of the ridge grid)."""
     if problem.factors is None:
         return problem.evals
-    v = problem.factors
-    scale = np.where(v > 0, 1.0 / np.sqrt(np.where(v > 0, v, 1.0)), 0.0)
-    return _reduce(problem, scale).sub.evals
+    return _reduce(problem, "ridge").sub.evals
 
 
 def factor_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None) -> np.ndarray:
@@ -451,20 +466,22 @@ def factor_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None) -> np
     p = problem.c.shape[0]
     out = np.zeros((alphas.size, p))
     v = problem.factors
-    safe = np.where(v > 0, v, 1.0)
     if l1_ratio == 0.0:
-        scale = np.where(v > 0, 1.0 / np.sqrt(safe), 0.0)
-    elif l1_ratio == 1.0 or np.all(v[problem.live & (v > 0)] == 1.0):
-        scale = np.where(v > 0, 1.0 / safe, 0.0) if l1_ratio == 1.0 else np.where(v > 0, 1.0, 0.0)
+        kind = "ridge"
+    elif l1_ratio == 1.0:
+        kind = "lasso"
     else:
-        scale = None
-    red = _reduce(problem, scale)
+        kind = "plain"
+    red = _reduce(problem, kind)
+    # The elastic net needs its own route only when the penalized columns' factors differ from 1.
+    uniform = kind != "plain" or bool(np.all(red.v == 1.0))
+    v_scale = {"ridge": lambda x: 1.0 / np.sqrt(x), "lasso": lambda x: 1.0 / x, "plain": lambda x: np.ones_like(x)}
     init = None
     if coef_init is not None and red.pen.size:
         init = np.asarray(coef_init, dtype=float)[red.pen]
     if red.pen.size:
-        if scale is not None:
-            s = scale[red.pen]
+        if uniform:
+            s = v_scale[kind](red.v)
             g0 = None if init is None else init / s
             beta_p = solve_beta(red.sub, alphas, l1_ratio, coef_init=g0) * s
         else:
