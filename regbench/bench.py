@@ -32,6 +32,7 @@ import subprocess
 import sys
 import time
 from pathlib import Path
+from typing import Optional
 
 TARGET = "throughput"
 GROUPS = "batch"
@@ -213,14 +214,118 @@ def _worker_reference(job: dict) -> dict:
     }
 
 
-WORKERS = {"regbench": _worker_regbench, "reference": _worker_reference}
+def write_big_table(path: Path, rows: int, cols: int, chunk: int = 200_000, seed: int = 11) -> None:
+    """A sensor-line table of ``rows`` rows written row group by row group (memory bounded by ``chunk``)."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    rng = np.random.default_rng(seed)
+    n_groups, n_drivers = 200, 8
+    shift = rng.normal(0, 0.5, (n_groups, n_drivers))
+    loading = rng.normal(0, 1, (n_drivers, cols)) * (rng.random((n_drivers, cols)) < 0.4)
+    loading[rng.integers(0, n_drivers, cols), np.arange(cols)] += 1.0
+    scale = rng.uniform(0.5, 20, cols)
+    offset = rng.uniform(-50, 50, cols)
+    beta = np.zeros(n_drivers)
+    beta[:3] = (1.5, -0.8, 0.4)
+    labels = np.array([f"B{b:04d}" for b in range(n_groups)])
+    tmp = path.with_suffix(".parquet.tmp")
+    writer = None
+    try:
+        for k, a in enumerate(range(0, rows, chunk)):
+            m = min(chunk, rows - a)
+            r = np.random.default_rng([seed, k])
+            batch = r.integers(0, n_groups, m)
+            drivers = r.normal(0, 1, (m, n_drivers)) + shift[batch]
+            sensors = (drivers @ loading + r.normal(0, 0.3, (m, cols))) * scale + offset
+            arrays = [pa.array(labels[batch])] + [pa.array(sensors[:, j]) for j in range(cols)]
+            arrays.append(pa.array(100 + drivers @ beta + r.normal(0, 1.0, m)))
+            names = ["batch"] + [f"s{j + 1:03d}" for j in range(cols)] + [TARGET]
+            t = pa.Table.from_arrays(arrays, names=names)
+            if writer is None:
+                writer = pq.ParquetWriter(tmp, t.schema)
+            writer.write_table(t, row_group_size=chunk)
+            del sensors, drivers, arrays, t
+    finally:
+        if writer is not None:
+            writer.close()
+    os.replace(tmp, path)
 
 
-def _run(route: str, job: dict) -> dict:
-    """One whole process; wall time measured from outside."""
+def _worker_streamed(job: dict) -> dict:
+    """``regbench fit --memory-budget``'s route, timed inside one process."""
+    t0 = time.perf_counter()
+    from regbench.data import Roles
+    from regbench.data.stream import stream_fit
+    from regbench.models.ols import one_blas_thread
+    from regbench.models.results import FitSettings
+
+    import scipy.linalg  # noqa: F401
+    import sklearn.linear_model  # noqa: F401
+
+    t1 = time.perf_counter()
+    with one_blas_thread():
+        s = stream_fit(job["table"], Roles(target=TARGET, groups=GROUPS), FitSettings(folds=job["folds"]),
+                       memory_budget=job.get("budget"))
+    t2 = time.perf_counter()
+    return {"import": t1 - t0, "fit": t2 - t1, "peak_rss": _peak_rss_bytes(), "rows": s.rows_used,
+            "cols": len(s.design.columns), "lasso_alpha": s.results.penalized["lasso"].alpha}
+
+
+def _worker_scan(job: dict) -> dict:
+    """The floor of a streamed fit: one pyarrow scan into float64 batches and one weighted Gram pass."""
+    import numpy as np
+    import pyarrow.parquet as pq
+
+    from regbench.models.ols import one_blas_thread
+
+    t0 = time.perf_counter()
+    f = pq.ParquetFile(job["table"])
+    cols = [c for c in f.schema_arrow.names if c != GROUPS]
+    p = len(cols)
+    xx = np.zeros((p, p))
+    with one_blas_thread():
+        for b in f.iter_batches(batch_size=65_536, columns=cols):
+            X = np.column_stack([b.column(i).to_numpy() for i in range(p)])
+            w = np.ones(X.shape[0])
+            xx += X.T @ (X * w[:, None])
+    return {"scan_gram": time.perf_counter() - t0, "peak_rss": _peak_rss_bytes()}
+
+
+def _worker_project(job: dict) -> dict:
+    """A whole project (fit, comparisons, stress, and stability with ``bootstrap`` refits)."""
+    t0 = time.perf_counter()
+    from regbench.data import Roles
+    from regbench.models.results import FitSettings
+    from regbench.session import Session
+
+    s = Session.from_table_file(job["table"], Roles(target=TARGET, groups=GROUPS), FitSettings(folds=job["folds"]))
+    t1 = time.perf_counter()
+    s.compute_results(bootstrap=job["bootstrap"])
+    return {"load": t1 - t0, "compute": time.perf_counter() - t1}
+
+
+def _worker_cli_fit(job: dict) -> dict:
+    """``regbench fit TABLE --json`` as a user runs it."""
+    from regbench.cli import main
+
+    rc = main(["fit", job["table"], "--target", TARGET, "--groups", GROUPS, "--json", os.devnull])
+    return {"rc": rc}
+
+
+WORKERS = {"regbench": _worker_regbench, "reference": _worker_reference, "streamed": _worker_streamed,
+           "scan": _worker_scan, "project": _worker_project, "cli_fit": _worker_cli_fit}
+
+
+def _run(route: str, job: dict, timeout: Optional[float] = None) -> dict:
+    """One whole process; wall time measured from outside (None when it ran past ``timeout``)."""
     t = time.perf_counter()
-    proc = subprocess.run([sys.executable, "-m", "regbench.bench", route, json.dumps(job)],
-                          capture_output=True, text=True)
+    try:
+        proc = subprocess.run([sys.executable, "-m", "regbench.bench", route, json.dumps(job)],
+                              capture_output=True, text=True, timeout=timeout)
+    except subprocess.TimeoutExpired:
+        return None
     wall = time.perf_counter() - t
     if proc.returncode != 0:
         last = (proc.stderr.strip().splitlines() or ["no message"])[-1]
@@ -310,6 +415,54 @@ def _main(rows: int, cols: int, quick: bool) -> int:
           f"{o['one_gram_pass']:6.3f} s   beyond table {(o['peak_rss'] - o['rss_loaded']) / o['table_bytes']:.2f}×")
     p("")
     p("The cores are shared with other work on this machine; repeat for firm numbers.")
+    return 0
+
+
+def _paired(a_route, a_job, b_route, b_job, pairs):
+    """Walls of ``pairs`` alternating runs of two routes and the median of their ratios a/b."""
+    ratios, a_w, b_w = [], [], []
+    for _ in range(pairs):
+        a = _run(a_route, a_job)
+        b = _run(b_route, b_job)
+        a_w.append(a["wall"])
+        b_w.append(b["wall"])
+        ratios.append(a["wall"] / b["wall"])
+    return statistics.median(a_w), statistics.median(b_w), statistics.median(ratios)
+
+
+def targets(big: bool = False, pairs: int = 3) -> int:
+    """Each target of the one-pass work as a ratio measured in this run (medians of paired runs)."""
+    p = functools.partial(print, flush=True)
+    load = os.getloadavg()
+    p(f"regbench bench --targets — {os.cpu_count()} cores, load average {load[0]:.1f} / {load[1]:.1f} / {load[2]:.1f} "
+      f"at {time.strftime('%H:%M', time.gmtime())} UTC; medians of {pairs} paired runs")
+    job = prepare(100_000, 100)
+    # Stability: the whole project with 200 grouped bootstrap refits against the project without.
+    with_s = dict(job, bootstrap=200)
+    without = dict(job, bootstrap=0)
+    a, b, r = _paired("project", with_s, "project", without, pairs)
+    p(f"  stability: project with 200 grouped refits {a:.2f} s / without {b:.2f} s = {r:.2f}× (target ≤ 1.5×)")
+    # Start-up: `regbench fit` on 10k × 100 against the scripted route.
+    small = prepare(10_000, 100)
+    a, b, r = _paired("reference", small, "cli_fit", small, pairs)
+    p(f"  10k × 100: scripted route {a:.2f} s / `regbench fit` {b:.2f} s = {r:.1f}× (target ≥ 5×)")
+    if not big:
+        p("  (the 3M and 10M row tables run with --big)")
+        return 0
+    d = _data_dir()
+    for rows, budget, label in ((3_000_000, 500_000_000, "3M"), (10_000_000, 500_000_000, "10M")):
+        path = d / f"sensor_line_big_{rows}x100.parquet"
+        if not path.exists():
+            t = time.perf_counter()
+            write_big_table(path, rows, 100)
+            p(f"  wrote {path.name} ({path.stat().st_size / 1e9:.1f} GB) in {time.perf_counter() - t:.0f} s")
+        j = {"table": str(path), "folds": 5, "budget": budget}
+        a, b, r = _paired("streamed", j, "scan", j, 1 if rows > 5e6 else pairs)
+        s = _run("streamed", j)
+        table = rows * 101 * 8
+        p(f"  {label} × 100 with --memory-budget {budget / 1e6:.0f}MB: peak {s['peak_rss'] / 2**30:.2f} GiB "
+          f"({s['peak_rss'] / table:.2f}× the {table / 2**30:.2f} GiB float64 table; target under 1.2 GB at 3M); "
+          f"fit {a:.1f} s / one pyarrow scan + one Gram pass {b:.1f} s = {r:.2f}× (target ≤ 3× at 10M)")
     return 0
 
 

@@ -136,6 +136,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--rows", type=int, default=100_000)
     p.add_argument("--cols", type=int, default=100)
     p.add_argument("--quick", action="store_true", help="a small run to check the benchmark works")
+    p.add_argument("--targets", action="store_true",
+                   help="print each one-pass target as a ratio: stability cost, start-up, big tables")
+    p.add_argument("--big", action="store_true",
+                   help="with --targets: also the 3M and 10M row tables (about 10 GB of disk, several minutes)")
+    p.add_argument("--pairs", type=int, default=3, help="paired runs per ratio (default 3)")
 
     p = sub.add_parser("open", help="open a table or project in the desktop window")
     p.add_argument("path", nargs="?")
@@ -387,6 +392,10 @@ def cmd_report(args) -> int:
 def cmd_bench(args) -> int:
     from regbench.bench import main as bench_main
 
+    if args.targets:
+        from regbench.bench import targets
+
+        return targets(big=args.big, pairs=args.pairs)
     return bench_main(rows=args.rows, cols=args.cols, quick=args.quick)
 
 

@@ -144,10 +144,11 @@ def estimate_in_memory_bytes(path, n_columns: Optional[int] = None) -> Optional[
 
 
 def batch_rows_for(budget: Optional[int], n_columns: int) -> int:
-    """Rows per batch so that a batch and its temporaries (about 6 copies) use an eighth of the budget."""
+    """Rows per batch: a batch of float64 cells takes a sixteenth of the budget (it and its
+    temporaries, about five copies, a third; the interpreter and libraries most of the rest)."""
     if budget is None:
         return 65_536
-    return int(max(1024, min(1_000_000, budget / 8 / (6 * 8 * max(n_columns, 1)))))
+    return int(max(4096, min(262_144, budget / 16 / (8 * max(n_columns, 1)))))
 
 
 def read_batches(part: Part, columns, batch_rows: int, numeric=()):
@@ -338,6 +339,118 @@ def rows_pass(part: Part, plan: Plan, cancel=None) -> RowsInfo:
     return info
 
 
+def group_pass(part: Part, plan: Plan, part_index: int, sample_rate: float, seed: int, cancel=None):
+    """The single pass over one part of a grouped table: everything the fit needs.
+
+    Gathers what :func:`rows_pass` learns, each group's cross-products (centred
+    co-moments, merged batch by batch), the OLS factor of the part's usable rows,
+    and a seeded sample of rows: table row i is kept when a uniform draw of the
+    part's own generator falls below ``sample_rate`` (one draw per table row, so
+    the sample does not depend on the batch size).  The folds are fixed later,
+    from the groups' totals, as sums of whole groups' statistics.
+
+    Returns
+    -------
+    (RowsInfo, dict of label -> GramStats, FactorAccumulator, dict of sampled columns)
+    """
+    from regbench.models.gram import FactorAccumulator, _accumulate, _chunk_rows
+    from regbench.progress import check
+
+    p = len(plan.predictors)
+    chunk = _chunk_rows(p)
+    info = RowsInfo()
+    groups = {}
+    racc = FactorAccumulator(p)
+    got = {"X": [], "y": [], "w": [], "g": [], "row": []}
+    rng = np.random.default_rng([int(seed), int(part_index)])
+    offset = 0
+    for b in read_batches(part, plan.columns, plan.batch_rows, plan.numeric):
+        check(cancel)
+        n = b[plan.target].shape[0]
+        first = _part_first_row(part, offset)
+        keep = _keep_mask(b, plan, first, info)
+        u = rng.random(n)
+        offset += n
+        info.n_rows += n
+        m = int(keep.sum())
+        info.n_kept += m
+        if not m:
+            continue
+        X = np.empty((m, p))
+        for j, c in enumerate(plan.predictors):
+            X[:, j] = b[c][keep]
+        y = b[plan.target][keep]
+        w = b[plan.weights][keep] if plan.weights else np.ones(m)
+        gtext = _level_texts(b[plan.groups][keep]).astype(str)
+        labels, codes = np.unique(gtext, return_inverse=True)
+        _note_rows(info, X, y, w, labels, codes)
+        # Each group's sums are taken about the group's mean in the batch where it first
+        # appeared: a reference near its mean, so later batches add without cancelling and
+        # without a co-moment update per group and batch (parts merge by that update).
+        order = np.argsort(codes, kind="stable")
+        bounds = np.searchsorted(codes[order], np.arange(labels.size + 1))
+        for i, lab in enumerate(labels):
+            rows = order[bounds[i]:bounds[i + 1]]
+            lab = str(lab)
+            cur = groups.get(lab)
+            if cur is None:
+                wk = w[rows]
+                Wk = wk.sum()
+                Xk, yk = X[rows], y[rows]
+                shift = ((wk @ Xk) / Wk, float(wk @ yk) / Wk) if Wk > 0 else (Xk.mean(axis=0), float(yk.mean()))
+                groups[lab] = _accumulate(X, y, w, rows, shift[0], shift[1], chunk)
+            else:
+                groups[lab] = cur + _accumulate(X, y, w, rows, cur.shift_x, cur.shift_y, chunk)
+        racc.add(X, y, w)
+        pick = np.flatnonzero(u[keep] < sample_rate)
+        if pick.size:
+            got["X"].append(X[pick])
+            got["y"].append(y[pick])
+            got["w"].append(w[pick])
+            got["g"].append(gtext[pick])
+            got["row"].append(first + np.flatnonzero(keep)[pick] + 1)
+    return info, groups, racc, got
+
+
+def _note_rows(info: RowsInfo, X, y, w, labels, codes) -> None:
+    pos = w > 0
+    info.w_pos += int(pos.sum())
+    gw = np.bincount(codes, weights=w, minlength=labels.size)
+    gn = np.bincount(codes, minlength=labels.size)
+    for lab, a, c in zip(labels, gw, gn):
+        cur = info.groups.setdefault(str(lab), [0.0, 0])
+        cur[0] += float(a)
+        cur[1] += int(c)
+    if pos.any():
+        yp = y[pos]
+        info.y_range = (min(info.y_range[0], float(yp.min())), max(info.y_range[1], float(yp.max())))
+        Xp = X[pos]
+        mn, mx = Xp.min(axis=0), Xp.max(axis=0)
+        info.x_min = mn if info.x_min is None else np.minimum(info.x_min, mn)
+        info.x_max = mx if info.x_max is None else np.maximum(info.x_max, mx)
+
+
+def _columns_of(st, idx):
+    """Gram statistics restricted to the columns ``idx``."""
+    from regbench.models.gram import GramStats
+
+    return GramStats(W=st.W, n=st.n, shift_x=st.shift_x[idx], shift_y=st.shift_y, sx=st.sx[idx], sy=st.sy,
+                     xx=st.xx[np.ix_(idx, idx)], xy=st.xy[idx], yy=st.yy, xx_scale=st._scale()[idx])
+
+
+def _factor_columns(racc, idx):
+    """The factor of the columns ``idx`` (and the target) from the factor of all of them."""
+    from regbench.models.gram import FactorAccumulator
+    from regbench.models.ols import r_factor
+
+    cols = list(idx) + [racc.p]
+    out = FactorAccumulator(len(idx))
+    out.n, out.W, out.mean = racc.n, racc.W, racc.mean[cols].copy()
+    # RᵀR = ZᵀZ, so the R of a subset of Z's columns is the R of the same columns of R.
+    out.R = r_factor(np.asfortranarray(racc.R[:, cols]))
+    return out
+
+
 def fold_of_groups(group_weight: np.ndarray, group_rows: np.ndarray, K: int, seed: int) -> np.ndarray:
     """Fold of each group (groups in sorted label order), as :func:`regbench.models.cv.fold_ids` assigns it."""
     g = group_weight.size
@@ -486,6 +599,94 @@ def plan_for(path, roles, budget: Optional[int]) -> Plan:
                 batch_rows=batch_rows_for(budget, len(predictors) + 3))
 
 
+def _folds_by_group(info: RowsInfo, plan: Plan, K: int, seed: int):
+    labels = tuple(sorted(info.groups))
+    if len(labels) < K:
+        raise DataError(f"'{plan.groups}' has only {len(labels)} groups for {K} folds; choose at most "
+                        f"{len(labels)} folds (every group must stay inside one fold)")
+    gw = np.array([info.groups[k][0] for k in labels])
+    gn = np.array([info.groups[k][1] for k in labels])
+    return labels, {lab: int(f) for lab, f in zip(labels, fold_of_groups(gw, gn, K, seed))}
+
+
+def _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run, runner) -> "StreamedFit":
+    """One pass for a grouped Parquet table: per-group statistics, folds as sums of whole groups."""
+    from regbench.data.design import Design, ExcludedRow
+    from regbench.models.gram import FoldAccumulator, merge
+    from regbench.progress import check, report
+
+    total = 3
+    n_rows = sum(part.rows for part in parts)
+    rate = min(1.0, sample_rows / max(n_rows, 1))
+    report(progress, 0, total, f"one pass over {len(parts)} part(s) of {Path(path).name}")
+    outs = run(group_pass, [(part, plan, i, rate, settings.seed) for i, part in enumerate(parts)])
+    check(cancel)
+    info, groups, racc, got = outs[0]
+    groups = dict(groups)
+    for i2, g2, r2, s2 in outs[1:]:
+        info = info.merge(i2)
+        for lab, st in g2.items():
+            groups[lab] = st if lab not in groups else merge(groups[lab], st)
+        racc = racc.combine(r2)
+        for k in got:
+            got[k] += s2[k]
+    src = str(path)
+    unusable, usable = _check_rows(info, plan, src)
+    idx = np.array([plan.predictors.index(c) for c in usable], dtype=int)
+    if idx.size < len(plan.predictors):
+        groups = {lab: _columns_of(st, idx) for lab, st in groups.items()}
+        racc = _factor_columns(racc, idx)
+    K = int(settings.folds)
+    labels, group_fold = _folds_by_group(info, plan, K, settings.seed)
+    acc = FoldAccumulator(len(usable), K)
+    for lab in labels:
+        k = group_fold[lab]
+        acc.folds[k] = groups[lab] if acc.folds[k] is None else merge(acc.folds[k], groups[lab])
+    full, fold_stats = acc.result()
+    cat = lambda k, shape: np.concatenate(got[k]) if got[k] else np.zeros(shape)  # noqa: E731
+    gtext = cat("g", 0)
+    code = {lab: i for i, lab in enumerate(labels)}
+    X = cat("X", (0, len(plan.predictors)))[:, idx]
+    design = Design(
+        X=np.ascontiguousarray(X), y=cat("y", 0), weights=cat("w", 0),
+        groups=np.array([code[t] for t in gtext], dtype=np.int64),
+        columns=usable, sources=usable, target=plan.target, row_numbers=cat("row", 0).astype(np.int64),
+        excluded=tuple(ExcludedRow(r, c, why) for r, c, why in info.excluded), unusable=unusable,
+        group_labels=labels, weights_column=plan.weights, groups_column=plan.groups, n_table_rows=info.n_rows)
+    report(progress, 1, total, "fitting every model from the cross-products")
+    ids = np.array([group_fold[t] for t in gtext], dtype=np.int64)
+    results = fit_from_stats(design, settings, full, fold_stats, racc, ids, info.n_kept, cancel=cancel)
+    report(progress, total, total, "done")
+    return StreamedFit(design=design, results=results, rows_used=info.n_kept, sampled=design.n < info.n_kept,
+                       excluded_total=info.n_excluded, route="streamed" if runner is None else "cluster")
+
+
+def _check_rows(info: RowsInfo, plan: Plan, src: str):
+    """The in-memory route's refusals, and the predictors set aside as constant."""
+    if info.n_kept == 0:
+        raise DataError(f"{src}: every row was excluded (first reason: row {info.excluded[0][0]}, column "
+                        f"'{info.excluded[0][1]}': {info.excluded[0][2]}); check the roles and the missing values"
+                        if info.excluded else f"{src}: the table has no rows")
+    if info.w_pos == 0:
+        raise DataError(f"{src}: weights column '{plan.weights}' is zero on every usable row; weights must add up to "
+                        "more than 0")
+    if info.y_range[0] == info.y_range[1]:
+        raise DataError(f"{src}: target '{plan.target}' has the same value ({info.y_range[0]:g}) on every usable "
+                        "row, so there is nothing to explain; choose another target")
+    from regbench.data.design import UnusableColumn
+
+    constant = info.x_min == info.x_max
+    unusable = tuple(UnusableColumn(c, f"constant ({info.x_min[j]:g}) on every usable row")
+                     for j, c in enumerate(plan.predictors) if constant[j])
+    usable = tuple(c for j, c in enumerate(plan.predictors) if not constant[j])
+    if not usable:
+        raise DataError(f"{src}: no usable predictor remains; choose other predictors")
+    if len(usable) >= info.w_pos:
+        raise DataError(f"{src}: {len(usable)} predictor columns but only {info.w_pos} usable rows; a linear model "
+                        "needs more rows than predictors. Choose fewer predictors or add rows")
+    return unusable, usable
+
+
 def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sample_rows: int = SAMPLE_ROWS,
                progress=None, cancel=None, runner=None) -> StreamedFit:
     """Fit every model on a table read in batches (or by cluster workers through ``runner``).
@@ -514,6 +715,8 @@ def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sa
     plan = plan_for(path, roles, memory_budget)
     parts = parts_of(path)
     total = 4
+    if plan.groups and all(part.rows is not None for part in parts):
+        return _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run, runner)
     report(progress, 0, total, f"reading {len(parts)} part(s) of {Path(path).name}: which rows are usable")
     infos = run(rows_pass, [(part, plan) for part in parts])
     check(cancel)
@@ -521,38 +724,15 @@ def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sa
     for other in infos[1:]:
         info = info.merge(other)
     src = str(path)
-    if info.n_kept == 0:
-        raise DataError(f"{src}: every row was excluded (first reason: row {info.excluded[0][0]}, column "
-                        f"'{info.excluded[0][1]}': {info.excluded[0][2]}); check the roles and the missing values"
-                        if info.excluded else f"{src}: the table has no rows")
-    if info.w_pos == 0:
-        raise DataError(f"{src}: weights column '{plan.weights}' is zero on every usable row; weights must add up to "
-                        "more than 0")
-    if info.y_range[0] == info.y_range[1]:
-        raise DataError(f"{src}: target '{plan.target}' has the same value ({info.y_range[0]:g}) on every usable "
-                        "row, so there is nothing to explain; choose another target")
-    from regbench.data.design import Design, ExcludedRow, UnusableColumn
+    unusable, usable = _check_rows(info, plan, src)
+    from regbench.data.design import Design, ExcludedRow
 
-    constant = info.x_min == info.x_max
-    unusable = tuple(UnusableColumn(c, f"constant ({info.x_min[j]:g}) on every usable row")
-                     for j, c in enumerate(plan.predictors) if constant[j])
-    usable = tuple(c for j, c in enumerate(plan.predictors) if not constant[j])
-    if not usable:
-        raise DataError(f"{src}: no usable predictor remains; choose other predictors")
-    if len(usable) >= info.w_pos:
-        raise DataError(f"{src}: {len(usable)} predictor columns but only {info.w_pos} usable rows; a linear model "
-                        "needs more rows than predictors. Choose fewer predictors or add rows")
     plan2 = Plan(plan.target, usable, plan.weights, plan.groups, plan.batch_rows)
     K = int(settings.folds)
     labels = tuple(sorted(info.groups))
     if plan.groups:
-        if len(labels) < K:
-            raise DataError(f"'{plan.groups}' has only {len(labels)} groups for {K} folds; choose at most "
-                            f"{len(labels)} folds (every group must stay inside one fold)")
-        gw = np.array([info.groups[k][0] for k in labels])
-        gn = np.array([info.groups[k][1] for k in labels])
-        fog = fold_of_groups(gw, gn, K, settings.seed)
-        folds = Folds(K, group_fold={lab: int(f) for lab, f in zip(labels, fog)})
+        labels, group_fold = _folds_by_group(info, plan, K, settings.seed)
+        folds = Folds(K, group_fold=group_fold)
     else:
         from regbench.models.cv import fold_ids
 
