@@ -1,0 +1,589 @@
+"""Ranges over every near-best linear model: what the data settle and what they do not.
+
+The set
+-------
+For least squares with a free intercept, the weighted training mean squared
+error of a coefficient vector β (intercept at its best value for β) is exactly::
+
+    MSE(β) = MSE* + (β − β̂)ᵀ G (β − β̂)
+
+with β̂ the OLS fit, MSE* its weighted mean squared error per unit weight
+(Σ wᵢeᵢ² / Σ wᵢ) and G the weighted, centred cross-product matrix of the design
+per unit weight.  Every model within a relative tolerance τ of the best,
+``MSE(β) ≤ (1 + τ)·MSE*``, therefore lies in the ellipsoid
+``(β − β̂)ᵀ G (β − β̂) ≤ τ·MSE*`` (the "Rashomon set" of Semenova, Rudin & Parr
+2022; Breiman 2001), and every range below is exact, from p×p work after the
+one pass over the rows:
+
+* coefficient j: ``β̂ⱼ ± sqrt(τ·MSE*·(G⁺)ⱼⱼ)`` when eⱼ lies in the range of G;
+  unbounded when an exact dependency (a column OLS set aside) moves it;
+* prediction at a row x: ``x̂ ± sqrt(τ·MSE*·(x − x̄)ᵀ G⁺ (x − x̄))`` (viable
+  prediction ranges, Watson-Daniels, Parkes & Ustun 2023); every row of the
+  table lies in the range of G, so its range is finite;
+* importance of column j for a model β: the mean squared change of the model's
+  predictions when column j is replaced by an independent copy of itself,
+  ``2·βⱼ²·Var(xⱼ)`` (the prediction-side form of model reliance, Fisher, Rudin &
+  Dominici 2019); for OLS it equals the increase of its error.  Its range over
+  the set follows from the coefficient range.
+
+The rank decision is the one OLS made (same tolerance): the kept columns span
+the model, and each set-aside column is the combination of kept columns OLS
+reported.  So G = Tᵀ G_K T with T = [I | C] mapping a full β to the kept
+columns' effective weights, and a linear function aᵀβ is bounded exactly when
+a = Tᵀu, with half-width ``sqrt(τ·MSE*·uᵀG_K⁻¹u)``.  G_K is used through a
+triangular factor (from OLS's own factor of the rows, or from the cross-products
+of :class:`~regbench.models.gram.GramStats`), never inverted.
+
+Tolerance
+---------
+Either the user's τ (``--range-tolerance 0.01``: within 1 % of the best training
+error), or the held-out variant: models within one standard error of the lowest
+cross-validated error, taken as the relative size of that standard error,
+``τ = SE / CV error`` at the minimum of the family whose minimum is lowest.
+
+Yes/no outcomes: :func:`ranges_from_curvature` takes any p×p curvature matrix
+and centre (e.g. half the Hessian of the mean log-loss at the logistic fit, the
+intercept profiled out) and gives the same ranges for the quadratic
+approximation of that error; the result says so (``approximation``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Optional
+
+import numpy as np
+
+from regbench.formatting import number_text
+from regbench.models.results import MODEL_NAMES, model_label
+
+#: ``tolerance_kind`` of a tolerance the user set, and of the held-out variant.
+KIND_SET = "set"
+KIND_HELDOUT = "heldout_1se"
+TOLERANCE_KINDS = (KIND_SET, KIND_HELDOUT)
+#: Used when the held-out variant is asked for but no cross-validation exists.
+FALLBACK_TOLERANCE = 0.01
+#: Rows listed as "where equally good models disagree most".
+WIDEST_ROWS = 5
+#: Columns named beside a listed row (its most unusual values).
+ROW_COLUMNS = 3
+
+
+@dataclass(frozen=True)
+class ModelPlace:
+    """Where one fitted model sits in the set.
+
+    Attributes
+    ----------
+    name : str
+    excess : float
+        Its training error above the best, relative: MSE/MSE* − 1.
+    inside : bool
+        ``excess <= tolerance`` (up to round-off).
+    position : ndarray (p,)
+        Per column, (β − low)/(high − low): 0 at the low end, 1 at the high end,
+        outside [0, 1] beyond the range; NaN where the range is unbounded.
+    """
+
+    name: str
+    excess: float
+    inside: bool
+    position: np.ndarray
+
+
+@dataclass(frozen=True)
+class Ranges:
+    """Ranges of coefficients, importances and predictions over every near-best model.
+
+    Arrays of length p follow ``columns``; NaN marks an unbounded end.
+    """
+
+    columns: tuple
+    target: str
+    tolerance: float
+    tolerance_kind: str
+    tolerance_note: str
+    approximation: str  # 'exact' (least squares) or 'quadratic' (its curvature at a fit)
+    best_error: float
+    centre: np.ndarray
+    sd: np.ndarray
+    bounded: np.ndarray
+    low: np.ndarray
+    high: np.ndarray
+    low_std: np.ndarray
+    high_std: np.ndarray
+    sign_settled: np.ndarray
+    importance_low: np.ndarray
+    importance_high: np.ndarray
+    trades: tuple  # of dict(columns=tuple, sentence=str)
+    models: dict = field(default_factory=dict)  # name -> ModelPlace
+    row_numbers: np.ndarray = None  # (n,) 1-based table rows
+    row_centre: np.ndarray = None  # (n,) prediction of the centre model
+    row_half: np.ndarray = None  # (n,) half-width of the prediction range
+    widest: tuple = ()  # of dict(row, centre, low, high, width, unusual)
+    sentences: tuple = ()
+
+    @property
+    def budget(self) -> float:
+        """τ·MSE*: how much error a model in the set may add."""
+        return float(self.tolerance * self.best_error)
+
+    def to_dict(self) -> dict:
+        """Strict-JSON data: the ``ranges`` key of the fit JSON."""
+        return ranges_to_json(self)
+
+
+# -- the algebra ----------------------------------------------------------------------------
+
+class _Ellipsoid:
+    """``δᵀ Tᵀ R_KᵀR_K T δ ≤ budget``, with T = [I | C] over kept / set-aside columns."""
+
+    def __init__(self, p, kept, aside, RK, links, budget, quad):
+        self.p = p
+        self.kept = np.asarray(kept, dtype=int)
+        self.aside = np.asarray(aside, dtype=int)
+        self.RK = RK  # k×k upper triangular, G_K = RKᵀ RK
+        self.links = links  # k×a: column a of set-aside = Σ links[:, a] · kept columns (+ const)
+        self.budget = float(budget)
+        self.quad = quad  # δ -> δᵀ G δ on the full columns (exact excess error)
+
+    def half_widths(self, U: np.ndarray) -> np.ndarray:
+        """``sqrt(budget · uᵀ G_K⁻¹ u)`` for each row u of U (k columns)."""
+        from scipy import linalg
+
+        if self.kept.size == 0:
+            return np.zeros(U.shape[0])
+        Z = linalg.solve_triangular(self.RK, U.T, trans="T", check_finite=False)
+        return np.sqrt(self.budget * np.einsum("ij,ij->j", Z, Z))
+
+    def column_bounded(self) -> np.ndarray:
+        """A column's coefficient is bounded when no exact dependency moves it."""
+        free = np.zeros(self.p, dtype=bool)
+        free[self.aside] = True
+        if self.aside.size and self.kept.size:
+            moved = np.any(np.abs(self.links) > 0, axis=1)
+            free[self.kept[moved]] = True
+        return ~free
+
+
+def _ordered_kept(F: np.ndarray, tol: float) -> list:
+    """Columns of F kept in order when each adds more than ``tol`` of its own length (OLS's walk)."""
+    basis, kept = [], []
+    for j in range(F.shape[1]):
+        v = F[:, j]
+        size = float(np.linalg.norm(v))
+        if size == 0:
+            continue
+        r = v.copy()
+        if basis:
+            B = np.column_stack(basis)
+            r = r - B @ (B.T @ r)
+            r = r - B @ (B.T @ r)
+        nr = float(np.linalg.norm(r))
+        if nr > tol * size:
+            basis.append(r / nr)
+            kept.append(j)
+    return kept
+
+
+def _triangular(M: np.ndarray) -> np.ndarray:
+    from scipy import linalg
+
+    if M.shape[1] == 0:
+        return np.zeros((0, 0))
+    R = linalg.qr(M, mode="r", check_finite=False)[0][: M.shape[1]]
+    return np.triu(R)
+
+
+def _factor_of_psd(A: np.ndarray) -> np.ndarray:
+    """A square F with FᵀF = A for a symmetric positive semi-definite A (eigenvalues clipped at 0)."""
+    lam, V = np.linalg.eigh(0.5 * (A + A.T))
+    lam = np.clip(lam, 0.0, None)
+    return (V * np.sqrt(lam)).T
+
+
+def _ellipsoid_from_ols(ols, stats, budget_fn):
+    """The ellipsoid of least squares, from OLS's factor (or the cross-products) and its rank decision."""
+    columns = tuple(ols.columns)
+    p = len(columns)
+    idx = {c: j for j, c in enumerate(columns)}
+    kept = [idx[c] for c in ols.kept]
+    aside = [j for j in range(p) if columns[j] not in set(ols.kept)]
+    links = np.zeros((len(kept), len(aside)))
+    pos = {j: i for i, j in enumerate(kept)}
+    for sa in ols.set_aside:
+        if sa.column not in idx:
+            continue
+        a = aside.index(idx[sa.column])
+        for c, v in sa.combination.items():
+            if c in idx and idx[c] in pos:
+                links[pos[idx[c]], a] = float(v)
+    R = getattr(ols, "r_factor", None)
+    if R is not None and np.asarray(R).shape == (p + 2, p + 2):
+        Rc = np.asarray(R, dtype=float)[1:, 1:]  # factor of sqrt(w/W)·[x − m, y − ȳ]
+        S = _triangular(np.column_stack([Rc[:, kept], Rc[:, p]]))
+        Rx = Rc[:, :p]
+
+        def quad(d):
+            v = Rx @ d
+            return float(v @ v)
+        sd = np.sqrt(np.einsum("ij,ij->j", Rx, Rx))
+    elif stats is not None:
+        W = float(stats.W)
+        G = stats.centered_xx() / W
+        c = stats.centered_xy() / W
+        yy = stats.centered_yy() / W
+        M = np.zeros((len(kept) + 1, len(kept) + 1))
+        M[:-1, :-1] = G[np.ix_(kept, kept)]
+        M[:-1, -1] = M[-1, :-1] = c[kept]
+        M[-1, -1] = yy
+        # Scale to unit diagonal so the factor's accuracy does not depend on units.
+        d = np.sqrt(np.clip(np.diag(M), 0, None))
+        d = np.where(d > 0, d, 1.0)
+        S = _triangular(_factor_of_psd(M / np.outer(d, d))) * d
+
+        def quad(dv):
+            return float(max(dv @ G @ dv, 0.0))
+        sd = np.sqrt(np.clip(np.diag(G), 0, None))
+    else:
+        raise ValueError("ranges need OLS's factor of the rows or the design's cross-products")
+    k = len(kept)
+    RK = S[:k, :k]
+    best = float(S[k, k] ** 2)
+    return _Ellipsoid(p, kept, aside, RK, links, budget_fn(best), quad), best, sd
+
+
+# -- public entry points ----------------------------------------------------------------------
+
+def heldout_tolerance(results) -> tuple:
+    """The held-out tolerance: one standard error of the lowest CV error, relative to that error.
+
+    Returns
+    -------
+    (tau, note) : (float, str)
+        ``tau`` is None when no family has a cross-validation curve.
+    """
+    best = None
+    for name, pf in getattr(results, "penalized", {}).items():
+        cv = pf.cv
+        if cv is None or cv.mean.size == 0:
+            continue
+        i = int(np.nanargmin(cv.mean))
+        m, se = float(cv.mean[i]), float(cv.se[i])
+        if not (np.isfinite(m) and m > 0 and np.isfinite(se)):
+            continue
+        if best is None or m < best[1]:
+            best = (name, m, se, float(cv.alphas[i]))
+    if best is None:
+        return None, ""
+    name, m, se, a = best
+    tau = se / m
+    note = (f"one standard error of the lowest cross-validated error ({model_label(name).lower()} at "
+            f"α {number_text(a, 3, unicode_minus=True)}: SE {number_text(se, 3)} on {number_text(m, 4)}), "
+            f"as a share of that error: {_percent(tau)}")
+    return tau, note
+
+
+def resolve_tolerance(tolerance: Optional[float], results=None) -> tuple:
+    """(τ, kind, note) in force: the user's τ, else the held-out variant, else 1 %."""
+    if tolerance is not None:
+        tau = float(tolerance)
+        if not (np.isfinite(tau) and tau > 0):
+            raise ValueError(f"range tolerance {tolerance!r} must be a positive number, e.g. 0.01 for 1 %")
+        return tau, KIND_SET, f"set by the user: within {_percent(tau)} of the best training error"
+    tau, note = heldout_tolerance(results) if results is not None else (None, "")
+    if tau is not None and tau > 0:
+        return tau, KIND_HELDOUT, note
+    return (FALLBACK_TOLERANCE, KIND_SET,
+            f"no cross-validation curve to take one standard error from; {_percent(FALLBACK_TOLERANCE)} used")
+
+
+def compute_ranges(design, results, tolerance: Optional[float] = None, models: Optional[dict] = None) -> Ranges:
+    """Ranges over every linear model whose training error is within a tolerance of the best.
+
+    Parameters
+    ----------
+    design : Design
+        Supplies the rows for the per-row prediction ranges and the target's name.
+    results : FitResults
+        OLS (its rank decision and factor), the cross-products and the CV curves.
+    tolerance : float, optional
+        τ: models with ``MSE ≤ (1 + τ)·MSE*`` (0.01 = within 1 %).  None: the
+        held-out variant (one standard error of the lowest CV error, relative).
+    models : dict of name -> LinearModel, optional
+        Models to place in the set (default: ``results.models()``).
+
+    Returns
+    -------
+    Ranges
+    """
+    tau, kind, note = resolve_tolerance(tolerance, results)
+    ell, best, sd = _ellipsoid_from_ols(results.ols, getattr(results, "gram", None), lambda b: tau * b)
+    centre = np.where(np.isfinite(results.ols.coef), results.ols.coef, 0.0).astype(float)
+    mean = _means(design, results)
+    out = _assemble(ell, tuple(results.columns), design.target, centre, best, sd, tau, kind, note, "exact",
+                    results.ols.set_aside, models if models is not None else results.models(),
+                    design.X, mean, design.row_numbers, float(results.ols.intercept))
+    return out
+
+
+def _means(design, results) -> np.ndarray:
+    """Weighted column means, from OLS's factor or the cross-products when at hand."""
+    p = len(results.columns)
+    R = getattr(results.ols, "r_factor", None)
+    if R is not None and np.asarray(R).shape == (p + 2, p + 2):
+        return np.asarray(R, float)[0, 1:p + 1].copy()
+    stats = getattr(results, "gram", None)
+    if stats is not None:
+        return stats.mean_x()
+    w = np.asarray(design.weights, float)
+    return np.asarray(design.X, float).T @ w / w.sum()
+
+
+def ranges_from_curvature(columns, curvature, centre, best_error, tolerance, *, sd=None, rank_tol=1e-8,
+                          tolerance_kind=KIND_SET, tolerance_note="", target="", models=None,
+                          X=None, mean=None, row_numbers=None, intercept=0.0) -> Ranges:
+    """Ranges over ``{β : best_error + (β − centre)ᵀ A (β − centre) ≤ (1 + τ)·best_error}``.
+
+    For least squares A is the centred cross-product matrix per unit weight and
+    the set is exact; for another error (the mean log-loss of a yes/no outcome)
+    pass its curvature at the fit — half its Hessian in the slopes, with the
+    intercept profiled out (the Schur complement) — and the result is the
+    quadratic approximation, labelled ``approximation='quadratic'``.
+
+    Parameters
+    ----------
+    columns : sequence of str
+    curvature : ndarray (p, p)
+        Symmetric positive semi-definite A.
+    centre : ndarray (p,)
+        The best model's coefficients.
+    best_error : float
+    tolerance : float
+        τ > 0.
+    sd : ndarray (p,), optional
+        Weighted SD of each column (standardized units, importance); default sqrt(diag A).
+    rank_tol : float
+        A column whose part not explained by the columns before it (in A's metric)
+        is at most ``rank_tol`` of its length moves without changing the error.
+    X, mean, row_numbers, intercept : optional
+        Rows (original units) for prediction ranges on the linear-predictor scale.
+    """
+    columns = tuple(columns)
+    A = np.asarray(curvature, dtype=float)
+    p = len(columns)
+    F = _factor_of_psd(A)
+    kept = _ordered_kept(F, rank_tol)
+    aside = [j for j in range(p) if j not in set(kept)]
+    RK = _triangular(F[:, kept])
+    links = np.zeros((len(kept), len(aside)))
+    if kept and aside:
+        links = np.linalg.lstsq(F[:, kept], F[:, aside], rcond=None)[0]
+        links[np.abs(links) <= 1e-12 * max(np.abs(links).max(), 1e-300)] = 0.0
+    tau = float(tolerance)
+    best = float(best_error)
+    ell = _Ellipsoid(p, kept, aside, RK, links, tau * best, lambda d: float(max(d @ A @ d, 0.0)))
+    sd = np.sqrt(np.clip(np.diag(A), 0, None)) if sd is None else np.asarray(sd, float)
+    return _assemble(ell, columns, target, np.asarray(centre, float), best, sd, tau, tolerance_kind,
+                     tolerance_note, "quadratic", (), models or {}, X, mean, row_numbers, float(intercept))
+
+
+def _assemble(ell, columns, target, centre, best, sd, tau, kind, note, approximation, set_aside, models,
+              X, mean, row_numbers, intercept) -> Ranges:
+    p = len(columns)
+    bounded = ell.column_bounded()
+    half = np.full(p, np.nan)
+    if ell.kept.size:
+        h = ell.half_widths(np.eye(ell.kept.size))
+        half[ell.kept] = h
+    half[~bounded] = np.nan
+    low = np.where(bounded, centre - half, np.nan)
+    high = np.where(bounded, centre + half, np.nan)
+    low_std, high_std = low * sd, high * sd
+    settled = bounded & ((low > 0) | (high < 0))
+    var = sd * sd
+    crosses = bounded & (low <= 0) & (high >= 0)
+    imp_low = np.where(crosses, 0.0, 2.0 * var * np.minimum(low * low, high * high))
+    imp_high = 2.0 * var * np.maximum(low * low, high * high)
+    imp_low = np.where(bounded, imp_low, 0.0)  # an unbounded coefficient can be 0 ... or not at all
+    imp_high = np.where(bounded, imp_high, np.nan)
+    for j in np.flatnonzero(~bounded):
+        if var[j] == 0:
+            imp_high[j] = 0.0  # a constant column cannot move a prediction
+    places = {}
+    for name, m in models.items():
+        coef = np.where(np.isfinite(m.coef), m.coef, 0.0)
+        excess = ell.quad(coef - centre) / best if best > 0 else (0.0 if np.allclose(coef, centre) else np.inf)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            pos = np.where(bounded & (high > low), (coef - low) / (high - low), np.where(bounded, 0.5, np.nan))
+        places[name] = ModelPlace(name=name, excess=float(excess), inside=bool(excess <= tau * (1 + 1e-9) + 1e-12),
+                                  position=pos)
+    row_c = row_h = rn = None
+    widest = ()
+    if X is not None and mean is not None:
+        X = np.asarray(X, float)
+        U = X[:, ell.kept] - np.asarray(mean, float)[ell.kept]
+        row_h = ell.half_widths(U) if ell.kept.size else np.zeros(X.shape[0])
+        row_c = intercept + X @ centre
+        rn = np.asarray(row_numbers if row_numbers is not None else np.arange(1, X.shape[0] + 1), dtype=np.int64)
+        widest = _widest(X, mean, sd, columns, rn, row_c, row_h)
+    trades = _trades(columns, ell, set_aside)
+    r = Ranges(columns=columns, target=target, tolerance=tau, tolerance_kind=kind, tolerance_note=note,
+               approximation=approximation, best_error=best, centre=centre, sd=sd, bounded=bounded, low=low,
+               high=high, low_std=low_std, high_std=high_std, sign_settled=settled, importance_low=imp_low,
+               importance_high=imp_high, trades=trades, models=places, row_numbers=rn, row_centre=row_c,
+               row_half=row_h, widest=widest)
+    from dataclasses import replace
+
+    return replace(r, sentences=tuple(ranges_sentences(r)))
+
+
+def _widest(X, mean, sd, columns, rn, centre, half) -> tuple:
+    if half.size == 0:
+        return ()
+    order = np.argsort(-half, kind="stable")[:WIDEST_ROWS]
+    out = []
+    for i in order:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            z = np.where(sd > 0, (X[i] - mean) / np.where(sd > 0, sd, 1.0), 0.0)
+        top = [j for j in np.argsort(-np.abs(z), kind="stable")[:ROW_COLUMNS] if abs(z[j]) >= 1.0]
+        out.append({
+            "row": int(rn[i]), "centre": float(centre[i]), "low": float(centre[i] - half[i]),
+            "high": float(centre[i] + half[i]), "width": float(2 * half[i]),
+            "unusual": tuple((columns[j], float(X[i, j]), float(z[j])) for j in top),
+        })
+    return tuple(out)
+
+
+def _join(names, word="and") -> str:
+    names = list(names)
+    if len(names) <= 1:
+        return "".join(names)
+    return ", ".join(names[:-1]) + f" {word} " + names[-1]
+
+
+def _trades(columns, ell, set_aside) -> tuple:
+    """One entry per set-aside column: the columns that trade weight with it, and why."""
+    from regbench.models.ols import combination_text
+
+    by_col = {sa.column: sa for sa in set_aside}
+    out = []
+    for i, a in enumerate(ell.aside):
+        name = columns[a]
+        partners = tuple(columns[ell.kept[r]] for r in np.flatnonzero(np.abs(ell.links[:, i]) > 0))
+        sa = by_col.get(name)
+        if not partners:
+            sentence = (f"{name} is constant on the rows, so its weight trades with the intercept without limit: "
+                        "the data cannot say how much belongs to it.")
+        else:
+            why = f" ({name} equals {combination_text(sa)})" if sa is not None and sa.combination else ""
+            sentence = (f"{name} and {', '.join(partners)} can trade weight without limit: the data cannot say "
+                        f"how much belongs to each{why}.")
+        out.append({"columns": (name,) + partners, "sentence": sentence})
+    return tuple(out)
+
+
+# -- words ------------------------------------------------------------------------------------
+
+def _percent(tau: float) -> str:
+    return number_text(100.0 * float(tau), 2) + " %"
+
+
+def _num(v, digits=2) -> str:
+    return number_text(v, digits, unicode_minus=True)
+
+
+def tolerance_phrase(r: Ranges) -> str:
+    """'within 1 % of the best training error' or the held-out wording."""
+    if r.tolerance_kind == KIND_HELDOUT:
+        return (f"within one standard error of the best held-out error ({_percent(r.tolerance)} above the "
+                "best training error)")
+    return f"within {_percent(r.tolerance)} of the best training error"
+
+
+def ranges_sentences(r: Ranges) -> list:
+    """One or two sentences a stakeholder can take away, then notes on unbounded columns and the fits."""
+    out = []
+    phrase = tolerance_phrase(r)
+    approx = " (quadratic approximation of the error)" if r.approximation == "quadratic" else ""
+    cols = list(r.columns)
+    open_sign = [j for j in range(len(cols)) if r.bounded[j] and not r.sign_settled[j]]
+    first = f"Any model {phrase}{approx}"
+    if open_sign:
+        # The column whose range reaches furthest on both sides of zero (standardized) says it best.
+        j = max(open_sign, key=lambda k: min(-r.low_std[k], r.high_std[k]))
+        s = (f"{first} can give {cols[j]} a coefficient from {_num(r.low[j])} to {_num(r.high[j])}: "
+             "the data do not settle its sign.")
+        others = [cols[k] for k in open_sign if k != j]
+        if others:
+            more = others[:4] + ([f"{len(others) - 4} more"] if len(others) > 4 else [])
+            s = s[:-1] + f"; nor those of {_join(more)}."
+        out.append(s)
+    else:
+        n_set = int(r.sign_settled.sum())
+        if n_set:
+            out.append(f"{first} gives each of the {n_set} bounded columns the same sign: the data settle them.")
+    if r.row_half is not None and r.row_half.size:
+        i = int(np.argmax(r.row_half))
+        out.append(f"Their predictions of {r.target or 'the target'} differ by at most {_num(2 * r.row_half[i])} "
+                   f"on any row (most on row {int(r.row_numbers[i])}).")
+    unb = [cols[j] for j in range(len(cols)) if not r.bounded[j]]
+    if unb:
+        out.append(f"The coefficients of {_join(unb)} are not bounded at all: the dependencies OLS set aside let "
+                   "them take any value without changing the predictions on these rows.")
+    inside = [n for n, m in r.models.items() if m.inside and n != "ols"]
+    outside = [n for n, m in r.models.items() if not m.inside]
+    if outside:
+        words = ", ".join(f"{model_label(n).lower()} ({_percent(r.models[n].excess)} above)" for n in outside)
+        out.append(f"Outside the set: {words}." + (f" Inside: {_join([model_label(n).lower() for n in inside])}."
+                                                    if inside else ""))
+    elif inside:
+        out.append(f"{_join([model_label(n) for n in inside])} at their chosen α all lie inside the set.")
+    return out
+
+
+def ranges_to_json(r: Ranges) -> dict:
+    """The ``ranges`` key of the fit JSON (strict JSON: unbounded ends are null)."""
+    def num(v):
+        v = float(v)
+        return v if np.isfinite(v) else None
+
+    coefficients = {}
+    importance = {}
+    for j, c in enumerate(r.columns):
+        coefficients[c] = {"low": num(r.low[j]), "high": num(r.high[j]), "low_std": num(r.low_std[j]),
+                           "high_std": num(r.high_std[j]), "sign_settled": bool(r.sign_settled[j]),
+                           "bounded": bool(r.bounded[j])}
+        importance[c] = {"low": num(r.importance_low[j]), "high": num(r.importance_high[j]),
+                         "low_relative": num(r.importance_low[j] / r.best_error) if r.best_error > 0 else None,
+                         "high_relative": (num(r.importance_high[j] / r.best_error)
+                                           if r.best_error > 0 and np.isfinite(r.importance_high[j]) else None)}
+    models = {n: {"excess_error": num(m.excess), "inside": bool(m.inside),
+                  "position": {c: num(m.position[j]) for j, c in enumerate(r.columns)}}
+              for n, m in r.models.items()}
+    rows = None
+    if r.row_half is not None:
+        w = 2 * r.row_half
+        rows = {"largest_width": num(w.max()) if w.size else None,
+                "median_width": num(np.median(w)) if w.size else None,
+                "widest": [{"row": d["row"], "prediction": num(d["centre"]), "low": num(d["low"]),
+                            "high": num(d["high"]), "width": num(d["width"]),
+                            "unusual": [{"column": c, "value": num(v), "sd_from_mean": num(z)}
+                                        for c, v, z in d["unusual"]]} for d in r.widest]}
+    return {
+        "tolerance": num(r.tolerance),
+        "tolerance_kind": r.tolerance_kind,
+        "tolerance_note": r.tolerance_note,
+        "approximation": r.approximation,
+        "best_error": num(r.best_error),
+        "coefficients": coefficients,
+        "models": models,
+        "rows": rows,
+        "importance": importance,
+        "trades": [{"columns": list(t["columns"]), "sentence": t["sentence"]} for t in r.trades],
+        "sentences": list(r.sentences),
+    }
+
+
+__all__ = ["Ranges", "ModelPlace", "compute_ranges", "ranges_from_curvature", "resolve_tolerance",
+           "heldout_tolerance", "ranges_to_json", "ranges_sentences", "tolerance_phrase", "MODEL_NAMES"]

