@@ -105,6 +105,7 @@ class ComputedResults:
     structure: object = None
     stress: tuple = ()
     sweeps: tuple = ()
+    ranges: object = None
     stability: object = None
     stability_alphas: dict = field(default_factory=dict)
 
@@ -126,9 +127,10 @@ class AlphaUpdate:
     structure: object = None
     stress: tuple = ()
     sweeps: tuple = ()
+    ranges: object = None
 
 
-_DERIVED_KEYS = ("models", "heldout", "agreement", "structure", "stress", "sweeps")
+_DERIVED_KEYS = ("models", "heldout", "agreement", "structure", "stress", "sweeps", "ranges")
 
 
 @dataclass(frozen=True)
@@ -244,21 +246,24 @@ class Session:
 
     def fit_key(self, state: Optional[_State] = None) -> str:
         s = state or self._state
-        return _digest({"table": self.table_hash, "roles": s.roles.to_dict(), "settings": s.settings.to_dict()})
+        return _digest({"table": self.table_hash, "roles": s.roles.to_dict(), "settings": _fit_settings(s.settings)})
 
     def settings_hash(self) -> str:
         """Hash of roles + settings: cached fits are reused only when it matches."""
-        return _digest({"roles": self.roles.to_dict(), "settings": self.settings.to_dict()})
+        return _digest({"roles": self.roles.to_dict(), "settings": _fit_settings(self.settings)})
 
     def key(self, state: Optional[_State] = None) -> str:
         s = state or self._state
-        return _digest({
+        parts = {
             "fit": self.fit_key(s),
             "alpha": {k: s.chosen_alpha[k] for k in sorted(s.chosen_alpha)},
             "extra": list(s.extra_fits),
             "stress": [stress_to_dict(c) for c in s.stress_configs],
             "bootstrap": s.bootstrap,
-        })
+        }
+        if s.settings.range_tolerance is not None:  # absent for the default, so older keys still match
+            parts["range_tolerance"] = s.settings.range_tolerance
+        return _digest(parts)
 
     @property
     def dirty(self) -> bool:
@@ -314,7 +319,7 @@ class Session:
         self._state = new_state
         if new_state.roles != old.roles:
             self.design = build_design(self.table, new_state.roles)
-        if new_state.roles != old.roles or new_state.settings != old.settings:
+        if new_state.roles != old.roles or _fit_settings(new_state.settings) != _fit_settings(old.settings):
             self.results = None
             self.stability = None
             self.stability_alphas = {}
@@ -324,6 +329,8 @@ class Session:
         elif new_state.stress_configs != old.stress_configs:
             self._cache.pop("stress", None)
             self._cache.pop("sweeps", None)
+        if new_state.settings.range_tolerance != old.settings.range_tolerance:
+            self._cache.pop("ranges", None)
         self.dirty = True
         self._notify(event, detail)
 
@@ -566,7 +573,8 @@ class Session:
             self.stability_alphas = dict(computed.stability_alphas)
         if computed.key == self.key():
             self._cache = {"models": computed.models, "heldout": computed.heldout, "agreement": computed.agreement,
-                           "structure": computed.structure, "stress": computed.stress, "sweeps": computed.sweeps}
+                           "structure": computed.structure, "stress": computed.stress, "sweeps": computed.sweeps,
+                           "ranges": computed.ranges}
         else:
             self._cache = {}
         self.dirty = True
@@ -638,7 +646,7 @@ class Session:
     def _derived(self) -> dict:
         if self.results is None:
             return {}
-        if "agreement" not in self._cache or "stress" not in self._cache:
+        if any(k not in self._cache for k in ("agreement", "stress", "ranges")):
             self._cache.update(_derive(self.design, self.results, self._state, None, self._cache))
         return self._cache
 
@@ -667,6 +675,17 @@ class Session:
 
     def stress_results(self) -> tuple:
         return tuple(self._derived().get("stress", ()))
+
+    def ranges(self):
+        """Ranges over every near-best model (:class:`regbench.analysis.ranges.Ranges`), None before a fit."""
+        return self._derived().get("ranges")
+
+    def set_range_tolerance(self, tolerance: Optional[float]) -> None:
+        """Set τ of the ranges over near-best models (None: one standard error of the lowest CV error).
+
+        Only the ranges are recomputed; the fits stay.
+        """
+        self.set_settings(replace(self.settings, range_tolerance=None if tolerance is None else float(tolerance)))
 
     def stress_sweeps(self) -> tuple:
         return tuple(self._derived().get("sweeps", ()))
@@ -744,7 +763,13 @@ def _derive(design, results, state: _State, cancel, have: Optional[dict] = None)
             seen.add((c.column, c.kind))
             sw.append(stress_sweep(design, models, c.column, c.kind, seed=c.seed, tolerance=c.tolerance))
         sweeps = tuple(sw)
+    ranges = have.get("ranges") if "models" in have else None
+    if ranges is None:
+        from regbench.analysis.ranges import compute_ranges
+
+        ranges = compute_ranges(design, results, state.settings.range_tolerance, models=models)
     return {"models": models, "heldout": heldout, "agreement": agreement, "structure": structure,
+            "ranges": ranges,
             "stress": stress, "sweeps": sweeps}
 
 
@@ -766,6 +791,13 @@ def _roles(roles) -> Roles:
     """Roles with tuples and plain text, from a Roles or a dict of the same fields."""
     d = roles.to_dict() if isinstance(roles, Roles) else dict(roles)
     return Roles.from_dict(d)
+
+
+def _fit_settings(settings: FitSettings) -> dict:
+    """The settings that decide the fits: all but the range tolerance, which only reads them."""
+    d = settings.to_dict()
+    d.pop("range_tolerance", None)
+    return d
 
 
 def _normalized(settings: FitSettings) -> FitSettings:

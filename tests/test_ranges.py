@@ -272,3 +272,94 @@ def test_sentences_name_an_unsettled_sign_and_the_largest_row_difference():
     assert "the data do not settle its sign" in r.sentences[0]
     assert any("differ by at most" in s for s in r.sentences)
     assert js["rows"]["largest_width"] == pytest.approx(2 * r.row_half.max())
+
+
+# -- every route: CLI, session, project file ----------------------------------------------------
+
+def _sample_args():
+    from pathlib import Path
+
+    from regbench.demo import GREENHOUSE_ROLES
+
+    root = Path(__file__).resolve().parents[1]
+    return [str(root / "sample_projects" / "greenhouse.csv"), "--target", "yield_kg_m2", "--weights",
+            "plants_per_bed", "--groups", "glasshouse", "--predictors", ",".join(GREENHOUSE_ROLES["predictors"])]
+
+
+def test_fit_json_carries_ranges_with_the_tolerance_set(tmp_path, capsys):
+    import json
+
+    from regbench.cli import main
+
+    out = tmp_path / "fit.json"
+    assert main(["fit", *_sample_args(), "--folds", "3", "--penalties", "20", "--range-tolerance", "0.01",
+                 "--json", str(out)]) == 0
+    js = json.loads(out.read_text(encoding="utf-8"))
+    rg = js["ranges"]
+    assert rg["tolerance"] == 0.01 and rg["tolerance_kind"] == "set"
+    assert js["settings"]["range_tolerance"] == 0.01
+    assert set(rg) >= {"tolerance", "tolerance_kind", "coefficients", "models", "rows", "importance", "sentences"}
+    # The sample's °F column repeats the °C one exactly: both are unbounded, with null bounds.
+    assert rg["coefficients"]["day_temp_f"] == {"low": None, "high": None, "low_std": None, "high_std": None,
+                                                "sign_settled": False, "bounded": False}
+    assert set(rg["models"]) == {"ols", "ridge", "lasso", "elastic_net"}
+    assert rg["sentences"][0].startswith("Any model within 1 % of the best training error")
+    assert main(["fit", *_sample_args(), "--range-tolerance", "-1"]) == 2
+    err = capsys.readouterr().err
+    assert "--range-tolerance: -1 must be above 0" in err and "Traceback" not in err
+
+
+def test_session_keeps_fits_when_only_the_tolerance_changes(tmp_path):
+    from regbench.data import Roles
+    from regbench.demo import GREENHOUSE_ROLES
+    from regbench.project import load_project, save_project
+    from regbench.session import Session
+
+    args = _sample_args()
+    s = Session.from_table_file(args[0], Roles.from_dict(GREENHOUSE_ROLES), FitSettings(folds=3, n_penalties=20))
+    s.compute(bootstrap=0)
+    results = s.results
+    first = s.ranges()
+    assert first.tolerance_kind == KIND_HELDOUT
+    s.set_range_tolerance(0.02)
+    assert s.results is results  # no refit
+    second = s.ranges()
+    assert second.tolerance == 0.02 and second.tolerance_kind == KIND_SET
+    np.testing.assert_allclose(second.high[second.bounded] - second.low[second.bounded],
+                               (first.high - first.low)[first.bounded] * np.sqrt(0.02 / first.tolerance), rtol=1e-9)
+    path = tmp_path / "p.regbench"
+    save_project(s, path)
+    back = load_project(path, compute=False)
+    assert back.cache_status == "used" and back.settings.range_tolerance == 0.02
+    assert "ranges" in back._cache  # read from the results cache, not recomputed
+    r = back.ranges()
+    np.testing.assert_array_equal(r.low, second.low)
+    assert r.sentences == second.sentences
+    s.undo()
+    assert s.settings.range_tolerance is None and s.ranges().tolerance_kind == KIND_HELDOUT
+
+
+def test_report_section_shows_the_ranges(tmp_path):
+    from html.parser import HTMLParser
+
+    from regbench.data import Roles
+    from regbench.demo import GREENHOUSE_ROLES
+    from regbench.report import report_html
+    from regbench.session import Session
+
+    s = Session.from_table_file(_sample_args()[0], Roles.from_dict(GREENHOUSE_ROLES),
+                                FitSettings(folds=3, n_penalties=20, range_tolerance=0.01))
+    s.set_bootstrap(0)
+    s.compute()
+    html = report_html(s)
+    HTMLParser().feed(html)  # Python's parser reads it
+    sec = html[html.index('<section id="ranges">'):]
+    sec = sec[:sec.index("</section>")]
+    rg = s.ranges()
+    assert "How far can equally good models differ?" in sec
+    assert "within 1 % of the best training error" in sec and "set in the settings" in sec
+    assert rg.sentences[0].split(":")[0] in sec  # the takeaway sentence, as the answer
+    assert sec.count("no bound") >= 4  # the four temperature columns in exact dependencies
+    assert f"<td>{rg.widest[0]['row']}</td>" in sec or f">{rg.widest[0]['row']}<" in sec
+    assert "--range-tolerance 0.01" in html  # the reproduce command carries the setting
+    assert "url(" not in sec and "<script" not in sec

@@ -117,9 +117,9 @@ class Ranges:
     importance_high: np.ndarray
     trades: tuple  # of dict(columns=tuple, sentence=str)
     models: dict = field(default_factory=dict)  # name -> ModelPlace
-    row_numbers: np.ndarray = None  # (n,) 1-based table rows
-    row_centre: np.ndarray = None  # (n,) prediction of the centre model
-    row_half: np.ndarray = None  # (n,) half-width of the prediction range
+    row_numbers: Optional[np.ndarray] = None  # (n,) 1-based table rows
+    row_centre: Optional[np.ndarray] = None  # (n,) prediction of the centre model
+    row_half: Optional[np.ndarray] = None  # (n,) half-width of the prediction range
     widest: tuple = ()  # of dict(row, centre, low, high, width, unusual)
     sentences: tuple = ()
 

@@ -13,6 +13,7 @@ import math
 
 import numpy as np
 
+from regbench.formatting import number_text
 from regbench.models.results import model_label
 
 #: The objective, in the words the README and help use.
@@ -135,7 +136,14 @@ def fit_to_json(design, results) -> dict:
             "near_dependencies": [nd.sentence for nd in d.near_dependencies],
         },
         "settings": results.settings.to_dict(),
+        "ranges": _ranges(design, results).to_dict(),
     }
+
+
+def _ranges(design, results):
+    from regbench.analysis.ranges import compute_ranges
+
+    return compute_ranges(design, results, results.settings.range_tolerance)
 
 
 def _fmt(v) -> str:
@@ -228,6 +236,14 @@ def fit_summary_text(design, results) -> str:
     if results.settings.penalty_factors:
         lines.append("  Penalty factors: " + ", ".join(f"{c} {_fmt(v)}" for c, v in results.settings.penalty_factors)
                      + " (0: unpenalized, always kept); every other column 1.")
+    rg = _ranges(design, results)
+    lines.append("")
+    lines.append(f"How far equally good models differ (tolerance {number_text(100 * rg.tolerance, 2)} %: "
+                 f"{rg.tolerance_note})")
+    for s in rg.sentences:
+        lines.append(f"  • {s}")
+    for t in rg.trades:
+        lines.append(f"  • {t['sentence']}")
     lines.append("")
     lines.append("Penalty objective: " + OBJECTIVE + ".")
     lines.append("These are associations, not causes; judge models on held-out groups; "

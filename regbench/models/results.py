@@ -81,6 +81,11 @@ class FitSettings:
     relaxation : float or None
         Fixed relaxation γ in [0, 1] of the relaxed families instead of the CV
         choice; setting it also fits them.
+    range_tolerance : float or None
+        Ranges over near-best models: every model whose weighted training error is at
+        most ``1 + range_tolerance`` times the best (0.01 = within 1 %).  None: within
+        one standard error of the lowest cross-validated error, as a share of it.
+        It does not change any fit, so it is not part of a fit's identity.
     """
 
     folds: int = setting(5, Whole(2, 1000, unit="folds", purpose="cross-validation"),
@@ -118,6 +123,13 @@ class FitSettings:
                      "the CV choice"),
         "fix the relaxation of the relaxed lasso and elastic net (0: the penalized fit, 1: the unpenalized "
         "refit on the columns it selected) instead of the CV choice; implies --relaxed", flag="--relaxation")
+    range_tolerance: Optional[float] = setting(
+        None, OrNone(Number(0.0, 10.0, high_closed=True,
+                            hint="a share of the best training error, e.g. 0.01 for within 1 %"),
+                     "one standard error of the lowest CV error"),
+        "ranges over near-best models: every model whose training error is within this share of the best "
+        "(0.01: within one per cent; default: one standard error of the lowest CV error)",
+        flag="--range-tolerance")
 
     def to_dict(self) -> dict:
         """Plain JSON values of every setting, in declaration order."""
@@ -129,6 +141,8 @@ class FitSettings:
             out.pop("relaxed", None)
         if self.relaxation is None:
             out.pop("relaxation", None)
+        if self.range_tolerance is None:
+            out.pop("range_tolerance", None)
         return out
 
     @property

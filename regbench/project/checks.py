@@ -173,6 +173,33 @@ def check_derived(derived: dict, design, n_stress: int) -> None:
             for k in names:
                 _array(d[k], sw.strengths.shape, f"derived.sweeps[{i}].{field}[{k!r}]")
         json.dumps(sw.to_dict())
+    if derived.get("ranges") is not None:  # older projects do not hold it; it is computed on demand
+        _check_ranges(derived["ranges"], design, names)
+
+
+def _check_ranges(rg, design, names) -> None:
+    from regbench.analysis.ranges import ModelPlace, Ranges
+
+    n, p = design.n, design.p
+    _need(isinstance(rg, Ranges) and rg.columns == tuple(design.columns), "derived.ranges does not match the design")
+    for arr in ("centre", "sd", "low", "high", "low_std", "high_std", "importance_low", "importance_high"):
+        _array(getattr(rg, arr), (p,), f"derived.ranges.{arr}")
+    for arr in ("bounded", "sign_settled"):
+        _array(getattr(rg, arr), (p,), f"derived.ranges.{arr}", "b")
+    _need(isinstance(rg.tolerance, float) and rg.tolerance > 0, "derived.ranges.tolerance must be a positive number")
+    _need(isinstance(rg.models, dict) and set(rg.models) == set(names)
+          and all(isinstance(m, ModelPlace) for m in rg.models.values()), "derived.ranges.models does not match the models")
+    for name, m in rg.models.items():
+        _array(m.position, (p,), f"derived.ranges.models[{name!r}].position")
+    if rg.row_half is not None:
+        for arr in ("row_numbers", "row_centre", "row_half"):
+            _array(getattr(rg, arr), (n,), f"derived.ranges.{arr}", "i" if arr == "row_numbers" else "f")
+    _need(isinstance(rg.trades, tuple) and all(isinstance(t, dict) and isinstance(t.get("sentence"), str)
+                                               for t in rg.trades), "derived.ranges.trades is damaged")
+    _need(isinstance(rg.widest, tuple) and all(isinstance(t, dict) for t in rg.widest), "derived.ranges.widest is damaged")
+    _need(isinstance(rg.sentences, tuple) and all(isinstance(s, str) for s in rg.sentences),
+          "derived.ranges.sentences must be text")
+    json.dumps(rg.to_dict())
 
 
 def check_stability(st, design) -> None:

@@ -30,6 +30,7 @@ SECTIONS = (
     ("agreement", "Do they predict alike?"),
     ("stress", "What breaks when one input goes bad?"),
     ("stability", "How sure are we?"),
+    ("ranges", "How far can equally good models differ?"),
     ("notes", "What did the analyst note?"),
     ("reproduce", "How can someone reproduce this?"),
     ("cautions", "What should a reader keep in mind?"),
@@ -335,6 +336,67 @@ def _quality(session) -> str:
     return "".join(parts)
 
 
+def _ranges(session) -> str:
+    from regbench.analysis.ranges import KIND_HELDOUT, tolerance_phrase
+
+    rg = session.ranges() if session.results is not None else None
+    if rg is None:
+        return "<p>The models have not been fitted.</p>"
+    kind = ("the held-out default" if rg.tolerance_kind == KIND_HELDOUT else "set in the settings")
+    parts = [f"<p>Not just four fits: every linear model {e(tolerance_phrase(rg))} — {e(kind)}; "
+             f"{e(rg.tolerance_note)}. For least squares this set is exact (an ellipsoid around OLS), so the "
+             "ranges below are not estimates but the extremes over all those models.</p>",
+             sentences(rg.sentences), sentences([t["sentence"] for t in rg.trades])]
+    names = list(rg.models)
+    marks = [(model_label(n), n, _std_coef(session, n)) for n in names]
+    parts.append(figure(svg.range_bars(rg.columns, rg.low_std, rg.high_std, marks,
+                                       title="Coefficient of each column over every near-best model",
+                                       xlabel="standardized coefficient (per SD of the column)"),
+                        "Each band runs from the smallest to the largest coefficient any near-best model gives the "
+                        "column; a band across zero means the data do not settle the sign. Marks show where the "
+                        "fitted models sit. Dashed rows have no bound: the column trades weight with others."))
+    rows = []
+    for j, c in enumerate(rg.columns):
+        if rg.bounded[j]:
+            span, std = f"{num(rg.low[j])} to {num(rg.high[j])}", f"{num(rg.low_std[j], 3)} to {num(rg.high_std[j], 3)}"
+            sign = "settled" if rg.sign_settled[j] else "not settled"
+            imp = f"{pct(rg.importance_low[j] / rg.best_error)} to {pct(rg.importance_high[j] / rg.best_error)}"
+        else:
+            span, std, sign = "no bound", "no bound", "not settled"
+            imp = f"{pct(rg.importance_low[j] / rg.best_error)} to no bound"
+        rows.append((c, span, std, sign, imp))
+    parts.append("<h3>Per column</h3>")
+    parts.append(table(["Column", "Coefficient (table's units)", "Standardized", "Sign",
+                        "Importance (share of the best error)"], rows))
+    parts.append('<p class="muted">Importance of a column for one model: how much, in mean square, its predictions '
+                 "would change if that column were replaced by an independent copy of itself (2·β²·variance); for "
+                 "OLS that is exactly how much its error would grow. Shown as a share of the best training error, "
+                 "smallest and largest over the near-best models.</p>")
+    parts.append("<h3>Where the fitted models sit</h3>")
+    parts.append(table(["Model", "Training error above the best", "Inside the set"],
+                       [(model_label(n), pct(m.excess), "yes" if m.inside else "no") for n, m in rg.models.items()]))
+    if rg.widest:
+        parts.append("<h3>Rows where equally good models disagree most</h3>")
+        rows = []
+        for d in rg.widest:
+            unusual = "; ".join(f"{c} {num(v)} ({'+' if z > 0 else '−'}{num(abs(z), 2)} SD)" for c, v, z in d["unusual"])
+            rows.append((str(d["row"]), num(d["centre"]), f"{num(d['low'])} to {num(d['high'])}", num(d["width"]),
+                         unusual or "nothing unusual"))
+        parts.append(table(["Row", f"OLS prediction of {rg.target}", "Range over near-best models", "Width",
+                            "Unusual values"], rows))
+        w = 2 * rg.row_half
+        parts.append(f"<p>Over all {w.size} rows the width is {num(float(np.median(w)))} at the median and "
+                     f"{num(float(w.max()))} at most.</p>")
+    parts.append('<p class="muted">A range says what the data cannot tell apart, not which story is true: '
+                 "associations are not causes, and a model is only as good as its inputs.</p>")
+    return "".join(parts)
+
+
+def _std_coef(session, name):
+    m = session.models().get(name)
+    return np.full(len(session.design.columns), np.nan) if m is None else m.coef_std
+
+
 def _stress(session) -> str:
     configs = session.stress_configs
     if not configs:
@@ -432,6 +494,8 @@ def _reproduce(session) -> str:
             ("Penalty factors (penalized models)", ", ".join(f"{c} {num(v)}" for c, v in s.penalty_factors)
              or "1 for every column"),
             ("OLS rank tolerance", "engine default" if s.rank_tol is None else num(s.rank_tol)),
+            ("Range tolerance", "one standard error of the lowest CV error" if s.range_tolerance is None
+             else f"within {num(100 * s.range_tolerance, 3)} % of the best training error"),
             ("α set by hand", ", ".join(f"{model_label(k)} {num(v)}" for k, v in session.chosen_alpha.items()) or "none"),
             ("Extra fits", ", ".join(f"{x['name']} ({model_label(x['family'])}, α {num(x['alpha'])})"
                                       for x in session.extra_fits) or "none"),
@@ -477,6 +541,8 @@ def _command(session) -> str:
         args += ["--relaxation", f"{s.relaxation:g}"]
     elif s.relaxed:
         args += ["--relaxed"]
+    if s.range_tolerance is not None:
+        args += ["--range-tolerance", repr(float(s.range_tolerance))]
     args += ["--bootstrap", str(session.bootstrap), "-o", "project.regbench"]
     return " ".join(shlex.quote(a) for a in args)
 
@@ -486,6 +552,7 @@ def _cautions(session) -> str:
 
 
 _BUILDERS = {"question": _question, "overlap": _overlap, "fits": _fits, "quality": _quality, "agreement": _agreement,
+             "ranges": _ranges,
              "stress": _stress, "stability": _stability, "notes": _notes, "reproduce": _reproduce,
              "cautions": _cautions}
 

@@ -232,3 +232,98 @@ def penalty_figure(session, name: str, width: int = 760, height: int = 470) -> s
                       extras=[(e["name"], e["alpha"], model_colour(e["name"])) for e in session.extra_fits
                               if e["family"] == name])
     return figure_svg(build_figure(data, width, height), title=f"{name}: what the penalty does")
+def _mark(shape: str, x: float, y: float, colour: str) -> str:
+    """A small model mark: 'bar' (a tick), 'circle', 'diamond' or 'triangle'."""
+    if shape == "bar":
+        return f'<line x1="{x:.1f}" y1="{y - 6:.1f}" x2="{x:.1f}" y2="{y + 6:.1f}" stroke="{colour}" stroke-width="2.4"/>'
+    if shape == "diamond":
+        return (f'<polygon points="{x:.1f},{y - 5:.1f} {x + 4.5:.1f},{y:.1f} {x:.1f},{y + 5:.1f} {x - 4.5:.1f},{y:.1f}" '
+                f'fill="{colour}"/>')
+    if shape == "triangle":
+        return (f'<polygon points="{x:.1f},{y - 5:.1f} {x + 4.5:.1f},{y + 4:.1f} {x - 4.5:.1f},{y + 4:.1f}" '
+                f'fill="none" stroke="{colour}" stroke-width="1.6"/>')
+    return f'<circle cx="{x:.1f}" cy="{y:.1f}" r="3.6" fill="none" stroke="{colour}" stroke-width="1.6"/>'
+
+
+#: Look of an unbounded range: a faint dashed band across the whole plot.
+_OPEN = 'fill="#c8553d" fill-opacity="0.08" stroke="#c8553d" stroke-opacity="0.6" stroke-dasharray="4 3"'
+
+#: Mark shape of each model key in range charts (further models repeat the circle).
+MARK_SHAPES = {"ols": "bar", "ridge": "circle", "lasso": "diamond", "elastic_net": "triangle"}
+
+
+def range_bars(columns, low, high, marks, *, title: str, xlabel: str, note_unbounded: str = "no bound") -> str:
+    """One horizontal band per column from ``low`` to ``high``, with model marks on it.
+
+    Parameters
+    ----------
+    columns : list of str
+    low, high : array (p,)
+        NaN at both ends draws the row as unbounded (a hatched band across the plot).
+    marks : list of (label, key, values)
+        ``key`` picks the mark's shape (see :data:`MARK_SHAPES`); values aligned with ``columns``.
+    """
+    columns = list(columns)
+    n = len(columns)
+    low, high = np.asarray(low, float), np.asarray(high, float)
+    row_h, left, right, width = 22, 190, 150, 640
+    top = MT + 6
+    height = top + n * row_h + 40
+    vals = [low[np.isfinite(low)], high[np.isfinite(high)]] + [np.asarray(v, float) for _, _, v in marks]
+    cat = np.concatenate([v[np.isfinite(v)] for v in vals] + [np.zeros(1)])
+    lo, hi = float(cat.min()), float(cat.max())
+    if hi <= lo:
+        lo, hi = lo - 1.0, hi + 1.0
+    pad = 0.06 * (hi - lo)
+    lo, hi = lo - pad, hi + pad
+    pw = width - left - right
+
+    def px(v):
+        return left + (min(max(v, lo), hi) - lo) / (hi - lo) * pw
+
+    out = [f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width} {height}" width="{width}" '
+           f'height="{height}" role="img" aria-label="{escape(title)}" class="chart">',
+           f'<rect x="0" y="0" width="{width}" height="{height}" fill="#ffffff"/>',
+           f'<text x="{left}" y="16" class="ct">{escape(title)}</text>']
+    bottom = top + n * row_h
+    for t in _ticks(lo, hi):
+        xx = px(t)
+        out.append(f'<line x1="{xx:.1f}" y1="{top}" x2="{xx:.1f}" y2="{bottom}" stroke="#ececec"/>')
+        out.append(f'<text x="{xx:.1f}" y="{bottom + 14}" text-anchor="middle" class="tk">{_fmt_tick(t)}</text>')
+    out.append(f'<line x1="{px(0):.1f}" y1="{top - 4}" x2="{px(0):.1f}" y2="{bottom}" stroke="#555"/>')
+    for i, c in enumerate(columns):
+        y = top + i * row_h
+        mid = y + row_h / 2
+        if i % 2:
+            out.append(f'<rect x="{left}" y="{y}" width="{pw}" height="{row_h}" fill="#f7f9fa"/>')
+        out.append(f'<text x="{left - 6}" y="{mid + 4:.1f}" text-anchor="end" class="tk">{escape(_short(c, 28))}</text>')
+        if math.isfinite(low[i]) and math.isfinite(high[i]):
+            a, b = px(low[i]), px(high[i])
+            crosses = low[i] <= 0 <= high[i]
+            fill = "#d4a017" if crosses else "#1f5f8b"
+            out.append(f'<rect x="{a:.1f}" y="{mid - 5:.1f}" width="{max(b - a, 1.0):.1f}" height="10" rx="5" '
+                       f'fill="{fill}" fill-opacity="0.28" stroke="{fill}" stroke-width="1"/>')
+        else:
+            out.append(f'<rect x="{left}" y="{mid - 5:.1f}" width="{pw}" height="10" {_OPEN}/>')
+            out.append(f'<text x="{left + pw - 4}" y="{mid - 6:.1f}" text-anchor="end" class="tk">'
+                       f'{escape(note_unbounded)}</text>')
+        for k, (label, key, v) in enumerate(marks):
+            v = float(np.asarray(v, float)[i])
+            if math.isfinite(v):
+                out.append(_mark(MARK_SHAPES.get(key, "circle"), px(v), mid, PALETTE[k % len(PALETTE)]))
+    legend = [("sign settled", "#1f5f8b"), ("sign not settled", "#d4a017")]
+    for k, (label, colour) in enumerate(legend):
+        ly = top + 8 + 16 * k
+        out.append(f'<rect x="{left + pw + 12}" y="{ly - 6}" width="16" height="9" rx="4" fill="{colour}" '
+                   f'fill-opacity="0.28" stroke="{colour}"/>')
+        out.append(f'<text x="{left + pw + 32}" y="{ly + 2}" class="lg">{escape(label)}</text>')
+    ly = top + 8 + 16 * len(legend)
+    out.append(f'<rect x="{left + pw + 12}" y="{ly - 6}" width="16" height="9" {_OPEN}/>')
+    out.append(f'<text x="{left + pw + 32}" y="{ly + 2}" class="lg">{escape(note_unbounded)}</text>')
+    for k, (label, key, _) in enumerate(marks[:10]):
+        ly = top + 8 + 16 * (len(legend) + 1 + k)
+        out.append(_mark(MARK_SHAPES.get(key, "circle"), left + pw + 20, ly - 2, PALETTE[k % len(PALETTE)]))
+        out.append(f'<text x="{left + pw + 32}" y="{ly + 2}" class="lg">{escape(_short(label, 18))}</text>')
+    out.append(f'<text x="{left + pw / 2:.1f}" y="{height - 8}" text-anchor="middle" class="al">{escape(xlabel)}</text>')
+    out.append("</svg>")
+    return "".join(out)
