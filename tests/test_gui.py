@@ -622,7 +622,7 @@ def test_snapshot_writes_non_blank_pngs(tmp_path):
     paths = sorted(str(p) for p in out.glob("*.png"))
     assert paths == sorted(snapshot(project, str(out)))
     names = [os.path.basename(p) for p in paths]
-    assert len(paths) == 8 and "01_data.png" in names and "05_fit.png" in names and "02_overlaps.png" in names
+    assert len(paths) == 9 and "01_data.png" in names and "05_fit.png" in names and "02_overlaps.png" in names
     for p in paths:
         img = QtGui.QImage(p)
         assert img.width() > 200 and img.height() > 200, p

@@ -45,6 +45,15 @@ TERMS = (
     ("Stability", "The models are refitted on bootstrap resamples of the rows (whole groups when a "
      "group column is set): how often each column is selected by lasso and elastic net, how often "
      "OLS sets it aside, and how much its coefficient varies."),
+    ("Equally good models", "Every linear model whose training error is within a tolerance of the best "
+     "one (by default one standard error of the lowest cross-validated error, as a share of it). For least "
+     "squares they fill an ellipsoid around OLS, so the smallest and largest coefficient of each column, "
+     "and of each row's prediction, are exact. A range across zero means the data do not settle the "
+     "sign; a column in an exact dependency has no bound at all. A range says what the data cannot "
+     "tell apart, not which story is true."),
+    ("Importance", "For one model and one column: how much, in mean square, the model's predictions would "
+     "change if that column were replaced by an independent copy of itself (2·β²·variance of the "
+     "column); for OLS exactly how much its error would grow."),
     ("Cross-validation by group", "Held-out error computed with all rows of one group (for example one "
      "glasshouse) on the same side of the split, so a model is judged on groups it has not seen — "
      "the situation it will meet in use."),
@@ -75,7 +84,7 @@ def help_html(panels=None) -> str:
         f"<dl>{rows}</dl>"
         "<h2>Cautions</h2>"
         f"<ul>{cautions}</ul>"
-        "<h2>Keys</h2><p>Ctrl+1 … Ctrl+7 switch panels, Ctrl+R refits, Ctrl+Z undoes the last change, "
+        "<h2>Keys</h2><p>Ctrl+1 … Ctrl+9 switch panels, Ctrl+R refits, Ctrl+Z undoes the last change, "
         "Ctrl+S saves, Ctrl+O opens a table or project; tables and projects can also be dropped on the window.</p>"
     )
 

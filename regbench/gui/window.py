@@ -70,12 +70,13 @@ def _panel_classes():
     from regbench.gui.panels.fitquality import FitQualityPanel
     from regbench.gui.panels.overlaps import OverlapsPanel
     from regbench.gui.panels.paths import PathsPanel
+    from regbench.gui.panels.ranges import RangesPanel
     from regbench.gui.panels.stability import StabilityPanel
     from regbench.gui.panels.stress import StressPanel
 
     # The order a stakeholder asks in; Ctrl+1..9 follow it.
     return (DataPanel, OverlapsPanel, PathsPanel, CoefficientsPanel, FitQualityPanel, AgreementPanel, StressPanel,
-            StabilityPanel)
+            StabilityPanel, RangesPanel)
 
 
 class MainWindow(QtWidgets.QMainWindow):

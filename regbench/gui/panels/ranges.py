@@ -1,0 +1,301 @@
+"""How far can equally good models differ: ranges over every near-best linear model.
+
+A thin view of :class:`regbench.analysis.ranges.Ranges` (computed on the worker with
+the other comparisons): a band per column from the smallest to the largest
+coefficient any near-best model gives it, the fitted models marked on it; a strip
+of every row's prediction range; the columns, rows and fits as tables.  The
+tolerance control writes the session's range tolerance, which recomputes only
+the ranges (no refit).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pyqtgraph as pg
+from PySide6 import QtCore, QtGui, QtWidgets
+
+from regbench.gui.panels.base import Panel, caption, hbox
+from regbench.gui.style import PALETTE, model_colour
+from regbench.formatting import number_text
+from regbench.gui.tables import GridModel, make_view
+from regbench.models.results import model_label
+
+Qt = QtCore.Qt
+
+#: Choices of the tolerance control: (label, τ); None is the held-out default.
+CHOICES = (("one SE of the best held-out error", None), ("within 0.1 % of the best training error", 0.001),
+           ("within 1 %", 0.01), ("within 5 %", 0.05), ("within 10 %", 0.10), ("within 25 %", 0.25))
+#: Mark symbols per model key (others: a square).
+SYMBOLS = {"ols": "|", "ridge": "o", "lasso": "d", "elastic_net": "t"}
+#: Rows drawn in the strip at most; a larger table shows the widest rows and an even spread of the rest.
+STRIP_ROWS = 2000
+SETTLED = "#2f6f73"
+OPEN = "#d4a017"
+
+
+class _Grid(GridModel):
+    """Numbers with significant digits (a coefficient of 0.00014 must not read as 0)."""
+
+    def data(self, index, role=Qt.DisplayRole):
+        if role == Qt.DisplayRole:
+            v = self.value(index.row(), index.column()) if index.column() < len(self.rows[index.row()]) else None
+            if isinstance(v, (float, np.floating)):
+                return number_text(v, self.digits, missing="")
+        return super().data(index, role)
+
+
+class RangesPanel(Panel):
+    key = "ranges"
+    title = "How far can equally good models differ"
+    nav = "Equally good models"
+    uses_comparisons = True
+
+    def build(self, body):
+        lay = QtWidgets.QVBoxLayout(body)
+        lay.setContentsMargins(0, 0, 0, 0)
+        self.choice = QtWidgets.QComboBox()
+        for label, tau in CHOICES:
+            self.choice.addItem(label, tau)
+        self.choice.addItem("other…", "other")
+        self.custom = QtWidgets.QDoubleSpinBox()
+        self.custom.setDecimals(2)
+        self.custom.setRange(0.01, 1000.0)
+        self.custom.setSuffix(" %")
+        self.custom.setValue(2.0)
+        self.custom.setVisible(False)
+        self.choice.activated.connect(self._chosen)
+        self.custom.editingFinished.connect(self._custom_done)
+        self.in_force = QtWidgets.QLabel("")
+        self.in_force.setWordWrap(True)
+        self.in_force.setStyleSheet(f"color: {PALETTE['muted']};")
+        lay.addWidget(hbox(caption("Near-best means"), self.choice, self.custom, self.in_force, stretch_last=False))
+
+        split = QtWidgets.QSplitter(Qt.Horizontal)
+        left = QtWidgets.QSplitter(Qt.Vertical)
+        self.bars = pg.PlotWidget()
+        self.bars.export_name = "coefficient ranges"
+        self.bars.showGrid(x=True, y=False, alpha=0.2)
+        self.bars.setLabel("bottom", "standardized coefficient (per SD of the column)")
+        self.bars.setMouseEnabled(x=True, y=False)
+        self.bars.getAxis("bottom").enableAutoSIPrefix(False)
+        left.addWidget(self.bars)
+        self.strip = pg.PlotWidget()
+        self.strip.export_name = "prediction ranges"
+        self.strip.showGrid(x=False, y=True, alpha=0.2)
+        self.strip.setLabel("bottom", "rows by OLS prediction; a line spans the near-best models")
+        left.addWidget(self.strip)
+        left.setSizes([480, 220])
+        split.addWidget(left)
+
+        self.tabs = QtWidgets.QTabWidget()
+        self.columns_model = _Grid()
+        self.columns_view = make_view(self.columns_model)
+        self.tabs.addTab(self.columns_view, "Columns")
+        self.rows_model = _Grid()
+        self.rows_view = make_view(self.rows_model)
+        self.tabs.addTab(self.rows_view, "Rows that differ most")
+        self.fits_model = _Grid()
+        self.fits_view = make_view(self.fits_model)
+        self.tabs.addTab(self.fits_view, "The fits")
+        self.trades = QtWidgets.QLabel("")
+        self.trades.setWordWrap(True)
+        self.trades.setTextInteractionFlags(Qt.TextSelectableByMouse)
+        right = QtWidgets.QWidget()
+        rl = QtWidgets.QVBoxLayout(right)
+        rl.setContentsMargins(0, 0, 0, 0)
+        rl.addWidget(self.tabs, 1)
+        rl.addWidget(self.trades)
+        split.addWidget(right)
+        split.setSizes([640, 560])
+        lay.addWidget(split, 1)
+
+    def plots(self):
+        return [self.bars, self.strip]
+
+    def views(self):
+        return [self.columns_view, self.rows_view, self.fits_view]
+
+    # -- the tolerance control -------------------------------------------------------------
+    def _chosen(self, index):
+        data = self.choice.itemData(index)
+        self.custom.setVisible(data == "other")
+        if data == "other":
+            self.custom.setFocus()
+            return
+        self._apply(data)
+
+    def _custom_done(self):
+        if self.choice.currentData() == "other":
+            self._apply(self.custom.value() / 100.0)
+
+    def _apply(self, tau):
+        s = self.session
+        if s is None or s.settings.range_tolerance == tau:
+            return
+        s.set_range_tolerance(tau)
+
+    def _show_choice(self, tau):
+        self.choice.blockSignals(True)
+        idx = next((i for i, (_, t) in enumerate(CHOICES) if t == tau), None)
+        if idx is None:
+            idx = len(CHOICES)
+            self.custom.blockSignals(True)
+            self.custom.setValue(100.0 * tau)
+            self.custom.blockSignals(False)
+        self.choice.setCurrentIndex(idx)
+        self.custom.setVisible(idx == len(CHOICES))
+        self.choice.blockSignals(False)
+
+    # -- drawing -------------------------------------------------------------------------
+    def refresh(self, session):
+        self._show_choice(session.settings.range_tolerance)
+        rg = session.ranges() if session.results is not None else None
+        if rg is None:
+            self.bars.clear()
+            self.strip.clear()
+            for m in (self.columns_model, self.rows_model, self.fits_model):
+                m.set_rows([], [])
+            self.in_force.setText("")
+            self.trades.setText("")
+            self.set_sentences(["Fit the models to see how far every near-best model can differ."])
+            return
+        from regbench.analysis.ranges import KIND_HELDOUT
+
+        which = "held-out default" if rg.tolerance_kind == KIND_HELDOUT else "set here"
+        self.in_force.setText(f"In force ({which}): {rg.tolerance_note}.")
+        self.set_sentences(list(rg.sentences[:2]))
+        self.trades.setText("\n".join(t["sentence"] for t in rg.trades) + (
+            "\n" + " ".join(rg.sentences[2:]) if len(rg.sentences) > 2 else ""))
+        self.trades.setVisible(bool(self.trades.text().strip()))
+        models = session.models()
+        self._draw_bars(rg, models)
+        self._draw_strip(rg)
+        self._fill_tables(rg)
+
+    def _draw_bars(self, rg, models):
+        plot = self.bars
+        plot.clear()
+        legend = plot.getPlotItem().legend or plot.addLegend(offset=(6, 2), labelTextSize="8pt")
+        legend.clear()
+        legend.setColumnCount(4)  # one line above the bands
+        cols = list(rg.columns)
+        p = len(cols)
+        ys = np.arange(p)[::-1].astype(float)
+        vals = [rg.low_std[rg.bounded], rg.high_std[rg.bounded]]
+        vals += [np.asarray(m.coef_std, float) for m in models.values()]
+        cat = np.concatenate([v[np.isfinite(v)] for v in vals] + [np.zeros(1)])
+        lo, hi = float(cat.min()), float(cat.max())
+        span = (hi - lo) or 1.0
+        lo, hi = lo - 0.05 * span, hi + 0.05 * span
+        for j in range(p):
+            y = ys[j]
+            if rg.bounded[j]:
+                colour = SETTLED if rg.sign_settled[j] else OPEN
+                a, b = float(rg.low_std[j]), float(rg.high_std[j])
+                item = QtWidgets.QGraphicsRectItem(a, y - 0.22, max(b - a, 1e-12), 0.44)
+                c = QtGui.QColor(colour)
+                fill = QtGui.QColor(c)
+                fill.setAlpha(80)
+                item.setBrush(QtGui.QBrush(fill))
+                pen = QtGui.QPen(c)
+                pen.setCosmetic(True)
+                item.setPen(pen)
+            else:
+                item = QtWidgets.QGraphicsRectItem(lo, y - 0.22, hi - lo, 0.44)
+                c = QtGui.QColor(PALETTE["warn"])
+                fill = QtGui.QColor(c)
+                fill.setAlpha(22)
+                item.setBrush(QtGui.QBrush(fill))
+                pen = QtGui.QPen(c, 1, Qt.DashLine)
+                pen.setCosmetic(True)
+                item.setPen(pen)
+                text = pg.TextItem("no bound", color=PALETTE["warn"], anchor=(1, 0.5))
+                text.setPos(hi, y + 0.32)
+                plot.addItem(text)
+            plot.addItem(item)
+        zero = pg.InfiniteLine(pos=0, angle=90, pen=pg.mkPen(PALETTE["text"], width=1))
+        plot.addItem(zero)
+        for name, m in models.items():
+            v = np.asarray(m.coef_std, float)
+            ok = np.isfinite(v)
+            sym = SYMBOLS.get(name, "s")
+            brush = None if sym in ("o", "t") else model_colour(name)
+            sc = pg.ScatterPlotItem(v[ok], ys[ok], symbol=sym, size=11 if sym == "|" else 8,
+                                    pen=pg.mkPen(model_colour(name), width=2), brush=brush)
+            plot.addItem(sc)
+            legend.addItem(sc, model_label(name))
+        plot.getAxis("left").setTicks([[(ys[j], cols[j]) for j in range(p)]])
+        plot.setXRange(lo, hi, padding=0)
+        plot.setYRange(-0.7, p + 0.6, padding=0)  # headroom for the legend
+
+    def _draw_strip(self, rg):
+        plot = self.strip
+        plot.clear()
+        if rg.row_half is None or rg.row_half.size == 0:
+            return
+        n = rg.row_half.size
+        idx = np.arange(n)
+        if n > STRIP_ROWS:
+            # Every widest row and an even spread of the rest, so a big table still draws at once.
+            keep = set(np.argsort(-rg.row_half)[:50].tolist())
+            keep.update(np.linspace(0, n - 1, STRIP_ROWS - len(keep)).astype(int).tolist())
+            idx = np.array(sorted(keep))
+            plot.setTitle(f"{idx.size:,} of {n:,} rows shown (the widest and an even spread)", size="8pt")
+        else:
+            plot.setTitle("")
+        order = idx[np.argsort(rg.row_centre[idx], kind="stable")]
+        x = np.arange(order.size, dtype=float)
+        lo = rg.row_centre[order] - rg.row_half[order]
+        hi = rg.row_centre[order] + rg.row_half[order]
+        xs = np.repeat(x, 2)
+        ys = np.column_stack([lo, hi]).ravel()
+        plot.addItem(pg.PlotDataItem(xs, ys, connect="pairs", pen=pg.mkPen(PALETTE["accent"], width=1)))
+        plot.addItem(pg.ScatterPlotItem(x, rg.row_centre[order], size=3, pen=None,
+                                        brush=model_colour("ols")))
+        widest = {d["row"] for d in rg.widest[:3]}
+        for k, i in enumerate(order):
+            if int(rg.row_numbers[i]) in widest:
+                t = pg.TextItem(f"row {int(rg.row_numbers[i])}", color=PALETTE["warn"], anchor=(0.5, 1.1))
+                t.setPos(float(k), float(hi[k]))
+                plot.addItem(t)
+        plot.setLabel("left", rg.target)
+        top, bottom = float(hi.max()), float(lo.min())
+        plot.setYRange(bottom, top + 0.12 * (top - bottom or 1.0), padding=0.02)
+
+    def _fill_tables(self, rg):
+        p = len(rg.columns)
+        rows, fg = [], {}
+        for j in range(p):
+            if rg.bounded[j]:
+                imp_hi = rg.importance_high[j] / rg.best_error if rg.best_error > 0 else float("nan")
+                rows.append([float(rg.low[j]), float(rg.high[j]), float(rg.low_std[j]), float(rg.high_std[j]),
+                             "settled" if rg.sign_settled[j] else "not settled",
+                             float(rg.importance_low[j] / rg.best_error) if rg.best_error > 0 else float("nan"),
+                             imp_hi])
+                if not rg.sign_settled[j]:
+                    fg[(j, 4)] = OPEN
+            else:
+                rows.append(["no bound", "no bound", "no bound", "no bound", "not settled",
+                             float(rg.importance_low[j] / rg.best_error) if rg.best_error > 0 else float("nan"),
+                             "no bound"])
+                for c in range(5):
+                    fg[(j, c)] = PALETTE["warn"]
+        self.columns_model.set_rows(rows, ["Lowest", "Highest", "Lowest (std.)", "Highest (std.)", "Sign",
+                                           "Importance from", "to (share of best error)"],
+                                    row_labels=list(rg.columns), foregrounds=fg, digits=3)
+        self.columns_view.resizeColumnsToContents()
+        rows = []
+        for d in rg.widest:
+            unusual = "; ".join(f"{c} {v:.4g} ({z:+.1f} SD)" for c, v, z in d["unusual"]) or "nothing unusual"
+            rows.append([d["row"], d["centre"], d["low"], d["high"], d["width"], unusual])
+        self.rows_model.set_rows(rows, ["Row", "OLS prediction", "Lowest", "Highest", "Width", "Unusual values"],
+                                 digits=4)
+        self.rows_view.resizeColumnsToContents()
+        rows, fg = [], {}
+        for k, (name, m) in enumerate(rg.models.items()):
+            rows.append([model_label(name), float(100.0 * m.excess), "yes" if m.inside else "no"])
+            if not m.inside:
+                fg[(k, 2)] = PALETTE["warn"]
+        self.fits_model.set_rows(rows, ["Model", "Training error above the best (%)", "Inside the set"],
+                                 foregrounds=fg, digits=3)
+        self.fits_view.resizeColumnsToContents()

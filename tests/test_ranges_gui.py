@@ -1,0 +1,89 @@
+"""The window's view of equally good models, driven offscreen (pytest-qt).
+
+What it shows is checked against the headless core on the same session (every number in
+the window comes from :func:`regbench.analysis.ranges.compute_ranges`).
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+_HOME = tempfile.mkdtemp(prefix="regbench-ranges-gui-")
+os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
+os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
+
+import numpy as np  # noqa: E402
+import pytest  # noqa: E402
+
+pytest.importorskip("pytestqt")
+from PySide6 import QtCore, QtWidgets  # noqa: E402
+
+from regbench.data import Roles  # noqa: E402
+from regbench.demo import GREENHOUSE_ROLES  # noqa: E402
+from regbench.models.results import FitSettings  # noqa: E402
+
+pytestmark = pytest.mark.gui
+QtCore.QStandardPaths.setTestModeEnabled(True)
+SAMPLE_CSV = os.path.join(os.path.dirname(__file__), "..", "sample_projects", "greenhouse.csv")
+TIMEOUT_MS = 120_000
+
+
+def _idle(qtbot, w):
+    qtbot.waitUntil(lambda: not w.runner.busy() and w.session.derived_ready, timeout=TIMEOUT_MS)
+    QtWidgets.QApplication.processEvents()
+
+
+def test_panel_shows_the_core_ranges_and_the_tolerance_control_recomputes_without_a_refit(qtbot):
+    from regbench.analysis.ranges import compute_ranges
+    from regbench.gui.window import MainWindow
+    from regbench.session import Session
+
+    s = Session.from_table_file(SAMPLE_CSV, Roles.from_dict(GREENHOUSE_ROLES), FitSettings(folds=3, n_penalties=20))
+    s.set_bootstrap(0)
+    s.compute()
+    w = MainWindow(autosave=False)
+    w.ask_unsaved = lambda: "discard"
+    qtbot.addWidget(w)
+    w.resize(1400, 900)
+    w.adopt(s, fit=False)
+    _idle(qtbot, w)
+    w.show_panel("ranges")
+    panel = w.panel("ranges")
+    w._refresh_panel(panel)
+    core = compute_ranges(s.design, s.results, None, models=s.models())
+    assert panel.sentences.text().startswith(core.sentences[0])
+    assert "held-out default" in panel.in_force.text()
+    m = panel.columns_model
+    j = core.columns.index("humidity_pct")
+    assert m.value(j, 0) == pytest.approx(core.low[j]) and m.value(j, 1) == pytest.approx(core.high[j])
+    assert m.value(core.columns.index("day_temp_f"), 0) == "no bound"
+    assert panel.rows_model.value(0, 0) == core.widest[0]["row"]
+    assert [panel.fits_model.value(k, 0) for k in range(4)] == ["OLS", "Ridge", "Lasso", "Elastic net"]
+
+    results = s.results
+    panel.choice.setCurrentIndex(2)  # within 1 %
+    panel._chosen(2)
+    _idle(qtbot, w)
+    w._refresh_panel(panel)
+    assert s.results is results and s.settings.range_tolerance == 0.01  # the fits stay
+    assert "set here" in panel.in_force.text() and "within 1 %" in panel.sentences.text()
+    one = compute_ranges(s.design, s.results, 0.01, models=s.models())
+    assert m.value(j, 1) == pytest.approx(one.high[j])
+    assert len(panel.plots()) == 2 and all(p.getPlotItem().listDataItems() or p.getPlotItem().items
+                                           for p in panel.plots())
+    w.undo()
+    _idle(qtbot, w)
+    assert s.settings.range_tolerance is None and panel.choice.currentIndex() == 0
+    w.dirty = False
+    w.close()
+
+
+def test_panel_without_fits_says_so(qtbot):
+    from regbench.gui.window import MainWindow
+
+    w = MainWindow(autosave=False)
+    qtbot.addWidget(w)
+    assert "ranges" in [p.key for p in w.panels]
+    w.close()
