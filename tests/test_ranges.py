@@ -306,7 +306,7 @@ def test_fit_json_carries_ranges_with_the_tolerance_set(tmp_path, capsys):
     assert rg["sentences"][0].startswith("Any model within 1 % of the best training error")
     assert main(["fit", *_sample_args(), "--range-tolerance", "-1"]) == 2
     err = capsys.readouterr().err
-    assert "--range-tolerance: -1 must be above 0" in err and "Traceback" not in err
+    assert "--range-tolerance: -1 is outside (0, 10]" in err and "Traceback" not in err
 
 
 def test_session_keeps_fits_when_only_the_tolerance_changes(tmp_path):
