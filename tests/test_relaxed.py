@@ -145,7 +145,15 @@ def test_cli_relaxed_json_and_session_report(tmp_path, capsys):
     s = Session.from_table(table_from_frame(frame, source="t.csv"), Roles(target="y", groups="g"),
                            FitSettings(folds=3, n_penalties=15, relaxed=True))
     s.set_bootstrap(4)
+    from regbench.analysis.stress import StressConfig, stress_refit
+
+    s.add_stress(StressConfig("x0", "rescale", 2.0))
     s.compute()
+    moved = s.stress_results()[0].shifts
+    assert moved["relaxed_lasso"].shift_rmse > 0 and moved["relaxed_elastic_net"].shift_rmse > 0
+    rel = {n: pf.relaxation for n, pf in s.results.penalized.items() if pf.relaxation is not None}
+    again = stress_refit(s.design, s.settings, s.alphas(), StressConfig("x0", "rescale", 2.0), rel)
+    assert "relaxed_lasso" in again.models
     assert {"relaxed_lasso", "relaxed_elastic_net"} <= set(s.models())
     assert "relaxed_lasso" in s.stability.selected_freq
     s.set_alpha("relaxed_lasso", 0.05)

@@ -628,7 +628,7 @@ def rank_columns(design, models: dict, kind: str = "shuffle", strength: Optional
 # -- retraining on damaged data -----------------------------------------------------------
 
 
-def stress_refit(design, settings, alphas: dict, config: StressConfig) -> StressResult:
+def stress_refit(design, settings, alphas: dict, config: StressConfig, relaxations=None) -> StressResult:
     """Retrain every model on damaged data and predict the clean rows.
 
     Each retrained model's predictions on the clean rows are compared with the
@@ -639,8 +639,8 @@ def stress_refit(design, settings, alphas: dict, config: StressConfig) -> Stress
     idx = resolve_column(design, config.column)
     strength = config.resolved_strength()
     tol = default_tolerance(design) if config.tolerance is None else float(config.tolerance)
-    clean_models = fit_models_at(design, settings, alphas)
-    bad_models = fit_models_at(damaged_design(design, config), settings, alphas)
+    clean_models = fit_models_at(design, settings, alphas, relaxations)
+    bad_models = fit_models_at(damaged_design(design, config), settings, alphas, relaxations)
     shifts, rows = {}, {}
     for name, m in clean_models.items():
         if name not in bad_models:

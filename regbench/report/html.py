@@ -270,6 +270,8 @@ def _fits(session) -> str:
     for j, c in enumerate(res.columns):
         rows.append((c, *[coef_cell(models[n].coef[j]) for n in names]))
     parts.append(table(["Column", *[model_label(n) + (f" α={num(models[n].alpha, 3)}" if models[n].alpha else "")
+                                    + (f" γ={num(models[n].relaxation, 2)}" if models[n].relaxation is not None else "")
+                                    + (" (NOT CONVERGED)" if models[n].converged is False else "")
                                     for n in names]], rows))
     parts.append('<p class="muted">A grey 0 means the model does not use the column (OLS: set aside; lasso and '
                  "elastic net: not selected at this α).</p>")
