@@ -168,14 +168,15 @@ class Session:
         Changed since the last save or load.
     """
 
-    def __init__(self, table: Table, roles: Roles, settings: Optional[FitSettings] = None):
+    def __init__(self, table: Table, roles: Roles, settings: Optional[FitSettings] = None, *, design=None):
         roles = _roles(roles)
         self.table = table
         settings = _normalized(settings or FitSettings())
         self._state = _State(roles=roles, settings=settings, chosen_alpha={},
                              extra_fits=(), stress_configs=(), bootstrap=DEFAULT_BOOTSTRAP,
                              notes="", view_state={})
-        self.design = build_design(table, roles)
+        # ``design``: already built from this table and these roles (the project loader's check).
+        self.design = design if design is not None else build_design(table, roles)
         self.results = None
         self.stability = None
         self.stability_alphas: dict = {}
@@ -693,9 +694,9 @@ class Session:
     # -- used by the project layer --------------------------------------------------------
 
     def _install_loaded(self, state: _State, results=None, stability=None, stability_alphas=None,
-                        derived: Optional[dict] = None) -> None:
+                        derived: Optional[dict] = None, design=None) -> None:
         self._state = state
-        self.design = build_design(self.table, state.roles)
+        self.design = design if design is not None else build_design(self.table, state.roles)
         self.results = results
         self.stability = stability
         self.stability_alphas = dict(stability_alphas or {})

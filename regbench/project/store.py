@@ -527,6 +527,7 @@ def _session_state(ar: _Archive, doc, table):
         if c not in names:
             bad(f"settings.penalty_factors.{c}", "names a column that is not in the table")
     design_cols = set()
+    design = None
     try:
         design = build_design(table, roles)
         design_cols = set(design.columns)
@@ -607,7 +608,7 @@ def _session_state(ar: _Archive, doc, table):
                    extra_fits=tuple({"name": e["name"], "family": e["family"], "alpha": float(e["alpha"])}
                                     for e in extra),
                    stress_configs=tuple(configs), bootstrap=boot, notes=notes, view_state=vs)
-    return state
+    return state, design
 
 
 # -- cached results ------------------------------------------------------------------------
@@ -713,9 +714,10 @@ def load_project(path, compute: bool = True, progress=None, cancel=None):
         if not isinstance(doc, dict):
             raise ProjectError(f"{ar.label}: session.json: the top level must be an object; the file is damaged")
         table = _read_table(ar, table_bytes, doc.get("table"))
-        state = _session_state(ar, doc, table)
-        session = Session(table, state.roles, state.settings)
-        session._install_loaded(state)
+        # The design checked here serves the session too: a table is coded once per opening.
+        state, design = _session_state(ar, doc, table)
+        session = Session(table, state.roles, state.settings, design=design)
+        session._install_loaded(state, design=design)
         status = _load_results(ar, m, session, migrated)
     finally:
         ar.close()
