@@ -154,8 +154,47 @@ _GRID_ROLES = frozenset((Qt.DisplayRole, Qt.TextAlignmentRole, Qt.BackgroundRole
 SIZE_ROWS = 40
 
 
+#: Tables with at most this many columns are squeezed to the width they are given instead of scrolling
+#: sideways (long cells elide; the tooltip and Copy keep the whole text).
+SQUEEZE_MAX_COLUMNS = 24
+MIN_COLUMN_PX = 44
+
+
+class FittedTableView(QtWidgets.QTableView):
+    """A table view whose columns, sized to their contents, shrink to fit its width when they can."""
+
+    def resizeColumnsToContents(self):
+        super().resizeColumnsToContents()
+        h = self.horizontalHeader()
+        # Content widths (a stretched last section reports the space it fills, not what it needs).
+        self._natural = [max(self.sizeHintForColumn(i), h.sectionSizeHint(i)) for i in range(h.count())]
+        self._squeeze()
+
+    def resizeEvent(self, event):
+        super().resizeEvent(event)
+        self._squeeze()
+
+    def _squeeze(self):
+        h = self.horizontalHeader()
+        natural = getattr(self, "_natural", None)
+        n = h.count()
+        if not natural or len(natural) != n or n > SQUEEZE_MAX_COLUMNS:
+            return
+        avail = self.viewport().width() - 2
+        widths = list(natural)
+        if sum(natural) > avail:
+            # Water-filling: the widest columns give way first; narrow ones keep their width.
+            cap = max(natural)
+            while cap > MIN_COLUMN_PX and sum(min(w, cap) for w in natural) > avail:
+                cap -= 4
+            widths = [min(w, cap) for w in natural]
+        for i, w in enumerate(widths):
+            if h.sectionResizeMode(i) == QtWidgets.QHeaderView.Interactive:
+                h.resizeSection(i, w)
+
+
 def make_view(model: QtCore.QAbstractTableModel, stretch_last: bool = True) -> QtWidgets.QTableView:
-    view = QtWidgets.QTableView()
+    view = FittedTableView()
     view.setModel(model)
     view.setAlternatingRowColors(True)
     view.setSelectionBehavior(QtWidgets.QAbstractItemView.SelectItems)

@@ -348,6 +348,5 @@ class StressPanel(Panel):
         order = np.argsort(-shift.max(axis=0))
         rows = [[rk.columns[j]] + [float(shift[i, j]) for i in range(len(rk.models))] for j in order]
         self.rank_model.set_rows(rows, ["Column"] + [model_label(n) for n in rk.models])
-        self.rank_caption.setText(f"Every column damaged in turn ({KIND_WORDS.get(rk.kind, rk.kind)}): "
-                                  "RMS shift of predictions")
+        self.rank_caption.setText(f"Every column damaged in turn ({rk.kind}): RMS shift of predictions")
         self.rank_view.resizeColumnsToContents()
