@@ -1047,3 +1047,21 @@ def test_clicking_a_column_name_highlights_its_path_and_help_uses_menu_names(gh)
     for p in gh.panels:   # the help names each panel as the list and the View menu do
         assert f"<b>{p.nav}</b>" in html
     assert [a.text() for a in gh.view_menu.actions() if a.text()][:len(gh.panels)] == [p.nav for p in gh.panels]
+
+
+@pytest.mark.skipif(not hasattr(FitSettings(), "penalty_factors"), reason="the engine has no penalty factors yet")
+def test_penalty_factor_set_per_column_in_the_column_list(gh, qtbot):
+    cm = gh.panel("data").columns_model
+    r = cm.draft.names.index("co2_ppm")
+    idx = cm.index(r, cm.C_PENALTY)
+    assert cm.flags(idx) & QtCore.Qt.ItemIsEditable
+    assert not cm.setData(idx, "minus one", QtCore.Qt.EditRole)     # not a number: refused, nothing changes
+    assert cm.setData(idx, "0", QtCore.Qt.EditRole)
+    with qtbot.waitSignal(gh.results_applied, timeout=FIT_TIMEOUT_MS):
+        gh.question.fit_btn.click()
+    wait_idle(qtbot, gh)
+    assert dict(gh.session.settings.penalty_factors) == {"co2_ppm": 0.0}
+    # A factor of 0 leaves the column unshrunk, so lasso keeps it at any α (the penalty's definition).
+    fit = gh.session.results.penalized["lasso"]
+    j = list(fit.path.columns).index("co2_ppm")
+    assert np.all(fit.path.coef[1:, j] != 0.0)

@@ -114,6 +114,7 @@ class RoleDraft(QtCore.QObject):
         self.categorical: set = set()
         self.settings = None
         self.bootstrap = 0
+        self.weights_kind: Optional[str] = None   # 'counts' or 'precision' where the engine knows the two
         self.unusable: dict = {}     # column -> why the fit cannot use it
         self.left_out: dict = {}     # column -> why it was not ticked by default
 
@@ -132,6 +133,7 @@ class RoleDraft(QtCore.QObject):
                            and not looks_like_identifier(table, c)}
         self.ticked -= {self.target, self.weights, self.groups}
         self.categorical = set(roles.categorical)
+        self.weights_kind = getattr(roles, "weights_kind", None)
         self.settings = settings
         self.bootstrap = int(bootstrap)
         self.unusable = dict(unusable or {})
@@ -221,6 +223,27 @@ class RoleDraft(QtCore.QObject):
     def is_derived(self, name: str) -> bool:
         return any(d.name == name for d in self.derived)
 
+    def set_weights_kind(self, kind: str) -> None:
+        self.weights_kind = kind
+        self.changed.emit()
+
+    @property
+    def has_penalty_factors(self) -> bool:
+        return self.settings is not None and hasattr(self.settings, "penalty_factors")
+
+    def penalty_factor(self, name: str) -> float:
+        return float(dict(getattr(self.settings, "penalty_factors", ()) or ()).get(name, 1.0))
+
+    def set_penalty_factor(self, name: str, value: float) -> None:
+        """A column's penalty factor in every penalized model (1: as the others; 0: never shrunk)."""
+        factors = dict(getattr(self.settings, "penalty_factors", ()) or ())
+        if value == 1.0:
+            factors.pop(name, None)
+        else:
+            factors[name] = float(value)
+        self.settings = replace(self.settings, penalty_factors=tuple(sorted(factors.items())))
+        self.changed.emit()
+
     def set_settings(self, settings, bootstrap: Optional[int] = None) -> None:
         self.settings = settings
         if bootstrap is not None:
@@ -230,8 +253,11 @@ class RoleDraft(QtCore.QObject):
     def roles(self) -> Roles:
         preds = tuple(c for c in self.names if self.uses(c))
         cats = tuple(c for c in preds if c in self.categorical and self.table.columns[c].kind == NUMERIC)
+        extra = {}
+        if self.weights_kind is not None and "weights_kind" in Roles.__dataclass_fields__:
+            extra["weights_kind"] = self.weights_kind
         return Roles(target=self.target, predictors=preds, categorical=cats, weights=self.weights, groups=self.groups,
-                     derived=self.derived)
+                     derived=self.derived, **extra)
 
     def differs_from(self, session) -> bool:
         """True when Fit would change the session's roles, settings or refit count."""
@@ -269,10 +295,18 @@ class QuestionBar(QtWidgets.QFrame):
             combo.setSizeAdjustPolicy(QtWidgets.QComboBox.AdjustToMinimumContentsLengthWithIcon)
             combo.setMinimumContentsLength(9)
         self.ticked_words = words("from the ticked columns;")
+        self.weights_before = words("each row counts")
+        self.weights_after = words("times;")
+        self.weights_kind = QtWidgets.QComboBox()
+        self.weights_kind.addItem("times, as counts", "counts")
+        self.weights_kind.addItem("as a precision weight", "precision")
+        self.weights_kind.setToolTip("Counts: a row stands for that many identical observations. Precision: a row "
+                                     "is one observation, measured more precisely the larger its weight.")
+        self.weights_kind.activated.connect(lambda *_: draft.set_weights_kind(self.weights_kind.currentData()))
         self.groups_before = words("hold out whole")
         self.groups_after = words("groups.")
         for w in (words("Explain"), self.target, self.ticked_words,
-                  words("each row counts"), self.weights, words("times;"),
+                  self.weights_before, self.weights, self.weights_kind, self.weights_after,
                   self.groups_before, self.groups, self.groups_after):
             lay.addWidget(w)
         lay.addStretch(1)
@@ -317,6 +351,15 @@ class QuestionBar(QtWidgets.QFrame):
             combo.blockSignals(False)
         n = sum(1 for c in names if d.uses(c))
         self.ticked_words.setText(f"from the {n} ticked column{'s' if n != 1 else ''};")
+        kinds = d.weights_kind is not None and d.weights is not None
+        self.weights_kind.setVisible(kinds)
+        if kinds:
+            self.weights_kind.setCurrentIndex(max(0, self.weights_kind.findData(d.weights_kind)))
+            self.weights_before.setText("each row counts" if d.weights_kind == "counts" else "each row is weighted by")
+            self.weights_after.setText(";")
+        else:
+            self.weights_before.setText("each row counts")
+            self.weights_after.setText("times;")
         grouped = d.groups is not None
         self.groups_before.setText("hold out whole" if grouped else "hold out")
         self.groups_after.setText("groups." if grouped else "at random.")
@@ -386,8 +429,8 @@ class FitSettingsForm(QtWidgets.QWidget):
 class ColumnsModel(QtCore.QAbstractTableModel):
     """One row per column: use it (tick), kind, empty cells, distinct values, as categories, its part in the fit."""
 
-    C_USE, C_NAME, C_KIND, C_EMPTY, C_DISTINCT, C_CATS, C_PART = range(7)
-    HEADERS = ("Use", "Column", "Kind", "Empty", "Values", "As categories", "Part in the fit")
+    C_USE, C_NAME, C_KIND, C_EMPTY, C_DISTINCT, C_CATS, C_PENALTY, C_PART = range(8)
+    HEADERS = ("Use", "Column", "Kind", "Empty", "Values", "As categories", "Penalty factor", "Part in the fit")
 
     def __init__(self, draft: RoleDraft, parent=None):
         super().__init__(parent)
@@ -467,11 +510,18 @@ class ColumnsModel(QtCore.QAbstractTableModel):
                 return "suggested"
             if c == self.C_PART:
                 return self.part(name)
+            if c == self.C_PENALTY and d.has_penalty_factors and d.uses(name):
+                return f"{d.penalty_factor(name):g}"
             return None
+        if role == Qt.EditRole and c == self.C_PENALTY:
+            return f"{d.penalty_factor(name):g}"
         if role == Qt.ToolTipRole:
             if c == self.C_CATS and info.coded_categories:
                 return (f"whole numbers with only {info.distinct} different values: they may be codes for "
                         "categories; tick to give each value its own indicator column")
+            if c == self.C_PENALTY:
+                return ("How strongly the penalized models shrink this column: 1 as the others, 0 never "
+                        "(always kept), 2 twice as hard. Double-click to change.")
             if c == self.C_EMPTY and info.missing:
                 return f"{info.missing} empty cells; rows where a used column is empty are left out of the fit"
             if c in (self.C_PART, self.C_NAME):
@@ -497,9 +547,20 @@ class ColumnsModel(QtCore.QAbstractTableModel):
             f |= Qt.ItemIsUserCheckable
         if index.column() == self.C_CATS and info.kind == NUMERIC and self.draft.role_of(name) is None:
             f |= Qt.ItemIsUserCheckable
+        if index.column() == self.C_PENALTY and self.draft.has_penalty_factors and self.draft.uses(name):
+            f |= Qt.ItemIsEditable
         return f
 
     def setData(self, index, value, role=Qt.EditRole):
+        if role == Qt.EditRole and index.isValid() and index.column() == self.C_PENALTY:
+            try:
+                v = float(str(value).replace(",", ".").strip())
+            except ValueError:
+                return False
+            if not (v >= 0 and np.isfinite(v)):
+                return False
+            self.draft.set_penalty_factor(self._name(index.row()), v)
+            return True
         if role != Qt.CheckStateRole or not index.isValid():
             return False
         name = self._name(index.row())

@@ -60,6 +60,8 @@ class DataPanel(Panel):
                           self.derive_and, self.derive_b, self.derive_btn, 1, self.underive_btn))
         self._derive_shape()
         self.window_.draft.changed.connect(self._fill_derive_columns)
+        self.window_.draft.changed.connect(lambda: self.columns_view.setColumnHidden(
+            ColumnsModel.C_PENALTY, not self.window_.draft.has_penalty_factors))
         self.tabs = QtWidgets.QTabWidget()
         self.frame_model = FrameModel()
         self.frame_view = make_view(self.frame_model, stretch_last=False)
