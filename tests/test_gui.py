@@ -1065,3 +1065,15 @@ def test_penalty_factor_set_per_column_in_the_column_list(gh, qtbot):
     fit = gh.session.results.penalized["lasso"]
     j = list(fit.path.columns).index("co2_ppm")
     assert np.all(fit.path.coef[1:, j] != 0.0)
+
+
+def test_the_window_fits_1400_by_900_without_sideways_scrolling(gh):
+    # The question sentence and the panels fit the default size: nothing forces the window wider.
+    assert gh.minimumSizeHint().width() <= 1400 and gh.width() == 1400
+    for key in ("coefficients", "stress", "fit"):
+        gh.show_panel(key)
+        gh._refresh_panel(gh.panel(key))
+        QtWidgets.QApplication.processEvents()
+        for view in gh.panel(key).views():
+            if view.isVisible() and view.model().columnCount() <= 12:
+                assert not view.horizontalScrollBar().isVisible(), (key, view.model().headers)

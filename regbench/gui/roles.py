@@ -298,8 +298,10 @@ class QuestionBar(QtWidgets.QFrame):
         self.weights_before = words("each row counts")
         self.weights_after = words("times;")
         self.weights_kind = QtWidgets.QComboBox()
-        self.weights_kind.addItem("times, as counts", "counts")
-        self.weights_kind.addItem("as a precision weight", "precision")
+        self.weights_kind.addItem("times", "counts")
+        self.weights_kind.addItem("(precision)", "precision")
+        self.weights_kind.setSizeAdjustPolicy(QtWidgets.QComboBox.AdjustToContents)
+        self.weights_kind.setVisible(False)
         self.weights_kind.setToolTip("Counts: a row stands for that many identical observations. Precision: a row "
                                      "is one observation, measured more precisely the larger its weight.")
         self.weights_kind.activated.connect(lambda *_: draft.set_weights_kind(self.weights_kind.currentData()))
