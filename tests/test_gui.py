@@ -1077,3 +1077,22 @@ def test_the_window_fits_1400_by_900_without_sideways_scrolling(gh):
         for view in gh.panel(key).views():
             if view.isVisible() and view.model().columnCount() <= 12:
                 assert not view.horizontalScrollBar().isVisible(), (key, view.model().headers)
+
+
+@pytest.mark.skipif(not hasattr(FitSettings(), "relaxed"), reason="the engine has no relaxed families yet")
+def test_relaxed_families_chosen_in_settings_show_in_the_penalty_figure(gh, qtbot):
+    form = gh.question.settings_form
+    form.boot.setValue(0)
+    form.relaxed.setChecked(True)
+    with qtbot.waitSignal(gh.results_applied, timeout=FIT_TIMEOUT_MS):
+        gh.question.fit_btn.click()
+    wait_idle(qtbot, gh)
+    s = gh.session
+    assert s.settings.relaxed and "relaxed_lasso" in s.results.penalized
+    gh.show_panel("paths")
+    paths = gh.panel("paths")
+    i = paths.family.findData("relaxed_lasso")
+    assert i >= 0
+    paths.family.setCurrentIndex(i)
+    fig = paths.figure.figure()
+    assert fig is not None and set(fig.labels) == set(s.results.penalized["relaxed_lasso"].path.columns)

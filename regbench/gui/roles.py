@@ -399,6 +399,11 @@ class FitSettingsForm(QtWidgets.QWidget):
         form.addRow("Elastic-net L1 ratio", self.l1)
         form.addRow("Choose α by", self.rule)
         form.addRow("Stability refits", self.boot)
+        self.relaxed = QtWidgets.QCheckBox("also fit relaxed lasso and elastic net")
+        self.relaxed.setToolTip("A refit on the columns each model selected, blended with the penalized fit; "
+                                "the blend is chosen by cross-validation like α")
+        form.addRow("", self.relaxed)
+        self.relaxed.toggled.connect(self._changed)
         for w in (self.folds, self.l1, self.boot):
             w.valueChanged.connect(self._changed)
         self.rule.currentIndexChanged.connect(self._changed)
@@ -414,6 +419,8 @@ class FitSettingsForm(QtWidgets.QWidget):
         self.l1.setValue(float(s.l1_ratios[0]) if s.l1_ratios else 0.5)
         self.rule.setCurrentIndex(max(0, self.rule.findData(s.alpha_rule)))
         self.boot.setValue(self.draft.bootstrap)
+        self.relaxed.setVisible(hasattr(s, "relaxed"))
+        self.relaxed.setChecked(bool(getattr(s, "relaxed", False)))
         self._syncing = False
 
     def _changed(self, *_):
@@ -421,8 +428,9 @@ class FitSettingsForm(QtWidgets.QWidget):
             return
         base = self.draft.settings
         ratios = (round(self.l1.value(), 2),) + tuple(base.l1_ratios[1:])
+        extra = {"relaxed": self.relaxed.isChecked()} if hasattr(base, "relaxed") else {}
         self.draft.set_settings(replace(base, folds=self.folds.value(), l1_ratios=ratios,
-                                        alpha_rule=self.rule.currentData()), self.boot.value())
+                                        alpha_rule=self.rule.currentData(), **extra), self.boot.value())
 
 
 # == the column list (shown in the data view) ==================================================
