@@ -158,6 +158,7 @@ SIZE_ROWS = 40
 #: sideways (long cells elide; the tooltip and Copy keep the whole text).
 SQUEEZE_MAX_COLUMNS = 24
 MIN_COLUMN_PX = 44
+SQUEEZE_MAX_RATIO = 1.35
 
 
 class FittedTableView(QtWidgets.QTableView):
@@ -182,7 +183,9 @@ class FittedTableView(QtWidgets.QTableView):
             return
         avail = self.viewport().width() - 2
         widths = list(natural)
-        if sum(natural) > avail:
+        # Shrink only when a little is missing; a table far wider than its room scrolls instead of
+        # turning every cell into an ellipsis.
+        if avail < sum(natural) <= SQUEEZE_MAX_RATIO * avail:
             # Water-filling: the widest columns give way first; narrow ones keep their width.
             cap = max(natural)
             while cap > MIN_COLUMN_PX and sum(min(w, cap) for w in natural) > avail:
