@@ -363,3 +363,29 @@ def test_report_section_shows_the_ranges(tmp_path):
     assert f"<td>{rg.widest[0]['row']}</td>" in sec or f">{rg.widest[0]['row']}<" in sec
     assert "--range-tolerance 0.01" in html  # the reproduce command carries the setting
     assert "url(" not in sec and "<script" not in sec
+
+
+def test_a_table_read_in_batches_gives_the_same_ranges_and_says_its_rows_are_a_sample(tmp_path):
+    # Source: the in-memory route on the same rows (the ranges need only the one pass's statistics).
+    import pandas as pd
+
+    from regbench.data import Roles, build_design, read_table
+    from regbench.data.stream import stream_fit
+
+    rng = np.random.default_rng(11)
+    n = 1200
+    f = pd.DataFrame({f"x{j}": rng.normal(size=n) * (j + 1) + 10.0 * j for j in range(4)})
+    f["x4"] = f["x1"] + 0.05 * rng.normal(size=n)  # a near alias: wide but bounded ranges
+    f["y"] = f["x0"] - 0.5 * f["x1"] + rng.normal(size=n)
+    path = tmp_path / "t.parquet"
+    f.to_parquet(path, index=False, row_group_size=100)
+    roles = Roles(target="y")
+    streamed = stream_fit(path, roles, SETTINGS, memory_budget=10**5, sample_rows=200)
+    a = compute_ranges(streamed.design, streamed.results, 0.05)
+    design = build_design(read_table(path), roles)
+    b = compute_ranges(design, fit_all(design, SETTINGS), 0.05)
+    np.testing.assert_allclose(a.low, b.low, rtol=1e-8)
+    np.testing.assert_allclose(a.high, b.high, rtol=1e-8)
+    assert a.rows_of == n and a.row_half.size == streamed.design.n < n
+    assert any(f"sampled from {n:,}" in s for s in a.sentences)
+    assert ranges_to_json(a)["rows"]["sampled_from"] == n and b.rows_of == 0

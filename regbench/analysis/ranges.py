@@ -122,6 +122,8 @@ class Ranges:
     row_half: Optional[np.ndarray] = None  # (n,) half-width of the prediction range
     widest: tuple = ()  # of dict(row, centre, low, high, width, unusual)
     sentences: tuple = ()
+    #: Rows the per-row ranges cover when they are a seeded sample of a table read in batches; 0: every row.
+    rows_of: int = 0
 
     @property
     def budget(self) -> float:
@@ -324,6 +326,13 @@ def compute_ranges(design, results, tolerance: Optional[float] = None, models: O
     out = _assemble(ell, tuple(results.columns), design.target, centre, best, sd, tau, kind, note, "exact",
                     results.ols.set_aside, models if models is not None else results.models(),
                     design.X, mean, design.row_numbers, float(results.ols.intercept))
+    fitted = int(getattr(results.ols, "n_obs", 0) or 0)
+    in_design = int(np.count_nonzero(np.asarray(design.weights) > 0))
+    if fitted > in_design:  # a streamed table: the design holds a seeded sample of the rows
+        from dataclasses import replace
+
+        out = replace(out, rows_of=fitted)
+        out = replace(out, sentences=tuple(ranges_sentences(out)))
     return out
 
 
@@ -525,8 +534,10 @@ def ranges_sentences(r: Ranges) -> list:
             out.append(f"{first} gives each of the {n_set} bounded columns the same sign: the data settle them.")
     if r.row_half is not None and r.row_half.size:
         i = int(np.argmax(r.row_half))
+        where = (f"on any of {r.row_half.size:,} rows sampled from {r.rows_of:,}" if r.rows_of
+                 else "on any row")
         out.append(f"Their predictions of {r.target or 'the target'} differ by at most {_num(2 * r.row_half[i])} "
-                   f"on any row (most on row {int(r.row_numbers[i])}).")
+                   f"{where} (most on row {int(r.row_numbers[i])}).")
     unb = [cols[j] for j in range(len(cols)) if not r.bounded[j]]
     if unb:
         out.append(f"The coefficients of {_join(unb)} are not bounded at all: the dependencies OLS set aside let "
@@ -564,7 +575,8 @@ def ranges_to_json(r: Ranges) -> dict:
     rows = None
     if r.row_half is not None:
         w = 2 * r.row_half
-        rows = {"largest_width": num(w.max()) if w.size else None,
+        rows = {"sampled_from": r.rows_of or None,
+                "largest_width": num(w.max()) if w.size else None,
                 "median_width": num(np.median(w)) if w.size else None,
                 "widest": [{"row": d["row"], "prediction": num(d["centre"]), "low": num(d["low"]),
                             "high": num(d["high"]), "width": num(d["width"]),
