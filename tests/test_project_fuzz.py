@@ -5,8 +5,10 @@ removes members, and retypes or replaces JSON fields in manifest.json,
 session.json and results.json — with the manifest's hashes refreshed, so the
 field validation itself is exercised and not only the SHA-256 check.
 
-Cases run: ``MAX_EXAMPLES`` per test below (4 tests, 4 × 150 = 600 mutated files
-per run); the count is printed at the end of each test.
+Cases run: ``MAX_EXAMPLES`` per hypothesis test below (4 tests, 4 × 150 = 600 mutated files
+per run), then a seeded sweep of ``SWEEP`` = 2000 mutations (numbers that overflow or underflow,
+retyped fields, flipped bytes, truncation, missing members, a pickle payload in an array member, a
+table whose Parquet footer disagrees with session.json); the counts are printed.
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ from __future__ import annotations
 import hashlib
 import io
 import json
+import os
 import pathlib
 import zipfile
 
@@ -182,3 +185,138 @@ def test_zz_report_case_count():
     assert RUNS["count"] >= 4 * MAX_EXAMPLES or RUNS["count"] == 0
     if RUNS["count"]:
         assert RUNS["loaded"] > 0  # some mutations are harmless (notes, view state): not everything is refused
+
+
+# -- a seeded sweep of a few thousand mutations ------------------------------------------------
+#
+# Hypothesis above explores; this sweep is the same every run (seeded), cheap per case (a small
+# project, loads without the report except every 50th), and checks the four promises together:
+# no exception but ProjectError, every refusal one line, memory bounded, nothing executed.
+
+SWEEP = 2000
+#: Values that broke loaders before: huge and tiny numbers, wrong types, overflowing literals.
+NASTY = [10**40, -10**40, 2**63, 2**64, -1, 0, 5e-324, 1e-300, 1e308, -1e308, 0.5, 3, True, None, "", "x",
+         [], {}, "1e999", "-1e999", "9" * 30]
+
+
+@pytest.fixture(scope="module")
+def small_project(tmp_path_factory):
+    from regbench.data.reader import read_table, table_from_frame
+
+    full = read_table(ROOT / "sample_projects" / "greenhouse.csv")
+    table = table_from_frame(full.frame.iloc[:216].reset_index(drop=True), "greenhouse.csv, first 216 rows")
+    s = Session.from_table(table, Roles(target="yield_kg_m2", predictors=("variety", "day_temp_c", "mean_temp_c",
+                                                                          "night_temp_c", "co2_ppm"),
+                                        groups="glasshouse"), FitSettings(folds=3, n_penalties=6))
+    s.add_stress(StressConfig("co2_ppm", "noise", 1.0))
+    s.set_bootstrap(2)
+    s.compute()
+    path = tmp_path_factory.mktemp("sweep") / "small.regbench"
+    save_project(s, path)
+    assert load_project(path, compute=False).cache_status == "used"
+    return path.read_bytes()
+
+
+def _mutate(rng, members: dict) -> bytes:
+    """One seeded mutation of the project's members (hashes refreshed unless the bytes are flipped)."""
+    kind = rng.choice(["number", "number", "number", "retype", "flip", "truncate", "drop", "pickle", "parquet"])
+    members = dict(members)
+    if kind in ("number", "retype"):
+        name = rng.choice(["session.json", "results.json", "manifest.json"])
+        doc = json.loads(members[name])
+        paths = [p for p in json_paths(doc) if p]
+        if kind == "number":
+            numeric = [p for p in paths if isinstance(_at(doc, p), (int, float))]
+            paths = numeric or paths
+        path = rng.choice(paths)
+        value = rng.choice(NASTY)
+        literal = None
+        if isinstance(value, str) and (value.endswith("e999") or value.isdigit()):
+            literal, value = value, "@@literal@@"
+        text = json.dumps(replace_at(doc, path, value))
+        if literal is not None:
+            text = text.replace('"@@literal@@"', literal)
+        members[name] = text.encode()
+        return pack(members, True)
+    if kind == "drop":
+        victim = rng.choice(sorted(members))
+        members.pop(victim)
+        return pack(members, rng.random() < 0.5)
+    if kind == "pickle":
+        # An object array whose unpickling would create a file: it must be refused, never loaded.
+        import numpy as np
+
+        class Boom:
+            def __reduce__(self):
+                return (open, (str(SENTINEL), "w"))
+
+        arr = np.array([Boom()], dtype=object)
+        buf = io.BytesIO()
+        np.lib.format.write_array(buf, arr, allow_pickle=True)
+        victim = rng.choice([n for n in sorted(members) if n.startswith("results/")])
+        members[victim] = buf.getvalue()
+        return pack(members, True)
+    if kind == "parquet":
+        # A table whose footer disagrees with session.json, or a row-count lie.
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+
+        n = rng.choice([0, 1, 215, 217, 10_000])
+        t = pa.table({"x": pa.array([1.0] * n)})
+        buf = io.BytesIO()
+        pq.write_table(t, buf)
+        members["table.parquet"] = buf.getvalue()
+        return pack(members, True)
+    data = bytearray(pack(members, False))
+    if kind == "flip":
+        for _ in range(rng.randint(1, 6)):
+            data[rng.randrange(len(data))] ^= rng.randint(1, 255)
+        return bytes(data)
+    return bytes(data[: rng.randrange(len(data))])
+
+
+def _at(doc, path):
+    for k in path:
+        doc = doc[k]
+    return doc
+
+
+SENTINEL = pathlib.Path("/tmp") / f"regbench-fuzz-executed-{os.getpid()}"
+
+
+def test_seeded_sweep(small_project, tmp_path):
+    import random
+    import resource
+
+    from regbench.project import inspect_text
+
+    rng = random.Random(20261203)
+    members = members_of(small_project)
+    path = tmp_path / "case.regbench"
+    start_rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss  # KiB on Linux
+    outcomes = {"loaded": 0, "refused": 0}
+    for k in range(SWEEP):
+        path.write_bytes(_mutate(rng, members))
+        try:
+            s = load_project(path, compute=False)
+            if s.results is not None:
+                s.models()
+            if k % 50 == 0:
+                report_html(s)
+            outcomes["loaded"] += 1
+        except ProjectError as exc:
+            text = str(exc)
+            assert "\n" not in text and "\r" not in text and text.startswith("case.regbench"), text
+            outcomes["refused"] += 1
+        if k % 20 == 0:
+            try:
+                text = inspect_text(inspect_project(path))
+                assert "Traceback" not in text
+            except ProjectError as exc:
+                assert "\n" not in str(exc)
+    grown = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss - start_rss
+    assert not SENTINEL.exists(), "a project file executed code"
+    assert grown < 1_000_000, f"peak memory grew by {grown} KiB during the sweep"
+    assert outcomes["loaded"] > 0 and outcomes["refused"] > SWEEP // 2
+    print(f"project sweep: {SWEEP} seeded mutations, {outcomes['loaded']} loaded, {outcomes['refused']} refused "
+          f"with one line, peak memory +{grown // 1024} MiB, nothing executed")
