@@ -23,7 +23,7 @@ import re
 
 import numpy as np
 
-from regbench.errors import ProjectError
+from regbench.errors import DataError, ModelError, ProjectError
 
 #: Modules whose dataclasses may appear in cached results.
 _MODULE_RE = re.compile(r"^regbench\.(models|analysis)\.[a-z_][a-z0-9_]*$")
@@ -188,7 +188,8 @@ class Decoder:
             kwargs[name] = value
         try:
             return cls(**kwargs)
-        except (TypeError, ValueError) as exc:
+        except (TypeError, ValueError, OverflowError, DataError, ModelError) as exc:
+            # A result class that checks its own fields (a stress configuration's tolerance, ...) refuses here.
             self.fail(where, f"cannot rebuild {qual} ({exc})")
 
 
