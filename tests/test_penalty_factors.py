@@ -57,6 +57,26 @@ def _cvxpy(Xs, yc, wn, alpha, rho, v):
 V = np.array([0.0, 1.0, 0.5, 2.0, 1.0, 0.0, 3.0])
 
 
+def test_a_large_factor_is_used_as_given():
+    # The largest factor allowed (1e6) still leaves the column to the penalty (cvxpy at an α small enough to keep it).
+    X, y, w = _rows()
+    Xs, yc, wn, _, _ = _std(X, y, w)
+    v = np.ones(7)
+    v[2] = 1e6
+    problem = Problem.from_stats(gram_stats(X, y, w), v)
+    for rho in (1.0, 0.5):
+        alpha = 1e-8
+        ours = solve_beta(problem, [alpha], rho)[0]
+        ref = _cvxpy(Xs, yc, wn, alpha, rho, v)
+        assert ours[2] != 0 and np.max(np.abs(ours - ref)) < 1e-5  # near-OLS, two columns track each other
+
+        def objective(b):
+            r = yc - Xs @ b
+            return 0.5 * np.sum(wn * r * r) + alpha * np.sum(v * (rho * np.abs(b) + (1 - rho) / 2 * b * b))
+
+        assert objective(ours) <= objective(ref) + 1e-12
+
+
 @pytest.mark.parametrize("rho", [1.0, 0.5, 0.9, 0.0])
 @pytest.mark.parametrize("alpha", [0.3, 0.05, 0.004])
 def test_factors_match_a_general_convex_solver(rho, alpha):

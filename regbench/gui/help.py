@@ -6,9 +6,20 @@ from PySide6 import QtWidgets
 
 TERMS = (
     ("α (penalty)", "How hard a penalized model pulls its coefficients towards zero. Every penalized "
-     "model minimises (1/(2W))·Σ wᵢ(yᵢ − b₀ − xᵢβ)² + α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²) on predictors "
-     "standardized by their weighted mean and SD (W is the sum of the weights). α = 0 is OLS; "
+     "model minimises (1/(2W))·Σ wᵢ(yᵢ − b₀ − xᵢβ)² + α·Σⱼ vⱼ(ρ|βⱼ| + (1−ρ)/2·βⱼ²) on predictors "
+     "standardized by their weighted mean and SD (W is the sum of the weights; vⱼ is the column's "
+     "penalty factor, 1 unless set). α = 0 is OLS; "
      "a large α leaves only the intercept. Paths are drawn against log10 α."),
+    ("Penalty factor", "How hard one column is penalized compared with the others, in every penalized "
+     "model: 1 by default, 2 twice as hard, 0 not at all, so the column is always kept (a treatment or a "
+     "known driver that must stay in while the rest is shrunk). It does not change OLS; OLS's pin only "
+     "decides which of several overlapping columns OLS keeps."),
+    ("Relaxed lasso / elastic net", "A refit without penalty on the columns the lasso (or elastic net) "
+     "selected, blended with the penalized fit by the relaxation γ: 0 is the penalized fit, 1 the "
+     "unpenalized refit on the selected columns; γ is chosen by the same cross-validation as α."),
+    ("Solver converged", "Every penalized fit carries its duality gap, a bound on how far its objective is "
+     "above the exact optimum; a fit whose gap is above the tolerance is marked NOT CONVERGED and its "
+     "coefficients are not the exact optimum."),
     ("L1 ratio (ρ)", "The mix of the two penalties: ρ = 0 is ridge (squares only, keeps every column), "
      "ρ = 1 is lasso (absolute values only, sets columns to exactly zero), in between is elastic net."),
     ("Chosen α", "The α each penalized model is shown at. By default the one with the lowest "

@@ -390,9 +390,10 @@ class _Reduced:
     v: np.ndarray  # factors of ``pen``
 
 
-def _sub_problem(G: np.ndarray, c: np.ndarray, var_y: float) -> Problem:
+def _sub_problem(G: np.ndarray, c: np.ndarray, var_y: float, live=None) -> Problem:
     k = c.shape[0]
-    live = np.diag(G) > REDUCED_RTOL if k else np.zeros(0, dtype=bool)
+    if live is None:
+        live = np.diag(G) > REDUCED_RTOL if k else np.zeros(0, dtype=bool)
     Gl = G[np.ix_(live, live)]
     lam, V = np.linalg.eigh(Gl) if Gl.size else (np.zeros(0), np.zeros((0, 0)))
     return Problem(G=G, c=c, mean=np.zeros(k), sd=np.ones(k), mean_y=0.0, live=live, evals=lam, evecs=V,
@@ -434,10 +435,13 @@ def _build_reduced(problem: Problem, scale) -> _Reduced:
         var_y = max(var_y - float(c[free] @ b0), 0.0)
     else:
         M, b0 = np.zeros((0, pen.size)), np.zeros(0)
+    # A column is left to the penalty when its variance after partialling out is above
+    # round-off; judged before rescaling, so a large factor does not hide a column.
+    live = np.diag(Gpp) > REDUCED_RTOL if pen.size else np.zeros(0, dtype=bool)
     if scale is not None:
         s = scale[pen]
         Gpp, cp = Gpp * np.outer(s, s), cp * s
-    sub = _sub_problem(0.5 * (Gpp + Gpp.T), cp, var_y)
+    sub = _sub_problem(0.5 * (Gpp + Gpp.T), cp, var_y, live)
     return _Reduced(free=free, pen=pen, M=M, b0=b0, sub=sub, v=v[pen])
 
 
