@@ -365,6 +365,8 @@ def cmd_new(args) -> int:
     session.compute(progress=_progress_to_stderr, bootstrap=args.bootstrap)
     save_project(session, args.output)
     sys.stdout.write(f"saved {args.output}: {session.design.n} rows used, {len(session.design.excluded)} excluded\n")
+    for column, note, _ in getattr(session.design, "column_notes", ()):
+        sys.stdout.write(f"  column '{column}': {note}\n")
     return EXIT_OK
 
 

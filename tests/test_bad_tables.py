@@ -308,6 +308,9 @@ def test_read_as_text_named_in_json_text_and_report(tmp_path, capsys):
                                       "4, 8, 12, 16, 20 (and 5 more) hold 'n/a-4', 'n/a-8', 'n/a-12'")
     assert main(["fit", str(p), "--target", "y", "--predictors", "x"]) == 0
     assert "How columns were read" in capsys.readouterr().out
+    assert main(["new", str(p), "--target", "y", "--predictors", "x", "--bootstrap", "0", "--penalties", "5",
+                 "-o", str(tmp_path / "m.regbench")]) == 0
+    assert "  column 'code': looks numeric (30 of 40 cells are numbers)" in capsys.readouterr().out
     s = Session.from_table_file(p, Roles(target="y", predictors=("x",)))
     s.compute(bootstrap=0)
     assert "looks numeric (30 of 40 cells are numbers)" in report_html(s)
