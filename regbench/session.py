@@ -768,7 +768,11 @@ def _derive(design, results, state: _State, cancel, have: Optional[dict] = None)
     if ranges is None:
         from regbench.analysis.ranges import compute_ranges
 
-        ranges = compute_ranges(design, results, state.settings.range_tolerance, models=models)
+        try:
+            ranges = compute_ranges(design, results, state.settings.range_tolerance, models=models)
+        except (ValueError, np.linalg.LinAlgError):
+            # A fit without OLS's factor or the cross-products (never from fit_all): no ranges, the rest stands.
+            ranges = None
     return {"models": models, "heldout": heldout, "agreement": agreement, "structure": structure,
             "ranges": ranges,
             "stress": stress, "sweeps": sweeps}

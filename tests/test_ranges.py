@@ -389,3 +389,22 @@ def test_a_table_read_in_batches_gives_the_same_ranges_and_says_its_rows_are_a_s
     assert a.rows_of == n and a.row_half.size == streamed.design.n < n
     assert any(f"sampled from {n:,}" in s for s in a.sentences)
     assert ranges_to_json(a)["rows"]["sampled_from"] == n and b.rows_of == 0
+
+
+def test_a_fit_without_the_statistics_ranges_need_leaves_the_rest_standing():
+    from dataclasses import replace
+
+    from regbench.session import _derive
+
+    X, y, cols = _cement()
+    design, results = _fit(X, y, cols)
+    bare = replace(results, gram=None, ols=replace(results.ols, r_factor=None))
+    with pytest.raises(ValueError, match="cross-products"):
+        compute_ranges(design, bare, 0.01)
+    from regbench.data import Roles
+    from regbench.session import _State
+
+    state = _State(roles=Roles(target="y"), settings=SETTINGS, chosen_alpha={}, extra_fits=(), stress_configs=(),
+                   bootstrap=0, notes="", view_state={})
+    out = _derive(design, bare, state, None, {"models": results.models()})
+    assert out["ranges"] is None and out["agreement"] is not None

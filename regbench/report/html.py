@@ -343,7 +343,8 @@ def _ranges(session) -> str:
 
     rg = session.ranges() if session.results is not None else None
     if rg is None:
-        return "<p>The models have not been fitted.</p>"
+        return ("<p>The models have not been fitted.</p>" if session.results is None else
+                "<p>Ranges over near-best models are not available for this fit.</p>")
     kind = ("the held-out default" if rg.tolerance_kind == KIND_HELDOUT else "set in the settings")
     parts = [f"<p>Not just four fits: every linear model {e(tolerance_phrase(rg))} — {e(kind)}; "
              f"{e(rg.tolerance_note)}. For least squares this set is exact (an ellipsoid around OLS), so the "

@@ -157,7 +157,9 @@ class RangesPanel(Panel):
                 m.set_rows([], [])
             self.in_force.setText("")
             self.trades.setText("")
-            self.set_sentences(["Fit the models to see how far every near-best model can differ."])
+            self.set_sentences(["Fit the models to see how far every near-best model can differ."
+                                if session.results is None else
+                                "Ranges over near-best models are not available for this fit."])
             return
         from regbench.analysis.ranges import KIND_HELDOUT
 
