@@ -41,7 +41,11 @@ def _add_table_options(p: argparse.ArgumentParser, table: bool = True) -> None:
     p.add_argument("--target", required=True, help="column to predict")
     p.add_argument("--predictors", help="comma-separated predictor columns (default: every other usable column)")
     p.add_argument("--categorical", help="comma-separated numeric columns to treat as category codes")
-    p.add_argument("--weights", help="column of row weights (a count or frequency per row)")
+    p.add_argument("--weights", help="column of row weights (what they mean: --weights-kind)")
+    p.add_argument("--weights-kind", choices=("precision", "counts"), default="precision",
+                   help="counts: a row stands for that many identical observations (inference as if each row were "
+                        "written out that many times); precision: one observation per row, measured with precision "
+                        "proportional to its weight (default)")
     p.add_argument("--groups", help="column whose groups stay together in held-out checks")
     p.add_argument("--encoding", help="text encoding of a CSV/TSV file (default UTF-8)")
     p.add_argument("--sheet", help="Excel sheet (default: the first)")
@@ -203,7 +207,7 @@ def roles_from_args(args):
         predictors += tuple(d.name for d in derived if d.name not in used)
     return Roles(
         target=args.target, predictors=predictors, categorical=_csv_list(args.categorical),
-        weights=args.weights, groups=args.groups, derived=derived,
+        weights=args.weights, groups=args.groups, derived=derived, weights_kind=args.weights_kind,
     )
 
 

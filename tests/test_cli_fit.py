@@ -43,10 +43,17 @@ def test_fit_json_schema(fit_json):
     assert list(d["models"]) == ["ols", "ridge", "lasso", "elastic_net"]
     common = {"intercept", "coefficients", "coefficients_standardized"}
     ols = d["models"]["ols"]
-    assert set(ols) == common | {"std_errors", "p_values", "r_squared", "adj_r_squared", "residual_sd", "set_aside"}
+    assert set(ols) == common | {"intercept_se", "std_errors", "t_values", "p_values", "kept", "r_squared",
+                                 "adj_r_squared", "residual_sd", "df_resid", "observations", "weights_kind",
+                                 "inference_note", "cluster_std_errors", "cluster_intercept_se", "n_clusters",
+                                 "set_aside"}
     assert {s["column"] for s in ols["set_aside"]} == {"mean_temp_c", "day_temp_f"}
+    # A set-aside column has no coefficient: null, never 0.
+    assert ols["coefficients"]["mean_temp_c"] is None and ols["coefficients_standardized"]["day_temp_f"] is None
+    assert ols["intercept_se"] > 0 and ols["weights_kind"] == "precision" and ols["n_clusters"] == 8
     for s in ols["set_aside"]:
-        assert set(s) == {"column", "combination", "intercept", "residual", "alternatives", "sentence"}
+        assert set(s) == {"column", "combination", "intercept", "residual", "alternatives", "reason", "exact",
+                          "sentence"}
         assert s["sentence"].startswith(s["column"])
     assert ols["std_errors"]["mean_temp_c"] is None  # NaN for a set-aside column becomes null
     for name in ("ridge", "lasso", "elastic_net"):

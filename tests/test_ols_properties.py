@@ -119,20 +119,33 @@ def test_near_dependencies_under_a_larger_tolerance(seed, p, log_tol, n_pins):
     except ModelError as err:
         assert "pinned column" in str(err)
         assume(False)
-    # The stated rule, computed here with scipy's pivoted QR on the n×p scaled columns
-    # (centered, divided by their RMS about zero): rank = number of |R_kk| > tol.
+    # The stated rule, checked here with numpy least squares on the centered columns at
+    # unit weighted SD (offset- and scale-free): walking pins then design order, a column is
+    # kept when the columns kept before it leave more than the tolerance of it, and set aside
+    # when they leave at most that (plus the round-off of its stored values).
+    sdv = X.std(axis=0)
     size = np.sqrt(np.mean(X**2, axis=0))
-    A = (X - X.mean(axis=0)) / (np.sqrt(n) * size)
-    R = linalg.qr(A, mode="r", pivoting=True)[0]
-    rank_rule = int(np.count_nonzero(np.abs(np.diag(R)) > tol))
+    Z = (X - X.mean(axis=0)) / (np.sqrt(n) * sdv)
+    order = [design.index(c) for c in pins] + [j for j in range(p) if design.columns[j] not in pins]
+    kept_set = set(res.kept)
+    before = []
+    for j in order:
+        if before:
+            sol, *_ = np.linalg.lstsq(Z[:, before], Z[:, j], rcond=None)
+            left = float(np.linalg.norm(Z[:, j] - Z[:, before] @ sol))
+        else:
+            left = float(np.linalg.norm(Z[:, j]))
+        if design.columns[j] in kept_set:
+            assert left > 0.999 * tol
+            before.append(j)
+        else:
+            assert left <= 1.001 * tol + 1e-9 * size[j] / sdv[j]
     assert set(pins) <= set(res.kept)
     assert res.rank == len(res.kept) == design.p - len(res.set_aside)
-    if not pins:
-        assert res.rank == rank_rule
     for sa in res.set_aside:
         j = design.index(sa.column)
-        # Set aside only what the kept columns reproduce within the tolerance (times its size).
-        assert sa.residual <= 1.001 * tol * size[j] + 1e-12 * size[j]
+        # Set aside only what the kept columns reproduce within the tolerance (times its SD).
+        assert sa.residual <= 1.001 * tol * sdv[j] + 1e-9 * size[j]
         assert set(sa.combination) <= set(res.kept)
     # The fitted values are those of least squares on the kept columns (numpy lstsq).
     kept = [design.index(c) for c in res.kept]

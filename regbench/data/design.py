@@ -17,6 +17,11 @@ from regbench.data.derive import Derived, apply_derived
 from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC, Table
 from regbench.errors import DataError
 
+#: What a weight column can mean (see :class:`Roles`).
+PRECISION = "precision"
+COUNTS = "counts"
+WEIGHTS_KINDS = (PRECISION, COUNTS)
+
 
 @dataclass(frozen=True)
 class Roles:
@@ -30,12 +35,18 @@ class Roles:
     categorical : tuple of str
         Numeric columns the person marked as category codes.
     weights : str or None
-        Row weights (a count or frequency per row); must be finite and >= 0.
+        Row weights; must be finite and >= 0.  What they mean is ``weights_kind``.
     groups : str or None
         Rows of one group stay on the same side of every held-out check.
     derived : tuple of regbench.data.derive.Derived
         Columns computed from others (log, square, product …) before the design is
         built; they can then be named in any role like a column of the table.
+    weights_kind : {'precision', 'counts'}
+        ``'counts'``: a row stands for w identical observations (whole numbers);
+        every estimate and inference quantity equals that of the table with each
+        row written out w times.  ``'precision'``: a row is one observation
+        measured with precision proportional to w (inference counts rows).
+        Projects saved before this choice existed read as ``'precision'``.
     """
 
     target: str
@@ -44,6 +55,7 @@ class Roles:
     weights: Optional[str] = None
     groups: Optional[str] = None
     derived: tuple = ()
+    weights_kind: str = "precision"
 
     def to_dict(self) -> dict:
         d = {
@@ -53,6 +65,10 @@ class Roles:
             "weights": self.weights,
             "groups": self.groups,
         }
+        # Only for counts, so the key of a session with precision weights (the reading of
+        # every older project) is unchanged.
+        if self.weights_kind != "precision":
+            d["weights_kind"] = self.weights_kind
         # Only when present, so the key of a session without derived columns is unchanged.
         if self.derived:
             d["derived"] = [x.to_dict() for x in self.derived]
@@ -67,6 +83,7 @@ class Roles:
             weights=d.get("weights"),
             groups=d.get("groups"),
             derived=tuple(Derived.from_dict(x, f"roles.derived[{i}]") for i, x in enumerate(d.get("derived") or ())),
+            weights_kind=str(d.get("weights_kind") or "precision"),
         )
 
 
@@ -122,6 +139,8 @@ class Design:
     column_notes : tuple of (column, note, read_as_text)
         How the reader read columns of the table when that needs saying (percentages,
         decimal commas, a column that looks numeric read as text and why).
+    weights_kind : {'precision', 'counts'}
+        What the weights mean (see :class:`Roles`); always 'precision' without a weight column.
     """
 
     X: np.ndarray
@@ -141,6 +160,7 @@ class Design:
     #: The derived columns (regbench.data.derive.Derived) applied before the design was built.
     derived: tuple = ()
     column_notes: tuple = ()
+    weights_kind: str = "precision"
 
     @property
     def n(self) -> int:
@@ -153,6 +173,15 @@ class Design:
     @property
     def weighted(self) -> bool:
         return self.weights_column is not None
+
+    @property
+    def counts(self) -> bool:
+        """True when each row stands for ``weight`` identical observations."""
+        return self.weights_column is not None and self.weights_kind == COUNTS
+
+    def observations(self) -> float:
+        """Observations behind the fit: Σw for count rows, else the rows of weight above 0."""
+        return float(self.weights.sum()) if self.counts else float(np.count_nonzero(self.weights > 0))
 
     def index(self, column: str) -> int:
         try:
@@ -245,6 +274,10 @@ def build_design(table: Table, roles: Roles) -> Design:
             table.info(col)
     for col in roles.predictors + roles.categorical:
         table.info(col)
+    if roles.weights_kind not in WEIGHTS_KINDS:
+        raise DataError(f"weights kind '{roles.weights_kind}' is not one of {', '.join(WEIGHTS_KINDS)}: "
+                        "'counts' when a row stands for that many identical observations, 'precision' for "
+                        "measurements of unequal quality")
     if roles.weights is not None and roles.weights == roles.target:
         raise DataError(f"column '{roles.target}' cannot be both the target and the weights")
     for label, col in (("target", roles.target), ("weights", roles.weights), ("groups", roles.groups)):
@@ -360,6 +393,14 @@ def build_design(table: Table, roles: Roles) -> Design:
     w = w_all[rows]
     if roles.weights is not None and not np.any(w > 0):
         raise DataError(f"{src}: weights column '{roles.weights}' is zero on every usable row; weights must add up to more than 0")
+    if roles.weights is not None and roles.weights_kind == COUNTS:
+        frac = np.flatnonzero(w != np.round(w))
+        if frac.size:
+            i = int(frac[0])
+            raise DataError(
+                f"{src}: row {int(rows[i]) + 1}, weights column '{roles.weights}': {w[i]:g} is not a whole number, "
+                "but the weights are counts (a row stands for that many observations); fix the count or "
+                "choose precision weights")
     if np.ptp(y[w > 0]) == 0:
         raise DataError(
             f"{src}: target '{roles.target}' has the same value ({y[0]:g}) on every usable row, "
@@ -424,6 +465,7 @@ def build_design(table: Table, roles: Roles) -> Design:
         n_table_rows=n,
         derived=tuple(roles.derived),
         column_notes=notes,
+        weights_kind=roles.weights_kind if roles.weights is not None else PRECISION,
     )
 
 
@@ -459,7 +501,8 @@ def _check_magnitudes(src, X, names, y, w, rows, roles) -> None:
             )
 
 
-def design_from_arrays(X, y, columns: Sequence[str] = None, weights=None, groups=None, target: str = "y") -> Design:
+def design_from_arrays(X, y, columns: Sequence[str] = None, weights=None, groups=None, target: str = "y",
+                       weights_kind: str = PRECISION) -> Design:
     """A design straight from arrays, for tests and benchmarks (no table, no exclusions)."""
     X = np.ascontiguousarray(np.asarray(X, dtype=np.float64))
     if X.ndim == 1:
@@ -476,6 +519,7 @@ def design_from_arrays(X, y, columns: Sequence[str] = None, weights=None, groups
         X=X, y=y, weights=w, groups=g, columns=columns, sources=columns, target=target,
         row_numbers=np.arange(1, n + 1), weights_column=None if weights is None else "weights",
         groups_column=None if groups is None else "groups", group_labels=labels, n_table_rows=n,
+        weights_kind=weights_kind if weights is not None else PRECISION,
     )
 
 

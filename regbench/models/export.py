@@ -47,17 +47,31 @@ def _ols_json(results) -> dict:
             "intercept": _num(sa.intercept),
             "residual": _num(sa.residual),
             "alternatives": list(sa.alternatives),
+            "reason": getattr(sa, "reason", "combination"),
+            "exact": bool(sa.exact),
             "sentence": set_aside_sentence(sa),
         })
     return {
         "intercept": _num(o.model.intercept),
-        "coefficients": _by_column(cols, o.model.coef),
-        "coefficients_standardized": _by_column(cols, o.model.coef_std),
+        "intercept_se": _num(o.intercept_se),
+        # A set-aside column has no coefficient: null, never 0 (0 reads as "no effect").
+        "coefficients": _by_column(cols, o.coef_or_nan()),
+        "coefficients_standardized": _by_column(cols, o.coef_or_nan(standardized=True)),
         "std_errors": _by_column(cols, o.std_errors),
+        "t_values": _by_column(cols, o.t_values),
         "p_values": _by_column(cols, o.p_values),
+        "kept": list(o.kept),
         "r_squared": _num(o.r_squared),
         "adj_r_squared": _num(o.adj_r_squared),
         "residual_sd": _num(o.residual_sd),
+        "df_resid": _num(o.df_resid),
+        "observations": _num(getattr(o, "observations", o.n_obs)),
+        "weights_kind": getattr(o, "weights_kind", "precision"),
+        "inference_note": getattr(o, "inference_note", "") or None,
+        "cluster_std_errors": (None if getattr(o, "cluster_std_errors", None) is None
+                               else _by_column(cols, o.cluster_std_errors)),
+        "cluster_intercept_se": _num(getattr(o, "cluster_intercept_se", None)),
+        "n_clusters": int(getattr(o, "n_clusters", 0)),
         "set_aside": set_aside,
     }
 
@@ -154,6 +168,15 @@ def _fmt(v) -> str:
     return f"{v:.4g}"
 
 
+def se_kind_sentence(design, o) -> str:
+    """Which standard errors the summary and the JSON carry."""
+    if getattr(o, "cluster_std_errors", None) is not None:
+        return (f"Standard errors: classical (rows independent) and, beside them, cluster-robust by "
+                f"{design.groups_column} ({o.n_clusters} groups; small-sample factor G/(G−1)·(N−1)/(N−K)); "
+                "when rows of a group share influences, read the cluster-robust ones.")
+    return "Standard errors: classical (rows independent); set a group column for cluster-robust ones."
+
+
 def fit_summary_text(design, results) -> str:
     """A plain-text summary of the fit, in the order a reader asks about it."""
     from regbench.models.ols import set_aside_sentence
@@ -161,7 +184,11 @@ def fit_summary_text(design, results) -> str:
     lines = []
     extra = []
     if design.weights_column:
-        extra.append(f"rows weighted by {design.weights_column}")
+        if getattr(design, "counts", False):
+            extra.append(f"each row counts as {design.weights_column} observations "
+                         f"({design.observations():,.0f} in all)")
+        else:
+            extra.append(f"rows weighted by {design.weights_column} (precision weights: one observation per row)")
     if design.groups_column:
         extra.append(f"{len(design.group_labels)} groups in {design.groups_column}")
     head = f"Target {design.target}: {design.n} rows used, {len(design.excluded)} left out"
@@ -217,8 +244,14 @@ def fit_summary_text(design, results) -> str:
 
     lines.append("")
     o = results.ols
-    sd_note = f" for a row of weight 1 (rows are weighted by {design.weights_column})" if design.weighted else ""
-    lines.append(f"OLS: R² {_fmt(o.r_squared)}, adjusted R² {_fmt(o.adj_r_squared)}, residual SD {_fmt(o.residual_sd)}{sd_note}.")
+    counts = getattr(design, "counts", False)
+    sd_note = (f" for a row of weight 1 (rows are weighted by {design.weights_column})"
+               if design.weighted and not counts else "")
+    lines.append(f"OLS: R² {_fmt(o.r_squared)}, adjusted R² {_fmt(o.adj_r_squared)}, residual SD {_fmt(o.residual_sd)}{sd_note}, "
+                 f"{_fmt(o.df_resid)} residual degrees of freedom.")
+    if getattr(o, "inference_note", ""):
+        lines.append(f"  {o.inference_note}")
+    lines.append("  " + se_kind_sentence(design, o))
     k = results.settings.folds
     kind = "grouped " if design.groups is not None else ""
     lines.append(f"Penalties (α), {k}-fold {kind}cross-validation:")

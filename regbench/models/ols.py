@@ -1,41 +1,41 @@
 """Weighted OLS that says which columns it set aside and why.
 
-The rank decisions work on the scaled problem::
+The rank decisions work on the centered, scaled problem::
 
-    a_ij = sqrt(w_i / W) * (x_ij - m_j) / r_j
+    a_ij = sqrt(w_i / W) * (x_ij - m_j) / s_j
 
-with ``m`` the weighted means, ``r_j = sqrt(sum_i w_i x_ij² / W)`` the weighted
-RMS of column j (its typical size) and ``W = sum(w)``.  Scaling makes the
-tolerance relative, so units do not matter.  Rows of weight 0 are left out of
-the fit (they contribute nothing) but are still predicted by the model.
+with ``m`` the weighted means, ``s_j`` the weighted SD of column j and
+``W = sum(w)``, so neither a column's offset nor its units matter.  Rows of
+weight 0 are left out of the fit (they contribute nothing) but are still
+predicted by the model.
 
 Rank tolerance
 --------------
-A column is set aside when what is left of it after removing the columns kept
-before it has weighted RMS at most ``tol * r_j``; in the column-pivoted QR of
-``a`` the rank is the number of ``|R_kk| > tol`` (every column of ``a`` has
-length at most 1, and exactly its SD/RMS ratio).  The default is
-``tol = 100 * max(n, p) * eps`` (n rows with weight > 0, p columns, eps the
-float64 machine epsilon; about 1e-11 for a few hundred rows).  Why: the
-round-off of a Householder QR grows at most like ``max(n, p) * eps``, and a
-column derived from others by a few float operations (a mean of two columns,
-°C to °F, K = °C + 273.15) carries round-off of about ``eps`` times its *size*
-— not its spread, which is why the tolerance is measured against ``r_j``.  The
-factor 100 is a margin for round-off only: measured near-dependencies,
-however strong, stay in the fit (the diagnostics report them) unless the
-caller passes a larger ``rank_tol``; a column set aside under such a
-tolerance is reported as *almost* reproduced, with the size of what is left.
+A column is set aside when what the columns kept before it leave of it (at
+unit SD) is at most ``tol + 16·eps·(r_j + Σ_k |c_k|·r_k)``: ``tol`` is the
+rank tolerance, by default ``100 * max(n, p) * eps`` (n rows with weight > 0,
+p columns; the round-off of a Householder QR grows at most like
+``max(n, p) * eps``), and the second term is the round-off the stored values
+themselves carry: a column holds its numbers to about eps times their size
+(weighted RMS), which is ``r_j = RMS_j / SD_j`` times its spread, and so do the
+kept columns of the combination (standardized weights ``c``).  So a column
+derived from others by a few float operations (a mean of two columns, °C to °F,
+K = °C + 273.15, a year written as 1e8 + x) is set aside and called exact, while
+any leftover above the rounding of the numbers keeps a column in the fit: a
+near-dependency goes to the diagnostics, never to set-aside, unless the caller
+passes a larger ``rank_tol`` (then it is reported as *almost* reproduced).
+When the kept columns and the intercept fit every row exactly (``n - 1`` kept,
+a wide table), the remaining columns are set aside for want of rows, and their
+sentence says so.
 
 Which columns are kept
 ----------------------
-The pivoted QR fixes the rank.  The choice among dependent columns follows
-a stated order so that it is predictable and can be steered: pinned columns
-first, then the design order; a column is set aside when the columns kept
-before it reproduce it.  This walk runs on the p×p triangular factor of the
-scaled columns (same lengths and angles as the columns themselves).  In the rare borderline case where
-that walk keeps a different number of columns than the pivoted QR's rank, the
-choice falls back to pivoted QR on the pinned block first and then on the
-rest with the pinned part removed.
+The choice among dependent columns follows a stated order so that it is
+predictable and can be steered: pinned columns first, then the design order; a
+column is set aside when the columns kept before it reproduce it, so the kept
+set is a largest independent one.  This walk (Gram–Schmidt, twice) runs on the
+triangular factor of the scaled columns (same lengths and angles as the columns
+themselves; at most n rows of it are non-zero).
 
 Work on the rows
 ----------------
@@ -68,6 +68,9 @@ ROUNDOFF_FACTOR = 100.0
 #: A term of a set-aside combination whose standardized weight is below this share of the
 #: largest is round-off, provided dropping it does not leave more over (checked).
 NEGLIGIBLE_TERM = 1e-6
+#: A column's stored values carry round-off of about eps times its size (weighted RMS);
+#: a left-over below this many eps times the sizes involved is that round-off.
+DATA_ROUNDOFF = 16.0
 #: Budget of one QR step over a block of rows, in rows × columns²: about 5-25 ms of
 #: one core here, so no single call on the rows runs long.
 BLOCK_WORK = 2 ** 25
@@ -161,31 +164,28 @@ def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None) -> OLSResult:
     pin_idx = [columns.index(c) for c in pins]
     rows, n, W = fac.rows, fac.n, fac.W
     mean, ybar, sd = fac.mean, fac.ybar, fac.sd
-    tol = default_rank_tol(n, p) if rank_tol is None else float(rank_tol)
-    if not (np.isfinite(tol) and tol >= 0):
+    if rank_tol is not None and not (np.isfinite(rank_tol) and rank_tol >= 0):
         raise ModelError(f"rank tolerance must be a number >= 0, got {rank_tol!r}")
     roundoff = default_rank_tol(n, p)
+    tol = roundoff if rank_tol is None else float(rank_tol)
     scale = np.where(sd > 0, sd, 1.0)
-    # Typical size of each column (weighted RMS about zero): the scale of its round-off.
+    # Typical size of each column (weighted RMS about zero): its stored values carry
+    # round-off of about eps times this, whatever its spread.
     size = np.sqrt(sd * sd + mean * mean)
     size = np.where(size > 0, size, 1.0)
-    # The factor of the centered columns and target, ``sqrt(w/W)·[x - m, y - ybar]``.
-    Raug = fac.R[1:, 1:].copy()
-    Raug[:, :p] /= size
-    # ``Cr``: coordinates of the columns at unit RMS (rank decisions); ``C``: at unit SD (solving).
-    Cr = Raug[:p, :p]
-    qz = Raug[:p, p]
-    C = Cr * (size / scale)
-    if p:
-        diag = np.abs(np.diag(linalg.qr(Cr, mode="r", pivoting=True, check_finite=False)[0]))
-        rank_qr = int(np.count_nonzero(diag > tol))
-    else:
-        rank_qr = 0
-
-    _check_pins(Cr, pin_idx, columns, tol, sd)
-    kept = _ordered_choice(Cr, pin_idx, tol, sd)
-    if len(kept) != rank_qr:
-        kept = _pivoted_choice(Cr, pin_idx, tol, sd)
+    # Relative round-off of each column's stored values, measured against its spread.
+    rel_size = size / scale
+    # The factor of the centered columns and target, ``sqrt(w/W)·[x - m, y - ybar]``; only
+    # its first min(n, p+1) rows can be non-zero (a wide table has fewer rows than columns).
+    m_rows = min(n, p + 1)
+    Raug = fac.R[1:m_rows + 1, 1:]
+    # ``C``: coordinates of the columns centered and at unit weighted SD (rank decisions
+    # and solving: offset- and scale-free).
+    C = Raug[:, :p] / scale
+    qz = Raug[:, p]
+    constant = sd <= DATA_ROUNDOFF * EPS * size  # no spread beyond the round-off of its values
+    _check_pins(C, pin_idx, columns, tol, constant, rel_size)
+    kept, row_limited = _ordered_choice(C, pin_idx, tol, constant, rel_size, n)
     kept = sorted(kept)
     k = len(kept)
     aside = [j for j in range(p) if j not in set(kept)]
@@ -212,22 +212,34 @@ def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None) -> OLSResult:
         icpt = ybar
 
     ssr, tss = rows.sums_of_squares(_full(p, kept, beta_k), icpt, ybar)
-    df = n - k - 1
+    counts = bool(getattr(design, "counts", False))
+    # Observations behind the fit: with count rows, a row of weight w is w observations,
+    # so inference equals that of the table with every row written out w times.
+    n_eff = float(W) if counts else float(n)
+    df = n_eff - k - 1
     r2 = 1.0 - ssr / tss if tss > 0 else float("nan")
-    adj = 1.0 - (n - 1) / df * (1.0 - r2) if df > 0 else float("nan")
+    adj = 1.0 - (n_eff - 1) / df * (1.0 - r2) if df > 0 else float("nan")
     sigma2 = ssr / df if df > 0 else float("nan")
+    note = ""
+    if not df > 0:
+        what = f"{_count(n_eff, 'observation')}" if counts else f"{_count(n, 'row')}"
+        note = (f"No standard errors or p-values: the intercept and {_count(k, 'kept column')} fit all {what} "
+                "exactly, so no residual degrees of freedom are left to measure the noise.")
 
     coef = np.zeros(p)
     se = np.full(p, np.nan)
     coef[kept] = beta_k
+    cov = None
     if k:
         Rinv = linalg.solve_triangular(Rk, np.eye(k), check_finite=False)
-        cov_scaled = Rinv @ Rinv.T  # (A_k' A_k)^-1 on the scaled columns
-        cov = sigma2 * cov_scaled / (W * np.outer(scale[kept], scale[kept]))
+        cov_scaled = Rinv @ Rinv.T  # (A_k' A_k)^-1 on the centered unit-SD columns
+        xtwx_inv = cov_scaled / (W * np.outer(scale[kept], scale[kept]))  # (X_k' W X_k)^-1, centered
+        cov = sigma2 * xtwx_inv
         se[kept] = np.sqrt(np.diag(cov))
         m = mean[kept]
         icpt_se = float(np.sqrt(sigma2 / W + m @ cov @ m))
     else:
+        xtwx_inv = np.zeros((0, 0))
         icpt_se = float(np.sqrt(sigma2 / W))
     with np.errstate(divide="ignore", invalid="ignore"):
         tval = coef / se
@@ -243,7 +255,14 @@ def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None) -> OLSResult:
     for arr in (pval, ci_low, ci_high):
         arr[aside] = np.nan
 
-    set_aside = _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, roundoff, tol)
+    cl_se, cl_icpt_se, n_clusters = None, float("nan"), 0
+    if getattr(design, "groups", None) is not None and rows.has_rows:
+        resid = rows.residuals(_full(p, kept, beta_k), icpt)
+        cl_se, cl_icpt_se, n_clusters = _cluster_se(design, rows, kept, mean, resid, xtwx_inv, W, n_eff, p)
+
+    sources = tuple(getattr(design, "sources", columns) or columns)
+    set_aside = _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, rel_size, roundoff, tol,
+                             constant, row_limited, n, sources)
     model = LinearModel(
         name="ols", columns=columns, intercept=float(icpt), coef=coef.copy(),
         coef_std=coef * sd,
@@ -269,7 +288,59 @@ def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None) -> OLSResult:
         rank_tol=float(tol),
         model=model,
         r_factor=fac.R,
+        weights_kind="counts" if counts else "precision",
+        observations=n_eff,
+        inference_note=note,
+        cluster_std_errors=cl_se,
+        cluster_intercept_se=float(cl_icpt_se),
+        n_clusters=int(n_clusters),
     )
+
+
+def _count(v, noun: str) -> str:
+    v = float(v)
+    text = f"{v:,.0f}" if v == round(v) else f"{v:,.4g}"
+    return f"{text} {noun}{'' if v == 1 else 's'}"
+
+
+def _cluster_se(design, rows, kept, mean, resid, xtwx_inv, W, n_eff, p):
+    """Cluster-robust (by group) standard errors of the kept coefficients and the intercept.
+
+    Sandwich ``V = c · B (Σ_g s_g s_gᵀ) B`` with ``B = (Zᵀ W Z)⁻¹`` for ``Z = [1, x - m]``
+    (the kept columns centered), ``s_g = Σ_{i in g} w_i e_i z_i``, and the small-sample
+    factor ``c = G/(G-1) · (N-1)/(N-K)`` (G groups, N observations, K kept columns plus
+    the intercept), which is statsmodels' default for ``cov_type="cluster"``.
+    """
+    from scipy import sparse
+
+    g_all = np.asarray(design.groups)
+    g = g_all if rows.all_pos else g_all[rows.pos]
+    labels, code = np.unique(g, return_inverse=True)
+    G = labels.size
+    k = len(kept)
+    S = np.zeros((G, k + 1))
+    we = rows.w * resid
+    for a, b, block in rows.blocks():
+        Zb = np.empty((b - a, k + 1))
+        Zb[:, 0] = 1.0
+        Zb[:, 1:] = block[:, kept] - mean[kept]
+        Zb *= we[a:b, None]
+        ind = sparse.csr_matrix((np.ones(b - a), (code[a:b], np.arange(b - a))), shape=(G, b - a))
+        S += ind @ Zb
+    B = np.zeros((k + 1, k + 1))
+    B[0, 0] = 1.0 / W
+    B[1:, 1:] = xtwx_inv
+    K = k + 1
+    c = (G / (G - 1.0)) * ((n_eff - 1.0) / (n_eff - K)) if G > 1 and n_eff > K else float("nan")
+    Vc = c * (B @ (S.T @ S) @ B)
+    # Back from the intercept at the means to the intercept at zero: b0 = a - mᵀβ.
+    J = np.eye(K)
+    J[0, 1:] = -mean[kept]
+    V = J @ Vc @ J.T
+    se = np.full(p, np.nan)
+    d = np.sqrt(np.clip(np.diag(V), 0.0, None))
+    se[kept] = d[1:]
+    return se, float(d[0]), int(G)
 
 
 def _full(p, idx, values) -> np.ndarray:
@@ -320,11 +391,18 @@ class _Rows:
         resid = self.residuals(beta, icpt)
         return float(self.w @ (resid * resid)), float(self.w @ ((self.y - ybar) ** 2))
 
-    def weighted_ss(self, B, c) -> np.ndarray:
-        """``sum_i w_i (x_i @ B - c)²`` per column of ``B``, block by block."""
+    def weighted_ss(self, B, c, shift=None) -> np.ndarray:
+        """``sum_i w_i (x_i @ B - c)²`` per column of ``B``, block by block.
+
+        With ``shift`` (the weighted column means) the rows are centered first and ``c`` is
+        taken as ``shift @ B`` (the intercept through the means), so a column with a large
+        offset does not round the leftover at the size of the offset.
+        """
         acc = np.zeros(B.shape[1])
+        if shift is not None:
+            c = 0.0
         for a, b, block in self.blocks():
-            left = block @ B - c
+            left = (block @ B if shift is None else (block - shift) @ B) - c
             acc += self.w[a:b] @ (left * left)
         return acc
 
@@ -357,8 +435,10 @@ class _FactorOnly:
         tss = self.W * float(np.sum(self.R[1:, p + 1] ** 2))
         return ssr, tss
 
-    def weighted_ss(self, B, c) -> np.ndarray:
+    def weighted_ss(self, B, c, shift=None) -> np.ndarray:
         q = B.shape[0] + 1
+        if shift is not None:  # centered: the intercept through the means
+            return self.W * np.sum((self.R[1:q, 1:q] @ B) ** 2, axis=0)
         V = np.vstack([-np.asarray(c, dtype=float)[None, :], B])
         return self.W * np.sum((self.R[:q, :q] @ V) ** 2, axis=0)
 
@@ -412,9 +492,15 @@ def weighted_factor(design, chunk_rows: Optional[int] = None) -> _Factor:
     W = w.sum()
 
     # Pass 1: finiteness (first bad row, in row order) and the weighted column sums.
+    # The sums are taken about the first row's values: a column with a large offset (a year
+    # written as 1e8 + x) then gets its mean to the round-off of its spread, not of its size,
+    # which the centered factor below needs.
     kept_rows = np.flatnonzero(pos) if not rows.all_pos else None
     total = np.zeros(p)
+    origin = None
     for a, b, block in rows.blocks():
+        if origin is None:
+            origin = np.where(np.isfinite(block[0]), block[0], 0.0)
         finite = np.isfinite(block)
         if not finite.all():
             r, c = np.argwhere(~finite)[0]
@@ -423,29 +509,32 @@ def weighted_factor(design, chunk_rows: Optional[int] = None) -> _Factor:
             raise ModelError(
                 f"row {int(design.row_numbers[i])}: column '{design.columns[c]}' is not a finite number"
             )
-        total += w[a:b] @ block
-    mean = total / W
-    ybar = (w @ y) / W
+        total += w[a:b] @ (block - origin)
+    mean = origin + total / W
+    ybar = y[0] + (w @ (y - y[0])) / W
     sqw = np.sqrt(w / W)
 
     # Pass 2: tall-skinny QR of [x - m, y - ybar] rows scaled by sqrt(w/W): the factor so
-    # far sits on top of each new block, so each LAPACK call is short.  Zero rows pad a
-    # design with fewer rows than p+1.
+    # far sits on top of each new block, so each LAPACK call is short.
     q = p + 1
     ss = np.zeros(p)
-    Rc = np.zeros((q, q))
+    Rc = np.zeros((0, q))  # the factor so far: at most q rows (fewer while rows are fewer)
     buf = None
     for a, b, block in rows.blocks():
         m = b - a
-        if buf is None or buf.shape[0] != q + m:
-            buf = np.empty((q + m, q), order="F")
-        buf[:q] = Rc
-        Z = buf[q:]
+        r = Rc.shape[0]
+        if buf is None or buf.shape[0] != r + m:
+            buf = np.empty((r + m, q), order="F")
+        buf[:r] = Rc
+        Z = buf[r:]
         np.subtract(block, mean, out=Z[:, :p])
         Z[:, :p] *= sqw[a:b, None]
         Z[:, p] = sqw[a:b] * (y[a:b] - ybar)
         ss += np.einsum("ij,ij->j", Z[:, :p], Z[:, :p])
         Rc = r_factor(buf)
+    if Rc.shape[0] < q:
+        # A wide table (fewer rows than columns): the factor's lower rows are zero.
+        Rc = np.vstack([Rc, np.zeros((q - Rc.shape[0], q))])
     sd = np.sqrt(ss)
     Rc[:, :p][:, sd == 0] = 0.0
     R = np.zeros((q + 1, q + 1))
@@ -469,7 +558,7 @@ def r_factor(M: np.ndarray) -> np.ndarray:
     if info != 0:
         raise ModelError(f"the QR factorization failed (LAPACK info {info}); check the design for extreme values")
     k = min(M.shape)
-    return np.triu(qr[:k, :])
+    return np.triu(qr[:k, :])  # k×p: upper trapezoidal when M has fewer rows than columns
 
 
 def _check_inputs(design, X, y, w) -> None:
@@ -490,91 +579,111 @@ def _check_inputs(design, X, y, w) -> None:
     # The predictors are checked block by block in the pass over the rows.
 
 
-def _residual_length(v: np.ndarray, basis: list) -> np.ndarray:
-    """``v`` with its projection on the orthonormal ``basis`` removed (twice, for accuracy)."""
-    if not basis:
-        return v.copy()
-    B = np.column_stack(basis)
-    r = v - B @ (B.T @ v)
-    return r - B @ (B.T @ r)
+class _Walk:
+    """Gram–Schmidt (twice) over unit-SD column coordinates, with the triangular factor of
+    the kept columns so the combination reproducing a candidate is known."""
+
+    def __init__(self, m):
+        self.Q = np.zeros((m, 0))
+        self.R = np.zeros((0, 0))
+        self.idx = []
+
+    def project(self, v):
+        Q = self.Q
+        if not self.idx:
+            return v.copy(), np.zeros(0), np.zeros(0)
+        c1 = Q.T @ v
+        r = v - Q @ c1
+        c2 = Q.T @ r
+        r = r - Q @ c2
+        coords = c1 + c2
+        from scipy import linalg
+
+        cs = linalg.solve_triangular(self.R, coords, check_finite=False)
+        return r, coords, cs
+
+    def add(self, j, r, coords, nr):
+        k = len(self.idx)
+        R = np.zeros((k + 1, k + 1))
+        R[:k, :k] = self.R
+        R[:k, k] = coords
+        R[k, k] = nr
+        self.R = R
+        self.Q = np.column_stack([self.Q, r / nr])
+        self.idx.append(j)
 
 
-def _ordered_choice(C, pin_idx, tol, sd) -> list:
-    """Walk pins then design order; keep a column when it adds more than ``tol`` of new length."""
+def _tolerance(tol, j, cs, kept, rel_size) -> float:
+    """Left-over (at unit SD) below which column j counts as reproduced by ``kept`` with
+    standardized weights ``cs``: the rank tolerance plus the round-off its own stored
+    values and those of the combination carry (eps times each size over the spread)."""
+    data = rel_size[j] + (float(np.abs(cs) @ rel_size[kept]) if len(kept) else 0.0)
+    return tol + DATA_ROUNDOFF * EPS * data
+
+
+def _ordered_choice(C, pin_idx, tol, constant, rel_size, n) -> tuple:
+    """Walk pins then design order; keep a column when what the kept columns leave of it
+    is above its tolerance (:func:`_tolerance`).
+
+    Returns the kept indices and whether the rows ran out: the kept columns and the
+    intercept already fit every row of weight above 0 exactly (``n - 1`` kept), so later
+    columns are set aside for want of rows, not because of what they are.
+    """
     p = C.shape[1]
     order = list(pin_idx) + [j for j in range(p) if j not in set(pin_idx)]
-    basis, kept = [], []
+    walk = _Walk(C.shape[0])
+    full_at = None
     for j in order:
-        if sd[j] == 0:
+        if constant[j]:
             continue
-        r = _residual_length(C[:, j], basis)
+        if len(walk.idx) >= max(n - 1, 0):
+            full_at = len(walk.idx) if full_at is None else full_at
+            continue
+        r, coords, cs = walk.project(C[:, j])
         nr = float(np.linalg.norm(r))
-        if nr > tol:
-            basis.append(r / nr)
-            kept.append(j)
-    return kept
+        if nr > _tolerance(tol, j, cs, walk.idx, rel_size):
+            walk.add(j, r, coords, nr)
+    row_limited = len(walk.idx) >= max(n - 1, 0) and len(walk.idx) > 0
+    return list(walk.idx), row_limited
 
 
-def _pivoted_choice(C, pin_idx, tol, sd) -> list:
-    """Pivoted QR on the pinned block, then on the rest with the pinned part removed."""
-    from scipy import linalg
-
-    p = C.shape[1]
-    pinned = [j for j in pin_idx if sd[j] > 0]
-    rest = [j for j in range(p) if j not in set(pin_idx) and sd[j] > 0]
-    if not rest:
-        return pinned
-    B = C[:, rest]
-    if pinned:
-        Qp, _ = linalg.qr(C[:, pinned], mode="economic")
-        B = B - Qp @ (Qp.T @ B)
-        B = B - Qp @ (Qp.T @ B)
-    _, R2, piv2 = linalg.qr(B, mode="economic", pivoting=True)
-    d = np.abs(np.diag(R2))
-    r2 = int(np.count_nonzero(d > tol))
-    return pinned + [rest[i] for i in piv2[:r2]]
-
-
-def _check_pins(C, pin_idx, columns, tol, sd) -> None:
+def _check_pins(C, pin_idx, columns, tol, constant, rel_size) -> None:
     """Pinned columns must be independent of each other (and not constant)."""
-    basis, kept = [], []
+    walk = _Walk(C.shape[0])
     for j in pin_idx:
-        if sd[j] == 0:
+        if constant[j]:
             raise ModelError(
-                f"pinned column '{columns[j]}' is constant on every row with weight, so the intercept "
-                "already carries it; unpin it"
+                f"pinned column '{columns[j]}' is constant on every row with weight (up to the round-off of "
+                "its values), so the intercept already carries it; unpin it"
             )
-        if float(np.linalg.norm(C[:, j])) <= tol:
-            raise ModelError(
-                f"pinned column '{columns[j]}' is almost constant: its spread is within the rank "
-                f"tolerance ({tol:g}) of its size, so the intercept already carries it; unpin it "
-                "or use a smaller rank tolerance"
-            )
-        r = _residual_length(C[:, j], basis)
+        r, coords, cs = walk.project(C[:, j])
         nr = float(np.linalg.norm(r))
-        if nr <= tol:
-            # Which earlier pins reproduce it: least squares on their coordinates.
-            coef, *_ = np.linalg.lstsq(C[:, kept], C[:, j], rcond=None)
-            big = np.abs(coef) > NEGLIGIBLE_TERM * max(np.abs(coef).max(), 1e-300)
-            names = [columns[kept[i]] for i in np.flatnonzero(big)] or [columns[i] for i in kept]
+        if nr <= _tolerance(tol, j, cs, walk.idx, rel_size):
+            big = np.abs(cs) > NEGLIGIBLE_TERM * max(np.abs(cs).max(initial=0.0), 1e-300)
+            names = [columns[walk.idx[i]] for i in np.flatnonzero(big)] or [columns[i] for i in walk.idx]
             raise ModelError(
                 f"pinned columns {_join([*names, columns[j]], 'and')} depend on each other "
                 f"('{columns[j]}' is reproduced by {_join(names, 'and')}), so they cannot all be kept; "
                 "unpin one of them"
             )
-        basis.append(r / nr)
-        kept.append(j)
+        walk.add(j, r, coords, nr)
 
 
-def _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, roundoff, tol) -> tuple:
+def _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, rel_size, roundoff, tol,
+                 constant, row_limited, n, sources) -> tuple:
     """A :class:`SetAside` for each column of ``aside``: the combination of kept columns
-    (and intercept) that reproduces it.
+    (and intercept) that reproduces it, or why there is none to give.
 
-    A column whose spread is itself within the tolerance of its size is explained by the
-    intercept alone (almost constant), not by whatever kept columns happen to correlate.
-    The combinations come from the coordinates ``C``; what each leaves over is measured on
-    the rows in original units, every candidate in one blocked pass.
+    A column whose spread is within the round-off of its values is explained by the
+    intercept alone (constant).  When the rows ran out (the kept columns and the
+    intercept fit every row exactly), a column whose combination needs more than half
+    of the kept columns is reported as set aside for want of rows: any column would be
+    reproduced then, so the combination says nothing about the columns.  The
+    combinations come from the coordinates ``C`` (one solve for all columns); what
+    each leaves over is measured on the rows in original units, in one blocked pass.
     """
+    from scipy import linalg
+
     p = len(columns)
     plans, cols, icpts = [], [], []
 
@@ -587,28 +696,35 @@ def _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, roundo
         icpts.append(icpt)
         return len(cols) - 1
 
+    todo = [j for j in aside if not (constant[j] or not kept)]
+    cs_all = {}
+    if todo:
+        Qk, Rk = linalg.qr(C[:, kept], mode="economic", check_finite=False)
+        sol = linalg.solve_triangular(Rk, Qk.T @ C[:, todo], check_finite=False)
+        cs_all = {j: sol[:, i] for i, j in enumerate(todo)}
     for j in aside:
-        if sd[j] <= tol * size[j] or not kept:
+        if j not in cs_all:
             value = float(mean[j])
             plans.append((j, "constant", value, candidate(j, [], np.zeros(0), value)))
             continue
-        cs, *_ = np.linalg.lstsq(C[:, kept], C[:, j], rcond=None)
-        coef = cs * scale[j] / scale[kept]
-        icpt = float(mean[j] - mean[kept] @ coef)
-        first = (list(kept), coef, icpt, candidate(j, list(kept), coef, icpt))
+        cs = cs_all[j]
         big = np.abs(cs) > NEGLIGIBLE_TERM * np.abs(cs).max()
         support = [kept[i] for i in np.flatnonzero(big)]
+        if row_limited and len(support) > len(kept) // 2:
+            plans.append((j, "rows", cs, None))
+            continue
+        coef = cs * scale[j] / scale[kept]
+        icpt = float(mean[j] - mean[kept] @ coef)
+        first = (list(kept), coef, icpt, candidate(j, list(kept), coef, icpt), cs)
         second = None
         if len(support) < len(kept):
             cs2, *_ = np.linalg.lstsq(C[:, support], C[:, j], rcond=None)
             coef2 = cs2 * scale[j] / scale[support]
             icpt2 = float(mean[j] - mean[support] @ coef2)
-            second = (support, coef2, icpt2, candidate(j, support, coef2, icpt2))
+            second = (support, coef2, icpt2, candidate(j, support, coef2, icpt2), cs2)
         plans.append((j, "combination", first, second))
-    if not plans:
-        return ()
-    ss = rows.weighted_ss(np.column_stack(cols), np.asarray(icpts))
-    res_of = np.sqrt(ss / W)
+    res_of = (np.sqrt(rows.weighted_ss(np.column_stack(cols), np.asarray(icpts), mean) / W) if cols
+              else np.zeros(0))
 
     out = []
     for j, kind, a, b in plans:
@@ -618,16 +734,28 @@ def _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, roundo
             rel = res / sd[j] if sd[j] > 0 else 0.0
             out.append(SetAside(column=name, combination={}, intercept=a, residual=res,
                                 alternatives=(), relative_residual=float(rel),
-                                exact=bool(res <= roundoff * size[j])))
+                                exact=bool(constant[j]), reason="constant"))
             continue
-        support, coef, icpt, at = a
+        if kind == "rows":
+            out.append(SetAside(column=name, combination={}, intercept=float(mean[j]), residual=0.0,
+                                alternatives=(), relative_residual=0.0, exact=True, reason="too_few_rows",
+                                rows=int(n), kept_count=len(kept)))
+            continue
+        support, coef, icpt, at, cs = a
         res = float(res_of[at])
         if b is not None:
-            support2, coef2, icpt2, at2 = b
+            support2, coef2, icpt2, at2, cs2 = b
             res2 = float(res_of[at2])
-            if res2 - res <= max(1e-3 * res, roundoff * size[j]):
-                support, coef, icpt, res = support2, coef2, icpt2, res2
+            if res2 - res <= max(1e-3 * res, roundoff * sd[j]):
+                support, coef, icpt, res, cs = support2, coef2, icpt2, res2, cs2
         rel = res / sd[j]
+        exact = bool(rel <= _tolerance(roundoff, j, cs, support, rel_size))
+        srcs = {sources[s] for s in support}
+        category = ""
+        if len(srcs) == 1 and sources[j] not in srcs:
+            src = next(iter(srcs))
+            if all(columns[s].startswith(src + "=") for s in support):
+                category = src
         out.append(SetAside(
             column=name,
             combination={columns[s]: float(c) for s, c in zip(support, coef)},
@@ -635,7 +763,9 @@ def _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, roundo
             residual=res,
             alternatives=tuple(columns[s] for s in support),
             relative_residual=float(rel),
-            exact=bool(res <= roundoff * size[j]),
+            exact=exact,
+            reason="category" if category else "combination",
+            category=category,
         ))
     return tuple(out)
 
@@ -643,7 +773,8 @@ def _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, roundo
 # --- plain-language sentences -------------------------------------------------------------
 
 def format_number(v: float) -> str:
-    """A readable number: 4 significant digits, no exponent between 1e-4 and 1e7.
+    """A number as a person writes it: up to 4 significant digits, no exponent between
+    1e-4 and 1e12 (30, not '3e+01'; 100,000,000 with thousands separated).
 
     A number that is round up to round-off at up to 6 significant digits is
     written that way (0.4999999999999999 -> '0.5', 273.15000000000043 -> '273.15').
@@ -652,26 +783,28 @@ def format_number(v: float) -> str:
     if v == 0 or not np.isfinite(v):
         return "0" if v == 0 else str(v)
     a = abs(v)
-    if 1e4 <= a < 1e7:
-        return f"{v:.0f}"
+    if 1e4 <= a < 1e12:
+        return f"{v:,.0f}"
     if 1e-4 <= a < 1e4:
         for digits in range(1, 7):
-            text = f"{v:.{digits}g}"
+            text = np.format_float_positional(v, precision=digits, unique=False, fractional=False, trim="-")
             if abs(float(text) - v) <= 1e-9 * a:
                 return text
-        return f"{v:.4g}"
+        return np.format_float_positional(v, precision=4, unique=False, fractional=False, trim="-")
     mant, exp = f"{v:.3e}".split("e")
     mant = mant.rstrip("0").rstrip(".")
     return f"{mant}e{int(exp)}"
 
 
 def _small(v: float) -> str:
+    """A left-over or share: two significant digits, positional between 1e-3 and 1e4."""
     v = float(v)
     if v == 0:
         return "0"
     if 1e-3 <= abs(v) < 1e4:
-        return f"{v:.2g}"
-    mant, exp = f"{v:.0e}".split("e")
+        return np.format_float_positional(v, precision=2, unique=False, fractional=False, trim="-")
+    mant, exp = f"{v:.1e}".split("e")
+    mant = mant.rstrip("0").rstrip(".")
     return f"{mant}e{int(exp)}"
 
 
@@ -707,19 +840,28 @@ def combination_text(sa: SetAside) -> str:
 
 def set_aside_sentence(sa: SetAside) -> str:
     """One plain sentence saying why ``sa.column`` was set aside and what could replace it."""
+    reason = getattr(sa, "reason", "combination")
+    if reason == "too_few_rows":
+        return (f"{sa.column} was set aside because there are too few rows, not because of what it holds: "
+                f"the intercept and {sa.kept_count} kept columns already fit all {sa.rows} rows exactly, so the "
+                f"data cannot tell what {sa.column} adds. More rows than columns, or a penalized model, "
+                "would be needed to weigh it.")
     if not sa.combination:
         if sa.exact:
             return (f"{sa.column} was set aside: it is constant ({format_number(sa.intercept)}) on every "
                     "row with weight, so the intercept already carries it.")
         return (f"{sa.column} was set aside: it is almost constant ({format_number(sa.intercept)}, "
                 f"varying by {_small(sa.residual)} RMS), so the intercept nearly carries it.")
+    if reason == "category" and sa.category:
+        how = "takes one value per" if sa.exact else "almost takes one value per"
+        return (f"{sa.column} {how} {sa.category}, so the {sa.category} categories reproduce it; "
+                f"its effect cannot be told apart from theirs, so it was set aside.")
     alts = _join(sa.alternatives, "or")
     expr = combination_text(sa)
     if sa.exact:
-        return (f"{sa.column} was set aside: it equals {expr} exactly (the two differ by {_small(sa.residual)} RMS, "
-                "round-off); "
-                f"keeping it instead of {alts} gives the same predictions.")
+        return (f"{sa.column} was set aside: it equals {expr} exactly (up to the rounding of the stored "
+                f"numbers); keeping it instead of {alts} gives the same predictions.")
     share = 100.0 * sa.relative_residual
     return (f"{sa.column} was set aside: it almost equals {expr} (the two differ by {_small(sa.residual)} RMS, "
-            f"{_small(share)}% of its spread, within the rank tolerance); keeping it instead of {alts} "
+            f"{_small(share)}% of its spread, within the chosen rank tolerance); keeping it instead of {alts} "
             "gives almost the same predictions.")

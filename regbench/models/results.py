@@ -237,6 +237,14 @@ class SetAside:
     alternatives: tuple
     relative_residual: float = 0.0
     exact: bool = True
+    #: Why it was set aside: 'combination' (kept columns reproduce it), 'category' (it takes
+    #: one value per level of the category ``category``), 'constant' (the intercept carries
+    #: it) or 'too_few_rows' (the kept columns already fit all ``rows`` rows exactly, so
+    #: nothing can be learned about it; not a fact about the column).
+    reason: str = "combination"
+    category: str = ""
+    rows: int = 0
+    kept_count: int = 0
 
     def sentence(self) -> str:  # implemented by the OLS module
         from regbench.models.ols import set_aside_sentence
@@ -252,6 +260,8 @@ class SetAside:
             "alternatives": list(self.alternatives),
             "relative_residual": float(self.relative_residual),
             "exact": bool(self.exact),
+            "reason": self.reason,
+            "category": self.category or None,
         }
 
 
@@ -287,6 +297,34 @@ class OLSResult:
     #: cross-product matrix / W, ``R[0, 1:]`` the weighted means).  The diagnostics use it
     #: instead of a second pass over the rows; None on results saved before it existed.
     r_factor: Optional[np.ndarray] = None
+    #: 'counts' (a row of weight w is w observations) or 'precision'.
+    weights_kind: str = "precision"
+    #: Observations behind the inference: Σw for count rows, else ``n_obs``.
+    observations: float = float("nan")
+    #: Why inference is missing (no residual degrees of freedom), or "".
+    inference_note: str = ""
+    #: Cluster-robust (by group) standard errors when the design has groups, else None;
+    #: small-sample factor G/(G-1)·(N-1)/(N-K) as statsmodels' ``cov_type="cluster"``.
+    cluster_std_errors: Optional[np.ndarray] = None
+    cluster_intercept_se: float = float("nan")
+    n_clusters: int = 0
+
+    @property
+    def set_aside_mask(self) -> np.ndarray:
+        """Boolean mask over ``columns``: True where OLS set the column aside.
+
+        A set-aside column has no coefficient (its ``coef`` entry is 0.0 only so
+        that :meth:`LinearModel.predict` leaves it out); views and exports show
+        "set aside" or null there, never 0.
+        """
+        kept = set(self.kept)
+        return np.array([c not in kept for c in self.columns], dtype=bool)
+
+    def coef_or_nan(self, standardized: bool = False) -> np.ndarray:
+        """Coefficients with NaN for set-aside columns (original units, or standardized)."""
+        v = np.array(self.model.coef_std if standardized else self.model.coef, dtype=float)
+        v[self.set_aside_mask] = np.nan
+        return v
 
 
 @dataclass(frozen=True)

@@ -33,6 +33,8 @@ def migrate_0_to_1(doc: dict) -> dict:
     for key in ("predictors", "categorical"):
         if out["roles"][key] is None:
             out["roles"][key] = []
+    # Before the choice existed, weights were precision weights (inference counted rows);
+    # roles without weights_kind read as precision.
     out["settings"] = doc.get("fit_settings", {})
     out["chosen_alpha"] = doc.get("alphas", {})
     out["stress"] = doc.get("stress_tests", [])

@@ -509,6 +509,8 @@ def _session_state(ar: _Archive, doc, table):
         for i, c in enumerate(roles_d.get(key, [])):
             if c not in names:
                 bad(f"roles.{key}[{i}]", f"names '{c}', which is not a column of the table")
+    if roles_d.get("weights_kind", "precision") not in ("precision", "counts"):
+        bad("roles.weights_kind", f"is {roles_d.get('weights_kind')!r}; it must be 'counts' or 'precision'")
     roles = Roles.from_dict(roles_d)
 
     s = doc.get("settings")

@@ -180,7 +180,10 @@ def _question(session) -> str:
             ("Predictors", ", ".join(preds)), ("Design columns", f"{d.p} (categories coded one column per level "
                                                                    "beside the first)"),
             ("Categorical marks", ", ".join(r.categorical) or "none"),
-            ("Row weights", r.weights or "none (every row counts once)"),
+            ("Row weights", ("none (every row counts once)" if not r.weights else
+                             f"{r.weights}: counts (a row stands for that many identical observations)"
+                             if getattr(d, "counts", False) else
+                             f"{r.weights}: precision weights (one observation per row, of unequal quality)")),
             ("Held-out groups", f"{r.groups} ({len(d.group_labels)} groups)" if r.groups else "none")]
     parts.append(table(None, info))
     parts.append("<h3>Rows left out, and why</h3>")
@@ -267,14 +270,16 @@ def _fits(session) -> str:
     parts.append("<h3>Coefficients side by side (original units)</h3>")
     names = list(models)
     rows = [("(intercept)", *[num(models[n].intercept) for n in names])]
+    aside = set(res.ols.columns[j] for j in np.flatnonzero(res.ols.set_aside_mask))
     for j, c in enumerate(res.columns):
-        rows.append((c, *[coef_cell(models[n].coef[j]) for n in names]))
+        rows.append((c, *[("cls", "zero", "set aside") if n == "ols" and c in aside else coef_cell(models[n].coef[j])
+                          for n in names]))
     parts.append(table(["Column", *[model_label(n) + (f" α={num(models[n].alpha, 3)}" if models[n].alpha else "")
                                     + (f" γ={num(models[n].relaxation, 2)}" if models[n].relaxation is not None else "")
                                     + (" (NOT CONVERGED)" if models[n].converged is False else "")
                                     for n in names]], rows))
-    parts.append('<p class="muted">A grey 0 means the model does not use the column (OLS: set aside; lasso and '
-                 "elastic net: not selected at this α).</p>")
+    parts.append('<p class="muted">"set aside" means OLS has no coefficient for the column (the kept columns '
+                 "reproduce it); a grey 0 means a lasso or elastic net does not select it at this α.</p>")
     groups = [(model_label(n), models[n].coef_std) for n in names]
     parts.append(figure(svg.bar_chart(list(res.columns), groups, title="Standardized coefficients by model",
                                       ylabel="coefficient × column SD", colours=[model_colour(n) for n in names]),
