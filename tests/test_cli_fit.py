@@ -61,7 +61,7 @@ def test_fit_json_schema(fit_json):
         assert set(m) == common | {"alpha", "l1_ratio", "alpha_rule", "path", "cv", "convergence"}
         assert m["convergence"]["converged"] is True and m["convergence"]["max_gap"] <= m["convergence"]["tolerance"]
         assert m["alpha_rule"] == "cv_min" and m["alpha"] == m["cv"]["alpha_min"]
-        assert set(m["cv"]) == {"alphas", "mean", "se", "alpha_min", "alpha_1se", "folds", "grouped"}
+        assert set(m["cv"]) == {"alphas", "mean", "se", "alpha_min", "alpha_1se", "folds", "grouped", "at_edge"}
         assert m["cv"]["folds"] == 5 and m["cv"]["grouped"] is True
         assert len(m["path"]["alphas"]) == 100
         assert set(m["path"]["coefficients"]) == set(m["coefficients"])

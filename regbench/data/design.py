@@ -265,7 +265,7 @@ def build_design(table: Table, roles: Roles) -> Design:
     ------
     DataError
         Unknown column, a target that is not numeric or is constant, a bad weight
-        column, more predictors than usable rows, or no usable rows.
+        column, or no usable rows.
     """
     table = apply_derived(table, roles.derived)
     src = table.source or "the table"
@@ -433,13 +433,9 @@ def build_design(table: Table, roles: Roles) -> Design:
         raise DataError(f"{src}: no usable predictor remains ({reasons_txt}); choose other predictors")
     _check_unique_names(names, sources, src)
     X = np.hstack(mats)
-    if len(names) >= int(np.count_nonzero(w > 0)):
-        texty = [(c, note) for c, note, as_text in notes if as_text and c in {b[1] for b in blocks}]
-        why = (f" (column '{texty[0][0]}' {texty[0][1]})" if texty else "")
-        raise DataError(
-            f"{src}: {len(names)} predictor columns but only {int(np.count_nonzero(w > 0))} usable rows{why}; "
-            "a linear model needs more rows than predictors. Choose fewer predictors or add rows"
-        )
+    # As many columns as rows or more (a wide table) is allowed: OLS keeps a largest
+    # independent set and says which columns it set aside for want of rows; the penalized
+    # families fit on any number of columns.
     _check_magnitudes(src, X, names, y, w, rn[rows], roles)
     groups = None
     labels = ()

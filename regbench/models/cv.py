@@ -12,7 +12,8 @@ in the fold's shifted coordinates, with ``a = b₀ + shiftᵀb − shift_y``.
 Per α the CV curve is the plain mean of the K folds' weighted mean squared
 errors, and its standard error is their sample SD (ddof 1) over √K.
 ``alpha_min`` minimises the mean; ``alpha_1se`` is the largest α whose mean is
-within one standard error (the SE at the minimum) of the minimum.
+within one standard error (the SE at the minimum) of the minimum.  ``at_edge``
+flags a minimum at the grid's smallest α (the error may fall further below it).
 """
 
 from __future__ import annotations
@@ -112,7 +113,7 @@ def heldout_mse(fold: GramStats, coef: np.ndarray, intercept) -> np.ndarray:
         out = np.full(B.shape[0], np.nan)
     else:
         a = b0 + B @ fold.shift_x - fold.shift_y
-        quad = np.einsum("ij,jk,ik->i", B, fold.xx, B)
+        quad = np.sum((B @ fold.xx) * B, axis=1)
         sse = fold.yy - 2.0 * B @ fold.xy + quad - 2.0 * a * (fold.sy - B @ fold.sx) + a * a * fold.W
         out = np.clip(sse, 0.0, None) / fold.W
     return out if np.ndim(coef) == 2 else float(out[0])
@@ -135,5 +136,7 @@ def summarize(alphas: np.ndarray, errors: np.ndarray, grouped: bool) -> CVResult
     within = np.flatnonzero(mean <= limit)
     alphas = np.asarray(alphas, dtype=float)
     i_1se = int(within[np.argmax(alphas[within])])
+    # The minimum at the smallest α of the grid: the error may go on falling below it.
+    at_edge = bool(alphas.size > 1 and alphas[i_min] == alphas.min())
     return CVResult(alphas=alphas.copy(), mean=mean, se=se, alpha_min=float(alphas[i_min]),
-                    alpha_1se=float(alphas[i_1se]), n_folds=int(K), grouped=bool(grouped))
+                    alpha_1se=float(alphas[i_1se]), n_folds=int(K), grouped=bool(grouped), at_edge=at_edge)

@@ -136,6 +136,36 @@ def fit_all(design, settings: FitSettings = FitSettings(), progress=None, cancel
                       penalized=penalized, fold_ids=ids, n_obs=int(design.n), gram=full)
 
 
+#: Below this share of the largest eigenvalue of the standardized Gram, a direction is round-off;
+#: when the table has such directions (exactly dependent columns, or fewer rows than columns),
+#: α must be at least this share of the largest eigenvalue, or the fit magnifies round-off.
+ALPHA_FLOOR = 1e-10
+
+
+def smallest_alpha(problem) -> float:
+    """The smallest α this table can resolve: 0 when its standardized Gram is well away from
+    singular, else ``ALPHA_FLOOR`` times its largest eigenvalue."""
+    lam = np.asarray(problem.evals, dtype=float)
+    if lam.size == 0:
+        return 0.0
+    top = float(lam.max())
+    singular = lam.size < int(np.count_nonzero(problem.live)) or float(lam.min()) <= ALPHA_FLOOR * top
+    return ALPHA_FLOOR * top if singular else 0.0
+
+
+def check_alpha(problem, alpha: float, name: str) -> None:
+    """Refuse an α below what the table can resolve (:func:`smallest_alpha`), naming the floor."""
+    floor = smallest_alpha(problem)
+    if alpha < floor:
+        from regbench.models.ols import format_number
+
+        raise ModelError(
+            f"α = {format_number(alpha)} for {name.replace('_', ' ')} is below what this table can resolve: some "
+            f"columns are exactly dependent (or there are fewer rows than columns), and below α = "
+            f"{format_number(floor)} the fit would only magnify round-off; use an α of at least {format_number(floor)}"
+        )
+
+
 def _training(full: GramStats, fold: GramStats, k: int) -> GramStats:
     t = full - fold
     if not t.W > 0:
@@ -164,6 +194,7 @@ def _family(design, settings, problem, train, folds, name, rho, grouped, cancel,
     cvres = cvmod.summarize(grid, errors, grouped)
     if settings.alpha is not None:
         alpha, rule = float(settings.alpha), "fixed"
+        check_alpha(problem, alpha, name)
     else:
         rule = settings.alpha_rule
         alpha = cvres.alpha_min if rule == "cv_min" else cvres.alpha_1se
@@ -269,6 +300,7 @@ def model_at(design, results: FitResults, name: str, alpha: float) -> LinearMode
     rho = _l1_ratio_of(results, name)
     stats = results.gram if isinstance(results.gram, GramStats) else gram_stats(design.X, design.y, design.weights)
     problem = _problem(stats, design, results.settings)
+    check_alpha(problem, float(alpha), name)
     init = None
     pf = results.penalized.get(base_of(name) or name)
     if pf is not None and rho > 0:
@@ -391,6 +423,7 @@ def fit_models_at(design, settings: FitSettings, alphas: Optional[dict] = None,
             raise ModelError(f"no α given for {name}; pass one per model or set a fixed α in the settings")
         if not (np.isfinite(a) and a > 0):
             raise ModelError(f"α = {a:g} for {name}: α must be a positive number")
+        check_alpha(problem, float(a), name)
         out[name] = model_from_problem(problem, name, rho, float(a), design.columns,
                                        relaxation=relaxation_for(settings, name, relaxations))
     return out

@@ -112,6 +112,7 @@ def _penalized_json(pf, columns) -> dict:
             "alpha_1se": _num(cv.alpha_1se),
             "folds": int(cv.n_folds),
             "grouped": bool(cv.grouped),
+            "at_edge": bool(getattr(cv, "at_edge", False)),
         }
     return out
 
@@ -261,6 +262,9 @@ def fit_summary_text(design, results) -> str:
         if pf.cv is not None:
             i = int(np.argmin(np.abs(np.log(pf.cv.alphas) - np.log(pf.alpha))))
             cv_txt = f", held-out RMSE {_fmt(math.sqrt(max(pf.cv.mean[i], 0.0)))} (at the nearest grid α)"
+            if getattr(pf.cv, "at_edge", False):
+                cv_txt += ("; CAUTION: the lowest CV error is at the smallest α tried, so a smaller α may "
+                           "predict better")
         relax = "" if pf.relaxation is None else f", relaxation {_fmt(pf.relaxation)}"
         lines.append(f"  {model_label(name)}: α {_fmt(pf.alpha)} ({rules.get(pf.alpha_rule, pf.alpha_rule)}), "
                      f"L1 ratio {_fmt(pf.l1_ratio)}{relax}{cv_txt}")

@@ -397,6 +397,8 @@ class CVResult:
     alpha_1se: float
     n_folds: int
     grouped: bool
+    #: The lowest CV error is at the smallest α of the grid: the true minimum may lie below it.
+    at_edge: bool = False
 
 
 @dataclass(frozen=True)

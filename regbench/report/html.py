@@ -267,6 +267,10 @@ def _fits(session) -> str:
             caption += (f" {cv.n_folds} {'grouped ' if cv.grouped else ''}folds; lowest error at "
                         f"α = {num(cv.alpha_min)}, simplest within one SE at α = {num(cv.alpha_1se)}.")
         parts.append(figure(svg.penalty_figure(session, name), caption))
+        if cv is not None and getattr(cv, "at_edge", False):
+            parts.append('<p class="answer"><b>At the edge of the grid:</b> the lowest cross-validated error is at '
+                         f"the smallest α tried ({num(cv.alpha_min)}); a smaller α might predict better, so "
+                         "the chosen α is a bound, not a minimum.</p>")
     parts.append("<h3>Coefficients side by side (original units)</h3>")
     names = list(models)
     rows = [("(intercept)", *[num(models[n].intercept) for n in names])]
