@@ -145,6 +145,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--big", action="store_true",
                    help="with --targets: also the 3M and 10M row tables (about 10 GB of disk, several minutes)")
     p.add_argument("--pairs", type=int, default=3, help="paired runs per ratio (default 3)")
+    p.add_argument("--wide", action="store_true",
+                   help="only the wide case: 200 rows × 2,000 sensors, regbench against the scripted route")
 
     p = sub.add_parser("open", help="open a table or project in the desktop window")
     p.add_argument("path", nargs="?")
@@ -402,7 +404,7 @@ def cmd_bench(args) -> int:
         from regbench.bench import targets
 
         return targets(big=args.big, pairs=args.pairs)
-    return bench_main(rows=args.rows, cols=args.cols, quick=args.quick)
+    return bench_main(rows=args.rows, cols=args.cols, quick=args.quick, wide=args.wide)
 
 
 def cmd_open(args) -> int:
