@@ -300,7 +300,8 @@ class QuestionBar(QtWidgets.QFrame):
         self.weights_kind = QtWidgets.QComboBox()
         self.weights_kind.addItem("times", "counts")
         self.weights_kind.addItem("(precision)", "precision")
-        self.weights_kind.setSizeAdjustPolicy(QtWidgets.QComboBox.AdjustToContents)
+        self.weights_kind.setSizeAdjustPolicy(QtWidgets.QComboBox.AdjustToMinimumContentsLengthWithIcon)
+        self.weights_kind.setMinimumContentsLength(4)
         self.weights_kind.setVisible(False)
         self.weights_kind.setToolTip("Counts: a row stands for that many identical observations. Precision: a row "
                                      "is one observation, measured more precisely the larger its weight.")
@@ -357,7 +358,7 @@ class QuestionBar(QtWidgets.QFrame):
         self.weights_kind.setVisible(kinds)
         if kinds:
             self.weights_kind.setCurrentIndex(max(0, self.weights_kind.findData(d.weights_kind)))
-            self.weights_before.setText("each row counts" if d.weights_kind == "counts" else "each row is weighted by")
+            self.weights_before.setText("each row counts" if d.weights_kind == "counts" else "weight")
             self.weights_after.setText(";")
         else:
             self.weights_before.setText("each row counts")
