@@ -134,7 +134,7 @@ _DERIVED_KEYS = ("models", "heldout", "agreement", "structure", "stress", "sweep
 
 
 @dataclass(frozen=True)
-class _State:
+class SessionState:
     """The editable part of a session: what undo restores and the project file keeps."""
 
     roles: Roles
@@ -145,6 +145,26 @@ class _State:
     bootstrap: int
     notes: str
     view_state: dict
+
+
+_State = SessionState  # older name, kept for code written before SessionState was public
+
+#: What :meth:`Session.subscribe` callbacks receive as ``event``, one kind per kind of change
+#: (``detail`` in brackets).  A view redraws only what an event touches.
+EVENTS = {
+    "roles": "the column roles changed; the design was rebuilt and the fits cleared (the new Roles)",
+    "settings": "the engine settings changed; the fits were cleared (the new FitSettings)",
+    "alpha": "a family's chosen α changed ({name, alpha}; alpha None: back to the CV choice)",
+    "extra_fits": "an extra fit was added or removed (the entry, or {removed: name})",
+    "stress": "a stress test was added or removed ({added: i} or {removed: i})",
+    "bootstrap": "the stability refit count changed (the count)",
+    "notes": "the notes text changed (the text)",
+    "view_state": "a value the window keeps changed ({key, value})",
+    "undo": "an edit was taken back; anything may have changed (None)",
+    "results": "new fits were installed, with stability and comparisons where computed (None)",
+    "derived": "models, agreement, structure and stress results at the chosen α were installed (None)",
+    "saved": "the session was written to a project file (the path)",
+}
 
 
 class Session:
@@ -172,7 +192,7 @@ class Session:
         roles = _roles(roles)
         self.table = table
         settings = _normalized(settings or FitSettings())
-        self._state = _State(roles=roles, settings=settings, chosen_alpha={},
+        self._state = SessionState(roles=roles, settings=settings, chosen_alpha={},
                              extra_fits=(), stress_configs=(), bootstrap=DEFAULT_BOOTSTRAP,
                              notes="", view_state={})
         # ``design``: already built from this table and these roles (the project loader's check).
@@ -204,6 +224,17 @@ class Session:
     @classmethod
     def from_table(cls, table: Table, roles, settings=None) -> "Session":
         return cls(table, roles, settings)
+
+    @classmethod
+    def from_state(cls, table: Table, state: SessionState, design=None) -> "Session":
+        """A session on ``table`` in ``state`` (as a project file keeps it), with no fits and no undo history.
+
+        ``design``, when given, is the design of ``state.roles`` on ``table`` already built (and
+        checked) by the caller, so the table is coded once.
+        """
+        session = cls(table, state.roles, state.settings, design=design)
+        session._install_loaded(state, design=design)
+        return session
 
     # -- read-only views of the state ------------------------------------------------------
 
@@ -245,7 +276,7 @@ class Session:
             self._fingerprint = table_fingerprint(self.table)
         return self._fingerprint
 
-    def fit_key(self, state: Optional[_State] = None) -> str:
+    def fit_key(self, state: Optional[SessionState] = None) -> str:
         s = state or self._state
         return _digest({"table": self.table_hash, "roles": s.roles.to_dict(), "settings": _fit_settings(s.settings)})
 
@@ -253,7 +284,7 @@ class Session:
         """Hash of roles + settings: cached fits are reused only when it matches."""
         return _digest({"roles": self.roles.to_dict(), "settings": _fit_settings(self.settings)})
 
-    def key(self, state: Optional[_State] = None) -> str:
+    def key(self, state: Optional[SessionState] = None) -> str:
         s = state or self._state
         parts = {
             "fit": self.fit_key(s),
@@ -310,7 +341,7 @@ class Session:
     def _restore(self, snap) -> None:
         (self._state, self.design, self.results, self.stability, self.stability_alphas, self._cache) = snap
 
-    def _edit(self, tag, new_state: _State, event: str, detail=None, coalesce: bool = False) -> None:
+    def _edit(self, tag, new_state: SessionState, event: str, detail=None, coalesce: bool = False) -> None:
         if new_state == self._state:
             return
         if not (coalesce and self._last_tag == tag and self._undo):
@@ -636,7 +667,7 @@ class Session:
         if self.results is None or update.key != self.key():
             return False
         self._cache = {k: getattr(update, k) for k in _DERIVED_KEYS}
-        self._notify("results", None)
+        self._notify("derived", None)
         return True
 
     @property
@@ -644,12 +675,16 @@ class Session:
         """True when the stability result was computed at the α now chosen."""
         return self.stability is not None and self.stability_alphas == self.alphas()
 
-    def _derived(self) -> dict:
+    def derived_results(self) -> dict:
+        """Models at the chosen α, held-out predictions, agreement, structure, stress results and sweeps
+        (computed here when missing); empty before a fit.  The dict is the session's own: do not change it."""
         if self.results is None:
             return {}
         if any(k not in self._cache for k in ("agreement", "stress", "ranges")):
             self._cache.update(_derive(self.design, self.results, self._state, None, self._cache))
         return self._cache
+
+    _derived = derived_results
 
     def models(self) -> dict:
         """name -> LinearModel at the chosen α (plus extra fits); empty before a fit."""
@@ -693,7 +728,48 @@ class Session:
 
     # -- used by the project layer --------------------------------------------------------
 
-    def _install_loaded(self, state: _State, results=None, stability=None, stability_alphas=None,
+    @property
+    def state(self) -> SessionState:
+        """The editable part of the session (immutable; change it through the edit methods)."""
+        return self._state
+
+    def clear_history(self) -> None:
+        """Forget the undo history (a freshly built or loaded document has nothing to undo)."""
+        self._undo.clear()
+        self._last_tag = None
+
+    def install_cached(self, results, stability=None, stability_alphas=None, derived: Optional[dict] = None) -> None:
+        """Install results read back from a project file's cache (no undo step, no event).
+
+        ``stability`` is kept with the α it was computed at (``stability_alphas``);
+        :attr:`stability_current` says whether that is still the chosen α.
+        ``derived`` (see :meth:`derived_results`) is used as given; pass it only when
+        the cache's key matched :meth:`key`.
+        """
+        self.results = results
+        self.stability = stability
+        self.stability_alphas = dict(stability_alphas or {}) if stability is not None else {}
+        self._cache = dict(derived or {})
+
+    def mark_saved(self, path: str, created: str, saved: str) -> None:
+        """Record that the session was written to ``path`` (times in UTC ISO) and tell the observers."""
+        self.path = path
+        self.created = created
+        self.saved = saved
+        self.dirty = False
+        self._notify("saved", path)
+
+    def mark_loaded(self, path: str, created: Optional[str], saved: Optional[str], cache_status: str,
+                    dirty: bool = False) -> None:
+        """Record where a loaded session came from and how its cached results were treated
+        ('none', 'used' or 'stale')."""
+        self.path = path
+        self.created = created
+        self.saved = saved
+        self.cache_status = cache_status
+        self.dirty = dirty
+
+    def _install_loaded(self, state: SessionState, results=None, stability=None, stability_alphas=None,
                         derived: Optional[dict] = None, design=None) -> None:
         self._state = state
         self.design = design if design is not None else build_design(self.table, state.roles)
@@ -717,11 +793,11 @@ def _within(progress, step: int, total: int):
     return sub
 
 
-def _alphas_of(results, state: _State) -> dict:
+def _alphas_of(results, state: SessionState) -> dict:
     return {name: float(state.chosen_alpha.get(name, pf.alpha)) for name, pf in results.penalized.items()}
 
 
-def _derive(design, results, state: _State, cancel, have: Optional[dict] = None) -> dict:
+def _derive(design, results, state: SessionState, cancel, have: Optional[dict] = None) -> dict:
     """Models at the chosen α, held-out predictions, agreement, structure, stress results."""
     from regbench.models import engine
 
@@ -856,5 +932,5 @@ def build_sample_session(csv_path, roles_dict: dict) -> Session:
     session.set_bootstrap(200)
     session.set_notes(SAMPLE_NOTE)
     session.compute()
-    session._undo.clear()
+    session.clear_history()
     return session

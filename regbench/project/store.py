@@ -116,7 +116,7 @@ def save_project(session, path) -> None:
             "settings_sha256": session.settings_hash(),
             "key": session.key(),
             "fit": enc.encode(session.results, "results"),
-            "derived": enc.encode(session._derived(), "derived"),
+            "derived": enc.encode(session.derived_results(), "derived"),
             "stability": enc.encode(session.stability, "stability"),
             "stability_alphas": {k: float(v) for k, v in session.stability_alphas.items()},
         }
@@ -141,11 +141,7 @@ def save_project(session, path) -> None:
                 info.compress_type = comp
                 info.external_attr = 0o644 << 16
                 zf.writestr(info, data)
-    session.path = path
-    session.created = manifest["created"]
-    session.saved = saved
-    session.dirty = False
-    session._notify("saved", path)
+    session.mark_saved(path, manifest["created"], saved)
 
 
 def session_document(session) -> dict:
@@ -470,7 +466,7 @@ def _session_state(ar: _Archive, doc, table):
     from regbench.models.results import FitSettings
     from regbench.analysis.stress import KINDS as STRESS_KINDS
     from regbench.errors import DataError
-    from regbench.session import BOOTSTRAP, _State, check_stress, penalized_names
+    from regbench.session import BOOTSTRAP, SessionState, check_stress, penalized_names
 
     label = f"{ar.label}: session.json"
 
@@ -606,7 +602,7 @@ def _session_state(ar: _Archive, doc, table):
     vs = doc.get("view_state", {})
     if not isinstance(vs, dict):
         bad("view_state", "must be an object")
-    state = _State(roles=roles, settings=settings, chosen_alpha={k: float(v) for k, v in ca.items()},
+    state = SessionState(roles=roles, settings=settings, chosen_alpha={k: float(v) for k, v in ca.items()},
                    extra_fits=tuple({"name": e["name"], "family": e["family"], "alpha": float(e["alpha"])}
                                     for e in extra),
                    stress_configs=tuple(configs), bootstrap=boot, notes=notes, view_state=vs)
@@ -658,15 +654,8 @@ def _load_results(ar, m, session, migrated: bool):
     if doc["key"] == session.key():
         derived = dec.decode(doc.get("derived"), "derived")
         guarded(ar.label, check_derived, derived, session.design, len(session.stress_configs))
-    session.results = results
-    alphas = {k: float(v) for k, v in stab_alphas.items()}
-    from regbench.session import _alphas_of
-
-    if stability is not None and alphas == _alphas_of(results, session._state):
-        session.stability, session.stability_alphas = stability, alphas
-    elif stability is not None:
-        session.stability, session.stability_alphas = stability, alphas  # kept; stability_current says it is old
-    session._cache = derived
+    # Stability is kept even when computed at another α; Session.stability_current says so.
+    session.install_cached(results, stability, {k: float(v) for k, v in stab_alphas.items()}, derived)
     return "used"
 
 
@@ -718,18 +707,14 @@ def load_project(path, compute: bool = True, progress=None, cancel=None):
         table = _read_table(ar, table_bytes, doc.get("table"))
         # The design checked here serves the session too: a table is coded once per opening.
         state, design = _session_state(ar, doc, table)
-        session = Session(table, state.roles, state.settings, design=design)
-        session._install_loaded(state, design=design)
+        session = Session.from_state(table, state, design=design)
         status = _load_results(ar, m, session, migrated)
     finally:
         ar.close()
-    session.path = os.fspath(path)
-    session.created = m["created"]
-    session.saved = m["saved"]
-    session.cache_status = status
     if session.results is None and compute:
         session.compute(progress=progress, cancel=cancel)
-    session.dirty = migrated or (status == "stale" and session.results is not None)
+    session.mark_loaded(os.fspath(path), m["created"], m["saved"], status,
+                        dirty=migrated or (status == "stale" and session.results is not None))
     return session
 
 
