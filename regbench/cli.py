@@ -391,7 +391,9 @@ def cmd_report(args) -> int:
     from regbench.project import load_project
     from regbench.report import render_report
 
-    session = load_project(args.project)
+    session = load_project(args.project, progress=_progress_to_stderr)
+    if session.cache_note:
+        sys.stderr.write(f"regbench report: {session.cache_note}\n")
     render_report(session, args.output)
     sys.stdout.write(f"wrote {args.output}\n")
     return EXIT_OK

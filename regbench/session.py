@@ -212,6 +212,8 @@ class Session:
         self.saved: Optional[str] = None
         #: How a loaded project's cached results were treated: 'none', 'used' or 'stale'.
         self.cache_status = "none"
+        #: One line for the person when a loaded project's cached results were not used, else None.
+        self.cache_note: Optional[str] = None
 
     # -- constructors --------------------------------------------------------------------
 
@@ -760,13 +762,14 @@ class Session:
         self._notify("saved", path)
 
     def mark_loaded(self, path: str, created: Optional[str], saved: Optional[str], cache_status: str,
-                    dirty: bool = False) -> None:
+                    dirty: bool = False, note: Optional[str] = None) -> None:
         """Record where a loaded session came from and how its cached results were treated
-        ('none', 'used' or 'stale')."""
+        ('none', 'used' or 'stale'; ``note`` says why in one line when they were not used)."""
         self.path = path
         self.created = created
         self.saved = saved
         self.cache_status = cache_status
+        self.cache_note = note
         self.dirty = dirty
 
     def _install_loaded(self, state: SessionState, results=None, stability=None, stability_alphas=None,

@@ -127,7 +127,7 @@ JSON_VALUES = st.recursive(
     | st.text(max_size=12) | st.sampled_from(["", "nan", "ols", "ridge", "day_temp_c", "categorical", "$array"])
     # Tagged nodes of the result encoding, so the decoder's own checks are reached.
     | st.sampled_from([{"$array": "results/a00001.npy"}, {"$tuple": []}, {"$tuple": [1, "x"]}, {"$float": "nan"},
-                       {"$dict": []}, {"$dict": [[{"$tuple": []}, 1]]}, {"$type": "regbench.models.results:LinearModel",
+                       {"$dict": []}, {"$dict": [[{"$tuple": []}, 1]]}, {"$type": "linear-model",
                                                                      "fields": {}}]),
     lambda inner: st.lists(inner, max_size=3) | st.dictionaries(st.text(max_size=8), inner, max_size=3),
     max_leaves=6,

@@ -1,4 +1,4 @@
-"""A generic, code-free serializer for the frozen result dataclasses.
+"""A code-free serializer for the frozen result dataclasses, under stable stored names.
 
 Arrays go to ``.npy`` members (written and read with ``allow_pickle=False``);
 everything else becomes a JSON tree with a few tagged nodes::
@@ -7,10 +7,20 @@ everything else becomes a JSON tree with a few tagged nodes::
     {"$tuple": [...]}                         a tuple
     {"$dict": [[key, value], ...]}            a dict (keys of any storable kind, order kept)
     {"$float": "nan" | "inf" | "-inf"}        a float JSON cannot spell
-    {"$type": "module:Class", "fields": {}}   a frozen dataclass
+    {"$type": "linear-model", "fields": {}}   a result object, by its stored name
 
-Reading only ever builds dataclasses from an allow-list of regbench modules,
-checks each field against its annotation, and never runs code from the file.
+Each result class is stored under the name :data:`STORED_TYPES` gives it (the
+list in FORMAT.md), never under its Python module or class name, so moving or
+renaming a class in the code does not change the file.  A field is stored
+under its name unless its declaration says otherwise
+(``field(metadata={"stored_as": "old_name"})`` keeps the stored name when
+the field is renamed).
+
+The cache is only a cache: a tree this version cannot rebuild (an unknown
+stored type, a missing or extra field, a value of another type) raises
+:class:`StaleCache`, and the loader fits again instead of refusing the
+project.  Reading builds only the listed classes, checks each field against
+its annotation, and never runs code from the file.
 """
 
 from __future__ import annotations
@@ -25,11 +35,57 @@ import numpy as np
 
 from regbench.errors import DataError, ModelError, ProjectError
 
-#: Modules whose dataclasses may appear in cached results.
-_MODULE_RE = re.compile(r"^regbench\.(models|analysis)\.[a-z_][a-z0-9_]*$")
-_EXTRA_MODULES = frozenset({"regbench.data.design", "regbench.session"})
+#: Stored name -> "module:Class" of every result class a cache may hold.  The stored names
+#: are part of the file format (FORMAT.md): never change one; point it at the moved class.
+STORED_TYPES = {
+    "fit-results": "regbench.models.results:FitResults",
+    "settings": "regbench.models.results:FitSettings",
+    "linear-model": "regbench.models.results:LinearModel",
+    "ols-fit": "regbench.models.results:OLSResult",
+    "set-aside": "regbench.models.results:SetAside",
+    "collinearity": "regbench.models.results:Diagnostics",
+    "near-dependency": "regbench.models.results:NearDependency",
+    "penalty-path": "regbench.models.results:PathResult",
+    "cross-validation": "regbench.models.results:CVResult",
+    "penalized-fit": "regbench.models.results:PenalizedFit",
+    "agreement": "regbench.analysis.agreement:Agreement",
+    "pair-agreement": "regbench.analysis.agreement:PairAgreement",
+    "structure": "regbench.analysis.structure:Structure",
+    "collinear-set": "regbench.analysis.structure:CollinearSet",
+    "sign-flip": "regbench.analysis.structure:SignFlip",
+    "stress-test": "regbench.analysis.stress:StressConfig",
+    "stress-result": "regbench.analysis.stress:StressResult",
+    "model-shift": "regbench.analysis.stress:ModelShift",
+    "stress-sweep": "regbench.analysis.stress:StressSweep",
+    "column-ranking": "regbench.analysis.stress:ColumnRanking",
+    "stability": "regbench.analysis.stability:Stability",
+}
+_STORED_NAME = {path: name for name, path in STORED_TYPES.items()}
 _NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 MAX_DEPTH = 64
+
+
+class StaleCache(ProjectError):
+    """The cached results were written by another version of the engine or its result classes."""
+
+
+class Unstorable(ProjectError):
+    """A value has no stored form (a class missing from STORED_TYPES, an object array)."""
+
+
+def stored_name(f: dataclasses.Field) -> str:
+    """The name a field is stored under (its own name unless declared otherwise)."""
+    return f.metadata.get("stored_as", f.name)
+
+
+def _class_of(name: str):
+    """The class a stored name stands for, or None when this version has none."""
+    path = STORED_TYPES.get(name)
+    if path is None:
+        return None
+    module, qual = path.split(":")
+    cls = getattr(importlib.import_module(module), qual, None)
+    return cls if isinstance(cls, type) and dataclasses.is_dataclass(cls) else None
 
 
 def _skip_field(f: dataclasses.Field) -> bool:
@@ -61,7 +117,7 @@ class Encoder:
             return x
         if isinstance(obj, np.ndarray):
             if obj.dtype.hasobject:
-                raise ProjectError(f"cannot store {where}: an array of Python objects has no safe file form")
+                raise Unstorable(f"cannot store {where}: an array of Python objects has no safe file form")
             name = f"{self.prefix}a{len(self.arrays):05d}.npy"
             buf = io.BytesIO()
             np.save(buf, np.ascontiguousarray(obj), allow_pickle=False)
@@ -76,16 +132,16 @@ class Encoder:
                               for k, v in obj.items()]}
         if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
             cls = type(obj)
-            module = cls.__module__
-            if not (_MODULE_RE.match(module) or module in _EXTRA_MODULES):
-                raise ProjectError(f"cannot store {where}: {cls.__name__} is not a regbench result")
+            name = _STORED_NAME.get(f"{cls.__module__}:{cls.__qualname__}")
+            if name is None:
+                raise Unstorable(f"cannot store {where}: {cls.__name__} has no stored name (codec.STORED_TYPES)")
             fields = {}
             for f in dataclasses.fields(obj):
                 if _skip_field(f):
                     continue
-                fields[f.name] = self.encode(getattr(obj, f.name), f"{where}.{f.name}")
-            return {"$type": f"{module}:{cls.__qualname__}", "fields": fields}
-        raise ProjectError(f"cannot store {where}: values of type {type(obj).__name__} have no file form")
+                fields[stored_name(f)] = self.encode(getattr(obj, f.name), f"{where}.{f.name}")
+            return {"$type": name, "fields": fields}
+        raise Unstorable(f"cannot store {where}: values of type {type(obj).__name__} have no file form")
 
 
 class Decoder:
@@ -105,10 +161,7 @@ class Decoder:
         self.used: set = set()
 
     def fail(self, where: str, what: str):
-        raise ProjectError(
-            f"{self.member}: field {where}: {what}; the cached results are damaged — "
-            "delete the results from the project (save it again from a fresh fit) or re-create it with 'regbench new'"
-        )
+        raise StaleCache(f"{self.member}: field {where}: {what}")
 
     def decode(self, node, where: str = "results", depth: int = 0):
         if depth > MAX_DEPTH:
@@ -155,37 +208,31 @@ class Decoder:
         self.fail(where, f"unknown object with keys {sorted(node)[:5]}")
 
     def _dataclass(self, node, where, depth):
-        spec = node["$type"]
+        name = node["$type"]
         fields = node["fields"]
-        if not isinstance(spec, str) or spec.count(":") != 1:
-            self.fail(where, f"'$type' {spec!r} is not 'module:Class'")
-        module, qual = spec.split(":")
-        if not (_MODULE_RE.match(module) or module in _EXTRA_MODULES) or not _NAME_RE.match(qual):
-            self.fail(where, f"'$type' {spec!r} is not a regbench result type")
-        try:
-            mod = importlib.import_module(module)
-        except ImportError:
-            self.fail(where, f"'$type' {spec!r}: this regbench has no module {module}")
-        cls = getattr(mod, qual, None)
-        if not (isinstance(cls, type) and dataclasses.is_dataclass(cls) and cls.__module__ == module):
-            self.fail(where, f"'$type' {spec!r}: this regbench has no result type {qual}")
+        if not isinstance(name, str):
+            self.fail(where, f"'$type' {name!r} is not a stored type name")
+        cls = _class_of(name)
+        if cls is None:
+            self.fail(where, f"holds a kind of result this version does not know ('{name}')")
+        qual = name
         if not isinstance(fields, dict):
             self.fail(where, "'fields' must be an object")
-        known = {f.name: f for f in dataclasses.fields(cls)}
+        known = {stored_name(f): f for f in dataclasses.fields(cls) if not _skip_field(f)}
         unknown = set(fields) - set(known)
         if unknown:
-            self.fail(where, f"{qual} has no field(s) {', '.join(sorted(unknown))}")
+            self.fail(where, f"'{qual}' has no field(s) {', '.join(sorted(map(str, unknown)))} in this version")
         kwargs = {}
-        for name, f in known.items():
+        for key, f in known.items():
             if not f.init:
                 continue
-            if name not in fields:
+            if key not in fields:
                 if f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING:
-                    self.fail(f"{where}.{name}", f"missing (required by {qual})")
+                    self.fail(f"{where}.{key}", f"missing (this version's '{qual}' needs it)")
                 continue
-            value = self.decode(fields[name], f"{where}.{name}", depth + 1)
-            _check_annotation(self, f"{where}.{name}", f.type, value)
-            kwargs[name] = value
+            value = self.decode(fields[key], f"{where}.{key}", depth + 1)
+            _check_annotation(self, f"{where}.{key}", f.type, value)
+            kwargs[f.name] = value
         try:
             return cls(**kwargs)
         except (TypeError, ValueError, OverflowError, DataError, ModelError) as exc:

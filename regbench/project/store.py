@@ -102,27 +102,12 @@ def save_project(session, path) -> None:
     ProjectError
         When the folder does not exist or cannot be written, or a result cannot be stored.
     """
-    from regbench.project.codec import Encoder
-
     path = os.fspath(path)
     members = []  # (name, bytes, compress)
     table_bytes = table_to_parquet(session.table)
     members.append((TABLE, table_bytes, zipfile.ZIP_STORED))
     members.append((SESSION, _dumps(session_document(session)), zipfile.ZIP_DEFLATED))
-    if session.results is not None:
-        enc = Encoder(RESULTS_DIR)
-        doc = {
-            "table_fingerprint": session.table_hash,
-            "settings_sha256": session.settings_hash(),
-            "key": session.key(),
-            "fit": enc.encode(session.results, "results"),
-            "derived": enc.encode(session.derived_results(), "derived"),
-            "stability": enc.encode(session.stability, "stability"),
-            "stability_alphas": {k: float(v) for k, v in session.stability_alphas.items()},
-        }
-        members.append((RESULTS, _dumps(doc), zipfile.ZIP_DEFLATED))
-        for name, data in enc.arrays:
-            members.append((name, data, zipfile.ZIP_DEFLATED))
+    members.extend(_results_members(session) if session.results is not None else [])
     saved = _now()
     manifest = {
         "format": FORMAT_NAME,
@@ -142,6 +127,31 @@ def save_project(session, path) -> None:
                 info.external_attr = 0o644 << 16
                 zf.writestr(info, data)
     session.mark_saved(path, manifest["created"], saved)
+
+
+def _results_members(session) -> list:
+    """results.json and its arrays; none when a result has no stored form (the cache is optional:
+    the project is saved whole and is fitted again on opening)."""
+    from regbench.models import ENGINE_VERSION
+    from regbench.project.codec import Encoder, Unstorable
+
+    enc = Encoder(RESULTS_DIR)
+    try:
+        doc = {
+            "engine_version": ENGINE_VERSION,
+            "table_fingerprint": session.table_hash,
+            "settings_sha256": session.settings_hash(),
+            "key": session.key(),
+            "fit": enc.encode(session.results, "results"),
+            "derived": enc.encode(session.derived_results(), "derived"),
+            "stability": enc.encode(session.stability, "stability"),
+            "stability_alphas": {k: float(v) for k, v in session.stability_alphas.items()},
+        }
+    except Unstorable:
+        return []
+    members = [(RESULTS, _dumps(doc), zipfile.ZIP_DEFLATED)]
+    members.extend((name, data, zipfile.ZIP_DEFLATED) for name, data in enc.arrays)
+    return members
 
 
 def session_document(session) -> dict:
@@ -612,41 +622,65 @@ def _session_state(ar: _Archive, doc, table):
 # -- cached results ------------------------------------------------------------------------
 
 def _load_results(ar, m, session, migrated: bool):
-    """Install cached results when they belong to this table and these settings."""
-    from regbench.project.codec import Decoder
+    """Install cached results when they belong to this table, these settings and this engine.
 
+    Returns ``(status, note)``: status 'none' (no cache), 'used' or 'stale'; note is
+    one line for the person when a cache was there but not used.  A cache this
+    version cannot read is stale, never a reason to refuse the project: the table
+    and settings are intact, so the session is simply fitted again.  Only a member
+    whose bytes differ from the manifest (a damaged file) is refused.
+    """
     if RESULTS not in m["_members"]:
-        return "none"
-    doc = ar.json(RESULTS, _read_checked(ar, m, RESULTS, JSON_LIMITS[RESULTS]))
+        return "none", None
+    raw = _read_checked(ar, m, RESULTS, JSON_LIMITS[RESULTS])
+    blobs = {name: _read_checked(ar, m, name) for name in m["_members"] if name.startswith(RESULTS_DIR)}
+    try:
+        reason = _install_cache(ar, session, migrated, raw, blobs)
+    except ProjectError as exc:
+        reason = str(exc).replace(f"{ar.label}: ", "", 1)
+    if reason is None:
+        return "used", None
+    return "stale", f"{ar.label}: the saved results were not used ({reason}); the models are fitted again"
+
+
+def _install_cache(ar, session, migrated, raw: bytes, blobs: dict):
+    """Decode and install the cache; returns why it does not apply, or None once installed."""
+    from regbench.models import ENGINE_VERSION
+    from regbench.project.checks import check_derived, check_fit, check_stability, guarded
+    from regbench.project.codec import Decoder, StaleCache
+
+    doc = ar.json(RESULTS, raw)
     if not isinstance(doc, dict):
-        raise ProjectError(f"{ar.label}: results.json: the top level must be an object; the file is damaged")
+        return "results.json is not an object"
     for key in ("table_fingerprint", "settings_sha256", "key"):
         if not isinstance(doc.get(key), str):
-            raise ProjectError(f"{ar.label}: results.json: field {key} is missing or not text; the file is damaged")
-    if migrated or doc["table_fingerprint"] != session.table_hash or doc["settings_sha256"] != session.settings_hash():
-        return "stale"
+            return f"results.json field {key} is missing or not text"
+    if migrated:
+        return "they come from an older project format"
+    version = doc.get("engine_version")
+    if version != ENGINE_VERSION:
+        return (f"they were computed by engine version {version}, this is {ENGINE_VERSION}" if version is not None
+                else "they were computed by an engine without a version")
+    if doc["table_fingerprint"] != session.table_hash:
+        return "the table differs from the one they were computed on"
+    if doc["settings_sha256"] != session.settings_hash():
+        return "the roles or settings differ from the ones they were computed with"
     arrays = {}
-    for name in m["_members"]:
-        if name.startswith(RESULTS_DIR):
-            data = _read_checked(ar, m, name)
-            try:
-                arrays[name] = np.load(io.BytesIO(data), allow_pickle=False)
-            except Exception as exc:  # numpy raises ValueError/OSError/EOFError/... on bad headers
-                raise ProjectError(f"{ar.label}: member '{name}' is not a readable array ({type(exc).__name__}); "
-                                   "the file is damaged") from None
-            if not isinstance(arrays[name], np.ndarray):
-                raise ProjectError(f"{ar.label}: member '{name}' is not a single array; the file is damaged")
-    from regbench.project.checks import check_derived, check_fit, check_stability, guarded
-
-    dec = Decoder(arrays, f"{ar.label}: results.json")
+    for name, data in blobs.items():
+        try:
+            arrays[name] = np.load(io.BytesIO(data), allow_pickle=False)
+        except Exception as exc:  # numpy raises ValueError/OSError/EOFError/... on bad headers
+            raise StaleCache(f"member '{name}' is not a readable array ({type(exc).__name__})") from None
+        if not isinstance(arrays[name], np.ndarray):
+            raise StaleCache(f"member '{name}' is not a single array")
+    dec = Decoder(arrays, "results.json")
     results = dec.decode(doc.get("fit"), "fit")
     guarded(ar.label, check_fit, results, session.design)
     results = _restore_engine_cache(session.design, results)
     stab_alphas = doc.get("stability_alphas", {})
     if not (isinstance(stab_alphas, dict) and all(isinstance(v, (int, float)) and not isinstance(v, bool)
                                                   for v in stab_alphas.values())):
-        raise ProjectError(f"{ar.label}: results.json: field stability_alphas must map model names to numbers; "
-                           "the file is damaged")
+        raise StaleCache("results.json: field stability_alphas must map model names to numbers")
     stability = dec.decode(doc.get("stability"), "stability")
     if stability is not None:
         guarded(ar.label, check_stability, stability, session.design)
@@ -656,7 +690,7 @@ def _load_results(ar, m, session, migrated: bool):
         guarded(ar.label, check_derived, derived, session.design, len(session.stress_configs))
     # Stability is kept even when computed at another α; Session.stability_current says so.
     session.install_cached(results, stability, {k: float(v) for k, v in stab_alphas.items()}, derived)
-    return "used"
+    return None
 
 
 def _restore_engine_cache(design, results):
@@ -708,13 +742,13 @@ def load_project(path, compute: bool = True, progress=None, cancel=None):
         # The design checked here serves the session too: a table is coded once per opening.
         state, design = _session_state(ar, doc, table)
         session = Session.from_state(table, state, design=design)
-        status = _load_results(ar, m, session, migrated)
+        status, note = _load_results(ar, m, session, migrated)
     finally:
         ar.close()
     if session.results is None and compute:
         session.compute(progress=progress, cancel=cancel)
     session.mark_loaded(os.fspath(path), m["created"], m["saved"], status,
-                        dirty=migrated or (status == "stale" and session.results is not None))
+                        dirty=migrated or (status == "stale" and session.results is not None), note=note)
     return session
 
 
