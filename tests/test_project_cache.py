@@ -184,3 +184,21 @@ def test_every_stored_type_is_a_result_class_and_documented():
             if f.compare:
                 assert re.search(rf"`{name}`[^\n]*\b{re.escape(stored_name(f))}\b", FORMAT), \
                     f"FORMAT.md does not list field {stored_name(f)} of {name}"
+
+
+def test_results_compare_by_value_after_a_round_trip(saved):
+    original, path = saved
+    loaded = load_project(path, compute=False)
+    # == on result objects compares arrays by value (a plain dataclass == would raise on them).
+    assert loaded.results == original.results
+    assert loaded.stability == original.stability
+    assert loaded.agreement() == original.agreement() and loaded.structure() == original.structure()
+    assert loaded.stress_results() == original.stress_results()
+    ridge = original.models()["ridge"]
+    moved = dataclasses.replace(ridge, coef=ridge.coef + np.where(np.arange(ridge.coef.size) == 0, 1e-9, 0.0))
+    assert moved != ridge and dataclasses.replace(ridge) == ridge
+    # Columns are found by name.
+    c = ridge.columns[1]
+    assert ridge.coef[ridge.index(c)] == ridge.by_column(ridge.coef)[c]
+    with pytest.raises(KeyError, match="not a column of this result"):
+        ridge.index("no such column")

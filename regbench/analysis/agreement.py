@@ -23,7 +23,7 @@ from typing import Optional
 import numpy as np
 
 from regbench.errors import DataError
-from regbench.models.results import model_label
+from regbench.models.results import Result, model_label
 
 #: Pair RMS difference below this share of the smaller own error: "practically the same predictions".
 TINY_SHARE = 0.10
@@ -96,8 +96,8 @@ def json_number(x):
 # -- results ------------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class PairAgreement:
+@dataclass(frozen=True, eq=False)
+class PairAgreement(Result):
     """How closely two models' predictions agree on one split ('training' or 'held_out').
 
     ``rmse``, ``mean_diff`` and the limits are of ``a − b``; all weighted.
@@ -121,8 +121,8 @@ class PairAgreement:
         }
 
 
-@dataclass(frozen=True)
-class Agreement:
+@dataclass(frozen=True, eq=False)
+class Agreement(Result):
     """Agreement between every pair of models.
 
     Attributes

@@ -28,7 +28,7 @@ import numpy as np
 
 from regbench.analysis.agreement import in_sentence, json_number
 from regbench.errors import DataError, ModelError
-from regbench.models.results import model_label
+from regbench.models.results import Result, model_label
 from regbench.progress import check, report
 
 #: Selected in at least this share of refits: a stable choice (our threshold).
@@ -37,8 +37,8 @@ STABLE_SHARE = 0.95
 TOSS_UP = (0.2, 0.8)
 
 
-@dataclass(frozen=True)
-class Stability:
+@dataclass(frozen=True, eq=False)
+class Stability(Result):
     """Bootstrap refits of every model at fixed α.
 
     Attributes

@@ -39,7 +39,7 @@ import numpy as np
 
 from regbench.analysis.agreement import fmt, in_sentence, json_number, weighted_mean, weighted_rms, weighted_sd
 from regbench.errors import DataError
-from regbench.models.results import model_label
+from regbench.models.results import Result, model_label
 from regbench.progress import check, report
 
 KINDS = ("shuffle", "noise", "constant", "rescale", "wild", "missing")
@@ -134,8 +134,8 @@ class StressConfig:
                    seed=int(d.get("seed", 0)), tolerance=num("tolerance"), fill=num("fill"))
 
 
-@dataclass(frozen=True)
-class ModelShift:
+@dataclass(frozen=True, eq=False)
+class ModelShift(Result):
     """How one model's predictions moved (all weighted).
 
     ``shift_rmse`` and ``mean_shift`` are of damaged − clean predictions;
@@ -158,8 +158,8 @@ class ModelShift:
         return d
 
 
-@dataclass(frozen=True)
-class StressResult:
+@dataclass(frozen=True, eq=False)
+class StressResult(Result):
     """One stress test.
 
     Attributes
@@ -206,8 +206,8 @@ class StressResult:
         }
 
 
-@dataclass(frozen=True)
-class StressSweep:
+@dataclass(frozen=True, eq=False)
+class StressSweep(Result):
     """Shift and error per model over a range of strengths of one kind of damage."""
 
     column: str
@@ -230,8 +230,8 @@ class StressSweep:
                 "sentences": list(self.sentences)}
 
 
-@dataclass(frozen=True)
-class ColumnRanking:
+@dataclass(frozen=True, eq=False)
+class ColumnRanking(Result):
     """Each source column damaged in turn: how far each model moves.
 
     ``shift_rmse`` and ``error_damaged`` are (models × columns); ``order`` gives,
@@ -608,15 +608,16 @@ def rank_columns(design, models: dict, kind: str = "shuffle", strength: Optional
         order[k] = tuple(columns[j] for j in np.argsort(-key, kind="stable"))
     sentences = []
     for i, k in enumerate(names):
-        top = [c for c in order[k][:3] if shift[i, columns.index(c)] != 0.0]
-        zero = [c for j, c in enumerate(columns) if shift[i, j] == 0.0]
+        moved = dict(zip(columns, shift[i]))  # column -> RMS shift of this model
+        top = [c for c in order[k][:3] if moved[c] != 0.0]
+        zero = [c for c in columns if moved[c] == 0.0]
         if not top:
             sentences.append(f"{model_label(k)} does not move whichever column is {_PARTICIPLE[kind]}.")
             continue
         first = top[0]
-        txt = f"{model_label(k)} moves most when {first} is {_PARTICIPLE[kind]} ({fmt(shift[i, columns.index(first)])} RMS)"
+        txt = f"{model_label(k)} moves most when {first} is {_PARTICIPLE[kind]} ({fmt(moved[first])} RMS)"
         if len(top) > 1:
-            txt += ", then " + _join(f"{c} ({fmt(shift[i, columns.index(c)])})" for c in top[1:])
+            txt += ", then " + _join(f"{c} ({fmt(moved[c])})" for c in top[1:])
         if zero:
             txt += f"; it does not move at all for {len(zero)} column{'s' if len(zero) != 1 else ''} it does not use"
         sentences.append(txt + ".")

@@ -20,13 +20,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from regbench.analysis.agreement import in_sentence
-from regbench.models.results import model_label
+from regbench.models.results import Result, model_label
 
 _NUMBER_WORDS = {2: "two", 3: "three", 4: "four", 5: "five", 6: "six", 7: "seven", 8: "eight", 9: "nine", 10: "ten"}
 
 
-@dataclass(frozen=True)
-class SignFlip:
+@dataclass(frozen=True, eq=False)
+class SignFlip(Result):
     """A column whose coefficient is positive in some models and negative in others."""
 
     column: str
@@ -37,8 +37,8 @@ class SignFlip:
         return {"column": self.column, "positive": list(self.positive), "negative": list(self.negative)}
 
 
-@dataclass(frozen=True)
-class CollinearSet:
+@dataclass(frozen=True, eq=False)
+class CollinearSet(Result):
     """One connected group of overlapping columns and each model's spread of weight over it.
 
     Attributes
@@ -73,8 +73,8 @@ class CollinearSet:
         }
 
 
-@dataclass(frozen=True)
-class Structure:
+@dataclass(frozen=True, eq=False)
+class Structure(Result):
     """Coefficients of every model side by side.
 
     Attributes

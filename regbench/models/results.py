@@ -15,14 +15,62 @@ SD and W = sum_i w_i; rho = 0 is ridge, rho = 1 lasso, in between elastic net.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
-from typing import Optional, Tuple
+from dataclasses import dataclass, field, fields
+from typing import TYPE_CHECKING, Dict, Optional, Tuple
 
 import numpy as np
 
 from regbench.errors import DataError
 from regbench.models import spec
 from regbench.models.spec import Choice, Flag, ListOf, Number, OrNone, PerColumn, Text, Whole, setting
+
+if TYPE_CHECKING:  # the engine's cache type; imported for annotations only
+    from regbench.models.gram import GramStats
+
+
+def same_value(a, b) -> bool:
+    """Deep equality for result values: arrays by shape and value (NaN equals NaN), floats with
+    NaN equal to NaN, containers and result objects item by item."""
+    if isinstance(a, np.ndarray) or isinstance(b, np.ndarray):
+        if not (isinstance(a, np.ndarray) and isinstance(b, np.ndarray)) or a.shape != b.shape:
+            return False
+        try:
+            return bool(np.array_equal(a, b, equal_nan=True))
+        except TypeError:  # equal_nan on a non-numeric dtype
+            return bool(np.array_equal(a, b))
+    if isinstance(a, (tuple, list)) or isinstance(b, (tuple, list)):
+        return type(a) is type(b) and len(a) == len(b) and all(same_value(x, y) for x, y in zip(a, b))
+    if isinstance(a, dict) or isinstance(b, dict):
+        return (isinstance(a, dict) and isinstance(b, dict) and list(a) == list(b)
+                and all(same_value(a[k], b[k]) for k in a))
+    if isinstance(a, float) and isinstance(b, float) and a != a and b != b:
+        return True
+    return bool(a == b)
+
+
+class Result:
+    """Base of the result objects: ``==`` compares field by field (arrays by value, NaN equal
+    to NaN; fields declared ``compare=False`` are left out), and columns are found by name."""
+
+    __hash__ = None  # equal by value, and they hold arrays: not usable as keys
+
+    def __eq__(self, other):
+        if type(other) is not type(self):
+            return NotImplemented
+        return all(same_value(getattr(self, f.name), getattr(other, f.name)) for f in fields(self) if f.compare)
+
+    def index(self, column: str) -> int:
+        """Position of ``column`` in this result's ``columns``; names the known columns when absent."""
+        try:
+            return self.columns.index(column)
+        except ValueError:
+            raise KeyError(f"'{column}' is not a column of this result; its columns are: "
+                           f"{', '.join(self.columns)}") from None
+
+    def by_column(self, values) -> Dict[str, object]:
+        """column -> value for an array laid out like ``columns``."""
+        return dict(zip(self.columns, values))
+
 
 #: Names of the four model families, in the order every view lists them.
 MODEL_NAMES = ("ols", "ridge", "lasso", "elastic_net")
@@ -165,8 +213,8 @@ class FitSettings:
         return self
 
 
-@dataclass(frozen=True)
-class LinearModel:
+@dataclass(frozen=True, eq=False)
+class LinearModel(Result):
     """A fitted linear predictor in original units: ``intercept + X @ coef``.
 
     Attributes
@@ -185,7 +233,7 @@ class LinearModel:
     """
 
     name: str
-    columns: tuple
+    columns: Tuple[str, ...]
     intercept: float
     coef: np.ndarray
     coef_std: np.ndarray
@@ -217,8 +265,8 @@ class LinearModel:
         return self.intercept + X[:, used] @ self.coef[used]
 
 
-@dataclass(frozen=True)
-class SetAside:
+@dataclass(frozen=True, eq=False)
+class SetAside(Result):
     """A column OLS set aside because the kept columns reproduce it.
 
     ``column ≈ intercept + Σ combination[c] · c`` over kept columns c, with
@@ -231,10 +279,10 @@ class SetAside:
     """
 
     column: str
-    combination: dict
+    combination: Dict[str, float]
     intercept: float
     residual: float
-    alternatives: tuple
+    alternatives: Tuple[str, ...]
     relative_residual: float = 0.0
     exact: bool = True
     #: Why it was set aside: 'combination' (kept columns reproduce it), 'category' (it takes
@@ -265,17 +313,17 @@ class SetAside:
         }
 
 
-@dataclass(frozen=True)
-class OLSResult:
+@dataclass(frozen=True, eq=False)
+class OLSResult(Result):
     """Weighted OLS by column-pivoted QR, with inference on the kept columns.
 
     Arrays are over all design ``columns``; set-aside columns hold coef 0.0 and
     NaN in std_errors, t_values, p_values, ci_low, ci_high.
     """
 
-    columns: tuple
-    kept: tuple
-    set_aside: tuple  # of SetAside
+    columns: Tuple[str, ...]
+    kept: Tuple[str, ...]
+    set_aside: Tuple[SetAside, ...]
     intercept: float
     intercept_se: float
     coef: np.ndarray
@@ -327,19 +375,19 @@ class OLSResult:
         return v
 
 
-@dataclass(frozen=True)
-class NearDependency:
+@dataclass(frozen=True, eq=False)
+class NearDependency(Result):
     """A strongly collinear column and the few others that explain it."""
 
     column: str
     vif: float
-    explained_by: tuple  # column names
+    explained_by: Tuple[str, ...]  # column names
     r_squared: float  # R² those columns reach when predicting ``column``
     sentence: str
 
 
-@dataclass(frozen=True)
-class Diagnostics:
+@dataclass(frozen=True, eq=False)
+class Diagnostics(Result):
     """Collinearity diagnostics on the kept columns.
 
     Attributes
@@ -363,18 +411,18 @@ class Diagnostics:
         Plain-language summary.
     """
 
-    columns: tuple
+    columns: Tuple[str, ...]
     vif: np.ndarray
     condition_indices: np.ndarray
     variance_proportions: np.ndarray
-    terms: tuple
-    near_dependencies: tuple
-    damaging: tuple
-    sentences: tuple
+    terms: Tuple[str, ...]
+    near_dependencies: Tuple[NearDependency, ...]
+    damaging: Tuple[dict, ...]
+    sentences: Tuple[str, ...]
 
 
-@dataclass(frozen=True)
-class PathResult:
+@dataclass(frozen=True, eq=False)
+class PathResult(Result):
     """Coefficients along a penalty path (α descending)."""
 
     name: str
@@ -383,11 +431,11 @@ class PathResult:
     coef: np.ndarray  # (k, p) original units
     coef_std: np.ndarray  # (k, p) standardized
     intercepts: np.ndarray  # (k,)
-    columns: tuple
+    columns: Tuple[str, ...]
 
 
-@dataclass(frozen=True)
-class CVResult:
+@dataclass(frozen=True, eq=False)
+class CVResult(Result):
     """Cross-validated error per α: weighted mean squared error over held-out rows."""
 
     alphas: np.ndarray
@@ -401,8 +449,8 @@ class CVResult:
     at_edge: bool = False
 
 
-@dataclass(frozen=True)
-class Convergence:
+@dataclass(frozen=True, eq=False)
+class Convergence(Result):
     """The duality-gap certificate of one penalized family.
 
     A duality gap bounds how far a fit's objective is above the true optimum;
@@ -445,8 +493,8 @@ class Convergence:
                 "optimum. Refit, or report the problem with the table.")
 
 
-@dataclass(frozen=True)
-class RelaxationCV:
+@dataclass(frozen=True, eq=False)
+class RelaxationCV(Result):
     """Cross-validated error of a relaxed family over (relaxation γ, α), on the same folds as α.
 
     ``mean`` and ``se`` have shape (len(relaxations), len(alphas)).
@@ -458,8 +506,8 @@ class RelaxationCV:
     se: np.ndarray
 
 
-@dataclass(frozen=True)
-class PenalizedFit:
+@dataclass(frozen=True, eq=False)
+class PenalizedFit(Result):
     """One penalized model family: its path, its CV curve and the chosen model."""
 
     name: str
@@ -476,18 +524,19 @@ class PenalizedFit:
     relaxation_cv: Optional[RelaxationCV] = None
 
 
-@dataclass(frozen=True)
-class FitResults:
+@dataclass(frozen=True, eq=False)
+class FitResults(Result):
     """Everything one ``fit_all`` produced on one design."""
 
-    columns: tuple
+    columns: Tuple[str, ...]
     settings: FitSettings
     ols: OLSResult
     diagnostics: Diagnostics
-    penalized: dict  # name -> PenalizedFit
+    penalized: Dict[str, PenalizedFit]  # model name -> fit, in display order
     fold_ids: np.ndarray  # (n,) fold of each design row, 0..K-1
     n_obs: int
-    gram: object = field(default=None, repr=False, compare=False)  # models.gram.GramStats
+    #: The engine's per-fold cross-products (not stored in a project; rebuilt on load).
+    gram: Optional[GramStats] = field(default=None, repr=False, compare=False)
 
     def models(self) -> dict:
         """name -> LinearModel for OLS and every penalized model, in display order."""

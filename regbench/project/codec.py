@@ -246,6 +246,10 @@ _SIMPLE = {
 }
 
 
+_GENERIC_OUTER = {"Tuple": "tuple", "tuple": "tuple", "Dict": "dict", "dict": "dict", "Mapping": "dict",
+                  "List": "list", "list": "list"}
+
+
 _TYPING_NAMES = frozenset({"Any", "Tuple", "Dict", "List", "Sequence", "Mapping", "Iterable", "Union", "Callable"})
 
 
@@ -263,6 +267,9 @@ def _check_annotation(dec: Decoder, where: str, annotation, value) -> None:
         ann, optional = ann[: -len("|None")], True
     elif ann.startswith("None|"):
         ann, optional = ann[len("None|"):], True
+    generic = re.fullmatch(r"([A-Za-z_.]+)\[.*\]", ann)
+    if generic:  # Tuple[X, ...], Dict[K, V], ...: the container is checked, not its items
+        ann = _GENERIC_OUTER.get(generic.group(1), "object")
     if value is None:
         if optional or ann in ("object", "Any", "None"):
             return
