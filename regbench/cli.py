@@ -301,7 +301,8 @@ def _stream_fit(args, settings, budget, cluster):
 
 def cmd_fit(args) -> int:
     settings = settings_from_args(args)
-    from regbench.models.export import fit_summary_text, fit_to_json
+    from regbench.models.export import fit_to_json
+    from regbench.sentences import fit_summary_text
 
     route = _out_of_memory_route(args)
     if route is not None:
@@ -348,7 +349,10 @@ def cmd_stress(args) -> int:
     if args.json:
         write_json(out["json"], args.json)
     else:
-        sys.stdout.write(out["text"] + "\n")
+        from regbench.sentences import ranking_text, stress_text
+
+        text = ranking_text(design, out["result"]) if args.all_columns else stress_text(design, out["result"])
+        sys.stdout.write(text + "\n")
     return EXIT_OK
 
 
@@ -377,7 +381,8 @@ def cmd_new(args) -> int:
 
 
 def cmd_inspect(args) -> int:
-    from regbench.project import inspect_project, inspect_text
+    from regbench.project import inspect_project
+    from regbench.sentences import inspect_text
 
     info = inspect_project(args.project)
     if args.json:

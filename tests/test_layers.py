@@ -76,3 +76,23 @@ def test_observers_hear_one_event_per_kind_of_change(tmp_path):
     save_project(s, tmp_path / "p.regbench")
     assert heard == ["results", "alpha", "derived", "notes", "undo", "saved"]
     assert all(e in EVENTS for e in heard)
+
+
+def test_numbers_and_word_lists_for_people_have_one_home():
+    from regbench.formatting import MISSING, join_words, number_text, percent, sentence_number
+
+    # The helpers themselves (values by hand: the format rules stated in formatting.py).
+    assert join_words([]) == "" and join_words(["a"]) == "a" and join_words(["a", "b"], "or") == "a or b"
+    assert join_words(["a", "b", "c"]) == "a, b and c"
+    assert number_text(float("nan")) == MISSING and percent(float("inf")) == MISSING and percent(0.125) == "12.5%"
+    assert sentence_number(float("nan")) == "undefined" and sentence_number(0.0123456) == "0.0123"
+    assert number_text(-0.5, unicode_minus=True) == "−0.5" and number_text(2e-5, 3) == "2.00e-05"
+    # No other module writes its own word-joiner or missing-number mark.
+    defs = []
+    for path in PKG.rglob("*.py"):
+        if path.name in ("formatting.py", "ols.py"):  # ols.py's set-aside sentences are still its own
+            continue
+        src = _source(path)
+        defs += [f"{path.name}: def {m}" for m in re.findall(r"^def (_join|join_words|_fmt|fmt)\(", src, re.M)]
+        defs += [f"{path.name}: {m}" for m in re.findall(r'"[—–]"', src) if path.name != "sentences.py"]
+    assert defs == [], defs

@@ -23,6 +23,7 @@ from typing import Optional
 import numpy as np
 
 from regbench.errors import DataError
+from regbench.formatting import sentence_number
 from regbench.models.results import Result, model_label
 
 #: Pair RMS difference below this share of the smaller own error: "practically the same predictions".
@@ -69,15 +70,6 @@ def weighted_corr(a: np.ndarray, b: np.ndarray, w: np.ndarray) -> float:
     if not (saa > 0 and sbb > 0):
         return float("nan")
     return float(np.clip((wn * da * db).sum() / np.sqrt(saa * sbb), -1.0, 1.0))
-
-
-def fmt(x: float) -> str:
-    """A number for a sentence: three significant digits."""
-    if x is None or not np.isfinite(x):
-        return "undefined"
-    if x == 0:
-        return "0"
-    return f"{x:.3g}"
 
 
 def in_sentence(label: str) -> str:
@@ -249,7 +241,7 @@ def _sentences(design, names, pairs, own, units, tiny_share) -> tuple:
     out = []
     if len(names) < 2:
         k = names[0]
-        return (f"Only {model_label(k)} was fitted; it misses {design.target} by {fmt(own[k]['training'])}{u} RMS "
+        return (f"Only {model_label(k)} was fitted; it misses {design.target} by {sentence_number(own[k]['training'])}{u} RMS "
                 "on the training rows.",)
     held_pairs = [p for p in pairs if p.split == "held_out"]
     use = held_pairs or [p for p in pairs if p.split == "training"]
@@ -262,24 +254,24 @@ def _sentences(design, names, pairs, own, units, tiny_share) -> tuple:
         verdicts.append(ratio)
         la, lb = model_label(p.a), model_label(p.b)
         if np.isclose(ea, eb, rtol=0.05):
-            miss = f"each misses {design.target} by {fmt(smaller)}{u}"
+            miss = f"each misses {design.target} by {sentence_number(smaller)}{u}"
         else:
-            miss = f"they miss {design.target} by {fmt(ea)} and {fmt(eb)}{u}"
+            miss = f"they miss {design.target} by {sentence_number(ea)} and {sentence_number(eb)}{u}"
         if p.rmse == 0.0:
             out.append(f"{la} and {in_sentence(lb)} predict exactly the same on {_rows_words(design, split)} "
-                       f"(both miss {design.target} by {fmt(smaller)}{u}).")
+                       f"(both miss {design.target} by {sentence_number(smaller)}{u}).")
             verdicts[-1] = 0.0
             continue
-        head = f"{la} and {in_sentence(lb)} differ by {fmt(p.rmse)}{u} RMS on {_rows_words(design, split)} while {miss}"
+        head = f"{la} and {in_sentence(lb)} differ by {sentence_number(p.rmse)}{u} RMS on {_rows_words(design, split)} while {miss}"
         if ratio < tiny_share:
             tail = (f": either gives practically the same predictions (the difference is under "
                     f"{tiny_share:.0%} of the smaller error).")
         elif ratio < SMALL_SHARE:
             tail = (f": they predict alike, though the difference is {ratio:.0%} of the smaller error "
-                    f"(largest single gap {fmt(p.max_abs)}{u}).")
+                    f"(largest single gap {sentence_number(p.max_abs)}{u}).")
         else:
             tail = (f": the difference is {ratio:.0%} of the smaller error, so choosing between them "
-                    f"changes the predictions (largest single gap {fmt(p.max_abs)}{u}).")
+                    f"changes the predictions (largest single gap {sentence_number(p.max_abs)}{u}).")
         out.append(head + tail)
     if len(use) > 1:
         n_tiny = sum(r < tiny_share for r in verdicts)

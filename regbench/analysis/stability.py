@@ -28,6 +28,7 @@ import numpy as np
 
 from regbench.analysis.agreement import in_sentence, json_number
 from regbench.errors import DataError, ModelError
+from regbench.formatting import join_words
 from regbench.models.results import Result, model_label
 from regbench.progress import check, report
 
@@ -216,13 +217,6 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
                      sentences=tuple(sentences), n_flat=flat)
 
 
-def _join(items, word="and") -> str:
-    items = list(items)
-    if len(items) <= 1:
-        return "".join(items)
-    return ", ".join(items[:-1]) + f" {word} " + items[-1]
-
-
 def _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, full, order_driven) -> list:
     cols = design.columns
     out = []
@@ -237,7 +231,7 @@ def _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, f
         alts = list(sa.alternatives)
         j = cols.index(c)
         if alts and all(a in pins or cols.index(a) < j for a in alts):
-            why = (f"because it comes after {_join(alts)} in the column order"
+            why = (f"because it comes after {join_words(alts)} in the column order"
                    + (" (pinned columns come first)" if pins & set(alts) else ""))
         else:
             why = "because of the column order, not the data"
@@ -258,7 +252,7 @@ def _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, f
         txt = f"{label} keeps {len(stable)} of {len(cols)} columns in at least {STABLE_SHARE:.0%} of the refits"
         if toss:
             shown = sorted(toss, key=lambda t: abs(t[1] - 0.5))[:3]
-            txt += "; its choice of " + _join(f"{c} ({v:.0%})" for c, v in shown) + " is a toss-up"
+            txt += "; its choice of " + join_words(f"{c} ({v:.0%})" for c, v in shown) + " is a toss-up"
         out.append(txt + ".")
     straddle = {}
     for k in names:
@@ -268,7 +262,7 @@ def _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, f
     if straddle:
         items = list(straddle.items())[:3]
         out.append("The 5–95% range of the coefficient includes 0 for "
-                   + "; ".join(f"{c} in {_join(ms)}" for c, ms in items)
+                   + "; ".join(f"{c} in {join_words(ms)}" for c, ms in items)
                    + (f" and {len(straddle) - 3} more columns" if len(straddle) > 3 else "")
                    + ": even its sign is not settled by these data.")
     return out

@@ -37,8 +37,9 @@ from typing import Optional
 
 import numpy as np
 
-from regbench.analysis.agreement import fmt, in_sentence, json_number, weighted_mean, weighted_rms, weighted_sd
+from regbench.analysis.agreement import in_sentence, json_number, weighted_mean, weighted_rms, weighted_sd
 from regbench.errors import DataError
+from regbench.formatting import join_words, sentence_number
 from regbench.models.results import Result, model_label
 from regbench.progress import check, report
 
@@ -438,25 +439,18 @@ def _damage_words(design, config, strength) -> str:
     if k == "shuffle":
         return f"{c} is shuffled" if strength >= 1 else f"{strength:.0%} of {c}'s rows are shuffled"
     if k == "noise":
-        return f"noise of {fmt(strength)} SD is added to {c}"
+        return f"noise of {sentence_number(strength)} SD is added to {c}"
     if k == "constant":
         if config.fill is not None:
-            return f"{c} is frozen at {fmt(config.fill)}"
+            return f"{c} is frozen at {sentence_number(config.fill)}"
         return f"{c} is frozen at its mean"
     if k == "rescale":
-        off = "" if config.fill is None else f" and shifted by {fmt(config.fill)}"
-        return f"{c} is multiplied by {fmt(strength)}{off}"
+        off = "" if config.fill is None else f" and shifted by {sentence_number(config.fill)}"
+        return f"{c} is multiplied by {sentence_number(strength)}{off}"
     if k == "wild":
         return f"{strength:.0%} of {c}'s rows get wild values (mean ± {WILD_SDS:g} SD)"
-    fill = "its mean" if config.fill is None else fmt(config.fill)
+    fill = "its mean" if config.fill is None else sentence_number(config.fill)
     return f"{strength:.0%} of {c}'s rows are lost and filled with {fill}"
-
-
-def _join(items) -> str:
-    items = list(items)
-    if len(items) <= 1:
-        return "".join(items)
-    return ", ".join(items[:-1]) + " and " + items[-1]
 
 
 def _stress_sentences(design, config, strength, tol, names, shifts, refit: bool) -> tuple:
@@ -476,10 +470,10 @@ def _stress_sentences(design, config, strength, tol, names, shifts, refit: bool)
         if not np.isfinite(v):
             parts.append(f"{label} predictions{on} become undefined")
         elif i == 0:
-            parts.append(f"{label} predictions{on} move by {fmt(v)} RMS")
+            parts.append(f"{label} predictions{on} move by {sentence_number(v)} RMS")
         else:
-            parts.append(f"{label} by {fmt(v)}")
-    first = lead + _join(parts) if parts else lead
+            parts.append(f"{label} by {sentence_number(v)}")
+    first = lead + join_words(parts) if parts else lead
     if still:
         labels = [in_sentence(model_label(k)) for k in still]
         if not parts:
@@ -487,9 +481,9 @@ def _stress_sentences(design, config, strength, tol, names, shifts, refit: bool)
         unused = [k for k in still if not shifts[k].uses_column]
         if len(unused) == len(still) and not refit:
             verb = "does" if len(still) == 1 else "do"
-            clause = f"{_join(labels)} {verb} not use {config.column} and {verb} not move at all"
+            clause = f"{join_words(labels)} {verb} not use {config.column} and {verb} not move at all"
         else:
-            clause = f"{_join(labels)} {'does' if len(still) == 1 else 'do'} not move at all"
+            clause = f"{join_words(labels)} {'does' if len(still) == 1 else 'do'} not move at all"
         first += ("; " if parts else "") + clause
     out = [first + "."]
     follow = [d.name for _, d in _followers(design, config.column)]
@@ -501,14 +495,14 @@ def _stress_sentences(design, config, strength, tol, names, shifts, refit: bool)
         worst = max(movers, key=lambda k: shifts[k].shift_rmse if np.isfinite(shifts[k].shift_rmse) else np.inf)
         s = shifts[worst]
         if np.isfinite(s.error_damaged):
-            out.append(f"{model_label(worst)}'s error against {design.target} goes from {fmt(s.error_clean)} to "
-                       f"{fmt(s.error_damaged)}, and {s.moved_share:.0%} of its predictions move by more than "
-                       f"{fmt(tol)}.")
+            out.append(f"{model_label(worst)}'s error against {design.target} goes from {sentence_number(s.error_clean)} to "
+                       f"{sentence_number(s.error_damaged)}, and {s.moved_share:.0%} of its predictions move by more than "
+                       f"{sentence_number(tol)}.")
         best = min(finite, key=lambda k: shifts[k].error_damaged)
         if len(names) > 1:
             out.append(f"After the damage the most accurate model is {in_sentence(model_label(best))} "
-                       f"(error {fmt(shifts[best].error_damaged)}).")
-    out.append(f"A prediction counts as moved when it shifts by more than {fmt(tol)}"
+                       f"(error {sentence_number(shifts[best].error_damaged)}).")
+    out.append(f"A prediction counts as moved when it shifts by more than {sentence_number(tol)}"
                + (" (0.1 × the SD of the target)." if config.tolerance is None else "."))
     return tuple(out)
 
@@ -558,9 +552,9 @@ def stress_sweep(design, models: dict, column: str, kind: str, strengths=None, s
     ranked = sorted(names, key=lambda k: -out[k][0, -1])
     if ranked:
         top = ranked[0]
-        sentences.append(f"At the strongest {kind} of {column} (strength {fmt(end)}), {in_sentence(model_label(top))} "
-                         f"moves most ({fmt(out[top][0, -1])} RMS)"
-                         + (f" and {in_sentence(model_label(ranked[-1]))} least ({fmt(out[ranked[-1]][0, -1])})."
+        sentences.append(f"At the strongest {kind} of {column} (strength {sentence_number(end)}), {in_sentence(model_label(top))} "
+                         f"moves most ({sentence_number(out[top][0, -1])} RMS)"
+                         + (f" and {in_sentence(model_label(ranked[-1]))} least ({sentence_number(out[ranked[-1]][0, -1])})."
                             if len(ranked) > 1 else "."))
     return StressSweep(column=column, kind=kind, strengths=np.asarray(strengths, float).copy(),
                        shift_rmse={k: out[k][0].copy() for k in names},
@@ -615,9 +609,9 @@ def rank_columns(design, models: dict, kind: str = "shuffle", strength: Optional
             sentences.append(f"{model_label(k)} does not move whichever column is {_PARTICIPLE[kind]}.")
             continue
         first = top[0]
-        txt = f"{model_label(k)} moves most when {first} is {_PARTICIPLE[kind]} ({fmt(moved[first])} RMS)"
+        txt = f"{model_label(k)} moves most when {first} is {_PARTICIPLE[kind]} ({sentence_number(moved[first])} RMS)"
         if len(top) > 1:
-            txt += ", then " + _join(f"{c} ({fmt(moved[c])})" for c in top[1:])
+            txt += ", then " + join_words(f"{c} ({sentence_number(moved[c])})" for c in top[1:])
         if zero:
             txt += f"; it does not move at all for {len(zero)} column{'s' if len(zero) != 1 else ''} it does not use"
         sentences.append(txt + ".")
@@ -668,7 +662,8 @@ def stress_command(design, settings, column: Optional[str], all_columns: bool, k
     Returns
     -------
     dict
-        ``{"json": dict, "text": str}`` for ``regbench stress``.
+        ``{"json": dict, "result": StressResult or ColumnRanking}`` for ``regbench stress``
+        (its text: :func:`regbench.sentences.stress_text` / :func:`~regbench.sentences.ranking_text`).
     """
     from regbench.models.engine import fit_all
 
@@ -687,7 +682,7 @@ def stress_command(design, settings, column: Optional[str], all_columns: bool, k
         rk = rank_columns(design, models, kind=kind, strength=strength, seed=seed, progress=progress)
         js = {"kind": kind, "strength": rk.strength, "seed": seed, "ranking": rk.to_dict(),
               "sentences": list(rk.sentences)}
-        return {"json": js, "text": _ranking_text(design, rk)}
+        return {"json": js, "result": rk}
     res = run_stress(design, models, StressConfig(column, kind, strength, seed, tolerance))
     js = {
         "column": res.column, "columns": list(res.columns), "kind": res.kind, "strength": res.strength,
@@ -695,31 +690,4 @@ def stress_command(design, settings, column: Optional[str], all_columns: bool, k
         "models": {k: res.shifts[k].to_dict() for k in res.models},
         "sentences": list(res.sentences),
     }
-    return {"json": js, "text": _stress_text(design, res)}
-
-
-def _stress_text(design, res: StressResult) -> str:
-    strength = "" if res.strength is None else f", strength {fmt(res.strength)}"
-    lines = [f"Stress test on {design.target}: {res.kind} {res.column}{strength}, seed {res.config.seed}; "
-             f"tolerance {fmt(res.tolerance)}", ""]
-    head = f"{'model':<28}{'RMS shift':>12}{'mean shift':>12}{'rows moved':>12}{'error before':>14}{'error after':>13}"
-    lines.append(head)
-    for k in res.models:
-        s = res.shifts[k]
-        lines.append(f"{model_label(k):<28}{fmt(s.shift_rmse):>12}{fmt(s.mean_shift):>12}{s.moved_share:>12.0%}"
-                     f"{fmt(s.error_clean):>14}{fmt(s.error_damaged):>13}")
-    lines.append("")
-    lines.extend(res.sentences)
-    return "\n".join(lines)
-
-
-def _ranking_text(design, rk: ColumnRanking) -> str:
-    lines = [f"Stress ranking on {design.target}: {rk.kind} each column in turn (seed {rk.seed}); shift RMS per model",
-             ""]
-    width = max(len(c) for c in rk.columns) + 2
-    lines.append(f"{'column':<{width}}" + "".join(f"{model_label(k)[:14]:>16}" for k in rk.models))
-    for j, c in enumerate(rk.columns):
-        lines.append(f"{c:<{width}}" + "".join(f"{fmt(rk.shift_rmse[i, j]):>16}" for i in range(len(rk.models))))
-    lines.append("")
-    lines.extend(rk.sentences)
-    return "\n".join(lines)
+    return {"json": js, "result": res}

@@ -20,6 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from regbench.analysis.agreement import in_sentence
+from regbench.formatting import join_words
 from regbench.models.results import Result, model_label
 
 _NUMBER_WORDS = {2: "two", 3: "three", 4: "four", 5: "five", 6: "six", 7: "seven", 8: "eight", 9: "nine", 10: "ten"}
@@ -160,13 +161,6 @@ def _links(results) -> tuple:
     return tuple(alias), tuple(near), tuple(set_aside)
 
 
-def _join(items, word="and") -> str:
-    items = list(items)
-    if len(items) <= 1:
-        return "".join(items)
-    return ", ".join(items[:-1]) + f" {word} " + items[-1]
-
-
 def _count(k: int) -> str:
     return _NUMBER_WORDS.get(k, str(k))
 
@@ -240,7 +234,7 @@ def _usage_sentence(names, columns, used, ols_aside) -> str:
         what = f"all {p}" if u == p else f"{u} of {p}"
         extra = f" ({len(ols_aside)} set aside)" if k == "ols" and ols_aside else ""
         parts.append(f"{label} {what}{extra}" if i else f"{label} uses {what} columns{extra}")
-    return _join(parts) + "."
+    return join_words(parts) + "."
 
 
 def _pct(v: float) -> str:
@@ -263,25 +257,25 @@ def _set_sentence(group, names, shares, aside, lead) -> str:
         if not on:
             parts.append(f"{label} uses none of them")
         elif name == "ols" and aside and len(on) + len(aside) == k:
-            where = _join(on) if len(on) <= 3 else f"the other {_count(len(on))} ({_most(group, s)})"
-            parts.append(f"{label} sets {_join(aside)} aside and puts all the weight on {where}")
+            where = join_words(on) if len(on) <= 3 else f"the other {_count(len(on))} ({_most(group, s)})"
+            parts.append(f"{label} sets {join_words(aside)} aside and puts all the weight on {where}")
         elif len(on) == k:
             parts.append(f"{label} spreads it over all {_count(k)} columns (largest share {_pct(s[top])} on {group[top]})")
         elif len(on) == 1:
             parts.append(f"{label} keeps only {on[0]}")
         elif len(on) <= 3:
-            parts.append(f"{label} keeps only {_join(on)} ({_most(group, s)})")
+            parts.append(f"{label} keeps only {join_words(on)} ({_most(group, s)})")
         else:
             parts.append(f"{label} keeps {_count(len(on))} of the {_count(k)} ({_most(group, s)})")
-    return f"{lead} {_join(group)}: " + "; ".join(parts) + "."
+    return f"{lead} {join_words(group)}: " + "; ".join(parts) + "."
 
 
 def _flip_sentence(flips) -> str:
     shown = flips[:3]
     bits = []
     for f in shown:
-        pos = _join(in_sentence(model_label(k)) for k in f.positive)
-        neg = _join(in_sentence(model_label(k)) for k in f.negative)
+        pos = join_words(in_sentence(model_label(k)) for k in f.positive)
+        neg = join_words(in_sentence(model_label(k)) for k in f.negative)
         bits.append(f"{f.column} is positive in {pos} but negative in {neg}")
     more = f" ({len(flips) - len(shown)} more)" if len(flips) > len(shown) else ""
     n = len(flips)

@@ -11,23 +11,10 @@ from typing import Optional, Sequence
 import numpy as np
 from PySide6 import QtCore, QtGui, QtWidgets
 
-from regbench.formatting import number_text
+from regbench.formatting import cell_text as fmt
 from regbench.gui.style import PALETTE
 
 Qt = QtCore.Qt
-
-
-def fmt(v, digits: int = 4) -> str:
-    """Short display text for a cell value."""
-    if v is None:
-        return ""
-    if isinstance(v, (bool, np.bool_)):
-        return "yes" if v else "no"
-    if isinstance(v, (int, np.integer)):
-        return str(int(v))
-    if isinstance(v, (float, np.floating)):
-        return number_text(v, digits, fixed_below_one=True)
-    return str(v)
 
 
 class FrameModel(QtCore.QAbstractTableModel):

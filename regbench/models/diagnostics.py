@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from regbench.formatting import join_words
 from regbench.models.ols import format_number, one_blas_thread, weighted_factor
 from regbench.models.results import Diagnostics, NearDependency
 
@@ -144,7 +145,7 @@ def _near_dependency(j, R, kept, vif) -> NearDependency:
         r2 = float(1.0 - left @ left)
     names = tuple(kept[i] for i in chosen)
     col = kept[j]
-    sentence = (f"{col} is {percent(r2)} explained by {_join(names)} (R² {r2_text(r2)}, VIF "
+    sentence = (f"{col} is {percent(r2)} explained by {join_words(names)} (R² {r2_text(r2)}, VIF "
                 f"{_vif_text(vif)}); their separate coefficients are poorly determined.")
     if r2 < r2_all - R2_SLACK:
         sentence = sentence[:-1] + f"; all other kept columns together explain {percent(r2_all)}."
@@ -181,7 +182,7 @@ def _summary(ols_result, kept, vif, cond, damaging) -> list:
     for dmg in damaging:
         out.append(
             f"A near-dependency with condition index {format_number(round(dmg['index'], 1))} dominates the "
-            f"uncertainty of {_join([_term_text(t) for t in dmg['terms']], 'and')} (variance share above 0.5 each; "
+            f"uncertainty of {join_words([_term_text(t) for t in dmg['terms']], 'and')} (variance share above 0.5 each; "
             "Belsley, Kuh & Welsch's rule)."
         )
     return out
@@ -212,8 +213,3 @@ def _term_text(term: str) -> str:
     return "the intercept" if term == INTERCEPT else term
 
 
-def _join(names, word: str = "and") -> str:
-    names = list(names)
-    if len(names) <= 1:
-        return "".join(names)
-    return ", ".join(names[:-1]) + f" {word} " + names[-1]

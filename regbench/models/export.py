@@ -1,4 +1,4 @@
-"""The fit as plain JSON data and as a readable text summary.
+"""The fit as plain JSON data (its text summary for people is in :mod:`regbench.sentences`).
 
 ``fit_to_json`` returns only dicts, lists, str, bool, int, float and None;
 NaN and infinities become None so the result is strict JSON.  Coefficients are
@@ -13,8 +13,6 @@ import math
 
 import numpy as np
 
-from regbench.formatting import number_text
-from regbench.models.results import model_label
 
 #: The objective, in the words the README and help use.
 OBJECTIVE = ("minimise (1/(2W))·Σ wᵢ(yᵢ − b₀ − x̃ᵢβ)² + α·Σⱼ vⱼ(ρ|βⱼ| + (1−ρ)/2·βⱼ²), "
@@ -161,128 +159,5 @@ def _ranges(design, results):
     return compute_ranges(design, results, results.settings.range_tolerance)
 
 
-def _fmt(v) -> str:
-    if v is None or not math.isfinite(v):
-        return "–"
-    if v == 0:
-        return "0"
-    return f"{v:.4g}"
-
-
-def se_kind_sentence(design, o) -> str:
-    """Which standard errors the summary and the JSON carry."""
-    if getattr(o, "cluster_std_errors", None) is not None:
-        return (f"Standard errors: classical (rows independent) and, beside them, cluster-robust by "
-                f"{design.groups_column} ({o.n_clusters} groups; small-sample factor G/(G−1)·(N−1)/(N−K)); "
-                "when rows of a group share influences, read the cluster-robust ones.")
-    return "Standard errors: classical (rows independent); set a group column for cluster-robust ones."
-
-
-def fit_summary_text(design, results) -> str:
-    """A plain-text summary of the fit, in the order a reader asks about it."""
-    from regbench.models.ols import set_aside_sentence
-
-    lines = []
-    extra = []
-    if design.weights_column:
-        if getattr(design, "counts", False):
-            extra.append(f"each row counts as {design.weights_column} observations "
-                         f"({design.observations():,.0f} in all)")
-        else:
-            extra.append(f"rows weighted by {design.weights_column} (precision weights: one observation per row)")
-    if design.groups_column:
-        extra.append(f"{len(design.group_labels)} groups in {design.groups_column}")
-    head = f"Target {design.target}: {design.n} rows used, {len(design.excluded)} left out"
-    lines.append(head + (f"; {', '.join(extra)}" if extra else "") + ".")
-    if design.excluded:
-        lines.append("")
-        lines.append("Rows left out")
-        for e in design.excluded[:20]:
-            lines.append(f"  row {e.row}, {e.column}: {e.reason}")
-        if len(design.excluded) > 20:
-            lines.append(f"  … and {len(design.excluded) - 20} more (see the JSON output)")
-    if design.unusable:
-        lines.append("")
-        lines.append("Columns not used")
-        for u in design.unusable:
-            lines.append(f"  {u.column}: {u.reason}")
-    if design.column_notes:
-        lines.append("")
-        lines.append("How columns were read")
-        for c, note, _ in design.column_notes:
-            lines.append(f"  {c}: {note}")
-
-    lines.append("")
-    lines.append("What overlaps")
-    if results.ols.set_aside:
-        for sa in results.ols.set_aside:
-            lines.append(f"  • {set_aside_sentence(sa)}")
-    for s in results.diagnostics.sentences:
-        lines.append(f"  • {s}")
-    if not results.ols.set_aside and not results.diagnostics.sentences:
-        lines.append("  • No strong overlap between the predictors was found.")
-
-    names = list(results.models())
-    models = results.models()
-    labels = [model_label(n) for n in names]
-    set_aside = {sa.column for sa in results.ols.set_aside}
-    width = max([len("(intercept)")] + [len(c) for c in results.columns]) + 2
-    colw = max(12, max(len(l) for l in labels) + 2)
-    lines.append("")
-    lines.append("Coefficients in the table's units (– : not used by that model)")
-    lines.append(" " * (width + 2) + "".join(l.rjust(colw) for l in labels))
-    lines.append("  " + "(intercept)".ljust(width) + "".join(_fmt(models[n].intercept).rjust(colw) for n in names))
-    for j, c in enumerate(results.columns):
-        cells = []
-        for n in names:
-            if n == "ols" and c in set_aside:
-                cells.append("set aside".rjust(colw))
-            else:
-                v = float(models[n].coef[j])
-                cells.append(("–" if v == 0.0 else _fmt(v)).rjust(colw))
-        lines.append("  " + c.ljust(width) + "".join(cells))
-    lines.append("  " + "columns used".ljust(width) + "".join(str(int(models[n].used.sum())).rjust(colw) for n in names))
-
-    lines.append("")
-    o = results.ols
-    counts = getattr(design, "counts", False)
-    sd_note = (f" for a row of weight 1 (rows are weighted by {design.weights_column})"
-               if design.weighted and not counts else "")
-    lines.append(f"OLS: R² {_fmt(o.r_squared)}, adjusted R² {_fmt(o.adj_r_squared)}, residual SD {_fmt(o.residual_sd)}{sd_note}, "
-                 f"{_fmt(o.df_resid)} residual degrees of freedom.")
-    if getattr(o, "inference_note", ""):
-        lines.append(f"  {o.inference_note}")
-    lines.append("  " + se_kind_sentence(design, o))
-    k = results.settings.folds
-    kind = "grouped " if design.groups is not None else ""
-    lines.append(f"Penalties (α), {k}-fold {kind}cross-validation:")
-    rules = {"fixed": "fixed by the settings", "cv_min": "lowest CV error", "cv_1se": "largest α within one SE of the lowest"}
-    for name, pf in results.penalized.items():
-        cv_txt = ""
-        if pf.cv is not None:
-            i = int(np.argmin(np.abs(np.log(pf.cv.alphas) - np.log(pf.alpha))))
-            cv_txt = f", held-out RMSE {_fmt(math.sqrt(max(pf.cv.mean[i], 0.0)))} (at the nearest grid α)"
-            if getattr(pf.cv, "at_edge", False):
-                cv_txt += ("; CAUTION: the lowest CV error is at the smallest α tried, so a smaller α may "
-                           "predict better")
-        relax = "" if pf.relaxation is None else f", relaxation {_fmt(pf.relaxation)}"
-        lines.append(f"  {model_label(name)}: α {_fmt(pf.alpha)} ({rules.get(pf.alpha_rule, pf.alpha_rule)}), "
-                     f"L1 ratio {_fmt(pf.l1_ratio)}{relax}{cv_txt}")
-        if pf.convergence is not None and not pf.convergence.converged:
-            lines.append("    " + pf.convergence.sentence())
-    if results.settings.penalty_factors:
-        lines.append("  Penalty factors: " + ", ".join(f"{c} {_fmt(v)}" for c, v in results.settings.penalty_factors)
-                     + " (0: unpenalized, always kept); every other column 1.")
-    rg = _ranges(design, results)
-    lines.append("")
-    lines.append(f"How far equally good models differ (tolerance {number_text(100 * rg.tolerance, 2)} %: "
-                 f"{rg.tolerance_note})")
-    for s in rg.sentences:
-        lines.append(f"  • {s}")
-    for t in rg.trades:
-        lines.append(f"  • {t['sentence']}")
-    lines.append("")
-    lines.append("Penalty objective: " + OBJECTIVE + ".")
-    lines.append("These are associations, not causes; judge models on held-out groups; "
-                 "a model is only as good as its inputs.")
-    return "\n".join(lines)
+# The summary for people lives with the other texts (regbench/sentences.py); kept importable here.
+from regbench.sentences import fit_summary_text  # noqa: E402,F401

@@ -7,7 +7,6 @@ text that came from the user or the table is escaped.
 
 from __future__ import annotations
 
-import math
 import platform
 import re
 from datetime import datetime, timezone
@@ -16,7 +15,7 @@ from html import escape
 import numpy as np
 
 from regbench import __version__
-from regbench.formatting import number_text
+from regbench.formatting import MISSING, number_text, percent
 from regbench.models.results import model_label
 from regbench.palette import model_colour
 from regbench.report import svg
@@ -101,20 +100,15 @@ def e(x) -> str:
 
 def num(x, digits: int = 4) -> str:
     if x is None:
-        return "—"
+        return MISSING
     try:
         v = float(x)
     except (TypeError, ValueError):
         return e(x)
-    return number_text(v, digits, missing="—", unicode_minus=True)
+    return number_text(v, digits, unicode_minus=True)
 
 
-def pct(x) -> str:
-    try:
-        v = float(x)
-    except (TypeError, ValueError):
-        return "—"
-    return "—" if not math.isfinite(v) else f"{100 * v:.1f}%"
+pct = percent
 
 
 def table(headers, rows) -> str:
@@ -150,7 +144,7 @@ def table(headers, rows) -> str:
 
 
 def _numeric_text(s: str) -> bool:
-    return s == "—" or bool(re.fullmatch(r"[−-]?(\d[\d.]*(e[−-]?\d+)?%?|∞)", s))
+    return s == MISSING or bool(re.fullmatch(r"[−-]?(\d[\d.]*(e[−-]?\d+)?%?|∞)", s))
 
 
 def sentences(items) -> str:
@@ -230,7 +224,7 @@ def _overlap(session) -> str:
     vp = np.asarray(dg.variance_proportions)
     for i, ci in enumerate(dg.condition_indices):
         high = [f"{t} ({pct(vp[i, j])})" for j, t in enumerate(dg.terms) if vp.ndim == 2 and vp[i, j] > 0.5]
-        rows.append((str(i + 1), num(ci), ", ".join(high) or "—"))
+        rows.append((str(i + 1), num(ci), ", ".join(high) or MISSING))
     parts.append(table(["Dimension", "Condition index", "Terms with over half their variance here"], rows))
     parts.append('<p class="muted">A condition index above 30 with two or more terms over half their variance '
                  "marks a damaging near-dependency (Belsley, Kuh &amp; Welsch, 1980).</p>")

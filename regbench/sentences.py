@@ -1,0 +1,232 @@
+"""Plain-text renderings for people: the CLI's fit summary, stress tables and project inspection.
+
+Built from :mod:`regbench.formatting` (numbers, the missing-number mark, word
+lists) so the command line says things the way the window and the report do.
+Sentences that belong to one result (why a column was set aside, what a stress
+test moved) are made where the result is made and carried on it; this module
+lays them out.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+
+from regbench.formatting import MISSING, number_text, sentence_number as fmt
+from regbench.models.results import model_label
+
+#: Where a project file keeps its arrays (regbench/project/FORMAT.md).
+_RESULTS_DIR = "results/"
+
+
+def _summary_number(v) -> str:
+    """A number in the fit summary's table: four significant digits, :data:`MISSING` when absent."""
+    if v is None or not math.isfinite(v):
+        return MISSING
+    if v == 0:
+        return "0"
+    return f"{v:.4g}"
+
+
+def se_kind_sentence(design, o) -> str:
+    """Which standard errors the summary and the JSON carry."""
+    if getattr(o, "cluster_std_errors", None) is not None:
+        return (f"Standard errors: classical (rows independent) and, beside them, cluster-robust by "
+                f"{design.groups_column} ({o.n_clusters} groups; small-sample factor G/(G−1)·(N−1)/(N−K)); "
+                "when rows of a group share influences, read the cluster-robust ones.")
+    return "Standard errors: classical (rows independent); set a group column for cluster-robust ones."
+
+
+def fit_summary_text(design, results) -> str:
+    """A plain-text summary of the fit, in the order a reader asks about it."""
+    from regbench.analysis.ranges import compute_ranges
+    from regbench.models.export import OBJECTIVE
+    from regbench.models.ols import set_aside_sentence
+
+    lines = []
+    extra = []
+    if design.weights_column:
+        if getattr(design, "counts", False):
+            extra.append(f"each row counts as {design.weights_column} observations "
+                         f"({design.observations():,.0f} in all)")
+        else:
+            extra.append(f"rows weighted by {design.weights_column} (precision weights: one observation per row)")
+    if design.groups_column:
+        extra.append(f"{len(design.group_labels)} groups in {design.groups_column}")
+    head = f"Target {design.target}: {design.n} rows used, {len(design.excluded)} left out"
+    lines.append(head + (f"; {', '.join(extra)}" if extra else "") + ".")
+    if design.excluded:
+        lines.append("")
+        lines.append("Rows left out")
+        for e in design.excluded[:20]:
+            lines.append(f"  row {e.row}, {e.column}: {e.reason}")
+        if len(design.excluded) > 20:
+            lines.append(f"  … and {len(design.excluded) - 20} more (see the JSON output)")
+    if design.unusable:
+        lines.append("")
+        lines.append("Columns not used")
+        for u in design.unusable:
+            lines.append(f"  {u.column}: {u.reason}")
+    if design.column_notes:
+        lines.append("")
+        lines.append("How columns were read")
+        for c, note, _ in design.column_notes:
+            lines.append(f"  {c}: {note}")
+
+    lines.append("")
+    lines.append("What overlaps")
+    if results.ols.set_aside:
+        for sa in results.ols.set_aside:
+            lines.append(f"  • {set_aside_sentence(sa)}")
+    for s in results.diagnostics.sentences:
+        lines.append(f"  • {s}")
+    if not results.ols.set_aside and not results.diagnostics.sentences:
+        lines.append("  • No strong overlap between the predictors was found.")
+
+    names = list(results.models())
+    models = results.models()
+    labels = [model_label(n) for n in names]
+    set_aside = {sa.column for sa in results.ols.set_aside}
+    width = max([len("(intercept)")] + [len(c) for c in results.columns]) + 2
+    colw = max(12, max(len(l) for l in labels) + 2)
+    lines.append("")
+    lines.append("Coefficients in the table's units (– : not used by that model)")
+    lines.append(" " * (width + 2) + "".join(l.rjust(colw) for l in labels))
+    lines.append("  " + "(intercept)".ljust(width) + "".join(_summary_number(models[n].intercept).rjust(colw) for n in names))
+    for j, c in enumerate(results.columns):
+        cells = []
+        for n in names:
+            if n == "ols" and c in set_aside:
+                cells.append("set aside".rjust(colw))
+            else:
+                v = float(models[n].coef[j])
+                cells.append(("–" if v == 0.0 else _summary_number(v)).rjust(colw))
+        lines.append("  " + c.ljust(width) + "".join(cells))
+    lines.append("  " + "columns used".ljust(width) + "".join(str(int(models[n].used.sum())).rjust(colw) for n in names))
+
+    lines.append("")
+    o = results.ols
+    counts = getattr(design, "counts", False)
+    sd_note = (f" for a row of weight 1 (rows are weighted by {design.weights_column})"
+               if design.weighted and not counts else "")
+    lines.append(f"OLS: R² {_summary_number(o.r_squared)}, adjusted R² {_summary_number(o.adj_r_squared)}, "
+                 f"residual SD {_summary_number(o.residual_sd)}{sd_note}, "
+                 f"{_summary_number(o.df_resid)} residual degrees of freedom.")
+    if getattr(o, "inference_note", ""):
+        lines.append(f"  {o.inference_note}")
+    lines.append("  " + se_kind_sentence(design, o))
+    k = results.settings.folds
+    kind = "grouped " if design.groups is not None else ""
+    lines.append(f"Penalties (α), {k}-fold {kind}cross-validation:")
+    rules = {"fixed": "fixed by the settings", "cv_min": "lowest CV error", "cv_1se": "largest α within one SE of the lowest"}
+    for name, pf in results.penalized.items():
+        cv_txt = ""
+        if pf.cv is not None:
+            i = int(np.argmin(np.abs(np.log(pf.cv.alphas) - np.log(pf.alpha))))
+            cv_txt = f", held-out RMSE {_summary_number(math.sqrt(max(pf.cv.mean[i], 0.0)))} (at the nearest grid α)"
+            if getattr(pf.cv, "at_edge", False):
+                cv_txt += ("; CAUTION: the lowest CV error is at the smallest α tried, so a smaller α may "
+                           "predict better")
+        relax = "" if pf.relaxation is None else f", relaxation {_summary_number(pf.relaxation)}"
+        lines.append(f"  {model_label(name)}: α {_summary_number(pf.alpha)} ({rules.get(pf.alpha_rule, pf.alpha_rule)}), "
+                     f"L1 ratio {_summary_number(pf.l1_ratio)}{relax}{cv_txt}")
+        if pf.convergence is not None and not pf.convergence.converged:
+            lines.append("    " + pf.convergence.sentence())
+    if results.settings.penalty_factors:
+        lines.append("  Penalty factors: "
+                     + ", ".join(f"{c} {_summary_number(v)}" for c, v in results.settings.penalty_factors)
+                     + " (0: unpenalized, always kept); every other column 1.")
+    rg = compute_ranges(design, results, results.settings.range_tolerance)
+    lines.append("")
+    lines.append(f"How far equally good models differ (tolerance {number_text(100 * rg.tolerance, 2)} %: "
+                 f"{rg.tolerance_note})")
+    for s in rg.sentences:
+        lines.append(f"  • {s}")
+    for t in rg.trades:
+        lines.append(f"  • {t['sentence']}")
+    lines.append("")
+    lines.append("Penalty objective: " + OBJECTIVE + ".")
+    lines.append("These are associations, not causes; judge models on held-out groups; "
+                 "a model is only as good as its inputs.")
+    return "\n".join(lines)
+
+
+def stress_text(design, res) -> str:
+    """The stress test of one column as a table and its sentences (``regbench stress``)."""
+    strength = "" if res.strength is None else f", strength {fmt(res.strength)}"
+    lines = [f"Stress test on {design.target}: {res.kind} {res.column}{strength}, seed {res.config.seed}; "
+             f"tolerance {fmt(res.tolerance)}", ""]
+    head = f"{'model':<28}{'RMS shift':>12}{'mean shift':>12}{'rows moved':>12}{'error before':>14}{'error after':>13}"
+    lines.append(head)
+    for k in res.models:
+        s = res.shifts[k]
+        lines.append(f"{model_label(k):<28}{fmt(s.shift_rmse):>12}{fmt(s.mean_shift):>12}{s.moved_share:>12.0%}"
+                     f"{fmt(s.error_clean):>14}{fmt(s.error_damaged):>13}")
+    lines.append("")
+    lines.extend(res.sentences)
+    return "\n".join(lines)
+
+
+def ranking_text(design, rk) -> str:
+    """Every column damaged in turn, ranked per model, and the sentences (``regbench stress --all-columns``)."""
+    lines = [f"Stress ranking on {design.target}: {rk.kind} each column in turn (seed {rk.seed}); shift RMS per model",
+             ""]
+    width = max(len(c) for c in rk.columns) + 2
+    lines.append(f"{'column':<{width}}" + "".join(f"{model_label(k)[:14]:>16}" for k in rk.models))
+    for j, c in enumerate(rk.columns):
+        lines.append(f"{c:<{width}}" + "".join(f"{fmt(rk.shift_rmse[i, j]):>16}" for i in range(len(rk.models))))
+    lines.append("")
+    lines.extend(rk.sentences)
+    return "\n".join(lines)
+
+
+def inspect_text(info: dict) -> str:
+    """Plain-text rendering of :func:`inspect_project` (a damaged session.json shows as damaged, never fails)."""
+    from regbench.errors import one_line
+
+    def show(v, limit=200):
+        return one_line(v if isinstance(v, str) else json.dumps(v, ensure_ascii=False, default=str))[:limit]
+
+    rows, cols = info.get("table_rows"), info.get("table_columns")
+    lines = [
+        f"project      {show(info['path'])}",
+        f"format       {info['format']} version {info['format_version']} (made by regbench {show(info['app_version'])})",
+        f"created      {show(info['created'])}",
+        f"saved        {show(info['saved'])}",
+        f"table        {show(rows)} rows × {show(cols)} columns, sha256 {show(info['table_sha256'])[:16]}…",
+        f"hash check   {info['hash_check']}",
+    ]
+    roles = info.get("roles")
+    if isinstance(roles, dict) and roles:
+        preds = roles.get("predictors")
+        preds = preds if isinstance(preds, list) and preds else ["(every other usable column)"]
+        lines.append(f"target       {show(roles.get('target'))}")
+        lines.append(f"predictors   {show(', '.join(map(str, preds)))}")
+        if isinstance(roles.get("categorical"), list) and roles["categorical"]:
+            lines.append(f"categorical  {show(', '.join(map(str, roles['categorical'])))}")
+        lines.append(f"weights      {show(roles.get('weights') or '(none)')}")
+        lines.append(f"groups       {show(roles.get('groups') or '(none)')}")
+    elif roles is not None:
+        lines.append(f"roles        (damaged: {show(roles, 60)})")
+    s = info.get("settings")
+    if isinstance(s, dict) and s:
+        lines.append("settings     " + show(", ".join(f"{k}={show(v, 60)}" for k, v in s.items()), 400))
+    elif s is not None:
+        lines.append(f"settings     (damaged: {show(s, 60)})")
+    lines.append(f"stress tests {show(info.get('stress_tests', 0))}; bootstrap refits {show(info.get('bootstrap'))}")
+    lines.append(f"cached results {'present' if info['cached_results'] else 'absent'}"
+                 f" ({info['cached_arrays']} arrays)")
+    lines.append("members:")
+    arrays = [e for e in info["members"] if e["name"].startswith(_RESULTS_DIR)]
+    for e in info["members"]:
+        if e in arrays:
+            continue
+        check = show(info["member_checks"].get(e["name"], ""), 400)
+        lines.append(f"  {show(e['name'], 60):<28} {e['size']:>12,d} bytes  {check}")
+    if arrays:
+        failed = [e["name"] for e in arrays if info["member_checks"].get(e["name"]) != "ok"]
+        lines.append(f"  {_RESULTS_DIR + '*.npy':<28} {sum(e['size'] for e in arrays):>12,d} bytes  "
+                     f"{len(arrays)} arrays, " + (f"failed: {show(', '.join(failed), 400)}" if failed else "all ok"))
+    return "\n".join(lines)
