@@ -68,7 +68,7 @@ def _add_table_options(p: argparse.ArgumentParser, table: bool = True) -> None:
 def _add_settings_options(p: argparse.ArgumentParser) -> None:
     """One option per declared FitSettings field that has a flag; limits and help come from the declaration."""
     from regbench.models import spec
-    from regbench.models.results import FitSettings
+    from regbench.models.settings import FitSettings
 
     for name, (declared, default) in spec.specs(FitSettings).items():
         if declared.flag is None:
@@ -115,7 +115,8 @@ def build_parser() -> argparse.ArgumentParser:
     _add_table_options(p)
     p.add_argument("--column", help="predictor column to damage (omit with --all-columns)")
     p.add_argument("--all-columns", action="store_true", help="damage every predictor in turn and rank them")
-    p.add_argument("--kind", required=True, choices=("shuffle", "noise", "constant", "rescale", "wild", "missing"))
+    p.add_argument("--kind", required=True, choices=("shuffle", "noise", "constant", "rescale", "wild", "missing"),
+                   help="how the column is damaged (analysis/stress.py STRESS_KINDS; listed here so --help needs no numpy)")
     p.add_argument("--strength", type=float, help="kind-specific strength (noise: SDs; rescale: factor; wild: share)")
     p.add_argument("--tolerance", type=float, help="a prediction 'moved' when it shifts by more than this (default: 0.1 × target SD)")
     _json_option(p)
@@ -160,7 +161,7 @@ def build_parser() -> argparse.ArgumentParser:
 def settings_from_args(args):
     """FitSettings from the command line, checked against the declared limits (message names the flag)."""
     from regbench.models import spec
-    from regbench.models.results import FitSettings
+    from regbench.models.settings import FitSettings
 
     values = {}
     for name, (declared, default) in spec.specs(FitSettings).items():

@@ -43,7 +43,8 @@ from regbench.formatting import join_words, sentence_number
 from regbench.models.results import Result, model_label
 from regbench.progress import check, report
 
-KINDS = ("shuffle", "noise", "constant", "rescale", "wild", "missing")
+#: How a stress test damages a column (``regbench stress --kind``).
+STRESS_KINDS = ("shuffle", "noise", "constant", "rescale", "wild", "missing")
 DEFAULT_STRENGTH = {"shuffle": 1.0, "noise": 1.0, "constant": None, "rescale": 1.8, "wild": 0.05, "missing": 0.1}
 #: Kinds whose strength is a share of rows (0..1).
 SHARE_KINDS = ("shuffle", "wild", "missing")
@@ -94,8 +95,8 @@ class StressConfig:
     fill: Optional[float] = None
 
     def __post_init__(self):
-        if self.kind not in KINDS:
-            raise DataError(f"stress kind '{self.kind}' is unknown; choose one of: {', '.join(KINDS)}")
+        if self.kind not in STRESS_KINDS:
+            raise DataError(f"stress kind '{self.kind}' is unknown; choose one of: {', '.join(STRESS_KINDS)}")
         if self.tolerance is not None and not (self.tolerance >= 0 and math.isfinite(self.tolerance)):
             raise DataError(f"stress tolerance {self.tolerance!r} must be a number >= 0")
 

@@ -11,7 +11,8 @@ NUMERIC = "numeric"
 BOOLEAN = "boolean"
 CATEGORICAL = "categorical"
 EMPTY = "empty"
-KINDS = (NUMERIC, BOOLEAN, CATEGORICAL, EMPTY)
+#: What a table column holds, as typing decides it (not to be confused with stress-test kinds).
+COLUMN_KINDS = (NUMERIC, BOOLEAN, CATEGORICAL, EMPTY)
 
 
 @dataclass(frozen=True)

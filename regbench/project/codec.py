@@ -39,7 +39,7 @@ from regbench.errors import DataError, ModelError, ProjectError
 #: are part of the file format (FORMAT.md): never change one; point it at the moved class.
 STORED_TYPES = {
     "fit-results": "regbench.models.results:FitResults",
-    "settings": "regbench.models.results:FitSettings",
+    "settings": "regbench.models.settings:FitSettings",
     "linear-model": "regbench.models.results:LinearModel",
     "ols-fit": "regbench.models.results:OLSResult",
     "set-aside": "regbench.models.results:SetAside",

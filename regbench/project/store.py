@@ -355,7 +355,7 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    from regbench.data.table import KINDS, ColumnInfo, Table
+    from regbench.data.table import COLUMN_KINDS, ColumnInfo, Table
 
     def bad(field, what):
         raise ProjectError(f"{ar.label}: {where}.{field} {what}; the file is damaged")
@@ -401,8 +401,8 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
         if tab.column_names[j] != name:
             bad(f + ".name", f"is '{name}' but table.parquet has '{tab.column_names[j]}' there")
         kind = c.get("kind")
-        if kind not in KINDS:
-            bad(f + ".kind", f"is {kind!r}; known kinds are {', '.join(KINDS)}")
+        if kind not in COLUMN_KINDS:
+            bad(f + ".kind", f"is {kind!r}; known kinds are {', '.join(COLUMN_KINDS)}")
         for k in ("missing", "distinct"):
             v = c.get(k)
             if isinstance(v, bool) or not isinstance(v, int) or v < 0:
@@ -474,7 +474,7 @@ def _check_parquet_sizes(ar, data: bytes, rows, cols, bad) -> None:
 def _session_state(ar: _Archive, doc, table):
     from regbench.data.design import Roles, build_design
     from regbench.models.results import FitSettings
-    from regbench.analysis.stress import KINDS as STRESS_KINDS
+    from regbench.analysis.stress import STRESS_KINDS
     from regbench.errors import DataError
     from regbench.session import BOOTSTRAP, SessionState, check_stress, penalized_names
 

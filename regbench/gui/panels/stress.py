@@ -50,14 +50,14 @@ class StressPanel(Panel):
     uses_comparisons = True
 
     def build(self, body):
-        from regbench.analysis.stress import KINDS
+        from regbench.analysis.stress import STRESS_KINDS
 
         lay = QtWidgets.QVBoxLayout(body)
         lay.setContentsMargins(0, 0, 0, 0)
         self.column = QtWidgets.QComboBox()
         self.column.setMinimumWidth(140)
         self.kind = QtWidgets.QComboBox()
-        for k in KINDS:
+        for k in STRESS_KINDS:
             self.kind.addItem(KIND_WORDS.get(k, k), k)
         self.kind.currentIndexChanged.connect(self._kind_changed)
         self.column.currentIndexChanged.connect(self._offer_kinds)
