@@ -26,10 +26,17 @@ from typing import Callable, Optional
 
 import numpy as np
 
+from regbench.analysis.agreement import compare_models
+from regbench.analysis.fit_quality import fit_quality
+from regbench.analysis.stability import bootstrap_stability
+from regbench.analysis.stress import StressConfig, resolve_column, run_stress, stress_sweep
+from regbench.analysis.structure import compare_structure
+from regbench.data.derive import apply_derived, make_derived
 from regbench.data.design import Roles, build_design
+from regbench.data.reader import read_table
 from regbench.data.table import Table
 from regbench.errors import DataError
-from regbench.models import spec
+from regbench.models import engine, spec
 from regbench.models.results import FitSettings
 from regbench.progress import check, report
 
@@ -47,9 +54,7 @@ def relaxations_of(results) -> dict:
 
 def penalized_names(settings: FitSettings) -> tuple:
     """Names of the penalized families ``fit_all`` produces for ``settings``."""
-    from regbench.models.engine import families
-
-    return tuple(name for name, _ in families(settings))
+    return tuple(name for name, _ in engine.families(settings))
 
 
 def table_fingerprint(table: Table) -> str:
@@ -82,8 +87,6 @@ def stress_to_dict(config) -> dict:
 
 
 def stress_from_dict(d: dict):
-    from regbench.analysis.stress import StressConfig
-
     return StressConfig.from_dict(d)
 
 
@@ -219,8 +222,6 @@ class Session:
 
     @classmethod
     def from_table_file(cls, path, roles, settings=None, encoding=None, sheet=None, **read_options) -> "Session":
-        from regbench.data.reader import read_table
-
         return cls(read_table(path, encoding=encoding, sheet=sheet, **read_options), roles, settings)
 
     @classmethod
@@ -389,8 +390,6 @@ class Session:
         It joins the predictors when they are listed explicitly.  Raises DataError
         (and changes nothing) when the operation cannot take the column(s).
         """
-        from regbench.data.derive import make_derived
-
         d = make_derived(operation, columns)
         roles = self.roles
         preds = roles.predictors + ((d.name,) if roles.predictors else ())
@@ -421,8 +420,6 @@ class Session:
     @property
     def columns_table(self) -> Table:
         """The table with the derived columns appended: every column a role may name."""
-        from regbench.data.derive import apply_derived
-
         derived = self.roles.derived
         if getattr(self, "_columns_table_for", None) != (id(self.table), derived):
             self._columns_table = apply_derived(self.table, derived)
@@ -570,10 +567,8 @@ class Session:
         key = self.key(state) if n_boot == state.bootstrap else _digest({"base": self.key(state), "boot": n_boot})
         total = 3 if n_boot else 2  # fit, compare (agreement, structure, stress), stability
         if table_results is None or refit:
-            from regbench.models.engine import fit_all
-
             report(progress, 0, total * 100, "fitting the models")
-            results = fit_all(design, state.settings, progress=_within(progress, 0, total), cancel=cancel)
+            results = engine.fit_all(design, state.settings, progress=_within(progress, 0, total), cancel=cancel)
         else:
             results = table_results
         check(cancel)
@@ -582,8 +577,6 @@ class Session:
         check(cancel)
         stability, alphas = None, _alphas_of(results, state)
         if n_boot:
-            from regbench.analysis.stability import bootstrap_stability
-
             report(progress, 200, total * 100, f"stability ({n_boot} refits)")
             stability = bootstrap_stability(design, state.settings, alphas, n_boot=n_boot, seed=state.settings.seed,
                                             progress=_within(progress, 2, total), cancel=cancel,
@@ -707,7 +700,6 @@ class Session:
         models = self.models()
         if not models:
             return None
-        from regbench.analysis.fit_quality import fit_quality
 
         return fit_quality(self.design, models, self.heldout())
 
@@ -802,8 +794,6 @@ def _alphas_of(results, state: SessionState) -> dict:
 
 def _derive(design, results, state: SessionState, cancel, have: Optional[dict] = None) -> dict:
     """Models at the chosen α, held-out predictions, agreement, structure, stress results."""
-    from regbench.models import engine
-
     have = have or {}
     models = have.get("models")
     if models is None:
@@ -823,18 +813,12 @@ def _derive(design, results, state: SessionState, cancel, have: Optional[dict] =
         heldout = engine.heldout_predictions(design, results, models)
     agreement, structure = have.get("agreement"), have.get("structure")
     if agreement is None:
-        from regbench.analysis.agreement import compare_models
-
         agreement = compare_models(design, models, heldout)
     if structure is None:
-        from regbench.analysis.structure import compare_structure
-
         structure = compare_structure(design, results, models)
     check(cancel)
     stress, sweeps = have.get("stress"), have.get("sweeps")
     if stress is None or sweeps is None:
-        from regbench.analysis.stress import run_stress, stress_sweep
-
         stress = tuple(run_stress(design, models, c) for c in state.stress_configs)
         seen, sw = set(), []
         for c in state.stress_configs:
@@ -899,8 +883,6 @@ def check_settings(s: FitSettings) -> None:
 
 def check_stress(config, design, table=None) -> None:
     """Raise DataError when a stress configuration cannot run on this design."""
-    from regbench.analysis.stress import resolve_column
-
     if isinstance(getattr(config, "column", None), str):
         resolve_column(design, config.column)
     else:
@@ -924,8 +906,6 @@ SAMPLE_NOTE = (
 
 def build_sample_session(csv_path, roles_dict: dict) -> Session:
     """The greenhouse sample project: roles, grouped 5-fold CV, three stress tests, 200 refits, computed."""
-    from regbench.analysis.stress import StressConfig
-
     settings = FitSettings(folds=5, seed=20261201, l1_ratios=(0.5,))
     session = Session.from_table_file(csv_path, Roles.from_dict(roles_dict), settings)
     # The window shows the latest test first: the °C-read-as-°F slip tells the clearest story.

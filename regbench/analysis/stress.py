@@ -489,7 +489,7 @@ def _stress_sentences(design, config, strength, tol, names, shifts, refit: bool)
     out = [first + "."]
     follow = [d.name for _, d in _followers(design, config.column)]
     if follow:
-        out.append(f"Computed from {config.column}, {_join(follow)} {'is' if len(follow) == 1 else 'are'} "
+        out.append(f"Computed from {config.column}, {join_words(follow)} {'is' if len(follow) == 1 else 'are'} "
                    "spoiled with it.")
     finite = [k for k in names if np.isfinite(shifts[k].error_damaged)]
     if movers and finite:

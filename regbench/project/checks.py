@@ -14,7 +14,13 @@ import json
 
 import numpy as np
 
+from regbench.analysis.agreement import Agreement, PairAgreement
+from regbench.analysis.stability import Stability
+from regbench.analysis.stress import ModelShift, StressResult, StressSweep
+from regbench.analysis.structure import Structure
 from regbench.errors import ProjectError
+from regbench.models.results import (CVResult, Diagnostics, FitResults, FitSettings, LinearModel, NearDependency,
+                                     OLSResult, PathResult, PenalizedFit, SetAside)
 
 # Errors the checks themselves can hit on damaged objects.
 _DAMAGE = (TypeError, ValueError, AttributeError, KeyError, IndexError, OverflowError)
@@ -47,9 +53,6 @@ def _names(t, what):
 
 
 def check_fit(results, design) -> None:
-    from regbench.models.results import (CVResult, Diagnostics, FitResults, FitSettings, LinearModel,
-                                         NearDependency, OLSResult, PathResult, PenalizedFit, SetAside)
-
     n, p = design.n, design.p
     _need(isinstance(results, FitResults), "fit is not a fit result")
     _names(results.columns, "fit.columns")
@@ -124,11 +127,6 @@ def check_fit(results, design) -> None:
 
 
 def check_derived(derived: dict, design, n_stress: int) -> None:
-    from regbench.analysis.agreement import Agreement, PairAgreement
-    from regbench.analysis.stress import ModelShift, StressResult, StressSweep
-    from regbench.analysis.structure import Structure
-    from regbench.models.results import LinearModel
-
     n, p = design.n, design.p
     _need(isinstance(derived, dict), "derived must be a dict")
     models = derived.get("models")
@@ -203,8 +201,6 @@ def _check_ranges(rg, design, names) -> None:
 
 
 def check_stability(st, design) -> None:
-    from regbench.analysis.stability import Stability
-
     p = design.p
     _need(isinstance(st, Stability) and st.columns == tuple(design.columns), "stability does not match the design")
     _names(st.models, "stability.models")

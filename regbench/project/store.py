@@ -22,10 +22,19 @@ import numpy as np
 import pandas as pd
 
 from regbench import __version__
-from regbench.errors import ProjectError
-from regbench.models import spec
+from regbench.analysis.stress import STRESS_KINDS
+from regbench.data.design import Roles, build_design
+from regbench.data.table import COLUMN_KINDS, ColumnInfo, Table
+from regbench.errors import DataError, ProjectError
+from regbench.models import ENGINE_VERSION, spec
+from regbench.models.gram import per_fold
+from regbench.models.results import FitSettings
 from regbench.project.atomic import atomic_writer
+from regbench.project.checks import check_derived, check_fit, check_stability, guarded
+from regbench.project.codec import Decoder, Encoder, StaleCache, Unstorable
 from regbench.project.migrate import FORMAT_VERSION, migrate
+from regbench.session import (BOOTSTRAP, Session, SessionState, check_stress, penalized_names, stress_from_dict,
+                              stress_to_dict)
 
 FORMAT_NAME = "regbench-project"
 MANIFEST = "manifest.json"
@@ -132,9 +141,6 @@ def save_project(session, path) -> None:
 def _results_members(session) -> list:
     """results.json and its arrays; none when a result has no stored form (the cache is optional:
     the project is saved whole and is fitted again on opening)."""
-    from regbench.models import ENGINE_VERSION
-    from regbench.project.codec import Encoder, Unstorable
-
     enc = Encoder(RESULTS_DIR)
     try:
         doc = {
@@ -155,8 +161,6 @@ def _results_members(session) -> list:
 
 
 def session_document(session) -> dict:
-    from regbench.session import stress_to_dict
-
     return {
         "roles": session.roles.to_dict(),
         "settings": session.settings.to_dict(),
@@ -355,7 +359,6 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    from regbench.data.table import COLUMN_KINDS, ColumnInfo, Table
 
     def bad(field, what):
         raise ProjectError(f"{ar.label}: {where}.{field} {what}; the file is damaged")
@@ -472,12 +475,6 @@ def _check_parquet_sizes(ar, data: bytes, rows, cols, bad) -> None:
 # -- session.json --------------------------------------------------------------------------
 
 def _session_state(ar: _Archive, doc, table):
-    from regbench.data.design import Roles, build_design
-    from regbench.models.results import FitSettings
-    from regbench.analysis.stress import STRESS_KINDS
-    from regbench.errors import DataError
-    from regbench.session import BOOTSTRAP, SessionState, check_stress, penalized_names
-
     label = f"{ar.label}: session.json"
 
     def bad(field, what, todo="the file is damaged"):
@@ -576,7 +573,6 @@ def _session_state(ar: _Archive, doc, table):
     if not isinstance(stress, list):
         bad("stress", "must be a list")
     configs = []
-    from regbench.session import stress_from_dict
 
     for i, c in enumerate(stress):
         if not (isinstance(c, dict) and "column" in c and "kind" in c):
@@ -645,10 +641,6 @@ def _load_results(ar, m, session, migrated: bool):
 
 def _install_cache(ar, session, migrated, raw: bytes, blobs: dict):
     """Decode and install the cache; returns why it does not apply, or None once installed."""
-    from regbench.models import ENGINE_VERSION
-    from regbench.project.checks import check_derived, check_fit, check_stability, guarded
-    from regbench.project.codec import Decoder, StaleCache
-
     doc = ar.json(RESULTS, raw)
     if not isinstance(doc, dict):
         return "results.json is not an object"
@@ -699,7 +691,6 @@ def _restore_engine_cache(design, results):
     α match a fresh session bit for bit."""
     from dataclasses import replace
 
-    from regbench.models.gram import per_fold
 
     ids = np.asarray(results.fold_ids)
     if ids.size == 0 or ids.min() < 0:
@@ -726,8 +717,6 @@ def load_project(path, compute: bool = True, progress=None, cancel=None):
     ProjectError
         Naming the member and field that is wrong and what to do.
     """
-    from regbench.session import Session
-
     ar = _Archive(path)
     try:
         m = _manifest(ar)
