@@ -474,19 +474,61 @@ def _check_parquet_sizes(ar, data: bytes, rows, cols, bad) -> None:
 
 # -- session.json --------------------------------------------------------------------------
 
+class _Refuse:
+    """Refusals for one member: ``bad(field, what)`` raises one line naming the member and field."""
+
+    def __init__(self, label: str):
+        self.label = label
+
+    def __call__(self, field, what, todo="the file is damaged"):
+        raise ProjectError(f"{self.label}: field {field} {what}; {todo}")
+
+
+_SESSION_KEYS = {"roles", "settings", "chosen_alpha", "extra_fits", "stress", "bootstrap", "notes", "view_state",
+                 "table"}
+
+
 def _session_state(ar: _Archive, doc, table):
+    """The session as session.json describes it, every field checked against the stored table,
+    and the design its roles make of the table (built once here, handed to the session)."""
     label = f"{ar.label}: session.json"
-
-    def bad(field, what, todo="the file is damaged"):
-        raise ProjectError(f"{label}: field {field} {what}; {todo}")
-
+    bad = _Refuse(label)
     if not isinstance(doc, dict):
         raise ProjectError(f"{label}: the top level must be an object; the file is damaged")
-    unknown = set(doc) - {"roles", "settings", "chosen_alpha", "extra_fits", "stress", "bootstrap", "notes",
-                          "view_state", "table"}
+    unknown = set(doc) - _SESSION_KEYS
     if unknown:
         bad(", ".join(sorted(map(str, unknown))[:5]), "is not part of this format",
             "the file is damaged or was written by another program")
+    roles = _roles_of(doc, table, bad)
+    settings = _settings_of(doc, bad)
+    names = set(table.names) | {d.name for d in roles.derived}
+    for c in doc["settings"].get("penalty_factors", {}):
+        if c not in names:
+            bad(f"settings.penalty_factors.{c}", "names a column that is not in the table")
+    try:
+        design = build_design(table, roles)
+    except DataError as exc:
+        bad("roles", f"cannot be used on the stored table ({exc})")
+    for i, p in enumerate(settings.pins):
+        if p not in design.columns:
+            bad(f"settings.pins[{i}]", f"names '{p}', which is not a design column")
+    chosen, extra = _choices_of(doc, set(penalized_names(settings)), bad)
+    configs = _stress_of(doc, design, table, bad)
+    boot = doc.get("bootstrap", 0)
+    if BOOTSTRAP.rule.problem(boot) is not None:
+        bad("bootstrap", f"is unusable: {BOOTSTRAP.rule.problem(boot)}")
+    notes = doc.get("notes", "")
+    if not isinstance(notes, str):
+        bad("notes", "must be text")
+    vs = doc.get("view_state", {})
+    if not isinstance(vs, dict):
+        bad("view_state", "must be an object")
+    state = SessionState(roles=roles, settings=settings, chosen_alpha=chosen, extra_fits=extra,
+                         stress_configs=configs, bootstrap=boot, notes=notes, view_state=vs)
+    return state, design
+
+
+def _roles_of(doc, table, bad) -> Roles:
     roles_d = doc.get("roles")
     if not isinstance(roles_d, dict):
         bad("roles", "is missing or not an object")
@@ -514,8 +556,10 @@ def _session_state(ar: _Archive, doc, table):
                 bad(f"roles.{key}[{i}]", f"names '{c}', which is not a column of the table")
     if roles_d.get("weights_kind", "precision") not in ("precision", "counts"):
         bad("roles.weights_kind", f"is {roles_d.get('weights_kind')!r}; it must be 'counts' or 'precision'")
-    roles = Roles.from_dict(roles_d)
+    return Roles.from_dict(roles_d)
 
+
+def _settings_of(doc, bad) -> FitSettings:
     s = doc.get("settings")
     if not isinstance(s, dict):
         bad("settings", "is missing or not an object")
@@ -527,33 +571,22 @@ def _session_state(ar: _Archive, doc, table):
         bad(f"settings.{key}", f"is unusable: {text}")
     if not isinstance(s.get("penalty_factors", {}), dict):
         bad("settings.penalty_factors", "must be an object of column name -> factor")
-    settings = FitSettings.from_dict(s)
-    for c, v in s.get("penalty_factors", {}).items():
-        if c not in names:
-            bad(f"settings.penalty_factors.{c}", "names a column that is not in the table")
-    design_cols = set()
-    design = None
-    try:
-        design = build_design(table, roles)
-        design_cols = set(design.columns)
-    except DataError as exc:
-        bad("roles", f"cannot be used on the stored table ({exc})")
-    for i, p in enumerate(settings.pins):
-        if p not in design_cols:
-            bad(f"settings.pins[{i}]", f"names '{p}', which is not a design column")
+    return FitSettings.from_dict(s)
 
-    families = set(penalized_names(settings))
 
-    def positive(v):
-        return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) and v > 0
+def _positive(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) and v > 0
 
+
+def _choices_of(doc, families: set, bad):
+    """The chosen α per family and the extra fits, as plain values."""
     ca = doc.get("chosen_alpha", {})
     if not isinstance(ca, dict):
         bad("chosen_alpha", "must be an object of model name -> α")
     for k, v in ca.items():
         if k not in families:
             bad(f"chosen_alpha.{k}", f"names an unknown model; known: {', '.join(sorted(families))}")
-        if not positive(v):
+        if not _positive(v):
             bad(f"chosen_alpha.{k}", f"is {v!r}, not a positive number")
     extra = doc.get("extra_fits", [])
     if not isinstance(extra, list):
@@ -567,13 +600,18 @@ def _session_state(ar: _Archive, doc, table):
         seen.add(e["name"])
         if not isinstance(e["family"], str) or e["family"] not in families:
             bad(f"extra_fits[{i}].family", f"is {e['family']!r}; known: {', '.join(sorted(families))}")
-        if not positive(e["alpha"]):
+        if not _positive(e["alpha"]):
             bad(f"extra_fits[{i}].alpha", f"is {e['alpha']!r}, not a positive number")
+    return ({k: float(v) for k, v in ca.items()},
+            tuple({"name": e["name"], "family": e["family"], "alpha": float(e["alpha"])} for e in extra))
+
+
+def _stress_of(doc, design, table, bad) -> tuple:
+    """The stress tests, each checked to run on the design."""
     stress = doc.get("stress", [])
     if not isinstance(stress, list):
         bad("stress", "must be a list")
     configs = []
-
     for i, c in enumerate(stress):
         if not (isinstance(c, dict) and "column" in c and "kind" in c):
             bad(f"stress[{i}]", "must be an object with at least column and kind")
@@ -599,20 +637,7 @@ def _session_state(ar: _Archive, doc, table):
         except (TypeError, ValueError) as exc:
             bad(f"stress[{i}]", f"is not a valid stress test ({exc})")
         configs.append(cfg)
-    boot = doc.get("bootstrap", 0)
-    if BOOTSTRAP.rule.problem(boot) is not None:
-        bad("bootstrap", f"is unusable: {BOOTSTRAP.rule.problem(boot)}")
-    notes = doc.get("notes", "")
-    if not isinstance(notes, str):
-        bad("notes", "must be text")
-    vs = doc.get("view_state", {})
-    if not isinstance(vs, dict):
-        bad("view_state", "must be an object")
-    state = SessionState(roles=roles, settings=settings, chosen_alpha={k: float(v) for k, v in ca.items()},
-                   extra_fits=tuple({"name": e["name"], "family": e["family"], "alpha": float(e["alpha"])}
-                                    for e in extra),
-                   stress_configs=tuple(configs), bootstrap=boot, notes=notes, view_state=vs)
-    return state, design
+    return tuple(configs)
 
 
 # -- cached results ------------------------------------------------------------------------
