@@ -22,22 +22,23 @@ import json
 import math
 from collections import deque
 from dataclasses import dataclass, field, replace
-from typing import Callable, Optional
+from typing import Callable, Dict, Optional, Tuple
 
 import numpy as np
 
-from regbench.analysis.agreement import compare_models
+from regbench.analysis.agreement import Agreement, compare_models
 from regbench.analysis.fit_quality import fit_quality
-from regbench.analysis.stability import bootstrap_stability
-from regbench.analysis.stress import StressConfig, resolve_column, run_stress, stress_sweep
-from regbench.analysis.structure import compare_structure
+from regbench.analysis.ranges import Ranges, compute_ranges
+from regbench.analysis.stability import Stability, bootstrap_stability
+from regbench.analysis.stress import StressConfig, StressResult, StressSweep, resolve_column, run_stress, stress_sweep
+from regbench.analysis.structure import Structure, compare_structure
 from regbench.data.derive import apply_derived, make_derived
 from regbench.data.design import Roles, build_design
 from regbench.data.reader import read_table
 from regbench.data.table import Table
 from regbench.errors import DataError
 from regbench.models import engine, spec
-from regbench.models.results import FitSettings
+from regbench.models.results import FitResults, FitSettings, LinearModel
 from regbench.progress import check, report
 
 #: How many edits :meth:`Session.undo` can take back.
@@ -101,16 +102,16 @@ class ComputedResults:
 
     fit_key: str
     key: str
-    results: object  # FitResults
-    models: dict = field(default_factory=dict)
-    heldout: dict = field(default_factory=dict)
-    agreement: object = None
-    structure: object = None
-    stress: tuple = ()
-    sweeps: tuple = ()
-    ranges: object = None
-    stability: object = None
-    stability_alphas: dict = field(default_factory=dict)
+    results: FitResults
+    models: Dict[str, LinearModel] = field(default_factory=dict)
+    heldout: Dict[str, np.ndarray] = field(default_factory=dict)
+    agreement: Optional[Agreement] = None
+    structure: Optional[Structure] = None
+    stress: Tuple[StressResult, ...] = ()
+    sweeps: Tuple[StressSweep, ...] = ()
+    ranges: Optional[Ranges] = None
+    stability: Optional[Stability] = None
+    stability_alphas: Dict[str, float] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -124,13 +125,13 @@ class AlphaUpdate:
     key: str
     name: Optional[str]
     alpha: Optional[float]
-    models: dict = field(default_factory=dict)
-    heldout: dict = field(default_factory=dict)
-    agreement: object = None
-    structure: object = None
-    stress: tuple = ()
-    sweeps: tuple = ()
-    ranges: object = None
+    models: Dict[str, LinearModel] = field(default_factory=dict)
+    heldout: Dict[str, np.ndarray] = field(default_factory=dict)
+    agreement: Optional[Agreement] = None
+    structure: Optional[Structure] = None
+    stress: Tuple[StressResult, ...] = ()
+    sweeps: Tuple[StressSweep, ...] = ()
+    ranges: Optional[Ranges] = None
 
 
 _DERIVED_KEYS = ("models", "heldout", "agreement", "structure", "stress", "sweeps", "ranges")
@@ -829,8 +830,6 @@ def _derive(design, results, state: SessionState, cancel, have: Optional[dict] =
         sweeps = tuple(sw)
     ranges = have.get("ranges") if "models" in have else None
     if ranges is None:
-        from regbench.analysis.ranges import compute_ranges
-
         try:
             ranges = compute_ranges(design, results, state.settings.range_tolerance, models=models)
         except (ValueError, np.linalg.LinAlgError):
