@@ -29,18 +29,18 @@ CATEGORY_KINDS = ("shuffle", "constant", "missing")
 
 def kinds_for(session, column: str) -> tuple:
     """The kinds of damage that make sense for ``column``: rescaling or adding noise to category codes does not."""
-    from regbench.analysis.stress import KINDS
+    from regbench.analysis.stress import STRESS_KINDS
     from regbench.data.table import BOOLEAN, CATEGORICAL
 
     if session is None or not column:
-        return KINDS
+        return STRESS_KINDS
     try:
         info = session.columns_table.columns[column] if hasattr(session, "columns_table") else session.table.columns[column]
     except KeyError:
-        return KINDS
+        return STRESS_KINDS
     if info.kind in (CATEGORICAL, BOOLEAN) or column in session.roles.categorical:
         return CATEGORY_KINDS
-    return KINDS
+    return STRESS_KINDS
 
 
 class StressPanel(Panel):
@@ -128,13 +128,13 @@ class StressPanel(Panel):
 
     def _offer_kinds(self, *_):
         """Only the damage that makes sense for the chosen column's kind."""
-        from regbench.analysis.stress import KINDS
+        from regbench.analysis.stress import STRESS_KINDS
 
         allowed = kinds_for(self.session, self.column.currentText())
         current = self.kind.currentData()
         self.kind.blockSignals(True)
         self.kind.clear()
-        for k in KINDS:
+        for k in STRESS_KINDS:
             if k in allowed:
                 self.kind.addItem(KIND_WORDS.get(k, k), k)
         self.kind.setCurrentIndex(max(0, self.kind.findData(current)))
