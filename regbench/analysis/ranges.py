@@ -55,7 +55,7 @@ from typing import Optional
 import numpy as np
 
 from regbench.formatting import number_text
-from regbench.models.results import MODEL_NAMES, model_label
+from regbench.models.results import MODEL_NAMES, Result, model_label
 
 #: ``tolerance_kind`` of a tolerance the user set, and of the held-out variant.
 KIND_SET = "set"
@@ -69,8 +69,8 @@ WIDEST_ROWS = 5
 ROW_COLUMNS = 3
 
 
-@dataclass(frozen=True)
-class ModelPlace:
+@dataclass(frozen=True, eq=False)
+class ModelPlace(Result):
     """Where one fitted model sits in the set.
 
     Attributes
@@ -91,8 +91,8 @@ class ModelPlace:
     position: np.ndarray
 
 
-@dataclass(frozen=True)
-class Ranges:
+@dataclass(frozen=True, eq=False)
+class Ranges(Result):
     """Ranges of coefficients, importances and predictions over every near-best model.
 
     Arrays of length p follow ``columns``; NaN marks an unbounded end.

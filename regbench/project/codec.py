@@ -48,6 +48,8 @@ STORED_TYPES = {
     "penalty-path": "regbench.models.results:PathResult",
     "cross-validation": "regbench.models.results:CVResult",
     "penalized-fit": "regbench.models.results:PenalizedFit",
+    "convergence": "regbench.models.results:Convergence",
+    "relaxation-cv": "regbench.models.results:RelaxationCV",
     "agreement": "regbench.analysis.agreement:Agreement",
     "pair-agreement": "regbench.analysis.agreement:PairAgreement",
     "structure": "regbench.analysis.structure:Structure",
@@ -59,6 +61,8 @@ STORED_TYPES = {
     "stress-sweep": "regbench.analysis.stress:StressSweep",
     "column-ranking": "regbench.analysis.stress:ColumnRanking",
     "stability": "regbench.analysis.stability:Stability",
+    "ranges": "regbench.analysis.ranges:Ranges",
+    "model-place": "regbench.analysis.ranges:ModelPlace",
 }
 _STORED_NAME = {path: name for name, path in STORED_TYPES.items()}
 _NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
