@@ -54,7 +54,7 @@ from typing import Optional
 
 import numpy as np
 
-from regbench.formatting import number_text
+from regbench.formatting import join_words, number_text
 from regbench.models.results import MODEL_NAMES, Result, model_label
 
 #: ``tolerance_kind`` of a tolerance the user set, and of the held-out variant.
@@ -464,13 +464,6 @@ def _widest(X, mean, sd, columns, rn, centre, half) -> tuple:
     return tuple(out)
 
 
-def _join(names, word="and") -> str:
-    names = list(names)
-    if len(names) <= 1:
-        return "".join(names)
-    return ", ".join(names[:-1]) + f" {word} " + names[-1]
-
-
 def _trades(columns, ell, set_aside) -> tuple:
     """One entry per set-aside column: the columns that trade weight with it, and why."""
     from regbench.models.ols import combination_text
@@ -526,7 +519,7 @@ def ranges_sentences(r: Ranges) -> list:
         others = [cols[k] for k in open_sign if k != j]
         if others:
             more = others[:4] + ([f"{len(others) - 4} more"] if len(others) > 4 else [])
-            s = s[:-1] + f"; nor those of {_join(more)}."
+            s = s[:-1] + f"; nor those of {join_words(more)}."
         out.append(s)
     else:
         n_set = int(r.sign_settled.sum())
@@ -540,16 +533,16 @@ def ranges_sentences(r: Ranges) -> list:
                    f"{where} (most on row {int(r.row_numbers[i])}).")
     unb = [cols[j] for j in range(len(cols)) if not r.bounded[j]]
     if unb:
-        out.append(f"The coefficients of {_join(unb)} are not bounded at all: the dependencies OLS set aside let "
+        out.append(f"The coefficients of {join_words(unb)} are not bounded at all: the dependencies OLS set aside let "
                    "them take any value without changing the predictions on these rows.")
     inside = [n for n, m in r.models.items() if m.inside and n != "ols"]
     outside = [n for n, m in r.models.items() if not m.inside]
     if outside:
         words = ", ".join(f"{model_label(n).lower()} ({_percent(r.models[n].excess)} above)" for n in outside)
-        out.append(f"Outside the set: {words}." + (f" Inside: {_join([model_label(n).lower() for n in inside])}."
+        out.append(f"Outside the set: {words}." + (f" Inside: {join_words([model_label(n).lower() for n in inside])}."
                                                     if inside else ""))
     elif inside:
-        out.append(f"{_join([model_label(n) for n in inside])} at their chosen α all lie inside the set.")
+        out.append(f"{join_words([model_label(n) for n in inside])} at their chosen α all lie inside the set.")
     return out
 
 
