@@ -19,7 +19,8 @@ from sklearn.linear_model import ElasticNet, Lasso
 import regbench.models.penalized as pen
 from regbench.data import design_from_arrays
 from regbench.models.engine import fit_all, model_at
-from regbench.models.export import fit_summary_text, fit_to_json
+from regbench.models.export import fit_to_json
+from regbench.sentences import fit_summary_text
 from regbench.models.gram import gram_stats
 from regbench.models.penalized import GAP_TOL, Problem, duality_gaps
 from regbench.models.results import FitSettings
