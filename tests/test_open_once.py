@@ -11,6 +11,7 @@ ROOT = Path(__file__).resolve().parents[1]
 
 def test_opening_a_project_builds_the_design_once(monkeypatch):
     import regbench.data.design as design_mod
+    import regbench.project.store as store_mod
     import regbench.session as session_mod
     from regbench.project import load_project
 
@@ -26,6 +27,7 @@ def test_opening_a_project_builds_the_design_once(monkeypatch):
 
     monkeypatch.setattr(design_mod, "build_design", counting)
     monkeypatch.setattr(session_mod, "build_design", counting)
+    monkeypatch.setattr(store_mod, "build_design", counting)
     session = load_project(sample, compute=False)
     assert len(calls) == 1
     # The one design is the one the loader checked the roles against.
