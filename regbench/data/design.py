@@ -56,6 +56,14 @@ class Roles:
     groups: Optional[str] = None
     derived: tuple = ()
     weights_kind: str = "precision"
+    #: 'numeric', 'binary', or None to decide from the target (two distinct values: binary).
+    outcome: Optional[str] = None
+    #: For a yes/no outcome, the target value (as text) that counts as "yes"; None: the
+    #: stated default (see :func:`default_positive_level`).
+    positive_level: Optional[str] = None
+    #: For aggregated yes/no rows: the column holding each row's "no" count (``target`` then
+    #: holds the "yes" count).
+    no_count: Optional[str] = None
 
     def to_dict(self) -> dict:
         d = {
@@ -72,6 +80,10 @@ class Roles:
         # Only when present, so the key of a session without derived columns is unchanged.
         if self.derived:
             d["derived"] = [x.to_dict() for x in self.derived]
+        # Written only when set, so a numeric session's file is unchanged.
+        for k in ("outcome", "positive_level", "no_count"):
+            if getattr(self, k) is not None:
+                d[k] = getattr(self, k)
         return d
 
     @classmethod
@@ -84,6 +96,9 @@ class Roles:
             groups=d.get("groups"),
             derived=tuple(Derived.from_dict(x, f"roles.derived[{i}]") for i, x in enumerate(d.get("derived") or ())),
             weights_kind=str(d.get("weights_kind") or "precision"),
+            outcome=d.get("outcome"),
+            positive_level=None if d.get("positive_level") is None else str(d["positive_level"]),
+            no_count=d.get("no_count"),
         )
 
 
@@ -161,6 +176,16 @@ class Design:
     derived: tuple = ()
     column_notes: tuple = ()
     weights_kind: str = "precision"
+    #: 'numeric' or 'binary'.  For 'binary', ``y`` is 1.0 for "yes" and 0.0 for "no" (or the
+    #: share of "yes" in a row of yes/no counts, whose weight is then the row's total count).
+    outcome: str = "numeric"
+    #: For 'binary': the two target values as text, ("no" level, "yes" level).
+    levels: tuple = ()
+    no_count_column: Optional[str] = None
+
+    @property
+    def positive_level(self) -> Optional[str]:
+        return self.levels[1] if self.levels else None
 
     @property
     def n(self) -> int:
@@ -250,7 +275,7 @@ def default_predictors(table: Table, roles: Roles) -> tuple:
     """Every column that is not the target, the weights or the groups, is not empty and
     does not look like an identifier (see :func:`looks_like_identifier`) and was not read as text
     although it looks numeric (see ``ColumnInfo.read_as_text``)."""
-    skip = {roles.target, roles.weights, roles.groups}
+    skip = {roles.target, roles.weights, roles.groups, roles.no_count}
     return tuple(
         c for c in table.names
         if c not in skip and table.columns[c].kind != EMPTY and not looks_like_identifier(table, c)
@@ -287,7 +312,10 @@ def build_design(table: Table, roles: Roles) -> Design:
     tinfo = table.info(roles.target)
     notes = tuple((c, table.columns[c].note, table.columns[c].kind == CATEGORICAL)
                   for c in table.names if getattr(table.columns[c], "note", ""))
-    if tinfo.kind not in (NUMERIC, BOOLEAN):
+    outcome, outcome_levels = outcome_of(table, roles)
+    if outcome == "binary" and roles.no_count is None:
+        pass  # a two-valued target of any kind; coded 0/1 below
+    elif tinfo.kind not in (NUMERIC, BOOLEAN):
         numeric = [c for c in table.names if table.columns[c].kind == NUMERIC]
         why = f" (it {tinfo.note})" if getattr(tinfo, "note", "") else ""
         raise DataError(
@@ -298,7 +326,7 @@ def build_design(table: Table, roles: Roles) -> Design:
     unusable = []
     if not roles.predictors:
         for c in table.names:
-            if c in {roles.target, roles.weights, roles.groups}:
+            if c in {roles.target, roles.weights, roles.groups, roles.no_count}:
                 continue
             if table.columns[c].read_as_text:
                 # One-hot coding a mistyped number column would give one indicator per value.
@@ -311,7 +339,7 @@ def build_design(table: Table, roles: Roles) -> Design:
                        "not used by default (name it among the predictors to use it)"))
             elif table.columns[c].kind == EMPTY:
                 unusable.append(UnusableColumn(c, "every cell is empty"))
-    predictors = tuple(c for c in predictors if c not in {roles.target, roles.weights, roles.groups})
+    predictors = tuple(c for c in predictors if c not in {roles.target, roles.weights, roles.groups, roles.no_count})
     if not predictors:
         raise DataError(f"{src}: no predictor columns; choose at least one column besides the target")
     frame = table.frame
@@ -324,11 +352,34 @@ def build_design(table: Table, roles: Roles) -> Design:
             if i not in reasons:
                 reasons[i] = (column, why(i) if callable(why) else why)
 
-    y_all = frame[roles.target].to_numpy(dtype=float)
     bad_text = dict(tinfo.bad_cells)
-    exclude(~np.isfinite(y_all), roles.target,
-            lambda i: f"text '{bad_text[rn[i]]}' where a number was expected" if rn[i] in bad_text
-            else ("target is infinite" if np.isinf(y_all[i]) else "target is missing"))
+    count_total = None
+    if outcome == "binary" and roles.no_count is None:
+        texts = _target_texts(frame[roles.target], tinfo.kind)
+        y_all = np.where(texts == outcome_levels[1], 1.0, 0.0)
+        y_all[texts == None] = np.nan  # noqa: E711 (element-wise test of an object array)
+        exclude(np.isnan(y_all), roles.target,
+                lambda i: f"text '{bad_text[rn[i]]}' where a number was expected" if rn[i] in bad_text
+                else "target is missing")
+    else:
+        y_all = frame[roles.target].to_numpy(dtype=float)
+        exclude(~np.isfinite(y_all), roles.target,
+                lambda i: f"text '{bad_text[rn[i]]}' where a number was expected" if rn[i] in bad_text
+                else ("target is infinite" if np.isinf(y_all[i]) else "target is missing"))
+    if roles.no_count is not None:
+        # Aggregated rows: the yes count and the no count of each row.  The row stands for
+        # yes + no people, a share yes/(yes + no) of them "yes"; its weight is that total.
+        yes = y_all
+        no = frame[roles.no_count].to_numpy(dtype=float)
+        nbad = dict(table.info(roles.no_count).bad_cells)
+        exclude(~np.isfinite(no), roles.no_count,
+                lambda i: f"text '{nbad[rn[i]]}' where a count was expected" if rn[i] in nbad
+                else ("no count is infinite" if np.isinf(no[i]) else "no count is missing"))
+        with np.errstate(invalid="ignore"):
+            exclude(yes < 0, roles.target, lambda i: f"yes count is negative ({yes[i]:g}); counts must be >= 0")
+            exclude(no < 0, roles.no_count, lambda i: f"no count is negative ({no[i]:g}); counts must be >= 0")
+            count_total = yes + no
+            y_all = np.where(count_total > 0, yes / np.where(count_total > 0, count_total, 1.0), 0.0)
 
     if roles.weights is not None:
         winfo = table.info(roles.weights)
@@ -391,6 +442,8 @@ def build_design(table: Table, roles: Roles) -> Design:
         )
     y = y_all[rows]
     w = w_all[rows]
+    if count_total is not None:
+        w = w * count_total[rows]
     if roles.weights is not None and not np.any(w > 0):
         raise DataError(f"{src}: weights column '{roles.weights}' is zero on every usable row; weights must add up to more than 0")
     if roles.weights is not None and roles.weights_kind == COUNTS:
@@ -401,7 +454,13 @@ def build_design(table: Table, roles: Roles) -> Design:
                 f"{src}: row {int(rows[i]) + 1}, weights column '{roles.weights}': {w[i]:g} is not a whole number, "
                 "but the weights are counts (a row stands for that many observations); fix the count or "
                 "choose precision weights")
-    if np.ptp(y[w > 0]) == 0:
+    if outcome == "binary" and (not np.any(w * y > 0) or not np.any(w * (1.0 - y) > 0)):
+        only = outcome_levels[1] if np.any(w * y > 0) else outcome_levels[0]
+        raise DataError(
+            f"{src}: target '{roles.target}' is '{only}' on every usable row, so there is no yes/no "
+            "outcome to explain; choose another target or check the excluded rows"
+        )
+    if outcome == "numeric" and np.ptp(y[w > 0]) == 0:
         raise DataError(
             f"{src}: target '{roles.target}' has the same value ({y[0]:g}) on every usable row, "
             "so there is nothing to explain; choose another target"
@@ -462,7 +521,103 @@ def build_design(table: Table, roles: Roles) -> Design:
         derived=tuple(roles.derived),
         column_notes=notes,
         weights_kind=roles.weights_kind if roles.weights is not None else PRECISION,
+        outcome=outcome,
+        levels=tuple(outcome_levels),
+        no_count_column=roles.no_count,
     )
+
+
+#: Target values read as "yes" when a text outcome has one of them (case ignored).
+YES_WORDS = ("yes", "y", "true", "t", "1", "pass", "passed", "positive", "top")
+
+
+def _target_texts(values, kind) -> np.ndarray:
+    """Each target cell as level text (None where missing)."""
+    if kind in (NUMERIC, BOOLEAN):
+        arr = values.to_numpy(dtype=float)
+        return np.array([None if not np.isfinite(v) else _level_text(float(v)) for v in arr], dtype=object)
+    import pandas as pd
+
+    return np.array([None if pd.isna(v) else _level_text(v) for v in values.to_numpy(dtype=object)],
+                    dtype=object)
+
+
+def default_positive_level(levels, kind: str) -> str:
+    """Which of two target values counts as "yes" unless the person says otherwise.
+
+    Numbers (0/1, true/false): the larger.  Text: a value that reads as yes
+    (:data:`YES_WORDS`) when exactly one does, else the second in sorted order.
+    """
+    levels = list(levels)
+    if kind in (NUMERIC, BOOLEAN):
+        return max(levels, key=float)
+    yes = [v for v in levels if v.strip().lower() in YES_WORDS]
+    return yes[0] if len(yes) == 1 else sorted(levels)[1]
+
+
+def target_levels(table: Table, target: str) -> tuple:
+    """The distinct values of ``target`` as text, sorted (numbers by value); at most 3 are listed."""
+    info = table.info(target)
+    values = table.frame[target]
+    if info.kind in (NUMERIC, BOOLEAN):
+        arr = values.to_numpy(dtype=float)
+        # Only the distinct values are turned into text (a long column costs one sort).
+        uniq = np.unique(arr[np.isfinite(arr)])[:3]
+        return tuple(_level_text(float(v)) for v in uniq)
+    uniq = values.dropna().unique()
+    return tuple(sorted({_level_text(v) for v in uniq[:1000]})[:3]) if len(uniq) <= 1000 else tuple(
+        sorted(_level_text(v) for v in uniq[:3]))
+
+
+def outcome_of(table: Table, roles: Roles) -> tuple:
+    """The kind of target and, for a yes/no outcome, its levels ("no", "yes").
+
+    A target with exactly two distinct values is a yes/no outcome unless
+    ``roles.outcome`` says 'numeric'; ``roles.outcome == 'binary'`` on a target
+    with another number of values is an error naming the column.
+
+    Returns
+    -------
+    (outcome, levels) : (str, tuple)
+        levels is () for a numeric target.
+    """
+    src = table.source or "the table"
+    if roles.outcome not in (None, "numeric", "binary"):
+        raise DataError(f"outcome: '{roles.outcome}' is not one of numeric, binary")
+    if roles.no_count is not None:
+        table.info(roles.no_count)
+        if roles.outcome == "numeric":
+            raise DataError(f"{src}: a no-count column ('{roles.no_count}') makes the outcome yes/no; "
+                            "drop the no count or choose the binary outcome")
+        for c in (roles.target, roles.no_count):
+            if table.info(c).kind not in (NUMERIC, BOOLEAN):
+                raise DataError(f"{src}: count column '{c}' is {table.info(c).kind}; yes and no counts must be numbers >= 0")
+        if roles.positive_level is not None and roles.positive_level not in (roles.target, roles.no_count):
+            raise DataError(f"positive_level: '{roles.positive_level}' must be '{roles.target}' (the yes count) "
+                            "with count columns; swap the two count columns to swap yes and no")
+        return "binary", (roles.no_count, roles.target)
+    if roles.outcome == "numeric":
+        return "numeric", ()
+    info = table.info(roles.target)
+    if roles.outcome is None and info.distinct != 2:
+        return "numeric", ()
+    levels = target_levels(table, roles.target)
+    two = len(levels) == 2
+    if roles.outcome is None and not two:
+        return "numeric", ()
+    if not two:
+        raise DataError(
+            f"{src}: target '{roles.target}' has {info.distinct} distinct values; a yes/no outcome needs "
+            "exactly two (choose the numeric outcome, or a two-valued target)")
+    if roles.positive_level is not None:
+        pos = str(roles.positive_level)
+        if pos not in levels:
+            raise DataError(f"positive_level: '{pos}' is not a value of target '{roles.target}'; "
+                            f"its values are '{levels[0]}' and '{levels[1]}'")
+    else:
+        pos = default_positive_level(levels, info.kind)
+    neg = levels[0] if levels[1] == pos else levels[1]
+    return "binary", (neg, pos)
 
 
 def _check_unique_names(names, sources, src) -> None:
@@ -498,8 +653,11 @@ def _check_magnitudes(src, X, names, y, w, rows, roles) -> None:
 
 
 def design_from_arrays(X, y, columns: Sequence[str] = None, weights=None, groups=None, target: str = "y",
-                       weights_kind: str = PRECISION) -> Design:
-    """A design straight from arrays, for tests and benchmarks (no table, no exclusions)."""
+                       weights_kind: str = PRECISION, outcome: str = "numeric") -> Design:
+    """A design straight from arrays, for tests and benchmarks (no table, no exclusions).
+
+    ``outcome='binary'`` takes ``y`` as 1 for "yes" and 0 for "no" (or a share of "yes").
+    """
     X = np.ascontiguousarray(np.asarray(X, dtype=np.float64))
     if X.ndim == 1:
         X = X[:, None]
@@ -516,6 +674,7 @@ def design_from_arrays(X, y, columns: Sequence[str] = None, weights=None, groups
         row_numbers=np.arange(1, n + 1), weights_column=None if weights is None else "weights",
         groups_column=None if groups is None else "groups", group_labels=labels, n_table_rows=n,
         weights_kind=weights_kind if weights is not None else PRECISION,
+        outcome=outcome, levels=("0", "1") if outcome == "binary" else (),
     )
 
 

@@ -98,6 +98,10 @@ def fit_all(design, settings: FitSettings = FitSettings(), progress=None, cancel
     from regbench.models.diagnostics import diagnose
 
     _validate(settings)
+    if getattr(design, "outcome", "numeric") == "binary":
+        from regbench.models.logistic import fit_all_binary
+
+        return fit_all_binary(design, settings, progress, cancel)
     fams = families(settings)
     K = int(settings.folds)
     total = 3 + len(fams)
@@ -295,9 +299,15 @@ def model_at(design, results: FitResults, name: str, alpha: float) -> LinearMode
     """The exact fit of family ``name`` at ``alpha`` on the whole design (OLS: the OLS model)."""
     if name == "ols":
         return results.ols.model
+    if name == "logistic":
+        return results.models()["logistic"]
     if not (np.isfinite(alpha) and alpha > 0):
         raise ModelError(f"α = {alpha:g} for {name}: α must be a positive number")
     rho = _l1_ratio_of(results, name)
+    if getattr(results, "outcome", "numeric") == "binary":
+        from regbench.models.logistic import model_at_alpha
+
+        return model_at_alpha(design, name, rho, float(alpha))
     stats = results.gram if isinstance(results.gram, GramStats) else gram_stats(design.X, design.y, design.weights)
     problem = _problem(stats, design, results.settings)
     check_alpha(problem, float(alpha), name)
@@ -343,6 +353,8 @@ def heldout_predictions(design, results: FitResults, models: dict) -> dict:
         raise ModelError(f"the fold of each row is known for {ids.shape[0]} rows but the design has {design.n}; "
                          "fit again on this design")
     K = int(ids.max()) + 1
+    if getattr(results, "outcome", "numeric") == "binary":
+        return _heldout_binary(design, results, models, ids, K)
     full, folds = per_fold(design.X, design.y, design.weights, ids, K)
     train_stats = [_training(full, f, k) for k, f in enumerate(folds)]
     problems = [None] * K
@@ -360,6 +372,25 @@ def heldout_predictions(design, results: FitResults, models: dict) -> dict:
                 fm = model_from_problem(problems[k], name, rho, float(m.alpha), design.columns, coef_init=m.coef_std,
                                         relaxation=m.relaxation)
             pred[rows[k]] = fm.predict(design.X[rows[k]])
+        out[name] = pred
+    return out
+
+
+def _heldout_binary(design, results, models, ids, K) -> dict:
+    """Held-out probabilities of each yes/no model, refitted without each fold."""
+    from regbench.models.logistic import model_at_alpha, refit_unpenalized
+
+    out = {}
+    for name, m in models.items():
+        pred = np.empty(design.n)
+        for k in range(K):
+            train, test = ids != k, ids == k
+            if name == "logistic":
+                fm = refit_unpenalized(design, results.logistic.kept, train)
+            else:
+                rho = float(m.l1_ratio) if m.l1_ratio is not None else _l1_ratio_of(results, name)
+                fm = model_at_alpha(design, name, rho, float(m.alpha), rows_mask=train)
+            pred[test] = fm.predict(design.X[test])
         out[name] = pred
     return out
 
@@ -415,6 +446,8 @@ def fit_models_at(design, settings: FitSettings, alphas: Optional[dict] = None,
     dict of name -> LinearModel, OLS first.
     """
     alphas = dict(alphas or {})
+    if getattr(design, "outcome", "numeric") == "binary":
+        return _models_at_binary(design, settings, alphas)
     out = {"ols": _ols(design, settings).model}
     problem = _problem(gram_stats(design.X, design.y, design.weights), design, settings)
     for name, rho in families(settings):
@@ -437,3 +470,20 @@ def relaxation_for(settings: FitSettings, name: str, relaxations: Optional[dict]
     if g is None:
         raise ModelError(f"no relaxation given for {name}; pass one per relaxed model or fix it in the settings")
     return float(g)
+def _models_at_binary(design, settings: FitSettings, alphas: dict) -> dict:
+    from regbench.models.logistic import fit_logistic, model_at_alpha
+
+    out = {}
+    lr = fit_logistic(design, pins=settings.pins, rank_tol=settings.rank_tol)
+    if lr.model is not None:
+        out["logistic"] = lr.model
+    for name, rho in families(settings):
+        if name.startswith("relaxed_"):
+            continue  # a least-squares option; yes/no outcomes have the plain families
+        a = alphas.get(name, settings.alpha)
+        if a is None:
+            raise ModelError(f"no α given for {name}; pass one per model or set a fixed α in the settings")
+        if not (np.isfinite(a) and a > 0):
+            raise ModelError(f"α = {a:g} for {name}: α must be a positive number")
+        out[name] = model_at_alpha(design, name, rho, float(a))
+    return out

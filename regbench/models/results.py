@@ -74,8 +74,11 @@ class Result:
 
 #: Names of the four model families, in the order every view lists them.
 MODEL_NAMES = ("ols", "ridge", "lasso", "elastic_net")
-MODEL_LABELS = {"ols": "OLS", "ridge": "Ridge", "lasso": "Lasso", "elastic_net": "Elastic net",
+MODEL_LABELS = {"ols": "OLS", "logistic": "Logistic", "ridge": "Ridge", "lasso": "Lasso", "elastic_net": "Elastic net",
                 "relaxed_lasso": "Relaxed lasso", "relaxed_elastic_net": "Relaxed elastic net"}
+#: Kinds of target: a number, or a yes/no outcome (two distinct values).
+OUTCOMES = ("numeric", "binary")
+ALPHA_RULES = ("fixed", "cv_min", "cv_1se")
 
 
 def model_label(name: str) -> str:
@@ -120,6 +123,9 @@ class LinearModel(Result):
     converged: Optional[bool] = None
     #: Relaxation γ of a relaxed family's model (see :mod:`regbench.models.relaxed`); None otherwise.
     relaxation: Optional[float] = None
+    #: 'numeric' (predictions on the target's scale) or 'binary' (predictions are
+    #: probabilities of "yes": the inverse logit of the linear predictor).
+    outcome: str = "numeric"
 
     @property
     def used(self) -> np.ndarray:
@@ -132,6 +138,15 @@ class LinearModel(Result):
         Only used columns enter the product, so a column the model does not use
         cannot change a prediction even when it holds NaN or inf.
         """
+        eta = self.linear_predictor(X)
+        if self.outcome == "binary":
+            from scipy.special import expit
+
+            return expit(eta)
+        return eta
+
+    def linear_predictor(self, X: np.ndarray) -> np.ndarray:
+        """``intercept + X @ coef`` (for a yes/no outcome: the log-odds of "yes")."""
         used = np.flatnonzero(self.used)
         X = np.asarray(X, dtype=np.float64)
         if used.size == 0:
@@ -321,6 +336,9 @@ class CVResult(Result):
     grouped: bool
     #: The lowest CV error is at the smallest α of the grid: the true minimum may lie below it.
     at_edge: bool = False
+    #: What ``mean`` measures: 'mse' (weighted mean squared error) or 'log_loss'
+    #: (weighted mean log-loss, for a yes/no outcome).
+    measure: str = "mse"
 
 
 @dataclass(frozen=True, eq=False)
@@ -409,12 +427,84 @@ class FitResults(Result):
     penalized: Dict[str, PenalizedFit]  # model name -> fit, in display order
     fold_ids: np.ndarray  # (n,) fold of each design row, 0..K-1
     n_obs: int
+    #: 'numeric' or 'binary'.  For a yes/no outcome ``ols`` is the least-squares fit of
+    #: the 0/1 target, kept only for the columns it set aside and the diagnostics (both
+    #: are about the predictors alone); the unpenalized model is ``logistic``.
+    outcome: str = "numeric"
+    logistic: Optional["LogisticResult"] = None
+
+    @property
+    def unpenalized_name(self) -> str:
+        """'ols' for a numeric target, 'logistic' for a yes/no outcome."""
+        return "logistic" if self.outcome == "binary" else "ols"
     #: The engine's per-fold cross-products (not stored in a project; rebuilt on load).
     gram: Optional[GramStats] = field(default=None, repr=False, compare=False)
 
     def models(self) -> dict:
-        """name -> LinearModel for OLS and every penalized model, in display order."""
-        out = {"ols": self.ols.model}
+        """name -> LinearModel for the unpenalized model and every penalized model, in display order.
+
+        For a yes/no outcome whose classes a column separates, the unpenalized
+        logistic model has no finite estimate and is left out (see
+        ``logistic.separation``).
+        """
+        if self.outcome == "binary":
+            out = {}
+            if self.logistic is not None and self.logistic.model is not None:
+                out["logistic"] = self.logistic.model
+        else:
+            out = {"ols": self.ols.model}
         for name, pf in self.penalized.items():
             out[name] = pf.model
         return out
+
+
+@dataclass(frozen=True)
+class Separation:
+    """Columns whose combination predicts a yes/no outcome perfectly (or perfectly but for ties).
+
+    ``score = intercept + Σ combination[c] · c`` is ≥ 0 on every "yes" row and
+    ≤ 0 on every "no" row; ``rows_exact`` rows (of ``rows``) are on the strict
+    side, so their fitted probability would be pushed to exactly 0 or 1.
+    ``kind`` is 'complete' (every row strictly) or 'quasi-complete'.
+    """
+
+    kind: str
+    combination: dict
+    intercept: float
+    rows_exact: int
+    rows: int
+    sentence: str
+
+
+@dataclass(frozen=True)
+class LogisticResult:
+    """Unpenalized weighted logistic regression on the columns OLS kept.
+
+    Arrays are over all design ``columns``; set-aside columns (the same as
+    OLS's, with the same explanations) hold coef 0.0 and NaN inference.  When
+    ``separation`` is set the likelihood has no maximum: every coefficient and
+    its inference are NaN and ``model`` is None, so no huge coefficient is
+    ever shown as if it were an estimate.
+    """
+
+    columns: tuple
+    kept: tuple
+    set_aside: tuple  # of SetAside
+    intercept: float
+    intercept_se: float
+    coef: np.ndarray
+    std_errors: np.ndarray
+    z_values: np.ndarray
+    p_values: np.ndarray
+    ci_low: np.ndarray
+    ci_high: np.ndarray
+    log_likelihood: float
+    null_log_likelihood: float
+    pseudo_r_squared: float  # McFadden: 1 − ℓ / ℓ₀
+    n_obs: int
+    weight_total: float
+    iterations: int
+    converged: bool
+    positive_level: str
+    model: Optional[LinearModel] = None
+    separation: Optional[Separation] = None
