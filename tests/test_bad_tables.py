@@ -163,7 +163,8 @@ CASES = [
      "column 'y' is the target and is also named among the predictors; remove it from the predictors"),
     ("groups-among-predictors", "gp.csv", rows(fmt="{i},{x},{g}", head="y,x,g"), ["--groups", "g", "--predictors", "x,g"],
      "column 'g' is the groups and is also named among the predictors"),
-    ("categorical-target", "text.csv", b"name,c\nann,red\nbo,blue\n", ["--target", "name"],
+    # Three names: a two-valued text target would be a yes/no outcome.
+    ("categorical-target", "text.csv", b"name,c\nann,red\nbo,blue\ncy,red\n", ["--target", "name"],
      "target 'name' is categorical, not numeric"),
     ("unknown-column", "unk.csv", rows(), ["--predictors", "nope"], "column 'nope' is not in the table"),
     ("weights-text", "w.csv", rows(fmt="{i},{x},{g}", head="y,x,w"), ["--weights", "w"], "weights column 'w' is categorical"),

@@ -13,7 +13,8 @@ CASES = [
     # (file name, content, extra args, expected fragment)
     ("empty.csv", b"", ["--target", "y"], "empty.csv: the file is empty"),
     ("dup.csv", b"y,x,x\n1,2,3\n", ["--target", "y"], "duplicate column names 'x'"),
-    ("text.csv", b"name,c\nann,red\nbo,blue\n", ["--target", "name"], "target 'name' is categorical, not numeric"),
+    # Three names: a two-valued text target would be a yes/no outcome.
+    ("text.csv", b"name,c\nann,red\nbo,blue\ncy,red\n", ["--target", "name"], "target 'name' is categorical, not numeric"),
     ("unk.csv", b"y,x\n1,2\n2,3\n3,1\n", ["--target", "y", "--predictors", "nope"], "column 'nope' is not in the table"),
     ("const.csv", b"y,x\n2,1\n2,2\n2,3\n", ["--target", "y"], "target 'y' has the same value (2)"),
     ("wide.csv", b"y,a,b,c\n1,1,2,3\n2,3,1,4\n3,2,5,1\n", ["--target", "y"], "only 3 rows for 5 folds; choose at most 3 folds"),
