@@ -196,10 +196,13 @@ def test_complete_and_quasi_complete_separation_are_explained():
     assert all(np.all(np.isfinite(m.coef)) for m in full.models().values())
 
 
-def test_outcome_detection_levels_and_overrides():
+def test_outcome_detection_levels_and_overrides(monkeypatch):
+    import regbench.data.design as design_mod
+
     frame = pd.DataFrame({"grade": ["top", "other", "top", "other", "top", "other"] * 5,
                           "x": np.arange(30.0), "z": np.sin(np.arange(30.0)), "n": np.arange(30.0) % 7})
     table = table_from_frame(frame)
+    monkeypatch.setattr(design_mod, "DETECT_YES_NO", True)
     des = build_design(table, Roles(target="grade", predictors=("x", "z")))
     assert des.outcome == "binary" and des.levels == ("other", "top")
     assert des.y[0] == 1.0 and des.y[1] == 0.0
@@ -215,3 +218,9 @@ def test_outcome_detection_levels_and_overrides():
     with pytest.raises(DataError, match="'n' has 7 distinct values"):
         build_design(table, Roles(target="n", predictors=("x", "z"), outcome="binary"))
     assert build_design(table, Roles(target="n", predictors=("x", "z"))).outcome == "numeric"
+
+    # Until every layer carries yes/no outcomes, detection is off: a 0/1 target stays numeric
+    # unless the person asks for the yes/no outcome.
+    monkeypatch.setattr(design_mod, "DETECT_YES_NO", False)
+    assert build_design(table, Roles(target="hit", predictors=("x", "z"))).outcome == "numeric"
+    assert build_design(table, Roles(target="hit", predictors=("x", "z"), outcome="binary")).outcome == "binary"

@@ -569,6 +569,12 @@ def target_levels(table: Table, target: str) -> tuple:
         sorted(_level_text(v) for v in uniq[:3]))
 
 
+#: Whether a two-valued target is taken as a yes/no outcome without being asked.  Off until the
+#: layers above the engine (CLI, fit JSON, session, project, report, window) carry yes/no
+#: outcomes; until then the logistic route is taken only when ``roles.outcome == 'binary'``.
+DETECT_YES_NO = False
+
+
 def outcome_of(table: Table, roles: Roles) -> tuple:
     """The kind of target and, for a yes/no outcome, its levels ("no", "yes").
 
@@ -596,7 +602,7 @@ def outcome_of(table: Table, roles: Roles) -> tuple:
             raise DataError(f"positive_level: '{roles.positive_level}' must be '{roles.target}' (the yes count) "
                             "with count columns; swap the two count columns to swap yes and no")
         return "binary", (roles.no_count, roles.target)
-    if roles.outcome == "numeric":
+    if roles.outcome == "numeric" or (roles.outcome is None and not DETECT_YES_NO):
         return "numeric", ()
     info = table.info(roles.target)
     if roles.outcome is None and info.distinct != 2:
