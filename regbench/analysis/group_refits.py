@@ -48,7 +48,7 @@ class GroupRefits:
     """
 
     def __init__(self, design, settings, alphas: dict, relaxations=None):
-        from regbench.models.engine import families, relaxation_for
+        from regbench.models.engine import alpha_for, families, relaxation_for
 
         if design.groups is None:
             raise ModelError("refits from group cross-products need a group column")
@@ -57,11 +57,7 @@ class GroupRefits:
         self.n_groups = int(design.groups.max()) + 1
         self.families = []
         for name, rho in families(settings):
-            a = alphas.get(name, settings.alpha)
-            if a is None:
-                raise ModelError(f"no α given for {name}; pass one per model or set a fixed α in the settings")
-            if not (np.isfinite(a) and a > 0):
-                raise ModelError(f"α = {a:g} for {name}: α must be a positive number")
+            a = alpha_for(name, alphas, settings)
             self.families.append((name, float(rho), float(a), relaxation_for(settings, name, relaxations)))
         _, parts = per_fold(design.X, design.y, design.weights, design.groups, self.n_groups)
         self.shift_x, self.shift_y = parts[0].shift_x, parts[0].shift_y

@@ -319,23 +319,11 @@ def rows_pass(part: Part, plan: Plan, cancel=None) -> RowsInfo:
         if not keep.any():
             continue
         w = b[plan.weights][keep] if plan.weights else np.ones(int(keep.sum()))
-        pos = w > 0
-        info.w_pos += int(pos.sum())
+        labels = codes = None
         if plan.groups:
             labels, codes = np.unique(_level_texts(b[plan.groups][keep]).astype(str), return_inverse=True)
-            gw = np.bincount(codes, weights=w, minlength=labels.size)
-            gn = np.bincount(codes, minlength=labels.size)
-            for lab, a, c in zip(labels, gw, gn):
-                cur = info.groups.setdefault(str(lab), [0.0, 0])
-                cur[0] += float(a)
-                cur[1] += int(c)
-        if pos.any():
-            y = b[plan.target][keep][pos]
-            info.y_range = (min(info.y_range[0], float(y.min())), max(info.y_range[1], float(y.max())))
-            X = np.column_stack([b[c][keep][pos] for c in plan.predictors])
-            mn, mx = X.min(axis=0), X.max(axis=0)
-            info.x_min = mn if info.x_min is None else np.minimum(info.x_min, mn)
-            info.x_max = mx if info.x_max is None else np.maximum(info.x_max, mx)
+        X = np.column_stack([b[c][keep] for c in plan.predictors])
+        _note_rows(info, X, b[plan.target][keep], w, labels, codes)
     return info
 
 
@@ -413,14 +401,17 @@ def group_pass(part: Part, plan: Plan, part_index: int, sample_rate: float, seed
 
 
 def _note_rows(info: RowsInfo, X, y, w, labels, codes) -> None:
+    """Count the rows with weight and each group's weight and rows (labels None: no groups); widen the
+    target's and the predictors' ranges over the rows with weight."""
     pos = w > 0
     info.w_pos += int(pos.sum())
-    gw = np.bincount(codes, weights=w, minlength=labels.size)
-    gn = np.bincount(codes, minlength=labels.size)
-    for lab, a, c in zip(labels, gw, gn):
-        cur = info.groups.setdefault(str(lab), [0.0, 0])
-        cur[0] += float(a)
-        cur[1] += int(c)
+    if labels is not None:
+        gw = np.bincount(codes, weights=w, minlength=labels.size)
+        gn = np.bincount(codes, minlength=labels.size)
+        for lab, a, c in zip(labels, gw, gn):
+            cur = info.groups.setdefault(str(lab), [0.0, 0])
+            cur[0] += float(a)
+            cur[1] += int(c)
     if pos.any():
         yp = y[pos]
         info.y_range = (min(info.y_range[0], float(yp.min())), max(info.y_range[1], float(yp.max())))

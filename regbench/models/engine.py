@@ -427,6 +427,16 @@ def _ols_on_stats(design, stats: GramStats, train_rows, kept) -> LinearModel:
                        coef_std=coef * stats.sd_x())
 
 
+def alpha_for(name: str, alphas: dict, settings) -> float:
+    """The α family ``name`` is refitted at: its own entry in ``alphas``, else the settings' fixed α."""
+    a = alphas.get(name, settings.alpha)
+    if a is None:
+        raise ModelError(f"no α given for {name}; pass one per model or set a fixed α in the settings")
+    if not (np.isfinite(a) and a > 0):
+        raise ModelError(f"α = {a:g} for {name}: α must be a positive number")
+    return float(a)
+
+
 def fit_models_at(design, settings: FitSettings, alphas: Optional[dict] = None,
                   relaxations: Optional[dict] = None) -> dict:
     """OLS and each penalized family at a given α; no path and no CV (for refits).
@@ -451,11 +461,7 @@ def fit_models_at(design, settings: FitSettings, alphas: Optional[dict] = None,
     out = {"ols": _ols(design, settings).model}
     problem = _problem(gram_stats(design.X, design.y, design.weights), design, settings)
     for name, rho in families(settings):
-        a = alphas.get(name, settings.alpha)
-        if a is None:
-            raise ModelError(f"no α given for {name}; pass one per model or set a fixed α in the settings")
-        if not (np.isfinite(a) and a > 0):
-            raise ModelError(f"α = {a:g} for {name}: α must be a positive number")
+        a = alpha_for(name, alphas, settings)
         check_alpha(problem, float(a), name)
         out[name] = model_from_problem(problem, name, rho, float(a), design.columns,
                                        relaxation=relaxation_for(settings, name, relaxations))
@@ -480,10 +486,6 @@ def _models_at_binary(design, settings: FitSettings, alphas: dict) -> dict:
     for name, rho in families(settings):
         if name.startswith("relaxed_"):
             continue  # a least-squares option; yes/no outcomes have the plain families
-        a = alphas.get(name, settings.alpha)
-        if a is None:
-            raise ModelError(f"no α given for {name}; pass one per model or set a fixed α in the settings")
-        if not (np.isfinite(a) and a > 0):
-            raise ModelError(f"α = {a:g} for {name}: α must be a positive number")
+        a = alpha_for(name, alphas, settings)
         out[name] = model_at_alpha(design, name, rho, float(a))
     return out
