@@ -364,11 +364,7 @@ def group_pass(part: Part, plan: Plan, part_index: int, sample_rate: float, seed
         info.n_kept += m
         if not m:
             continue
-        X = np.empty((m, p))
-        for j, c in enumerate(plan.predictors):
-            X[:, j] = b[c][keep]
-        y = b[plan.target][keep]
-        w = b[plan.weights][keep] if plan.weights else np.ones(m)
+        X, y, w = _kept_arrays(b, plan, keep, m, p)
         gtext = _level_texts(b[plan.groups][keep]).astype(str)
         labels, codes = np.unique(gtext, return_inverse=True)
         _note_rows(info, X, y, w, labels, codes)
@@ -398,6 +394,15 @@ def group_pass(part: Part, plan: Plan, part_index: int, sample_rate: float, seed
             got["g"].append(gtext[pick])
             got["row"].append(first + np.flatnonzero(keep)[pick] + 1)
     return info, groups, racc, got
+
+
+def _kept_arrays(b, plan: Plan, keep, m: int, p: int):
+    """The predictors, target and weights of a batch's kept rows."""
+    X = np.empty((m, p))
+    for j, c in enumerate(plan.predictors):
+        X[:, j] = b[c][keep]
+    w = b[plan.weights][keep] if plan.weights else np.ones(m)
+    return X, b[plan.target][keep], w
 
 
 def _note_rows(info: RowsInfo, X, y, w, labels, codes) -> None:
@@ -504,11 +509,7 @@ def stats_pass(part: Part, plan: Plan, folds: Folds, kept_before: int, sample: n
         m = int(keep.sum())
         if not m:
             continue
-        X = np.empty((m, p))
-        for j, c in enumerate(plan.predictors):
-            X[:, j] = b[c][keep]
-        y = b[plan.target][keep]
-        w = b[plan.weights][keep] if plan.weights else np.ones(m)
+        X, y, w = _kept_arrays(b, plan, keep, m, p)
         gtext = _level_texts(b[plan.groups][keep]).astype(str) if plan.groups else None
         if folds.group_fold is not None:
             ids = np.array([folds.group_fold[t] for t in gtext], dtype=np.int64)
