@@ -73,6 +73,8 @@ def check_fit(results, design) -> None:
     ols = results.ols
     _need(isinstance(ols, OLSResult), "fit.ols is not an OLS result")
     model(ols.model, "fit.ols.model")
+    _names(ols.columns, "fit.ols.columns")
+    _need(ols.columns == results.columns, "fit.ols.columns does not match the design columns")
     _names(ols.kept, "fit.ols.kept")
     _need(set(ols.kept) <= set(results.columns), "fit.ols.kept names unknown columns")
     for arr in ("coef", "std_errors", "t_values", "p_values", "ci_low", "ci_high"):
