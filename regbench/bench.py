@@ -493,5 +493,145 @@ def _worker_main(argv) -> int:
     return 0
 
 
+
+
+# --------------------------------------------------------------------------- yes/no outcome
+
+BINARY_TARGET = "on_spec"
+
+
+def prepare_binary(rows: int, cols: int, folds: int = 5, n_penalties: int = 20, seed: int = 0) -> dict:
+    """The sensor-line table with a yes/no target (throughput in its top quarter), its folds and α grids."""
+    import numpy as np
+
+    d = _data_dir()
+    stem = f"sensor_line_binary_{rows}x{cols}"
+    table = d / f"{stem}.parquet"
+    if not table.exists():
+        from regbench.demo import sensor_line
+
+        frame = sensor_line(rows, cols)
+        frame[BINARY_TARGET] = (frame[TARGET] > frame[TARGET].quantile(0.75)).astype(float)
+        frame = frame.drop(columns=[TARGET])
+        tmp = table.with_suffix(".parquet.tmp")
+        frame.to_parquet(tmp, index=False)
+        os.replace(tmp, table)
+        del frame
+    extras = d / f"{stem}_f{folds}_k{n_penalties}_s{seed}.npz"
+    if not extras.exists():
+        from regbench.data import Roles, build_design, read_table
+        from regbench.models.cv import fold_ids
+        from regbench.models.logistic import _Rows, logistic_grid
+
+        design = build_design(read_table(table), Roles(target=BINARY_TARGET, groups=GROUPS, outcome="binary"))
+        ids = fold_ids(design.n, folds, seed, design.groups, design.weights, design.groups_column)
+        rows_ = _Rows(design.X, design.y, design.weights)
+        grids = {f"grid_{r:g}": logistic_grid(rows_, r, n_penalties, 1e-3) for r in (0.0, 1.0, 0.5)}
+        tmp = extras.with_name(extras.name + ".tmp.npz")
+        np.savez(tmp, fold_ids=ids, **grids)
+        os.replace(tmp, extras)
+    return {"table": str(table), "extras": str(extras), "rows": rows, "cols": cols, "folds": folds,
+            "n_penalties": n_penalties, "seed": seed}
+
+
+def _worker_regbench_binary(job: dict) -> dict:
+    t0 = time.perf_counter()
+    from regbench.data import Roles, build_design, read_table
+    from regbench.models.engine import fit_all
+    from regbench.models.results import FitSettings
+
+    t_import = time.perf_counter()
+    design = build_design(read_table(job["table"]), Roles(target=BINARY_TARGET, groups=GROUPS, outcome="binary"))
+    t_design = time.perf_counter()
+    marks = []
+    settings = FitSettings(folds=job["folds"], n_penalties=job["n_penalties"], seed=job["seed"])
+    results = fit_all(design, settings, progress=lambda d, t, m: marks.append((time.perf_counter(), m)))
+    t_fit = time.perf_counter()
+    steps = {m: tb - ta for (ta, m), (tb, _) in zip(marks, marks[1:])}
+    return {"import": t_import - t0, "read_design": t_design - t_import, "fit": t_fit - t_design, "steps": steps,
+            **{f"{k}_alpha": results.penalized[k].alpha for k in ("ridge", "lasso", "elastic_net")}}
+
+
+def _worker_reference_binary(job: dict) -> dict:
+    """statsmodels Logit, then scikit-learn LogisticRegressionCV for each penalty with the same folds and grid.
+
+    The grid maps to scikit-learn's C = 1/(α·n) on columns standardized once; held-out log-loss chooses.
+    """
+    import warnings
+
+    t0 = time.perf_counter()
+    import numpy as np
+    import pandas as pd
+    import statsmodels.api as sm
+    from sklearn.linear_model import LogisticRegressionCV
+
+    t_import = time.perf_counter()
+    frame = pd.read_parquet(job["table"])
+    cols = [c for c in frame.columns if c not in (BINARY_TARGET, GROUPS)]
+    X = frame[cols].to_numpy(dtype=float)
+    y = frame[BINARY_TARGET].to_numpy(dtype=float)
+    del frame
+    extras = np.load(job["extras"], allow_pickle=False)
+    ids = extras["fold_ids"]
+    splits = [(np.flatnonzero(ids != k), np.flatnonzero(ids == k)) for k in range(job["folds"])]
+    t1 = time.perf_counter()
+    Xs = (X - X.mean(axis=0)) / X.std(axis=0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        sm.Logit(y, sm.add_constant(Xs)).fit(disp=0, method="newton", maxiter=100)
+    t_logit = time.perf_counter()
+    n = Xs.shape[0]
+    times, chosen = {}, {}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for key, rho, solver in (("ridge", 0.0, "lbfgs"), ("lasso", 1.0, "saga"), ("elastic_net", 0.5, "saga")):
+            grid = extras[f"grid_{rho:g}"]
+            ta = time.perf_counter()
+            kw = {"l1_ratios": [rho]} if rho > 0 else {}
+            m = LogisticRegressionCV(Cs=1.0 / (grid * n), cv=splits, scoring="neg_log_loss", solver=solver,
+                                     max_iter=1000, penalty="elasticnet" if rho > 0 else "l2", **kw).fit(Xs, y)
+            times[key] = time.perf_counter() - ta
+            chosen[f"{key}_alpha"] = float(1.0 / (np.ravel(m.C_)[0] * n))
+    return {"import": t_import - t0, "read": t1 - t_import, "logit": t_logit - t1, **times,
+            "fit": time.perf_counter() - t1, **chosen}
+
+
+WORKERS["regbench_binary"] = _worker_regbench_binary
+WORKERS["reference_binary"] = _worker_reference_binary
+
+
+def logistic_main(rows: int = 100_000, cols: int = 100, quick: bool = False, n_penalties: int = 20) -> int:
+    """The yes/no benchmark: regbench against statsmodels Logit + scikit-learn LogisticRegressionCV.
+
+    Both whole processes, one run each, same grouped folds and the same α grid (``n_penalties`` values
+    per family; 20 by default because the scripted route takes many minutes per family at 100k rows).
+    """
+    if quick:
+        rows, cols, n_penalties = 2_000, 10, 8
+    p = functools.partial(print, flush=True)
+    try:
+        job = prepare_binary(rows, cols, n_penalties=n_penalties)
+        p(f"regbench bench --logistic — {platform.machine()}, {os.cpu_count()} cores, "
+          f"{time.strftime('%Y-%m-%d %H:%M', time.gmtime())} UTC")
+        p(f"Table: sensor_line({rows:,} rows, {cols} sensors), yes/no target '{BINARY_TARGET}' (top quarter of "
+          f"throughput), grouped 5-fold CV, {n_penalties} α per family, one run each, whole processes.")
+        ours = _run("regbench_binary", job)
+        ref = _run("reference_binary", job)
+    except BenchFailed as exc:
+        sys.stderr.write(f"regbench bench: {exc}\n")
+        return 1
+    p(f"  regbench   {ours['wall']:8.2f} s  (import {ours['import']:.2f} s, read and design "
+      f"{ours['read_design']:.2f} s, fit {ours['fit']:.2f} s)")
+    p("             fit steps: " + ", ".join(f"{k} {v:.2f} s" for k, v in ours["steps"].items()))
+    p(f"  reference  {ref['wall']:8.2f} s  (import {ref['import']:.2f} s, read {ref['read']:.2f} s, Logit "
+      f"{ref['logit']:.2f} s, ridge {ref['ridge']:.2f} s, lasso {ref['lasso']:.2f} s, "
+      f"elastic net {ref['elastic_net']:.2f} s)")
+    p(f"  regbench is {ref['wall'] / ours['wall']:.1f}× faster as a whole process "
+      f"({ref['fit'] / ours['fit']:.1f}× on the fitting alone).")
+    p("  chosen α (regbench / reference): " + ", ".join(
+        f"{k} {ours[k + '_alpha']:.4g} / {ref[k + '_alpha']:.4g}" for k in ("ridge", "lasso", "elastic_net")))
+    return 0
+
+
 if __name__ == "__main__":
     sys.exit(_worker_main(sys.argv[1:]))

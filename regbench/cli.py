@@ -38,7 +38,16 @@ def _float_list(text: Optional[str], flag: str = "--l1-ratio") -> tuple:
 def _add_table_options(p: argparse.ArgumentParser, table: bool = True) -> None:
     if table:
         p.add_argument("table", help="CSV, TSV, XLSX or Parquet file")
-    p.add_argument("--target", required=True, help="column to predict")
+    p.add_argument("--target", help="column to predict (with --yes-count: not needed)")
+    p.add_argument("--outcome", choices=("numeric", "binary"),
+                   help="kind of target: numeric, or binary (yes/no); default: binary when the target has exactly "
+                        "two distinct values. Yes/no outcomes are never rebalanced: reweighting the classes "
+                        "distorts the probabilities without improving discrimination (van den Goorbergh et al. "
+                        "2022); choose a threshold instead")
+    p.add_argument("--yes-level", help="for a yes/no outcome, the target value that counts as yes "
+                                       "(default: the larger number, or a value reading as yes)")
+    p.add_argument("--yes-count", help="aggregated yes/no rows: column of each row's yes count (use with --no-count)")
+    p.add_argument("--no-count", help="aggregated yes/no rows: column of each row's no count (use with --yes-count)")
     p.add_argument("--predictors", help="comma-separated predictor columns (default: every other usable column)")
     p.add_argument("--categorical", help="comma-separated numeric columns to treat as category codes")
     p.add_argument("--weights", help="column of row weights (what they mean: --weights-kind)")
@@ -148,6 +157,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--pairs", type=int, default=3, help="paired runs per ratio (default 3)")
     p.add_argument("--wide", action="store_true",
                    help="only the wide case: 200 rows × 2,000 sensors, regbench against the scripted route")
+    p.add_argument("--logistic", action="store_true",
+                   help="the yes/no benchmark: logistic paths against statsmodels Logit and LogisticRegressionCV")
 
     p = sub.add_parser("open", help="open a table or project in the desktop window")
     p.add_argument("path", nargs="?")
@@ -203,14 +214,26 @@ def roles_from_args(args):
 
     from regbench.data.derive import parse_derive
 
+    target, no_count = args.target, getattr(args, "no_count", None)
+    yes_count = getattr(args, "yes_count", None)
+    if (yes_count is None) != (no_count is None):
+        raise RegbenchError("--yes-count and --no-count go together: give both count columns, or neither")
+    if yes_count is not None:
+        if target is not None and target != yes_count:
+            raise RegbenchError("--target and --yes-count name different columns; with count columns give "
+                                "--yes-count and --no-count only")
+        target = yes_count
+    if target is None:
+        raise RegbenchError("--target is required: name the column to predict (or give --yes-count and --no-count)")
     derived = tuple(parse_derive(t) for t in getattr(args, "derive", None) or ())
     predictors = _csv_list(args.predictors)
     if predictors:
-        used = {args.target, args.weights, args.groups, *predictors}
+        used = {target, args.weights, args.groups, no_count, *predictors}
         predictors += tuple(d.name for d in derived if d.name not in used)
     return Roles(
-        target=args.target, predictors=predictors, categorical=_csv_list(args.categorical),
-        weights=args.weights, groups=args.groups, derived=derived, weights_kind=args.weights_kind,
+        target=target, predictors=predictors, categorical=_csv_list(args.categorical),
+        weights=args.weights, groups=args.groups, derived=derived, weights_kind=args.weights_kind, outcome=getattr(args, "outcome", None),
+        positive_level=getattr(args, "yes_level", None), no_count=no_count,
     )
 
 
@@ -412,6 +435,11 @@ def cmd_bench(args) -> int:
         from regbench.bench import targets
 
         return targets(big=args.big, pairs=args.pairs)
+    if getattr(args, "logistic", False):
+        from regbench.bench import logistic_main
+
+        return logistic_main(rows=args.rows, cols=args.cols, quick=args.quick)
+
     return bench_main(rows=args.rows, cols=args.cols, quick=args.quick, wide=args.wide)
 
 

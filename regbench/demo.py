@@ -7,6 +7,13 @@ exact alias), the day temperature again in °F (an exact alias up to an
 intercept), light hours beside a daily light sum that nearly tracks them, and a
 vapour-pressure deficit computed from temperature and humidity.
 
+``grading``: the same grower's packhouse grades each harvested batch; the
+yes/no question is whether a batch makes the top grade.  Its columns overlap
+too: firmness in newtons and again in decanewtons (an exact alias), mean
+temperature beside day and night (an exact alias), the sugar/acid ratio beside
+sugar and acidity (a near-dependency), and a colour index that nearly tracks
+the red share of the skin.
+
 ``sensor_line``: a larger scenario for benchmarks: a processing line whose many
 sensors follow a few hidden drivers, recorded in production batches (groups).
 
@@ -117,6 +124,77 @@ GREENHOUSE_ROLES = {
     "categorical": [],
     "weights": "plants_per_bed",
     "groups": "glasshouse",
+}
+
+
+GRADING_SEED = 20261203
+
+
+def grading(seed: int = GRADING_SEED, houses: int = 8, batches: int = 60) -> pd.DataFrame:
+    """One row per harvested batch: packhouse measurements and whether it made the top grade.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``top_grade`` is 'top' or 'standard' (about a third 'top').  A few cells
+        are empty on purpose (a refractometer outage, an ungraded batch).
+    """
+    rng = np.random.default_rng(seed)
+    n = houses * batches
+    house = np.repeat(np.arange(houses), batches)
+    house_names = np.array([f"GH{h + 1:02d}" for h in range(houses)])
+    house_level = rng.normal(0.0, 0.35, houses)
+    variety_idx = rng.integers(0, len(VARIETIES), n)
+    day_temp = rng.normal(23.5, 1.0, houses)[house] + rng.normal(0, 0.8, n)
+    night_temp = rng.normal(17.0, 0.8, houses)[house] + rng.normal(0, 0.6, n)
+    days = np.clip(rng.normal(58.0, 4.0, n), 45.0, 72.0).round(0)
+    brix = np.clip(4.8 + 0.06 * (days - 58.0) + np.array([0.0, 0.4, -0.2])[variety_idx] + rng.normal(0, 0.45, n),
+                   3.0, 8.0)
+    acidity = np.clip(0.42 - 0.004 * (days - 58.0) + rng.normal(0, 0.05, n), 0.25, 0.65)
+    firmness = np.clip(rng.normal(32.0, 4.0, n) - 0.25 * (days - 58.0), 18.0, 45.0)
+    red_share = np.clip(78.0 + 0.9 * (days - 58.0) + rng.normal(0, 6.0, n), 40.0, 100.0)
+    colour = 0.21 * red_share + rng.normal(0, 0.6, n)  # a hue score the grader's camera gives
+    eta = (-1.1 + house_level[house] + 1.1 * (brix - 5.0) - 4.0 * (acidity - 0.42) + 0.12 * (firmness - 32.0)
+           + 0.04 * (red_share - 78.0) - 0.12 * (day_temp - night_temp - 6.5) ** 2)
+    top = rng.random(n) < 1.0 / (1.0 + np.exp(-eta))
+    frame = pd.DataFrame({
+        "glasshouse": house_names[house],
+        "batch": [f"{house_names[h]}-{i + 1:03d}" for h, i in zip(house, np.tile(np.arange(batches), houses))],
+        "variety": np.array(VARIETIES)[variety_idx],
+        "days_to_harvest": days,
+        "day_temp_c": day_temp.round(2),
+        "night_temp_c": night_temp.round(2),
+        "mean_temp_c": None,
+        "brix": brix.round(2),
+        "acidity_pct": acidity.round(3),
+        "sugar_acid_ratio": None,
+        "firmness_n": firmness.round(2),
+        "firmness_dan": None,
+        "red_share_pct": red_share.round(1),
+        "colour_index": colour.round(2),
+        "top_grade": np.where(top, "top", "standard"),
+    })
+    frame["mean_temp_c"] = (frame["day_temp_c"] + frame["night_temp_c"]) / 2.0
+    frame["sugar_acid_ratio"] = (frame["brix"] / frame["acidity_pct"]).round(3)
+    # Decanewtons: a tenth of the newton reading, exact in the written file.
+    frame["firmness_dan"] = (frame["firmness_n"] / 10.0).round(3)
+    frame.loc[rng.choice(n, 3, replace=False), "brix"] = np.nan
+    frame.loc[rng.choice(n, 2, replace=False), "top_grade"] = None
+    return frame
+
+
+#: Roles of the grading sample project (a yes/no outcome: 'top' counts as yes).
+GRADING_ROLES = {
+    "target": "top_grade",
+    "predictors": [
+        "variety", "days_to_harvest", "day_temp_c", "night_temp_c", "mean_temp_c", "brix", "acidity_pct",
+        "sugar_acid_ratio", "firmness_n", "firmness_dan", "red_share_pct", "colour_index",
+    ],
+    "categorical": [],
+    "weights": None,
+    "groups": "glasshouse",
+    "outcome": "binary",
+    "positive_level": "top",
 }
 
 

@@ -42,7 +42,7 @@ def se_kind_sentence(design, o) -> str:
 def fit_summary_text(design, results) -> str:
     """A plain-text summary of the fit, in the order a reader asks about it."""
     from regbench.analysis.ranges import compute_ranges
-    from regbench.models.export import OBJECTIVE
+    from regbench.models.export import OBJECTIVE, OBJECTIVE_BINARY
     from regbench.models.ols import set_aside_sentence
 
     lines = []
@@ -98,7 +98,7 @@ def fit_summary_text(design, results) -> str:
     for j, c in enumerate(results.columns):
         cells = []
         for n in names:
-            if n == "ols" and c in set_aside:
+            if n in ("ols", "logistic") and c in set_aside:
                 cells.append("set aside".rjust(colw))
             else:
                 v = float(models[n].coef[j])
@@ -107,16 +107,11 @@ def fit_summary_text(design, results) -> str:
     lines.append("  " + "columns used".ljust(width) + "".join(str(int(models[n].used.sum())).rjust(colw) for n in names))
 
     lines.append("")
-    o = results.ols
-    counts = getattr(design, "counts", False)
-    sd_note = (f" for a row of weight 1 (rows are weighted by {design.weights_column})"
-               if design.weighted and not counts else "")
-    lines.append(f"OLS: R² {_summary_number(o.r_squared)}, adjusted R² {_summary_number(o.adj_r_squared)}, "
-                 f"residual SD {_summary_number(o.residual_sd)}{sd_note}, "
-                 f"{_summary_number(o.df_resid)} residual degrees of freedom.")
-    if getattr(o, "inference_note", ""):
-        lines.append(f"  {o.inference_note}")
-    lines.append("  " + se_kind_sentence(design, o))
+    binary = getattr(results, "outcome", "numeric") == "binary"
+    if binary:
+        lines.extend(_logistic_lines(design, results))
+    else:
+        lines.extend(_ols_lines(design, results.ols))
     k = results.settings.folds
     kind = "grouped " if design.groups is not None else ""
     lines.append(f"Penalties (α), {k}-fold {kind}cross-validation:")
@@ -125,7 +120,8 @@ def fit_summary_text(design, results) -> str:
         cv_txt = ""
         if pf.cv is not None:
             i = int(np.argmin(np.abs(np.log(pf.cv.alphas) - np.log(pf.alpha))))
-            cv_txt = f", held-out RMSE {_summary_number(math.sqrt(max(pf.cv.mean[i], 0.0)))} (at the nearest grid α)"
+            cv_txt = (f", held-out log-loss {_summary_number(pf.cv.mean[i])} (at the nearest grid α)" if binary else
+                      f", held-out RMSE {_summary_number(math.sqrt(max(pf.cv.mean[i], 0.0)))} (at the nearest grid α)")
             if getattr(pf.cv, "at_edge", False):
                 cv_txt += ("; CAUTION: the lowest CV error is at the smallest α tried, so a smaller α may "
                            "predict better")
@@ -147,10 +143,44 @@ def fit_summary_text(design, results) -> str:
     for t in rg.trades:
         lines.append(f"  • {t['sentence']}")
     lines.append("")
-    lines.append("Penalty objective: " + OBJECTIVE + ".")
+    lines.append("Penalty objective: " + (OBJECTIVE_BINARY if binary else OBJECTIVE) + ".")
+    if binary:
+        lines.append("Predictions are probabilities of '" + str(design.levels[1]) + "'. A risk score is not a "
+                     "decision: the person who acts on it chooses the threshold.")
     lines.append("These are associations, not causes; judge models on held-out groups; "
                  "a model is only as good as its inputs.")
     return "\n".join(lines)
+
+
+def _ols_lines(design, o) -> list:
+    """The numeric target's OLS fit-quality lines."""
+    counts = getattr(design, "counts", False)
+    sd_note = (f" for a row of weight 1 (rows are weighted by {design.weights_column})"
+               if design.weighted and not counts else "")
+    out = [f"OLS: R² {_summary_number(o.r_squared)}, adjusted R² {_summary_number(o.adj_r_squared)}, "
+           f"residual SD {_summary_number(o.residual_sd)}{sd_note}, "
+           f"{_summary_number(o.df_resid)} residual degrees of freedom."]
+    if getattr(o, "inference_note", ""):
+        out.append(f"  {o.inference_note}")
+    out.append("  " + se_kind_sentence(design, o))
+    return out
+
+
+def _logistic_lines(design, results) -> list:
+    """The yes/no outcome's summary lines: levels, separation, fit quality, the observed share."""
+    lr = results.logistic
+    W = float(design.weights.sum())
+    share = float(design.weights @ design.y) / W
+    out = [f"Yes/no outcome: '{design.levels[1]}' counts as yes, '{design.levels[0]}' as no "
+           f"(observed share of yes {share:.4g})."]
+    if lr.separation is not None:
+        out.append(lr.separation.sentence)
+    else:
+        mean_p = float(design.weights @ lr.model.predict(design.X)) / W
+        out.append(f"Logistic: log-likelihood {_summary_number(lr.log_likelihood)}, McFadden pseudo-R² "
+                   f"{_summary_number(lr.pseudo_r_squared)}; mean predicted probability {mean_p:.4g} "
+                   "(equals the observed share: the free intercept guarantees it).")
+    return out
 
 
 def stress_text(design, res) -> str:

@@ -27,6 +27,7 @@ from typing import Callable, Dict, Optional, Tuple
 import numpy as np
 
 from regbench.analysis.agreement import Agreement, compare_models
+from regbench.analysis.calibration import Classification, assess
 from regbench.analysis.fit_quality import fit_quality
 from regbench.analysis.ranges import Ranges, compute_ranges
 from regbench.analysis.stability import Stability, bootstrap_stability
@@ -112,6 +113,8 @@ class ComputedResults:
     ranges: Optional[Ranges] = None
     stability: Optional[Stability] = None
     stability_alphas: Dict[str, float] = field(default_factory=dict)
+    #: Calibration and discrimination of a yes/no outcome's probabilities; None for a numeric target.
+    classification: Optional[Classification] = None
 
 
 @dataclass(frozen=True)
@@ -132,9 +135,12 @@ class AlphaUpdate:
     stress: Tuple[StressResult, ...] = ()
     sweeps: Tuple[StressSweep, ...] = ()
     ranges: Optional[Ranges] = None
+    classification: Optional[Classification] = None
 
 
 _DERIVED_KEYS = ("models", "heldout", "agreement", "structure", "stress", "sweeps", "ranges")
+#: Derived results only a yes/no outcome has (None for a numeric target).
+_BINARY_KEYS = ("classification",)
 
 
 @dataclass(frozen=True)
@@ -149,6 +155,9 @@ class SessionState:
     bootstrap: int
     notes: str
     view_state: dict
+    #: The threshold the person chose for a yes/no outcome's probabilities, with their note:
+    #: {"value": float in (0, 1), "note": str}, or None.
+    threshold: Optional[dict] = None
 
 
 _State = SessionState  # older name, kept for code written before SessionState was public
@@ -271,6 +280,12 @@ class Session:
         return self._state.notes
 
     @property
+    def threshold(self) -> Optional[dict]:
+        """The recorded threshold of a yes/no outcome ({'value', 'note'}) or None."""
+        t = self._state.threshold
+        return None if t is None else dict(t)
+
+    @property
     def view_state(self) -> dict:
         return copy.deepcopy(self._state.view_state)
 
@@ -299,6 +314,8 @@ class Session:
         }
         if s.settings.range_tolerance is not None:  # absent for the default, so older keys still match
             parts["range_tolerance"] = s.settings.range_tolerance
+        if s.threshold is not None:  # absent unless recorded, so numeric keys are unchanged
+            parts["threshold"] = s.threshold
         return _digest(parts)
 
     @property
@@ -362,11 +379,13 @@ class Session:
             self._cache = {}
         elif (new_state.chosen_alpha != old.chosen_alpha or new_state.extra_fits != old.extra_fits):
             self._cache = {}
-        elif new_state.stress_configs != old.stress_configs:
+        elif new_state.stress_configs != old.stress_configs or new_state.threshold != old.threshold:
             self._cache.pop("stress", None)
             self._cache.pop("sweeps", None)
         if new_state.settings.range_tolerance != old.settings.range_tolerance:
             self._cache.pop("ranges", None)
+            if new_state.threshold != old.threshold:
+                self._cache.pop("classification", None)
         self.dirty = True
         self._notify(event, detail)
 
@@ -507,6 +526,23 @@ class Session:
         _check_bootstrap(n)
         self._edit("bootstrap", replace(self._state, bootstrap=int(n)), "bootstrap", int(n))
 
+    def set_threshold(self, value: Optional[float], note: str = "") -> None:
+        """Record the threshold the person chose for the probabilities (None clears it).
+
+        The tool recommends no threshold; it records the one chosen, with the note
+        saying why, so the report and stress tests can show what it flags.
+        """
+        if value is None:
+            new = None
+        else:
+            v = _positive(value, "threshold")
+            if not 0.0 < v < 1.0:
+                raise DataError(f"threshold {value!r} must be a probability between 0 and 1 (e.g. 0.2)")
+            if not isinstance(note, str):
+                raise DataError("the threshold's note must be text")
+            new = {"value": v, "note": note}
+        self._edit("threshold", replace(self._state, threshold=new), "threshold", new)
+
     def set_notes(self, text: str) -> None:
         if not isinstance(text, str):
             raise DataError("notes must be text")
@@ -602,7 +638,7 @@ class Session:
         if computed.key == self.key():
             self._cache = {"models": computed.models, "heldout": computed.heldout, "agreement": computed.agreement,
                            "structure": computed.structure, "stress": computed.stress, "sweeps": computed.sweeps,
-                           "ranges": computed.ranges}
+                           "ranges": computed.ranges, "classification": computed.classification}
         else:
             self._cache = {}
         self.dirty = True
@@ -662,7 +698,7 @@ class Session:
         """
         if self.results is None or update.key != self.key():
             return False
-        self._cache = {k: getattr(update, k) for k in _DERIVED_KEYS}
+        self._cache = {k: getattr(update, k) for k in _DERIVED_KEYS + _BINARY_KEYS}
         self._notify("derived", None)
         return True
 
@@ -676,7 +712,8 @@ class Session:
         (computed here when missing); empty before a fit.  The dict is the session's own: do not change it."""
         if self.results is None:
             return {}
-        if any(k not in self._cache for k in ("agreement", "stress", "ranges")):
+        if any(k not in self._cache for k in ("agreement", "stress", "ranges")) or (
+                self.design.outcome == "binary" and self._cache.get("classification") is None):
             self._cache.update(_derive(self.design, self.results, self._state, None, self._cache))
         return self._cache
 
@@ -720,6 +757,10 @@ class Session:
 
     def stress_sweeps(self) -> tuple:
         return tuple(self._derived().get("sweeps", ()))
+
+    def classification(self):
+        """Calibration and discrimination of every model (a yes/no outcome), else None."""
+        return self._derived().get("classification")
 
     # -- used by the project layer --------------------------------------------------------
 
@@ -820,7 +861,8 @@ def _derive(design, results, state: SessionState, cancel, have: Optional[dict] =
     check(cancel)
     stress, sweeps = have.get("stress"), have.get("sweeps")
     if stress is None or sweeps is None:
-        stress = tuple(run_stress(design, models, c) for c in state.stress_configs)
+        thr = None if state.threshold is None else float(state.threshold["value"])
+        stress = tuple(run_stress(design, models, c, threshold=thr) for c in state.stress_configs)
         seen, sw = set(), []
         for c in state.stress_configs:
             if (c.column, c.kind) in seen:
@@ -829,15 +871,19 @@ def _derive(design, results, state: SessionState, cancel, have: Optional[dict] =
             sw.append(stress_sweep(design, models, c.column, c.kind, seed=c.seed, tolerance=c.tolerance))
         sweeps = tuple(sw)
     ranges = have.get("ranges") if "models" in have else None
-    if ranges is None:
+    # Ranges over equally good least-squares fits: a numeric target's analysis.
+    if ranges is None and design.outcome != "binary":
         try:
             ranges = compute_ranges(design, results, state.settings.range_tolerance, models=models)
         except (ValueError, np.linalg.LinAlgError):
             # A fit without OLS's factor or the cross-products (never from fit_all): no ranges, the rest stands.
             ranges = None
+    classification = have.get("classification")
+    if classification is None and design.outcome == "binary":
+        classification = assess(design, models, heldout,
+                                None if state.threshold is None else float(state.threshold["value"]))
     return {"models": models, "heldout": heldout, "agreement": agreement, "structure": structure,
-            "ranges": ranges,
-            "stress": stress, "sweeps": sweeps}
+            "ranges": ranges, "stress": stress, "sweeps": sweeps, "classification": classification}
 
 
 def _check_bootstrap(n) -> None:
@@ -915,4 +961,34 @@ def build_sample_session(csv_path, roles_dict: dict) -> Session:
     session.set_notes(SAMPLE_NOTE)
     session.compute()
     session.clear_history()
+    return session
+
+
+GRADING_NOTE = (
+    "Whether each harvested batch makes the top grade at the packhouse. Firmness is recorded in newtons and "
+    "again in decanewtons, mean temperature is the average of day and night, the sugar/acid ratio sits "
+    "beside sugar and acidity, and the camera's colour index nearly tracks the red share of the skin. Question "
+    "for the packhouse: which measurements carry the grade, and what happens to the flagged batches if the "
+    "firmness tester starts reporting decanewtons?"
+)
+#: The threshold the packhouse chose in the invented scenario, and why (the tool recommends none).
+GRADING_THRESHOLD = (0.3, "Batches scored at 0.3 or above go to a second grader: a missed top batch costs more "
+                          "than a second look, and the second grader can check about a third of the batches.")
+
+
+def build_grading_session(csv_path, roles_dict: dict) -> Session:
+    """The packhouse grading sample project (a yes/no outcome): roles, grouped 5-fold CV, a recorded
+    threshold, two stress tests, 100 refits, computed."""
+    from regbench.analysis.stress import StressConfig
+
+    settings = FitSettings(folds=5, seed=20261203, l1_ratios=(0.5,))
+    session = Session.from_table_file(csv_path, Roles.from_dict(roles_dict), settings)
+    for cfg in (StressConfig("brix", "noise", 1.0, seed=2),
+                StressConfig("firmness_n", "rescale", 0.1)):
+        session.add_stress(cfg)
+    session.set_threshold(*GRADING_THRESHOLD)
+    session.set_bootstrap(100)
+    session.set_notes(GRADING_NOTE)
+    session.compute()
+    session._undo.clear()
     return session

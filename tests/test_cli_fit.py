@@ -35,8 +35,9 @@ def fit_json(tmp_path_factory):
 
 def test_fit_json_schema(fit_json):
     d = fit_json
-    assert set(d) == {"rows_used", "rows_excluded", "unusable", "derived_columns", "read_as_text", "read_notes",
-                      "models", "diagnostics", "settings", "ranges"}
+    assert set(d) == {"outcome", "rows_used", "rows_excluded", "unusable", "derived_columns", "read_as_text",
+                      "read_notes", "models", "diagnostics", "settings", "ranges"}
+    assert d["outcome"] == "numeric"
     # The sample has 576 rows; 3 missing EC readings and 2 missed weighings are left out (demo.py).
     assert d["rows_used"] == 571 and len(d["rows_excluded"]) == 5
     assert all(set(e) == {"row", "column", "reason"} for e in d["rows_excluded"])

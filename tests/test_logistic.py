@@ -224,3 +224,23 @@ def test_outcome_detection_levels_and_overrides(monkeypatch):
     monkeypatch.setattr(design_mod, "DETECT_YES_NO", False)
     assert build_design(table, Roles(target="hit", predictors=("x", "z"))).outcome == "numeric"
     assert build_design(table, Roles(target="hit", predictors=("x", "z"), outcome="binary")).outcome == "binary"
+
+
+def test_cli_fit_json_says_binary(tmp_path, capsys):
+    from regbench.cli import main
+
+    X, y, _ = _data(150)
+    frame = pd.DataFrame(X, columns=["a", "b", "c", "d", "e"])
+    frame["passed"] = np.where(y > 0, "top", "other")
+    path = tmp_path / "t.csv"
+    frame.to_csv(path, index=False)
+    out = tmp_path / "fit.json"
+    assert main(["fit", str(path), "--target", "passed", "--penalties", "8", "--folds", "3", "--json", str(out)]) == 0
+    d = json.loads(out.read_text())
+    assert d["outcome"] == "binary" and d["positive_level"] == "top"
+    assert set(d["models"]) == {"logistic", "ridge", "lasso", "elastic_net"}
+    lg = d["models"]["logistic"]
+    assert lg["mean_probability"] == pytest.approx(lg["observed_share"], rel=1e-6)
+    assert d["models"]["lasso"]["cv"]["measure"] == "log_loss"
+    assert main(["fit", str(path), "--target", "passed", "--outcome", "numeric", "--penalties", "5"]) == 2
+    assert "numeric" in capsys.readouterr().err

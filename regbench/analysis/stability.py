@@ -153,7 +153,9 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
         raise DataError(f"stability needs at least 2 bootstrap refits, not {n_boot}")
     if method not in ("auto", "groups", "rows"):
         raise ValueError(f"method: '{method}' is not one of auto, groups, rows")
-    by_groups = design.groups is not None and method in ("auto", "groups")
+    # A yes/no outcome's logistic models are not least-squares problems: they refit on the rows.
+    by_groups = (design.groups is not None and method in ("auto", "groups")
+                 and getattr(design, "outcome", "numeric") != "binary")
     if method == "groups" and design.groups is None:
         raise DataError("stability from group cross-products needs a group column")
     with one_blas_thread():
@@ -174,6 +176,7 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
         from regbench.analysis.group_refits import GroupRefits
 
         refitter = GroupRefits(design, settings, alphas, relaxations)
+    separated = 0
     for b in range(n_boot):
         check(cancel)
         try:
@@ -193,20 +196,34 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
                              f"it drew: {exc}; try another seed or more {what}") from exc
         if draws is None:
             names = tuple(models)
+            if getattr(design, "outcome", "numeric") == "binary" and "logistic" not in names:
+                names = ("logistic",) + names
             draws = {k: np.empty((n_boot, p)) for k in names}
         for k in names:
-            draws[k][b] = models[k].coef
+            # A refit whose drawn rows a column separates has no unpenalized logistic estimate.
+            draws[k][b] = models[k].coef if k in models else np.nan
+        separated += int(any(k not in models for k in names))
         report(progress, b + 1, n_boot, f"stability refit {b + 1} of {n_boot}")
-    selected = {k: np.mean(draws[k] != 0.0, axis=0) for k in names}
-    set_aside = 1.0 - selected["ols"]
+    with np.errstate(invalid="ignore"):
+        selected = {k: np.nanmean(np.where(np.isnan(draws[k]), np.nan, draws[k] != 0.0), axis=0)
+                    if np.isnan(draws[k]).any() else np.mean(draws[k] != 0.0, axis=0) for k in names}
+    unpen = "logistic" if "logistic" in names else "ols"
+    set_aside = 1.0 - np.nan_to_num(selected[unpen], nan=0.0)
     full = fit_ols(design, settings.pins, settings.rank_tol)
     order_driven = tuple(sa.column for sa in full.set_aside
                          if getattr(sa, "exact", True) and set_aside[design.columns.index(sa.column)] == 1.0)
-    q05 = {k: np.quantile(draws[k], 0.05, axis=0) for k in names}
-    q95 = {k: np.quantile(draws[k], 0.95, axis=0) for k in names}
-    mean = {k: draws[k].mean(axis=0) for k in names}
-    sd = {k: draws[k].std(axis=0, ddof=1) for k in names}
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # an all-NaN column when every refit separated
+        q05 = {k: np.nanquantile(draws[k], 0.05, axis=0) for k in names}
+        q95 = {k: np.nanquantile(draws[k], 0.95, axis=0) for k in names}
+        mean = {k: np.nanmean(draws[k], axis=0) for k in names}
+        sd = {k: np.nanstd(draws[k], axis=0, ddof=1) for k in names}
     sentences = _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, full, order_driven)
+    if separated:
+        sentences.append(f"In {separated} of the {n_boot} refits a column or combination separated the outcome, so "
+                         "the unpenalized logistic model had no estimate there; its frequencies use the other refits.")
     if flat:
         sentences.append(f"{flat} of the {n_boot} refits drew rows whose {design.target} is the same everywhere; "
                          "every coefficient is 0 there, which lowers the frequencies above. Use more rows or groups.")
@@ -243,7 +260,7 @@ def _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, f
         if c not in order_driven and f > 0:
             out.append(f"OLS sets {c} aside in {f:.0%} of the refits: the overlap depends on which rows are drawn.")
     for k in names:
-        if k in ("ols", "ridge"):
+        if k in ("ols", "logistic", "ridge"):
             continue
         s = selected[k]
         stable = [c for c, v in zip(cols, s) if v >= STABLE_SHARE]

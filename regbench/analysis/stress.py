@@ -152,11 +152,16 @@ class ModelShift(Result):
     error_clean: float
     error_damaged: float
     uses_column: bool = True
+    #: Yes/no outcomes with a recorded threshold: the weighted share of rows whose probability
+    #: lands on the other side of the threshold after the damage (None otherwise).
+    crossed_share: Optional[float] = None
 
     def to_dict(self) -> dict:
         d = {k: json_number(getattr(self, k)) for k in
              ("shift_rmse", "mean_shift", "moved_share", "error_clean", "error_damaged")}
         d["uses_column"] = bool(self.uses_column)
+        if self.crossed_share is not None:
+            d["crossed_share"] = json_number(self.crossed_share)
         return d
 
 
@@ -374,16 +379,29 @@ def damaged_design(design, config: StressConfig):
     return replace(design, X=X)
 
 
+#: For a yes/no outcome a probability "moved" when it shifts by more than this (5 percentage points).
+BINARY_TOLERANCE = 0.05
+
+
 def default_tolerance(design) -> float:
-    """0.1 × the weighted SD of the target."""
+    """0.1 × the weighted SD of the target; for a yes/no outcome 0.05 on the probability scale."""
+    if getattr(design, "outcome", "numeric") == "binary":
+        return BINARY_TOLERANCE
     return TOLERANCE_SHARE * weighted_sd(design.y, design.weights)
 
 
 # -- measuring ----------------------------------------------------------------------------
 
 
-def _shift(design, clean: np.ndarray, damaged: np.ndarray, tol: float, uses: bool, error_clean=None) -> ModelShift:
+def _shift(design, clean: np.ndarray, damaged: np.ndarray, tol: float, uses: bool, error_clean=None,
+           threshold=None) -> ModelShift:
     w = design.weights
+    crossed = None
+    if threshold is not None:
+        # Probabilities of a yes/no outcome: rows flagged before and not after, or the reverse.
+        with np.errstate(invalid="ignore"):
+            flip = (clean >= threshold) != (damaged >= threshold)
+        crossed = float(w[flip].sum() / w.sum())
     # Damage may be extreme on purpose (inf, 1e300): overflow to inf is the honest answer.
     with np.errstate(over="ignore", invalid="ignore"):
         d = damaged - clean
@@ -396,6 +414,7 @@ def _shift(design, clean: np.ndarray, damaged: np.ndarray, tol: float, uses: boo
             error_clean=weighted_rms(clean - design.y, w) if error_clean is None else error_clean,
             error_damaged=weighted_rms(damaged - design.y, w),
             uses_column=uses,
+            crossed_share=crossed,
         )
 
 
@@ -403,7 +422,7 @@ def _uses(model, idx) -> bool:
     return bool(np.any(model.coef[idx] != 0.0))
 
 
-def run_stress(design, models: dict, config: StressConfig) -> StressResult:
+def run_stress(design, models: dict, config: StressConfig, threshold: Optional[float] = None) -> StressResult:
     """Damage one column in the rows being predicted; the models stay fixed.
 
     Parameters
@@ -426,9 +445,14 @@ def run_stress(design, models: dict, config: StressConfig) -> StressResult:
         clean = m.predict(design.X)
         damaged = m.predict(Xd)
         rows[name] = damaged - clean
-        shifts[name] = _shift(design, clean, damaged, tol, _uses(m, idx))
+        shifts[name] = _shift(design, clean, damaged, tol, _uses(m, idx), threshold=threshold)
     names = tuple(models)
     sentences = _stress_sentences(design, config, strength, tol, names, shifts, refit=False)
+    if threshold is not None and names:
+        worst = max(names, key=lambda k: shifts[k].crossed_share)
+        sentences = sentences + (
+            f"At the recorded threshold {sentence_number(threshold)}, {shifts[worst].crossed_share:.1%} of rows cross it under "
+            f"{in_sentence(model_label(worst))} (flagged before and not after, or the reverse).",)
     return StressResult(config=config, column=config.column, columns=tuple(design.columns[j] for j in idx),
                         kind=config.kind, strength=strength, tolerance=tol, models=names, shifts=shifts,
                         row_shift=rows, refit=False, target=design.target, sentences=sentences)
@@ -503,8 +527,10 @@ def _stress_sentences(design, config, strength, tol, names, shifts, refit: bool)
         if len(names) > 1:
             out.append(f"After the damage the most accurate model is {in_sentence(model_label(best))} "
                        f"(error {sentence_number(shifts[best].error_damaged)}).")
-    out.append(f"A prediction counts as moved when it shifts by more than {sentence_number(tol)}"
-               + (" (0.1 × the SD of the target)." if config.tolerance is None else "."))
+    binary = getattr(design, "outcome", "numeric") == "binary"
+    out.append(f"A {'probability' if binary else 'prediction'} counts as moved when it shifts by more than {sentence_number(tol)}"
+               + ((" (5 percentage points)." if binary else " (0.1 × the SD of the target).")
+                  if config.tolerance is None else "."))
     return tuple(out)
 
 
@@ -517,6 +543,13 @@ def _delta_predictions(model, idx, block_clean, block_damaged, clean_pred):
     if used.size == 0:
         return clean_pred
     sel = np.isin(idx, used)
+    if getattr(model, "outcome", "numeric") == "binary":
+        # Probabilities: the damage moves the log-odds linearly, the probability through the logistic curve.
+        from scipy.special import expit, logit
+
+        with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
+            eta = logit(clean_pred) + ((block_damaged[:, sel] - block_clean[:, sel]) * model.coef[used]).sum(axis=1)
+        return expit(eta)
     # A few columns: element-wise beats a threaded BLAS call on a busy machine.
     return clean_pred + ((block_damaged[:, sel] - block_clean[:, sel]) * model.coef[used]).sum(axis=1)
 

@@ -232,7 +232,7 @@ def _usage_sentence(names, columns, used, ols_aside) -> str:
         u = int(used[i].sum())
         label = model_label(k) if i == 0 else in_sentence(model_label(k))
         what = f"all {p}" if u == p else f"{u} of {p}"
-        extra = f" ({len(ols_aside)} set aside)" if k == "ols" and ols_aside else ""
+        extra = f" ({len(ols_aside)} set aside)" if k in ("ols", "logistic") and ols_aside else ""
         parts.append(f"{label} {what}{extra}" if i else f"{label} uses {what} columns{extra}")
     return join_words(parts) + "."
 
@@ -256,7 +256,7 @@ def _set_sentence(group, names, shares, aside, lead) -> str:
         top = int(np.argmax(s))
         if not on:
             parts.append(f"{label} uses none of them")
-        elif name == "ols" and aside and len(on) + len(aside) == k:
+        elif name in ("ols", "logistic") and aside and len(on) + len(aside) == k:
             where = join_words(on) if len(on) <= 3 else f"the other {_count(len(on))} ({_most(group, s)})"
             parts.append(f"{label} sets {join_words(aside)} aside and puts all the weight on {where}")
         elif len(on) == k:

@@ -110,6 +110,11 @@ class RoleDraft(QtCore.QObject):
         self.target: Optional[str] = None
         self.weights: Optional[str] = None
         self.groups: Optional[str] = None
+        # Yes/no outcomes: the kind of target (None: decided from it), the value counting as
+        # yes, and the column of "no" counts for aggregated rows.
+        self.outcome: Optional[str] = None
+        self.positive_level: Optional[str] = None
+        self.no_count: Optional[str] = None
         self.ticked: set = set()
         self.categorical: set = set()
         self.settings = None
@@ -126,6 +131,7 @@ class RoleDraft(QtCore.QObject):
         self.derived = tuple(roles.derived)
         table = self.table = apply_derived(table, self.derived)
         self.target, self.weights, self.groups = roles.target, roles.weights, roles.groups
+        self.outcome, self.positive_level, self.no_count = roles.outcome, roles.positive_level, roles.no_count
         if roles.predictors:
             self.ticked = set(roles.predictors)
         else:   # empty means every other usable column, as the design builder reads it
@@ -163,8 +169,25 @@ class RoleDraft(QtCore.QObject):
         return name in self.ticked and self.role_of(name) is None
 
     def set_target(self, name: str) -> None:
+        if name != self.target:
+            self.outcome = self.positive_level = self.no_count = None
         self.target = name
         self.changed.emit()
+
+    def set_outcome(self, outcome: Optional[str], positive_level: Optional[str] = None) -> None:
+        """'numeric', or 'binary' with the value that counts as yes (None: the default)."""
+        self.outcome, self.positive_level = outcome, positive_level if outcome == "binary" else None
+        self.changed.emit()
+
+    def target_levels(self) -> tuple:
+        """The target's two values when it has exactly two (a possible yes/no outcome), else ()."""
+        from regbench.data.design import target_levels
+
+        if self.table is None or self.target not in self.table.columns:
+            return ()
+        if self.table.columns[self.target].distinct != 2:
+            return ()
+        return target_levels(self.table, self.target)
 
     def set_weights(self, name: Optional[str]) -> None:
         self.weights = name
@@ -257,7 +280,8 @@ class RoleDraft(QtCore.QObject):
         if self.weights_kind is not None and "weights_kind" in Roles.__dataclass_fields__:
             extra["weights_kind"] = self.weights_kind
         return Roles(target=self.target, predictors=preds, categorical=cats, weights=self.weights, groups=self.groups,
-                     derived=self.derived, **extra)
+                     derived=self.derived, outcome=self.outcome, positive_level=self.positive_level,
+                     no_count=self.no_count, **extra)
 
     def differs_from(self, session) -> bool:
         """True when Fit would change the session's roles, settings or refit count."""
@@ -308,7 +332,12 @@ class QuestionBar(QtWidgets.QFrame):
         self.weights_kind.activated.connect(lambda *_: draft.set_weights_kind(self.weights_kind.currentData()))
         self.groups_before = words("hold out whole")
         self.groups_after = words("groups.")
-        for w in (words("Explain"), self.target, self.ticked_words,
+        # A two-valued target reads as yes/no; this says which value is "yes" (or: treat it as a number).
+        self.yes_level = QtWidgets.QComboBox()
+        self.yes_level.setToolTip("A target with two values is a yes/no outcome: choose which value counts as yes, "
+                                  "or treat it as a number")
+        self.yes_level.activated.connect(lambda *_: self._outcome_chosen())
+        for w in (words("Explain"), self.target, self.yes_level, self.ticked_words,
                   self.weights_before, self.weights, self.weights_kind, self.weights_after,
                   self.groups_before, self.groups, self.groups_after):
             lay.addWidget(w)
@@ -342,7 +371,8 @@ class QuestionBar(QtWidgets.QFrame):
             return
         names = d.names
         numeric = [c for c in names if d.table.columns[c].kind in (NUMERIC, BOOLEAN)]
-        for combo, items, current in ((self.target, [(c, c) for c in (numeric or names)], d.target),
+        targets = [c for c in names if c in numeric or d.table.columns[c].distinct == 2] or names
+        for combo, items, current in ((self.target, [(c, c) for c in targets], d.target),
                                       (self.weights, [(NO_WEIGHTS, None)] + [(c, c) for c in numeric], d.weights),
                                       (self.groups, [(NO_GROUPS, None)] + [(c, c) for c in names], d.groups)):
             combo.blockSignals(True)
@@ -352,6 +382,7 @@ class QuestionBar(QtWidgets.QFrame):
                     combo.addItem(text, value)
             combo.setCurrentIndex(max(0, combo.findData(current)))
             combo.blockSignals(False)
+        self._sync_yes_level()
         n = sum(1 for c in names if d.uses(c))
         self.ticked_words.setText(f"from the {n} ticked column{'s' if n != 1 else ''};")
         kinds = d.weights_kind is not None and d.weights is not None
@@ -367,6 +398,27 @@ class QuestionBar(QtWidgets.QFrame):
         self.groups_before.setText("hold out whole" if grouped else "hold out")
         self.groups_after.setText("groups." if grouped else "at random.")
         self.setEnabled(True)
+
+    def _sync_yes_level(self) -> None:
+        d = self.draft
+        levels = d.target_levels() if d.no_count is None else ()
+        self.yes_level.blockSignals(True)
+        self.yes_level.clear()
+        if levels:
+            from regbench.data.design import default_positive_level
+
+            default = default_positive_level(levels, d.table.columns[d.target].kind)
+            for lev in levels:
+                self.yes_level.addItem(f"('{lev}' = yes)", "binary:" + lev)
+            self.yes_level.addItem("(as a number)", "numeric:")
+            current = "numeric:" if d.outcome == "numeric" else "binary:" + (d.positive_level or default)
+            self.yes_level.setCurrentIndex(max(0, self.yes_level.findData(current)))
+        self.yes_level.setVisible(bool(levels))
+        self.yes_level.blockSignals(False)
+
+    def _outcome_chosen(self) -> None:
+        kind, _, level = str(self.yes_level.currentData()).partition(":")
+        self.draft.set_outcome(kind, level or None)
 
     def set_pending(self, pending: bool, has_results: bool) -> None:
         """Say on the Fit button whether pressing it would change anything."""

@@ -40,6 +40,8 @@ def snapshot(project_path, out_dir, size=SIZE) -> list:
         _wait(app, window)
     paths = []
     for i, panel in enumerate(window.panels):
+        if getattr(panel, "applies", None) is not None and not panel.applies(window.session):
+            continue  # e.g. the probabilities panel of a numeric target
         window.show_panel(i)
         window._refresh_panel(panel)
         _settle(app)

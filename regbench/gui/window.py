@@ -65,6 +65,7 @@ def recovery_path() -> str:
 
 def _panel_classes():
     from regbench.gui.panels.agreement import AgreementPanel
+    from regbench.gui.panels.calibration import CalibrationPanel
     from regbench.gui.panels.coefficients import CoefficientsPanel
     from regbench.gui.panels.data import DataPanel
     from regbench.gui.panels.fitquality import FitQualityPanel
@@ -74,9 +75,10 @@ def _panel_classes():
     from regbench.gui.panels.stability import StabilityPanel
     from regbench.gui.panels.stress import StressPanel
 
-    # The order a stakeholder asks in; Ctrl+1..9 follow it.
+    # The order a stakeholder asks in; Ctrl+1..9 follow it.  The probabilities panel (yes/no
+    # outcomes only) comes last so the others keep their shortcuts.
     return (DataPanel, OverlapsPanel, PathsPanel, CoefficientsPanel, FitQualityPanel, AgreementPanel, StressPanel,
-            StabilityPanel, RangesPanel)
+            StabilityPanel, RangesPanel, CalibrationPanel)
 
 
 class MainWindow(QtWidgets.QMainWindow):
@@ -268,6 +270,11 @@ class MainWindow(QtWidgets.QMainWindow):
     def refresh_all(self, now: bool = False) -> None:
         """Mark every panel out of date; the visible one is redrawn (soon, or now)."""
         self._stale = {p.key for p in self.panels}
+        for i, p in enumerate(self.panels):
+            # A panel with ``applies`` (the yes/no probabilities) is listed only where it applies.
+            applies = getattr(p, "applies", None)
+            if applies is not None:
+                self.nav.item(i).setHidden(not applies(self.session))
         if now:
             self._do_refresh()
         elif not self._refresh_pending:

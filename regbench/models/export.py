@@ -32,6 +32,50 @@ def _by_column(columns, values) -> dict:
     return {c: _num(v) for c, v in zip(columns, np.asarray(values, dtype=float))}
 
 
+#: The yes/no objective; scikit-learn's LogisticRegression on the same standardized columns takes C = 1/(α·W).
+OBJECTIVE_BINARY = ("minimise (1/W)·Σ wᵢ ℓ(yᵢ, pᵢ) + α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²), pᵢ = 1/(1 + exp(−b₀ − x̃ᵢβ)), "
+                    "ℓ the log-loss, intercept unpenalized, x̃ = predictors standardized by weighted mean and "
+                    "weighted population SD, W = Σwᵢ (scikit-learn's C = 1/(α·W))")
+
+
+def _set_aside_json(set_aside) -> list:
+    from regbench.models.ols import set_aside_sentence
+
+    return [{
+        "column": sa.column,
+        "combination": {k: _num(v) for k, v in sa.combination.items()},
+        "intercept": _num(sa.intercept),
+        "residual": _num(sa.residual),
+        "alternatives": list(sa.alternatives),
+        "sentence": set_aside_sentence(sa),
+    } for sa in set_aside]
+
+
+def _logistic_json(results, design) -> dict:
+    lr = results.logistic
+    cols = lr.columns
+    m = lr.model
+    sep = lr.separation
+    return {
+        "intercept": _num(lr.intercept),
+        "coefficients": _by_column(cols, lr.coef),
+        "coefficients_standardized": _by_column(cols, m.coef_std if m is not None else lr.coef),
+        "std_errors": _by_column(cols, lr.std_errors),
+        "p_values": _by_column(cols, lr.p_values),
+        "log_likelihood": _num(lr.log_likelihood),
+        "null_log_likelihood": _num(lr.null_log_likelihood),
+        "pseudo_r_squared": _num(lr.pseudo_r_squared),
+        "converged": bool(lr.converged),
+        "observed_share": _num(float(design.weights @ design.y) / float(design.weights.sum())),
+        "mean_probability": None if m is None else _num(
+            float(design.weights @ m.predict(design.X)) / float(design.weights.sum())),
+        "separation": None if sep is None else {
+            "kind": sep.kind, "combination": {k: _num(v) for k, v in sep.combination.items()},
+            "intercept": _num(sep.intercept), "rows_exact": int(sep.rows_exact), "sentence": sep.sentence},
+        "set_aside": _set_aside_json(lr.set_aside),
+    }
+
+
 def _ols_json(results) -> dict:
     from regbench.models.ols import set_aside_sentence
 
@@ -131,11 +175,23 @@ def fit_to_json(design, results) -> dict:
         elastic nets), ``diagnostics`` and ``settings``.
     """
     columns = tuple(results.columns)
-    models = {"ols": _ols_json(results)}
+    binary = getattr(results, "outcome", "numeric") == "binary"
+    models = {"logistic": _logistic_json(results, design)} if binary else {"ols": _ols_json(results)}
     for name, pf in results.penalized.items():
         models[name] = _penalized_json(pf, columns)
+        if binary:
+            if models[name]["cv"]:
+                models[name]["cv"]["measure"] = "log_loss"
+            models[name]["mean_probability"] = _num(
+                float(design.weights @ pf.model.predict(design.X)) / float(design.weights.sum()))
     d = results.diagnostics
-    return {
+    out = {"outcome": "binary" if binary else "numeric"}
+    if binary:
+        out["positive_level"] = str(design.levels[1])
+        out["negative_level"] = str(design.levels[0])
+        if design.no_count_column:
+            out["counts"] = {"yes": design.target, "no": design.no_count_column}
+    return out | {
         "rows_used": int(design.n),
         "rows_excluded": [e.to_dict() for e in design.excluded],
         "unusable": [u.to_dict() for u in design.unusable],

@@ -88,6 +88,21 @@ def check_fit(results, design) -> None:
         _names(sa.alternatives, f"fit.ols.set_aside[{i}].alternatives")
         json.dumps(sa.to_dict())
         sa.sentence()
+    _need(results.outcome == getattr(design, "outcome", "numeric"),
+          "fit.outcome does not match the kind of target of the roles")
+    if results.outcome == "binary":
+        from regbench.models.results import LogisticResult, Separation
+
+        lr = results.logistic
+        _need(isinstance(lr, LogisticResult), "fit.logistic is not a logistic result")
+        for arr in ("coef", "std_errors", "z_values", "p_values", "ci_low", "ci_high"):
+            _array(getattr(lr, arr), (p,), f"fit.logistic.{arr}")
+        _need((lr.model is None) == (lr.separation is not None), "fit.logistic.model and separation disagree")
+        if lr.model is not None:
+            model(lr.model, "fit.logistic.model")
+        else:
+            _need(isinstance(lr.separation, Separation) and isinstance(lr.separation.sentence, str),
+                  "fit.logistic.separation is damaged")
     dg = results.diagnostics
     _need(isinstance(dg, Diagnostics), "fit.diagnostics is not diagnostics")
     _names(dg.columns, "fit.diagnostics.columns")
@@ -164,6 +179,19 @@ def check_derived(derived: dict, design, n_stress: int) -> None:
               and all(isinstance(r.shifts.get(k), ModelShift) for k in names), f"derived.stress[{i}] is damaged")
         json.dumps(r.to_dict())
     _need(isinstance(sweeps, tuple), "derived.sweeps must be a tuple")
+    cl = derived.get("classification")
+    if cl is not None or getattr(design, "outcome", "numeric") == "binary":
+        from regbench.analysis.calibration import Calibration, Classification, Discrimination
+
+        _need(isinstance(cl, Classification) and cl.models == names, "derived.classification does not match the models")
+        for split in ("training", "held_out"):
+            _need(isinstance(cl.calibration.get(split), dict) and isinstance(cl.discrimination.get(split), dict),
+                  f"derived.classification.{split} is damaged")
+            for k, c in cl.calibration[split].items():
+                _need(k in names and isinstance(c, Calibration) and isinstance(cl.discrimination[split].get(k),
+                                                                             Discrimination),
+                      f"derived.classification.{split}[{k!r}] is damaged")
+        json.dumps(cl.to_dict())
     for i, sw in enumerate(sweeps):
         _need(isinstance(sw, StressSweep) and tuple(sw.models) == names and isinstance(sw.strengths, np.ndarray)
               and sw.strengths.ndim == 1, f"derived.sweeps[{i}] is damaged")

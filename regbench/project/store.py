@@ -171,7 +171,7 @@ def session_document(session) -> dict:
         "notes": session.notes,
         "view_state": session.view_state,
         "table": table_meta(session.table),
-    }
+    } | ({"threshold": session.threshold} if session.threshold is not None else {})
 
 
 # -- reading the archive ------------------------------------------------------------------
@@ -485,7 +485,7 @@ class _Refuse:
 
 
 _SESSION_KEYS = {"roles", "settings", "chosen_alpha", "extra_fits", "stress", "bootstrap", "notes", "view_state",
-                 "table"}
+                 "table", "threshold"}
 
 
 def _session_state(ar: _Archive, doc, table):
@@ -524,7 +524,8 @@ def _session_state(ar: _Archive, doc, table):
     if not isinstance(vs, dict):
         bad("view_state", "must be an object")
     state = SessionState(roles=roles, settings=settings, chosen_alpha=chosen, extra_fits=extra,
-                         stress_configs=configs, bootstrap=boot, notes=notes, view_state=vs)
+                         stress_configs=configs, bootstrap=boot, notes=notes, view_state=vs,
+                         threshold=_threshold_of(doc, design, bad))
     return state, design
 
 
@@ -540,14 +541,17 @@ def _roles_of(doc, table, bad) -> Roles:
     for key in ("target",):
         if not isinstance(roles_d.get(key), str):
             bad(f"roles.{key}", "must be a column name")
-    for key in ("weights", "groups"):
+    for key in ("weights", "groups", "no_count", "positive_level"):
         if roles_d.get(key) is not None and not isinstance(roles_d.get(key), str):
-            bad(f"roles.{key}", "must be a column name or empty")
+            bad(f"roles.{key}", "must be a column name or empty" if key != "positive_level"
+                else "must be a value of the target (text) or empty")
+    if roles_d.get("outcome") not in (None, "numeric", "binary"):
+        bad("roles.outcome", f"is {roles_d.get('outcome')!r}, not numeric, binary or empty")
     for key in ("predictors", "categorical"):
         v = roles_d.get(key, [])
         if not (isinstance(v, list) and all(isinstance(x, str) for x in v)):
             bad(f"roles.{key}", "must be a list of column names")
-    for key in ("target", "weights", "groups"):
+    for key in ("target", "weights", "groups", "no_count"):
         if roles_d.get(key) is not None and roles_d[key] not in names:
             bad(f"roles.{key}", f"names '{roles_d[key]}', which is not a column of the table")
     for key in ("predictors", "categorical"):
@@ -604,6 +608,23 @@ def _choices_of(doc, families: set, bad):
             bad(f"extra_fits[{i}].alpha", f"is {e['alpha']!r}, not a positive number")
     return ({k: float(v) for k, v in ca.items()},
             tuple({"name": e["name"], "family": e["family"], "alpha": float(e["alpha"])} for e in extra))
+
+
+def _threshold_of(doc, design, bad):
+    """The recorded threshold of a yes/no outcome ({'value', 'note'}) or None."""
+    thr = doc.get("threshold")
+    if thr is None:
+        return None
+    if not (isinstance(thr, dict) and set(thr) == {"value", "note"}):
+        bad("threshold", "must be an object with value and note")
+    v = thr["value"]
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not 0.0 < float(v) < 1.0:
+        bad("threshold.value", f"is {v!r}, not a probability between 0 and 1")
+    if not isinstance(thr["note"], str):
+        bad("threshold.note", "must be text")
+    if design.outcome != "binary":
+        bad("threshold", "is set but the target is not a yes/no outcome")
+    return {"value": float(v), "note": thr["note"]}
 
 
 def _stress_of(doc, design, table, bad) -> tuple:

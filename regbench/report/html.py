@@ -203,8 +203,11 @@ def _overlap(session) -> str:
     ols, dg = res.ols, res.diagnostics
     parts = []
     if ols.set_aside:
-        parts.append(f'<p class="answer">OLS set {len(ols.set_aside)} column{"s" if len(ols.set_aside) != 1 else ""} '
+        who = "The logistic model" if getattr(res, "outcome", "numeric") == "binary" else "OLS"
+        parts.append(f'<p class="answer">{who} set {len(ols.set_aside)} column{"s" if len(ols.set_aside) != 1 else ""} '
                      "aside because the kept columns already reproduce them:</p><ul>")
+        if who != "OLS" and res.logistic is not None and res.logistic.separation is not None:
+            parts.insert(0, f'<p class="answer">{e(res.logistic.separation.sentence)}</p>')
         parts += [f"<li>{e(sa.sentence())}</li>" for sa in ols.set_aside]
         parts.append("</ul>")
     else:
@@ -445,7 +448,7 @@ def _stability(session) -> str:
     how = "whole groups resampled" if st.grouped else "rows resampled"
     parts.append(f"<p>{st.n_boot} bootstrap refits ({e(how)}, seed {st.seed}), each model at a fixed α: "
                  + e(", ".join(f"{model_label(k)} {num(v)}" for k, v in st.alphas.items())) + ".</p>")
-    sel = [m for m in st.models if m in st.selected_freq and m not in ("ols", "ridge")]
+    sel = [m for m in st.models if m in st.selected_freq and m not in ("ols", "logistic", "ridge")]
     parts.append("<h3>How often each column is set aside or selected</h3>")
     rows = [(c, pct(st.set_aside_freq[j]), *[pct(st.selected_freq[m][j]) for m in sel])
             for j, c in enumerate(st.columns)]
@@ -508,6 +511,10 @@ def _reproduce(session) -> str:
             ("Bootstrap refits", str(session.bootstrap)),
             ("Table content SHA-256", session.table_hash),
             ("Project file", session.path or "(not saved)")]
+    objective = ("(1/W)·Σ wᵢ ℓ(yᵢ, pᵢ) + α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²) with ℓ the log-loss and the intercept "
+                 "unpenalized (scikit-learn's C = 1/(α·W))"
+                 if getattr(session.design, "outcome", "numeric") == "binary"
+                 else "(1/(2W))·Σ wᵢ(yᵢ − b₀ − xᵢβ)² + α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²)")
     parts = [f"<p>To fit the same models again from the table:</p><pre class=\"cmd\">{e(_command(session))}</pre>",
              "<p>Penalized models minimise (1/(2W))·Σ wᵢ(yᵢ − b₀ − xᵢβ)² + α·Σⱼ vⱼ(ρ|βⱼ| + (1−ρ)/2·βⱼ²) on "
              "weighted-standardized columns (W = Σ wᵢ; vⱼ the column's penalty factor, 1 unless set); "
@@ -531,6 +538,13 @@ def _command(session) -> str:
         args += ["--weights", r.weights]
     if r.groups:
         args += ["--groups", r.groups]
+    if getattr(r, "no_count", None):
+        args[3:5] = ["--yes-count", r.target]
+        args += ["--no-count", r.no_count]
+    elif getattr(session.design, "outcome", "numeric") == "binary":
+        args += ["--outcome", "binary", "--yes-level", str(session.design.levels[1])]
+    elif getattr(r, "outcome", None) == "numeric":
+        args += ["--outcome", "numeric"]
     args += ["--folds", str(s.folds), "--seed", str(s.seed), "--penalties", str(s.n_penalties),
              "--l1-ratio", ",".join(f"{x:g}" for x in s.l1_ratios), "--alpha-rule", s.alpha_rule]
     if s.alpha is not None:
@@ -554,13 +568,24 @@ def _command(session) -> str:
 
 
 def _cautions(session) -> str:
-    return "<ul>" + "".join(f"<li>{e(c)}</li>" for c in CAUTIONS) + "</ul>"
+    items = list(CAUTIONS)
+    if getattr(session.design, "outcome", "numeric") == "binary":
+        from regbench.report.outcome import CAUTION
+
+        items.append(CAUTION)
+    return "<ul>" + "".join(f"<li>{e(c)}</li>" for c in items) + "</ul>"
+
+
+def _outcome(session):
+    from regbench.report.outcome import section
+
+    return section(session, e, num, pct, table, sentences, figure)
 
 
 _BUILDERS = {"question": _question, "overlap": _overlap, "fits": _fits, "quality": _quality, "agreement": _agreement,
              "ranges": _ranges,
              "stress": _stress, "stability": _stability, "notes": _notes, "reproduce": _reproduce,
-             "cautions": _cautions}
+             "cautions": _cautions, "outcome": _outcome}
 
 
 def report_html(session, title: str = None) -> str:
@@ -569,10 +594,23 @@ def report_html(session, title: str = None) -> str:
     when = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
     body = [f'<header class="top"><h1>{e(title)}</h1><p>Made by regbench {e(__version__)} on {e(when)}'
             f'{" from " + e(session.path) if session.path else ""}.</p></header>',
-            '<nav class="toc"><ol>' + "".join(f'<li><a href="#{sid}">{e(h)}</a></li>' for sid, h in SECTIONS)
-            + "</ol></nav>"]
-    for sid, heading in SECTIONS:
-        body.append(f'<section id="{sid}"><h2>{e(heading)}</h2>{_BUILDERS[sid](session)}</section>')
+            None]
+    shown = []
+    sections = list(SECTIONS)
+    if getattr(session.design, "outcome", "numeric") == "binary":
+        from regbench.report.outcome import HEADING
+
+        # A yes/no outcome adds the probabilities section after the fit quality.
+        at = [sid for sid, _ in sections].index("quality") + 1 if "quality" in dict(sections) else 3
+        sections.insert(at, ("outcome", HEADING))
+    for sid, heading in sections:
+        html = _BUILDERS[sid](session)
+        if html is None:  # a section that does not apply to this kind of target
+            continue
+        shown.append((sid, heading))
+        body.append(f'<section id="{sid}"><h2>{e(heading)}</h2>{html}</section>')
+    body[1] = ('<nav class="toc"><ol>' + "".join(f'<li><a href="#{sid}">{e(h)}</a></li>' for sid, h in shown)
+               + "</ol></nav>")
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
             "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
             f"<title>{e(title)}</title><style>{CSS}</style></head><body>" + "".join(body) + "</body></html>\n")
