@@ -238,6 +238,14 @@ def inspect_text(info: dict) -> str:
             lines.append(f"categorical  {show(', '.join(map(str, roles['categorical'])))}")
         lines.append(f"weights      {show(roles.get('weights') or '(none)')}")
         lines.append(f"groups       {show(roles.get('groups') or '(none)')}")
+        if roles.get("outcome") or roles.get("positive_level") or roles.get("no_count"):
+            kind = roles.get("outcome") or "decided from the target"
+            yes = f"; yes = {show(roles['positive_level'])}" if roles.get("positive_level") else ""
+            nc = f"; no counts in {show(roles['no_count'])}" if roles.get("no_count") else ""
+            lines.append(f"outcome      {show(kind)}{yes}{nc}")
+        thr = info.get("threshold")
+        if isinstance(thr, dict):
+            lines.append(f"threshold    {show(thr.get('value'))} — {show(thr.get('note') or '(no note)')}")
     elif roles is not None:
         lines.append(f"roles        (damaged: {show(roles, 60)})")
     s = info.get("settings")

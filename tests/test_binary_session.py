@@ -86,6 +86,10 @@ def test_project_round_trip_keeps_outcome_threshold_and_results(session, tmp_pat
         doc = json.loads(z.read("session.json"))
     assert doc["roles"]["outcome"] == "binary" and doc["roles"]["positive_level"] == "top"
     assert doc["threshold"] == {"value": 0.3, "note": "the packhouse re-checks batches at 0.3 or above by hand"}
+    from regbench.project import inspect_project, inspect_text
+
+    text = inspect_text(inspect_project(path))
+    assert "outcome      binary; yes = top" in text and "threshold    0.3" in text
     back = load_project(path)
     assert back.cache_status == "used"
     assert back.threshold == session.threshold

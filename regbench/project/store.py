@@ -822,6 +822,7 @@ def inspect_project(path) -> dict:
             "settings": doc.get("settings"),
             "stress_tests": len(doc.get("stress", [])) if isinstance(doc.get("stress"), list) else 0,
             "bootstrap": doc.get("bootstrap"),
+            "threshold": doc.get("threshold"),
             "cached_results": RESULTS in m["_members"],
             "cached_arrays": sum(1 for n in m["_members"] if n.startswith(RESULTS_DIR)),
         }
