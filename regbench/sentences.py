@@ -134,14 +134,15 @@ def fit_summary_text(design, results) -> str:
         lines.append("  Penalty factors: "
                      + ", ".join(f"{c} {_summary_number(v)}" for c, v in results.settings.penalty_factors)
                      + " (0: unpenalized, always kept); every other column 1.")
-    rg = compute_ranges(design, results, results.settings.range_tolerance)
-    lines.append("")
-    lines.append(f"How far equally good models differ (tolerance {number_text(100 * rg.tolerance, 2)} %: "
-                 f"{rg.tolerance_note})")
-    for s in rg.sentences:
-        lines.append(f"  • {s}")
-    for t in rg.trades:
-        lines.append(f"  • {t['sentence']}")
+    if not binary:  # ranges over equally good least-squares fits describe a numeric target
+        rg = compute_ranges(design, results, results.settings.range_tolerance)
+        lines.append("")
+        lines.append(f"How far equally good models differ (tolerance {number_text(100 * rg.tolerance, 2)} %: "
+                     f"{rg.tolerance_note})")
+        for s in rg.sentences:
+            lines.append(f"  • {s}")
+        for t in rg.trades:
+            lines.append(f"  • {t['sentence']}")
     lines.append("")
     lines.append("Penalty objective: " + (OBJECTIVE_BINARY if binary else OBJECTIVE) + ".")
     if binary:

@@ -205,7 +205,8 @@ def fit_to_json(design, results) -> dict:
             "near_dependencies": [nd.sentence for nd in d.near_dependencies],
         },
         "settings": results.settings.to_dict(),
-        "ranges": _ranges(design, results).to_dict(),
+        # Ranges over equally good least-squares fits describe a numeric target only.
+        "ranges": None if binary else _ranges(design, results).to_dict(),
     }
 
 

@@ -347,6 +347,8 @@ def _quality(session) -> str:
 def _ranges(session) -> str:
     from regbench.analysis.ranges import KIND_HELDOUT, tolerance_phrase
 
+    if getattr(session.design, "outcome", "numeric") == "binary":
+        return None  # ranges over least-squares fits: a numeric target's section
     rg = session.ranges() if session.results is not None else None
     if rg is None:
         return ("<p>The models have not been fitted.</p>" if session.results is None else
