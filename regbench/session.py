@@ -172,6 +172,7 @@ EVENTS = {
     "stress": "a stress test was added or removed ({added: i} or {removed: i})",
     "bootstrap": "the stability refit count changed (the count)",
     "notes": "the notes text changed (the text)",
+    "threshold": "the recorded threshold of a yes/no outcome changed ({value, note}, or None when cleared)",
     "view_state": "a value the window keeps changed ({key, value})",
     "undo": "an edit was taken back; anything may have changed (None)",
     "results": "new fits were installed, with stability and comparisons where computed (None)",
@@ -384,8 +385,8 @@ class Session:
             self._cache.pop("sweeps", None)
         if new_state.settings.range_tolerance != old.settings.range_tolerance:
             self._cache.pop("ranges", None)
-            if new_state.threshold != old.threshold:
-                self._cache.pop("classification", None)
+        if new_state.threshold != old.threshold:
+            self._cache.pop("classification", None)
         self.dirty = True
         self._notify(event, detail)
 

@@ -95,6 +95,10 @@ def test_project_round_trip_keeps_outcome_threshold_and_results(session, tmp_pat
     assert back.threshold == session.threshold
     a, b = session.classification(), back.classification()
     assert a.to_dict() == b.to_dict()
+    # Reopened exactly: every stored result compares equal by value (arrays included).
+    assert back.results == session.results and back.results.logistic == session.results.logistic
+    assert b == a and back.stability == session.stability
+    assert back.derived_results()["agreement"] == session.derived_results()["agreement"]
     for k in session.models():
         np.testing.assert_array_equal(back.models()[k].coef, session.models()[k].coef)
 

@@ -30,13 +30,13 @@ the expanded table.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Optional
+from typing import Dict, Optional, Tuple
 
 import numpy as np
 
 from regbench.analysis.agreement import in_sentence
 from regbench.formatting import sentence_number as fmt
-from regbench.models.results import model_label
+from regbench.models.results import Result, model_label
 
 #: Thresholds of the trade-off table (the recorded threshold is added when set).
 THRESHOLDS = tuple(np.round(np.arange(0.05, 0.96, 0.05), 2))
@@ -45,8 +45,8 @@ CURVE_POINTS = 400
 EPS_P = 1e-12
 
 
-@dataclass(frozen=True)
-class Calibration:
+@dataclass(frozen=True, eq=False)
+class Calibration(Result):
     """Calibration of one model's probabilities on one set of rows."""
 
     intercept: float
@@ -71,8 +71,8 @@ class Calibration:
                 "curve": {"predicted": [j(v) for v in self.curve_p], "observed": [j(v) for v in self.curve_observed]}}
 
 
-@dataclass(frozen=True)
-class Discrimination:
+@dataclass(frozen=True, eq=False)
+class Discrimination(Result):
     """ROC curve, AUC and the threshold table of one model on one set of rows."""
 
     auc: float
@@ -94,22 +94,22 @@ class Discrimination:
                                                      self.flagged)]}
 
 
-@dataclass(frozen=True)
-class Classification:
+@dataclass(frozen=True, eq=False)
+class Classification(Result):
     """Calibration and discrimination of every model, on training and held-out rows.
 
     ``calibration[split][model]`` and ``discrimination[split][model]`` with split
     'training' or 'held_out'; ``threshold`` is the one the person recorded (or None).
     """
 
-    models: tuple
+    models: Tuple[str, ...]
     positive_level: str
     observed_share: float
     threshold: Optional[float]
-    calibration: dict
-    discrimination: dict
-    sentences: tuple = ()
-    splits: tuple = field(default=("training", "held_out"))
+    calibration: Dict[str, Dict[str, Calibration]]
+    discrimination: Dict[str, Dict[str, Discrimination]]
+    sentences: Tuple[str, ...] = ()
+    splits: Tuple[str, ...] = field(default=("training", "held_out"))
 
     def to_dict(self) -> dict:
         from regbench.analysis.agreement import json_number as j

@@ -431,7 +431,7 @@ class FitResults(Result):
     #: the 0/1 target, kept only for the columns it set aside and the diagnostics (both
     #: are about the predictors alone); the unpenalized model is ``logistic``.
     outcome: str = "numeric"
-    logistic: Optional["LogisticResult"] = None
+    logistic: Optional[LogisticResult] = None
 
     @property
     def unpenalized_name(self) -> str:
@@ -458,8 +458,8 @@ class FitResults(Result):
         return out
 
 
-@dataclass(frozen=True)
-class Separation:
+@dataclass(frozen=True, eq=False)
+class Separation(Result):
     """Columns whose combination predicts a yes/no outcome perfectly (or perfectly but for ties).
 
     ``score = intercept + Σ combination[c] · c`` is ≥ 0 on every "yes" row and
@@ -469,15 +469,15 @@ class Separation:
     """
 
     kind: str
-    combination: dict
+    combination: Dict[str, float]
     intercept: float
     rows_exact: int
     rows: int
     sentence: str
 
 
-@dataclass(frozen=True)
-class LogisticResult:
+@dataclass(frozen=True, eq=False)
+class LogisticResult(Result):
     """Unpenalized weighted logistic regression on the columns OLS kept.
 
     Arrays are over all design ``columns``; set-aside columns (the same as
@@ -487,9 +487,9 @@ class LogisticResult:
     ever shown as if it were an estimate.
     """
 
-    columns: tuple
-    kept: tuple
-    set_aside: tuple  # of SetAside
+    columns: Tuple[str, ...]
+    kept: Tuple[str, ...]
+    set_aside: Tuple[SetAside, ...]
     intercept: float
     intercept_se: float
     coef: np.ndarray

@@ -15,12 +15,13 @@ import json
 import numpy as np
 
 from regbench.analysis.agreement import Agreement, PairAgreement
+from regbench.analysis.calibration import Calibration, Classification, Discrimination
 from regbench.analysis.stability import Stability
 from regbench.analysis.stress import ModelShift, StressResult, StressSweep
 from regbench.analysis.structure import Structure
 from regbench.errors import ProjectError
 from regbench.models.results import (CVResult, Diagnostics, FitResults, FitSettings, LinearModel, NearDependency,
-                                     OLSResult, PathResult, PenalizedFit, SetAside)
+                                     LogisticResult, OLSResult, PathResult, PenalizedFit, Separation, SetAside)
 
 # Errors the checks themselves can hit on damaged objects.
 _DAMAGE = (TypeError, ValueError, AttributeError, KeyError, IndexError, OverflowError)
@@ -91,8 +92,6 @@ def check_fit(results, design) -> None:
     _need(results.outcome == getattr(design, "outcome", "numeric"),
           "fit.outcome does not match the kind of target of the roles")
     if results.outcome == "binary":
-        from regbench.models.results import LogisticResult, Separation
-
         lr = results.logistic
         _need(isinstance(lr, LogisticResult), "fit.logistic is not a logistic result")
         for arr in ("coef", "std_errors", "z_values", "p_values", "ci_low", "ci_high"):
@@ -181,8 +180,6 @@ def check_derived(derived: dict, design, n_stress: int) -> None:
     _need(isinstance(sweeps, tuple), "derived.sweeps must be a tuple")
     cl = derived.get("classification")
     if cl is not None or getattr(design, "outcome", "numeric") == "binary":
-        from regbench.analysis.calibration import Calibration, Classification, Discrimination
-
         _need(isinstance(cl, Classification) and cl.models == names, "derived.classification does not match the models")
         for split in ("training", "held_out"):
             _need(isinstance(cl.calibration.get(split), dict) and isinstance(cl.discrimination.get(split), dict),

@@ -63,6 +63,11 @@ STORED_TYPES = {
     "stability": "regbench.analysis.stability:Stability",
     "ranges": "regbench.analysis.ranges:Ranges",
     "model-place": "regbench.analysis.ranges:ModelPlace",
+    "logistic-fit": "regbench.models.results:LogisticResult",
+    "separation": "regbench.models.results:Separation",
+    "calibration": "regbench.analysis.calibration:Calibration",
+    "discrimination": "regbench.analysis.calibration:Discrimination",
+    "classification": "regbench.analysis.calibration:Classification",
 }
 _STORED_NAME = {path: name for name, path in STORED_TYPES.items()}
 _NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from regbench.formatting import MISSING
 from regbench.models.results import model_label
 from regbench.report import svg
 
@@ -57,7 +58,7 @@ def section(session, e, num, pct, table, sentences, figure) -> str:
     parts.append(f"<h3>Discrimination on {where}</h3>")
     parts.append(table(["Model", "AUC (training rows)", "AUC (held-out rows)"],
                        [(model_label(k), num(cl.discrimination["training"][k].auc),
-                         num(cl.discrimination["held_out"][k].auc) if k in cl.discrimination["held_out"] else "—")
+                         num(cl.discrimination["held_out"][k].auc) if k in cl.discrimination["held_out"] else MISSING)
                         for k in cl.models]))
     roc = [(model_label(k), cl.discrimination[split][k].roc_fpr, cl.discrimination[split][k].roc_tpr)
            for k in cl.models]
