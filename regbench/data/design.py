@@ -569,10 +569,9 @@ def target_levels(table: Table, target: str) -> tuple:
         sorted(_level_text(v) for v in uniq[:3]))
 
 
-#: Whether a two-valued target is taken as a yes/no outcome without being asked.  Off until the
-#: layers above the engine (CLI, fit JSON, session, project, report, window) carry yes/no
-#: outcomes; until then the logistic route is taken only when ``roles.outcome == 'binary'``.
-DETECT_YES_NO = False
+#: Whether a two-valued target is taken as a yes/no outcome without being asked (a person can
+#: override it both ways with ``roles.outcome``).
+DETECT_YES_NO = True
 
 
 def outcome_of(table: Table, roles: Roles) -> tuple:
