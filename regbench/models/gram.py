@@ -456,19 +456,27 @@ class FactorAccumulator:
 
         w = np.asarray(w, dtype=np.float64)
         pos = w > 0
-        if not pos.any():
+        m = int(pos.sum())
+        if not m:
             return
-        Z = np.column_stack([np.asarray(X, dtype=np.float64)[pos], np.asarray(y, dtype=np.float64)[pos]])
-        w = w[pos]
-        Wb = w.sum()
-        mb = (w @ Z) / Wb
-        Z -= mb
-        Z *= np.sqrt(w)[:, None]
+        every = m == pos.shape[0]
         q = self.p + 1
-        if Z.shape[0] < q:
-            Z = np.vstack([Z, np.zeros((q - Z.shape[0], q))])
-        Rb = r_factor(np.asfortranarray(Z))
-        self._merge(int(pos.sum()), float(Wb), mb, Rb)
+        # One Fortran-ordered copy of the block, padded to q rows, factored in place:
+        # the block's only temporary beyond LAPACK's workspace.
+        Z = np.zeros((max(m, q), q), order="F")
+        Z[:m, :self.p] = X if every else np.asarray(X)[pos]
+        Z[:m, self.p] = y if every else np.asarray(y)[pos]
+        if not every:
+            w = w[pos]
+        Wb = w.sum()
+        mb = (w @ Z[:m]) / Wb
+        sw = np.sqrt(w)
+        for j in range(q):  # column by column: contiguous in Fortran order, no block-sized temporary
+            col = Z[:m, j]
+            col -= mb[j]
+            col *= sw
+        Rb = r_factor(Z)
+        self._merge(m, float(Wb), mb, Rb)
 
     def _merge(self, n, Wb, mb, Rb) -> None:
         from regbench.models.ols import r_factor
