@@ -178,3 +178,24 @@ def test_merge_of_differently_shifted_statistics():
     np.testing.assert_allclose(m.centered_xx(), whole.centered_xx(), rtol=1e-11, atol=1e-6)
     np.testing.assert_allclose(m.mean_x(), whole.mean_x(), rtol=1e-14)
     assert m.centered_yy() == pytest.approx(whole.centered_yy(), rel=1e-12)
+
+
+@pytest.mark.parametrize("alias", [0.0, 1e-9])
+def test_block_factor_matches_householder_qr(alias):
+    # Source: LAPACK's Householder QR (scipy's geqrf) of the same block; R is unique up to row signs.
+    from regbench.models.gram import block_factor
+    from regbench.models.ols import r_factor
+
+    rng = np.random.default_rng(3)
+    Z = rng.normal(size=(900, 12)) * np.logspace(-3, 4, 12) + rng.normal(0, 1e3, 12)
+    if alias:
+        Z[:, 7] = Z[:, 3] + alias * rng.normal(size=900)  # nearly aliased: the Householder route
+    Z -= Z.mean(axis=0)  # centred, as the accumulator factors its blocks
+    want = r_factor(np.asfortranarray(Z))
+    got = block_factor(np.asfortranarray(Z))
+    norms = np.linalg.norm(Z, axis=0)
+    # Backward error: RᵀR reproduces ZᵀZ to round-off relative to the columns' lengths.
+    assert np.max(np.abs(got.T @ got - Z.T @ Z) / np.outer(norms, norms)) < 1e-14
+    if not alias:
+        # Well-conditioned (Cholesky QR route): the same R as Householder's, column by column.
+        assert np.max(np.abs(np.abs(got) - np.abs(want)) / norms) < 1e-13
