@@ -516,15 +516,15 @@ class FactorAccumulator:
         self._merge(m, float(Wb), mb, block_factor(Z))
 
     def _merge(self, n, Wb, mb, Rb) -> None:
-        from regbench.models.ols import r_factor
-
         if self.W == 0:
             self.n, self.W, self.mean, self.R = n, Wb, mb, Rb
             return
         W = self.W + Wb
         d = mb - self.mean
         stack = np.vstack([self.R, Rb, np.sqrt(self.W * Wb / W) * d[None, :]])
-        self.R = r_factor(np.asfortranarray(stack))
+        # numpy's QR here, not scipy's geqrf: on this stack of triangles the latter was measured
+        # 10-100× slower in CPU time (0.04 s against 0.5 ms at 203 × 101), and a merge follows every block.
+        self.R = np.linalg.qr(stack, mode="r")
         self.mean = self.mean + d * (Wb / W)
         self.W = W
         self.n += n
