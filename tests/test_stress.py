@@ -324,3 +324,26 @@ def test_results_survive_the_project_codec(small):
     np.testing.assert_array_equal(rk.shift_rmse, rank_columns(d, models).shift_rmse)
     sw = _round_trip(stress_sweep(d, models, "a", "shuffle"))
     assert sw.strengths.tolist() == list(np.linspace(0, 1, 11))
+
+
+@pytest.mark.parametrize("kind,strength", [
+    ("shuffle", None), ("shuffle", 0.4), ("noise", 0.7), ("constant", None), ("rescale", 1.8), ("wild", 0.1),
+    ("missing", 0.3),
+])
+def test_closed_form_ranking_equals_damaging_each_column_in_turn(small, kind, strength):
+    # Source: run_stress, which damages one column and predicts every row again.
+    d, models = small
+    rk = rank_columns(d, models, kind, strength=strength, seed=5)
+    for j, col in enumerate(rk.columns):
+        one = run_stress(d, models, StressConfig(col, kind, strength=strength, seed=5))
+        for i, k in enumerate(rk.models):
+            assert rk.shift_rmse[i, j] == pytest.approx(one.shifts[k].shift_rmse, rel=1e-10, abs=1e-300)
+            assert rk.error_damaged[i, j] == pytest.approx(one.shifts[k].error_damaged, rel=1e-10)
+
+
+def test_closed_form_ranking_leaves_overflow_to_the_column_route(small):
+    # An extreme rescale overflows to inf: the column-by-column route reports it as it always has.
+    d, models = small
+    rk = rank_columns(d, models, "rescale", strength=1e308, seed=0)
+    one = run_stress(d, models, StressConfig("a", "rescale", strength=1e308))
+    assert rk.shift_rmse[rk.models.index("ols"), 0] == one.shifts["ols"].shift_rmse == math.inf
