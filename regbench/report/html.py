@@ -345,7 +345,7 @@ def _quality(session) -> str:
 
 
 def _ranges(session) -> str:
-    from regbench.analysis.ranges import KIND_HELDOUT, tolerance_phrase
+    from regbench.analysis.ranges import KIND_HELDOUT, approximation_note, tolerance_phrase
 
     if getattr(session.design, "outcome", "numeric") == "binary":
         return None  # ranges over least-squares fits: a numeric target's section
@@ -355,8 +355,7 @@ def _ranges(session) -> str:
                 "<p>Ranges over near-best models are not available for this fit.</p>")
     kind = ("the held-out default" if rg.tolerance_kind == KIND_HELDOUT else "set in the settings")
     parts = [f"<p>Not just four fits: every linear model {e(tolerance_phrase(rg))} — {e(kind)}; "
-             f"{e(rg.tolerance_note)}. For least squares this set is exact (an ellipsoid around OLS), so the "
-             "ranges below are not estimates but the extremes over all those models.</p>",
+             f"{e(rg.tolerance_note)}. {e(approximation_note(rg))}</p>",
              sentences(rg.sentences), sentences([t["sentence"] for t in rg.trades])]
     names = list(rg.models)
     marks = [(model_label(n), n, _std_coef(session, n)) for n in names]
