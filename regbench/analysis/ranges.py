@@ -24,11 +24,24 @@ one pass over the rows:
   best intercept sum to 0), so a model may spend part of the budget on c, and
   the "1 +" is that share.  Every row of the table lies in the range of G, so
   its range is finite;
-* importance of column j for a model β: the mean squared change of the model's
-  predictions when column j is replaced by an independent copy of itself,
-  ``2·βⱼ²·Var(xⱼ)`` (the prediction-side form of model reliance, Fisher, Rudin &
-  Dominici 2019); for OLS it equals the increase of its error.  Its range over
-  the set follows from the coefficient range.
+* importance of column j for a model (b₀, β): how much its error grows when
+  column j is replaced by an independent copy of itself (model reliance; its
+  range over the set is the "model class reliance" of Fisher, Rudin & Dominici
+  2019, JMLR 20(177)).  Over every pair of rows (i, k) of the table, weighted,
+  the model's error with xₖⱼ in place of xᵢⱼ exceeds its own error by
+  ``2·Var(xⱼ)·βⱼ² + 2·βⱼ·Cov(e, xⱼ)``, and ``Cov(e, xⱼ) = −(Gδ)ⱼ``.  With
+  ρⱼ = 1/(G⁻¹)ⱼⱼ the part of Var(xⱼ) the other columns do not explain and
+  mⱼ = Var(xⱼ) − ρⱼ the part they do, the move δ reduces to two numbers, the
+  coefficient u = βⱼ and a move t orthogonal to it in G's metric:
+  ``growth = 2mⱼu² + 2ρⱼβ̂ⱼu − 2√mⱼ·u·t`` over ``ρⱼ(u − β̂ⱼ)² + t² ≤ τ·MSE*``.
+  For each u the extreme t is at the boundary, so the smallest and largest
+  growth are a one-dimensional search over the coefficient's own range,
+  solved to round-off.  At OLS the growth is ``2·β̂ⱼ²·Var(xⱼ)``.  A column in
+  an exact dependency has no upper bound, and its lower bound is −τ·MSE*/2 (a
+  model can lean on it the wrong way: swapping it for noise then lowers the
+  error).  For a yes/no outcome importance is the mean squared change of the
+  log-odds under the same swap, ``2·βⱼ²·Var(xⱼ)``, its range from the
+  coefficient's.
 
 The rank decision is the one OLS made (same tolerance): the kept columns span
 the model, and each set-aside column is the combination of kept columns OLS
@@ -570,15 +583,10 @@ def _assemble(ell, columns, target, centre, best, sd, tau, kind, note, approxima
     high = np.where(bounded, centre + half, np.nan)
     low_std, high_std = low * sd, high * sd
     settled = bounded & ((low > 0) | (high < 0))
-    var = sd * sd
-    crosses = bounded & (low <= 0) & (high >= 0)
-    imp_low = np.where(crosses, 0.0, 2.0 * var * np.minimum(low * low, high * high))
-    imp_high = 2.0 * var * np.maximum(low * low, high * high)
-    imp_low = np.where(bounded, imp_low, 0.0)  # an unbounded coefficient can be 0 ... or not at all
-    imp_high = np.where(bounded, imp_high, np.nan)
-    for j in np.flatnonzero(~bounded):
-        if var[j] == 0:
-            imp_high[j] = 0.0  # a constant column cannot move a prediction
+    if approximation == "exact":
+        imp_low, imp_high = _reliance_ranges(ell, centre, sd, bounded)
+    else:
+        imp_low, imp_high = _log_odds_importance(low, high, sd, bounded)
     places = {}
     for name, m in models.items():
         coef = np.where(np.isfinite(m.coef), m.coef, 0.0)
@@ -603,6 +611,68 @@ def _assemble(ell, columns, target, centre, best, sd, tau, kind, note, approxima
                importance_high=imp_high, trades=trades, models=places, row_numbers=rn, row_centre=row_c,
                row_half=row_h, widest=widest, outcome=outcome)
     return replace(r, sentences=tuple(ranges_sentences(r)))
+
+
+def _log_odds_importance(low, high, sd, bounded):
+    """Range of 2·βⱼ²·Var(xⱼ), the mean squared change of the linear predictor when column j is swapped."""
+    var = sd * sd
+    crosses = bounded & (low <= 0) & (high >= 0)
+    imp_low = np.where(crosses, 0.0, 2.0 * var * np.minimum(low * low, high * high))
+    imp_high = 2.0 * var * np.maximum(low * low, high * high)
+    imp_low = np.where(bounded, imp_low, 0.0)  # an unbounded coefficient can be 0 ... or not at all
+    imp_high = np.where(bounded | (var == 0), np.where(bounded, imp_high, 0.0), np.nan)
+    return imp_low, imp_high
+
+
+#: Points per round of the one-dimensional search for the smallest and largest reliance; each round
+#: zooms into the two grid steps around the best point, so three rounds resolve u to ~(2/400)³ of its range.
+RELIANCE_GRID = 401
+RELIANCE_ROUNDS = 3
+
+
+def _reliance_ranges(ell, centre, sd, bounded):
+    """Smallest and largest error growth under swapping column j, over the least-squares set (module docstring)."""
+    from scipy import linalg
+
+    p = centre.size
+    var = sd * sd
+    b = max(ell.budget, 0.0)
+    low, high = np.full(p, np.nan), np.full(p, np.nan)
+    free = ~np.asarray(bounded, bool)
+    # β_j moves freely along a dependency while (Gδ)_j reaches ±sqrt(budget·Var): min of 2v·u² − 2u·m is −budget/2.
+    low[free] = np.where(var[free] > 0, -0.5 * b, 0.0)
+    high[free] = np.where(var[free] > 0, np.nan, 0.0)
+    cols = np.flatnonzero(~free)
+    if cols.size == 0:
+        return low, high
+    pos = {int(j): i for i, j in enumerate(ell.kept)}
+    # (G_K⁻¹)_qq for every kept column: the squared column norms of R_K⁻ᵀ, one triangular solve.
+    Zi = linalg.solve_triangular(ell.RK, np.eye(ell.kept.size), trans="T", check_finite=False)
+    inv_diag = np.einsum("ij,ij->j", Zi, Zi)
+    rho = 1.0 / inv_diag[[pos[int(j)] for j in cols]]  # the variance of x_j the other kept columns leave
+    m = np.clip(var[cols] - rho, 0.0, None)  # ... and the part they explain
+    bj = centre[cols].astype(float)
+    r = np.sqrt(b / rho)  # the coefficient's own half-range
+
+    def growth(u, sign):
+        t = np.sqrt(np.clip(b - rho[:, None] * (u - bj[:, None]) ** 2, 0.0, None))
+        return (2 * m[:, None] * u * u + 2 * (rho * bj)[:, None] * u
+                + sign * 2 * np.sqrt(m)[:, None] * np.abs(u) * t)
+
+    grid = np.linspace(0.0, 1.0, RELIANCE_GRID)
+    rows = np.arange(cols.size)
+    for sign, out in ((-1.0, low), (1.0, high)):
+        lo_u, hi_u = bj - r, bj + r
+        best = np.full(cols.size, np.inf if sign < 0 else -np.inf)
+        for _ in range(RELIANCE_ROUNDS):
+            U = lo_u[:, None] + (hi_u - lo_u)[:, None] * grid[None, :]
+            vals = growth(U, sign)
+            i = np.argmin(vals, axis=1) if sign < 0 else np.argmax(vals, axis=1)
+            found = vals[rows, i]
+            best = np.minimum(best, found) if sign < 0 else np.maximum(best, found)
+            lo_u, hi_u = U[rows, np.maximum(i - 1, 0)], U[rows, np.minimum(i + 1, grid.size - 1)]
+        out[cols] = best
+    return low, high
 
 
 def _widest(X, mean, sd, columns, rn, centre, half, binary=False) -> tuple:

@@ -378,10 +378,11 @@ def _ranges(session) -> str:
     parts.append("<h3>Per column</h3>")
     parts.append(table(["Column", "Coefficient (table's units)", "Standardized", "Sign",
                         "Importance (share of the best error)"], rows))
-    parts.append('<p class="muted">Importance of a column for one model: how much, in mean square, its predictions '
-                 "would change if that column were replaced by an independent copy of itself (2·β²·variance); for "
-                 "OLS that is exactly how much its error would grow. Shown as a share of the best training error, "
-                 "smallest and largest over the near-best models.</p>")
+    parts.append('<p class="muted">Importance of a column for one model: how much its error would grow if that column '
+                 "were replaced by an independent copy of itself (its model reliance). Shown as a share of the best "
+                 "training error, smallest and largest over the near-best models; a value below zero means some "
+                 "near-best model leans on the column the wrong way, so swapping it for noise would lower its "
+                 "error.</p>")
     parts.append("<h3>Where the fitted models sit</h3>")
     parts.append(table(["Model", "Training error above the best", "Inside the set"],
                        [(model_label(n), pct(m.excess), "yes" if m.inside else "no") for n, m in rg.models.items()]))

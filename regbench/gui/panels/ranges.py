@@ -5,7 +5,9 @@ the other comparisons): a band per column from the smallest to the largest
 coefficient any near-best model gives it, the fitted models marked on it; a strip
 of every row's prediction range; the columns, rows and fits as tables.  The
 tolerance control writes the session's range tolerance, which recomputes only
-the ranges (no refit).
+the ranges (no refit).  For a yes/no outcome the ranges come from the quadratic
+approximation of the log-loss, and the panel says so beside the tolerance; the
+strip shows probabilities.
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6 import QtCore, QtGui, QtWidgets
 
+from regbench.analysis.ranges import KIND_HELDOUT, QUADRATIC_WORDS, ranges_unavailable
 from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.style import PALETTE, model_colour
 from regbench.formatting import number_text
@@ -157,14 +160,16 @@ class RangesPanel(Panel):
                 m.set_rows([], [])
             self.in_force.setText("")
             self.trades.setText("")
+            why = ranges_unavailable(session.results) if session.results is not None else None
             self.set_sentences(["Fit the models to see how far every near-best model can differ."
                                 if session.results is None else
-                                "Ranges over near-best models are not available for this fit."])
+                                why or "Ranges over near-best models are not available for this fit."])
             return
-        from regbench.analysis.ranges import KIND_HELDOUT
-
         which = "held-out default" if rg.tolerance_kind == KIND_HELDOUT else "set here"
-        self.in_force.setText(f"In force ({which}): {rg.tolerance_note}.")
+        approx = (f" Quadratic approximation: the ranges come from the {QUADRATIC_WORDS}, close to but not "
+                  "exactly the extremes over those models; coefficients are on the log-odds scale."
+                  if rg.approximation == "quadratic" else "")
+        self.in_force.setText(f"In force ({which}): {rg.tolerance_note}.{approx}")
         self.set_sentences(list(rg.sentences[:2]))
         self.trades.setText("\n".join(t["sentence"] for t in rg.trades) + (
             "\n" + " ".join(rg.sentences[2:]) if len(rg.sentences) > 2 else ""))
@@ -227,6 +232,8 @@ class RangesPanel(Panel):
             plot.addItem(sc)
             legend.addItem(sc, model_label(name))
         plot.getAxis("left").setTicks([[(ys[j], cols[j]) for j in range(p)]])
+        plot.setLabel("bottom", "standardized log-odds coefficient (per SD of the column)"
+                      if rg.outcome == "binary" else "standardized coefficient (per SD of the column)")
         plot.setXRange(lo, hi, padding=0)
         plot.setYRange(-0.7, p + 0.6, padding=0)  # headroom for the legend
 
@@ -247,57 +254,73 @@ class RangesPanel(Panel):
             plot.setTitle("")
         order = idx[np.argsort(rg.row_centre[idx], kind="stable")]
         x = np.arange(order.size, dtype=float)
-        lo = rg.row_centre[order] - rg.row_half[order]
-        hi = rg.row_centre[order] + rg.row_half[order]
+        if rg.outcome == "binary":  # probabilities: the log-odds ends map exactly (a monotone map)
+            centre, low, high = rg.probabilities()
+        else:
+            centre, low, high = rg.row_centre, rg.row_centre - rg.row_half, rg.row_centre + rg.row_half
+        lo, hi = low[order], high[order]
         xs = np.repeat(x, 2)
         ys = np.column_stack([lo, hi]).ravel()
         plot.addItem(pg.PlotDataItem(xs, ys, connect="pairs", pen=pg.mkPen(PALETTE["accent"], width=1)))
-        plot.addItem(pg.ScatterPlotItem(x, rg.row_centre[order], size=3, pen=None,
-                                        brush=model_colour("ols")))
+        first = "logistic" if rg.outcome == "binary" else "ols"
+        plot.addItem(pg.ScatterPlotItem(x, centre[order], size=3, pen=None, brush=model_colour(first)))
         widest = {d["row"] for d in rg.widest[:3]}
         for k, i in enumerate(order):
             if int(rg.row_numbers[i]) in widest:
                 t = pg.TextItem(f"row {int(rg.row_numbers[i])}", color=PALETTE["warn"], anchor=(0.5, 1.1))
                 t.setPos(float(k), float(hi[k]))
                 plot.addItem(t)
-        plot.setLabel("left", rg.target)
+        if rg.outcome == "binary":
+            plot.setLabel("left", f"probability of {rg.target}")
+            plot.setLabel("bottom", "rows by logistic prediction; a line spans the near-best models")
+        else:
+            plot.setLabel("left", rg.target)
+            plot.setLabel("bottom", "rows by OLS prediction; a line spans the near-best models")
         top, bottom = float(hi.max()), float(lo.min())
         plot.setYRange(bottom, top + 0.12 * (top - bottom or 1.0), padding=0.02)
 
     def _fill_tables(self, rg):
+        binary = rg.outcome == "binary"
+        # Least squares: importance as a share of the best error; yes/no: the mean square of the log-odds change.
+        scale = 1.0 if binary or not rg.best_error > 0 else rg.best_error
         p = len(rg.columns)
         rows, fg = [], {}
         for j in range(p):
+            imp_lo = float(rg.importance_low[j] / scale)
             if rg.bounded[j]:
-                imp_hi = rg.importance_high[j] / rg.best_error if rg.best_error > 0 else float("nan")
                 rows.append([float(rg.low[j]), float(rg.high[j]), float(rg.low_std[j]), float(rg.high_std[j]),
-                             "settled" if rg.sign_settled[j] else "not settled",
-                             float(rg.importance_low[j] / rg.best_error) if rg.best_error > 0 else float("nan"),
-                             imp_hi])
+                             "settled" if rg.sign_settled[j] else "not settled", imp_lo,
+                             float(rg.importance_high[j] / scale)])
                 if not rg.sign_settled[j]:
                     fg[(j, 4)] = OPEN
             else:
-                rows.append(["no bound", "no bound", "no bound", "no bound", "not settled",
-                             float(rg.importance_low[j] / rg.best_error) if rg.best_error > 0 else float("nan"),
-                             "no bound"])
+                rows.append(["no bound", "no bound", "no bound", "no bound", "not settled", imp_lo, "no bound"])
                 for c in range(5):
                     fg[(j, c)] = PALETTE["warn"]
-        self.columns_model.set_rows(rows, ["Lowest", "Highest", "Lowest (std.)", "Highest (std.)", "Sign",
-                                           "Importance from", "to (share of best error)"],
-                                    row_labels=list(rg.columns), foregrounds=fg, digits=3)
+        unit = "log-odds² moved" if binary else "share of best error"
+        heads = ["Lowest", "Highest", "Lowest (std.)", "Highest (std.)", "Sign", "Importance from", f"to ({unit})"]
+        if binary:
+            heads[:4] = ["Lowest (log-odds)", "Highest (log-odds)", "Lowest (std.)", "Highest (std.)"]
+        self.columns_model.set_rows(rows, heads, row_labels=list(rg.columns), foregrounds=fg, digits=3)
         self.columns_view.resizeColumnsToContents()
         rows = []
         for d in rg.widest:
             unusual = "; ".join(f"{c} {v:.4g} ({z:+.1f} SD)" for c, v, z in d["unusual"]) or "nothing unusual"
-            rows.append([d["row"], d["centre"], d["low"], d["high"], d["width"], unusual])
-        self.rows_model.set_rows(rows, ["Row", "OLS prediction", "Lowest", "Highest", "Width", "Unusual values"],
-                                 digits=4)
+            if binary:
+                rows.append([d["row"], d["p_centre"], d["p_low"], d["p_high"], d["p_width"],
+                             f"{d['low']:.3g} to {d['high']:.3g}", unusual])
+            else:
+                rows.append([d["row"], d["centre"], d["low"], d["high"], d["width"], unusual])
+        heads = (["Row", "Logistic probability", "Lowest", "Highest", "Width", "Log-odds range", "Unusual values"]
+                 if binary else ["Row", "OLS prediction", "Lowest", "Highest", "Width", "Unusual values"])
+        self.rows_model.set_rows(rows, heads, digits=4)
         self.rows_view.resizeColumnsToContents()
         rows, fg = [], {}
         for k, (name, m) in enumerate(rg.models.items()):
             rows.append([model_label(name), float(100.0 * m.excess), "yes" if m.inside else "no"])
             if not m.inside:
                 fg[(k, 2)] = PALETTE["warn"]
-        self.fits_model.set_rows(rows, ["Model", "Training error above the best (%)", "Inside the set"],
+        word = "log-loss" if binary else "error"
+        self.fits_model.set_rows(rows, ["Model", f"Training {word} above the best (%)", "Inside the set"],
                                  foregrounds=fg, digits=3)
         self.fits_view.resizeColumnsToContents()
