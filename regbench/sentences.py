@@ -41,7 +41,7 @@ def se_kind_sentence(design, o) -> str:
 
 def fit_summary_text(design, results) -> str:
     """A plain-text summary of the fit, in the order a reader asks about it."""
-    from regbench.analysis.ranges import compute_ranges
+    from regbench.analysis.ranges import compute_ranges, ranges_unavailable
     from regbench.models.export import OBJECTIVE, OBJECTIVE_BINARY
     from regbench.models.ols import set_aside_sentence
 
@@ -134,11 +134,15 @@ def fit_summary_text(design, results) -> str:
         lines.append("  Penalty factors: "
                      + ", ".join(f"{c} {_summary_number(v)}" for c, v in results.settings.penalty_factors)
                      + " (0: unpenalized, always kept); every other column 1.")
-    if not binary:  # ranges over equally good least-squares fits describe a numeric target
+    lines.append("")
+    why = ranges_unavailable(results)
+    if why is not None:
+        lines.append("How far equally good models differ: " + why)
+    else:
         rg = compute_ranges(design, results, results.settings.range_tolerance)
-        lines.append("")
+        approx = " — quadratic approximation" if rg.approximation == "quadratic" else ""
         lines.append(f"How far equally good models differ (tolerance {number_text(100 * rg.tolerance, 2)} %: "
-                     f"{rg.tolerance_note})")
+                     f"{rg.tolerance_note}{approx})")
         for s in rg.sentences:
             lines.append(f"  • {s}")
         for t in rg.trades:

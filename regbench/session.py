@@ -872,12 +872,13 @@ def _derive(design, results, state: SessionState, cancel, have: Optional[dict] =
             sw.append(stress_sweep(design, models, c.column, c.kind, seed=c.seed, tolerance=c.tolerance))
         sweeps = tuple(sw)
     ranges = have.get("ranges") if "models" in have else None
-    # Ranges over equally good least-squares fits: a numeric target's analysis.
-    if ranges is None and design.outcome != "binary":
+    # Exact for least squares; for a yes/no outcome the quadratic approximation, labelled in the result.
+    if ranges is None:
         try:
             ranges = compute_ranges(design, results, state.settings.range_tolerance, models=models)
         except (ValueError, np.linalg.LinAlgError):
-            # A fit without OLS's factor or the cross-products (never from fit_all): no ranges, the rest stands.
+            # A separated yes/no outcome (ranges_unavailable says why), or a fit without OLS's factor or the
+            # cross-products (never from fit_all): no ranges, the rest stands.
             ranges = None
     classification = have.get("classification")
     if classification is None and design.outcome == "binary":

@@ -206,3 +206,101 @@ def test_json_and_sentences_say_it_is_the_quadratic_approximation(spector_fit):
     assert all(v["low_relative"] is None for v in js["importance"].values())
     r2 = compute_ranges(design, results)  # the held-out default, in log-loss words
     assert r2.tolerance_kind == "heldout_1se" and "cross-validated log-loss" in r2.tolerance_note
+
+
+# -- every layer: CLI, session, project file, report -----------------------------------------
+
+@pytest.fixture(scope="module")
+def grading_session():
+    from regbench.data import Roles
+    from regbench.data.reader import table_from_frame
+    from regbench.demo import GRADING_ROLES, grading
+    from regbench.session import Session
+
+    s = Session(table_from_frame(grading(), "grading.csv"), Roles.from_dict(GRADING_ROLES),
+                FitSettings(folds=4, seed=3, n_penalties=15, range_tolerance=0.02))
+    s.set_bootstrap(0)
+    s.compute()
+    return s
+
+
+def test_session_project_and_report_carry_the_labelled_approximation(grading_session, tmp_path):
+    from regbench.models.export import fit_to_json
+    from regbench.project import load_project, save_project
+    from regbench.report import report_html
+    from regbench.sentences import fit_summary_text
+
+    s = grading_session
+    rg = s.ranges()
+    assert rg is not None and rg.approximation == "quadratic" and rg.outcome == "binary"
+    # The exact aliases the logistic fit sets aside (as OLS would) are unbounded, with their sentence.
+    assert not rg.bounded[rg.columns.index("firmness_dan")]
+    assert any("firmness_dan" in t["sentence"] and "without limit" in t["sentence"] for t in rg.trades)
+    assert rg.models["logistic"].inside and rg.models["logistic"].excess == pytest.approx(0.0, abs=1e-12)
+    js = fit_to_json(s.design, s.results)["ranges"]
+    assert js["approximation"] == "quadratic" and js["outcome"] == "binary" and js["tolerance"] == 0.02
+    assert js["sentences"] == list(rg.sentences)
+    assert "quadratic approximation" in fit_summary_text(s.design, s.results)
+    html = report_html(s)
+    sec = html[html.index('<section id="ranges">'):]
+    sec = sec[:sec.index("</section>")]
+    assert "Quadratic approximation." in sec and "quadratic approximation of the log-loss" in sec
+    assert "within 2 % of the best training log-loss" in sec and "Logistic probability of top_grade" in sec
+    assert "Training log-loss above the best" in sec
+    path = tmp_path / "g.regbench"
+    save_project(s, path)
+    back = load_project(path, compute=False)
+    assert back.cache_status == "used" and "ranges" in back._cache
+    r = back.ranges()
+    assert r.outcome == "binary" and r.approximation == "quadratic"
+    np.testing.assert_array_equal(r.low, rg.low)
+    np.testing.assert_array_equal(r.row_half, rg.row_half)
+
+
+def test_a_separated_outcome_says_why_it_has_no_ranges_on_every_route(tmp_path):
+    import json
+
+    import pandas as pd
+
+    from regbench.cli import main
+    from regbench.data import Roles
+    from regbench.data.reader import table_from_frame
+    from regbench.report import report_html
+    from regbench.session import Session
+
+    X, _ = _spector()
+    frame = pd.DataFrame(X, columns=list(COLS))
+    frame["good"] = np.where(X[:, 0] > 3.0, "yes", "no")  # separated by GPA, by construction
+    path = tmp_path / "sep.csv"
+    frame.to_csv(path, index=False)
+    out = tmp_path / "fit.json"
+    assert main(["fit", str(path), "--target", "good", "--folds", "3", "--penalties", "10", "--json", str(out)]) == 0
+    js = json.loads(out.read_text(encoding="utf-8"))
+    assert js["outcome"] == "binary" and js["ranges"] is None
+    assert js["models"]["logistic"]["separation"] is not None
+    s = Session(table_from_frame(frame, "sep.csv"), Roles(target="good"), FitSettings(folds=3, n_penalties=10))
+    s.set_bootstrap(0)
+    s.compute()
+    assert s.ranges() is None
+    html = report_html(s)
+    sec = html[html.index('<section id="ranges">'):]
+    assert "the outcome is separated" in sec[:sec.index("</section>")]
+
+
+def test_cli_fit_json_on_the_grading_sample(tmp_path):
+    import json
+    from pathlib import Path
+
+    from regbench.cli import main
+    from regbench.demo import GRADING_ROLES
+
+    csv = Path(__file__).resolve().parents[1] / "sample_projects" / "grading.csv"
+    out = tmp_path / "fit.json"
+    assert main(["fit", str(csv), "--target", "top_grade", "--groups", "glasshouse", "--predictors",
+                 ",".join(GRADING_ROLES["predictors"]), "--folds", "3", "--penalties", "10",
+                 "--range-tolerance", "0.05", "--json", str(out)]) == 0
+    rg = json.loads(out.read_text(encoding="utf-8"))["ranges"]
+    assert rg["approximation"] == "quadratic" and rg["rows"]["scale"] == "log_odds"
+    assert rg["sentences"][0].startswith("Any model within 5 % of the best training log-loss (quadratic approximation")
+    top = rg["rows"]["widest"][0]["probability"]
+    assert 0 <= top["low"] <= top["prediction"] <= top["high"] <= 1

@@ -87,3 +87,37 @@ def test_panel_without_fits_says_so(qtbot):
     qtbot.addWidget(w)
     assert "ranges" in [p.key for p in w.panels]
     w.close()
+
+
+def test_panel_labels_the_quadratic_approximation_for_a_yes_no_outcome(qtbot):
+    from regbench.analysis.ranges import compute_ranges
+    from regbench.data.reader import table_from_frame
+    from regbench.demo import GRADING_ROLES, grading
+    from regbench.gui.window import MainWindow
+    from regbench.session import Session
+
+    s = Session(table_from_frame(grading(), "grading.csv"), Roles.from_dict(GRADING_ROLES),
+                FitSettings(folds=3, n_penalties=10, range_tolerance=0.05))
+    s.set_bootstrap(0)
+    s.compute()
+    w = MainWindow(autosave=False)
+    w.ask_unsaved = lambda: "discard"
+    qtbot.addWidget(w)
+    w.resize(1400, 900)
+    w.adopt(s, fit=False)
+    _idle(qtbot, w)
+    w.show_panel("ranges")
+    panel = w.panel("ranges")
+    w._refresh_panel(panel)
+    core = compute_ranges(s.design, s.results, 0.05, models=s.models())
+    assert "Quadratic approximation" in panel.in_force.text() and "log-odds" in panel.in_force.text()
+    assert panel.sentences.text().startswith(core.sentences[0][:60])
+    assert "quadratic approximation" in panel.sentences.text()
+    # The rows table shows probabilities, widest in probability first, as the core computes them.
+    assert panel.rows_model.headers[1] == "Logistic probability"
+    assert panel.rows_model.value(0, 0) == core.widest[0]["row"]
+    assert panel.rows_model.value(0, 2) == pytest.approx(core.widest[0]["p_low"])
+    assert panel.fits_model.headers[1] == "Training log-loss above the best (%)"
+    assert "probability" in panel.strip.getPlotItem().getAxis("left").labelText
+    w.dirty = False
+    w.close()

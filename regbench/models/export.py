@@ -205,15 +205,17 @@ def fit_to_json(design, results) -> dict:
             "near_dependencies": [nd.sentence for nd in d.near_dependencies],
         },
         "settings": results.settings.to_dict(),
-        # Ranges over equally good least-squares fits describe a numeric target only.
-        "ranges": None if binary else _ranges(design, results).to_dict(),
+        # A yes/no outcome's ranges come from the quadratic approximation (labelled in them); null when separated.
+        "ranges": _ranges_json(design, results),
     }
 
 
-def _ranges(design, results):
-    from regbench.analysis.ranges import compute_ranges
+def _ranges_json(design, results):
+    from regbench.analysis.ranges import compute_ranges, ranges_unavailable
 
-    return compute_ranges(design, results, results.settings.range_tolerance)
+    if ranges_unavailable(results) is not None:
+        return None
+    return compute_ranges(design, results, results.settings.range_tolerance).to_dict()
 
 
 # The summary for people lives with the other texts (regbench/sentences.py); kept importable here.

@@ -345,62 +345,96 @@ def _quality(session) -> str:
 
 
 def _ranges(session) -> str:
-    from regbench.analysis.ranges import KIND_HELDOUT, approximation_note, tolerance_phrase
+    from regbench.analysis.ranges import KIND_HELDOUT, approximation_note, ranges_unavailable, tolerance_phrase
 
-    if getattr(session.design, "outcome", "numeric") == "binary":
-        return None  # ranges over least-squares fits: a numeric target's section
     rg = session.ranges() if session.results is not None else None
     if rg is None:
+        why = ranges_unavailable(session.results) if session.results is not None else None
         return ("<p>The models have not been fitted.</p>" if session.results is None else
-                "<p>Ranges over near-best models are not available for this fit.</p>")
+                f"<p>{e(why or 'Ranges over near-best models are not available for this fit.')}</p>")
+    binary = rg.outcome == "binary"
     kind = ("the held-out default" if rg.tolerance_kind == KIND_HELDOUT else "set in the settings")
-    parts = [f"<p>Not just four fits: every linear model {e(tolerance_phrase(rg))} — {e(kind)}; "
+    label = "<p><strong>Quadratic approximation.</strong></p>" if rg.approximation == "quadratic" else ""
+    parts = [label, f"<p>Not just four fits: every linear model {e(tolerance_phrase(rg))} — {e(kind)}; "
              f"{e(rg.tolerance_note)}. {e(approximation_note(rg))}</p>",
              sentences(rg.sentences), sentences([t["sentence"] for t in rg.trades])]
-    names = list(rg.models)
-    marks = [(model_label(n), n, _std_coef(session, n)) for n in names]
+    marks = [(model_label(n), n, _std_coef(session, n)) for n in rg.models]
+    scale = "standardized log-odds coefficient" if binary else "standardized coefficient"
     parts.append(figure(svg.range_bars(rg.columns, rg.low_std, rg.high_std, marks,
                                        title="Coefficient of each column over every near-best model",
-                                       xlabel="standardized coefficient (per SD of the column)"),
+                                       xlabel=f"{scale} (per SD of the column)"),
                         "Each band runs from the smallest to the largest coefficient any near-best model gives the "
                         "column; a band across zero means the data do not settle the sign. Marks show where the "
                         "fitted models sit. Dashed rows have no bound: the column trades weight with others."))
+    parts.extend(_ranges_columns(rg))
+    word = "log-loss" if binary else "error"
+    parts.append("<h3>Where the fitted models sit</h3>")
+    parts.append(table(["Model", f"Training {word} above the best", "Inside the set"],
+                       [(model_label(n), pct(m.excess), "yes" if m.inside else "no") for n, m in rg.models.items()]))
+    parts.extend(_ranges_rows(rg))
+    parts.append('<p class="muted">A range says what the data cannot tell apart, not which story is true: '
+                 "associations are not causes, and a model is only as good as its inputs.</p>")
+    return "".join(parts)
+
+
+def _ranges_columns(rg) -> list:
+    """The per-column table of the ranges section and what its importance means."""
+    binary = rg.outcome == "binary"
+
+    def imp(v):  # least squares: a share of the best error; yes/no: the log-odds' mean square
+        return num(v, 3) if binary else pct(v / rg.best_error)
+
     rows = []
     for j, c in enumerate(rg.columns):
         if rg.bounded[j]:
             span, std = f"{num(rg.low[j])} to {num(rg.high[j])}", f"{num(rg.low_std[j], 3)} to {num(rg.high_std[j], 3)}"
             sign = "settled" if rg.sign_settled[j] else "not settled"
-            imp = f"{pct(rg.importance_low[j] / rg.best_error)} to {pct(rg.importance_high[j] / rg.best_error)}"
+            rows.append((c, span, std, sign, f"{imp(rg.importance_low[j])} to {imp(rg.importance_high[j])}"))
         else:
-            span, std, sign = "no bound", "no bound", "not settled"
-            imp = f"{pct(rg.importance_low[j] / rg.best_error)} to no bound"
-        rows.append((c, span, std, sign, imp))
-    parts.append("<h3>Per column</h3>")
-    parts.append(table(["Column", "Coefficient (table's units)", "Standardized", "Sign",
-                        "Importance (share of the best error)"], rows))
-    parts.append('<p class="muted">Importance of a column for one model: how much its error would grow if that column '
-                 "were replaced by an independent copy of itself (its model reliance). Shown as a share of the best "
-                 "training error, smallest and largest over the near-best models; a value below zero means some "
-                 "near-best model leans on the column the wrong way, so swapping it for noise would lower its "
-                 "error.</p>")
-    parts.append("<h3>Where the fitted models sit</h3>")
-    parts.append(table(["Model", "Training error above the best", "Inside the set"],
-                       [(model_label(n), pct(m.excess), "yes" if m.inside else "no") for n, m in rg.models.items()]))
-    if rg.widest:
-        parts.append("<h3>Rows where equally good models disagree most</h3>")
-        rows = []
-        for d in rg.widest:
-            unusual = "; ".join(f"{c} {num(v)} ({'+' if z > 0 else '−'}{num(abs(z), 2)} SD)" for c, v, z in d["unusual"])
+            rows.append((c, "no bound", "no bound", "not settled", f"{imp(rg.importance_low[j])} to no bound"))
+    units = "Log-odds coefficient" if binary else "Coefficient (table's units)"
+    what = "Importance (log-odds moved, mean square)" if binary else "Importance (share of the best error)"
+    out = ["<h3>Per column</h3>", table(["Column", units, "Standardized", "Sign", what], rows)]
+    if binary:
+        out.append('<p class="muted">Importance of a column for one model: how much, in mean square, its log-odds '
+                   "would move if that column were replaced by an independent copy of itself (2·β²·variance), "
+                   "smallest and largest over the near-best models.</p>")
+    else:
+        out.append('<p class="muted">Importance of a column for one model: how much its error would grow if that '
+                   "column were replaced by an independent copy of itself (its model reliance). Shown as a share of "
+                   "the best training error, smallest and largest over the near-best models; a value below zero "
+                   "means some near-best model leans on the column the wrong way, so swapping it for noise would "
+                   "lower its error.</p>")
+    return out
+
+
+def _ranges_rows(rg) -> list:
+    """The rows where equally good models disagree most (probabilities for a yes/no outcome)."""
+    if not rg.widest:
+        return []
+    binary = rg.outcome == "binary"
+    rows = []
+    for d in rg.widest:
+        unusual = "; ".join(f"{c} {num(v)} ({'+' if z > 0 else '−'}{num(abs(z), 2)} SD)" for c, v, z in d["unusual"])
+        if binary:
+            rows.append((str(d["row"]), num(d["p_centre"], 3), f"{num(d['p_low'], 3)} to {num(d['p_high'], 3)}",
+                         num(d["p_width"], 3), f"{num(d['low'])} to {num(d['high'])}", unusual or "nothing unusual"))
+        else:
             rows.append((str(d["row"]), num(d["centre"]), f"{num(d['low'])} to {num(d['high'])}", num(d["width"]),
                          unusual or "nothing unusual"))
-        parts.append(table(["Row", f"OLS prediction of {rg.target}", "Range over near-best models", "Width",
-                            "Unusual values"], rows))
+    if binary:
+        heads = ["Row", f"Logistic probability of {rg.target}", "Range over near-best models", "Width",
+                 "Log-odds range", "Unusual values"]
+        _, lo, hi = rg.probabilities()
+        w = hi - lo
+        what = "the width of the probability range"
+    else:
+        heads = ["Row", f"OLS prediction of {rg.target}", "Range over near-best models", "Width", "Unusual values"]
         w = 2 * rg.row_half
-        parts.append(f"<p>Over all {w.size} rows the width is {num(float(np.median(w)))} at the median and "
-                     f"{num(float(w.max()))} at most.</p>")
-    parts.append('<p class="muted">A range says what the data cannot tell apart, not which story is true: '
-                 "associations are not causes, and a model is only as good as its inputs.</p>")
-    return "".join(parts)
+        what = "the width"
+    return ["<h3>Rows where equally good models disagree most</h3>", table(heads, rows),
+            f"<p>Over all {w.size} rows {what} is {num(float(np.median(w)))} at the median and "
+            f"{num(float(w.max()))} at most.</p>"]
 
 
 def _std_coef(session, name):
