@@ -104,8 +104,9 @@ class FitSettings:
         None, OrNone(Number(0.0, 10.0, high_closed=True,
                             hint="a share of the best training error, e.g. 0.01 for within 1 %"),
                      "one standard error of the lowest CV error"),
-        "ranges over near-best models: every model whose training error is within this share of the best "
-        "(0.01: within one per cent; default: one standard error of the lowest CV error)",
+        "ranges over near-best models: every model whose training error (for a yes/no outcome the log-loss, "
+        "through its quadratic approximation) is within this share of the best (0.01: within one per cent; "
+        "default: one standard error of the lowest CV error)",
         flag="--range-tolerance")
 
     def to_dict(self) -> dict:
