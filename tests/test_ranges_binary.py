@@ -304,3 +304,15 @@ def test_cli_fit_json_on_the_grading_sample(tmp_path):
     assert rg["sentences"][0].startswith("Any model within 5 % of the best training log-loss (quadratic approximation")
     top = rg["rows"]["widest"][0]["probability"]
     assert 0 <= top["low"] <= top["prediction"] <= top["high"] <= 1
+
+
+def test_a_design_holding_a_row_sample_gets_no_approximation(spector_fit):
+    # The curvature is a sum over every fitted row; a design holding only some of them would draw
+    # another set, so it is refused rather than shown as if it were the fit's.
+    from dataclasses import replace
+
+    X, y, design, results = spector_fit
+    half = replace(design, X=design.X[:16], y=design.y[:16], weights=design.weights[:16],
+                   row_numbers=design.row_numbers[:16])
+    with pytest.raises(ValueError, match="every fitted row"):
+        compute_ranges(half, results, 0.01)

@@ -121,3 +121,31 @@ def test_panel_labels_the_quadratic_approximation_for_a_yes_no_outcome(qtbot):
     assert "probability" in panel.strip.getPlotItem().getAxis("left").labelText
     w.dirty = False
     w.close()
+
+
+def test_panel_says_why_a_separated_outcome_has_no_ranges(qtbot):
+    import pandas as pd
+
+    from regbench.data.reader import table_from_frame
+    from regbench.gui.window import MainWindow
+    from regbench.session import Session
+
+    rng = np.random.default_rng(2)
+    x = rng.normal(size=60)
+    frame = pd.DataFrame({"x": x, "z": rng.normal(size=60), "ok": np.where(x > 0.2, "yes", "no")})
+    s = Session(table_from_frame(frame, "sep.csv"), Roles(target="ok"), FitSettings(folds=3, n_penalties=10))
+    s.set_bootstrap(0)
+    s.compute()
+    assert s.results.logistic.separation is not None and s.ranges() is None
+    w = MainWindow(autosave=False)
+    w.ask_unsaved = lambda: "discard"
+    qtbot.addWidget(w)
+    w.adopt(s, fit=False)
+    _idle(qtbot, w)
+    w.show_panel("ranges")
+    panel = w.panel("ranges")
+    w._refresh_panel(panel)
+    assert "the outcome is separated" in panel.sentences.text() and "no minimum" in panel.sentences.text()
+    assert panel.columns_model.rowCount() == 0
+    w.dirty = False
+    w.close()

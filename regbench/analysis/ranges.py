@@ -461,6 +461,9 @@ def _binary_ranges(design, results, tau, kind, note, models) -> Ranges:
     lr = results.logistic
     columns, p, kept, aside, links = _rank_decision(lr)
     on = np.asarray(design.weights) > 0
+    if int(getattr(lr, "n_obs", 0) or 0) > int(on.sum()):
+        # The curvature needs every fitted row; a design holding a row sample would give another set.
+        raise ValueError("Ranges over near-best logistic models need every fitted row; this design holds a sample.")
     X, y, w = np.asarray(design.X, float)[on], np.asarray(design.y, float)[on], np.asarray(design.weights, float)[on]
     W = float(w.sum())
     centre = np.where(np.isfinite(lr.coef), lr.coef, 0.0).astype(float)
