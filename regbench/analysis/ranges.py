@@ -793,11 +793,14 @@ def ranges_sentences(r: Ranges) -> list:
             width, whose = 2 * r.row_half[i], f"predictions of {r.target or 'the target'}"
         where = (f"on any of {r.row_half.size:,} rows sampled from {r.rows_of:,}" if r.rows_of
                  else "on any row")
-        out.append(f"Their {whose} differ by at most {_num(width)} {where} (most on row {int(r.row_numbers[i])}).")
+        # Probabilities get a third digit: a width of 0.998 must not read as 1.
+        out.append(f"Their {whose} differ by at most {_num(width, 3 if binary else 2)} {where} "
+                   f"(most on row {int(r.row_numbers[i])}).")
     unb = [cols[j] for j in range(len(cols)) if not r.bounded[j]]
     if unb:
-        out.append(f"The coefficients of {join_words(unb)} are not bounded at all: the dependencies OLS set aside let "
-                   "them take any value without changing the predictions on these rows.")
+        who = "the logistic fit (as OLS)" if binary else "OLS"
+        out.append(f"The coefficients of {join_words(unb)} are not bounded at all: the dependencies {who} set "
+                   "aside let them take any value without changing the predictions on these rows.")
     inside = [n for n, m in r.models.items() if m.inside and n not in ("ols", "logistic")]
     outside = [n for n, m in r.models.items() if not m.inside]
     if outside:
