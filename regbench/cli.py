@@ -155,6 +155,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--big", action="store_true",
                    help="with --targets: also the 3M and 10M row tables (about 10 GB of disk, several minutes)")
     p.add_argument("--pairs", type=int, default=3, help="paired runs per ratio (default 3)")
+    p.add_argument("--only", metavar="NAMES",
+                   help="with --targets: only these, comma-separated (stability, startup, headline, wide_rows, "
+                        "memory_1m, stream_3m, stream_10m)")
     p.add_argument("--wide", action="store_true",
                    help="only the wide case: 200 rows × 2,000 sensors, regbench against the scripted route")
     p.add_argument("--logistic", action="store_true",
@@ -434,7 +437,7 @@ def cmd_bench(args) -> int:
     if args.targets:
         from regbench.bench import targets
 
-        return targets(big=args.big, pairs=args.pairs)
+        return targets(big=args.big, pairs=args.pairs, only=args.only.split(",") if args.only else None)
     if getattr(args, "logistic", False):
         from regbench.bench import logistic_main
 

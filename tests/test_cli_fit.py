@@ -126,6 +126,13 @@ def test_fit_as_a_whole_process(tmp_path):
     assert np.isfinite(d["models"]["lasso"]["alpha"])
 
 
+def test_bench_targets_refuses_an_unknown_target_by_name(tmp_path, capsys):
+    from regbench.cli import main
+
+    assert main(["bench", "--targets", "--only", "startup,speed"]) == 2
+    assert "unknown target speed" in capsys.readouterr().err
+
+
 def test_bench_quick_runs(tmp_path):
     env = dict(os.environ, REGBENCH_BENCH_DIR=str(tmp_path))
     proc = subprocess.run([sys.executable, "-m", "regbench", "bench", "--quick"], capture_output=True, text=True,
