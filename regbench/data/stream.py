@@ -178,9 +178,8 @@ def read_batches(part: Part, columns, batch_rows: int, numeric=()):
                                     convert_options=pacsv.ConvertOptions(column_types=types,
                                                                          include_columns=list(columns)))
         except pa.ArrowInvalid as exc:
-            raise DataError(f"{part.path}: cannot be read as a table of numbers ({exc}); read it without "
-                            "--memory-budget to have bad cells listed row by row") from None
-        it = _csv_batches(reader, part.path)
+            raise _bad_cell(part.path, exc, numeric) from None
+        it = _csv_batches(reader, part.path, numeric)
     for batch in it:
         yield {name: _to_numpy(batch.column(i), name in numeric, part.path, name)
                for i, name in enumerate(batch.schema.names)}
@@ -188,7 +187,7 @@ def read_batches(part: Part, columns, batch_rows: int, numeric=()):
     pa.default_memory_pool().release_unused()
 
 
-def _csv_batches(reader, path):
+def _csv_batches(reader, path, numeric):
     import pyarrow as pa
 
     while True:
@@ -197,9 +196,53 @@ def _csv_batches(reader, path):
         except StopIteration:
             return
         except pa.ArrowInvalid as exc:
-            raise DataError(f"{path}: a cell is not a number ({exc}); fix the cell or read the table without "
-                            "--memory-budget to have bad cells listed row by row") from None
+            raise _bad_cell(path, exc, numeric) from None
         yield batch
+
+
+_CSV_COLUMN = re.compile(r"CSV column #(\d+)")
+
+
+def _bad_cell(path, exc, numeric) -> DataError:
+    """One line naming the file, column, row and text of the first cell of a numeric column that is
+    not a number (found by reading that column again as text, batch by batch)."""
+    m = _CSV_COLUMN.search(str(exc))
+    names = table_columns(path)
+    column = names[int(m.group(1))] if m and int(m.group(1)) < len(names) else None
+    if column is None or column not in numeric:
+        return DataError(f"{path}: cannot be read as a table of numbers ({exc}); read it in memory (without "
+                         "--memory-budget) to have bad cells listed row by row")
+    found = _first_text_cell(path, column)
+    where = f"row {found[0]} holds '{found[1]}'" if found else "a cell holds text"
+    return DataError(f"{path}: column '{column}', {where}, not a number; the streamed route needs numbers in the "
+                     "target, weights and predictors: make the cell a number or leave it empty, leave the column out "
+                     "of the predictors, or read the table in memory (without --memory-budget), which sets such a "
+                     "column aside")
+
+
+def _first_text_cell(path, column):
+    """(1-based data row, text) of the first cell of ``column`` that is neither empty nor a number."""
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    opts = pacsv.ConvertOptions(column_types={column: pa.string()}, include_columns=[column],
+                                strings_can_be_null=True)
+    row = 0
+    with pacsv.open_csv(path, convert_options=opts) as reader:
+        for batch in reader:
+            for i, v in enumerate(batch.column(0).to_pylist()):
+                if v is not None and v.strip() and not _is_number(v):
+                    return row + i + 1, v
+            row += batch.num_rows
+    return None
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
 
 
 def _to_numpy(arr, numeric: bool, path, name):
