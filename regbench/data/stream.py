@@ -21,9 +21,10 @@ are those of the in-memory route (same seed, same groups, same row order), so
 the fit equals the in-memory fit to round-off.
 
 What the streamed route does not do: categorical (text) predictors are not
-coded (name numeric predictors, or read the table in memory), and rows with
-text in a numeric column are refused with the column named rather than
-excluded one by one.
+coded and derived columns are not computed (name numeric predictors, or read
+the table in memory); a CSV with text in a numeric column is refused with one
+line naming the column, the row and the text of the first such cell, where
+the in-memory route sets the column aside.
 """
 
 from __future__ import annotations
