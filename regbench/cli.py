@@ -272,6 +272,17 @@ def _with_flags(text: str) -> str:
     return text
 
 
+#: The core's neutral advice on a column left out by default, said with the flag that uses it.
+_NAME_IT = ("name it among the predictors", "name it in --predictors")
+
+
+def _columns_left_out(design, out) -> None:
+    """One line per column the default choice of inputs left out as an identifier, and how to use it."""
+    for u in design.unusable:
+        if u.rule == "identifier":
+            out.write(f"column '{u.column}' left out: {u.reason.replace(*_NAME_IT)}\n")
+
+
 def write_json(obj, where: Optional[str]) -> None:
     text = json.dumps(obj, indent=2, allow_nan=False, default=_json_default)
     if where in (None, "-"):
@@ -350,8 +361,10 @@ def cmd_fit(args) -> int:
     results = fit_all(design, settings, progress=_progress_to_stderr)
     if args.json:
         write_json(fit_to_json(design, results), args.json)
+        _columns_left_out(design, sys.stderr)   # after the result, so a failed write stays one line
     else:
-        sys.stdout.write(fit_summary_text(design, results) + "\n")
+        # The summary's "Columns not used" names each left-out column; here with the flag.
+        sys.stdout.write(fit_summary_text(design, results).replace(*_NAME_IT) + "\n")
     return EXIT_OK
 
 
@@ -380,6 +393,7 @@ def cmd_stress(args) -> int:
 
         text = ranking_text(design, out["result"]) if args.all_columns else stress_text(design, out["result"])
         sys.stdout.write(text + "\n")
+    _columns_left_out(design, sys.stderr)
     return EXIT_OK
 
 
@@ -404,6 +418,7 @@ def cmd_new(args) -> int:
     sys.stdout.write(f"saved {args.output}: {session.design.n} rows used, {len(session.design.excluded)} excluded\n")
     for column, note, _ in getattr(session.design, "column_notes", ()):
         sys.stdout.write(f"  column '{column}': {note}\n")
+    _columns_left_out(session.design, sys.stdout)
     return EXIT_OK
 
 
@@ -485,7 +500,7 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
                 return COMMANDS[args.command](args)
         return COMMANDS[args.command](args)
     except RegbenchError as exc:
-        sys.stderr.write(f"regbench {args.command}: {_with_flags(str(exc))}\n")
+        sys.stderr.write(f"regbench {args.command}: {_with_flags(str(exc)).replace(*_NAME_IT)}\n")
         return EXIT_USAGE
     except KeyboardInterrupt:
         sys.stderr.write(f"regbench {args.command}: interrupted\n")

@@ -16,7 +16,12 @@ CASES = [
     # Three names: a two-valued text target would be a yes/no outcome.
     ("text.csv", b"name,c\nann,red\nbo,blue\ncy,red\n", ["--target", "name"], "target 'name' is categorical, not numeric"),
     ("unk.csv", b"y,x\n1,2\n2,3\n3,1\n", ["--target", "y", "--predictors", "nope"], "column 'nope' is not in the table"),
-    ("const.csv", b"y,x\n2,1\n2,2\n2,3\n", ["--target", "y"], "target 'y' has the same value (2)"),
+    # x is out of order: 1, 2, 3 down the rows would be a row number, left out by the identifier rule.
+    ("const.csv", b"y,x\n2,1\n2,3\n2,2\n", ["--target", "y"], "target 'y' has the same value (2)"),
+    # The identifier rule leaves the only column out; the line says which and how to use it.
+    ("rownum.csv", b"y,n\n2,1\n3,2\n1,3\n5,4\n", ["--target", "y"],
+     "left out: 'n' (looks like an identifier: counts up by 1 from row to row, like a row number); "
+     "name it in --predictors to use it"),
     ("wide.csv", b"y,a,b,c\n1,1,2,3\n2,3,1,4\n3,2,5,1\n", ["--target", "y"], "only 3 rows for 5 folds; choose at most 3 folds"),
     ("enc.csv", "y,place\n1,K\xf6ln\n".encode("cp1252"), ["--target", "y"], "not UTF-8 text"),
     ("weights.csv", b"y,x,w\n1,1,a\n2,2,b\n3,1,c\n", ["--target", "y", "--weights", "w"], "weights column 'w' is categorical"),

@@ -14,6 +14,7 @@ from typing import Optional, Sequence
 import numpy as np
 
 from regbench.data.derive import Derived, apply_derived
+from regbench.data.identifiers import identifier_reason, looks_like_identifier
 from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC, Table
 from regbench.errors import DataError
 
@@ -121,9 +122,13 @@ class UnusableColumn:
 
     column: str
     reason: str
+    #: Which rule left it out, for programs reading the fit JSON: 'identifier' (it names rows),
+    #: 'read_as_text' (looks numeric, holds text), 'empty', 'constant', 'one_level'; None when
+    #: the route that built the design does not say.
+    rule: Optional[str] = None
 
     def to_dict(self) -> dict:
-        return {"column": self.column, "reason": self.reason}
+        return {"column": self.column, "reason": self.reason, "rule": self.rule}
 
 
 @dataclass(frozen=True)
@@ -261,20 +266,11 @@ class Design:
         }
 
 
-#: A text column with more levels than this (and than a tenth of the rows) looks like an
-#: identifier (a bed, a batch, a person): one-hot coding it would add a column per row group.
-IDENTIFIER_LEVELS = 20
-
-
-def looks_like_identifier(table: Table, column: str) -> bool:
-    info = table.columns[column]
-    return info.kind == CATEGORICAL and info.distinct > max(IDENTIFIER_LEVELS, table.n_rows / 10)
-
-
 def default_predictors(table: Table, roles: Roles) -> tuple:
-    """Every column that is not the target, the weights or the groups, is not empty and
-    does not look like an identifier (see :func:`looks_like_identifier`) and was not read as text
-    although it looks numeric (see ``ColumnInfo.read_as_text``)."""
+    """Every column that is not the target, the weights or the groups, is not empty, does not
+    look like an identifier (the rule in :mod:`regbench.data.identifiers`: text naming rows, a row
+    number, whole numbers named like an identifier) and was not read as text although it looks
+    numeric (see ``ColumnInfo.read_as_text``)."""
     skip = {roles.target, roles.weights, roles.groups, roles.no_count}
     return tuple(
         c for c in table.names
@@ -332,16 +328,18 @@ def build_design(table: Table, roles: Roles) -> Design:
                 # One-hot coding a mistyped number column would give one indicator per value.
                 unusable.append(UnusableColumn(
                     c, f"{table.columns[c].note}; not used by default (name it among the predictors to use its "
-                       "values as categories)"))
-            elif looks_like_identifier(table, c):
+                       "values as categories)", rule="read_as_text"))
+            elif (why := identifier_reason(table, c)) is not None:
                 unusable.append(UnusableColumn(
-                    c, f"text with {table.columns[c].distinct} different values looks like an identifier; "
-                       "not used by default (name it among the predictors to use it)"))
+                    c, f"looks like an identifier: {why}; not used by default (name it among the predictors "
+                       "to use it)", rule="identifier"))
             elif table.columns[c].kind == EMPTY:
-                unusable.append(UnusableColumn(c, "every cell is empty"))
+                unusable.append(UnusableColumn(c, "every cell is empty", rule="empty"))
     predictors = tuple(c for c in predictors if c not in {roles.target, roles.weights, roles.groups, roles.no_count})
     if not predictors:
-        raise DataError(f"{src}: no predictor columns; choose at least one column besides the target")
+        ids = [f"'{u.column}' ({u.reason.split('; ')[0]})" for u in unusable if u.rule == "identifier"]
+        raise DataError(f"{src}: no predictor columns; choose at least one column besides the target"
+                        + (f"; left out: {', '.join(ids)}; name it among the predictors to use it" if ids else ""))
     frame = table.frame
     n = len(frame)
     rn = table.row_numbers if hasattr(table, "row_numbers") else np.arange(1, n + 1)
@@ -413,7 +411,7 @@ def build_design(table: Table, roles: Roles) -> Design:
     for col in predictors:
         info = table.columns[col]
         if info.kind == EMPTY:
-            unusable.append(UnusableColumn(col, "every cell is missing"))
+            unusable.append(UnusableColumn(col, "every cell is missing", rule="empty"))
             continue
         is_cat = info.kind == CATEGORICAL or col in categorical_marked
         raw = frame[col]
@@ -471,7 +469,7 @@ def build_design(table: Table, roles: Roles) -> Design:
         if kind == "num":
             x = raw[rows]
             if np.ptp(x[w > 0]) == 0 if np.any(w > 0) else True:
-                unusable.append(UnusableColumn(col, f"constant ({x[0]:g}) on every usable row"))
+                unusable.append(UnusableColumn(col, f"constant ({x[0]:g}) on every usable row", rule="constant"))
                 continue
             names.append(col)
             sources.append(col)
@@ -481,7 +479,8 @@ def build_design(table: Table, roles: Roles) -> Design:
             texts = np.array([_level_text(v) for v in vals], dtype=object)
             levels = sorted(set(texts))
             if len(levels) < 2:
-                unusable.append(UnusableColumn(col, f"only one level ('{levels[0]}') on every usable row"))
+                unusable.append(UnusableColumn(col, f"only one level ('{levels[0]}') on every usable row",
+                                               rule="one_level"))
                 continue
             for lev in levels[1:]:
                 names.append(f"{col}={lev}")

@@ -9,62 +9,40 @@ Both edit one :class:`RoleDraft`; nothing is fitted until the person presses Fit
 
 from __future__ import annotations
 
-import re
 from dataclasses import replace
 from typing import Optional
 
 import numpy as np
 from PySide6 import QtCore, QtGui, QtWidgets
 
-from regbench.data.design import Roles, looks_like_identifier
+from regbench.data.design import Roles, default_predictors
+from regbench.data.identifiers import identifier_columns
 from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC
 from regbench.gui.style import PALETTE
 
 Qt = QtCore.Qt
-#: A text column with more levels than this is not ticked by default (likely an identifier).
-DEFAULT_MAX_LEVELS = 20
 KIND_WORDS = {NUMERIC: "number", CATEGORICAL: "text", BOOLEAN: "yes/no", EMPTY: "empty"}
 NO_WEIGHTS = "1 (no weights)"
 NO_GROUPS = "single rows"
 TARGET_RULE = "the last numeric column that is not an identifier"
-_ID_NAME = re.compile(r"(^|[_\W])(id|ids|row|rownames|index|idx|no|nr|key|serial)($|[_\W])", re.IGNORECASE)
 
 
-def identifier_reason(table, name: str) -> Optional[str]:
-    """Why ``name`` looks like an identifier rather than a measurement (None when it does not)."""
-    info = table.columns[name]
-    if info.kind == CATEGORICAL:
-        if looks_like_identifier(table, name) or info.distinct > DEFAULT_MAX_LEVELS:
-            return f"text with {info.distinct} different values: it names rows rather than measuring them"
-        return None
-    if info.kind != NUMERIC:
-        return None
-    filled = table.n_rows - info.missing
-    if filled < 3 or info.distinct != filled:
-        return None
-    v = table.frame[name].to_numpy(dtype=float)
-    v = v[np.isfinite(v)]
-    if v.size == 0 or not np.all(v == np.round(v)):
-        return None
-    if v.size > 1 and np.all(np.diff(v) == 1):
-        return "counts up by 1 from row to row, like a row number"
-    if _ID_NAME.search(name):
-        return "a different whole number on every row, named like an identifier"
-    return None
+def left_out_by_default(table) -> dict:
+    """Column -> why the default choice of inputs leaves it out (the data layer's rule)."""
+    out = identifier_columns(table)
+    for c in table.names:
+        if c not in out and table.columns[c].read_as_text:
+            out[c] = table.columns[c].note
+    return out
 
 
 def default_roles(table) -> Roles:
     """A stated starting point: the target is the last numeric column that is not an identifier;
-    every other column is ticked except identifiers and empty columns."""
-    ids = {c for c in table.names if identifier_reason(table, c)}
-    numeric = [c for c in table.names if table.columns[c].kind in (NUMERIC, BOOLEAN) and c not in ids]
-    if numeric:
-        target = numeric[-1]
-    else:
-        target = next((c for c in table.names if table.columns[c].kind in (NUMERIC, BOOLEAN)), table.names[-1])
-    preds = tuple(c for c in table.names
-                  if c != target and table.columns[c].kind != EMPTY and c not in ids)
-    return Roles(target=target, predictors=preds)
+    the inputs are the data layer's default (:func:`regbench.data.design.default_predictors`)."""
+    ids = identifier_columns(table)
+    numeric = [c for c in table.names if table.columns[c].kind in (NUMERIC, BOOLEAN)]
+    target = next((c for c in reversed(numeric) if c not in ids), numeric[-1] if numeric else table.names[-1])
+    return Roles(target=target, predictors=default_predictors(table, Roles(target=target)))
 
 
 def openable_roles(table, roles: Roles):
@@ -135,15 +113,14 @@ class RoleDraft(QtCore.QObject):
         if roles.predictors:
             self.ticked = set(roles.predictors)
         else:   # empty means every other usable column, as the design builder reads it
-            self.ticked = {c for c in table.names if table.columns[c].kind != EMPTY
-                           and not looks_like_identifier(table, c)}
+            self.ticked = set(default_predictors(table, roles))
         self.ticked -= {self.target, self.weights, self.groups}
         self.categorical = set(roles.categorical)
         self.weights_kind = getattr(roles, "weights_kind", None)
         self.settings = settings
         self.bootstrap = int(bootstrap)
         self.unusable = dict(unusable or {})
-        self.left_out = {c: r for c in table.names if c not in self.ticked and (r := identifier_reason(table, c))}
+        self.left_out = {c: r for c, r in left_out_by_default(table).items() if c not in self.ticked}
         self.changed.emit()
 
     @property

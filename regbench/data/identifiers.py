@@ -1,0 +1,97 @@
+"""Columns that name rows rather than measure them, left out of the default inputs.
+
+A row number or a customer number fitted as a number is a straight line through arbitrary
+labels; a text label with a value per bed or per person, coded as categories, adds a column per
+row group.  Either fits noise.  The rule, stated in the README and applied wherever the inputs
+are chosen by default (the command line without ``--predictors``, the session, the window):
+
+- a text column with more different values than 20 and than a tenth of the rows;
+- a numeric column of whole numbers, a different one on every filled row (at least three), that
+  either counts 0, 1, 2, … or 1, 2, 3, … down the rows in file order (a row number), or whose
+  name reads as an identifier (``id``, ``row``, ``index``, ``idx``, ``no``, ``nr``, ``key``,
+  ``serial``, ``rownames`` as a word of the name, or a name ending in ``Id``/``ID`` such as
+  ``customerId``).
+
+A column the rule leaves out is used when it is named among the predictors (or ticked).
+A count that starts elsewhere (years 1947, 1948, …) is a trend, not a row number, and stays in.
+"""
+
+from __future__ import annotations
+
+import re
+from typing import Optional
+
+import numpy as np
+
+from regbench.data.table import CATEGORICAL, NUMERIC, Table
+
+#: A text column with more different values than this (and than a tenth of the rows) looks like an
+#: identifier (a bed, a batch, a person): one-hot coding it would add a column per row group.
+IDENTIFIER_LEVELS = 20
+
+#: Numeric identifiers need this many filled cells before "a different value on every row" means anything.
+MIN_FILLED = 3
+
+#: A word of a column's name that says it labels rows.
+_ID_WORD = re.compile(r"(^|[_\W])(id|ids|row|rownames|index|idx|no|nr|key|serial)($|[_\W])", re.IGNORECASE)
+#: camelCase or run-together names ending in an identifier word: customerId, orderID.
+_ID_SUFFIX = re.compile(r"[a-z](Id|ID)$")
+
+#: Why a column named like an identifier is left out, and why a row number is.
+NAMED_LIKE_AN_IDENTIFIER = "a different whole number on every row, named like an identifier"
+COUNTS_LIKE_A_ROW_NUMBER = "counts up by 1 from row to row, like a row number"
+
+
+def named_like_identifier(name: str) -> bool:
+    """True when a word of ``name`` says the column labels rows (see the module's rule)."""
+    return bool(_ID_WORD.search(name) or _ID_SUFFIX.search(name))
+
+
+def identifier_reason(table: Table, column: str) -> Optional[str]:
+    """Why ``column`` looks like an identifier rather than a measurement.
+
+    Parameters
+    ----------
+    table : Table
+    column : str
+
+    Returns
+    -------
+    str or None
+        A short reason a person can read ("counts up by 1 from row to row, like a row number"),
+        or None when the column does not look like an identifier.
+    """
+    info = table.columns[column]
+    if info.kind == CATEGORICAL:
+        if info.distinct > max(IDENTIFIER_LEVELS, table.n_rows / 10):
+            return f"text with {info.distinct} different values: it names rows rather than measuring them"
+        return None
+    if info.kind != NUMERIC:
+        return None
+    filled = table.n_rows - info.missing
+    if filled < MIN_FILLED or info.distinct != filled:
+        return None
+    v = table.frame[column].to_numpy(dtype=float)
+    v = v[np.isfinite(v)]
+    if v.size < MIN_FILLED or not np.all(v == np.round(v)):
+        return None
+    if v[0] in (0.0, 1.0) and np.all(np.diff(v) == 1):
+        return COUNTS_LIKE_A_ROW_NUMBER
+    if named_like_identifier(str(column)):
+        return NAMED_LIKE_AN_IDENTIFIER
+    return None
+
+
+def looks_like_identifier(table: Table, column: str) -> bool:
+    """True when :func:`identifier_reason` gives a reason for ``column``."""
+    return identifier_reason(table, column) is not None
+
+
+def identifier_columns(table: Table) -> dict:
+    """Every column of ``table`` that looks like an identifier, with its reason (in table order)."""
+    out = {}
+    for c in table.names:
+        why = identifier_reason(table, c)
+        if why is not None:
+            out[c] = why
+    return out
