@@ -8,6 +8,7 @@ from typing import Optional
 from PySide6 import QtCore, QtGui, QtWidgets
 
 from regbench.errors import DataError, ProjectError, RegbenchError
+from regbench.gui.panels.data import cache_words
 from regbench.gui.roles import TARGET_RULE, QuestionBar, RoleDraft, default_roles, openable_roles
 from regbench.gui.style import STYLESHEET, configure_pyqtgraph
 from regbench.gui.tables import view_to_tsv
@@ -447,9 +448,8 @@ class MainWindow(QtWidgets.QMainWindow):
                 self.dirty = False
                 self._update_title()
                 self.refresh_all(now=True)
-                stale = session.cache_status == "stale"
-                self.set_status("Results refitted: the saved ones did not match this table and settings."
-                                if stale else "Results fitted.")
+                stale = session.cache_status == "stale" and session.cache_note
+                self.set_status(f"Results refitted: {cache_words(session.cache_note)}." if stale else "Results fitted.")
                 self.results_applied.emit()
         if not self.has_results():
             self.refit()

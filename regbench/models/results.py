@@ -340,6 +340,16 @@ class CVResult(Result):
     #: (weighted mean log-loss, for a yes/no outcome).
     measure: str = "mse"
 
+    def edge_sentence(self) -> str:
+        """One line for people when the lowest error is at the grid's smallest α, else ""."""
+        if not self.at_edge:
+            return ""
+        from regbench.formatting import number_text
+
+        return (f"At the edge of the grid: held-out error is lowest at the smallest α tried "
+                f"({number_text(self.alpha_min, 3)}); a smaller α might predict better, so that α is a bound, "
+                "not a minimum.")
+
 
 @dataclass(frozen=True, eq=False)
 class Convergence(Result):

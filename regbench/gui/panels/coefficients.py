@@ -10,6 +10,7 @@ from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.style import PALETTE, model_colour
 from regbench.gui.tables import GridModel, WARN_BG, make_view
 from regbench.models.results import model_label
+from regbench.sentences import se_kind_sentence
 
 Qt = QtCore.Qt
 INTERCEPT = "(intercept)"
@@ -78,11 +79,14 @@ class CoefficientsPanel(Panel):
         cols = list(results.columns)
         aside = {sa.column: sa for sa in ols.set_aside}
         names = list(models)
+        cl_se = getattr(ols, "cluster_std_errors", None)
+        by_group = cl_se is not None
+        ols_extra = ["OLS SE", "OLS p"] + ([f"OLS SE by {session.design.groups_column}"] if by_group else [])
         headers = []
         for n in names:
             headers.append(model_label(n))
             if n == "ols":
-                headers += ["OLS SE", "OLS p"]
+                headers += ols_extra
         rows, bg, fg, tips = [], {}, {}, {}
         # The intercept first, in table units whatever the scale (standardizing leaves it in the target's units).
         row = []
@@ -90,6 +94,8 @@ class CoefficientsPanel(Panel):
             row.append(float(models[n].intercept))
             if n == "ols":
                 row += [float(ols.intercept_se), None]
+                if by_group:
+                    row.append(float(ols.cluster_intercept_se))
         rows.append(row)
         for i, c in enumerate(cols):
             row = []
@@ -98,7 +104,7 @@ class CoefficientsPanel(Panel):
                 v = float(m.coef_std[i] if std else m.coef[i])
                 k = len(row)
                 if n == "ols" and c in aside:
-                    row += ["set aside", None, None]
+                    row += ["set aside"] + [None] * len(ols_extra)
                     bg[(i, k)] = WARN_BG
                     tips[(i, k)] = aside[c].sentence()
                     continue
@@ -107,15 +113,24 @@ class CoefficientsPanel(Panel):
                     fg[(i, k)] = PALETTE["muted"]
                     tips[(i, k)] = f"{model_label(n)} does not use {c} at this α"
                 if n == "ols":
-                    se = float(ols.std_errors[i])
-                    if std:
-                        se = se * float(m.coef_std[i] / m.coef[i]) if m.coef[i] != 0 else float("nan")
-                    row += [se, float(ols.p_values[i])]
+                    # Standardizing scales a coefficient and its standard errors alike.
+                    to_std = (float(m.coef_std[i] / m.coef[i]) if m.coef[i] != 0 else float("nan")) if std else 1.0
+                    row += [float(ols.std_errors[i]) * to_std, float(ols.p_values[i])]
+                    if by_group:
+                        row.append(float(cl_se[i]) * to_std)
             rows.append(row)
         shift = {(r + 1, k): v for d in (bg,) for (r, k), v in d.items()}
         bg = shift
         fg = {(r + 1, k): v for (r, k), v in fg.items()}
         tips = {(r + 1, k): v for (r, k), v in tips.items()}
+        note = getattr(ols, "inference_note", "") or ""
+        if "ols" in names:
+            k0 = names.index("ols") + 1   # the OLS SE column
+            for r in range(len(rows)):
+                if note:
+                    tips.setdefault((r, k0), note)
+                if by_group:
+                    tips.setdefault((r, k0 + 2), "cluster-robust: rows of one group may share influences")
         self.model.set_rows(rows, headers, row_labels=[INTERCEPT] + cols, backgrounds=bg, foregrounds=fg, tips=tips)
         self.view.resizeColumnsToContents()
         self._draw(models, cols)
@@ -123,7 +138,11 @@ class CoefficientsPanel(Panel):
         sentences = list(getattr(st, "sentences", ()) or ())
         if not sentences:
             sentences = [f"{len(names)} models over {len(cols)} columns; OLS set aside {len(aside)}."]
-        self.set_sentences(sentences[:2])
+        # Why OLS standard errors are missing, and which ones are shown (the summary's words).
+        extra = [note] if note else []
+        if by_group:
+            extra.append(se_kind_sentence(session.design, ols))
+        self.set_sentences(sentences[:2] + extra)
 
     def _draw(self, models, cols):
         self.plot.clear()

@@ -170,5 +170,16 @@ class DataPanel(Panel):
         else:
             s.append("No row was left out.")
         if design.unusable:
-            s.append("Not usable: " + "; ".join(f"{u.column} ({u.reason})" for u in design.unusable) + ".")
+            # The core's advice names the command line's way; here a column is used by ticking it.
+            s.append("Not usable: " + "; ".join(f"{u.column} ({u.reason.replace('name it among the predictors', 'tick it')})"
+                                                for u in design.unusable) + ".")
+        if getattr(session, "cache_status", None) == "stale" and getattr(session, "cache_note", None):
+            s.append(f"On opening, {cache_words(session.cache_note)}.")
         self.set_sentences(s)
+
+
+def cache_words(note: str) -> str:
+    """The project layer's line on a stale cache, without the file name (the window's title has it)."""
+    head, sep, rest = note.partition(": ")
+    text = rest if sep and head.endswith(".regbench") else note
+    return text.rstrip(".")

@@ -161,6 +161,7 @@ class PathsPanel(Panel):
             s.append(f"Held-out error is lowest at α = {number_text(cv.alpha_min, 3)}; the simplest model within one "
                      f"standard error of that is at α = {number_text(cv.alpha_1se, 3)}. Drag the handle, type an α, "
                      "or step with ← →; click a curve or a name to follow one column.")
+            s.append(cv.edge_sentence())
         self.set_sentences(s)
 
     def set_highlight(self, column) -> None:
