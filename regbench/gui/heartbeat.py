@@ -1,0 +1,171 @@
+"""How long the window's GUI thread stalls, per action, measured with a heartbeat timer.
+
+A timer ticks every 10 ms on the GUI thread; the longest gap between two ticks while an
+action runs (until the worker is idle again) is that action's worst stall.  The goal is
+under 100 ms.  Each gap is measured in wall time (what a person sees; on shared, busy cores
+it includes waiting for a core) and in the GUI thread's own CPU time (the work the thread
+did in that gap, which is what the gap shrinks to on a quiet machine).
+
+    QT_QPA_PLATFORM=offscreen python -m regbench.gui.heartbeat [PROJECT] [--rounds N]
+
+(``scripts/gui_stalls.py`` runs the same.)  The actions: open a project, the first visit to
+each panel, switching between panels afterwards, releasing an α drag on each penalized
+family, stepping α from the keyboard, and undo.
+"""
+
+from __future__ import annotations
+
+import argparse
+import pathlib
+import statistics
+import time
+from typing import Callable, Dict, List
+
+from PySide6 import QtCore, QtWidgets
+
+#: The heartbeat's period; a gap longer than this is time the GUI thread did not answer.
+TICK_MS = 10
+#: The worker counts as done once it has been idle this long.
+SETTLE_MS = 150
+#: The sample project the measurement opens by default.
+SAMPLE = pathlib.Path(__file__).resolve().parents[2] / "sample_projects" / "greenhouse.regbench"
+
+
+class Heartbeat(QtCore.QObject):
+    """A timer on the GUI thread that records the gaps between its ticks.
+
+    Attributes
+    ----------
+    gaps : list of float
+        Wall-clock gaps (s) since :meth:`reset`.
+    cpu : list of float
+        The GUI thread's CPU time (s) in each of those gaps.
+    """
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.gaps: List[float] = []
+        self.cpu: List[float] = []
+        self._last = time.perf_counter()
+        self._last_cpu = time.thread_time()
+        self.timer = QtCore.QTimer(self)
+        self.timer.setInterval(TICK_MS)
+        self.timer.timeout.connect(self.tick)
+
+    def start(self) -> None:
+        self.reset()
+        self.timer.start()
+
+    def stop(self) -> None:
+        self.timer.stop()
+
+    def reset(self) -> None:
+        self.gaps.clear()
+        self.cpu.clear()
+        self._last, self._last_cpu = time.perf_counter(), time.thread_time()
+
+    def tick(self) -> None:
+        now, now_cpu = time.perf_counter(), time.thread_time()
+        self.gaps.append(now - self._last)
+        self.cpu.append(now_cpu - self._last_cpu)
+        self._last, self._last_cpu = now, now_cpu
+
+    def worst(self) -> tuple:
+        """(longest wall gap, longest GUI-thread CPU chunk) in seconds since :meth:`reset`."""
+        return (max(self.gaps) if self.gaps else 0.0, max(self.cpu) if self.cpu else 0.0)
+
+
+class StallLog:
+    """Runs actions on a window under a heartbeat and keeps each action's worst gaps."""
+
+    def __init__(self, window, app):
+        self.window, self.app = window, app
+        self.beat = Heartbeat()
+        self.wall: Dict[str, list] = {}
+        self.cpu: Dict[str, list] = {}
+        self.beat.start()
+
+    def measure(self, name: str, action: Callable[[], object], timeout_s: float = 180.0) -> None:
+        """Run ``action``, wait until the worker has been idle for :data:`SETTLE_MS`, keep the worst gaps."""
+        for _ in range(3):
+            self.app.processEvents()
+        self.beat.reset()
+        action()
+        deadline = time.perf_counter() + timeout_s
+        quiet_since = None
+        while time.perf_counter() < deadline:
+            self.app.processEvents(QtCore.QEventLoop.AllEvents, 5)
+            time.sleep(0.002)
+            if self.window.runner.busy():
+                quiet_since = None
+            elif quiet_since is None:
+                quiet_since = time.perf_counter()
+            elif time.perf_counter() - quiet_since > SETTLE_MS / 1000:
+                break
+        self.beat.tick()
+        wall, cpu = self.beat.worst()
+        self.wall.setdefault(name, []).append(wall)
+        self.cpu.setdefault(name, []).append(cpu)
+
+    def lines(self) -> list:
+        """One line per action: the worst and median of the per-action worst gaps, wall and GUI CPU."""
+        out = []
+        for name, values in self.wall.items():
+            c = self.cpu[name]
+            out.append(f"  {name:<34} wall worst {1000 * max(values):6.0f} ms, median "
+                       f"{1000 * statistics.median(values):6.0f} ms   GUI CPU worst {1000 * max(c):6.0f} ms, "
+                       f"median {1000 * statistics.median(c):6.0f} ms   ({len(values)} actions)")
+        return out
+
+
+def run_actions(log: StallLog, project: str, rounds: int) -> None:
+    """Open ``project`` ``rounds`` times; each time visit every panel, move α on every family, undo."""
+    w = log.window
+    for _ in range(rounds):
+        log.measure("open a project", lambda: w.open_path(project, confirmed=True))
+        for i, panel in enumerate(w.panels):
+            log.measure(f"first visit: {panel.nav}", lambda i=i: w.show_panel(i))
+        for i in range(len(w.panels)):
+            log.measure("switch panel (visited before)", lambda i=i: w.show_panel(i))
+        w.show_panel("paths")
+        paths = w.panel("paths")
+        for k in range(paths.family.count()):
+            paths.family.setCurrentIndex(k)
+            grid = paths.figure.grid()
+            log.measure("release an α drag", lambda grid=grid: paths.move_alpha(float(grid[len(grid) // 3])))
+            paths.figure.setFocus()
+            log.measure("step α with a key",
+                        lambda: paths.figure.step(1) and paths._figure_alpha(paths.figure.data.alpha))
+        log.measure("undo", w.undo)
+        w.dirty = False
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(prog="python -m regbench.gui.heartbeat",
+                                 description="GUI-thread stalls per action, measured with a heartbeat timer")
+    ap.add_argument("project", nargs="?", default=str(SAMPLE))
+    ap.add_argument("--rounds", type=int, default=3)
+    args = ap.parse_args(argv)
+    from regbench.gui.app import application
+    from regbench.gui.window import MainWindow
+
+    app = application()
+    w = MainWindow(autosave=False)
+    w.ask_unsaved = lambda: "discard"
+    w.resize(1400, 900)
+    w.show()
+    log = StallLog(w, app)
+    run_actions(log, args.project, args.rounds)
+    log.beat.stop()
+    print(f"GUI-thread stalls (worst gap between {TICK_MS} ms ticks), {args.rounds} rounds, {args.project}:")
+    print("  (wall: the gap a person sees; GUI CPU: the GUI thread's own work in its longest gap, which is what "
+          "the gap shrinks to on a quiet machine)")
+    for line in log.lines():
+        print(line)
+    w.close()
+    QtWidgets.QApplication.processEvents()
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
