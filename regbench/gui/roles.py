@@ -301,8 +301,8 @@ class QuestionBar(QtWidgets.QFrame):
         self.weights_kind = QtWidgets.QComboBox()
         self.weights_kind.addItem("times", "counts")
         self.weights_kind.addItem("(precision)", "precision")
-        self.weights_kind.setSizeAdjustPolicy(QtWidgets.QComboBox.AdjustToMinimumContentsLengthWithIcon)
-        self.weights_kind.setMinimumContentsLength(4)
+        # Sized to its longest choice, "(precision)", so the sentence never shows a clipped word.
+        self.weights_kind.setSizeAdjustPolicy(QtWidgets.QComboBox.AdjustToContents)
         self.weights_kind.setVisible(False)
         self.weights_kind.setToolTip("Counts: a row stands for that many identical observations. Precision: a row "
                                      "is one observation, measured more precisely the larger its weight.")
@@ -494,7 +494,9 @@ class ColumnsModel(QtCore.QAbstractTableModel):
 
     def headerData(self, section, orientation, role=Qt.DisplayRole):
         if role == Qt.DisplayRole and orientation == Qt.Horizontal:
-            return self.HEADERS[section]
+            # Two-word headers over narrow ticks and numbers take two lines, leaving room for the reasons.
+            text = self.HEADERS[section]
+            return text.replace(" ", "\n", 1) if section in (self.C_CATS, self.C_PENALTY) else text
         if role == Qt.ToolTipRole and orientation == Qt.Horizontal:
             return {self.C_USE: "Tick the columns the models may use",
                     self.C_CATS: "Treat whole-number codes as categories (one indicator per value)",

@@ -89,6 +89,7 @@ class GridModel(QtCore.QAbstractTableModel):
         self.foregrounds = foregrounds or {}
         self.tips = tips or {}
         self.digits = digits
+        self.wrapped = frozenset()
         self.endResetModel()
 
     def rowCount(self, parent=QtCore.QModelIndex()):
@@ -125,11 +126,26 @@ class GridModel(QtCore.QAbstractTableModel):
             return self.tips[(r, c)]
         return None
 
+    def plain_header(self, section: int) -> Optional[str]:
+        """A column's header on one line (what Copy and export write)."""
+        return self.headers[section] if section < len(self.headers) else None
+
+    def set_wrapped_headers(self, sections) -> None:
+        """Show the headers of ``sections`` on two lines (their columns were squeezed below the header)."""
+        sections = frozenset(sections)
+        if sections != getattr(self, "wrapped", frozenset()):
+            self.wrapped = sections
+            if self.headers:
+                self.headerDataChanged.emit(Qt.Horizontal, 0, len(self.headers) - 1)
+
     def headerData(self, section, orientation, role=Qt.DisplayRole):
         if role != Qt.DisplayRole:
             return None
         if orientation == Qt.Horizontal:
-            return self.headers[section] if section < len(self.headers) else None
+            if section >= len(self.headers):
+                return None
+            text = self.headers[section]
+            return two_lines(text) if section in getattr(self, "wrapped", ()) else text
         if self.row_labels is not None and section < len(self.row_labels):
             return self.row_labels[section]
         return str(section + 1)
@@ -161,6 +177,8 @@ class FittedTableView(QtWidgets.QTableView):
         """
         h = self.horizontalHeader()
         self._natural = self.content_widths()
+        if hasattr(self.model(), "set_wrapped_headers"):
+            self.model().set_wrapped_headers(())
         for i, w in enumerate(self._natural):
             if h.sectionResizeMode(i) == QtWidgets.QHeaderView.Interactive:
                 h.resizeSection(i, w)
@@ -181,8 +199,15 @@ class FittedTableView(QtWidgets.QTableView):
         # The delegate's text margins on both sides, the grid line, and a check box where a cell has one.
         pad = 2 * (style.pixelMetric(QtWidgets.QStyle.PM_FocusFrameHMargin, None, self) + 1) + 2
         check = style.pixelMetric(QtWidgets.QStyle.PM_IndicatorWidth, None, self) + 2 * pad
-        widths = []
+        widths, self._cells, self._header_lines = [], [], []
         for c in range(model.columnCount()):
+            # A header may take two lines when its column is squeezed: the width of its longer half.
+            plain = model.plain_header(c) if hasattr(model, "plain_header") else model.headerData(c, Qt.Horizontal)
+            plain = "" if plain is None else str(plain)
+            one = h.sectionSizeHint(c)
+            margin = max(0, one - fm.horizontalAdvance(plain))
+            two = max((fm.horizontalAdvance(line) for line in two_lines(plain).split("\n")), default=0) + margin
+            self._header_lines.append((one, min(one, two)))
             w = 0
             for r in rows:
                 idx = model.index(r, c)
@@ -192,7 +217,8 @@ class FittedTableView(QtWidgets.QTableView):
                     w = max(w, fm.horizontalAdvance(str(text)) + pad + extra)
                 elif extra:
                     w = max(w, extra)
-            widths.append(max(w, h.sectionSizeHint(c)))
+            self._cells.append(w)
+            widths.append(max(w, one))
         return widths
 
     def resizeEvent(self, event):
@@ -207,14 +233,23 @@ class FittedTableView(QtWidgets.QTableView):
             return
         avail = self.viewport().width() - 2
         widths = list(natural)
+        wrapped = set()
         # Shrink only when a little is missing; a table far wider than its room scrolls instead of
         # turning every cell into an ellipsis.
-        if avail < sum(natural) <= SQUEEZE_MAX_RATIO * avail:
-            # Water-filling: the widest columns give way first; narrow ones keep their width.
+        cells = getattr(self, "_cells", None) or [0] * n
+        lines = getattr(self, "_header_lines", None) or [(w, w) for w in natural]
+        # Headers give way first by taking two lines; cells keep their whole text.
+        floor = [min(max(MIN_COLUMN_PX, cells[i], lines[i][1]), natural[i]) for i in range(n)]
+        if avail < sum(natural) and (sum(floor) <= avail or sum(natural) <= SQUEEZE_MAX_RATIO * avail):
+            if sum(floor) > avail:   # a little is still missing: the widest cells elide, headers never
+                floor = [min(max(MIN_COLUMN_PX, lines[i][1]), natural[i]) for i in range(n)]
             cap = max(natural)
-            while cap > MIN_COLUMN_PX and sum(min(w, cap) for w in natural) > avail:
+            while cap > MIN_COLUMN_PX and sum(max(f, min(w, cap)) for f, w in zip(floor, natural)) > avail:
                 cap -= 4
-            widths = [min(w, cap) for w in natural]
+            widths = [max(f, min(w, cap)) for f, w in zip(floor, natural)]
+            wrapped = {i for i in range(n) if widths[i] < lines[i][0] and lines[i][1] < lines[i][0]}
+        if hasattr(self.model(), "set_wrapped_headers"):
+            self.model().set_wrapped_headers(wrapped)
         for i, w in enumerate(widths):
             if h.sectionResizeMode(i) == QtWidgets.QHeaderView.Interactive:
                 h.resizeSection(i, w)
@@ -231,6 +266,16 @@ def make_view(model: QtCore.QAbstractTableModel, stretch_last: bool = True) -> Q
     view.horizontalHeader().setResizeContentsPrecision(SIZE_ROWS)
     view.setWordWrap(False)
     return view
+
+
+def two_lines(text: str) -> str:
+    """``text`` broken at the space nearest its middle (unchanged when it has no space)."""
+    spaces = [i for i, ch in enumerate(text) if ch == " "]
+    if not spaces:
+        return text
+    mid = len(text) / 2
+    at = min(spaces, key=lambda i: abs(i - mid))
+    return text[:at] + "\n" + text[at + 1:]
 
 
 def full_text(v) -> str:

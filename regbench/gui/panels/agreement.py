@@ -52,7 +52,7 @@ class AgreementPanel(Panel):
         self.plot.showGrid(x=True, y=True, alpha=0.25)
         self.plot.setAspectLocked(False)
         split.addWidget(self.plot)
-        split.setSizes([780, 420])
+        split.setSizes([850, 350])   # the pair table whole at 1400 × 900
         lay.addWidget(split, 1)
         self._filling = False
 

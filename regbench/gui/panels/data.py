@@ -8,6 +8,10 @@ from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.tables import FrameModel, GridModel, make_view
 
 
+#: Up to this many columns the cells view sizes each column to its name and first rows (a wide
+#: table keeps one width for all, so opening it stays quick).
+WIDTH_FROM_CELLS_MAX_COLUMNS = 200
+
 DERIVE_WORDS = {"log": "log", "log1p": "log(1 + x)", "sqrt": "square root", "square": "square",
                 "standardize": "standardized", "product": "product"}
 
@@ -80,7 +84,7 @@ class DataPanel(Panel):
         self.tabs.addTab(self.notes, "Notes")
         split.addWidget(box1)
         split.addWidget(self.tabs)
-        split.setSizes([720, 440])
+        split.setSizes([780, 380])   # room for each column's part in the fit
         lay.addWidget(split)
 
     # -- derived columns (computed by regbench.data.derive; nothing typed is run as code) ----------
@@ -153,6 +157,8 @@ class DataPanel(Panel):
         if self.frame_model.rowCount() != table.n_rows or getattr(self, "_frame_id", None) != id(table.frame):
             self.frame_model.set_frame(table.frame)
             self._frame_id = id(table.frame)
+            if self.frame_model.columnCount() <= WIDTH_FROM_CELLS_MAX_COLUMNS:
+                self.frame_view.resizeColumnsToContents()   # whole names; the first rows' widths
         design = session.design
         excluded = design.excluded if design is not None else ()
         self.excluded_model.set_rows([[e.row, e.column, e.reason] for e in excluded], ["Row", "Column", "Reason"])

@@ -1,0 +1,94 @@
+"""At the default 1400 × 900 no table header is clipped: a squeezed column's header takes two
+lines instead of losing letters (pytest-qt, offscreen)."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+_HOME = tempfile.mkdtemp(prefix="regbench-gui-layout-")
+os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
+os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
+
+import pytest  # noqa: E402
+
+pytest.importorskip("pytestqt")
+from PySide6 import QtCore, QtWidgets  # noqa: E402
+
+from regbench.gui.tables import GridModel, make_view, two_lines  # noqa: E402
+
+pytestmark = pytest.mark.gui
+QtCore.QStandardPaths.setTestModeEnabled(True)
+Qt = QtCore.Qt
+
+
+def _clipped_headers(view) -> list:
+    """Headers whose section is narrower than the text it shows (one or two lines) needs."""
+    h = view.horizontalHeader()
+    out = []
+    for i in range(h.count()):
+        if h.isSectionHidden(i):
+            continue
+        if h.sectionSize(i) < h.sectionSizeHint(i) - 1:
+            out.append((i, view.model().headerData(i, Qt.Horizontal), h.sectionSize(i), h.sectionSizeHint(i)))
+    return out
+
+
+def test_two_lines_breaks_at_the_middle_space():
+    assert two_lines("RMSE held-out") == "RMSE\nheld-out"
+    assert two_lines("Limits of agreement: low") == "Limits of\nagreement: low"
+    assert two_lines("Model") == "Model"
+
+
+def test_a_squeezed_column_wraps_its_header_and_copy_keeps_one_line(qtbot):
+    from regbench.gui.tables import model_to_tsv
+
+    model = GridModel()
+    model.set_rows([["OLS", 0.0631, 0.0828, 0.7144, 0.5083, 0.0656]],
+                   ["Model", "RMSE fitted", "RMSE held-out", "R² fitted", "R² held-out", "MAE held-out"])
+    view = make_view(model)
+    qtbot.addWidget(view)
+    view.resize(420, 200)
+    view.show()
+    view.resizeColumnsToContents()
+    QtWidgets.QApplication.processEvents()
+    assert model.wrapped, "the headers are wider than the numbers: some must take two lines"
+    assert "\n" in model.headerData(min(model.wrapped), Qt.Horizontal)
+    assert _clipped_headers(view) == []
+    assert model_to_tsv(model).splitlines()[0] == "\tModel\tRMSE fitted\tRMSE held-out\tR² fitted\tR² held-out\tMAE held-out"
+    # Room again: one line each.
+    view.resize(1200, 200)
+    QtWidgets.QApplication.processEvents()
+    assert model.wrapped == frozenset()
+
+
+def test_no_header_is_clipped_on_any_panel_at_1400_by_900(qtbot, greenhouse_fitted):
+    from regbench.gui.window import MainWindow
+
+    w = MainWindow(autosave=False)
+    w.ask_unsaved = lambda: "discard"
+    qtbot.addWidget(w)
+    w.resize(1400, 900)
+    w.show()
+    w.adopt(greenhouse_fitted, fit=False)
+    qtbot.waitUntil(lambda: not w.runner.busy() and w.session.derived_ready, timeout=120_000)
+    clipped = {}
+    for panel in w.panels:
+        w.show_panel(panel.key)
+        w._refresh_panel(panel)
+        QtWidgets.QApplication.processEvents()
+        for k, view in enumerate(panel.views()):
+            if view.isVisible() and view.model().columnCount():
+                bad = _clipped_headers(view)
+                if bad:
+                    clipped[(panel.key, k)] = bad
+    assert clipped == {}
+    # The sentence's weights-kind choice shows its whole word.
+    kind = w.question.weights_kind
+    if kind.isVisible():
+        assert kind.width() >= kind.sizeHint().width()
+    w.dirty = False
+    w.runner.cancel_all()
+    w.runner.wait(60_000)
+    w.close()
