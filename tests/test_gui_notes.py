@@ -170,3 +170,43 @@ def test_identifier_columns_left_out_say_so_in_the_data_view_without_command_lin
     cm = w.panel("data").columns_model
     assert cm.part("row") == "left out: counts up by 1 from row to row, like a row number"
     _close(w)
+
+
+def test_grading_sample_opens_as_a_yes_no_outcome_and_fit_quality_speaks_of_brier_scores(qtbot):
+    """The grading sample's last column, top_grade ('top' / 'standard'), is the target by the stated
+    rule, read as yes/no; the fit-quality table and sentence give Brier scores, checked against
+    scikit-learn's brier_score_loss on the same held-out probabilities."""
+    from dataclasses import replace
+
+    from sklearn.metrics import brier_score_loss
+
+    sample = os.path.join(os.path.dirname(__file__), "..", "sample_projects", "grading.csv")
+    w = _window(qtbot)
+    with qtbot.waitSignal(w.session_changed, timeout=TIMEOUT_MS):
+        w.open_path(sample)
+    _idle(qtbot, w)
+    s = w.session
+    assert s.results is None and s.roles.target == "top_grade"
+    assert "two values (yes/no)" in w.status_label.text()
+    assert w.question.yes_level.isVisible()
+    assert "batch" not in s.roles.predictors   # 480 batch labels name rows
+    w.draft.set_settings(replace(w.draft.settings, folds=3, n_penalties=15), bootstrap=0)
+    with qtbot.waitSignal(w.results_applied, timeout=TIMEOUT_MS):
+        w.question.fit_btn.click()
+    _idle(qtbot, w)
+    s = w.session
+    assert s.design.outcome == "binary"
+    assert w.panel("calibration").applies(s)
+    w.show_panel("fit")
+    panel = w.panel("fit")
+    w._refresh_panel(panel)
+    m = panel.fit_model
+    assert m.headers[1:5] == ["Brier fitted", "Brier held-out", "Brier skill fitted", "Brier skill held-out"]
+    q = panel.quality
+    for i, name in enumerate(q.models):
+        p = q.predicted[(name, "held_out")]
+        ref = brier_score_loss(s.design.y, p, sample_weight=s.design.weights)
+        assert m.rows[i][2] == pytest.approx(ref, rel=1e-10)
+    text = panel.sentences.text()
+    assert "lowest Brier score on held-out rows" in text and "explains" not in text
+    _close(w)

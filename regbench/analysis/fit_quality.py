@@ -169,6 +169,16 @@ def _sentences(q: FitQuality, design) -> list:
     if not ranked:
         return []
     best = ranked[0]
+    if getattr(design, "outcome", "numeric") == "binary":
+        # On a 0/1 outcome the mean squared error of the probabilities is the Brier score and
+        # R² is its skill: the share of the error of predicting the observed share for every row
+        # that the model removes.
+        out = [f"{model_label(best.model)}'s probabilities have the lowest Brier score {where} "
+               f"({number_text(best.rmse ** 2, 3)}, {number_text(100 * best.r_squared, 3)} % below predicting the "
+               f"observed share of {q.target} for every row)"
+               + (f"; {in_sentence(model_label(ranked[-1].model))} {number_text(ranked[-1].rmse ** 2, 3)}."
+                  if len(ranked) > 1 else ".")]
+        return out
     out = [f"{model_label(best.model)} explains {number_text(100 * best.r_squared, 3)} % of the variation in "
            f"{q.target} {where} (RMSE {number_text(best.rmse, 3)})"
            + (f"; {in_sentence(model_label(ranked[-1].model))} {number_text(100 * ranked[-1].r_squared, 3)} %."

@@ -24,7 +24,7 @@ Qt = QtCore.Qt
 KIND_WORDS = {NUMERIC: "number", CATEGORICAL: "text", BOOLEAN: "yes/no", EMPTY: "empty"}
 NO_WEIGHTS = "1 (no weights)"
 NO_GROUPS = "single rows"
-TARGET_RULE = "the last numeric column that is not an identifier"
+TARGET_RULE = "the last column of numbers or of two values (yes/no) that is not an identifier"
 
 
 def left_out_by_default(table) -> dict:
@@ -36,12 +36,20 @@ def left_out_by_default(table) -> dict:
     return out
 
 
+def can_explain(table, name: str) -> bool:
+    """True when ``name`` can be the target: numbers, or exactly two values (a yes/no outcome)."""
+    info = table.columns[name]
+    return info.kind in (NUMERIC, BOOLEAN) or (info.kind != EMPTY and info.distinct == 2)
+
+
 def default_roles(table) -> Roles:
-    """A stated starting point: the target is the last numeric column that is not an identifier;
-    the inputs are the data layer's default (:func:`regbench.data.design.default_predictors`)."""
+    """A stated starting point (:data:`TARGET_RULE`): the target is the last column of numbers or of
+    two values that is not an identifier; the inputs are the data layer's default
+    (:func:`regbench.data.design.default_predictors`)."""
     ids = identifier_columns(table)
-    numeric = [c for c in table.names if table.columns[c].kind in (NUMERIC, BOOLEAN)]
-    target = next((c for c in reversed(numeric) if c not in ids), numeric[-1] if numeric else table.names[-1])
+    candidates = [c for c in table.names if can_explain(table, c)]
+    target = next((c for c in reversed(candidates) if c not in ids),
+                  candidates[-1] if candidates else table.names[-1])
     return Roles(target=target, predictors=default_predictors(table, Roles(target=target)))
 
 

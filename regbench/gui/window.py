@@ -9,7 +9,7 @@ from PySide6 import QtCore, QtGui, QtWidgets
 
 from regbench.errors import DataError, ProjectError, RegbenchError
 from regbench.gui.panels.data import cache_words
-from regbench.gui.roles import TARGET_RULE, QuestionBar, RoleDraft, default_roles, openable_roles
+from regbench.gui.roles import TARGET_RULE, QuestionBar, RoleDraft, can_explain, default_roles, openable_roles
 from regbench.gui.style import STYLESHEET, configure_pyqtgraph
 from regbench.gui.tables import view_to_tsv
 from regbench.gui.worker import Runner
@@ -400,10 +400,10 @@ class MainWindow(QtWidgets.QMainWindow):
             if roles is not None:
                 return Session.from_table(table, roles, FitSettings()), None
             start = default_roles(table)
-            if table.columns[start.target].kind not in ("numeric", "boolean"):
-                raise DataError(f"{os.path.basename(path)}: no column of numbers to explain among its "
-                                f"{len(table.names)} column{'s' if len(table.names) != 1 else ''}; open a table "
-                                "with at least one numeric column")
+            if not can_explain(table, start.target):
+                raise DataError(f"{os.path.basename(path)}: no column of numbers or of two values to explain "
+                                f"among its {len(table.names)} column{'s' if len(table.names) != 1 else ''}; open "
+                                "a table with a column of numbers or a yes/no column")
             usable, note = openable_roles(table, start)
             return Session.from_table(table, usable, FitSettings()), note
 

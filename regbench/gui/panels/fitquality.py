@@ -125,12 +125,17 @@ class FitQualityPanel(Panel):
         cols = list(session.design.columns)
         self._fill(self.column_box, [(c, c) for c in cols], wanted.get("column"))
         rows = []
+        # On a yes/no outcome the squared error of the probabilities is the Brier score, R² its skill.
+        binary = getattr(session.design, "outcome", "numeric") == "binary"
+        err = (lambda f: f.rmse ** 2) if binary else (lambda f: f.rmse)
         for n in q.models:
             tr, ho = q.fit(n, "training"), q.fit(n, "held_out")
-            rows.append([model_label(n), tr.rmse if tr else None, ho.rmse if ho else None,
+            rows.append([model_label(n), err(tr) if tr else None, err(ho) if ho else None,
                          tr.r_squared if tr else None, ho.r_squared if ho else None,
                          ho.mae if ho else (tr.mae if tr else None)])
-        self.fit_model.set_rows(rows, ["Model", "RMSE fitted", "RMSE held-out", "R² fitted", "R² held-out",
+        words = ("Brier fitted", "Brier held-out", "Brier skill fitted", "Brier skill held-out") if binary else \
+            ("RMSE fitted", "RMSE held-out", "R² fitted", "R² held-out")
+        self.fit_model.set_rows(rows, ["Model", *words,
                                        "MAE held-out" if splits[0] == "held_out" else "MAE fitted"])
         self.fit_view.resizeColumnsToContents()
         self.set_sentences(list(q.sentences[:3]) or ["Each model's error on the rows it was fitted to."])
