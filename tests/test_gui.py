@@ -911,6 +911,8 @@ def test_fit_quality_panel_shows_the_analysis_numbers(gh, qtbot):
     s = gh.session
     gh.show_panel("fit")
     panel = gh.panel("fit")
+    # The plot is drawn a turn of the event loop after the tables (Panel.defer); let it come.
+    qtbot.waitUntil(lambda: not panel._deferred, timeout=10_000)
     want = fit_quality(s.design, s.models(), s.heldout())
     shown = dict(zip(grid_column(panel.fit_model, "Model"), grid_column(panel.fit_model, "RMSE held-out")))
     for n in s.models():

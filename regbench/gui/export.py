@@ -101,7 +101,7 @@ def export_csv(model, path: str) -> str:
     """A table model as CSV (UTF-8, header line first) with every number at full precision."""
     import csv
 
-    from regbench.gui.tables import cell_text
+    from regbench.gui.tables import cell_text, header_text
 
     from PySide6.QtCore import Qt
 
@@ -112,8 +112,7 @@ def export_csv(model, path: str) -> str:
             cols = range(model.columnCount())
             labels = [model.headerData(r, Qt.Vertical) for r in range(model.rowCount())]
             named_rows = any(lab is not None and lab != str(r + 1) for r, lab in enumerate(labels))
-            head = [("" if model.headerData(c, Qt.Horizontal) is None else str(model.headerData(c, Qt.Horizontal)))
-                    for c in cols]
+            head = [header_text(model, c) for c in cols]
             out.writerow(([""] if named_rows else []) + head)
             for r in range(model.rowCount()):
                 row = [cell_text(model, r, c) for c in cols]

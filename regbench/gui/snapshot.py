@@ -44,6 +44,7 @@ def snapshot(project_path, out_dir, size=SIZE) -> list:
             continue  # e.g. the probabilities panel of a numeric target
         window.show_panel(i)
         window._refresh_panel(panel)
+        panel.flush()
         _settle(app)
         path = os.path.join(out_dir, f"{i + 1:02d}_{panel.key}.png")
         window.grab().save(path)

@@ -299,6 +299,12 @@ def percent_text(v: float) -> str:
     return f"{100 * v:.1f} %" if abs(v) < 0.9995 or v == 1 else f"{100 * v:.0f} %"
 
 
+def header_text(model, c: int) -> str:
+    """A column's header on one line, as Copy and export write it (a squeezed header shows two)."""
+    text = model.plain_header(c) if hasattr(model, "plain_header") else model.headerData(c, Qt.Horizontal)
+    return "" if text is None else str(text).replace("\n", " ")
+
+
 def cell_text(model, r: int, c: int) -> str:
     """Full-precision text of a cell when the model has it, else what the cell shows."""
     if hasattr(model, "raw_text"):
@@ -314,7 +320,7 @@ def model_to_tsv(model: QtCore.QAbstractItemModel, rows: Optional[Sequence[int]]
     cols = range(model.columnCount()) if cols is None else cols
     clean = lambda s: "" if s is None else str(s).replace("\t", " ").replace("\n", " ")
     vheader = [clean(model.headerData(r, Qt.Vertical)) for r in rows]
-    lines = ["\t".join([""] + [clean(model.headerData(c, Qt.Horizontal)) for c in cols])]
+    lines = ["\t".join([""] + [clean(header_text(model, c)) for c in cols])]
     for r, label in zip(rows, vheader):
         lines.append("\t".join([label] + [clean(cell_text(model, r, c)) for c in cols]))
     return "\n".join(lines) + "\n"

@@ -110,6 +110,9 @@ class MainWindow(QtWidgets.QMainWindow):
         self._derive_key = None       # the session key it computes for
         self._derive_again = False    # a newer request arrived while it ran
         self.derived_applied = 0      # comparisons installed (tests count them)
+        #: Panels draw their plots a turn after their tables (Panel.defer), so no single piece
+        #: of a panel's first drawing holds the GUI thread for long.
+        self.draw_in_steps = True
         self._stale: set = set()
         self._refresh_pending = False
         self.draft = RoleDraft(self)
@@ -228,7 +231,9 @@ class MainWindow(QtWidgets.QMainWindow):
         self.act_refit = self._action(e, "Refit", lambda: self.refit(force=True), "Ctrl+R")
         v = self.view_menu = mb.addMenu("&View")
         for i, panel in enumerate(self.panels):
-            self._action(v, panel.nav, lambda checked=False, i=i: self.show_panel(i), f"Ctrl+{i + 1}")
+            # Ctrl+1 … Ctrl+9, then Ctrl+0 for the tenth panel.
+            self._action(v, panel.nav, lambda checked=False, i=i: self.show_panel(i),
+                         f"Ctrl+{(i + 1) % 10}" if i < 10 else None)
         h = self.help_menu = mb.addMenu("&Help")
         self._action(h, "Words and cautions", lambda: self.nav.setCurrentRow(len(self.panels)), K.StandardKey.HelpContents)
 
@@ -289,9 +294,10 @@ class MainWindow(QtWidgets.QMainWindow):
             self._refresh_panel(p)
 
     def refresh_everything(self) -> None:
-        """Redraw every panel now (snapshots and tests)."""
+        """Redraw every panel now, plots included (snapshots and tests)."""
         for p in self.panels:
             self._refresh_panel(p)
+            p.flush()
 
     # == session =====================================================================
     def adopt(self, session, path: Optional[str] = None, dirty: bool = False, fit: bool = True) -> None:
@@ -400,6 +406,11 @@ class MainWindow(QtWidgets.QMainWindow):
             if roles is not None:
                 return Session.from_table(table, roles, FitSettings()), None
             start = default_roles(table)
+            numeric = any(table.columns[c].kind in ("numeric", "boolean") for c in table.names)
+            if not numeric and not start.predictors:
+                raise DataError(f"{os.path.basename(path)}: no column of numbers among its {len(table.names)} "
+                                f"column{'s' if len(table.names) != 1 else ''}, and no other column to explain a "
+                                "two-valued one from; open a table with columns of numbers")
             if not can_explain(table, start.target):
                 raise DataError(f"{os.path.basename(path)}: no column of numbers or of two values to explain "
                                 f"among its {len(table.names)} column{'s' if len(table.names) != 1 else ''}; open "

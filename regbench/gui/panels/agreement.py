@@ -105,7 +105,7 @@ class AgreementPanel(Panel):
         self.pair_model.set_rows(rows, ["a", "b", "RMS difference", "Largest difference", "Correlation",
                                         "Mean difference", "Limits of agreement: low", "high"])
         self.pair_view.resizeColumnsToContents()
-        self._scatter(session, split)
+        self.defer(self._scatter, session, split)
         self.set_sentences(list(ag.sentences[:2]))
 
     def predictions(self, session, split):

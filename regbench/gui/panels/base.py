@@ -49,7 +49,37 @@ class Panel(QtWidgets.QWidget):
 
     def clear(self) -> None:
         """Forget what was shown for another session (called before a new one is adopted)."""
+        self.__dict__.setdefault("_deferred", {}).clear()
         self.set_sentences([])
+
+    def defer(self, fn, *args) -> None:
+        """Run ``fn(*args)`` once the event loop has had a turn, when the window draws in steps.
+
+        A panel's first drawing (its tables and sentences, then its plots, then Qt's painting)
+        would otherwise hold the GUI thread in one piece; in steps each piece is shorter and the
+        window answers in between.  A newer request for the same ``fn`` replaces an older one.
+        """
+        if not getattr(self.window_, "draw_in_steps", False):
+            fn(*args)
+            return
+        pending = self.__dict__.setdefault("_deferred", {})
+        token = object()
+        pending[fn.__name__] = (token, fn, args)
+
+        def run():
+            entry = pending.get(fn.__name__)
+            if entry is not None and entry[0] is token:
+                del pending[fn.__name__]
+                fn(*args)
+
+        QtCore.QTimer.singleShot(0, run)
+
+    def flush(self) -> None:
+        """Run every deferred drawing now (pictures and tests that look at once)."""
+        pending = self.__dict__.setdefault("_deferred", {})
+        while pending:
+            _, (_, fn, args) = pending.popitem()
+            fn(*args)
 
     def plots(self) -> list:
         """pyqtgraph PlotWidgets this panel can export."""

@@ -133,7 +133,7 @@ class CoefficientsPanel(Panel):
                     tips.setdefault((r, k0 + 2), "cluster-robust: rows of one group may share influences")
         self.model.set_rows(rows, headers, row_labels=[INTERCEPT] + cols, backgrounds=bg, foregrounds=fg, tips=tips)
         self.view.resizeColumnsToContents()
-        self._draw(models, cols)
+        self.defer(self._draw, models, cols)
         st = session.structure()
         sentences = list(getattr(st, "sentences", ()) or ())
         if not sentences:

@@ -139,7 +139,8 @@ class FitQualityPanel(Panel):
                                        "MAE held-out" if splits[0] == "held_out" else "MAE fitted"])
         self.fit_view.resizeColumnsToContents()
         self.set_sentences(list(q.sentences[:3]) or ["Each model's error on the rows it was fitted to."])
-        self._draw()
+        self._fill_groups()
+        self.defer(self._draw_plot)
 
     @staticmethod
     def _fill(box, items, wanted=None):
@@ -154,6 +155,26 @@ class FitQualityPanel(Panel):
         box.blockSignals(False)
 
     def _draw(self, *_):
+        """The plot and the per-group table for the chosen model, split and view."""
+        self._draw_plot()
+        self._fill_groups()
+
+    def _fill_groups(self):
+        q, session, name = self.quality, self.session, self.model_box.currentData()
+        if q is None or session is None or session.design is None or name is None:
+            return
+        design = session.design
+        groups = [g for g in q.groups if g.model == name]
+        self.group_caption.setVisible(bool(groups))
+        self.group_view.setVisible(bool(groups))
+        if groups:
+            where = "held-out" if q.group_split == "held_out" else "fitted rows"
+            self.group_caption.setText(f"Error per {design.groups_column} ({model_label(name)}, {where})")
+            self.group_model.set_rows([[g.group, g.rows, g.rmse, g.mean_residual] for g in groups],
+                                      [design.groups_column, "Rows", "RMSE", "Mean residual"])
+            self.group_view.resizeColumnsToContents()
+
+    def _draw_plot(self):
         q, session = self.quality, self.session
         if q is None or session is None or session.design is None:
             return
@@ -200,12 +221,3 @@ class FitQualityPanel(Panel):
         if len(rows) < n:
             note += f"; a seeded sample of {len(rows):,} of {n:,} rows is drawn (the numbers use every row)"
         self.plot_note.setText(note + ".")
-        groups = [g for g in q.groups if g.model == name]
-        self.group_caption.setVisible(bool(groups))
-        self.group_view.setVisible(bool(groups))
-        if groups:
-            where = "held-out" if q.group_split == "held_out" else "fitted rows"
-            self.group_caption.setText(f"Error per {design.groups_column} ({model_label(name)}, {where})")
-            self.group_model.set_rows([[g.group, g.rows, g.rmse, g.mean_residual] for g in groups],
-                                      [design.groups_column, "Rows", "RMSE", "Mean residual"])
-            self.group_view.resizeColumnsToContents()

@@ -102,7 +102,7 @@ class OverlapsPanel(Panel):
     def refresh(self, session):
         results = session.results
         design = session.design
-        self._draw_corr(design)
+        self.defer(self._draw_corr, design)
         if results is None:
             self.aside_text.clear()
             self.vif_model.set_rows([], [])

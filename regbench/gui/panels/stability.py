@@ -67,7 +67,7 @@ class StabilityPanel(Panel):
         rows = [[vals[i] for _, vals in fields] for i in range(len(cols))]
         self.model.set_rows(rows, headers, row_labels=cols, digits=3)
         self.view.resizeColumnsToContents()
-        self._draw(st, cols)
+        self.defer(self._draw, st, cols)
         self.set_sentences(list(st.sentences[:2]))
 
     @staticmethod

@@ -329,6 +329,13 @@ class StressPanel(Panel):
                                          "Rows moved", "Error before", "Error after"], backgrounds=bg,
                                   percent_cols=(4,))
         self.shift_view.resizeColumnsToContents()
+        sentences = list(res.sentences[:2])
+        if sweep is not None:
+            sentences += list(sweep.sentences[:1])
+        self.set_sentences(sentences)
+        self.defer(self._plot_sweep, sweep)
+
+    def _plot_sweep(self, sweep):
         self.plot.clear()
         legend = self.plot.getPlotItem().legend or self.plot.addLegend(offset=(10, 10), labelTextSize="8pt")
         legend.clear()
@@ -338,10 +345,6 @@ class StressPanel(Panel):
                 self.plot.plot(np.asarray(sweep.strengths), np.asarray(sweep.shift_rmse[n]), pen=pg.mkPen(c, width=2),
                                symbol="o", symbolSize=6, symbolBrush=c, symbolPen=None, name=model_label(n))
             self.plot.setLabel("bottom", f"strength of '{KIND_WORDS.get(sweep.kind, sweep.kind)}' on {sweep.column}")
-        sentences = list(res.sentences[:2])
-        if sweep is not None:
-            sentences += list(sweep.sentences[:1])
-        self.set_sentences(sentences)
 
     def _show_ranking(self, rk):
         shift = np.asarray(rk.shift_rmse)
