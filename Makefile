@@ -41,6 +41,7 @@ samples: $(STAMP)
 
 snapshots: $(STAMP)
 	QT_QPA_PLATFORM=offscreen $(BIN)/regbench snapshot $(SAMPLE) --out assets/snapshots
+	QT_QPA_PLATFORM=offscreen $(BIN)/regbench snapshot sample_projects/grading.regbench --out assets/snapshots/grading
 
 bench: $(STAMP)
 	$(BIN)/regbench bench

@@ -290,7 +290,7 @@ class QuestionBar(QtWidgets.QFrame):
         self.draft = draft
         lay = QtWidgets.QHBoxLayout(self)
         lay.setContentsMargins(14, 6, 10, 6)
-        lay.setSpacing(6)
+        lay.setSpacing(4)
 
         def words(text):
             lab = QtWidgets.QLabel(text)
@@ -319,6 +319,8 @@ class QuestionBar(QtWidgets.QFrame):
         self.groups_after = words("groups.")
         # A two-valued target reads as yes/no; this says which value is "yes" (or: treat it as a number).
         self.yes_level = QtWidgets.QComboBox()
+        # Sized to the choice shown (see _sync_yes_level).
+        self.yes_level.setSizeAdjustPolicy(QtWidgets.QComboBox.AdjustToMinimumContentsLengthWithIcon)
         self.yes_level.setToolTip("A target with two values is a yes/no outcome: choose which value counts as yes, "
                                   "or treat it as a number")
         self.yes_level.activated.connect(lambda *_: self._outcome_chosen())
@@ -369,7 +371,7 @@ class QuestionBar(QtWidgets.QFrame):
             combo.blockSignals(False)
         self._sync_yes_level()
         n = sum(1 for c in names if d.uses(c))
-        self.ticked_words.setText(f"from the {n} ticked column{'s' if n != 1 else ''};")
+        self.ticked_words.setText(f"from {n} ticked column{'s' if n != 1 else ''};")
         kinds = d.weights_kind is not None and d.weights is not None
         self.weights_kind.setVisible(kinds)
         if kinds:
@@ -398,6 +400,7 @@ class QuestionBar(QtWidgets.QFrame):
             self.yes_level.addItem("(as a number)", "numeric:")
             current = "numeric:" if d.outcome == "numeric" else "binary:" + (d.positive_level or default)
             self.yes_level.setCurrentIndex(max(0, self.yes_level.findData(current)))
+            self.yes_level.setMinimumContentsLength(len(self.yes_level.currentText()))
         self.yes_level.setVisible(bool(levels))
         self.yes_level.blockSignals(False)
 

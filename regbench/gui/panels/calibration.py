@@ -58,7 +58,8 @@ class CalibrationPanel(Panel):
             p.showGrid(x=True, y=True, alpha=0.2)
             p.setXRange(0, 1, padding=0.02)
             p.setYRange(0, 1, padding=0.02)
-            p.addLegend(offset=(-8, 8))
+            # The ROC curves rise through the upper left: its legend sits bottom right, clear of them.
+            p.addLegend(offset=(-8, 8) if p is self.reliability else (-8, -8))
         plots.addWidget(self.reliability)
         plots.addWidget(self.roc)
         split.addWidget(plots)
@@ -92,7 +93,7 @@ class CalibrationPanel(Panel):
         self.recorded.setStyleSheet(f"color: {PALETTE['muted']};")
         rl.addWidget(self.recorded)
         split.addWidget(right)
-        split.setSizes([560, 560])
+        split.setSizes([500, 620])   # the summary table's six columns whole at 1400 × 900
         lay.addWidget(split, 1)
         self._cl = None
 
@@ -177,6 +178,7 @@ class CalibrationPanel(Panel):
                  dis[k].auc] for k in cl.models]
         self.summary.set_rows(rows, ["Brier", "Miscalibration", "Discrimination", "Cal. intercept", "Cal. slope",
                                      "AUC"], row_labels=[model_label(k) for k in cl.models], digits=3)
+        self.summary_view.resizeColumnsToContents()   # whole headers at 1400 × 900
         k = self.model_box.currentData() or cl.models[0]
         d = dis[k]
         thr = self.session.threshold if self.session is not None else None

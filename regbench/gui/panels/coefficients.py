@@ -81,21 +81,24 @@ class CoefficientsPanel(Panel):
         names = list(models)
         cl_se = getattr(ols, "cluster_std_errors", None)
         by_group = cl_se is not None
-        ols_extra = ["OLS SE", "OLS p"] + ([f"OLS SE by {session.design.groups_column}"] if by_group else [])
+        # The unpenalized model (OLS, or logistic regression for a yes/no outcome) carries the inference.
+        unpen = next((n for n in ("ols", "logistic") if n in names), None)
+        word = model_label(unpen) if unpen else "OLS"
+        ols_extra = [f"{word} SE", f"{word} p"] + ([f"{word} SE by {session.design.groups_column}"] if by_group else [])
         headers = []
         for n in names:
             headers.append(model_label(n))
-            if n == "ols":
+            if n == unpen:
                 headers += ols_extra
         rows, bg, fg, tips = [], {}, {}, {}
         # The intercept first, in table units whatever the scale (standardizing leaves it in the target's units).
         row = []
         for n in names:
             row.append(float(models[n].intercept))
-            if n == "ols":
+            if n == unpen:
                 row += [float(ols.intercept_se), None]
                 if by_group:
-                    row.append(float(ols.cluster_intercept_se))
+                    row.append(float(getattr(ols, "cluster_intercept_se", float("nan"))))
         rows.append(row)
         for i, c in enumerate(cols):
             row = []
@@ -103,16 +106,16 @@ class CoefficientsPanel(Panel):
                 m = models[n]
                 v = float(m.coef_std[i] if std else m.coef[i])
                 k = len(row)
-                if n == "ols" and c in aside:
+                if n == unpen and c in aside:
                     row += ["set aside"] + [None] * len(ols_extra)
                     bg[(i, k)] = WARN_BG
                     tips[(i, k)] = aside[c].sentence()
                     continue
                 row.append(v)
-                if v == 0.0 and n != "ols":
+                if v == 0.0 and n != unpen:
                     fg[(i, k)] = PALETTE["muted"]
                     tips[(i, k)] = f"{model_label(n)} does not use {c} at this α"
-                if n == "ols":
+                if n == unpen:
                     # Standardizing scales a coefficient and its standard errors alike.
                     to_std = (float(m.coef_std[i] / m.coef[i]) if m.coef[i] != 0 else float("nan")) if std else 1.0
                     row += [float(ols.std_errors[i]) * to_std, float(ols.p_values[i])]
@@ -124,8 +127,8 @@ class CoefficientsPanel(Panel):
         fg = {(r + 1, k): v for (r, k), v in fg.items()}
         tips = {(r + 1, k): v for (r, k), v in tips.items()}
         note = getattr(ols, "inference_note", "") or ""
-        if "ols" in names:
-            k0 = names.index("ols") + 1   # the OLS SE column
+        if unpen is not None:
+            k0 = names.index(unpen) + 1   # the unpenalized model's SE column
             for r in range(len(rows)):
                 if note:
                     tips.setdefault((r, k0), note)
