@@ -92,3 +92,68 @@ def test_no_header_is_clipped_on_any_panel_at_1400_by_900(qtbot, greenhouse_fitt
     w.runner.cancel_all()
     w.runner.wait(60_000)
     w.close()
+
+
+def _open_sample(qtbot, name):
+    from regbench.gui.window import MainWindow
+    from regbench.project import load_project
+
+    path = os.path.join(os.path.dirname(__file__), "..", "sample_projects", name)
+    w = MainWindow(autosave=False)
+    w.ask_unsaved = lambda: "discard"
+    qtbot.addWidget(w)
+    w.resize(1400, 900)
+    w.show()
+    w.adopt(load_project(path), path=path, fit=False)
+    qtbot.waitUntil(lambda: not w.runner.busy() and w.session.derived_ready, timeout=120_000)
+    return w
+
+
+def _close(w):
+    w.dirty = False
+    w.runner.cancel_all()
+    w.runner.wait(60_000)
+    w.close()
+
+
+@pytest.mark.parametrize("sample", ["greenhouse.regbench", "grading.regbench"])
+def test_range_and_stability_tables_fit_their_room_at_1400_by_900(qtbot, sample):
+    w = _open_sample(qtbot, sample)
+    scrolls = {}
+    for key in ("ranges", "stability"):
+        panel = w.panel(key)
+        w.show_panel(key)
+        w._refresh_panel(panel)
+        panel.flush()
+        for k, view in enumerate(panel.views()):
+            panel.tabs.setCurrentWidget(view)
+            QtWidgets.QApplication.processEvents()
+            assert view.model().columnCount() > 0
+            # Sideways scrolling is what the squeeze avoids: every column sits in the view's width.
+            if view.horizontalScrollBar().maximum() > 0:
+                scrolls[(key, k)] = [view.horizontalHeader().sectionSize(i) for i in range(view.model().columnCount())]
+            assert _clipped_headers(view) == []
+    assert scrolls == {}
+    _close(w)
+
+
+def test_prediction_strip_row_names_never_overlap(qtbot):
+    # The grading sample's two widest rows sit side by side at the top of the strip.
+    w = _open_sample(qtbot, "grading.regbench")
+    panel = w.panel("ranges")
+    w.show_panel("ranges")
+    w._refresh_panel(panel)
+    panel.flush()
+    for width in (1400, 1000, 1800):
+        w.resize(width, 900)
+        QtWidgets.QApplication.processEvents()
+        labels = panel._strip_labels
+        assert len(labels) == 3
+        shown = [t.sceneBoundingRect() for t in labels if t.isVisible()]
+        assert shown, "the widest row is always named"
+        assert labels[0].isVisible()
+        assert not any(a.intersects(b) for i, a in enumerate(shown) for b in shown[i + 1:])
+    # The names hidden are still listed in the rows table.
+    listed = {panel.rows_model.value(r, 0) for r in range(panel.rows_model.rowCount())}
+    assert {int(t.toPlainText().split()[1]) for t in labels} <= listed
+    _close(w)

@@ -87,6 +87,9 @@ class RangesPanel(Panel):
         self.strip.showGrid(x=False, y=True, alpha=0.2)
         self.strip.setLabel("bottom", "rows by OLS prediction; a line spans the near-best models")
         left.addWidget(self.strip)
+        self._strip_labels = []
+        self.strip.getViewBox().sigResized.connect(self._declutter_labels)
+        self.strip.getViewBox().sigRangeChanged.connect(self._declutter_labels)
         left.setSizes([480, 220])
         split.addWidget(left)
 
@@ -264,12 +267,18 @@ class RangesPanel(Panel):
         plot.addItem(pg.PlotDataItem(xs, ys, connect="pairs", pen=pg.mkPen(PALETTE["accent"], width=1)))
         first = "logistic" if rg.outcome == "binary" else "ols"
         plot.addItem(pg.ScatterPlotItem(x, centre[order], size=3, pen=None, brush=model_colour(first)))
-        widest = {d["row"] for d in rg.widest[:3]}
-        for k, i in enumerate(order):
-            if int(rg.row_numbers[i]) in widest:
-                t = pg.TextItem(f"row {int(rg.row_numbers[i])}", color=PALETTE["warn"], anchor=(0.5, 1.1))
-                t.setPos(float(k), float(hi[k]))
-                plot.addItem(t)
+        # The widest rows are named, widest first; a name that would cover another is left out
+        # (the rows table lists every one).
+        at = {int(rg.row_numbers[i]): k for k, i in enumerate(order)}
+        self._strip_labels = []
+        for d in rg.widest[:3]:
+            k = at.get(int(d["row"]))
+            if k is None:
+                continue
+            t = pg.TextItem(f"row {int(d['row'])}", color=PALETTE["warn"], anchor=(0.5, 1.1))
+            t.setPos(float(k), float(hi[k]))
+            plot.addItem(t)
+            self._strip_labels.append(t)
         if rg.outcome == "binary":
             plot.setLabel("left", f"probability of {rg.target}")
             plot.setLabel("bottom", "rows by logistic prediction; a line spans the near-best models")
@@ -278,42 +287,70 @@ class RangesPanel(Panel):
             plot.setLabel("bottom", "rows by OLS prediction; a line spans the near-best models")
         top, bottom = float(hi.max()), float(lo.min())
         plot.setYRange(bottom, top + 0.12 * (top - bottom or 1.0), padding=0.02)
+        self._declutter_labels()
+
+    def _declutter_labels(self, *_):
+        """Hide each row name whose box meets one already shown (on every resize or zoom too)."""
+        shown = []
+        for t in getattr(self, "_strip_labels", ()):
+            if t.scene() is None:
+                continue
+            t.setVisible(True)
+            t.updateTransform(force=True)
+            box = t.sceneBoundingRect()
+            if any(box.intersects(o) for o in shown):
+                t.setVisible(False)
+            else:
+                shown.append(box)
 
     def _fill_tables(self, rg):
         binary = rg.outcome == "binary"
         # Least squares: importance as a share of the best error; yes/no: the mean square of the log-odds change.
         scale = 1.0 if binary or not rg.best_error > 0 else rg.best_error
         p = len(rg.columns)
-        rows, fg = [], {}
+        # Five narrow columns so the table fits beside the bands at 1400 × 900: the standardized ends are
+        # what the bands draw, and each end cell's tooltip gives them.
+        unit = ("importance: the mean squared change of the log-odds when this column is swapped for an "
+                "independent copy of itself" if binary else
+                "importance: how much the error grows when this column is swapped for an independent copy "
+                "of itself, as a share of the best error")
+        rows, fg, tips = [], {}, {}
         for j in range(p):
             imp_lo = float(rg.importance_low[j] / scale)
             if rg.bounded[j]:
-                rows.append([float(rg.low[j]), float(rg.high[j]), float(rg.low_std[j]), float(rg.high_std[j]),
-                             "settled" if rg.sign_settled[j] else "not settled", imp_lo,
-                             float(rg.importance_high[j] / scale)])
+                rows.append([float(rg.low[j]), float(rg.high[j]), "settled" if rg.sign_settled[j] else "open",
+                             imp_lo, float(rg.importance_high[j] / scale)])
+                tips[(j, 0)] = f"per SD of the column: {number_text(float(rg.low_std[j]), 3)}"
+                tips[(j, 1)] = f"per SD of the column: {number_text(float(rg.high_std[j]), 3)}"
                 if not rg.sign_settled[j]:
-                    fg[(j, 4)] = OPEN
+                    fg[(j, 2)] = OPEN
             else:
-                rows.append(["no bound", "no bound", "no bound", "no bound", "not settled", imp_lo, "no bound"])
-                for c in range(5):
+                rows.append(["no bound", "no bound", "open", imp_lo, "no bound"])
+                for c in range(3):
                     fg[(j, c)] = PALETTE["warn"]
-        unit = "log-odds² moved" if binary else "share of best error"
-        heads = ["Lowest", "Highest", "Lowest (std.)", "Highest (std.)", "Sign", "Importance from", f"to ({unit})"]
-        if binary:
-            heads[:4] = ["Lowest (log-odds)", "Highest (log-odds)", "Lowest (std.)", "Highest (std.)"]
-        self.columns_model.set_rows(rows, heads, row_labels=list(rg.columns), foregrounds=fg, digits=3)
+            tips[(j, 3)] = tips[(j, 4)] = unit
+            tips[(j, 2)] = "the sign is the same in every near-best model" if rg.bounded[j] and rg.sign_settled[j] \
+                else "near-best models disagree on the sign"
+        # A yes/no outcome's ends are log-odds: the note above the bands says so.
+        heads = ["Lowest", "Highest", "Sign", "Importance from", "to"]
+        self.columns_model.set_rows(rows, heads, row_labels=list(rg.columns), foregrounds=fg, tips=tips, digits=3)
         self.columns_view.resizeColumnsToContents()
-        rows = []
-        for d in rg.widest:
-            unusual = "; ".join(f"{c} {v:.4g} ({z:+.1f} SD)" for c, v, z in d["unusual"]) or "nothing unusual"
+        rows, tips = [], {}
+        for r, d in enumerate(rg.widest):
+            unusual = [f"{c} {v:.4g} ({z:+.1f} SD)" for c, v, z in d["unusual"]]
+            # The first unusual value in the cell (the table fits its room); all of them in its tooltip.
+            cell = (f"{d['unusual'][0][0]} {d['unusual'][0][2]:+.1f} SD"
+                    + (f" and {len(unusual) - 1} more" if len(unusual) > 1 else "") if unusual else "nothing unusual")
             if binary:
-                rows.append([d["row"], d["p_centre"], d["p_low"], d["p_high"], d["p_width"],
-                             f"{d['low']:.3g} to {d['high']:.3g}", unusual])
+                rows.append([d["row"], d["p_centre"], d["p_low"], d["p_high"], d["p_width"], cell])
+                tips[(r, 2)] = tips[(r, 3)] = f"log-odds from {d['low']:.3g} to {d['high']:.3g}"
             else:
-                rows.append([d["row"], d["centre"], d["low"], d["high"], d["width"], unusual])
-        heads = (["Row", "Logistic probability", "Lowest", "Highest", "Width", "Log-odds range", "Unusual values"]
+                rows.append([d["row"], d["centre"], d["low"], d["high"], d["width"], cell])
+            if unusual:
+                tips[(r, 5)] = "; ".join(unusual)
+        heads = (["Row", "Logistic probability", "Lowest", "Highest", "Width", "Unusual values"]
                  if binary else ["Row", "OLS prediction", "Lowest", "Highest", "Width", "Unusual values"])
-        self.rows_model.set_rows(rows, heads, digits=4)
+        self.rows_model.set_rows(rows, heads, tips=tips, digits=4)
         self.rows_view.resizeColumnsToContents()
         rows, fg = [], {}
         for k, (name, m) in enumerate(rg.models.items()):

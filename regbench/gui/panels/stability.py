@@ -32,28 +32,36 @@ class StabilityPanel(Panel):
         self.rerun_btn.clicked.connect(lambda: self.window_.refit())
         lay.addWidget(hbox(self.note, 1, self.rerun_btn))
         split = QtWidgets.QSplitter(Qt.Horizontal)
+        # Two tabs so neither table scrolls sideways at 1400 × 900: how often each column is kept or
+        # set aside (what the bars draw), and the middle 90 % of each model's coefficient.
+        self.tabs = QtWidgets.QTabWidget()
         self.model = GridModel()
         self.view = make_view(self.model)
-        split.addWidget(self.view)
+        self.tabs.addTab(self.view, "Kept and set aside")
+        self.ranges_model = GridModel()
+        self.ranges_view = make_view(self.ranges_model)
+        self.tabs.addTab(self.ranges_view, "Coefficients: 5 % to 95 % of refits")
+        split.addWidget(self.tabs)
         self.plot = pg.PlotWidget()
         self.plot.export_name = "selection frequency"
         self.plot.showGrid(x=True, y=False, alpha=0.25)
         self.plot.setLabel("bottom", "share of refits")
         split.addWidget(self.plot)
-        split.setSizes([700, 500])
+        split.setSizes([760, 440])
         lay.addWidget(split, 1)
 
     def plots(self):
         return [self.plot]
 
     def views(self):
-        return [self.view]
+        return [self.view, self.ranges_view]
 
     def refresh(self, session):
         st = session.stability
         self.rerun_btn.setVisible(session.results is not None and not session.stability_current)
         if st is None:
             self.model.set_rows([], [])
+            self.ranges_model.set_rows([], [])
             self.plot.clear()
             self.note.setText("")
             self.set_sentences(["No bootstrap refits yet: set 'Stability refits' above 0 under Settings (top right), then press Fit."
@@ -62,11 +70,11 @@ class StabilityPanel(Panel):
         self.note.setText("" if session.stability_current else
                           "These refits used an earlier α; the chosen α has changed since.")
         cols = list(st.columns)
-        fields = self.table_fields(st)
-        headers = [h for h, _ in fields]
-        rows = [[vals[i] for _, vals in fields] for i in range(len(cols))]
-        self.model.set_rows(rows, headers, row_labels=cols, digits=3)
-        self.view.resizeColumnsToContents()
+        for model, view, fields in ((self.model, self.view, self.table_fields(st)),
+                                    (self.ranges_model, self.ranges_view, self.range_fields(st))):
+            rows = [[vals[i] for _, vals in fields] for i in range(len(cols))]
+            model.set_rows(rows, [h for h, _ in fields], row_labels=cols, digits=3)
+            view.resizeColumnsToContents()
         self.defer(self._draw, st, cols)
         self.set_sentences(list(st.sentences[:2]))
 
@@ -76,14 +84,22 @@ class StabilityPanel(Panel):
         return [m for m in st.models if m in st.selected_freq and m not in ("ols", "ridge")]
 
     def table_fields(self, st):
-        p = len(st.columns)
+        """(header, values) of the first tab: the share of refits that set aside or keep each column."""
         out = [("Set aside (OLS)", [float(v) for v in st.set_aside_freq])]
         for m in self.selecting(st):
             out.append((f"Kept: {model_label(m)}", [float(v) for v in st.selected_freq[m]]))
+        return out
+
+    @staticmethod
+    def range_fields(st):
+        """(header, values) of the second tab: each model's 5th to 95th percentile of a coefficient."""
+        p = len(st.columns)
+        out = []
         for m in st.models:
             if m in st.coef_q05:
                 lo, hi = st.coef_q05[m], st.coef_q95[m]
-                out.append((f"{model_label(m)} 5–95%", [f"{lo[i]:.3g} … {hi[i]:.3g}" for i in range(p)]))
+                out.append((f"{model_label(m)} 5 %", [float(lo[i]) for i in range(p)]))
+                out.append((f"{model_label(m)} 95 %", [float(hi[i]) for i in range(p)]))
         return out
 
     def _draw(self, st, cols):
