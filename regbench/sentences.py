@@ -21,6 +21,44 @@ from regbench.models.results import model_label
 _RESULTS_DIR = "results/"
 
 
+# -- How far models miss the target and differ from each other (the agreement sentences) ----------------
+# On a yes/no outcome the predictions are probabilities: their own error is said as a Brier score (the
+# mean squared error of the probabilities, as the fit-quality and calibration sentences give it) and a
+# difference between two models as a difference in probability.
+
+
+def miss_words(target: str, who: str, errors, units: str = "", binary: bool = False) -> str:
+    """How far ``who`` ('it', 'each', 'both' or 'they') misses ``target``.
+
+    ``errors`` holds one root-mean-square error (two for 'they'): said as such for a
+    number, as its square, the Brier score, for a yes/no outcome.
+    """
+    u = f" {units}" if units and not binary else ""
+    if binary:
+        b = [fmt(e ** 2) for e in errors]
+        return {"it": f"its probabilities of {target} have a Brier score of {b[0]}",
+                "each": f"each has a Brier score of {b[0]} on {target}",
+                "both": f"both have a Brier score of {b[0]} on {target}",
+                "they": f"their Brier scores on {target} are {b[0]} and {b[-1]}"}[who]
+    e = [fmt(v) for v in errors]
+    return {"it": f"it misses {target} by {e[0]}{u} RMS",
+            "each": f"each misses {target} by {e[0]}{u}",
+            "both": f"both miss {target} by {e[0]}{u}",
+            "they": f"they miss {target} by {e[0]} and {e[-1]}{u}"}[who]
+
+
+def gap_words(size: float, units: str = "", binary: bool = False, rms: bool = True) -> str:
+    """A difference between two models' predictions: '0.12 kg RMS', or '0.05 in probability (RMS)'."""
+    if binary:
+        return f"{fmt(size)} in probability" + (" (RMS)" if rms else "")
+    return f"{fmt(size)}{f' {units}' if units else ''}" + (" RMS" if rms else "")
+
+
+def own_error_words(binary: bool = False) -> str:
+    """What a difference is a share of: the smaller model's own error."""
+    return "the smaller root Brier score" if binary else "the smaller error"
+
+
 def _summary_number(v) -> str:
     """A number in the fit summary's table: four significant digits, :data:`MISSING` when absent."""
     if v is None or not math.isfinite(v):

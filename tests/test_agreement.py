@@ -172,3 +172,42 @@ def test_identical_models_even_with_a_perfect_fit():
     # Zero own error and zero difference: identical, not "the choice matters" (0/0 is not large).
     assert ag.pair("ols", "ridge", "training").rmse == 0.0
     assert "predict exactly the same" in ag.sentences[0]
+
+
+class _Probabilities:
+    """A stand-in for a fitted yes/no model: its predictions are the probabilities given."""
+
+    def __init__(self, p):
+        self.p = np.asarray(p, dtype=float)
+
+    def predict(self, X):
+        return self.p
+
+
+def test_yes_no_outcome_sentences_speak_of_brier_scores_and_probabilities():
+    rng = np.random.default_rng(11)
+    n = 300
+    X = rng.normal(size=(n, 2))
+    y = (rng.uniform(size=n) < 0.4).astype(float)
+    w = rng.uniform(0.5, 2.0, n)
+    d = design_from_arrays(X, y, ("a", "b"), weights=w, target="top_grade", outcome="binary")
+    pa = np.clip(0.4 + 0.3 * X[:, 0] / 3, 0.01, 0.99)
+    pb = np.clip(pa + 0.3 + rng.normal(0, 0.1, n), 0.01, 0.99)  # off by 0.3: a clearly larger Brier score
+    ag = compare_models(d, {"logistic": _Probabilities(pa), "ridge": _Probabilities(pb)})
+    # Brier score: the weighted mean squared difference between probability and 0/1 outcome
+    # (Brier 1950, Monthly Weather Review 78(1)), computed here straight with numpy.
+    brier_a = np.average((pa - y) ** 2, weights=w)
+    brier_b = np.average((pb - y) ** 2, weights=w)
+    gap = np.sqrt(np.average((pa - pb) ** 2, weights=w))
+    text = [s for s in ag.sentences if s.startswith("Logistic and ridge")][0]
+    assert "misses" not in text and "miss " not in text
+    assert f"Brier scores on top_grade are {brier_a:.3g} and {brier_b:.3g}" in text
+    assert f"differ by {gap:.3g} in probability (RMS)" in text
+    assert "root Brier score" in text
+    # One model alone: its Brier score, not an RMS miss.
+    alone = compare_models(d, {"logistic": _Probabilities(pa)}).sentences[0]
+    assert f"Brier score of {brier_a:.3g}" in alone and "misses" not in alone
+    # A number target keeps its RMS wording.
+    num = compare_models(design_from_arrays(X, y, ("a", "b"), weights=w, target="growth"),
+                         {"ols": _Probabilities(pa)}).sentences[0]
+    assert f"misses growth by {np.sqrt(brier_a):.3g} RMS" in num

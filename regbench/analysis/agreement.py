@@ -23,8 +23,8 @@ from typing import Optional
 import numpy as np
 
 from regbench.errors import DataError
-from regbench.formatting import sentence_number
 from regbench.models.results import Result, model_label
+from regbench.sentences import gap_words, miss_words, own_error_words
 
 #: Pair RMS difference below this share of the smaller own error: "practically the same predictions".
 TINY_SHARE = 0.10
@@ -237,15 +237,17 @@ def _rows_words(design, split: str) -> str:
 
 
 def _sentences(design, names, pairs, own, units, tiny_share) -> tuple:
-    u = f" {units}" if units else ""
+    binary = getattr(design, "outcome", "numeric") == "binary"
+    t = design.target
     out = []
     if len(names) < 2:
         k = names[0]
-        return (f"Only {model_label(k)} was fitted; it misses {design.target} by {sentence_number(own[k]['training'])}{u} RMS "
+        return (f"Only {model_label(k)} was fitted; {miss_words(t, 'it', [own[k]['training']], units, binary)} "
                 "on the training rows.",)
     held_pairs = [p for p in pairs if p.split == "held_out"]
     use = held_pairs or [p for p in pairs if p.split == "training"]
     split = use[0].split
+    smaller_words = own_error_words(binary)
     verdicts = []
     for p in use:
         ea, eb = own[p.a][split], own[p.b][split]
@@ -254,24 +256,26 @@ def _sentences(design, names, pairs, own, units, tiny_share) -> tuple:
         verdicts.append(ratio)
         la, lb = model_label(p.a), model_label(p.b)
         if np.isclose(ea, eb, rtol=0.05):
-            miss = f"each misses {design.target} by {sentence_number(smaller)}{u}"
+            miss = miss_words(t, "each", [smaller], units, binary)
         else:
-            miss = f"they miss {design.target} by {sentence_number(ea)} and {sentence_number(eb)}{u}"
+            miss = miss_words(t, "they", [ea, eb], units, binary)
         if p.rmse == 0.0:
             out.append(f"{la} and {in_sentence(lb)} predict exactly the same on {_rows_words(design, split)} "
-                       f"(both miss {design.target} by {sentence_number(smaller)}{u}).")
+                       f"({miss_words(t, 'both', [smaller], units, binary)}).")
             verdicts[-1] = 0.0
             continue
-        head = f"{la} and {in_sentence(lb)} differ by {sentence_number(p.rmse)}{u} RMS on {_rows_words(design, split)} while {miss}"
+        head = (f"{la} and {in_sentence(lb)} differ by {gap_words(p.rmse, units, binary)} on "
+                f"{_rows_words(design, split)} while {miss}")
+        gap = gap_words(p.max_abs, units, binary, rms=False)
         if ratio < tiny_share:
             tail = (f": either gives practically the same predictions (the difference is under "
-                    f"{tiny_share:.0%} of the smaller error).")
+                    f"{tiny_share:.0%} of {smaller_words}).")
         elif ratio < SMALL_SHARE:
-            tail = (f": they predict alike, though the difference is {ratio:.0%} of the smaller error "
-                    f"(largest single gap {sentence_number(p.max_abs)}{u}).")
+            tail = (f": they predict alike, though the difference is {ratio:.0%} of {smaller_words} "
+                    f"(largest single gap {gap}).")
         else:
-            tail = (f": the difference is {ratio:.0%} of the smaller error, so choosing between them "
-                    f"changes the predictions (largest single gap {sentence_number(p.max_abs)}{u}).")
+            tail = (f": the difference is {ratio:.0%} of {smaller_words}, so choosing between them "
+                    f"changes the predictions (largest single gap {gap}).")
         out.append(head + tail)
     if len(use) > 1:
         n_tiny = sum(r < tiny_share for r in verdicts)
