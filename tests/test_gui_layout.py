@@ -153,6 +153,9 @@ def test_prediction_strip_row_names_never_overlap(qtbot):
         assert shown, "the widest row is always named"
         assert labels[0].isVisible()
         assert not any(a.intersects(b) for i, a in enumerate(shown) for b in shown[i + 1:])
+        # Each name shown lies inside the plot (not cut by its top or sides).
+        area = panel.strip.getViewBox().sceneBoundingRect().adjusted(-1, -1, 1, 1)
+        assert all(area.contains(b) for b in shown)
     # The names hidden are still listed in the rows table.
     listed = {panel.rows_model.value(r, 0) for r in range(panel.rows_model.rowCount())}
     assert {int(t.toPlainText().split()[1]) for t in labels} <= listed

@@ -275,7 +275,9 @@ class RangesPanel(Panel):
             k = at.get(int(d["row"]))
             if k is None:
                 continue
-            t = pg.TextItem(f"row {int(d['row'])}", color=PALETTE["warn"], anchor=(0.5, 1.1))
+            # Near either end the name leans inward so it stays inside the plot.
+            side = 1.0 if k > 0.9 * order.size else 0.0 if k < 0.1 * order.size else 0.5
+            t = pg.TextItem(f"row {int(d['row'])}", color=PALETTE["warn"], anchor=(side, 1.1))
             t.setPos(float(k), float(hi[k]))
             plot.addItem(t)
             self._strip_labels.append(t)
@@ -286,7 +288,7 @@ class RangesPanel(Panel):
             plot.setLabel("left", rg.target)
             plot.setLabel("bottom", "rows by OLS prediction; a line spans the near-best models")
         top, bottom = float(hi.max()), float(lo.min())
-        plot.setYRange(bottom, top + 0.12 * (top - bottom or 1.0), padding=0.02)
+        plot.setYRange(bottom, top + 0.25 * (top - bottom or 1.0), padding=0.02)  # room for the row names
         self._declutter_labels()
 
     def _declutter_labels(self, *_):
