@@ -221,3 +221,49 @@ def test_fit_quality_section_lists_each_model_and_groups_in_natural_order(sessio
     assert labels == sorted(labels, key=natural_key)
     positions = [section.index(f">{g}<") for g in labels]
     assert positions == sorted(positions)
+
+
+def test_report_shows_cluster_robust_standard_errors_with_a_group_column(session, html):
+    # Reference for the figures themselves: statsmodels OLS cov_type="cluster" (tests/test_weights_kind.py and
+    # tests/test_ols.py check the engine's cluster-robust SEs against it); here the report must carry them.
+    import numpy as np
+
+    o = session.results.ols
+    assert o.cluster_std_errors is not None and o.n_clusters == len(session.design.group_labels)
+    section = html.split('id="fits"')[1].split("</section>")[0]
+    assert "Cluster-robust SE" in section and f"cluster-robust ones by {session.design.groups_column}" in section
+    from regbench.report.html import num
+
+    kept = np.flatnonzero(~o.set_aside_mask)
+    for j in kept[:5]:
+        assert f"<td>{num(o.cluster_std_errors[j])}</td>" in section and f"<td>{num(o.std_errors[j])}</td>" in section
+    assert "Prefer the cluster-robust" in section
+
+
+def test_report_without_groups_has_classical_standard_errors_only(tmp_path):
+    s = Session.from_table_file(CSV, Roles(target="yield_kg_m2", predictors=("day_temp_c", "co2_ppm", "variety")),
+                                FitSettings(folds=3, n_penalties=15))
+    s.set_bootstrap(0)
+    s.compute()
+    section = report_html(s).split('id="fits"')[1].split("</section>")[0]
+    assert "OLS standard errors" in section and "Cluster-robust SE" not in section
+    assert "set a group column" in section
+
+
+def test_report_flags_a_cv_minimum_at_the_grid_edge(tmp_path):
+    import numpy as np
+    import pandas as pd
+
+    # Almost noise-free target: the least shrinkage predicts best, so the lowest CV error sits at the grid's
+    # smallest α (scikit-learn LassoCV on the same folds agrees, tests/test_wide.py).
+    rng = np.random.default_rng(2)
+    X = rng.normal(size=(300, 5))
+    frame = pd.DataFrame(X, columns=list("abcde")).assign(y=X @ np.arange(1, 6) + 0.01 * rng.normal(size=300))
+    path = tmp_path / "edge.csv"
+    frame.to_csv(path, index=False)
+    s = Session.from_table_file(path, Roles(target="y"), FitSettings(folds=3, n_penalties=20))
+    s.set_bootstrap(0)
+    s.compute()
+    assert s.results.penalized["lasso"].cv.at_edge
+    section = report_html(s).split('id="fits"')[1].split("</section>")[0]
+    assert "At the edge of the grid" in section and "smallest α tried" in section

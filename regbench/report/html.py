@@ -285,6 +285,47 @@ def _fits(session) -> str:
     parts.append(figure(svg.bar_chart(list(res.columns), groups, title="Standardized coefficients by model",
                                       ylabel="coefficient × column SD", colours=[model_colour(n) for n in names]),
                         "Standardized so columns in different units compare."))
+    parts.append(_ols_inference(session))
+    return "".join(parts)
+
+
+def _ols_inference(session) -> str:
+    """OLS standard errors, classical and (with a group column) cluster-robust, with what they mean."""
+    res, d = session.results, session.design
+    o = getattr(res, "ols", None)
+    if o is None or getattr(o, "std_errors", None) is None:
+        return ""
+    cl = getattr(o, "cluster_std_errors", None)
+    parts = ["<h3>OLS standard errors</h3>"]
+    if cl is not None:
+        parts.append('<p class="answer">' + e(
+            f"Beside the classical standard errors, which take every row as independent, the table gives "
+            f"cluster-robust ones by {d.groups_column} ({o.n_clusters} groups). Rows of one group often share "
+            "influences the columns do not record (the same bed, batch or site), so their errors move together "
+            "and the classical figures claim more certainty than the data hold. Prefer the cluster-robust "
+            "standard errors when rows of a group may resemble each other; with few groups (fewer than about "
+            "30–50, common practice) they are themselves rough.") + "</p>")
+    else:
+        parts.append('<p class="muted">Classical standard errors: every row is taken as independent. When rows '
+                     "come in groups that share influences (the same bed, batch or site), set a group column: "
+                     "the report then adds cluster-robust standard errors by group.</p>")
+    if getattr(o, "inference_note", ""):
+        parts.append(f'<p class="warn">{e(o.inference_note)}</p>')
+    head = ["Column", "Coefficient", "Standard error"] + (["Cluster-robust SE"] if cl is not None else []) + [
+        "t", "p-value"]
+    aside = np.asarray(o.set_aside_mask)
+    rows = [("(intercept)", num(o.intercept), num(o.intercept_se))
+            + ((num(getattr(o, "cluster_intercept_se", float("nan"))),) if cl is not None else ()) + (MISSING, MISSING)]
+    for j, c in enumerate(o.columns):
+        if aside[j]:
+            rows.append((c, ("cls", "zero", "set aside"), MISSING, *([MISSING] if cl is not None else []), MISSING, MISSING))
+            continue
+        rows.append((c, num(o.coef[j]), num(o.std_errors[j]), *([num(cl[j])] if cl is not None else []),
+                     num(o.t_values[j]), num(o.p_values[j])))
+    parts.append(table(head, rows))
+    if cl is not None:
+        parts.append('<p class="muted">Cluster-robust standard errors with the small-sample factor '
+                     "G/(G−1)·(N−1)/(N−K); t and p-values are the classical ones.</p>")
     return "".join(parts)
 
 
