@@ -15,7 +15,7 @@ import math
 import numpy as np
 
 from regbench.formatting import MISSING, number_text, sentence_number as fmt
-from regbench.models.results import model_label
+from regbench.models.results import model_columns, model_label
 
 #: Where a project file keeps its arrays (regbench/project/FORMAT.md).
 _RESULTS_DIR = "results/"
@@ -127,19 +127,25 @@ def fit_summary_text(design, results) -> str:
     models = results.models()
     labels = [model_label(n) for n in names]
     set_aside = {sa.column for sa in results.ols.set_aside}
-    width = max([len("(intercept)")] + [len(c) for c in results.columns]) + 2
+    # Penalized fits weigh every level of a category: their reference levels follow the design's columns.
+    columns = model_columns(results.columns, models.values())
+    width = max([len("(intercept)")] + [len(c) for c in columns]) + 2
     colw = max(12, max(len(l) for l in labels) + 2)
     lines.append("")
-    lines.append("Coefficients in the table's units (– : not used by that model)")
+    lines.append("Coefficients in the table's units (– : not used by that model"
+                 + ("; reference: the level OLS measures the others against" if len(columns) > len(results.columns)
+                    else "") + ")")
     lines.append(" " * (width + 2) + "".join(l.rjust(colw) for l in labels))
     lines.append("  " + "(intercept)".ljust(width) + "".join(_summary_number(models[n].intercept).rjust(colw) for n in names))
-    for j, c in enumerate(results.columns):
+    for c in columns:
         cells = []
         for n in names:
             if n in ("ols", "logistic") and c in set_aside:
                 cells.append("set aside".rjust(colw))
+            elif c not in models[n].columns:
+                cells.append("reference".rjust(colw))
             else:
-                v = float(models[n].coef[j])
+                v = models[n].coefficient(c)
                 cells.append(("–" if v == 0.0 else _summary_number(v)).rjust(colw))
         lines.append("  " + c.ljust(width) + "".join(cells))
     lines.append("  " + "columns used".ljust(width) + "".join(str(int(models[n].used.sum())).rjust(colw) for n in names))

@@ -59,7 +59,11 @@ def test_fit_json_schema(fit_json):
     assert ols["std_errors"]["mean_temp_c"] is None  # NaN for a set-aside column becomes null
     for name in ("ridge", "lasso", "elastic_net"):
         m = d["models"][name]
-        assert set(m) == common | {"alpha", "l1_ratio", "alpha_rule", "path", "cv", "convergence"}
+        assert set(m) == common | {"alpha", "l1_ratio", "alpha_rule", "path", "cv", "convergence", "reference_levels"}
+        # Penalized fits weigh every level of the category: its first level has its own coefficient too.
+        ref = m["reference_levels"]
+        assert len(ref) == 1 and ref[0].startswith("variety=") and ref[0] not in ols["coefficients"]
+        assert set(m["coefficients"]) == set(ols["coefficients"]) | set(ref)
         assert m["convergence"]["converged"] is True and m["convergence"]["max_gap"] <= m["convergence"]["tolerance"]
         assert m["alpha_rule"] == "cv_min" and m["alpha"] == m["cv"]["alpha_min"]
         assert set(m["cv"]) == {"alphas", "mean", "se", "alpha_min", "alpha_1se", "folds", "grouped", "at_edge"}

@@ -126,7 +126,12 @@ def test_sample_fills_every_panel_with_sentences(gh):
         assert panel.sentences.text().strip(), panel.key
     assert gh.errors == []
     coef = gh.panel("coefficients").model
-    assert coef.row_labels == ["(intercept)"] + list(s.design.columns)
+    # Penalized fits weigh every level of the category: its first level gets a row of its own, which OLS
+    # marks as its reference (its intercept carries it).
+    ref = [name for name, _ in s.results.penalized["lasso"].model.reference_levels]
+    assert len(ref) == 1 and ref[0].startswith("variety=")
+    assert coef.row_labels == ["(intercept)"] + list(s.design.columns) + ref
+    assert grid_column(coef, "OLS")[-1] == "reference"
     # The intercept row holds each model's intercept; OLS's with its standard error.
     assert coef.rows[0][coef.headers.index("OLS")] == pytest.approx(s.results.ols.intercept, rel=1e-12)
     assert coef.rows[0][coef.headers.index("OLS SE")] == pytest.approx(s.results.ols.intercept_se, rel=1e-12)
@@ -436,7 +441,8 @@ def test_copy_table_is_tab_separated(gh):
     assert QtWidgets.QApplication.clipboard().text() == text
     lines = text.strip("\n").split("\n")
     assert lines[0].split("\t")[1:4] == ["OLS", "OLS SE", "OLS p"]
-    assert len(lines) == 2 + gh.session.design.p     # header, intercept, one row per design column
+    # Header, intercept, one row per design column and one for the category's reference level.
+    assert len(lines) == 3 + gh.session.design.p
     assert all(len(line.split("\t")) == len(lines[0].split("\t")) for line in lines)
     # Full precision: every number reads back as the very float the table holds.
     model = gh.panel("coefficients").model

@@ -28,6 +28,7 @@ import numpy as np
 
 from regbench.errors import ModelError
 from regbench.models.gram import GramStats, per_fold
+from regbench.models.coding import LevelCoding
 from regbench.models.results import LinearModel
 
 #: What is left of a column, relative to its size, below which a refit from cross-products
@@ -99,11 +100,11 @@ class GroupRefits:
         st = self.stats(counts)
         if not st.W > 0:
             raise ModelError("the rows being fitted have total weight 0; there is nothing to fit")
-        columns = tuple(self.design.columns)
+        coding = LevelCoding.of(self.design)  # every level of a category alike, as in the fit
         out = {"ols": self._ols(st, counts)}
         problem = problem_for(st, self.design, self.settings)  # with the settings' penalty factors
         for name, rho, a, gamma in self.families:
-            out[name] = model_from_problem(problem, name, rho, a, columns, relaxation=gamma)
+            out[name] = coding.label(model_from_problem(problem, name, rho, a, coding.names, relaxation=gamma))
         return out
 
     def _ols(self, st: GramStats, counts) -> LinearModel:

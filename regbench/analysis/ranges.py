@@ -592,6 +592,7 @@ def _assemble(ell, columns, target, centre, best, sd, tau, kind, note, approxima
         imp_low, imp_high = _log_odds_importance(low, high, sd, bounded)
     places = {}
     for name, m in models.items():
+        m = m.on_design(sd)  # a fit on every level of a category, as the same predictor on the design's columns
         coef = np.where(np.isfinite(m.coef), m.coef, 0.0)
         excess = excess_fn(m)
         with np.errstate(divide="ignore", invalid="ignore"):

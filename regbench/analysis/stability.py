@@ -29,7 +29,7 @@ import numpy as np
 from regbench.analysis.agreement import in_sentence, json_number
 from regbench.errors import DataError, ModelError
 from regbench.formatting import join_words
-from regbench.models.results import Result, model_label
+from regbench.models.results import Result, aligned, model_columns, model_label
 from regbench.progress import check, report
 
 #: Selected in at least this share of refits: a stable choice (our threshold).
@@ -169,7 +169,6 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
     rng = np.random.default_rng(seed)
     draws = None
     names = None
-    p = design.p
     flat = 0
     refitter = None
     if by_groups:
@@ -198,44 +197,49 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
             names = tuple(models)
             if getattr(design, "outcome", "numeric") == "binary" and "logistic" not in names:
                 names = ("logistic",) + names
-            draws = {k: np.empty((n_boot, p)) for k in names}
+            # Penalized fits weigh every level of a category: their reference levels follow the design's
+            # columns; a model without such a column (OLS: its intercept carries the level) draws NaN there.
+            cols = model_columns(design.columns, models.values())
+            draws = {k: np.empty((n_boot, len(cols))) for k in names}
         for k in names:
             # A refit whose drawn rows a column separates has no unpenalized logistic estimate.
-            draws[k][b] = models[k].coef if k in models else np.nan
+            draws[k][b] = aligned(models[k], cols, fill=np.nan) if k in models else np.nan
         separated += int(any(k not in models for k in names))
         report(progress, b + 1, n_boot, f"stability refit {b + 1} of {n_boot}")
-    with np.errstate(invalid="ignore"):
+    import warnings
+
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # an all-NaN column (a reference level in OLS)
         selected = {k: np.nanmean(np.where(np.isnan(draws[k]), np.nan, draws[k] != 0.0), axis=0)
                     if np.isnan(draws[k]).any() else np.mean(draws[k] != 0.0, axis=0) for k in names}
     unpen = "logistic" if "logistic" in names else "ols"
     set_aside = 1.0 - np.nan_to_num(selected[unpen], nan=0.0)
+    set_aside[design.p:] = 0.0  # a reference level is never set aside: the intercept carries it
     full = fit_ols(design, settings.pins, settings.rank_tol)
     order_driven = tuple(sa.column for sa in full.set_aside
                          if getattr(sa, "exact", True) and set_aside[design.columns.index(sa.column)] == 1.0)
-    import warnings
-
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # an all-NaN column when every refit separated
         q05 = {k: np.nanquantile(draws[k], 0.05, axis=0) for k in names}
         q95 = {k: np.nanquantile(draws[k], 0.95, axis=0) for k in names}
         mean = {k: np.nanmean(draws[k], axis=0) for k in names}
         sd = {k: np.nanstd(draws[k], axis=0, ddof=1) for k in names}
-    sentences = _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, full, order_driven)
+    sentences = _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, full, order_driven, cols)
     if separated:
         sentences.append(f"In {separated} of the {n_boot} refits a column or combination separated the outcome, so "
                          "the unpenalized logistic model had no estimate there; its frequencies use the other refits.")
     if flat:
         sentences.append(f"{flat} of the {n_boot} refits drew rows whose {design.target} is the same everywhere; "
                          "every coefficient is 0 there, which lowers the frequencies above. Use more rows or groups.")
-    return Stability(columns=tuple(design.columns), models=names, n_boot=n_boot, seed=int(seed),
+    return Stability(columns=tuple(cols), models=names, n_boot=n_boot, seed=int(seed),
                      grouped=design.groups is not None, alphas={k: float(v) for k, v in alphas.items()},
                      set_aside_freq=set_aside, selected_freq=selected, coef_mean=mean, coef_sd=sd,
                      coef_q05=q05, coef_q95=q95, coef_draws=draws, order_driven=order_driven,
                      sentences=tuple(sentences), n_flat=flat)
 
 
-def _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, full, order_driven) -> list:
-    cols = design.columns
+def _sentences(design, settings, names, n_boot, set_aside, selected, q05, q95, full, order_driven, cols=None) -> list:
+    cols = tuple(design.columns if cols is None else cols)
     out = []
     unit = f"{n_boot} {'grouped ' if design.groups is not None else ''}bootstrap refits"
     if design.groups is not None:

@@ -427,7 +427,9 @@ def _shift(design, clean: np.ndarray, damaged: np.ndarray, tol: float, uses: boo
 
 
 def _uses(model, idx) -> bool:
-    return bool(np.any(model.coef[idx] != 0.0))
+    # On the design's columns: a fit on every level of a category uses it when any level, the reference
+    # level included, has a coefficient.
+    return bool(np.any(model.design_coefficients()[1][idx] != 0.0))
 
 
 def run_stress(design, models: dict, config: StressConfig, threshold: Optional[float] = None) -> StressResult:
@@ -547,7 +549,8 @@ def _stress_sentences(design, config, strength, tol, names, shifts, refit: bool)
 
 def _delta_predictions(model, idx, block_clean, block_damaged, clean_pred):
     """Damaged predictions from the clean ones: only the model's used columns among ``idx`` enter."""
-    used = idx[model.coef[idx] != 0.0]
+    coef = model.design_coefficients()[1]  # the same predictor on the design's columns
+    used = idx[coef[idx] != 0.0]
     if used.size == 0:
         return clean_pred
     sel = np.isin(idx, used)
@@ -559,7 +562,7 @@ def _delta_predictions(model, idx, block_clean, block_damaged, clean_pred):
             eta = logit(clean_pred) + ((block_damaged[:, sel] - block_clean[:, sel]) * model.coef[used]).sum(axis=1)
         return expit(eta)
     # A few columns: element-wise beats a threaded BLAS call on a busy machine.
-    return clean_pred + ((block_damaged[:, sel] - block_clean[:, sel]) * model.coef[used]).sum(axis=1)
+    return clean_pred + ((block_damaged[:, sel] - block_clean[:, sel]) * coef[used]).sum(axis=1)
 
 
 def stress_sweep(design, models: dict, column: str, kind: str, strengths=None, seed: int = 0,

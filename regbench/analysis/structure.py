@@ -21,7 +21,7 @@ import numpy as np
 
 from regbench.analysis.agreement import in_sentence
 from regbench.formatting import join_words
-from regbench.models.results import Result, model_label
+from regbench.models.results import Result, aligned, model_columns, model_label
 
 _NUMBER_WORDS = {2: "two", 3: "three", 4: "four", 5: "five", 6: "six", 7: "seven", 8: "eight", 9: "nine", 10: "ten"}
 
@@ -182,11 +182,16 @@ def compare_structure(design, results, models: dict) -> Structure:
     Structure
     """
     names = tuple(models)
-    columns = tuple(design.columns)
-    coef = np.array([np.asarray(models[k].coef, float) for k in names]).reshape(len(names), len(columns))
-    coef_std = np.array([np.asarray(models[k].coef_std, float) for k in names]).reshape(len(names), len(columns))
+    # The design's columns, then the reference levels the penalized fits weigh like any level
+    # (a model without such a column, OLS, carries 0 there: its intercept holds that level).
+    columns = model_columns(design.columns, models.values())
+    coef = np.array([aligned(models[k], columns) for k in names]).reshape(len(names), len(columns))
+    coef_std = np.array([aligned(models[k], columns, standardized=True) for k in names]).reshape(
+        len(names), len(columns))
     intercepts = np.array([float(models[k].intercept) for k in names])
     used = coef != 0.0
+    carried = np.array([[c in set(models[k].columns or design.columns) for c in columns]
+                        for k in names]).reshape(used.shape)
 
     flips = []
     for j, c in enumerate(columns):
@@ -213,7 +218,13 @@ def compare_structure(design, results, models: dict) -> Structure:
     alias_sets = [make(g, "Within the near-exact dependency" if inexact & set(g) else "Within the exact dependency")
                   for g in collinear_groups(columns, alias_links) if g not in merged]
 
-    sentences = [_usage_sentence(names, columns, used, ols_aside)]
+    sentences = [_usage_sentence(names, columns, used, ols_aside, carried)]
+    extra = columns[len(design.columns):]
+    if extra:
+        sentences.append(f"The penalized fits give every level of a category its own coefficient, so they also "
+                         f"weigh {join_words(extra)}, the level{'s' if len(extra) > 1 else ''} OLS measures the "
+                         "others against (its intercept carries "
+                         f"{'them' if len(extra) > 1 else 'it'}).")
     sentences.extend(s.sentence for s in alias_sets)
     sentences.extend(s.sentence for s in sets)
     if flips:
@@ -225,10 +236,10 @@ def compare_structure(design, results, models: dict) -> Structure:
                      sentences=tuple(sentences))
 
 
-def _usage_sentence(names, columns, used, ols_aside) -> str:
-    p = len(columns)
+def _usage_sentence(names, columns, used, ols_aside, carried=None) -> str:
     parts = []
     for i, k in enumerate(names):
+        p = len(columns) if carried is None else int(carried[i].sum())
         u = int(used[i].sum())
         label = model_label(k) if i == 0 else in_sentence(model_label(k))
         what = f"all {p}" if u == p else f"{u} of {p}"

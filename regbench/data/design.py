@@ -1,7 +1,9 @@
 """Column roles and the design matrix the engine fits.
 
 Categorical predictors are one-hot coded against their first level in sorted
-order, one column per other level, named ``COLUMN=LEVEL``.  Rows that cannot be
+order, one column per other level, named ``COLUMN=LEVEL`` (reference coding, which
+OLS fits; the penalized families add the first level's indicator, see
+:mod:`regbench.models.coding`).  Rows that cannot be
 used are excluded and reported one by one; predictors that cannot be used
 (constant, all missing) are set aside before fitting, each with a reason.
 """
@@ -187,6 +189,10 @@ class Design:
     #: For 'binary': the two target values as text, ("no" level, "yes" level).
     levels: tuple = ()
     no_count_column: Optional[str] = None
+    #: For each category: (table column, its reference level's text, the design columns of its
+    #: other levels).  OLS fits the design as coded; the penalized families add each reference
+    #: level's indicator and weigh every level alike (regbench.models.coding).
+    reference_levels: tuple = ()
 
     @property
     def positive_level(self) -> Optional[str]:
@@ -465,6 +471,7 @@ def build_design(table: Table, roles: Roles) -> Design:
         )
 
     names, sources, mats = [], [], []
+    references = []
     for kind, col, raw in blocks:
         if kind == "num":
             x = raw[rows]
@@ -486,10 +493,14 @@ def build_design(table: Table, roles: Roles) -> Design:
                 names.append(f"{col}={lev}")
                 sources.append(col)
                 mats.append((texts == lev).astype(float)[:, None])
+            references.append((col, levels[0], tuple(f"{col}={lev}" for lev in levels[1:])))
     if not mats:
         reasons_txt = "; ".join(f"{u.column}: {u.reason}" for u in unusable)
         raise DataError(f"{src}: no usable predictor remains ({reasons_txt}); choose other predictors")
-    _check_unique_names(names, sources, src)
+    # A reference level's indicator (penalized fits) is named like the others and must not
+    # collide with a column either.
+    _check_unique_names(names + [f"{c}={lev}" for c, lev, _ in references],
+                        sources + [c for c, _, _ in references], src)
     X = np.hstack(mats)
     # As many columns as rows or more (a wide table) is allowed: OLS keeps a largest
     # independent set and says which columns it set aside for want of rows; the penalized
@@ -523,6 +534,7 @@ def build_design(table: Table, roles: Roles) -> Design:
         outcome=outcome,
         levels=tuple(outcome_levels),
         no_count_column=roles.no_count,
+        reference_levels=tuple(references),
     )
 
 

@@ -20,6 +20,7 @@ import numpy as np
 
 from regbench.errors import ModelError
 from regbench.models import cv as cvmod
+from regbench.models.coding import LevelCoding
 from regbench.models.gram import GramStats, gram_stats, per_fold
 from regbench.models import spec
 from regbench.models.penalized import (GAP_TOL, Problem, alpha_grid, duality_gaps, factor_evals, factor_scores,
@@ -65,8 +66,13 @@ def design_factors(design, settings: FitSettings):
 
 
 def problem_for(stats: GramStats, design, settings: FitSettings) -> Problem:
-    """The standardized problem of ``stats`` with the settings' penalty factors on ``design``'s columns."""
-    return Problem.from_stats(stats, design_factors(design, settings))
+    """The standardized penalized problem of ``stats`` on ``design``'s columns.
+
+    Every level of a category gets its own indicator (the reference levels are appended,
+    see :mod:`regbench.models.coding`), and the settings' penalty factors apply.
+    """
+    coding = LevelCoding.of(design)
+    return Problem.from_stats(coding.augment(stats), coding.factors(design_factors(design, settings)))
 
 
 _problem = problem_for
@@ -183,7 +189,8 @@ def _family(design, settings, problem, train, folds, name, rho, grouped, cancel,
     # problem the factors turn ridge into.
     grid = alpha_grid(factor_scores(problem), rho, int(settings.n_penalties), float(settings.penalty_ratio),
                       evals=factor_evals(problem))
-    path = fit_path(None, name, rho, grid, design.columns, problem=problem)
+    coding = LevelCoding.of(design)
+    path = coding.path(fit_path(None, name, rho, grid, coding.names, problem=problem))
     path_gaps = duality_gaps(problem, path.coef_std, grid, rho)
     fold_gaps = np.empty(len(folds))
     errors = np.empty((len(folds), grid.size))
@@ -193,7 +200,7 @@ def _family(design, settings, problem, train, folds, name, rho, grouped, cancel,
         if keep is not None:
             keep.setdefault(name, []).append(beta_k)
         fold_gaps[k] = float(np.max(duality_gaps(tp, beta_k, grid, rho), initial=0.0))
-        coef, b0 = tp.to_original(beta_k)
+        coef, b0 = coding.to_design(*tp.to_original(beta_k))
         errors[k] = cvmod.heldout_mse(f, coef, b0)
     cvres = cvmod.summarize(grid, errors, grouped)
     if settings.alpha is not None:
@@ -202,7 +209,7 @@ def _family(design, settings, problem, train, folds, name, rho, grouped, cancel,
     else:
         rule = settings.alpha_rule
         alpha = cvres.alpha_min if rule == "cv_min" else cvres.alpha_1se
-    model = _model_on_path(problem, path, name, rho, alpha, design.columns, path_gaps)
+    model = coding.label(_model_on_path(problem, path, name, rho, alpha, coding.names, path_gaps))
     conv = certificate(path_gaps, model.gap, fold_gaps)
     return PenalizedFit(name=name, l1_ratio=rho, path=path, cv=cvres, alpha=alpha, alpha_rule=rule, model=model,
                         convergence=conv)
@@ -221,12 +228,13 @@ def _relaxed_family(design, settings, problem, train, folds, name, base: Penaliz
     rho = float(base.l1_ratio)
     gammas = (float(settings.relaxation),) if settings.relaxation is not None else RELAXATION_GRID
     errors = np.empty((len(folds), len(gammas), grid.size))
+    coding = LevelCoding.of(design)
     for k, (tp, f) in enumerate(zip(train, folds)):
         check(cancel)
         bp = base_folds[k]
         br = refit_selected(tp, bp)
         for g, gamma in enumerate(gammas):
-            coef, b0 = tp.to_original(blend(bp, br, gamma))
+            coef, b0 = coding.to_design(*tp.to_original(blend(bp, br, gamma)))
             errors[k, g] = cvmod.heldout_mse(f, coef, b0)
     cvs = [cvmod.summarize(grid, errors[:, g], grouped) for g in range(len(gammas))]
     mean = np.stack([c.mean for c in cvs])
@@ -242,17 +250,18 @@ def _relaxed_family(design, settings, problem, train, folds, name, base: Penaliz
     gamma = float(gammas[g])
     beta_path = blend(base.path.coef_std, refit_selected(problem, base.path.coef_std), gamma)
     coef, intercepts = problem.to_original(beta_path)
-    path = PathResult(name=name, l1_ratio=rho, alphas=grid.copy(), coef=coef, coef_std=beta_path,
-                      intercepts=np.asarray(intercepts, dtype=float), columns=tuple(design.columns))
+    path = coding.path(PathResult(name=name, l1_ratio=rho, alphas=grid.copy(), coef=coef, coef_std=beta_path,
+                                  intercepts=np.asarray(intercepts, dtype=float), columns=coding.names))
     bm = base.model
     if bm.alpha == alpha:
         beta = blend(bm.coef_std, refit_selected(problem, bm.coef_std), gamma)
         c, b0 = problem.to_original(beta)
-        model = LinearModel(name=name, columns=tuple(design.columns), intercept=float(b0), coef=c, coef_std=beta,
+        model = LinearModel(name=name, columns=coding.names, intercept=float(b0), coef=c, coef_std=beta,
                             alpha=alpha, l1_ratio=rho, gap=bm.gap, converged=bm.converged, relaxation=gamma)
     else:
-        model = model_from_problem(problem, name, rho, alpha, design.columns, coef_init=bm.coef_std,
+        model = model_from_problem(problem, name, rho, alpha, coding.names, coef_init=bm.coef_std,
                                    relaxation=gamma)
+    model = coding.label(model)
     # The penalized fits behind the path and the folds are the base family's: so is the certificate,
     # with the chosen fit's own gap when it was solved here.
     conv = base.convergence
@@ -311,13 +320,14 @@ def model_at(design, results: FitResults, name: str, alpha: float) -> LinearMode
     stats = results.gram if isinstance(results.gram, GramStats) else gram_stats(design.X, design.y, design.weights)
     problem = _problem(stats, design, results.settings)
     check_alpha(problem, float(alpha), name)
+    coding = LevelCoding.of(design)
     init = None
     pf = results.penalized.get(base_of(name) or name)
     if pf is not None and rho > 0:
         i = int(np.argmin(np.abs(np.log(pf.path.alphas) - np.log(alpha))))
-        init = pf.path.coef_std[i]
-    return model_from_problem(problem, name, rho, float(alpha), design.columns, coef_init=init,
-                              relaxation=_relaxation_of(results, name))
+        init = coding.init(pf.path.coef_std[i])
+    return coding.label(model_from_problem(problem, name, rho, float(alpha), coding.names, coef_init=init,
+                                           relaxation=_relaxation_of(results, name)))
 
 
 def _relaxation_of(results: FitResults, name: str):
@@ -358,6 +368,7 @@ def heldout_predictions(design, results: FitResults, models: dict) -> dict:
     full, folds = per_fold(design.X, design.y, design.weights, ids, K)
     train_stats = [_training(full, f, k) for k, f in enumerate(folds)]
     problems = [None] * K
+    coding = LevelCoding.of(design)
     rows = [np.flatnonzero(ids == k) for k in range(K)]
     out = {}
     for name, m in models.items():
@@ -369,8 +380,8 @@ def heldout_predictions(design, results: FitResults, models: dict) -> dict:
                 if problems[k] is None:
                     problems[k] = _problem(train_stats[k], design, results.settings)
                 rho = float(m.l1_ratio) if m.l1_ratio is not None else _l1_ratio_of(results, name)
-                fm = model_from_problem(problems[k], name, rho, float(m.alpha), design.columns, coef_init=m.coef_std,
-                                        relaxation=m.relaxation)
+                fm = coding.label(model_from_problem(problems[k], name, rho, float(m.alpha), coding.names,
+                                                     coef_init=coding.init(m.coef_std), relaxation=m.relaxation))
             pred[rows[k]] = fm.predict(design.X[rows[k]])
         out[name] = pred
     return out
@@ -460,11 +471,12 @@ def fit_models_at(design, settings: FitSettings, alphas: Optional[dict] = None,
         return _models_at_binary(design, settings, alphas)
     out = {"ols": _ols(design, settings).model}
     problem = _problem(gram_stats(design.X, design.y, design.weights), design, settings)
+    coding = LevelCoding.of(design)
     for name, rho in families(settings):
         a = alpha_for(name, alphas, settings)
         check_alpha(problem, float(a), name)
-        out[name] = model_from_problem(problem, name, rho, float(a), design.columns,
-                                       relaxation=relaxation_for(settings, name, relaxations))
+        out[name] = coding.label(model_from_problem(problem, name, rho, float(a), coding.names,
+                                                    relaxation=relaxation_for(settings, name, relaxations)))
     return out
 
 

@@ -120,16 +120,20 @@ def _ols_json(results) -> dict:
 
 def _penalized_json(pf, columns) -> dict:
     m = pf.model
+    # A penalized fit weighs every level of a category alike: its columns are the design's and,
+    # after them, each category's reference level (named COLUMN=LEVEL like the others).
+    columns = tuple(m.columns)
     out = {
         "intercept": _num(m.intercept),
         "coefficients": _by_column(columns, m.coef),
         "coefficients_standardized": _by_column(columns, m.coef_std),
+        "reference_levels": [name for name, _ in getattr(m, "reference_levels", ())],
         "alpha": _num(pf.alpha),
         "l1_ratio": _num(pf.l1_ratio),
         "alpha_rule": pf.alpha_rule,
         "path": {
             "alphas": [_num(a) for a in pf.path.alphas],
-            "coefficients": {c: [_num(v) for v in pf.path.coef[:, j]] for j, c in enumerate(columns)},
+            "coefficients": {c: [_num(v) for v in pf.path.coef[:, j]] for j, c in enumerate(pf.path.columns)},
         },
         "cv": None,
         "convergence": None if pf.convergence is None else pf.convergence.to_dict(),

@@ -41,6 +41,7 @@ import numpy as np
 
 from regbench.errors import ModelError
 from regbench.models import cv as cvmod
+from regbench.models.coding import LevelCoding
 from regbench.models.penalized import MIN_GRID_RATIO, Problem, alpha_grid, solve_beta
 from regbench.models.results import (
     CVResult, FitResults, FitSettings, LinearModel, LogisticResult, PathResult, PenalizedFit, Separation,
@@ -457,13 +458,18 @@ def separation_sentence(kind, combination, intercept, exact, rows, levels) -> st
 # --- penalized families -------------------------------------------------------------------
 
 def family_fit(design, settings: FitSettings, ids, name, rho, grouped, cancel=None) -> PenalizedFit:
-    """One penalized logistic family: path on every row, (grouped) CV on held-out log-loss, the chosen α."""
-    X, y, w = design.X, design.y, design.weights
+    """One penalized logistic family: path on every row, (grouped) CV on held-out log-loss, the chosen α.
+
+    Like the least-squares families, it fits one indicator per level of each category
+    (:mod:`regbench.models.coding`), so no level is privileged by its name.
+    """
+    coding = LevelCoding.of(design)
+    X, y, w = coding.expand(design.X), design.y, design.weights
     rows = _Rows(X, y, w)
     grid = logistic_grid(rows, rho, int(settings.n_penalties), float(settings.penalty_ratio))
     coef, icpt, beta, _ = path_on_rows(X, y, w, grid, rho, cancel=cancel)
-    path = PathResult(name=name, l1_ratio=float(rho), alphas=grid.copy(), coef=coef, coef_std=beta,
-                      intercepts=icpt, columns=tuple(design.columns))
+    path = coding.path(PathResult(name=name, l1_ratio=float(rho), alphas=grid.copy(), coef=coef, coef_std=beta,
+                                  intercepts=icpt, columns=coding.names))
     K = int(ids.max()) + 1
     errors = np.empty((K, grid.size))
     for k in range(K):
@@ -482,8 +488,9 @@ def family_fit(design, settings: FitSettings, ids, name, rho, grouped, cancel=No
     hit = np.flatnonzero(grid == alpha)
     if hit.size:
         i = int(hit[0])
-        model = LinearModel(name=name, columns=tuple(design.columns), intercept=float(icpt[i]), coef=coef[i].copy(),
-                            coef_std=beta[i].copy(), alpha=float(alpha), l1_ratio=float(rho), outcome="binary")
+        model = coding.label(LinearModel(name=name, columns=coding.names, intercept=float(icpt[i]),
+                                         coef=coef[i].copy(), coef_std=beta[i].copy(), alpha=float(alpha),
+                                         l1_ratio=float(rho), outcome="binary"))
     else:
         model = model_at_alpha(design, name, rho, alpha)
     return PenalizedFit(name=name, l1_ratio=float(rho), path=path, cv=cvres, alpha=float(alpha), alpha_rule=rule,
@@ -491,8 +498,9 @@ def family_fit(design, settings: FitSettings, ids, name, rho, grouped, cancel=No
 
 
 def model_at_alpha(design, name, rho, alpha, rows_mask=None, init=None) -> LinearModel:
-    """The exact penalized logistic fit at one α (on ``rows_mask`` of the design when given)."""
-    X, y, w = design.X, design.y, design.weights
+    """The exact penalized logistic fit at one α (on ``rows_mask`` of the design when given), on every level."""
+    coding = LevelCoding.of(design)
+    X, y, w = coding.expand(design.X), design.y, design.weights
     if rows_mask is not None:
         X, y, w = X[rows_mask], y[rows_mask], w[rows_mask]
     rows = _Rows(X, y, w)
@@ -506,8 +514,8 @@ def model_at_alpha(design, name, rho, alpha, rows_mask=None, init=None) -> Linea
         beta, b0, _, _ = _newton(rows, float(a), rho, beta, b0, PATH_TOL)
     beta, b0, _, _ = _newton(rows, float(alpha), rho, beta, b0, TOL)
     coef, icpt, beta_full = rows.to_original(beta, b0)
-    return LinearModel(name=name, columns=tuple(design.columns), intercept=icpt, coef=coef, coef_std=beta_full,
-                       alpha=float(alpha), l1_ratio=float(rho), outcome="binary")
+    return coding.label(LinearModel(name=name, columns=coding.names, intercept=icpt, coef=coef, coef_std=beta_full,
+                                    alpha=float(alpha), l1_ratio=float(rho), outcome="binary"))
 
 
 def kkt_violation(X, y, w, model: LinearModel) -> float:
@@ -516,6 +524,7 @@ def kkt_violation(X, y, w, model: LinearModel) -> float:
     With ``g = x̃ᵀ(w(y − p))/W − α(1−ρ)β``: ``|g_j| ≤ αρ`` where β_j = 0, ``g_j = αρ·sign(β_j)``
     where β_j ≠ 0, and ``Σ w(y − p) = 0`` for the free intercept.
     """
+    X = model.expand(X)  # a fit on every level of a category reads its reference levels off the design
     rows = _Rows(X, y, w)
     p = model.predict(X)
     r = rows.wn * (y - p)

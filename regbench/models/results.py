@@ -15,7 +15,7 @@ SD and W = sum_i w_i; rho = 0 is ridge, rho = 1 lasso, in between elastic net.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field, fields, replace
 from typing import TYPE_CHECKING, Dict, Optional, Tuple
 
 import numpy as np
@@ -81,6 +81,42 @@ OUTCOMES = ("numeric", "binary")
 ALPHA_RULES = ("fixed", "cv_min", "cv_1se")
 
 
+def to_design_coding(coef, intercept, p: int, sibling_idx):
+    """Coefficients (…, p+m) on all levels → (coefficients (…, p), intercepts) in reference coding.
+
+    ``sibling_idx[g]`` are the design positions of the other levels of the category whose
+    reference level is column ``p + g`` (see :mod:`regbench.models.coding`).
+    """
+    coef = np.asarray(coef, dtype=float)
+    out = coef[..., :p].copy()
+    b0 = np.array(intercept, dtype=float, copy=True)
+    for g, idx in enumerate(sibling_idx):
+        ref = coef[..., p + g]
+        if idx:
+            out[..., list(idx)] -= ref[..., None]
+        b0 = b0 + ref
+    return out, (float(b0) if np.ndim(b0) == 0 else b0)
+
+
+def model_columns(columns, models) -> tuple:
+    """The design's ``columns`` followed by every reference level a model of ``models`` carries
+    (penalized fits weigh every level of a category alike), each once, in order of appearance."""
+    out = list(columns)
+    for m in models:
+        for c in getattr(m, "columns", ())[len(columns):]:
+            if c not in out:
+                out.append(c)
+    return tuple(out)
+
+
+def aligned(model, columns, standardized: bool = False, fill: float = 0.0) -> np.ndarray:
+    """``model``'s coefficients laid out over ``columns`` (``fill`` where it carries no such column)."""
+    vals = np.asarray(model.coef_std if standardized else model.coef, dtype=float)
+    # A model that does not name its columns is laid out like the first of ``columns``.
+    own = {c: j for j, c in enumerate(model.columns or tuple(columns)[:vals.shape[0]])}
+    return np.array([vals[own[c]] if c in own else fill for c in columns], dtype=float)
+
+
 def model_label(name: str) -> str:
     """Human label for a model key ('elastic_net_0.8' -> 'Elastic net (L1 ratio 0.8)')."""
     if name in MODEL_LABELS:
@@ -126,11 +162,63 @@ class LinearModel(Result):
     #: 'numeric' (predictions on the target's scale) or 'binary' (predictions are
     #: probabilities of "yes": the inverse logit of the linear predictor).
     outcome: str = "numeric"
+    #: A penalized model fitted on every level of its categories (see
+    #: :mod:`regbench.models.coding`): for each category's reference level, which is one of the
+    #: last columns of ``columns``, its name and the design columns of the category's other
+    #: levels (the reference indicator is 1 minus their sum).  Empty for a model on the
+    #: design's own columns.
+    reference_levels: Tuple[Tuple[str, Tuple[str, ...]], ...] = ()
 
     @property
     def used(self) -> np.ndarray:
         """Boolean mask of the columns with a non-zero coefficient."""
         return self.coef != 0.0
+
+    @property
+    def n_design(self) -> int:
+        """How many of ``columns`` are design columns (the rest are reference levels)."""
+        return len(self.columns) - len(self.reference_levels)
+
+    def design_coefficients(self):
+        """(intercept, coef over the design's columns) of the same predictor.
+
+        A model on all levels is rewritten in the design's reference coding (each level's
+        coefficient minus its reference level's, the reference level's added to the
+        intercept), which predicts the same on every row; any other model as it is.
+        """
+        if not self.reference_levels:
+            return float(self.intercept), np.asarray(self.coef, dtype=float)
+        p = self.n_design
+        idx = [tuple(self.columns.index(c) for c in sibs) for _, sibs in self.reference_levels]
+        coef, b0 = to_design_coding(self.coef, self.intercept, p, idx)
+        return float(b0), coef
+
+    def expand(self, X: np.ndarray) -> np.ndarray:
+        """Rows of design columns → rows of this model's columns (each reference level is 1 minus its siblings)."""
+        X = np.asarray(X, dtype=np.float64)
+        if not self.reference_levels or X.shape[-1] != self.n_design:
+            return X
+        extra = [1.0 - X[:, [self.columns.index(c) for c in sibs]].sum(axis=1) for _, sibs in self.reference_levels]
+        return np.column_stack([X, *extra])
+
+    def on_design(self, sd) -> "LinearModel":
+        """The same predictor on the design's columns (itself unless fitted on all levels).
+
+        ``sd`` (p,) are the design columns' weighted SDs, for the standardized coefficients.
+        """
+        if not self.reference_levels:
+            return self
+        b0, coef = self.design_coefficients()
+        return replace(self, columns=self.columns[:self.n_design], intercept=b0, coef=coef,
+                       coef_std=coef * np.asarray(sd, dtype=float), reference_levels=())
+
+    def coefficient(self, column: str, standardized: bool = False) -> float:
+        """The coefficient of ``column`` (0.0 for a column this model does not carry)."""
+        try:
+            j = self.columns.index(column)
+        except ValueError:
+            return 0.0
+        return float((self.coef_std if standardized else self.coef)[j])
 
     def predict(self, X: np.ndarray) -> np.ndarray:
         """Predictions for rows of design columns.
@@ -146,12 +234,19 @@ class LinearModel(Result):
         return eta
 
     def linear_predictor(self, X: np.ndarray) -> np.ndarray:
-        """``intercept + X @ coef`` (for a yes/no outcome: the log-odds of "yes")."""
-        used = np.flatnonzero(self.used)
+        """``intercept + X @ coef`` (for a yes/no outcome: the log-odds of "yes").
+
+        ``X`` holds the design's columns; a model on all levels of its categories reads
+        each reference level off the design's indicators (see :meth:`design_coefficients`).
+        """
         X = np.asarray(X, dtype=np.float64)
+        intercept, coef = self.intercept, np.asarray(self.coef)
+        if self.reference_levels and X.shape[-1] == self.n_design:
+            intercept, coef = self.design_coefficients()
+        used = np.flatnonzero(coef != 0.0)
         if used.size == 0:
-            return np.full(X.shape[0], self.intercept)
-        return self.intercept + X[:, used] @ self.coef[used]
+            return np.full(X.shape[0], intercept)
+        return intercept + X[:, used] @ coef[used]
 
 
 @dataclass(frozen=True, eq=False)
@@ -321,6 +416,8 @@ class PathResult(Result):
     coef_std: np.ndarray  # (k, p) standardized
     intercepts: np.ndarray  # (k,)
     columns: Tuple[str, ...]
+    #: As :attr:`LinearModel.reference_levels`: a path on every level of its categories.
+    reference_levels: Tuple[Tuple[str, Tuple[str, ...]], ...] = ()
 
 
 @dataclass(frozen=True, eq=False)

@@ -20,8 +20,10 @@ from regbench.analysis.stability import Stability
 from regbench.analysis.stress import ModelShift, StressResult, StressSweep
 from regbench.analysis.structure import Structure
 from regbench.errors import ProjectError
+from regbench.models.coding import LevelCoding
 from regbench.models.results import (CVResult, Diagnostics, FitResults, FitSettings, LinearModel, NearDependency,
-                                     LogisticResult, OLSResult, PathResult, PenalizedFit, Separation, SetAside)
+                                     LogisticResult, OLSResult, PathResult, PenalizedFit, Separation, SetAside,
+                                     model_columns)
 
 # Errors the checks themselves can hit on damaged objects.
 _DAMAGE = (TypeError, ValueError, AttributeError, KeyError, IndexError, OverflowError)
@@ -66,9 +68,9 @@ def check_fit(results, design) -> None:
 
     def model(m, where):
         _need(isinstance(m, LinearModel), f"{where} is not a model")
-        _need(isinstance(m.name, str) and m.columns == results.columns, f"{where}.columns differ from the design")
-        _array(m.coef, (p,), f"{where}.coef")
-        _array(m.coef_std, (p,), f"{where}.coef_std")
+        _need(isinstance(m.name, str) and _model_columns_ok(m, design), f"{where}.columns differ from the design")
+        _array(m.coef, (len(m.columns),), f"{where}.coef")
+        _array(m.coef_std, (len(m.columns),), f"{where}.coef_std")
         _need(isinstance(m.intercept, float), f"{where}.intercept is not a number")
 
     ols = results.ols
@@ -127,12 +129,13 @@ def check_fit(results, design) -> None:
         model(pf.model, f"{where}.model")
         _need(isinstance(pf.alpha, float) and pf.alpha > 0 and isinstance(pf.alpha_rule, str), f"{where}.alpha")
         path = pf.path
-        _need(isinstance(path, PathResult) and path.columns == results.columns, f"{where}.path is damaged")
+        _need(isinstance(path, PathResult) and path.columns == pf.model.columns
+              and path.reference_levels == pf.model.reference_levels, f"{where}.path is damaged")
         _need(isinstance(path.alphas, np.ndarray) and path.alphas.ndim == 1 and path.alphas.size >= 1
               and bool(np.all(path.alphas > 0)), f"{where}.path.alphas must be positive numbers")
         kk = path.alphas.shape[0]
-        _array(path.coef, (kk, p), f"{where}.path.coef")
-        _array(path.coef_std, (kk, p), f"{where}.path.coef_std")
+        _array(path.coef, (kk, len(path.columns)), f"{where}.path.coef")
+        _array(path.coef_std, (kk, len(path.columns)), f"{where}.path.coef_std")
         _array(path.intercepts, (kk,), f"{where}.path.intercepts")
         if pf.cv is not None:
             cv = pf.cv
@@ -148,9 +151,10 @@ def check_derived(derived: dict, design, n_stress: int) -> None:
     models = derived.get("models")
     _need(isinstance(models, dict) and models, "derived.models must name the models")
     for name, m in models.items():
-        _need(isinstance(name, str) and isinstance(m, LinearModel), f"derived.models[{name!r}] is not a model")
-        _array(m.coef, (p,), f"derived.models[{name!r}].coef")
-        _array(m.coef_std, (p,), f"derived.models[{name!r}].coef_std")
+        _need(isinstance(name, str) and isinstance(m, LinearModel) and _model_columns_ok(m, design),
+              f"derived.models[{name!r}] is not a model of this design")
+        _array(m.coef, (len(m.columns),), f"derived.models[{name!r}].coef")
+        _array(m.coef_std, (len(m.columns),), f"derived.models[{name!r}].coef_std")
         _need(isinstance(m.intercept, float), f"derived.models[{name!r}].intercept")
     names = tuple(models)
     held = derived.get("heldout")
@@ -165,11 +169,12 @@ def check_derived(derived: dict, design, n_stress: int) -> None:
           and all(isinstance(v, dict) for v in ag.own_error.values()), "derived.agreement.own_error is damaged")
     json.dumps(ag.to_dict())
     st = derived.get("structure")
-    _need(isinstance(st, Structure) and st.models == names and st.columns == tuple(design.columns),
+    _need(isinstance(st, Structure) and st.models == names
+          and st.columns == model_columns(design.columns, models.values()),
           "derived.structure does not match the models")
     for arr in ("coef", "coef_std"):
-        _array(getattr(st, arr), (len(names), p), f"derived.structure.{arr}")
-    _array(st.used, (len(names), p), "derived.structure.used", "b")
+        _array(getattr(st, arr), (len(names), len(st.columns)), f"derived.structure.{arr}")
+    _array(st.used, (len(names), len(st.columns)), "derived.structure.used", "b")
     json.dumps(st.to_dict())
     stress, sweeps = derived.get("stress"), derived.get("sweeps")
     _need(isinstance(stress, tuple) and len(stress) == n_stress, "derived.stress does not match the stress tests")
@@ -228,8 +233,10 @@ def _check_ranges(rg, design, names) -> None:
 
 
 def check_stability(st, design) -> None:
-    p = design.p
-    _need(isinstance(st, Stability) and st.columns == tuple(design.columns), "stability does not match the design")
+    # The design's columns, then (penalized fits on every level) the categories' reference levels.
+    _need(isinstance(st, Stability) and st.columns in (tuple(design.columns), LevelCoding.of(design).names),
+          "stability does not match the design")
+    p = len(st.columns)
     _names(st.models, "stability.models")
     _array(st.set_aside_freq, (p,), "stability.set_aside_freq")
     for field in ("selected_freq", "coef_mean", "coef_sd", "coef_q05", "coef_q95"):
@@ -254,6 +261,14 @@ def check_stability(st, design) -> None:
     _need(isinstance(st.sentences, tuple) and all(isinstance(s, str) for s in st.sentences),
           "stability.sentences must be text")
     json.dumps(st.to_dict())
+
+
+def _model_columns_ok(m, design) -> bool:
+    """A model names the design's columns, or (fitted on every level) those and its reference levels."""
+    if m.columns == tuple(design.columns) and not m.reference_levels:
+        return True
+    coding = LevelCoding.of(design)
+    return m.columns == coding.names and m.reference_levels == coding.reference_levels
 
 
 def guarded(label: str, check, *args) -> None:

@@ -15,8 +15,9 @@ from html import escape
 import numpy as np
 
 from regbench import __version__
-from regbench.formatting import MISSING, number_text, percent
-from regbench.models.results import model_label
+from regbench.formatting import MISSING, join_words, number_text, percent
+from regbench.models.coding import design_sd
+from regbench.models.results import aligned, model_columns, model_label
 from regbench.palette import model_colour
 from regbench.report import svg
 
@@ -172,7 +173,8 @@ def _question(session) -> str:
              f'{"is" if len(d.excluded) == 1 else "are"} left out (listed below).</p>']
     info = [("Table", session.table.source or "(in memory)"), ("Target", d.target),
             ("Predictors", ", ".join(preds)), ("Design columns", f"{d.p} (categories coded one column per level "
-                                                                   "beside the first)"),
+                                                                   "beside the first; the penalized fits add the "
+                                                                   "first level and weigh every level alike)"),
             ("Categorical marks", ", ".join(r.categorical) or "none"),
             ("Row weights", ("none (every row counts once)" if not r.weights else
                              f"{r.weights}: counts (a row stands for that many identical observations)"
@@ -272,17 +274,28 @@ def _fits(session) -> str:
     names = list(models)
     rows = [("(intercept)", *[num(models[n].intercept) for n in names])]
     aside = set(res.ols.columns[j] for j in np.flatnonzero(res.ols.set_aside_mask))
-    for j, c in enumerate(res.columns):
-        rows.append((c, *[("cls", "zero", "set aside") if n == "ols" and c in aside else coef_cell(models[n].coef[j])
-                          for n in names]))
+    # Penalized fits weigh every level of a category: their reference levels follow the design's columns.
+    columns = model_columns(res.columns, models.values())
+    extra = columns[len(res.columns):]
+    for c in columns:
+        rows.append((c, *[("cls", "zero", "set aside") if n == "ols" and c in aside else
+                          ("cls", "zero", "reference") if c not in models[n].columns else
+                          coef_cell(models[n].coefficient(c)) for n in names]))
     parts.append(table(["Column", *[model_label(n) + (f" α={num(models[n].alpha, 3)}" if models[n].alpha else "")
                                     + (f" γ={num(models[n].relaxation, 2)}" if models[n].relaxation is not None else "")
                                     + (" (NOT CONVERGED)" if models[n].converged is False else "")
                                     for n in names]], rows))
     parts.append('<p class="muted">"set aside" means OLS has no coefficient for the column (the kept columns '
                  "reproduce it); a grey 0 means a lasso or elastic net does not select it at this α.</p>")
-    groups = [(model_label(n), models[n].coef_std) for n in names]
-    parts.append(figure(svg.bar_chart(list(res.columns), groups, title="Standardized coefficients by model",
+    if extra:
+        parts.append('<p class="muted">' + e(
+            f"{join_words(extra)}: the reference level{'s' if len(extra) > 1 else ''} of "
+            f"{'their categories' if len(extra) > 1 else 'its category'}. OLS measures the other levels against "
+            f"{'them' if len(extra) > 1 else 'it'} (its intercept carries {'them' if len(extra) > 1 else 'it'}); "
+            "ridge, lasso and elastic net give every level its own coefficient, so renaming or reordering the "
+            "levels changes none of their predictions.") + "</p>")
+    groups = [(model_label(n), aligned(models[n], columns, standardized=True)) for n in names]
+    parts.append(figure(svg.bar_chart(list(columns), groups, title="Standardized coefficients by model",
                                       ylabel="coefficient × column SD", colours=[model_colour(n) for n in names]),
                         "Standardized so columns in different units compare."))
     parts.append(_ols_inference(session))
@@ -293,8 +306,8 @@ def _ols_inference(session) -> str:
     """OLS standard errors, classical and (with a group column) cluster-robust, with what they mean."""
     res, d = session.results, session.design
     o = getattr(res, "ols", None)
-    if o is None or getattr(o, "std_errors", None) is None:
-        return ""
+    if o is None or getattr(o, "std_errors", None) is None or getattr(res, "outcome", "numeric") == "binary":
+        return ""  # a yes/no outcome's inference is the logistic model's
     cl = getattr(o, "cluster_std_errors", None)
     parts = ["<h3>OLS standard errors</h3>"]
     if cl is not None:
@@ -480,7 +493,10 @@ def _ranges_rows(rg) -> list:
 
 def _std_coef(session, name):
     m = session.models().get(name)
-    return np.full(len(session.design.columns), np.nan) if m is None else m.coef_std
+    if m is None:
+        return np.full(len(session.design.columns), np.nan)
+    # A fit on every level of a category sits in the ranges as the same predictor on the design's columns.
+    return m.on_design(design_sd(session.design, session.results)).coef_std
 
 
 def _stress(session) -> str:

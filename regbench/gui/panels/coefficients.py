@@ -9,7 +9,7 @@ from PySide6 import QtCore, QtWidgets
 from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.style import PALETTE, model_colour
 from regbench.gui.tables import GridModel, WARN_BG, make_view
-from regbench.models.results import model_label
+from regbench.models.results import aligned, model_columns, model_label
 from regbench.sentences import se_kind_sentence
 
 Qt = QtCore.Qt
@@ -76,7 +76,8 @@ class CoefficientsPanel(Panel):
         models = session.models()
         std = self.scale.currentData() == "std"
         ols = results.ols
-        cols = list(results.columns)
+        # Penalized fits weigh every level of a category: their reference levels follow the design's columns.
+        cols = list(model_columns(results.columns, models.values()))
         aside = {sa.column: sa for sa in ols.set_aside}
         names = list(models)
         cl_se = getattr(ols, "cluster_std_errors", None)
@@ -104,8 +105,14 @@ class CoefficientsPanel(Panel):
             row = []
             for n in names:
                 m = models[n]
-                v = float(m.coef_std[i] if std else m.coef[i])
+                v = m.coefficient(c, standardized=std)
                 k = len(row)
+                if c not in m.columns:
+                    row += ["reference"] + ([None] * len(ols_extra) if n == unpen else [])
+                    fg[(i, k)] = PALETTE["muted"]
+                    tips[(i, k)] = (f"{c} is the level {model_label(n)} measures the other levels of its category "
+                                    "against; its intercept carries it")
+                    continue
                 if n == unpen and c in aside:
                     row += ["set aside"] + [None] * len(ols_extra)
                     bg[(i, k)] = WARN_BG
@@ -157,7 +164,7 @@ class CoefficientsPanel(Panel):
         height = 0.8 / max(k, 1)
         for j, (n, m) in enumerate(models.items()):
             y = np.arange(p)[::-1] + (j - (k - 1) / 2) * height
-            bar = pg.BarGraphItem(x0=np.zeros(p), y=y, height=height * 0.9, width=np.asarray(m.coef_std, float),
+            bar = pg.BarGraphItem(x0=np.zeros(p), y=y, height=height * 0.9, width=aligned(m, cols, standardized=True),
                                   brush=model_colour(n), pen=None)
             self.plot.addItem(bar)
             legend.addItem(bar, model_label(n))

@@ -21,6 +21,7 @@ from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.style import PALETTE, model_colour
 from regbench.formatting import number_text
 from regbench.gui.tables import GridModel, make_view
+from regbench.models.coding import design_sd
 from regbench.models.results import model_label
 
 Qt = QtCore.Qt
@@ -177,7 +178,9 @@ class RangesPanel(Panel):
         self.trades.setText("\n".join(t["sentence"] for t in rg.trades) + (
             "\n" + " ".join(rg.sentences[2:]) if len(rg.sentences) > 2 else ""))
         self.trades.setVisible(bool(self.trades.text().strip()))
-        models = session.models()
+        # A fit on every level of a category sits here as the same predictor on the design's columns.
+        sd = design_sd(session.design, session.results)
+        models = {k: m.on_design(sd) for k, m in session.models().items()}
         self._draw_bars(rg, models)
         self._draw_strip(rg)
         self._fill_tables(rg)
