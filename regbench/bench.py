@@ -571,8 +571,10 @@ def wide_case(rows: int = 200, cols: int = 2_000, repeats: int = 3) -> int:
     p(f"Wide table: sensor_line({rows:,} rows, {cols:,} sensors), grouped 5-fold CV, 100 α per family; "
       "whole-process wall times, medians.")
     job = prepare(rows, cols)
-    ours = [_run("regbench", job) for _ in range(repeats)]
-    ref = [_run("reference", job) for _ in range(repeats)]
+    ours, ref = [], []
+    for _ in range(repeats):  # interleaved, so each pair meets the same load on a shared machine
+        ours.append(_run("regbench", job))
+        ref.append(_run("reference", job))
     t_ours, t_ref = _median(ours, "wall"), _median(ref, "wall")
     p(f"  regbench   {t_ours:8.2f} s  (median of {repeats}; fit {_median(ours, 'fit'):.2f} s)")
     p(f"  reference  {t_ref:8.2f} s  (median of {repeats}; fit {_median(ref, 'fit'):.2f} s)")

@@ -131,3 +131,48 @@ def test_cv_minimum_at_the_grid_edge_is_flagged(tmp_path):
     js = fit_to_json(d, r)
     assert js["models"]["lasso"]["cv"]["at_edge"] is True
     assert "smallest α tried" in fit_summary_text(d, r)
+
+
+def test_screened_wide_path_matches_scikit_learn_enet_path():
+    # Reference: scikit-learn enet_path on the rows standardized by mean and population SD, same α grid, a tight
+    # tolerance (its default stops early). Our wide route screens columns by the sequential strong rules and checks the
+    # rest; its fits must be the full problem's.
+    from sklearn.linear_model import enet_path
+
+    from regbench.models.gram import gram_stats
+    from regbench.models.penalized import GAP_TOL, Problem, alpha_grid, duality_gaps, solve_beta
+
+    X, y = wide(60, 400, seed=3)
+    problem = Problem.from_stats(gram_stats(X, y, np.ones(60)))
+    assert problem.wide
+    Z = (X - X.mean(axis=0)) / X.std(axis=0)
+    for rho in (1.0, 0.5, 0.1):
+        grid = alpha_grid(problem.c, rho, 20, 1e-3)
+        beta = solve_beta(problem, grid, rho)
+        assert duality_gaps(problem, beta, grid, rho).max() <= GAP_TOL
+        _, ref, _ = enet_path(Z, y - y.mean(), l1_ratio=rho, alphas=grid, tol=1e-14, max_iter=1_000_000)
+        np.testing.assert_allclose(beta @ Z.T, ref.T @ Z.T, atol=1e-6 * y.std(), err_msg=f"ρ = {rho}")
+        assert [int(np.count_nonzero(b)) for b in beta] == [int(np.count_nonzero(np.abs(r) > 1e-12)) for r in ref.T]
+
+
+def test_wide_cross_validation_matches_scikit_learn_fold_by_fold():
+    # Reference: for each fold, scikit-learn StandardScaler on the training rows and enet_path on them (same grid),
+    # held-out mean squared error; the CV curve is their plain mean over folds, as LassoCV averages it.
+    from sklearn.linear_model import enet_path
+    from sklearn.preprocessing import StandardScaler
+
+    X, y = wide(60, 400, seed=4)
+    d = design_from_arrays(X, y)
+    r = fit_all(d, FitSettings(n_penalties=15, folds=5))
+    for name in ("lasso", "elastic_net"):
+        pf = r.penalized[name]
+        errors = []
+        for k in range(5):
+            tr, te = r.fold_ids != k, r.fold_ids == k
+            sc = StandardScaler().fit(X[tr])
+            _, coefs, _ = enet_path(sc.transform(X[tr]), y[tr] - y[tr].mean(), l1_ratio=pf.l1_ratio,
+                                    alphas=pf.cv.alphas, tol=1e-14, max_iter=1_000_000)
+            pred = y[tr].mean() + sc.transform(X[te]) @ coefs
+            errors.append(np.mean((y[te][:, None] - pred) ** 2, axis=0))
+        np.testing.assert_allclose(pf.cv.mean, np.mean(errors, axis=0), rtol=1e-6, err_msg=name)
+        assert pf.convergence.converged

@@ -21,6 +21,9 @@ is ``½βᵀGβ − cᵀβ`` plus a constant, so every solve here costs p×p wor
   Its coordinate descent runs on the precomputed Gram ``(k·G, k·c)`` of that
   pair, with warm starts along the path and a tight duality-gap tolerance
   (its default of 1e-4 stops early).
+* On a wide table (far fewer non-null directions than columns) each α is solved
+  on the columns the sequential strong rules keep, and the rest are checked
+  against their optimality conditions (:func:`screened_path`).
 
 α grid: ``α_max = max_j |c_j| / max(ρ, 1e-3)`` is the smallest α that keeps
 every coefficient at 0 for ρ > 0 (the KKT condition ``|c_j| ≤ αρ`` at β = 0).
@@ -34,6 +37,7 @@ One grid per family, from the whole design, is shared by every CV fold.
 
 from __future__ import annotations
 
+import functools
 import warnings
 from dataclasses import dataclass, field
 from typing import Optional
@@ -51,9 +55,10 @@ CD_MAX_ITER = 100_000
 #: A fit is certified converged when its duality gap is at most this share of the
 #: weighted variance of y on the rows fitted (the objective at β = 0 is half of it).
 GAP_TOL = 1e-8
-#: On a wide table (far fewer rows than columns) the L1 solver sweeps the k×p factor; its
-#: stopping gap is the certificate's, so a wide path is certified like any other.
-CD_TOL_WIDE_PATH = GAP_TOL
+#: On a wide table (far fewer rows than columns) each α is solved on the columns the strong
+#: rules keep, to a duality gap of this share of the weighted variance of y (a tenth of the
+#: certificate's, so round-off in the full problem's gap leaves it certified).
+SCREEN_TOL = 0.1 * GAP_TOL
 #: Eigenvalues below this share of the largest count as null directions of G.
 EIG_RTOL = 1e-12
 
@@ -208,20 +213,25 @@ def enet_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None, tol=Non
     out = np.zeros((alphas.size, p))
     if not problem.live.any():
         return out
+    if problem.wide and l1_ratio > 0.0:
+        # Far fewer rows than columns: most coefficients are 0 along the path, so each α is
+        # solved on the columns the strong rules keep, with a check of the rest (see below).
+        init = None if coef_init is None else np.asarray(coef_init, dtype=float)[problem.live]
+        out[:, problem.live] = screened_path(problem.G[np.ix_(problem.live, problem.live)], problem.c[problem.live],
+                                             float(problem.var_y), alphas, l1_ratio, init,
+                                             SCREEN_TOL if tol is None else min(tol, SCREEN_TOL))
+        if l1_ratio == 1.0:
+            _merge_copies(problem, out)
+        return out
     A, b = _factor(problem)
     k = A.shape[0]
     if k == 0:
         return out
     # Coordinate descent on the precomputed Gram (k·G, k·c) costs p² per sweep and
-    # measured about three times faster here than sweeping the k×p factor itself; when the
-    # factor has far fewer rows than columns (a wide table), the factor is cheaper.
-    wide = 3 * k < A.shape[1]
-    if wide:
-        Q, q = False, None
-    else:
-        Gl = problem.G[np.ix_(problem.live, problem.live)]
-        Q = np.ascontiguousarray(k * Gl)
-        q = np.ascontiguousarray(k * problem.c[problem.live])
+    # measured about three times faster here than sweeping the k×p factor itself.
+    Gl = problem.G[np.ix_(problem.live, problem.live)]
+    Q = np.ascontiguousarray(k * Gl)
+    q = np.ascontiguousarray(k * problem.c[problem.live])
     init = None
     if coef_init is not None:
         init = np.asfortranarray(np.asarray(coef_init, dtype=float)[problem.live])
@@ -231,8 +241,7 @@ def enet_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None, tol=Non
         warnings.simplefilter("ignore", ConvergenceWarning)
         _, coefs, _ = enet_path(
             A, b, l1_ratio=l1_ratio, alphas=alphas, precompute=Q, Xy=q, copy_X=False, coef_init=init,
-            check_input=False, tol=(CD_TOL_WIDE_PATH if wide else CD_TOL) if tol is None else tol,
-            max_iter=CD_MAX_ITER,
+            check_input=False, tol=CD_TOL if tol is None else tol, max_iter=CD_MAX_ITER,
         )
     # enet_path sorts a grid of several α descending; keep the caller's order.
     if alphas.size > 1:
@@ -244,6 +253,109 @@ def enet_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None, tol=Non
     if l1_ratio == 1.0:
         _merge_copies(problem, out)
     return out
+
+
+def screened_path(G: np.ndarray, c: np.ndarray, var_y: float, alphas, l1_ratio: float, init=None,
+                  tol: float = SCREEN_TOL) -> np.ndarray:
+    """Lasso / elastic net along ``alphas`` with sequential strong rules and a KKT check.
+
+    Minimises ``½βᵀGβ − cᵀβ + α(ρ‖β‖₁ + (1−ρ)/2‖β‖²)`` at each α (descending order is
+    best: each fit warm-starts the next).  Sequential strong rule (Tibshirani, Bien, Friedman,
+    Hastie, Simon, Taylor & Tibshirani 2012, JRSS-B 74(2), §3 and §5 for the elastic net): at
+    α, column j is left out when ``|u_j| < ρ(2α − α_prev)``, where ``u = c − Gβ`` is the
+    gradient of the loss at the fit at the previous α.  The rule can be wrong, so after
+    solving on the columns kept, every left-out column is checked against its optimality
+    condition ``|u_j| ≤ αρ`` (with β_j = 0); any that breaks it joins the kept columns and
+    the α is solved again.  When no left-out column breaks it, the fit on the kept columns
+    is the fit on all of them, and its duality gap (``tol`` × ``var_y`` at most) is the full
+    problem's: a left-out column adds nothing to the dual of either the lasso or the elastic
+    net while ``|u_j| ≤ αρ``.  Each solve is coordinate descent on the kept columns' Gram
+    (s×s work per sweep, s the columns kept), warm-started.
+
+    Returns
+    -------
+    ndarray (len(alphas), p)
+    """
+    alphas = np.atleast_1d(np.asarray(alphas, dtype=float))
+    p = c.shape[0]
+    out = np.zeros((alphas.size, p))
+    if p == 0:
+        return out
+    beta = np.zeros(p) if init is None else np.array(init, dtype=float, copy=True)
+    nz = np.flatnonzero(beta)
+    grad = c - G[:, nz] @ beta[nz] if nz.size else c.copy()
+    # Before the first α: the fit it warm-starts from (α_prev = α, so only the columns that
+    # break their conditions now are added) or, from β = 0, the top of the path.
+    l1_prev = None if nz.size else float(np.max(np.abs(c)))
+    diag = np.diag(G)
+    for i in np.argsort(-alphas, kind="stable"):
+        l1 = float(alphas[i]) * l1_ratio
+        l2 = float(alphas[i]) * (1.0 - l1_ratio)
+        thr = l1 if l1_prev is None else 2.0 * l1 - l1_prev
+        keep = (beta != 0.0) | ((np.abs(grad) >= thr) & (diag > 0))
+        while True:
+            idx = np.flatnonzero(keep)
+            if idx.size:
+                w = _cd_gram(np.ascontiguousarray(G[np.ix_(idx, idx)]), np.ascontiguousarray(c[idx]),
+                             beta[idx], l1, l2, var_y, tol)
+                beta[:] = 0.0
+                beta[idx] = w
+                used = idx[w != 0.0]
+                grad = c - G[:, used] @ beta[used]
+            else:
+                grad = c.copy()
+            broken = ~keep & (np.abs(grad) > l1) & (diag > 0)
+            if not broken.any():
+                break
+            keep |= broken
+        out[i] = beta
+        l1_prev = l1
+    return out
+
+
+def _cd_gram(Q: np.ndarray, q: np.ndarray, w0: np.ndarray, l1: float, l2: float, var_y: float,
+             tol: float) -> np.ndarray:
+    """argmin ``½wᵀQw − qᵀw + l1‖w‖₁ + l2/2‖w‖²`` by coordinate descent, to a duality gap of ``tol·var_y``.
+
+    scikit-learn's compiled Gram routine solves exactly this; ``var_y`` stands in for ``yᵀy``,
+    which makes its duality gap the one of :func:`duality_gaps` (the objective's constant is
+    ½·var_y).  ``enet_path`` would validate its inputs on every call, which costs more than a
+    solve on a small Gram; it serves where the compiled routine is not importable.
+    """
+    from sklearn.exceptions import ConvergenceWarning
+
+    y = np.array([np.sqrt(max(var_y, np.finfo(float).tiny))])
+    w = np.array(w0, dtype=float, copy=True)
+    with warnings.catch_warnings():
+        # The caller's certificate judges convergence; a near-flat direction can stop a hair short.
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        routine = _compiled_cd()
+        if routine is not None:
+            return np.asarray(routine(w, l1, l2, Q, q, y, CD_MAX_ITER, tol, _CD_RNG, 0, 0)[0], dtype=float)
+        from sklearn.linear_model import enet_path
+
+        alpha = l1 + l2
+        rho = l1 / alpha if alpha > 0 else 1.0
+        X1 = np.zeros((1, q.shape[0]), order="F")
+        _, coefs, _ = enet_path(X1, y, l1_ratio=rho, alphas=[alpha], precompute=Q, Xy=q, copy_X=False,
+                                coef_init=np.asfortranarray(w), check_input=False, tol=tol, max_iter=CD_MAX_ITER)
+        return coefs[:, 0]
+
+
+_CD_RNG = np.random.RandomState(0)
+
+
+@functools.lru_cache(maxsize=1)
+def _compiled_cd():
+    """scikit-learn's compiled coordinate descent on a Gram (a private module), or None when absent.
+
+    Imported on first use: scikit-learn is a heavy import (DEVELOPERS.md).
+    """
+    try:
+        from sklearn.linear_model._cd_fast import enet_coordinate_descent_gram
+    except ImportError:  # pragma: no cover - depends on the installed scikit-learn
+        return None
+    return enet_coordinate_descent_gram
 
 
 #: Standardized columns whose |correlation| is within this of 1 are copies of each other.
