@@ -344,8 +344,10 @@ def cmd_fit(args) -> int:
 
     route = _out_of_memory_route(args)
     if route is not None:
+        _refuse_yes_no_streamed(args, None)
         streamed = _stream_fit(args, settings, *route)
         design, results = streamed.design, streamed.results
+        _refuse_yes_no_streamed(args, design)
         if args.json:
             out = fit_to_json(design, results)
             out.update(streamed.notes())
@@ -359,13 +361,43 @@ def cmd_fit(args) -> int:
     from regbench.models.engine import fit_all
 
     results = fit_all(design, settings, progress=_progress_to_stderr)
+    classification = _classify(design, results) if design.outcome == "binary" else None
     if args.json:
-        write_json(fit_to_json(design, results), args.json)
+        write_json(fit_to_json(design, results, classification), args.json)
         _columns_left_out(design, sys.stderr)   # after the result, so a failed write stays one line
     else:
         # The summary's "Columns not used" names each left-out column; here with the flag.
-        sys.stdout.write(fit_summary_text(design, results).replace(*_NAME_IT) + "\n")
+        sys.stdout.write(fit_summary_text(design, results, classification).replace(*_NAME_IT) + "\n")
     return EXIT_OK
+
+
+def _classify(design, results):
+    """Calibration and discrimination of every model of a yes/no outcome, on training and held-out rows."""
+    from regbench.analysis.calibration import assess
+    from regbench.models.engine import heldout_predictions
+
+    models = results.models()
+    return assess(design, models, heldout_predictions(design, results, models))
+
+
+def _refuse_yes_no_streamed(args, design) -> None:
+    """Yes/no outcomes are fitted with the rows in memory; say so in one line instead of fitting a line.
+
+    Before the streamed pass (``design`` None) the roles decide; after it, a target whose sampled rows
+    hold exactly two values is taken as yes/no unless ``--outcome numeric`` was given.
+    """
+    import numpy as np
+
+    how = ("raise --memory-budget so the table is read in memory, or pass --outcome numeric to fit the target "
+           "as a number")
+    if design is None:
+        if getattr(args, "outcome", None) == "binary" or getattr(args, "no_count", None):
+            raise RegbenchError(f"{args.table}: yes/no outcomes are fitted with the rows in memory, not on the "
+                                f"streamed or cluster route; {how.split(', or ')[0]}")
+        return
+    if getattr(args, "outcome", None) is None and np.unique(design.y[np.isfinite(design.y)]).size == 2:
+        raise RegbenchError(f"{args.table}: target '{design.target}' holds two distinct values (a yes/no outcome), "
+                            f"which is fitted with the rows in memory, not on the streamed or cluster route; {how}")
 
 
 def _refuse_out_of_memory(args, what: str) -> None:

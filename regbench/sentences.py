@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import json
 import math
+import shlex
 
 import numpy as np
 
@@ -77,8 +78,12 @@ def se_kind_sentence(design, o) -> str:
     return "Standard errors: classical (rows independent); set a group column for cluster-robust ones."
 
 
-def fit_summary_text(design, results) -> str:
-    """A plain-text summary of the fit, in the order a reader asks about it."""
+def fit_summary_text(design, results, classification=None) -> str:
+    """A plain-text summary of the fit, in the order a reader asks about it.
+
+    ``classification`` (a yes/no outcome's calibration and discrimination) adds how good
+    the probabilities are.
+    """
     from regbench.analysis.ranges import compute_ranges, ranges_unavailable
     from regbench.models.export import OBJECTIVE, OBJECTIVE_BINARY
     from regbench.models.ols import set_aside_sentence
@@ -154,6 +159,8 @@ def fit_summary_text(design, results) -> str:
     binary = getattr(results, "outcome", "numeric") == "binary"
     if binary:
         lines.extend(_logistic_lines(design, results))
+        if classification is not None:
+            lines.extend(_probability_lines(classification))
     else:
         lines.extend(_ols_lines(design, results.ols))
     k = results.settings.folds
@@ -220,8 +227,12 @@ def _logistic_lines(design, results) -> list:
     lr = results.logistic
     W = float(design.weights.sum())
     share = float(design.weights @ design.y) / W
+    if design.no_count_column:
+        swap = "to swap them, exchange the --yes-count and --no-count columns"
+    else:
+        swap = f"to swap them, pass --yes-level {shlex.quote(str(design.levels[0]))}"
     out = [f"Yes/no outcome: '{design.levels[1]}' counts as yes, '{design.levels[0]}' as no "
-           f"(observed share of yes {share:.4g})."]
+           f"(observed share of yes {share:.4g}; {swap}; --outcome numeric fits the target as a number)."]
     if lr.separation is not None:
         out.append(lr.separation.sentence)
     else:
@@ -229,6 +240,21 @@ def _logistic_lines(design, results) -> list:
         out.append(f"Logistic: log-likelihood {_summary_number(lr.log_likelihood)}, McFadden pseudo-R² "
                    f"{_summary_number(lr.pseudo_r_squared)}; mean predicted probability {mean_p:.4g} "
                    "(equals the observed share: the free intercept guarantees it).")
+    return out
+
+
+def _probability_lines(cl) -> list:
+    """How good a yes/no outcome's probabilities are, per model, on held-out rows when there are some."""
+    split = "held_out" if cl.calibration.get("held_out") else "training"
+    where = "held-out rows" if split == "held_out" else "training rows"
+    out = [f"Probabilities on {where}: Brier score (lower is better), calibration slope (1 is ideal), AUC:"]
+    for k in cl.models:
+        if k not in cl.calibration[split]:
+            continue
+        c, d = cl.calibration[split][k], cl.discrimination[split][k]
+        out.append(f"  {model_label(k)}: Brier {_summary_number(c.brier)}, slope {_summary_number(c.slope)}, "
+                   f"AUC {_summary_number(d.auc)}")
+    out.extend(f"  {s}" for s in cl.sentences)
     return out
 
 

@@ -163,13 +163,16 @@ def _penalized_json(pf, columns) -> dict:
     return out
 
 
-def fit_to_json(design, results) -> dict:
+def fit_to_json(design, results, classification=None) -> dict:
     """Everything ``fit_all`` produced, as strict-JSON data.
 
     Parameters
     ----------
     design : Design
     results : FitResults
+    classification : Classification, optional
+        For a yes/no outcome: each model's ``calibration`` and ``discrimination``
+        (training and held-out rows) are added to its entry.
 
     Returns
     -------
@@ -188,6 +191,12 @@ def fit_to_json(design, results) -> dict:
                 models[name]["cv"]["measure"] = "log_loss"
             models[name]["mean_probability"] = _num(
                 float(design.weights @ pf.model.predict(design.X)) / float(design.weights.sum()))
+    if binary and classification is not None:
+        for name, entry in models.items():
+            for kind, by_split in (("calibration", classification.calibration),
+                                   ("discrimination", classification.discrimination)):
+                entry[kind] = {split: by_split[split][name].to_dict() if name in by_split[split] else None
+                               for split in classification.splits}
     d = results.diagnostics
     out = {"outcome": "binary" if binary else "numeric"}
     if binary:
