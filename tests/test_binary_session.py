@@ -156,3 +156,32 @@ def test_bootstrap_stability_of_a_yes_no_outcome(session):
     # An exact alias (decanewtons of newtons) is set aside in every refit, as OLS would.
     assert st.set_aside_freq[session.design.columns.index("firmness_dan")] == 1.0
     assert st.set_aside_freq[session.design.columns.index("brix")] == 0.0
+
+
+def test_agreement_on_probability_and_log_odds_scales(session):
+    """Own error on the probability scale is the root Brier score and log-loss is the weighted
+    log-loss (scikit-learn ``brier_score_loss`` and ``log_loss`` with sample weights); the log-odds
+    pairs compare the models' linear predictors (log-odds computed here directly)."""
+    from sklearn.metrics import brier_score_loss, log_loss
+
+    d = session.design
+    ag = session.agreement()
+    assert ag.scale == "probability" and set(ag.log_loss) == set(ag.models)
+    held = session.heldout()
+    for k, m in session.models().items():
+        p = m.predict(d.X)
+        assert ag.own_error[k]["training"] ** 2 == pytest.approx(brier_score_loss(d.y, p, sample_weight=d.weights),
+                                                                 rel=1e-10)
+        assert ag.log_loss[k]["training"] == pytest.approx(log_loss(d.y, p, sample_weight=d.weights), rel=1e-10)
+        assert ag.log_loss[k]["held_out"] == pytest.approx(log_loss(d.y, held[k], sample_weight=d.weights),
+                                                           rel=1e-10)
+    models = session.models()
+    a, b = "logistic", "lasso"
+    diff = models[a].linear_predictor(d.X) - models[b].linear_predictor(d.X)
+    pair = next(p for p in ag.log_odds_pairs if p.split == "training" and {p.a, p.b} == {a, b})
+    sign = 1.0 if pair.a == a else -1.0
+    assert pair.rmse == pytest.approx(float(np.sqrt(d.weights @ diff ** 2 / d.weights.sum())), rel=1e-9)
+    assert pair.mean_diff == pytest.approx(sign * float(d.weights @ diff / d.weights.sum()), rel=1e-9, abs=1e-12)
+    assert any("log-odds" in s for s in ag.sentences) and any("root Brier" in s for s in ag.sentences)
+    out = ag.to_dict()
+    assert out["scale"] == "probability" and len(out["log_odds_pairs"]) == len(ag.log_odds_pairs)

@@ -13,16 +13,24 @@ A difference counts as *tiny* when the pair's RMS difference is below
 RMSE against the target) on the same rows.  It counts as *small* below
 ``SMALL_SHARE`` (50%).  Both thresholds are our own choice, stated in every
 sentence that relies on them.
+
+For a yes/no outcome the predictions are probabilities, so the same statistics
+compare probabilities and each model's own error is its root Brier score (the
+weighted RMS of p − y).  The pairs are compared on the log-odds scale too
+(``log_odds_pairs``), beside each model's weighted log-loss (``log_loss``):
+two models can give nearly the same probabilities in the middle and still
+differ by a lot in log-odds where the probabilities are near 0 or 1.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import Optional
+from dataclasses import dataclass, field
+from typing import Dict, Optional, Tuple
 
 import numpy as np
 
 from regbench.errors import DataError
+from regbench.formatting import sentence_number
 from regbench.models.results import Result, model_label
 from regbench.sentences import gap_words, miss_words, own_error_words
 
@@ -138,6 +146,12 @@ class Agreement(Result):
     target: str
     tiny_share: float
     sentences: tuple
+    #: 'value' (a numeric target) or 'probability' (a yes/no outcome: own_error is the root Brier score).
+    scale: str = "value"
+    #: Yes/no outcome: the same pairs compared on the log-odds scale.
+    log_odds_pairs: Tuple[PairAgreement, ...] = ()
+    #: Yes/no outcome: name -> {'training': weighted log-loss, 'held_out': same or NaN}.
+    log_loss: Dict[str, Dict[str, float]] = field(default_factory=dict)
 
     def pair(self, a: str, b: str, split: str = "held_out") -> PairAgreement:
         for p in self.pairs:
@@ -153,7 +167,11 @@ class Agreement(Result):
             "pairs": [p.to_dict() for p in self.pairs],
             "own_error": {k: {s: json_number(v) for s, v in d.items()} for k, d in self.own_error.items()},
             "sentences": list(self.sentences),
-        }
+        } | ({} if self.scale == "value" else {
+            "scale": self.scale,
+            "log_odds_pairs": [p.to_dict() for p in self.log_odds_pairs],
+            "log_loss": {k: {s: json_number(v) for s, v in d.items()} for k, d in self.log_loss.items()},
+        })
 
 
 def pair_agreement(pa: np.ndarray, pb: np.ndarray, w: np.ndarray, a: str, b: str, split: str) -> PairAgreement:
@@ -222,9 +240,63 @@ def compare_models(design, models: dict, heldout: Optional[dict] = None, units: 
             if a in held and b in held:
                 pairs.append(pair_agreement(held[a], held[b], w, a, b, "held_out"))
     pairs = tuple(pairs)
+    if getattr(design, "outcome", "numeric") == "binary":
+        return _probability_agreement(design, names, pairs, own, train, held, tiny_share)
     sentences = _sentences(design, names, pairs, own, units, tiny_share)
     return Agreement(models=names, pairs=pairs, own_error=own, target=design.target,
                      tiny_share=float(tiny_share), sentences=sentences)
+
+
+#: Probabilities are clipped this far from 0 and 1 before taking log-odds (a fitted probability
+#: is never exactly 0 or 1 unless it underflowed).
+_P_CLIP = 1e-15
+
+
+def _log_odds(p: np.ndarray) -> np.ndarray:
+    p = np.clip(p, _P_CLIP, 1.0 - _P_CLIP)
+    return np.log(p) - np.log1p(-p)
+
+
+def _log_loss(p: np.ndarray, y: np.ndarray, w: np.ndarray) -> float:
+    """Weighted mean log-loss of probabilities ``p`` for outcomes ``y`` (0/1, or a share of yes)."""
+    p = np.clip(p, _P_CLIP, 1.0 - _P_CLIP)
+    return weighted_mean(-(y * np.log(p) + (1.0 - y) * np.log1p(-p)), w)
+
+
+def _probability_agreement(design, names, pairs, own, train, held, tiny_share) -> Agreement:
+    """A yes/no outcome's agreement: probabilities against the root Brier score, log-odds beside log-loss."""
+    w, y = np.asarray(design.weights, dtype=np.float64), design.y
+    lo_train = {k: _log_odds(train[k]) for k in names}
+    lo_held = {k: _log_odds(held[k]) for k in held}
+    loss = {k: {"training": _log_loss(train[k], y, w),
+                "held_out": _log_loss(held[k], y, w) if k in held else float("nan")} for k in names}
+    lo_pairs = []
+    for i, a in enumerate(names):
+        for b in names[i + 1:]:
+            lo_pairs.append(pair_agreement(lo_train[a], lo_train[b], w, a, b, "training"))
+            if a in lo_held and b in lo_held:
+                lo_pairs.append(pair_agreement(lo_held[a], lo_held[b], w, a, b, "held_out"))
+    lo_pairs = tuple(lo_pairs)
+    sentences = _sentences(design, names, pairs, own, None, tiny_share)
+    sentences += _log_odds_sentences(design, lo_pairs, loss)
+    return Agreement(models=names, pairs=pairs, own_error=own, target=design.target, tiny_share=float(tiny_share),
+                     sentences=sentences, scale="probability", log_odds_pairs=lo_pairs, log_loss=loss)
+
+
+def _log_odds_sentences(design, lo_pairs, loss) -> tuple:
+    """One sentence: the pair furthest apart on the log-odds scale, beside the two models' log-loss."""
+    use = [p for p in lo_pairs if p.split == "held_out"] or [p for p in lo_pairs if p.split == "training"]
+    if not use:
+        return ()
+    p = max(use, key=lambda q: q.rmse if np.isfinite(q.rmse) else -1.0)
+    la, lb = model_label(p.a), model_label(p.b)
+    la_loss, lb_loss = loss[p.a][p.split], loss[p.b][p.split]
+    gap = abs(la_loss - lb_loss) / min(la_loss, lb_loss) if min(la_loss, lb_loss) > 0 else float("nan")
+    return (f"On the log-odds scale the two models furthest apart are {in_sentence(la)} and {in_sentence(lb)}: "
+            f"{sentence_number(p.rmse)} RMS on {_rows_words(design, p.split)} (largest single gap "
+            f"{sentence_number(p.max_abs)}), while their log-loss is {sentence_number(la_loss)} and "
+            f"{sentence_number(lb_loss)} ({gap:.0%} apart); a log-odds gap matters most where the probabilities "
+            "are near 0 or 1, which the probability scale hides.",)
 
 
 def _rows_words(design, split: str) -> str:

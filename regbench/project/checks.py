@@ -167,6 +167,10 @@ def check_derived(derived: dict, design, n_stress: int) -> None:
                                               for x in ag.pairs), "derived.agreement.pairs is damaged")
     _need(isinstance(ag.own_error, dict) and set(ag.own_error) == set(names)
           and all(isinstance(v, dict) for v in ag.own_error.values()), "derived.agreement.own_error is damaged")
+    binary = getattr(design, "outcome", "numeric") == "binary"
+    _need(ag.scale == ("probability" if binary else "value"), "derived.agreement.scale does not match the target")
+    _need(all(isinstance(x, PairAgreement) and x.a in names and x.b in names for x in ag.log_odds_pairs)
+          and set(ag.log_loss) == (set(names) if binary else set()), "derived.agreement.log_odds_pairs is damaged")
     json.dumps(ag.to_dict())
     st = derived.get("structure")
     _need(isinstance(st, Structure) and st.models == names

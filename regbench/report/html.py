@@ -359,16 +359,31 @@ def _agreement(session) -> str:
         return "<p>The models have not been fitted.</p>"
     parts = [sentences(ag.sentences)]
     own = ag.own_error
-    parts.append("<h3>Each model's own error (weighted RMSE against the target)</h3>")
-    parts.append(table(["Model", "On the rows it was fitted on", "On held-out rows"],
-                       [(model_label(n), num(own[n].get("training")), num(own[n].get("held_out"))) for n in ag.models]))
-    for split, title in (("held_out", "Between models, on held-out rows"), ("training", "Between models, on the fitted rows")):
-        rows = [(f"{model_label(p.a)} vs {model_label(p.b)}", num(p.rmse), num(p.max_abs), num(p.corr, 5),
-                 num(p.mean_diff), f"{num(p.loa_low)} to {num(p.loa_high)}") for p in ag.pairs if p.split == split]
-        if rows:
-            parts.append(f"<h3>{e(title)}</h3>")
-            parts.append(table(["Pair", "RMSE of difference", "Largest difference", "Correlation", "Mean difference",
-                                "95% limits of agreement"], rows))
+    binary = getattr(ag, "scale", "value") == "probability"
+    if binary:
+        parts.append("<h3>Each model's own error: root Brier score (weighted RMS of p − y) and log-loss</h3>")
+        parts.append(table(["Model", "Root Brier, fitted rows", "Root Brier, held-out rows", "Log-loss, fitted rows",
+                            "Log-loss, held-out rows"],
+                           [(model_label(n), num(own[n].get("training")), num(own[n].get("held_out")),
+                             num(ag.log_loss[n].get("training")), num(ag.log_loss[n].get("held_out")))
+                            for n in ag.models]))
+    else:
+        parts.append("<h3>Each model's own error (weighted RMSE against the target)</h3>")
+        parts.append(table(["Model", "On the rows it was fitted on", "On held-out rows"],
+                           [(model_label(n), num(own[n].get("training")), num(own[n].get("held_out")))
+                            for n in ag.models]))
+    scales = [("", ag.pairs)] + ([(" (log-odds)", ag.log_odds_pairs)] if binary else [])
+    if binary:
+        scales[0] = (" (probabilities)", ag.pairs)
+    for scale, pairs in scales:
+        for split, title in (("held_out", "Between models, on held-out rows"),
+                             ("training", "Between models, on the fitted rows")):
+            rows = [(f"{model_label(p.a)} vs {model_label(p.b)}", num(p.rmse), num(p.max_abs), num(p.corr, 5),
+                     num(p.mean_diff), f"{num(p.loa_low)} to {num(p.loa_high)}") for p in pairs if p.split == split]
+            if rows:
+                parts.append(f"<h3>{e(title + scale)}</h3>")
+                parts.append(table(["Pair", "RMSE of difference", "Largest difference", "Correlation",
+                                    "Mean difference", "95% limits of agreement"], rows))
     return "".join(parts)
 
 

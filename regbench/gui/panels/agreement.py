@@ -29,15 +29,21 @@ class AgreementPanel(Panel):
         self.split_box.addItem("training rows", "training")
         self.a_box = QtWidgets.QComboBox()
         self.b_box = QtWidgets.QComboBox()
-        for w in (self.split_box, self.a_box, self.b_box):
+        # A yes/no outcome's pairs are compared on the probability and on the log-odds scale.
+        self.scale_box = QtWidgets.QComboBox()
+        self.scale_box.addItem("probability", "probability")
+        self.scale_box.addItem("log-odds", "log_odds")
+        self.scale_caption = caption("Scale")
+        for w in (self.split_box, self.a_box, self.b_box, self.scale_box):
             w.currentIndexChanged.connect(self._changed)
         lay.addWidget(hbox(caption("Rows"), self.split_box, caption("Compare"), self.a_box, caption("with"),
-                           self.b_box, stretch_last=True))
+                           self.b_box, self.scale_caption, self.scale_box, stretch_last=True))
         split = QtWidgets.QSplitter(Qt.Horizontal)
         left = QtWidgets.QWidget()
         ll = QtWidgets.QVBoxLayout(left)
         ll.setContentsMargins(0, 0, 0, 0)
-        ll.addWidget(caption("Each model's own error (weighted RMSE against the target)"))
+        self.own_caption = caption("Each model's own error (weighted RMSE against the target)")
+        ll.addWidget(self.own_caption)
         self.own_model = GridModel()
         self.own_view = make_view(self.own_model)
         self.own_view.setMaximumHeight(150)
@@ -94,11 +100,22 @@ class AgreementPanel(Panel):
         self._wanted = None
         self._filling = False
         split = self.split_box.currentData()
-        self.own_model.set_rows([[model_label(n), ag.own_error[n]["training"], ag.own_error[n]["held_out"]] for n in names],
-                                ["Model", "Training rows", "Held-out rows"])
+        binary = getattr(ag, "scale", "value") == "probability"
+        self.scale_box.setVisible(binary)
+        self.scale_caption.setVisible(binary)
+        if binary:
+            self.own_caption.setText("Each model's own error: root Brier score (weighted RMS of p − y) and log-loss")
+            self.own_model.set_rows([[model_label(n), ag.own_error[n]["training"], ag.own_error[n]["held_out"],
+                                      ag.log_loss[n]["training"], ag.log_loss[n]["held_out"]] for n in names],
+                                    ["Model", "Root Brier: training", "held-out", "Log-loss: training", "held-out"])
+        else:
+            self.own_caption.setText("Each model's own error (weighted RMSE against the target)")
+            self.own_model.set_rows([[model_label(n), ag.own_error[n]["training"], ag.own_error[n]["held_out"]]
+                                     for n in names], ["Model", "Training rows", "Held-out rows"])
         self.own_view.resizeColumnsToContents()
+        log_odds = binary and self.scale_box.currentData() == "log_odds"
         rows = []
-        for p in ag.pairs:
+        for p in (ag.log_odds_pairs if log_odds else ag.pairs):
             if p.split != split:
                 continue
             rows.append([model_label(p.a), model_label(p.b), p.rmse, p.max_abs, p.corr, p.mean_diff, p.loa_low, p.loa_high])
@@ -106,7 +123,7 @@ class AgreementPanel(Panel):
                                         "Mean difference", "Limits of agreement: low", "high"])
         self.pair_view.resizeColumnsToContents()
         self.defer(self._scatter, session, split)
-        self.set_sentences(list(ag.sentences[:2]))
+        self.set_sentences(list(ag.sentences[:2]) + ([ag.sentences[-1]] if binary and len(ag.sentences) > 2 else []))
 
     def predictions(self, session, split):
         """(a, b, pred_a, pred_b) for the chosen pair on the chosen rows."""
