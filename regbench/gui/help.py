@@ -65,6 +65,28 @@ TERMS = (
     ("Importance", "For one model and one column: how much, in mean square, the model's predictions would "
      "change if that column were replaced by an independent copy of itself (2·β²·variance of the "
      "column); for OLS exactly how much its error would grow."),
+    ("Yes/no outcome", "A target with exactly two values (0/1, yes/no, true/false, any two labels). The "
+     "models are logistic: unpenalized, ridge, lasso and elastic net, each minimising (1/W)·Σ wᵢ ℓ(yᵢ, pᵢ) + "
+     "α·(ρ‖β‖₁ + (1−ρ)/2·‖β‖²) with ℓ the log-loss, and their predictions are probabilities of the value that "
+     "counts as yes. The choice beside the target says which value that is, or treats the target as a "
+     "number instead."),
+    ("Calibration", "Whether a probability means what it says: of the rows given 0.3, about three in ten "
+     "should be yes. The reliability curve is an isotonic regression of the outcome on the probability "
+     "(Dimitriadis, Gneiting & Jordan 2021); the calibration slope is 1 when the probabilities are neither "
+     "too extreme (below 1) nor too timid (above 1) (Van Calster et al. 2019)."),
+    ("Brier score", "The mean squared difference between probability and outcome (lower is better), split "
+     "into miscalibration − discrimination + uncertainty; the uncertainty is what predicting the observed "
+     "share for every row would score."),
+    ("ROC, AUC", "The ROC curve plots, for every threshold, the share of yes rows flagged (sensitivity) "
+     "against the share of no rows flagged (1 − specificity); the AUC is the chance that a random yes row "
+     "gets a higher probability than a random no row."),
+    ("Threshold", "The probability at or above which a row is flagged. The tool recommends none: the "
+     "table shows what each threshold flags and misses, and what a 0.5 cut does (for a rare outcome it "
+     "flags almost nobody). The person who acts on the scores records the one they chose, with a note; "
+     "the stress test then counts the rows whose probability crosses it."),
+    ("No rebalancing", "The classes are never reweighted to look equally common, and there is no option "
+     "for it: rebalancing distorts the probabilities without improving how well they rank rows (van den "
+     "Goorbergh et al. 2022, JAMIA). To flag more rows of a rare outcome, choose a lower threshold instead."),
     ("Cross-validation by group", "Held-out error computed with all rows of one group (for example one "
      "glasshouse) on the same side of the split, so a model is judged on groups it has not seen — "
      "the situation it will meet in use."),
@@ -74,6 +96,7 @@ CAUTIONS = (
     "Associations are not causes: a coefficient says how predictions change with a column in this "
     "table, not what would happen if you changed that quantity.",
     "Judge models on held-out groups, not on the rows they were fitted to.",
+    "A risk score is not a decision: the person who acts on it chooses the threshold.",
     "A model is only as good as its inputs: a wrong unit, a stuck sensor or a coding change in one "
     "column moves predictions whatever the fit statistics say — the stress test shows how much.",
 )
