@@ -56,8 +56,15 @@ PATH_TOL = 1e-4
 MAX_OUTER = 100
 #: Coordinate-descent sweeps per inner solve (each outer step starts from the last solution).
 INNER_SWEEPS = 2000
-#: Fitted probabilities this close to 0 or 1 on their observed side suggest separation.
-SEPARATION_P = 1e-7
+#: Signs of separation after the unpenalized fit, which alone pay for the check (a linear
+#: programme over every row): no convergence, a standardized coefficient this large (an odds
+#: ratio above e³⁰ per SD is never an estimate), or a fitted probability at 0 or 1 in double
+#: precision on its observed side.
+SEPARATION_BETA = 30.0
+SEPARATION_P = 1e-15
+#: A path step reuses the last Hessian while each step shrinks to at most this share of the one
+#: before (linear convergence at least this fast); otherwise the Hessian is computed afresh.
+LAG_CONTRACTION = 0.25
 
 
 def log_loss_terms(eta: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -182,11 +189,28 @@ def _cd_gram(H, c, alpha, rho, init):
 _RNG = np.random.RandomState(0)
 
 
-def _newton(rows: _Rows, alpha, rho, beta, b0, tol, max_outer=MAX_OUTER):
-    """Proximal Newton from (beta, b0) at one α; returns (beta, b0, iterations, converged)."""
+def _hessian(rows: _Rows, v, sv, mx):
+    """The log-loss Hessian of the standardized coefficients with the intercept eliminated (the
+    n·p² part of a step; single precision, as it only shapes the direction)."""
+    A = rows.Xs32 * np.sqrt(v / sv).astype(np.float32)[:, None]
+    H = sv * (A.T @ A).astype(np.float64) - sv * np.outer(mx, mx)
+    return 0.5 * (H + H.T)
+
+
+def _newton(rows: _Rows, alpha, rho, beta, b0, tol, max_outer=MAX_OUTER, lag=None):
+    """Proximal Newton from (beta, b0) at one α; returns (beta, b0, iterations, converged).
+
+    ``lag`` (a one-item list holding a Hessian or None) lets a path reuse the last Hessian
+    from one α to the next: it is computed afresh only when a step does not shrink fast
+    enough (``LAG_CONTRACTION``) or needed a shorter step, so most path steps cost a gradient
+    pass instead of an n·p² pass.  Gradients, objective and convergence are exact either way.
+    """
     Xs, y, wn = rows.Xs, rows.y, rows.wn
     eta = b0 + Xs @ beta
     f = rows.objective(eta, beta, alpha, rho)
+    H = None if lag is None else lag[0]
+    fresh = H is None
+    last = None
     for it in range(1, max_outer + 1):
         p = 0.5 * (1.0 + np.tanh(0.5 * eta))  # expit, without overflow warnings
         v = wn * p * (1.0 - p)
@@ -194,12 +218,13 @@ def _newton(rows: _Rows, alpha, rho, beta, b0, tol, max_outer=MAX_OUTER):
         sv = float(v.sum())
         if not sv > 0:
             return beta, b0, it, False
-        vx = v @ Xs
+        # One pass over the rows for both products (each pass reads the whole matrix).
+        vr = Xs.T @ np.column_stack([v, r])
+        vx = vr[:, 0]
         mx = vx / sv
-        A = rows.Xs32 * np.sqrt(v / sv).astype(np.float32)[:, None]
-        H = sv * (A.T @ A).astype(np.float64) - sv * np.outer(mx, mx)
-        H = 0.5 * (H + H.T)
-        g = Xs.T @ r - mx * float(r.sum())
+        if H is None or lag is None:
+            H, fresh = _hessian(rows, v, sv, mx), True
+        g = vr[:, 1] - mx * float(r.sum())
         new = _inner(H, g + H @ beta, alpha, rho, beta)
         d = new - beta
         d0 = (float(r.sum()) - vx @ d) / sv
@@ -214,13 +239,23 @@ def _newton(rows: _Rows, alpha, rho, beta, b0, tol, max_outer=MAX_OUTER):
             t *= 0.5
         step = max(abs(t * d0), float(np.max(np.abs(t * d), initial=0.0)))
         beta, b0, eta, f = cand_beta, b0 + t * d0, cand_eta, fc
+        if lag is not None:
+            slow = t < 1.0 or (last is not None and step > LAG_CONTRACTION * last)
+            if slow and not fresh:
+                H = None  # stale: the next step computes it afresh
+            else:
+                fresh = False
+            lag[0] = H
+            last = step
         if step < tol:
             return beta, b0, it, True
     return beta, b0, max_outer, False
 
 
-def path_on_rows(X, y, w, alphas, rho, tol=PATH_TOL, cancel=None):
+def path_on_rows(X, y, w, alphas, rho, tol=PATH_TOL, cancel=None, rows=None):
     """Standardized and original-unit coefficients along ``alphas`` (descending), warm-started.
+
+    ``rows`` (the :class:`_Rows` of ``X, y, w``) may be given to reuse its standardized copy.
 
     Returns
     -------
@@ -230,7 +265,7 @@ def path_on_rows(X, y, w, alphas, rho, tol=PATH_TOL, cancel=None):
         Standardized coefficients.
     rows : _Rows
     """
-    rows = _Rows(X, y, w)
+    rows = _Rows(X, y, w) if rows is None else rows
     alphas = np.asarray(alphas, dtype=float)
     k = alphas.size
     coef = np.zeros((k, rows.p))
@@ -238,9 +273,10 @@ def path_on_rows(X, y, w, alphas, rho, tol=PATH_TOL, cancel=None):
     icpt = np.zeros(k)
     beta = np.zeros(rows.idx.size)
     b0 = _logit(rows.ybar)
+    lag = [None]
     for i, a in enumerate(alphas):
         check(cancel)
-        beta, b0, _, _ = _newton(rows, float(a), rho, beta, b0, tol)
+        beta, b0, _, _ = _newton(rows, float(a), rho, beta, b0, tol, lag=lag)
         coef[i], icpt[i], beta_all[i] = rows.to_original(beta, b0)
     return coef, icpt, beta_all, rows
 
@@ -309,7 +345,7 @@ def fit_logistic(design, ols=None, pins=(), rank_tol=None) -> LogisticResult:
     sep = None
     pfit = 0.5 * (1.0 + np.tanh(0.5 * eta))
     near = ((y > 0) & (pfit > 1 - SEPARATION_P)) | ((y < 1) & (pfit < SEPARATION_P))
-    if not ok or np.any(near) or float(np.max(np.abs(beta), initial=0.0)) > 30.0:
+    if not ok or np.any(near) or float(np.max(np.abs(beta), initial=0.0)) > SEPARATION_BETA:
         sep = find_separation(design.X[on][:, kept_idx], y, w, tuple(columns[j] for j in kept_idx), levels)
     nan = np.full(p, np.nan)
     if sep is not None:
@@ -457,17 +493,45 @@ def separation_sentence(kind, combination, intercept, exact, rows, levels) -> st
 
 # --- penalized families -------------------------------------------------------------------
 
-def family_fit(design, settings: FitSettings, ids, name, rho, grouped, cancel=None) -> PenalizedFit:
+class FoldRows:
+    """The standardized rows of the whole design and of each fold's training rows (on the design
+    with one indicator per category level), built once and shared by every family: each costs a
+    copy of the rows."""
+
+    def __init__(self, X, y, w, ids):
+        self.X, self.y, self.w, self.ids = X, y, w, ids
+        self._cache = {}
+
+    def full(self) -> _Rows:
+        return self.get(None)
+
+    def get(self, k) -> _Rows:
+        if k not in self._cache:
+            if k is None:
+                self._cache[k] = _Rows(self.X, self.y, self.w)
+            else:
+                tr = self.ids != k
+                self._cache[k] = _Rows(self.X[tr], self.y[tr], self.w[tr])
+        return self._cache[k]
+
+    @classmethod
+    def of(cls, design, ids) -> "FoldRows":
+        return cls(LevelCoding.of(design).expand(design.X), design.y, design.weights, ids)
+
+
+def family_fit(design, settings: FitSettings, ids, name, rho, grouped, cancel=None, fold_rows=None) -> PenalizedFit:
     """One penalized logistic family: path on every row, (grouped) CV on held-out log-loss, the chosen α.
 
     Like the least-squares families, it fits one indicator per level of each category
-    (:mod:`regbench.models.coding`), so no level is privileged by its name.
+    (:mod:`regbench.models.coding`), so no level is privileged by its name.  ``fold_rows``
+    (:meth:`FoldRows.of` the same design and folds) shares the standardized rows between families.
     """
     coding = LevelCoding.of(design)
-    X, y, w = coding.expand(design.X), design.y, design.weights
-    rows = _Rows(X, y, w)
+    fold_rows = FoldRows.of(design, ids) if fold_rows is None else fold_rows
+    X, y, w = fold_rows.X, design.y, design.weights
+    rows = fold_rows.full()
     grid = logistic_grid(rows, rho, int(settings.n_penalties), float(settings.penalty_ratio))
-    coef, icpt, beta, _ = path_on_rows(X, y, w, grid, rho, cancel=cancel)
+    coef, icpt, beta, _ = path_on_rows(X, y, w, grid, rho, cancel=cancel, rows=rows)
     path = coding.path(PathResult(name=name, l1_ratio=float(rho), alphas=grid.copy(), coef=coef, coef_std=beta,
                                   intercepts=icpt, columns=coding.names))
     K = int(ids.max()) + 1
@@ -477,7 +541,7 @@ def family_fit(design, settings: FitSettings, ids, name, rho, grouped, cancel=No
         tr, te = ids != k, ids == k
         if not design.weights[tr].sum() > 0:
             raise ModelError(f"fold {k + 1}: the rows outside it have total weight 0; use fewer folds")
-        c_k, i_k, _, _ = path_on_rows(X[tr], y[tr], w[tr], grid, rho, cancel=cancel)
+        c_k, i_k, _, _ = path_on_rows(None, None, None, grid, rho, cancel=cancel, rows=fold_rows.get(k))
         errors[k] = heldout_log_loss(X[te], y[te], w[te], c_k, i_k)
     cvres = replace(cvmod.summarize(grid, errors, grouped), measure="log_loss")
     if settings.alpha is not None:
@@ -569,9 +633,10 @@ def _fit_all_binary(design, settings: FitSettings, progress=None, cancel=None) -
     check(cancel)
     grouped = design.groups is not None
     penalized = {}
+    fold_rows = FoldRows.of(design, ids)
     for s, (name, rho) in enumerate(fams):
         report(progress, 3 + s, total, f"{name.replace('_', ' ')} (logistic): path and cross-validation")
-        penalized[name] = family_fit(design, settings, ids, name, rho, grouped, cancel)
+        penalized[name] = family_fit(design, settings, ids, name, rho, grouped, cancel, fold_rows)
         check(cancel)
     report(progress, total, total, "done")
     return FitResults(columns=tuple(design.columns), settings=settings, ols=ols, diagnostics=diag,
