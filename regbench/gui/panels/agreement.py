@@ -57,6 +57,8 @@ class AgreementPanel(Panel):
         self.plot.export_name = "prediction scatter"
         self.plot.showGrid(x=True, y=True, alpha=0.25)
         self.plot.setAspectLocked(False)
+        for ax in ("bottom", "left"):  # predictions in their own units (probabilities stay 0–1)
+            self.plot.getAxis(ax).enableAutoSIPrefix(False)
         split.addWidget(self.plot)
         split.setSizes([850, 350])   # the pair table whole at 1400 × 900
         lay.addWidget(split, 1)
@@ -153,5 +155,6 @@ class AgreementPanel(Panel):
         hi = float(max(pa.max(), pb.max()))
         self.plot.plot([lo, hi], [lo, hi], pen=pg.mkPen(PALETTE["muted"], style=Qt.DashLine))
         where = "held-out" if split == "held_out" else "training"
-        self.plot.setLabel("bottom", f"{model_label(a)} prediction ({where})")
-        self.plot.setLabel("left", f"{model_label(b)} prediction ({where})")
+        what = "probability" if getattr(session.design, "outcome", "numeric") == "binary" else "prediction"
+        self.plot.setLabel("bottom", f"{model_label(a)} {what} ({where})")
+        self.plot.setLabel("left", f"{model_label(b)} {what} ({where})")
