@@ -434,6 +434,17 @@ def test_export_plot_png_and_svg(gh, tmp_path):
     assert "png or .svg" in gh.errors[-1]
 
 
+def test_correlation_map_shows_the_numbers_the_cli_and_report_share(gh):
+    from regbench.analysis.correlation import correlation_map
+
+    gh.show_panel("overlaps")
+    panel = gh.panel("overlaps")
+    # The headless map (analysis/correlation.py, itself checked against numpy.cov) is what the window draws.
+    ref = correlation_map(gh.session.design)
+    assert panel._corr_cols == ref.columns
+    np.testing.assert_array_equal(panel._corr, ref.matrix)
+
+
 def test_copy_table_is_tab_separated(gh):
     gh.show_panel("coefficients")
     gh.panel("coefficients").view.setFocus()

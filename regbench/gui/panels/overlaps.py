@@ -6,6 +6,7 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
+from regbench.analysis.correlation import correlation_map
 from regbench.gui.panels.base import Panel, caption
 from regbench.gui.style import CORR_STOPS, PALETTE
 from regbench.gui.tables import GridModel, WARN_BG, make_view
@@ -14,16 +15,6 @@ Qt = QtCore.Qt
 VIF_STRONG = 10.0   # common practice
 CI_STRONG = 30.0    # common practice (Belsley, Kuh & Welsch)
 SHARE_STRONG = 0.5
-
-
-def weighted_corr(X: np.ndarray, w: np.ndarray) -> np.ndarray:
-    w = w / w.sum()
-    m = w @ X
-    Xc = X - m
-    cov = (Xc * w[:, None]).T @ Xc
-    sd = np.sqrt(np.diag(cov))
-    sd = np.where(sd > 0, sd, np.nan)
-    return cov / np.outer(sd, sd)
 
 
 def corr_colormap():
@@ -151,15 +142,9 @@ class OverlapsPanel(Panel):
         if self._corr is not None and getattr(self, "_corr_design", None) is design:
             return
         self._corr_design = design
-        X = design.X
-        if design.n > 200_000:  # a seeded row sample keeps the map quick on big tables
-            rows = np.random.default_rng(0).choice(design.n, 200_000, replace=False)
-            X, w = X[rows], design.weights[rows]
-        else:
-            w = design.weights
-        with np.errstate(invalid="ignore", divide="ignore"):
-            C = weighted_corr(X, w)
-        self._corr, self._corr_cols, self._corr_n = C, design.columns, design.n
+        cmap = correlation_map(design)  # the numbers the CLI and the report show too
+        C = cmap.matrix
+        self._corr, self._corr_cols = C, cmap.columns
         self.image.setImage(np.nan_to_num(C.T), levels=(-1, 1))
         p = design.p
         short = [c if len(c) <= 18 else c[:16] + "…" for c in design.columns]
