@@ -149,70 +149,134 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None, 
 
 
 def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None) -> OLSResult:
-    # scipy.special's Student t functions, not scipy.stats: the latter costs a second of start-up.
-    from scipy import linalg, special
-
     columns = tuple(design.columns)
     p = len(columns)
     fac = weighted_factor(design, chunk_rows) if factor is None else factor
+    pin_idx = _pin_positions(pins, columns)
+    if rank_tol is not None and not (np.isfinite(rank_tol) and rank_tol >= 0):
+        raise ModelError(f"rank tolerance must be a number >= 0, got {rank_tol!r}")
+    roundoff = default_rank_tol(fac.n, p)
+    tol = roundoff if rank_tol is None else float(rank_tol)
+    sc = _Scales(fac)
+    # The factor of the centered columns and target, ``sqrt(w/W)·[x - m, y - ybar]``; only
+    # its first min(n, p+1) rows can be non-zero (a wide table has fewer rows than columns).
+    m_rows = min(fac.n, p + 1)
+    Raug = fac.R[1:m_rows + 1, 1:]
+    # ``C``: coordinates of the columns centered and at unit weighted SD (rank decisions
+    # and solving: offset- and scale-free).
+    C = Raug[:, :p] / sc.scale
+    qz = Raug[:, p]
+    _check_pins(C, pin_idx, columns, tol, sc.constant, sc.rel_size)
+    kept, row_limited = _ordered_choice(C, pin_idx, tol, sc.constant, sc.rel_size, fac.n)
+    kept = sorted(kept)
+    aside = [j for j in range(p) if j not in set(kept)]
+
+    beta_k, icpt, Rk = _solve_kept(C, qz, kept, fac, sc.scale)
+    counts = bool(getattr(design, "counts", False))
+    stats = _inference(fac, p, kept, beta_k, icpt, Rk, sc.scale, counts)
+    xtwx_inv = stats.pop("xtwx_inv")
+
+    cl_se, cl_icpt_se, n_clusters = None, float("nan"), 0
+    if getattr(design, "groups", None) is not None and fac.rows.has_rows:
+        resid = fac.rows.residuals(_full(p, kept, beta_k), icpt)
+        cl_se, cl_icpt_se, n_clusters = _cluster_se(design, fac.rows, kept, fac.mean, resid, xtwx_inv, fac.W,
+                                                    stats["observations"], p)
+
+    sources = tuple(getattr(design, "sources", columns) or columns)
+    set_aside = _explain_all(aside, kept, C, columns, fac.rows, fac.W, fac.mean, fac.sd, sc.scale, sc.size,
+                             sc.rel_size, roundoff, tol, sc.constant, row_limited, fac.n, sources)
+    coef = stats["coef"]
+    model = LinearModel(
+        name="ols", columns=columns, intercept=float(icpt), coef=coef.copy(),
+        coef_std=coef * fac.sd,
+    )
+    return OLSResult(
+        columns=columns,
+        kept=tuple(columns[j] for j in kept),
+        set_aside=set_aside,
+        intercept=float(icpt),
+        n_obs=int(fac.n),
+        rank=len(kept),
+        rank_tol=float(tol),
+        model=model,
+        r_factor=fac.R,
+        weights_kind="counts" if counts else "precision",
+        cluster_std_errors=cl_se,
+        cluster_intercept_se=float(cl_icpt_se),
+        n_clusters=int(n_clusters),
+        **stats,
+    )
+
+
+def _pin_positions(pins, columns) -> list:
+    """Positions of the pinned columns (each once, in the order given); an unknown one is refused."""
     pins = tuple(dict.fromkeys(pins))
     for c in pins:
         if c not in columns:
             raise ModelError(
                 f"pinned column '{c}' is not a design column; design columns are: {', '.join(columns)}"
             )
-    pin_idx = [columns.index(c) for c in pins]
-    rows, n, W = fac.rows, fac.n, fac.W
-    mean, ybar, sd = fac.mean, fac.ybar, fac.sd
-    if rank_tol is not None and not (np.isfinite(rank_tol) and rank_tol >= 0):
-        raise ModelError(f"rank tolerance must be a number >= 0, got {rank_tol!r}")
-    roundoff = default_rank_tol(n, p)
-    tol = roundoff if rank_tol is None else float(rank_tol)
-    scale = np.where(sd > 0, sd, 1.0)
-    # Typical size of each column (weighted RMS about zero): its stored values carry
-    # round-off of about eps times this, whatever its spread.
-    size = np.sqrt(sd * sd + mean * mean)
-    size = np.where(size > 0, size, 1.0)
-    # Relative round-off of each column's stored values, measured against its spread.
-    rel_size = size / scale
-    # The factor of the centered columns and target, ``sqrt(w/W)·[x - m, y - ybar]``; only
-    # its first min(n, p+1) rows can be non-zero (a wide table has fewer rows than columns).
-    m_rows = min(n, p + 1)
-    Raug = fac.R[1:m_rows + 1, 1:]
-    # ``C``: coordinates of the columns centered and at unit weighted SD (rank decisions
-    # and solving: offset- and scale-free).
-    C = Raug[:, :p] / scale
-    qz = Raug[:, p]
-    constant = sd <= DATA_ROUNDOFF * EPS * size  # no spread beyond the round-off of its values
-    _check_pins(C, pin_idx, columns, tol, constant, rel_size)
-    kept, row_limited = _ordered_choice(C, pin_idx, tol, constant, rel_size, n)
-    kept = sorted(kept)
+    return [columns.index(c) for c in pins]
+
+
+class _Scales:
+    """Per-column sizes the rank decisions are measured against (see the module docstring)."""
+
+    def __init__(self, fac):
+        sd, mean = fac.sd, fac.mean
+        #: Weighted SD, 1 where a column has none (coordinates at unit SD).
+        self.scale = np.where(sd > 0, sd, 1.0)
+        # Typical size of each column (weighted RMS about zero): its stored values carry
+        # round-off of about eps times this, whatever its spread.
+        size = np.sqrt(sd * sd + mean * mean)
+        self.size = np.where(size > 0, size, 1.0)
+        #: Relative round-off of each column's stored values, measured against its spread.
+        self.rel_size = self.size / self.scale
+        #: No spread beyond the round-off of its values.
+        self.constant = sd <= DATA_ROUNDOFF * EPS * self.size
+
+
+def _solve_kept(C, qz, kept, fac, scale):
+    """Coefficients (original units) of the kept columns, the intercept and the kept columns' R.
+
+    Solved through a QR of their coordinates (no normal equations), then refined on residuals
+    computed in original units (corrected semi-normal equations with the same triangular
+    factor, Björck 1996, section 6.6) when the rows are at hand.
+    """
+    from scipy import linalg
+
+    if not kept:
+        return np.zeros(0), fac.ybar, None
+    rows, mean, W, p = fac.rows, fac.mean, fac.W, C.shape[1]
+    Qk, Rk = linalg.qr(C[:, kept], mode="economic", check_finite=False)
+    b = linalg.solve_triangular(Rk, Qk.T @ qz, check_finite=False)
+    beta_k = b / scale[kept]
+    icpt = fac.ybar - mean[kept] @ beta_k
+    for _ in range(2 if rows.has_rows else 0):
+        e = rows.residuals(_full(p, kept, beta_k), icpt)
+        ebar = (rows.w @ e) / W
+        v = (rows.w / W) * (e - ebar)
+        g = (rows.vecmat(v)[kept] - mean[kept] * v.sum()) / scale[kept]
+        db = linalg.solve_triangular(
+            Rk, linalg.solve_triangular(Rk, g, trans="T", check_finite=False), check_finite=False)
+        beta_k = beta_k + db / scale[kept]
+        icpt = icpt + ebar - mean[kept] @ (db / scale[kept])
+    return beta_k, icpt, Rk
+
+
+def _inference(fac, p, kept, beta_k, icpt, Rk, scale, counts) -> dict:
+    """Fit quality, classical standard errors, t, p and 95% intervals, as :class:`OLSResult` fields.
+
+    Also ``xtwx_inv``, ``(X_k' W X_k)⁻¹`` on the centered kept columns, which the cluster-robust
+    standard errors need.
+    """
+    # scipy.special's Student t functions, not scipy.stats: the latter costs a second of start-up.
+    from scipy import linalg, special
+
+    rows, n, W, mean = fac.rows, fac.n, fac.W, fac.mean
     k = len(kept)
     aside = [j for j in range(p) if j not in set(kept)]
-
-    # Solve on the kept columns through a QR of their coordinates (no normal equations),
-    # then refine on residuals computed in original units (corrected semi-normal
-    # equations with the same triangular factor, Björck 1996, section 6.6).
-    if k:
-        Qk, Rk = linalg.qr(C[:, kept], mode="economic", check_finite=False)
-        b = linalg.solve_triangular(Rk, Qk.T @ qz, check_finite=False)
-        beta_k = b / scale[kept]
-        icpt = ybar - mean[kept] @ beta_k
-        for _ in range(2 if rows.has_rows else 0):
-            e = rows.residuals(_full(p, kept, beta_k), icpt)
-            ebar = (rows.w @ e) / W
-            v = (rows.w / W) * (e - ebar)
-            g = (rows.vecmat(v)[kept] - mean[kept] * v.sum()) / scale[kept]
-            db = linalg.solve_triangular(
-                Rk, linalg.solve_triangular(Rk, g, trans="T", check_finite=False), check_finite=False)
-            beta_k = beta_k + db / scale[kept]
-            icpt = icpt + ebar - mean[kept] @ (db / scale[kept])
-    else:
-        beta_k = np.zeros(0)
-        icpt = ybar
-
-    ssr, tss = rows.sums_of_squares(_full(p, kept, beta_k), icpt, ybar)
-    counts = bool(getattr(design, "counts", False))
+    ssr, tss = rows.sums_of_squares(_full(p, kept, beta_k), icpt, fac.ybar)
     # Observations behind the fit: with count rows, a row of weight w is w observations,
     # so inference equals that of the table with every row written out w times.
     n_eff = float(W) if counts else float(n)
@@ -229,7 +293,6 @@ def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None) -> OLSResult:
     coef = np.zeros(p)
     se = np.full(p, np.nan)
     coef[kept] = beta_k
-    cov = None
     if k:
         Rinv = linalg.solve_triangular(Rk, np.eye(k), check_finite=False)
         cov_scaled = Rinv @ Rinv.T  # (A_k' A_k)^-1 on the centered unit-SD columns
@@ -254,47 +317,10 @@ def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None) -> OLSResult:
     ci_high = coef + q * se
     for arr in (pval, ci_low, ci_high):
         arr[aside] = np.nan
-
-    cl_se, cl_icpt_se, n_clusters = None, float("nan"), 0
-    if getattr(design, "groups", None) is not None and rows.has_rows:
-        resid = rows.residuals(_full(p, kept, beta_k), icpt)
-        cl_se, cl_icpt_se, n_clusters = _cluster_se(design, rows, kept, mean, resid, xtwx_inv, W, n_eff, p)
-
-    sources = tuple(getattr(design, "sources", columns) or columns)
-    set_aside = _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, rel_size, roundoff, tol,
-                             constant, row_limited, n, sources)
-    model = LinearModel(
-        name="ols", columns=columns, intercept=float(icpt), coef=coef.copy(),
-        coef_std=coef * sd,
-    )
-    return OLSResult(
-        columns=columns,
-        kept=tuple(columns[j] for j in kept),
-        set_aside=set_aside,
-        intercept=float(icpt),
-        intercept_se=icpt_se,
-        coef=coef,
-        std_errors=se,
-        t_values=tval,
-        p_values=pval,
-        ci_low=ci_low,
-        ci_high=ci_high,
-        r_squared=float(r2),
-        adj_r_squared=float(adj),
-        residual_sd=float(np.sqrt(sigma2)),
-        df_resid=float(df),
-        n_obs=int(n),
-        rank=int(k),
-        rank_tol=float(tol),
-        model=model,
-        r_factor=fac.R,
-        weights_kind="counts" if counts else "precision",
-        observations=n_eff,
-        inference_note=note,
-        cluster_std_errors=cl_se,
-        cluster_intercept_se=float(cl_icpt_se),
-        n_clusters=int(n_clusters),
-    )
+    return dict(coef=coef, std_errors=se, t_values=tval, p_values=pval, ci_low=ci_low, ci_high=ci_high,
+                intercept_se=icpt_se, r_squared=float(r2), adj_r_squared=float(adj),
+                residual_sd=float(np.sqrt(sigma2)), df_resid=float(df), observations=n_eff,
+                inference_note=note, xtwx_inv=xtwx_inv)
 
 
 def _count(v, noun: str) -> str:
@@ -682,9 +708,39 @@ def _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, rel_si
     combinations come from the coordinates ``C`` (one solve for all columns); what
     each leaves over is measured on the rows in original units, in one blocked pass.
     """
+    plans, cols, icpts = _plan_explanations(aside, kept, C, mean, scale, constant, row_limited)
+    res_of = (np.sqrt(rows.weighted_ss(np.column_stack(cols), np.asarray(icpts), mean) / W) if cols
+              else np.zeros(0))
+    out = []
+    for j, kind, a, b in plans:
+        name = columns[j]
+        if kind == "constant":
+            res = float(res_of[b])
+            rel = res / sd[j] if sd[j] > 0 else 0.0
+            out.append(SetAside(column=name, combination={}, intercept=a, residual=res,
+                                alternatives=(), relative_residual=float(rel),
+                                exact=bool(constant[j]), reason="constant"))
+        elif kind == "rows":
+            out.append(SetAside(column=name, combination={}, intercept=float(mean[j]), residual=0.0,
+                                alternatives=(), relative_residual=0.0, exact=True, reason="too_few_rows",
+                                rows=int(n), kept_count=len(kept)))
+        else:
+            out.append(_combination_explained(j, a, b, res_of, columns, sd, roundoff, rel_size, sources))
+    return tuple(out)
+
+
+def _plan_explanations(aside, kept, C, mean, scale, constant, row_limited):
+    """What to say of each set-aside column, and the left-overs to measure on the rows.
+
+    Returns ``plans``, one ``(j, kind, a, b)`` per column: ``("constant", mean, at)``,
+    ``("rows", …)``, or ``("combination", first, second)`` with each candidate
+    ``(support, coef, intercept, at, standardized coef)`` (``second`` on the terms that are
+    not round-off, or None); ``at`` indexes the columns ``cols`` of ``X @ B - c`` whose
+    weighted size is the left-over, with ``icpts`` the ``c``.
+    """
     from scipy import linalg
 
-    p = len(columns)
+    p = C.shape[1]
     plans, cols, icpts = [], [], []
 
     def candidate(j, support, coef, icpt):
@@ -723,51 +779,38 @@ def _explain_all(aside, kept, C, columns, rows, W, mean, sd, scale, size, rel_si
             icpt2 = float(mean[j] - mean[support] @ coef2)
             second = (support, coef2, icpt2, candidate(j, support, coef2, icpt2), cs2)
         plans.append((j, "combination", first, second))
-    res_of = (np.sqrt(rows.weighted_ss(np.column_stack(cols), np.asarray(icpts), mean) / W) if cols
-              else np.zeros(0))
+    return plans, cols, icpts
 
-    out = []
-    for j, kind, a, b in plans:
-        name = columns[j]
-        if kind == "constant":
-            res = float(res_of[b])
-            rel = res / sd[j] if sd[j] > 0 else 0.0
-            out.append(SetAside(column=name, combination={}, intercept=a, residual=res,
-                                alternatives=(), relative_residual=float(rel),
-                                exact=bool(constant[j]), reason="constant"))
-            continue
-        if kind == "rows":
-            out.append(SetAside(column=name, combination={}, intercept=float(mean[j]), residual=0.0,
-                                alternatives=(), relative_residual=0.0, exact=True, reason="too_few_rows",
-                                rows=int(n), kept_count=len(kept)))
-            continue
-        support, coef, icpt, at, cs = a
-        res = float(res_of[at])
-        if b is not None:
-            support2, coef2, icpt2, at2, cs2 = b
-            res2 = float(res_of[at2])
-            if res2 - res <= max(1e-3 * res, roundoff * sd[j]):
-                support, coef, icpt, res, cs = support2, coef2, icpt2, res2, cs2
-        rel = res / sd[j]
-        exact = bool(rel <= _tolerance(roundoff, j, cs, support, rel_size))
-        srcs = {sources[s] for s in support}
-        category = ""
-        if len(srcs) == 1 and sources[j] not in srcs:
-            src = next(iter(srcs))
-            if all(columns[s].startswith(src + "=") for s in support):
-                category = src
-        out.append(SetAside(
-            column=name,
-            combination={columns[s]: float(c) for s, c in zip(support, coef)},
-            intercept=icpt,
-            residual=res,
-            alternatives=tuple(columns[s] for s in support),
-            relative_residual=float(rel),
-            exact=exact,
-            reason="category" if category else "combination",
-            category=category,
-        ))
-    return tuple(out)
+
+def _combination_explained(j, first, second, res_of, columns, sd, roundoff, rel_size, sources) -> SetAside:
+    """The :class:`SetAside` of a column other columns reproduce: the shorter combination when it
+    leaves (almost) no more over than the full one; a category's levels named as such."""
+    support, coef, icpt, at, cs = first
+    res = float(res_of[at])
+    if second is not None:
+        support2, coef2, icpt2, at2, cs2 = second
+        res2 = float(res_of[at2])
+        if res2 - res <= max(1e-3 * res, roundoff * sd[j]):
+            support, coef, icpt, res, cs = support2, coef2, icpt2, res2, cs2
+    rel = res / sd[j]
+    exact = bool(rel <= _tolerance(roundoff, j, cs, support, rel_size))
+    srcs = {sources[s] for s in support}
+    category = ""
+    if len(srcs) == 1 and sources[j] not in srcs:
+        src = next(iter(srcs))
+        if all(columns[s].startswith(src + "=") for s in support):
+            category = src
+    return SetAside(
+        column=columns[j],
+        combination={columns[s]: float(c) for s, c in zip(support, coef)},
+        intercept=icpt,
+        residual=res,
+        alternatives=tuple(columns[s] for s in support),
+        relative_residual=float(rel),
+        exact=exact,
+        reason="category" if category else "combination",
+        category=category,
+    )
 
 
 # --- plain-language sentences -------------------------------------------------------------
