@@ -2,8 +2,11 @@
 
 Every layer that writes a number or a list of names for a person uses these:
 :func:`number_text` for tables and plots, :func:`sentence_number` inside a
-sentence, :data:`MISSING` for a number that is not there, :func:`percent` for
-shares and :func:`join_words` for "a, b and c".  Plain-text renderings built
+sentence, :func:`plain_number` for a value a person may copy (a constant, a
+coefficient of a combination, an α), :func:`rough_number` for a left-over or a
+share, :func:`count_text` for "3 rows", :func:`tick_text` for a plot axis,
+:data:`MISSING` for a number that is not there, :func:`percent` for shares and
+:func:`join_words` for "a, b and c".  Plain-text renderings built
 from them (the CLI's fit summary, stress tables, project inspection) live in
 :mod:`regbench.sentences`.
 """
@@ -14,6 +17,8 @@ import math
 import numbers
 import re
 from typing import Iterable
+
+import numpy as np
 
 #: The mark for a number that is not there (NaN, ±inf where no value applies, no result yet).
 MISSING = "—"
@@ -79,6 +84,59 @@ def percent(x, decimals: int = 1) -> str:
     except (TypeError, ValueError):
         return MISSING
     return MISSING if not math.isfinite(v) else f"{100 * v:.{decimals}f}%"
+
+
+def plain_number(v: float) -> str:
+    """A number as a person writes it: up to 4 significant digits, no exponent between
+    1e-4 and 1e12 (30, not '3e+01'; 100,000,000 with thousands separated).
+
+    A number that is round up to round-off at up to 6 significant digits is
+    written that way (0.4999999999999999 -> '0.5', 273.15000000000043 -> '273.15').
+    """
+    v = float(v)
+    if v == 0 or not np.isfinite(v):
+        return "0" if v == 0 else str(v)
+    a = abs(v)
+    if 1e4 <= a < 1e12:
+        return f"{v:,.0f}"
+    if 1e-4 <= a < 1e4:
+        for digits in range(1, 7):
+            text = np.format_float_positional(v, precision=digits, unique=False, fractional=False, trim="-")
+            if abs(float(text) - v) <= 1e-9 * a:
+                return text
+        return np.format_float_positional(v, precision=4, unique=False, fractional=False, trim="-")
+    mant, exp = f"{v:.3e}".split("e")
+    mant = mant.rstrip("0").rstrip(".")
+    return f"{mant}e{int(exp)}"
+
+
+def rough_number(v: float) -> str:
+    """A left-over or share: two significant digits, positional between 1e-3 and 1e4."""
+    v = float(v)
+    if v == 0:
+        return "0"
+    if 1e-3 <= abs(v) < 1e4:
+        return np.format_float_positional(v, precision=2, unique=False, fractional=False, trim="-")
+    mant, exp = f"{v:.1e}".split("e")
+    mant = mant.rstrip("0").rstrip(".")
+    return f"{mant}e{int(exp)}"
+
+
+def count_text(v, noun: str) -> str:
+    """'1 row', '1,200 rows', '12.5 observations' (a count of weighted observations need not be whole)."""
+    v = float(v)
+    text = f"{v:,.0f}" if v == round(v) else f"{v:,.4g}"
+    return f"{text} {noun}{'' if v == 1 else 's'}"
+
+
+def tick_text(v: float) -> str:
+    """An axis tick: four significant digits, a one-decimal exponent outside [1e-3, 1e4)."""
+    if v == 0:
+        return "0"
+    a = abs(v)
+    if a >= 1e4 or a < 1e-3:
+        return f"{v:.1e}"
+    return f"{v:.4g}"
 
 
 def join_words(items: Iterable[str], word: str = "and") -> str:

@@ -1,4 +1,5 @@
-"""Plain-text renderings for people: the CLI's fit summary, stress tables and project inspection.
+"""Plain-text renderings for people: why OLS set a column aside, the CLI's fit summary, stress tables
+and project inspection.
 
 Built from :mod:`regbench.formatting` (numbers, the missing-number mark, word
 lists) so the command line says things the way the window and the report do.
@@ -15,8 +16,8 @@ import shlex
 
 import numpy as np
 
-from regbench.formatting import MISSING, number_text, sentence_number as fmt
-from regbench.models.results import model_columns, model_label
+from regbench.formatting import MISSING, join_words, number_text, plain_number, rough_number, sentence_number as fmt
+from regbench.models.results import SetAside, model_columns, model_label
 
 #: Where a project file keeps its arrays (regbench/project/FORMAT.md).
 _RESULTS_DIR = "results/"
@@ -78,15 +79,67 @@ def se_kind_sentence(design, o) -> str:
     return "Standard errors: classical (rows independent); set a group column for cluster-robust ones."
 
 
+def combination_text(sa: SetAside) -> str:
+    """``'32 + 1.8 × day_temp_c'``: the intercept (when not negligible) and the weighted terms."""
+    parts = []
+    scale = max([abs(sa.intercept)] + [abs(c) for c in sa.combination.values()] + [1e-300])
+    if sa.combination:
+        show_icpt = abs(sa.intercept) > 1e-9 * max(abs(sa.intercept) + sa.residual, 1.0) and \
+            abs(sa.intercept) > 1e-12 * scale
+    else:
+        show_icpt = True
+    terms = []
+    if show_icpt:
+        terms.append((sa.intercept, None))
+    terms.extend((c, name) for name, c in sa.combination.items())
+    for i, (c, name) in enumerate(terms):
+        mag = plain_number(abs(c))
+        body = mag if name is None else (name if mag == "1" else f"{mag} × {name}")
+        if i == 0:
+            parts.append(("−" if c < 0 else "") + body)
+        else:
+            parts.append(("− " if c < 0 else "+ ") + body)
+    return " ".join(parts)
+
+
+def set_aside_sentence(sa: SetAside) -> str:
+    """One plain sentence saying why ``sa.column`` was set aside and what could replace it."""
+    reason = getattr(sa, "reason", "combination")
+    if reason == "too_few_rows":
+        return (f"{sa.column} was set aside because there are too few rows, not because of what it holds: "
+                f"the intercept and {sa.kept_count} kept columns already fit all {sa.rows} rows exactly, so the "
+                f"data cannot tell what {sa.column} adds. More rows than columns, or a penalized model, "
+                "would be needed to weigh it.")
+    if not sa.combination:
+        if sa.exact:
+            return (f"{sa.column} was set aside: it is constant ({plain_number(sa.intercept)}) on every "
+                    "row with weight, so the intercept already carries it.")
+        return (f"{sa.column} was set aside: it is almost constant ({plain_number(sa.intercept)}, "
+                f"varying by {rough_number(sa.residual)} RMS), so the intercept nearly carries it.")
+    if reason == "category" and sa.category:
+        how = "takes one value per" if sa.exact else "almost takes one value per"
+        return (f"{sa.column} {how} {sa.category}, so the {sa.category} categories reproduce it; "
+                f"its effect cannot be told apart from theirs, so it was set aside.")
+    alts = join_words(sa.alternatives, "or")
+    expr = combination_text(sa)
+    if sa.exact:
+        return (f"{sa.column} was set aside: it equals {expr} exactly (up to the rounding of the stored "
+                f"numbers); keeping it instead of {alts} gives the same predictions.")
+    share = 100.0 * sa.relative_residual
+    return (f"{sa.column} was set aside: it almost equals {expr} (the two differ by {rough_number(sa.residual)} RMS, "
+            f"{rough_number(share)}% of its spread, within the chosen rank tolerance); keeping it instead of {alts} "
+            "gives almost the same predictions.")
+
+
 def fit_summary_text(design, results, classification=None) -> str:
     """A plain-text summary of the fit, in the order a reader asks about it.
 
     ``classification`` (a yes/no outcome's calibration and discrimination) adds how good
     the probabilities are.
     """
+    # The engine's results carry sentences from this module, so the layouts import the layers above it here.
     from regbench.analysis.ranges import compute_ranges, ranges_unavailable
     from regbench.models.export import OBJECTIVE, OBJECTIVE_BINARY
-    from regbench.models.ols import set_aside_sentence
 
     lines = []
     extra = []

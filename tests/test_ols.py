@@ -17,7 +17,8 @@ import pytest
 from regbench.data import Roles, build_design, design_from_arrays, read_table
 from regbench.demo import GREENHOUSE_ROLES
 from regbench.errors import ModelError
-from regbench.models.ols import default_rank_tol, fit_ols, set_aside_sentence
+from regbench.models.ols import default_rank_tol, fit_ols
+from regbench.sentences import set_aside_sentence
 
 ROOT = Path(__file__).resolve().parents[1]
 EPS = np.finfo(float).eps

@@ -14,7 +14,8 @@ import numpy as np
 import pytest
 
 from regbench.data import design_from_arrays
-from regbench.models.ols import fit_ols, set_aside_sentence
+from regbench.models.ols import fit_ols
+from regbench.sentences import set_aside_sentence
 
 
 def exact_leftover(X, y):

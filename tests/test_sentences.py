@@ -13,13 +13,14 @@ import numpy as np
 import pandas as pd
 
 from regbench.data import Roles, build_design, table_from_frame
-from regbench.models.ols import fit_ols, format_number
+from regbench.formatting import plain_number
+from regbench.models.ols import fit_ols
 
 
 def test_numbers_are_written_as_people_write_them():
-    assert format_number(30.0) == "30" and format_number(10.0) == "10" and format_number(-0.5) == "-0.5"
-    assert format_number(1e8) == "100,000,000" and format_number(273.15000000000043) == "273.15"
-    assert format_number(12345.6) == "12,346"
+    assert plain_number(30.0) == "30" and plain_number(10.0) == "10" and plain_number(-0.5) == "-0.5"
+    assert plain_number(1e8) == "100,000,000" and plain_number(273.15000000000043) == "273.15"
+    assert plain_number(12345.6) == "12,346"
 
 
 def test_column_constant_within_a_category_is_explained_in_those_words():

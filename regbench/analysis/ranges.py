@@ -87,6 +87,7 @@ import numpy as np
 
 from regbench.formatting import join_words, number_text
 from regbench.models.results import MODEL_NAMES, Result, model_label
+from regbench.sentences import combination_text
 
 #: ``tolerance_kind`` of a tolerance the user set, and of the held-out variant.
 KIND_SET = "set"
@@ -703,8 +704,6 @@ def _widest(X, mean, sd, columns, rn, centre, half, binary=False) -> tuple:
 
 def _trades(columns, ell, set_aside) -> tuple:
     """One entry per set-aside column: the columns that trade weight with it, and why."""
-    from regbench.models.ols import combination_text
-
     by_col = {sa.column: sa for sa in set_aside}
     out = []
     for i, a in enumerate(ell.aside):

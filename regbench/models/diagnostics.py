@@ -26,8 +26,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from regbench.formatting import join_words
-from regbench.models.ols import format_number, one_blas_thread, weighted_factor
+from regbench.formatting import join_words, plain_number
+from regbench.models.ols import one_blas_thread, weighted_factor
 from regbench.models.results import Diagnostics, NearDependency
 
 INTERCEPT = "(intercept)"
@@ -178,10 +178,10 @@ def _summary(ols_result, kept, vif, cond, damaging) -> list:
         meaning = "the kept columns overlap moderately, which widens the uncertainty of some coefficients"
     else:
         meaning = "the kept columns overlap strongly: small changes in the data can move some coefficients a lot"
-    out.append(f"The worst condition index is {format_number(round(worst, 1) if worst < 1e4 else worst)}; {meaning}.")
+    out.append(f"The worst condition index is {plain_number(round(worst, 1) if worst < 1e4 else worst)}; {meaning}.")
     for dmg in damaging:
         out.append(
-            f"A near-dependency with condition index {format_number(round(dmg['index'], 1))} dominates the "
+            f"A near-dependency with condition index {plain_number(round(dmg['index'], 1))} dominates the "
             f"uncertainty of {join_words([_term_text(t) for t in dmg['terms']], 'and')} (variance share above 0.5 each; "
             "Belsley, Kuh & Welsch's rule)."
         )
@@ -206,7 +206,7 @@ def r2_text(r2: float) -> str:
 def _vif_text(v: float) -> str:
     if v < 1e4:
         return f"{v:.3g}" if v < 100 else f"{v:.0f}"
-    return format_number(v)
+    return plain_number(v)
 
 
 def _term_text(term: str) -> str:

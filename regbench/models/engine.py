@@ -18,6 +18,7 @@ from typing import Optional
 
 import numpy as np
 
+from regbench.formatting import plain_number
 from regbench.errors import ModelError
 from regbench.models import cv as cvmod
 from regbench.models.coding import LevelCoding
@@ -167,12 +168,10 @@ def check_alpha(problem, alpha: float, name: str) -> None:
     """Refuse an α below what the table can resolve (:func:`smallest_alpha`), naming the floor."""
     floor = smallest_alpha(problem)
     if alpha < floor:
-        from regbench.models.ols import format_number
-
         raise ModelError(
-            f"α = {format_number(alpha)} for {name.replace('_', ' ')} is below what this table can resolve: some "
+            f"α = {plain_number(alpha)} for {name.replace('_', ' ')} is below what this table can resolve: some "
             f"columns are exactly dependent (or there are fewer rows than columns), and below α = "
-            f"{format_number(floor)} the fit would only magnify round-off; use an α of at least {format_number(floor)}"
+            f"{plain_number(floor)} the fit would only magnify round-off; use an α of at least {plain_number(floor)}"
         )
 
 

@@ -77,8 +77,6 @@ def _logistic_json(results, design) -> dict:
 
 
 def _ols_json(results) -> dict:
-    from regbench.models.ols import set_aside_sentence
-
     o = results.ols
     cols = o.columns
     set_aside = []
@@ -91,7 +89,7 @@ def _ols_json(results) -> dict:
             "alternatives": list(sa.alternatives),
             "reason": getattr(sa, "reason", "combination"),
             "exact": bool(sa.exact),
-            "sentence": set_aside_sentence(sa),
+            "sentence": sa.sentence(),
         })
     return {
         "intercept": _num(o.model.intercept),

@@ -39,6 +39,7 @@ from dataclasses import replace
 
 import numpy as np
 
+from regbench.formatting import plain_number
 from regbench.errors import ModelError
 from regbench.models import cv as cvmod
 from regbench.models.coding import LevelCoding
@@ -471,19 +472,17 @@ def _sparse_direction(A, complete: bool):
 
 def separation_sentence(kind, combination, intercept, exact, rows, levels) -> str:
     """One sentence saying which columns split the outcome and what that does to the fit."""
-    from regbench.models.ols import format_number
-
     no, yes = str(levels[0]), str(levels[1])
     if len(combination) == 1:
         (col, c), = combination.items()
-        cut = format_number(-intercept / c)
+        cut = plain_number(-intercept / c)
         side = "above" if c > 0 else "below"
         other = "below" if c > 0 else "above"
         where = f"every '{yes}' row has {col} at or {side} {cut} and every '{no}' row at or {other} it"
     else:
         terms = " ".join(("+ " if v >= 0 and i else ("− " if v < 0 and i else ("−" if v < 0 else "")))
-                         + f"{format_number(abs(v))} × {c}" for i, (c, v) in enumerate(combination.items()))
-        where = (f"the score {terms} is at or above {format_number(-intercept)} on every '{yes}' row and at or "
+                         + f"{plain_number(abs(v))} × {c}" for i, (c, v) in enumerate(combination.items()))
+        where = (f"the score {terms} is at or above {plain_number(-intercept)} on every '{yes}' row and at or "
                  "below it on every 'no' row".replace("'no'", f"'{no}'"))
     tie = "" if kind == "complete" else f" ({rows - exact} of {rows} rows sit on the boundary)"
     return (f"The outcome is separated ({kind}): {where}{tie}, so the unpenalized logistic fit has no finite "

@@ -60,6 +60,7 @@ from typing import Optional, Sequence
 import numpy as np
 
 from regbench.errors import ModelError
+from regbench.formatting import count_text, join_words
 from regbench.models.results import LinearModel, OLSResult, SetAside
 
 EPS = np.finfo(np.float64).eps
@@ -286,8 +287,8 @@ def _inference(fac, p, kept, beta_k, icpt, Rk, scale, counts) -> dict:
     sigma2 = ssr / df if df > 0 else float("nan")
     note = ""
     if not df > 0:
-        what = f"{_count(n_eff, 'observation')}" if counts else f"{_count(n, 'row')}"
-        note = (f"No standard errors or p-values: the intercept and {_count(k, 'kept column')} fit all {what} "
+        what = f"{count_text(n_eff, 'observation')}" if counts else f"{count_text(n, 'row')}"
+        note = (f"No standard errors or p-values: the intercept and {count_text(k, 'kept column')} fit all {what} "
                 "exactly, so no residual degrees of freedom are left to measure the noise.")
 
     coef = np.zeros(p)
@@ -321,12 +322,6 @@ def _inference(fac, p, kept, beta_k, icpt, Rk, scale, counts) -> dict:
                 intercept_se=icpt_se, r_squared=float(r2), adj_r_squared=float(adj),
                 residual_sd=float(np.sqrt(sigma2)), df_resid=float(df), observations=n_eff,
                 inference_note=note, xtwx_inv=xtwx_inv)
-
-
-def _count(v, noun: str) -> str:
-    v = float(v)
-    text = f"{v:,.0f}" if v == round(v) else f"{v:,.4g}"
-    return f"{text} {noun}{'' if v == 1 else 's'}"
 
 
 def _cluster_se(design, rows, kept, mean, resid, xtwx_inv, W, n_eff, p):
@@ -688,8 +683,8 @@ def _check_pins(C, pin_idx, columns, tol, constant, rel_size) -> None:
             big = np.abs(cs) > NEGLIGIBLE_TERM * max(np.abs(cs).max(initial=0.0), 1e-300)
             names = [columns[walk.idx[i]] for i in np.flatnonzero(big)] or [columns[i] for i in walk.idx]
             raise ModelError(
-                f"pinned columns {_join([*names, columns[j]], 'and')} depend on each other "
-                f"('{columns[j]}' is reproduced by {_join(names, 'and')}), so they cannot all be kept; "
+                f"pinned columns {join_words([*names, columns[j]])} depend on each other "
+                f"('{columns[j]}' is reproduced by {join_words(names)}), so they cannot all be kept; "
                 "unpin one of them"
             )
         walk.add(j, r, coords, nr)
@@ -811,100 +806,3 @@ def _combination_explained(j, first, second, res_of, columns, sd, roundoff, rel_
         reason="category" if category else "combination",
         category=category,
     )
-
-
-# --- plain-language sentences -------------------------------------------------------------
-
-def format_number(v: float) -> str:
-    """A number as a person writes it: up to 4 significant digits, no exponent between
-    1e-4 and 1e12 (30, not '3e+01'; 100,000,000 with thousands separated).
-
-    A number that is round up to round-off at up to 6 significant digits is
-    written that way (0.4999999999999999 -> '0.5', 273.15000000000043 -> '273.15').
-    """
-    v = float(v)
-    if v == 0 or not np.isfinite(v):
-        return "0" if v == 0 else str(v)
-    a = abs(v)
-    if 1e4 <= a < 1e12:
-        return f"{v:,.0f}"
-    if 1e-4 <= a < 1e4:
-        for digits in range(1, 7):
-            text = np.format_float_positional(v, precision=digits, unique=False, fractional=False, trim="-")
-            if abs(float(text) - v) <= 1e-9 * a:
-                return text
-        return np.format_float_positional(v, precision=4, unique=False, fractional=False, trim="-")
-    mant, exp = f"{v:.3e}".split("e")
-    mant = mant.rstrip("0").rstrip(".")
-    return f"{mant}e{int(exp)}"
-
-
-def _small(v: float) -> str:
-    """A left-over or share: two significant digits, positional between 1e-3 and 1e4."""
-    v = float(v)
-    if v == 0:
-        return "0"
-    if 1e-3 <= abs(v) < 1e4:
-        return np.format_float_positional(v, precision=2, unique=False, fractional=False, trim="-")
-    mant, exp = f"{v:.1e}".split("e")
-    mant = mant.rstrip("0").rstrip(".")
-    return f"{mant}e{int(exp)}"
-
-
-def _join(names, word: str = "or") -> str:
-    names = list(names)
-    if len(names) <= 1:
-        return "".join(names)
-    return ", ".join(names[:-1]) + f" {word} " + names[-1]
-
-
-def combination_text(sa: SetAside) -> str:
-    """``'32 + 1.8 × day_temp_c'``: the intercept (when not negligible) and the weighted terms."""
-    parts = []
-    scale = max([abs(sa.intercept)] + [abs(c) for c in sa.combination.values()] + [1e-300])
-    if sa.combination:
-        show_icpt = abs(sa.intercept) > 1e-9 * max(abs(sa.intercept) + sa.residual, 1.0) and \
-            abs(sa.intercept) > 1e-12 * scale
-    else:
-        show_icpt = True
-    terms = []
-    if show_icpt:
-        terms.append((sa.intercept, None))
-    terms.extend((c, name) for name, c in sa.combination.items())
-    for i, (c, name) in enumerate(terms):
-        mag = format_number(abs(c))
-        body = mag if name is None else (name if mag == "1" else f"{mag} × {name}")
-        if i == 0:
-            parts.append(("−" if c < 0 else "") + body)
-        else:
-            parts.append(("− " if c < 0 else "+ ") + body)
-    return " ".join(parts)
-
-
-def set_aside_sentence(sa: SetAside) -> str:
-    """One plain sentence saying why ``sa.column`` was set aside and what could replace it."""
-    reason = getattr(sa, "reason", "combination")
-    if reason == "too_few_rows":
-        return (f"{sa.column} was set aside because there are too few rows, not because of what it holds: "
-                f"the intercept and {sa.kept_count} kept columns already fit all {sa.rows} rows exactly, so the "
-                f"data cannot tell what {sa.column} adds. More rows than columns, or a penalized model, "
-                "would be needed to weigh it.")
-    if not sa.combination:
-        if sa.exact:
-            return (f"{sa.column} was set aside: it is constant ({format_number(sa.intercept)}) on every "
-                    "row with weight, so the intercept already carries it.")
-        return (f"{sa.column} was set aside: it is almost constant ({format_number(sa.intercept)}, "
-                f"varying by {_small(sa.residual)} RMS), so the intercept nearly carries it.")
-    if reason == "category" and sa.category:
-        how = "takes one value per" if sa.exact else "almost takes one value per"
-        return (f"{sa.column} {how} {sa.category}, so the {sa.category} categories reproduce it; "
-                f"its effect cannot be told apart from theirs, so it was set aside.")
-    alts = _join(sa.alternatives, "or")
-    expr = combination_text(sa)
-    if sa.exact:
-        return (f"{sa.column} was set aside: it equals {expr} exactly (up to the rounding of the stored "
-                f"numbers); keeping it instead of {alts} gives the same predictions.")
-    share = 100.0 * sa.relative_residual
-    return (f"{sa.column} was set aside: it almost equals {expr} (the two differ by {_small(sa.residual)} RMS, "
-            f"{_small(share)}% of its spread, within the chosen rank tolerance); keeping it instead of {alts} "
-            "gives almost the same predictions.")

@@ -20,6 +20,7 @@ from typing import TYPE_CHECKING, Dict, Optional, Tuple
 
 import numpy as np
 
+from regbench.formatting import number_text
 # Settings live in their own numpy-free module (the CLI builds its options from them at start-up);
 # they are re-exported here, where every result that carries them is defined.
 from regbench.models.settings import ALPHA_RULES, FitSettings  # noqa: F401
@@ -278,8 +279,10 @@ class SetAside(Result):
     rows: int = 0
     kept_count: int = 0
 
-    def sentence(self) -> str:  # implemented by the OLS module
-        from regbench.models.ols import set_aside_sentence
+    def sentence(self) -> str:
+        """Why the column was set aside and what could replace it, in one plain sentence."""
+        # sentences.py imports this module for the result classes: imported here to break the cycle.
+        from regbench.sentences import set_aside_sentence
 
         return set_aside_sentence(self)
 
@@ -481,8 +484,6 @@ class Convergence(Result):
 
     def sentence(self) -> str:
         """One line for people: certified, or flagged with where the solver stopped short."""
-        from regbench.formatting import number_text
-
         gap, tol = number_text(self.max_gap, 2), number_text(self.tolerance, 2)
         if self.converged:
             return (f"Solver converged: largest duality gap {gap} of the variance of y "

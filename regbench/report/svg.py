@@ -11,6 +11,8 @@ from html import escape
 
 import numpy as np
 
+from regbench.formatting import tick_text
+
 #: Lines that are not models take the window's column colours.
 from regbench.palette import SERIES as PALETTE  # noqa: E402
 
@@ -18,15 +20,6 @@ DASHES = ("6 3", "2 2", "8 3 2 3")
 
 W, H = 640, 300
 ML, MR, MT, MB = 64, 170, 28, 44
-
-
-def _fmt_tick(v: float) -> str:
-    if v == 0:
-        return "0"
-    a = abs(v)
-    if a >= 1e4 or a < 1e-3:
-        return f"{v:.1e}"
-    return f"{v:.4g}"
 
 
 def _ticks(lo: float, hi: float, n: int = 5):
@@ -98,10 +91,10 @@ def line_chart(series, *, title: str, xlabel: str, ylabel: str, log_x: bool = Fa
     for t in _ticks(y0, y1):
         yy = py(t)
         out.append(f'<line x1="{ML}" y1="{yy:.1f}" x2="{ML + pw}" y2="{yy:.1f}" stroke="#e4e4e4"/>')
-        out.append(f'<text x="{ML - 6}" y="{yy + 4:.1f}" text-anchor="end" class="tk">{_fmt_tick(t)}</text>')
+        out.append(f'<text x="{ML - 6}" y="{yy + 4:.1f}" text-anchor="end" class="tk">{tick_text(t)}</text>')
     for t in _ticks(x0, x1):
         xx = px(t)
-        label = _fmt_tick(10 ** t) if log_x else _fmt_tick(t)
+        label = tick_text(10 ** t) if log_x else tick_text(t)
         out.append(f'<line x1="{xx:.1f}" y1="{MT + ph}" x2="{xx:.1f}" y2="{MT + ph + 4}" stroke="#555"/>')
         out.append(f'<text x="{xx:.1f}" y="{MT + ph + 16}" text-anchor="middle" class="tk">{label}</text>')
     out.append(f'<rect x="{ML}" y="{MT}" width="{pw}" height="{ph}" fill="none" stroke="#888"/>')
@@ -187,7 +180,7 @@ def bar_chart(categories, groups, *, title: str, ylabel: str, colours=None) -> s
     for t in _ticks(lo, hi):
         xx = px(t)
         out.append(f'<line x1="{xx:.1f}" y1="{top}" x2="{xx:.1f}" y2="{top + n * row_h}" stroke="#e4e4e4"/>')
-        out.append(f'<text x="{xx:.1f}" y="{top + n * row_h + 14}" text-anchor="middle" class="tk">{_fmt_tick(t)}</text>')
+        out.append(f'<text x="{xx:.1f}" y="{top + n * row_h + 14}" text-anchor="middle" class="tk">{tick_text(t)}</text>')
     out.append(f'<line x1="{px(0):.1f}" y1="{top}" x2="{px(0):.1f}" y2="{top + n * row_h}" stroke="#555"/>')
     bh = max(3.0, (row_h - 6) / g)
     for i, cat in enumerate(categories):
@@ -289,7 +282,7 @@ def range_bars(columns, low, high, marks, *, title: str, xlabel: str, note_unbou
     for t in _ticks(lo, hi):
         xx = px(t)
         out.append(f'<line x1="{xx:.1f}" y1="{top}" x2="{xx:.1f}" y2="{bottom}" stroke="#ececec"/>')
-        out.append(f'<text x="{xx:.1f}" y="{bottom + 14}" text-anchor="middle" class="tk">{_fmt_tick(t)}</text>')
+        out.append(f'<text x="{xx:.1f}" y="{bottom + 14}" text-anchor="middle" class="tk">{tick_text(t)}</text>')
     out.append(f'<line x1="{px(0):.1f}" y1="{top - 4}" x2="{px(0):.1f}" y2="{bottom}" stroke="#555"/>')
     for i, c in enumerate(columns):
         y = top + i * row_h
