@@ -53,47 +53,69 @@ def line_chart(series, *, title: str, xlabel: str, ylabel: str, log_x: bool = Fa
         One colour per series (the window's model colours); default the shared column colours.
     """
     def tx(x):
-        return np.log10(x) if log_x else np.asarray(x, dtype=float)
+        return np.log10(np.asarray(x, dtype=float)) if log_x else np.asarray(x, dtype=float)
 
-    xs_all = [tx(np.asarray(s[1], dtype=float)) for s in series]
+    xs_all = [tx(s[1]) for s in series]
     ys_all = [np.asarray(s[2], dtype=float) for s in series]
     if band is not None:
-        xs_all.append(tx(np.asarray(band[0], dtype=float)))
+        xs_all.append(tx(band[0]))
         ys_all += [np.asarray(band[1], dtype=float), np.asarray(band[2], dtype=float)]
-    xcat = np.concatenate([x[np.isfinite(x)] for x in xs_all]) if xs_all else np.array([0.0])
-    ycat = np.concatenate([y[np.isfinite(y)] for y in ys_all]) if ys_all else np.array([0.0])
-    if hline is not None:
-        ycat = np.append(ycat, hline)
-    if xcat.size == 0:
-        xcat = np.array([0.0, 1.0])
-    if ycat.size == 0:
-        ycat = np.array([0.0, 1.0])
-    x0, x1 = float(xcat.min()), float(xcat.max())
-    y0, y1 = float(ycat.min()), float(ycat.max())
-    if x1 <= x0:
-        x0, x1 = x0 - 0.5, x1 + 0.5
-    if y1 <= y0:
-        y0, y1 = y0 - 0.5, y1 + 0.5
-    pad = 0.05 * (y1 - y0)
-    y0, y1 = y0 - pad, y1 + pad
-    pw, ph = W - ML - MR, H - MT - MB
-
-    def px(x):
-        return ML + (x - x0) / (x1 - x0) * pw
-
-    def py(y):
-        return MT + (y1 - y) / (y1 - y0) * ph
-
+    f = _Frame(xs_all, ys_all, hline)
     out = [f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {W} {H}" width="{W}" height="{H}" '
            f'role="img" aria-label="{escape(title)}" class="chart">',
            f'<rect x="0" y="0" width="{W}" height="{H}" fill="#ffffff"/>',
            f'<text x="{ML}" y="16" class="ct">{escape(title)}</text>']
-    for t in _ticks(y0, y1):
-        yy = py(t)
+    out += _axes(f, xlabel, ylabel, log_x)
+    if hline is not None and f.y0 <= hline <= f.y1:
+        out.append(f'<line x1="{ML}" y1="{f.py(hline):.1f}" x2="{ML + f.pw}" y2="{f.py(hline):.1f}" stroke="#999" '
+                   'stroke-dasharray="2 3"/>')
+    if band is not None:
+        out += _band(f, tx(band[0]), np.asarray(band[1], float), np.asarray(band[2], float))
+    out += _series_lines(f, [(label, tx(xs), np.asarray(ys, dtype=float)) for label, xs, ys in series], colours)
+    out += _markers(f, vlines, tx, log_x)
+    out.append("</svg>")
+    return "".join(out)
+
+
+class _Frame:
+    """The plot area of a line chart and the data ranges it shows (y padded by 5 %)."""
+
+    def __init__(self, xs_all, ys_all, hline=None):
+        xcat = np.concatenate([x[np.isfinite(x)] for x in xs_all]) if xs_all else np.array([0.0])
+        ycat = np.concatenate([y[np.isfinite(y)] for y in ys_all]) if ys_all else np.array([0.0])
+        if hline is not None:
+            ycat = np.append(ycat, hline)
+        if xcat.size == 0:
+            xcat = np.array([0.0, 1.0])
+        if ycat.size == 0:
+            ycat = np.array([0.0, 1.0])
+        x0, x1 = float(xcat.min()), float(xcat.max())
+        y0, y1 = float(ycat.min()), float(ycat.max())
+        if x1 <= x0:
+            x0, x1 = x0 - 0.5, x1 + 0.5
+        if y1 <= y0:
+            y0, y1 = y0 - 0.5, y1 + 0.5
+        pad = 0.05 * (y1 - y0)
+        self.x0, self.x1, self.y0, self.y1 = x0, x1, y0 - pad, y1 + pad
+        self.pw, self.ph = W - ML - MR, H - MT - MB
+
+    def px(self, x):
+        return ML + (x - self.x0) / (self.x1 - self.x0) * self.pw
+
+    def py(self, y):
+        return MT + (self.y1 - y) / (self.y1 - self.y0) * self.ph
+
+
+def _axes(f: _Frame, xlabel: str, ylabel: str, log_x: bool) -> list:
+    """Grid lines, ticks, the frame and the axis labels."""
+    out = []
+    pw, ph = f.pw, f.ph
+    for t in _ticks(f.y0, f.y1):
+        yy = f.py(t)
         out.append(f'<line x1="{ML}" y1="{yy:.1f}" x2="{ML + pw}" y2="{yy:.1f}" stroke="#e4e4e4"/>')
         out.append(f'<text x="{ML - 6}" y="{yy + 4:.1f}" text-anchor="end" class="tk">{tick_text(t)}</text>')
-    for t in _ticks(x0, x1):
-        xx = px(t)
+    for t in _ticks(f.x0, f.x1):
+        xx = f.px(t)
         label = tick_text(10 ** t) if log_x else tick_text(t)
         out.append(f'<line x1="{xx:.1f}" y1="{MT + ph}" x2="{xx:.1f}" y2="{MT + ph + 4}" stroke="#555"/>')
         out.append(f'<text x="{xx:.1f}" y="{MT + ph + 16}" text-anchor="middle" class="tk">{label}</text>')
@@ -101,46 +123,56 @@ def line_chart(series, *, title: str, xlabel: str, ylabel: str, log_x: bool = Fa
     out.append(f'<text x="{ML + pw / 2:.1f}" y="{H - 8}" text-anchor="middle" class="al">{escape(xlabel)}</text>')
     out.append(f'<text x="14" y="{MT + ph / 2:.1f}" text-anchor="middle" class="al" '
                f'transform="rotate(-90 14 {MT + ph / 2:.1f})">{escape(ylabel)}</text>')
-    if hline is not None and y0 <= hline <= y1:
-        out.append(f'<line x1="{ML}" y1="{py(hline):.1f}" x2="{ML + pw}" y2="{py(hline):.1f}" stroke="#999" '
-                   'stroke-dasharray="2 3"/>')
-    if band is not None:
-        bx, lo, hi = tx(np.asarray(band[0], dtype=float)), np.asarray(band[1], float), np.asarray(band[2], float)
-        ok = np.isfinite(bx) & np.isfinite(lo) & np.isfinite(hi)
-        if ok.any():
-            pts = [f"{px(a):.1f},{py(b):.1f}" for a, b in zip(bx[ok], hi[ok])]
-            pts += [f"{px(a):.1f},{py(b):.1f}" for a, b in zip(bx[ok][::-1], lo[ok][::-1])]
-            out.append(f'<polygon points="{" ".join(pts)}" fill="#1f5f8b" fill-opacity="0.15" stroke="none"/>')
-    for k, (label, xs, ys) in enumerate(series):
-        x, y = tx(np.asarray(xs, dtype=float)), np.asarray(ys, dtype=float)
+    return out
+
+
+def _band(f: _Frame, bx, lo, hi) -> list:
+    """A shaded band between ``lo`` and ``hi`` (x already on the chart's scale)."""
+    ok = np.isfinite(bx) & np.isfinite(lo) & np.isfinite(hi)
+    if not ok.any():
+        return []
+    pts = [f"{f.px(a):.1f},{f.py(b):.1f}" for a, b in zip(bx[ok], hi[ok])]
+    pts += [f"{f.px(a):.1f},{f.py(b):.1f}" for a, b in zip(bx[ok][::-1], lo[ok][::-1])]
+    return [f'<polygon points="{" ".join(pts)}" fill="#1f5f8b" fill-opacity="0.15" stroke="none"/>']
+
+
+def _series_lines(f: _Frame, series, colours) -> list:
+    """One line (or a dot, for a single point) per series, and the legend beside the plot."""
+    out = []
+    for k, (label, x, y) in enumerate(series):
         ok = np.isfinite(x) & np.isfinite(y)
         colour = colours[k] if colours is not None and k < len(colours) else PALETTE[k % len(PALETTE)]
         # Past the palette, lines repeat a colour with a dash pattern so each stays distinct.
         dash = "" if k < len(PALETTE) else f' stroke-dasharray="{DASHES[(k // len(PALETTE) - 1) % len(DASHES)]}"'
         if ok.sum() >= 2:
-            pts = " ".join(f"{px(a):.1f},{py(b):.1f}" for a, b in zip(x[ok], y[ok]))
+            pts = " ".join(f"{f.px(a):.1f},{f.py(b):.1f}" for a, b in zip(x[ok], y[ok]))
             out.append(f'<polyline points="{pts}" fill="none" stroke="{colour}" stroke-width="1.8"{dash}/>')
         elif ok.sum() == 1:
-            out.append(f'<circle cx="{px(x[ok][0]):.1f}" cy="{py(y[ok][0]):.1f}" r="3" fill="{colour}"/>')
+            out.append(f'<circle cx="{f.px(x[ok][0]):.1f}" cy="{f.py(y[ok][0]):.1f}" r="3" fill="{colour}"/>')
         if k < 14:
             ly = MT + 10 + 15 * k
-            out.append(f'<line x1="{ML + pw + 10}" y1="{ly}" x2="{ML + pw + 26}" y2="{ly}" stroke="{colour}" '
+            out.append(f'<line x1="{ML + f.pw + 10}" y1="{ly}" x2="{ML + f.pw + 26}" y2="{ly}" stroke="{colour}" '
                        f'stroke-width="2.5"{dash}/>')
-            out.append(f'<text x="{ML + pw + 30}" y="{ly + 4}" class="lg">{escape(_short(label))}</text>')
+            out.append(f'<text x="{ML + f.pw + 30}" y="{ly + 4}" class="lg">{escape(_short(label))}</text>')
     if len(series) > 14:
-        out.append(f'<text x="{ML + pw + 10}" y="{MT + 10 + 15 * 14 + 4}" class="lg">+{len(series) - 14} more</text>')
+        out.append(f'<text x="{ML + f.pw + 10}" y="{MT + 10 + 15 * 14 + 4}" class="lg">+{len(series) - 14} more</text>')
+    return out
+
+
+def _markers(f: _Frame, vlines, tx, log_x: bool) -> list:
+    """Vertical marks at given x (the chosen α), the first dashed long, the others short."""
+    out = []
     for k, (x, label) in enumerate(vlines):
         if x is None or not math.isfinite(float(x)) or (log_x and x <= 0):
             continue
         xv = float(tx(np.array([x]))[0])
-        if not x0 <= xv <= x1:
+        if not f.x0 <= xv <= f.x1:
             continue
-        xx = px(xv)
-        out.append(f'<line x1="{xx:.1f}" y1="{MT}" x2="{xx:.1f}" y2="{MT + ph}" stroke="#222" '
+        xx = f.px(xv)
+        out.append(f'<line x1="{xx:.1f}" y1="{MT}" x2="{xx:.1f}" y2="{MT + f.ph}" stroke="#222" '
                    f'stroke-dasharray="{"5 3" if k == 0 else "2 2"}"/>')
         out.append(f'<text x="{xx + 3:.1f}" y="{MT + 12 + 12 * k}" class="tk">{escape(label)}</text>')
-    out.append("</svg>")
-    return "".join(out)
+    return out
 
 
 def bar_chart(categories, groups, *, title: str, ylabel: str, colours=None) -> str:
