@@ -223,60 +223,92 @@ def interpolate_row(alphas: np.ndarray, coef: np.ndarray, alpha: float) -> np.nd
 
 def build_figure(d: FigureData, width: int, height: int) -> Figure:
     """Lay out the penalty figure for ``d`` at ``width`` × ``height`` pixels."""
-    alphas = np.asarray(d.alphas, dtype=float)
-    coef = np.asarray(d.coef, dtype=float)
-    cols = list(d.columns)
-    p = len(cols)
-    fig = Figure(width=int(width), height=int(height))
-    P = fig.prims
-    ink, muted, faint, grid = PALETTE["text"], PALETTE["muted"], PALETTE["faint"], PALETTE["grid"]
-    accent = PALETTE["accent"]
+    c = _Layout(d, width, height)
+    _alpha_axis(c)
+    _paths(c)
+    _end_labels(c)
+    _strip(c)
+    if c.has_cv:
+        _error_band(c)
+    _handle(c)
+    _readout(c)
+    _extras(c)
+    return c.fig
 
-    # -- horizontal layout: α falls from left to right; labels sit right of the path ends
-    longest = max((len(c) for c in cols), default=4)
-    label_w = min(max(text_width("x" * min(longest, 26)) + 14, 90), 200)
-    ml, mr = 58, label_w + 10
-    fig.x0, fig.x1 = float(ml), float(width - mr)
-    la = np.log10(alphas)
-    lo, hi = float(la.min()), float(la.max())
-    if d.cv is not None:
-        cla = np.log10(np.asarray(d.cv[0], dtype=float))
-        lo, hi = min(lo, float(cla.min())), max(hi, float(cla.max()))
-    a_log = math.log10(d.alpha) if d.alpha and d.alpha > 0 else hi
-    if hi - lo < 1e-9:
-        lo, hi = lo - 0.5, hi + 0.5
-    pad = 0.02 * (hi - lo)
-    fig.lx, fig.rx = hi + pad, lo - pad          # left: the strongest penalty
 
-    def X(logv):
+class _Layout:
+    """The figure's geometry and shared inputs, worked out once for all its parts.
+
+    α falls from left to right; the path labels sit right of the path ends. From the top:
+    the paths, the columns-used strip, the held-out error (when there is one), the α axis.
+    """
+
+    def __init__(self, d: FigureData, width: int, height: int):
+        self.d = d
+        self.alphas = np.asarray(d.alphas, dtype=float)
+        self.coef = np.asarray(d.coef, dtype=float)
+        self.cols = list(d.columns)
+        self.p = len(self.cols)
+        self.fig = fig = Figure(width=int(width), height=int(height))
+        self.P = fig.prims
+        # -- horizontal layout
+        longest = max((len(c) for c in self.cols), default=4)
+        label_w = min(max(text_width("x" * min(longest, 26)) + 14, 90), 200)
+        ml, self.mr = 58, label_w + 10
+        fig.x0, fig.x1 = float(ml), float(width - self.mr)
+        self.la = la = np.log10(self.alphas)
+        lo, hi = float(la.min()), float(la.max())
+        if d.cv is not None:
+            cla = np.log10(np.asarray(d.cv[0], dtype=float))
+            lo, hi = min(lo, float(cla.min())), max(hi, float(cla.max()))
+        self.a_log = math.log10(d.alpha) if d.alpha and d.alpha > 0 else hi
+        if hi - lo < 1e-9:
+            lo, hi = lo - 0.5, hi + 0.5
+        pad = 0.02 * (hi - lo)
+        fig.lx, fig.rx = hi + pad, lo - pad          # left: the strongest penalty
+        # -- vertical layout
+        top, axis_h, strip_h, gap = 8.0, 40.0, 30.0, 10.0
+        avail = height - top - axis_h - strip_h - 2 * gap
+        self.has_cv = has_cv = d.cv is not None and len(d.cv[0]) > 1
+        paths_h = avail * (0.62 if has_cv else 1.0)
+        err_h = avail - paths_h if has_cv else 0.0
+        self.r_paths = r_paths = (fig.x0, top, fig.x1, top + paths_h)
+        self.r_strip = r_strip = (fig.x0, r_paths[3] + gap, fig.x1, r_paths[3] + gap + strip_h)
+        self.r_err = r_err = (fig.x0, r_strip[3] + gap, fig.x1, r_strip[3] + gap + err_h)
+        self.axis_y = axis_y = (r_err[3] if has_cv else r_strip[3]) + 4
+        fig.regions = {"paths": r_paths, "strip": r_strip, "error": r_err if has_cv else None,
+                       "axis": (fig.x0, axis_y, fig.x1, axis_y + axis_h - 4)}
+        self.order = np.argsort(la)[::-1]          # left (large α) to right (small α)
+        self.xs = np.array([self.X(v) for v in la[self.order]])
+        self.hl = d.highlight if d.highlight in self.cols else None
+
+    def X(self, logv):
+        """Pixel column of log10 α."""
+        fig = self.fig
         return fig.x0 + (logv - fig.lx) / (fig.rx - fig.lx) * (fig.x1 - fig.x0)
 
-    # -- vertical layout
-    top, axis_h, strip_h, gap = 8.0, 40.0, 30.0, 10.0
-    avail = height - top - axis_h - strip_h - 2 * gap
-    has_cv = d.cv is not None and len(d.cv[0]) > 1
-    paths_h = avail * (0.62 if has_cv else 1.0)
-    err_h = avail - paths_h if has_cv else 0.0
-    r_paths = (fig.x0, top, fig.x1, top + paths_h)
-    r_strip = (fig.x0, r_paths[3] + gap, fig.x1, r_paths[3] + gap + strip_h)
-    r_err = (fig.x0, r_strip[3] + gap, fig.x1, r_strip[3] + gap + err_h)
-    axis_y = (r_err[3] if has_cv else r_strip[3]) + 4
-    fig.regions = {"paths": r_paths, "strip": r_strip, "error": r_err if has_cv else None,
-                   "axis": (fig.x0, axis_y, fig.x1, axis_y + axis_h - 4)}
 
-    # -- α axis: decades, labelled as α values, with the direction in words
+def _alpha_axis(c: _Layout) -> None:
+    """Decades, labelled as α values, with the direction in words."""
+    fig, P, X, axis_y = c.fig, c.P, c.X, c.axis_y
+    muted, grid = PALETTE["muted"], PALETTE["grid"]
     for t in range(math.ceil(min(fig.lx, fig.rx)), math.floor(max(fig.lx, fig.rx)) + 1):
         xx = X(t)
-        for r in (r_paths, r_err) if has_cv else (r_paths,):
+        for r in (c.r_paths, c.r_err) if c.has_cv else (c.r_paths,):
             P.append(Prim("line", ((xx, r[1]), (xx, r[3])), stroke=grid, width=0.8, opacity=0.7))
         P.append(Prim("line", ((xx, axis_y), (xx, axis_y + 4)), stroke=muted))
         P.append(Prim("text", ((xx, axis_y + 15),), text=number_text(10.0 ** t, 3), fill=muted, anchor="middle"))
     P.append(Prim("line", ((fig.x0, axis_y), (fig.x1, axis_y)), stroke=muted))
     P.append(Prim("text", ((fig.x0, axis_y + 31),), text="← stronger penalty, fewer columns", fill=muted))
     P.append(Prim("text", ((fig.x1, axis_y + 31),), text="weaker penalty, closer to OLS →", fill=muted, anchor="end"))
-    P.append(Prim("text", (((fig.x0 + fig.x1) / 2, axis_y + 31),), text="α", fill=ink, anchor="middle", bold=True))
+    P.append(Prim("text", (((fig.x0 + fig.x1) / 2, axis_y + 31),), text="α", fill=PALETTE["text"], anchor="middle",
+                  bold=True))
 
-    # -- paths
+
+def _paths(c: _Layout) -> None:
+    """The coefficient paths on their own scale (0 always shown); the highlighted one drawn last."""
+    fig, P, coef, r_paths, hl = c.fig, c.P, c.coef, c.r_paths, c.hl
+    muted, grid, faint = PALETTE["muted"], PALETTE["grid"], PALETTE["faint"]
     finite = coef[np.isfinite(coef)]
     y0, y1 = (float(finite.min()), float(finite.max())) if finite.size else (-1.0, 1.0)
     y0, y1 = min(y0, 0.0), max(y1, 0.0)
@@ -292,51 +324,55 @@ def build_figure(d: FigureData, width: int, height: int) -> Figure:
         P.append(Prim("line", ((fig.x0, Yp(t)), (fig.x1, Yp(t))), stroke=grid, width=0.6, opacity=0.6))
         P.append(Prim("text", ((fig.x0 - 6, Yp(t) + 4),), text=number_text(t, 3), fill=muted, anchor="end"))
     P.append(Prim("line", ((fig.x0, Yp(0.0)), (fig.x1, Yp(0.0))), stroke=muted, width=0.8))
-    P.append(Prim("text", ((fig.x0 + 4, r_paths[1] + 11),), text=d.ylabel, fill=muted))
+    P.append(Prim("text", ((fig.x0 + 4, r_paths[1] + 11),), text=c.d.ylabel, fill=muted))
 
-    order = np.argsort(la)[::-1]          # left (large α) to right (small α)
-    xs = np.array([X(v) for v in la[order]])
-    hl = d.highlight if d.highlight in cols else None
-    colours = {c: series_colour(j) for j, c in enumerate(cols)}
-    for j, c in enumerate(cols):
-        ys = np.array([Yp(v) for v in coef[order, j]])
+    c.colours = colours = {col: series_colour(j) for j, col in enumerate(c.cols)}
+    for j, col in enumerate(c.cols):
+        ys = np.array([Yp(v) for v in coef[c.order, j]])
         ok = np.isfinite(ys)
-        fig.curves[c] = (xs[ok], ys[ok])
-    drawing = [c for c in cols if c != hl] + ([hl] if hl else [])
-    for c in drawing:
-        cx, cy = fig.curves[c]
+        fig.curves[col] = (c.xs[ok], ys[ok])
+    drawing = [col for col in c.cols if col != hl] + ([hl] if hl else [])
+    for col in drawing:
+        cx, cy = fig.curves[col]
         if len(cx) < 2:
             continue
         if hl is None:
-            P.append(Prim("line", tuple(zip(cx, cy)), stroke=colours[c], width=1.5, role=f"curve:{c}"))
-        elif c == hl:
-            P.append(Prim("line", tuple(zip(cx, cy)), stroke=colours[c], width=2.8, role=f"curve:{c}"))
+            P.append(Prim("line", tuple(zip(cx, cy)), stroke=colours[col], width=1.5, role=f"curve:{col}"))
+        elif col == hl:
+            P.append(Prim("line", tuple(zip(cx, cy)), stroke=colours[col], width=2.8, role=f"curve:{col}"))
         else:
-            P.append(Prim("line", tuple(zip(cx, cy)), stroke=faint, width=1.1, role=f"curve:{c}"))
+            P.append(Prim("line", tuple(zip(cx, cy)), stroke=faint, width=1.1, role=f"curve:{col}"))
 
-    # End labels: as many as fit, the highlighted one and the largest ends first.
-    ends = {c: fig.curves[c][1][-1] for c in cols if len(fig.curves[c][1])}
+
+def _end_labels(c: _Layout) -> None:
+    """As many end labels as fit, the highlighted one and the largest ends first."""
+    fig, P, cols, r_paths, hl, colours = c.fig, c.P, c.cols, c.r_paths, c.hl, c.colours
+    muted, faint = PALETTE["muted"], PALETTE["faint"]
+    ends = {col: fig.curves[col][1][-1] for col in cols if len(fig.curves[col][1])}
     room = int((r_paths[3] - r_paths[1]) // LABEL_GAP) + 1
-    ranked = sorted(ends, key=lambda c: (c != hl, -abs(coef[order[-1], cols.index(c)])))
-    shown = [c for c in ranked[:room]]
-    placed = spread([ends[c] for c in shown], r_paths[1] + 6, r_paths[3] - 6)
+    ranked = sorted(ends, key=lambda col: (col != hl, -abs(c.coef[c.order[-1], cols.index(col)])))
+    shown = [col for col in ranked[:room]]
+    placed = spread([ends[col] for col in shown], r_paths[1] + 6, r_paths[3] - 6)
     lab_x = fig.x1 + 8
-    for c, yy in zip(shown, placed):
-        text = c if len(c) <= 26 else c[:25] + "…"
-        colour = colours[c] if (hl is None or c == hl) else faint
-        ey = ends[c]
+    for col, yy in zip(shown, placed):
+        text = col if len(col) <= 26 else col[:25] + "…"
+        colour = colours[col] if (hl is None or col == hl) else faint
+        ey = ends[col]
         if abs(yy - ey) > 2:
             P.append(Prim("line", ((fig.x1 + 1, ey), (lab_x - 2, yy)), stroke=colour, width=0.8))
         P.append(Prim("text", ((lab_x, yy + 4),), text=text, fill=colour if colour != faint else muted,
-                      bold=(c == hl), opacity=1.0 if (hl is None or c == hl) else 0.75, role=f"label:{c}"))
-        fig.labels[c] = (lab_x, yy - 7, text_width(text), 14.0)
+                      bold=(col == hl), opacity=1.0 if (hl is None or col == hl) else 0.75, role=f"label:{col}"))
+        fig.labels[col] = (lab_x, yy - 7, text_width(text), 14.0)
     if len(shown) < len(ends):
         P.append(Prim("text", ((lab_x, r_paths[3] + 8),), text=f"+{len(ends) - len(shown)} more (click a curve)",
                       fill=muted, size=10))
 
-    # -- strip: columns used along α
-    used = columns_used(coef)[order]
-    sx0, sy0, sx1, sy1 = r_strip
+
+def _strip(c: _Layout) -> None:
+    """How many columns the model uses along α, as a step area."""
+    P, xs, p, muted = c.P, c.xs, c.p, PALETTE["muted"]
+    used = columns_used(c.coef)[c.order]
+    sx0, sy0, sx1, sy1 = c.r_strip
     P.append(Prim("rect", ((sx0, sy0),), w=sx1 - sx0, h=sy1 - sy0, fill=PALETTE["alt_base"]))
     pts = [(xs[0], sy1)]
     for i in range(len(xs)):
@@ -345,83 +381,95 @@ def build_figure(d: FigureData, width: int, height: int) -> Figure:
         xm = (xl + xs[i]) / 2 if i else xs[0]
         pts += [(xm, sy1 - h)] if i == 0 else [(xm, pts[-1][1]), (xm, sy1 - h)]
     pts += [(xs[-1], pts[-1][1]), (xs[-1], sy1)]
-    P.append(Prim("poly", tuple(pts), fill=PALETTE["accent_soft"], stroke=accent, width=0.8))
+    P.append(Prim("poly", tuple(pts), fill=PALETTE["accent_soft"], stroke=PALETTE["accent"], width=0.8))
     P.append(Prim("text", ((sx0 - 6, sy0 + 12),), text="columns", fill=muted, anchor="end", size=10))
     P.append(Prim("text", ((sx0 - 6, sy0 + 24),), text="used", fill=muted, anchor="end", size=10))
     P.append(Prim("text", ((sx1 + 8, sy0 + 12),), text=f"of {p}", fill=muted, size=10))
 
-    # -- held-out error: a line in a band, the two choices as labelled marks
-    if has_cv:
-        ca, mean, se, a_min, a_1se = d.cv
-        ca, mean, se = (np.asarray(v, dtype=float) for v in (ca, mean, se))
-        co = np.argsort(np.log10(ca))[::-1]
-        ex = np.array([X(v) for v in np.log10(ca)[co]])
-        m, s = mean[co], se[co]
-        ok = np.isfinite(m) & np.isfinite(s)
-        e0 = float(np.min((m - s)[ok])) if ok.any() else 0.0
-        e1 = float(np.max((m + s)[ok])) if ok.any() else 1.0
-        if e1 - e0 < 1e-300:
-            e0, e1 = e0 - 0.5, e1 + 0.5
-        epad = 0.08 * (e1 - e0)
-        e0, e1 = e0 - epad, e1 + epad * 2.5   # headroom for the mark labels
 
-        def Ye(v):
-            return r_err[3] - (v - e0) / (e1 - e0) * (r_err[3] - r_err[1])
+def _error_band(c: _Layout) -> None:
+    """The held-out error as a line in a band, the two choices as labelled marks."""
+    d, fig, P, X, r_err = c.d, c.fig, c.P, c.X, c.r_err
+    ink, muted, grid = PALETTE["text"], PALETTE["muted"], PALETTE["grid"]
+    ca, mean, se, a_min, a_1se = d.cv
+    ca, mean, se = (np.asarray(v, dtype=float) for v in (ca, mean, se))
+    co = np.argsort(np.log10(ca))[::-1]
+    ex = np.array([X(v) for v in np.log10(ca)[co]])
+    m, s = mean[co], se[co]
+    ok = np.isfinite(m) & np.isfinite(s)
+    e0 = float(np.min((m - s)[ok])) if ok.any() else 0.0
+    e1 = float(np.max((m + s)[ok])) if ok.any() else 1.0
+    if e1 - e0 < 1e-300:
+        e0, e1 = e0 - 0.5, e1 + 0.5
+    epad = 0.08 * (e1 - e0)
+    e0, e1 = e0 - epad, e1 + epad * 2.5   # headroom for the mark labels
 
-        for t in ticks(e0, e1, 3):
-            if Ye(t) < r_err[1] + 8:
-                continue
-            P.append(Prim("line", ((fig.x0, Ye(t)), (fig.x1, Ye(t))), stroke=grid, width=0.6, opacity=0.6))
-            P.append(Prim("text", ((fig.x0 - 6, Ye(t) + 4),), text=number_text(t, 3), fill=muted, anchor="end"))
-        band = [(x, Ye(v)) for x, v in zip(ex[ok], (m + s)[ok])] + \
-               [(x, Ye(v)) for x, v in zip(ex[ok][::-1], (m - s)[ok][::-1])]
-        P.append(Prim("poly", tuple(band), fill=d.colour, opacity=0.18))
-        P.append(Prim("line", tuple((x, Ye(v)) for x, v in zip(ex[ok], m[ok])), stroke=d.colour, width=2.0))
-        P.append(Prim("text", ((fig.x0 + 4, r_err[1] + 11),), text=d.error_label, fill=muted))
-        marks = []
-        for a, text, filled in ((a_min, "lowest error", True), (a_1se, "simplest within 1 SE", False)):
-            if a is None or not (a > 0):
-                continue
-            i = int(np.argmin(np.abs(np.log10(ca) - math.log10(a))))
-            marks.append((X(math.log10(a)), Ye(mean[i]), Ye(mean[i] + se[i]), text, filled))
-        last_right = -1e9
-        for k, (mx, my, top_y, text, filled) in enumerate(sorted(marks)):
-            P.append(Prim("line", ((mx, top_y - 2), (mx, my)), stroke=ink, width=1.0, opacity=0.7))
-            P.append(Prim("circle", ((mx, my),), r=4.5, fill=ink if filled else PALETTE["base"], stroke=ink, width=1.4))
-            tw = text_width(text, 10)
-            ty = top_y - 6
-            anchor = "middle"
-            left = mx - tw / 2
-            if left < last_right + 6:        # labels of close marks go to either side
-                anchor, left = "start", mx + 4
-            if left + tw > fig.x1 + mr - 4:
-                anchor, left = "end", mx - tw
-            P.append(Prim("text", ((mx, ty),), text=text, fill=ink, size=10, anchor=anchor, role="mark"))
-            last_right = left + tw
+    def Ye(v):
+        return r_err[3] - (v - e0) / (e1 - e0) * (r_err[3] - r_err[1])
 
-    # -- the chosen α: a guide, a knob on the axis, the read-out beside it
-    hx = X(min(max(a_log, min(fig.lx, fig.rx)), max(fig.lx, fig.rx)))
+    for t in ticks(e0, e1, 3):
+        if Ye(t) < r_err[1] + 8:
+            continue
+        P.append(Prim("line", ((fig.x0, Ye(t)), (fig.x1, Ye(t))), stroke=grid, width=0.6, opacity=0.6))
+        P.append(Prim("text", ((fig.x0 - 6, Ye(t) + 4),), text=number_text(t, 3), fill=muted, anchor="end"))
+    band = [(x, Ye(v)) for x, v in zip(ex[ok], (m + s)[ok])] + \
+           [(x, Ye(v)) for x, v in zip(ex[ok][::-1], (m - s)[ok][::-1])]
+    P.append(Prim("poly", tuple(band), fill=d.colour, opacity=0.18))
+    P.append(Prim("line", tuple((x, Ye(v)) for x, v in zip(ex[ok], m[ok])), stroke=d.colour, width=2.0))
+    P.append(Prim("text", ((fig.x0 + 4, r_err[1] + 11),), text=d.error_label, fill=muted))
+    marks = []
+    for a, text, filled in ((a_min, "lowest error", True), (a_1se, "simplest within 1 SE", False)):
+        if a is None or not (a > 0):
+            continue
+        i = int(np.argmin(np.abs(np.log10(ca) - math.log10(a))))
+        marks.append((X(math.log10(a)), Ye(mean[i]), Ye(mean[i] + se[i]), text, filled))
+    last_right = -1e9
+    for k, (mx, my, top_y, text, filled) in enumerate(sorted(marks)):
+        P.append(Prim("line", ((mx, top_y - 2), (mx, my)), stroke=ink, width=1.0, opacity=0.7))
+        P.append(Prim("circle", ((mx, my),), r=4.5, fill=ink if filled else PALETTE["base"], stroke=ink, width=1.4))
+        tw = text_width(text, 10)
+        ty = top_y - 6
+        anchor = "middle"
+        left = mx - tw / 2
+        if left < last_right + 6:        # labels of close marks go to either side
+            anchor, left = "start", mx + 4
+        if left + tw > fig.x1 + c.mr - 4:
+            anchor, left = "end", mx - tw
+        P.append(Prim("text", ((mx, ty),), text=text, fill=ink, size=10, anchor=anchor, role="mark"))
+        last_right = left + tw
+
+
+def _handle(c: _Layout) -> None:
+    """The chosen α: a guide across the plots and a knob on the axis."""
+    fig, P, axis_y, accent = c.fig, c.P, c.axis_y, PALETTE["accent"]
+    hx = c.X(min(max(c.a_log, min(fig.lx, fig.rx)), max(fig.lx, fig.rx)))
     fig.handle_x = hx
-    bottom = r_err[3] if has_cv else r_strip[3]
-    P.append(Prim("line", ((hx, r_paths[1]), (hx, bottom)), stroke=accent, width=1.2, opacity=0.85, role="guide"))
-    knob_text = f"α {number_text(d.alpha, 3)}"
+    bottom = c.r_err[3] if c.has_cv else c.r_strip[3]
+    P.append(Prim("line", ((hx, c.r_paths[1]), (hx, bottom)), stroke=accent, width=1.2, opacity=0.85, role="guide"))
+    knob_text = f"α {number_text(c.d.alpha, 3)}"
     kw = text_width(knob_text) + 16
     fig.knob = (hx - kw / 2, axis_y - 9, kw, 18.0)
     P.append(Prim("rect", ((hx - kw / 2, axis_y - 9),), w=kw, h=18.0, fill=accent, stroke=accent, r=9.0, role="knob"))
     P.append(Prim("text", ((hx, axis_y + 4),), text=knob_text, fill="#ffffff", anchor="middle", bold=True))
 
+
+def _readout(c: _Layout) -> None:
+    """The model's coefficients at the chosen α in a box beside the guide (≈ when read off the path)."""
+    d, fig, P, p, hl = c.d, c.fig, c.P, c.p, c.hl
+    ink, accent = PALETTE["text"], PALETTE["accent"]
+    hx = fig.handle_x
     if d.readout is not None:
-        values = [(c, float(v)) for c, v in d.readout]
+        values = [(col, float(v)) for col, v in d.readout]
         approx = False
     else:
-        row = interpolate_row(alphas, coef, d.alpha)
-        values = list(zip(cols, row.tolist()))
+        row = interpolate_row(c.alphas, c.coef, d.alpha)
+        values = list(zip(c.cols, row.tolist()))
         approx = True
     n_used = d.n_used if d.n_used is not None else sum(1 for _, v in values if v != 0.0)
     ranked_v = sorted(values, key=lambda cv: (cv[0] != hl, -abs(cv[1]) if math.isfinite(cv[1]) else 0.0))
-    rows = [(c, v) for c, v in ranked_v if v != 0.0 or c == hl][:READOUT_ROWS]
+    rows = [(col, v) for col, v in ranked_v if v != 0.0 or col == hl][:READOUT_ROWS]
     head = f"{n_used} of {p} columns used"
-    lines = [(head, None, True)] + [(c if len(c) <= 18 else c[:17] + "…", v, c == hl) for c, v in rows]
+    lines = [(head, None, True)] + [(col if len(col) <= 18 else col[:17] + "…", v, col == hl) for col, v in rows]
     if n_used > len(rows):
         lines.append((f"… {n_used - len(rows)} more", None, False))
     vals_w = max((text_width(("≈" if approx else "") + number_text(v, 4), 10) for _, v in rows), default=0.0)
@@ -429,7 +477,7 @@ def build_figure(d: FigureData, width: int, height: int) -> Figure:
     box_w = max(text_width(head, 10) + 20, names_w + vals_w + 30, 140.0)
     box_h = 8 + 14 * len(lines)
     bx = hx + 10 if hx + 10 + box_w <= fig.x1 else hx - 10 - box_w
-    by = r_paths[1] + 4
+    by = c.r_paths[1] + 4
     P.append(Prim("rect", ((bx, by),), w=box_w, h=box_h, fill=PALETTE["base"], stroke=accent, opacity=0.93, r=3.0,
                   role="readout"))
     for k, (text, v, strong) in enumerate(lines):
@@ -438,14 +486,18 @@ def build_figure(d: FigureData, width: int, height: int) -> Figure:
         if v is not None:
             P.append(Prim("text", ((bx + box_w - 8, ty),), text=("≈" if approx else "") + number_text(v, 4),
                           fill=ink, size=10, anchor="end", bold=strong))
-    for name, a, colour in d.extras:
+
+
+def _extras(c: _Layout) -> None:
+    """Other fits of this family kept at their own α: a small marker on the axis each."""
+    fig, P, axis_y = c.fig, c.P, c.axis_y
+    for name, a, colour in c.d.extras:
         if a and a > 0:
-            ex_ = X(math.log10(a))
+            ex_ = c.X(math.log10(a))
             if fig.x0 <= ex_ <= fig.x1:
                 P.append(Prim("poly", ((ex_, axis_y - 12), (ex_ - 5, axis_y - 20), (ex_ + 5, axis_y - 20)),
                               fill=colour))
                 P.append(Prim("text", ((ex_ + 7, axis_y - 13),), text=name, fill=colour, size=9))
-    return fig
 
 
 def figure_svg(fig: Figure, title: str = "") -> str:
