@@ -359,10 +359,32 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-
     def bad(field, what):
         raise ProjectError(f"{ar.label}: {where}.{field} {what}; the file is damaged")
 
+    cols, rows, notes, lines = _table_meta(ar, meta, where, bad)
+    _check_parquet_sizes(ar, data, rows, cols, bad)
+    try:
+        tab = pq.read_table(pa.BufferReader(data))
+    except Exception as exc:  # pyarrow raises several types on damaged data
+        raise ProjectError(f"{ar.label}: member 'table.parquet' is not a readable Parquet table "
+                           f"({type(exc).__name__}: {str(exc)[:200]}); the file is damaged") from None
+    if tab.num_rows != rows:
+        bad("rows", f"says {rows} but table.parquet holds {tab.num_rows} rows")
+    if tab.num_columns != len(cols):
+        bad("columns", f"lists {len(cols)} columns but table.parquet holds {tab.num_columns}")
+    infos, data_cols = {}, {}
+    for j, c in enumerate(cols):
+        name, values, info = _stored_column(j, c, tab, infos, bad)
+        data_cols[name], infos[name] = values, info
+    # The same construction as the reader, so dtypes come back as they were.
+    frame = pd.DataFrame(data_cols, index=pd.RangeIndex(rows))
+    return Table(frame=frame, columns=infos, source=meta.get("source", ""), notes=tuple(notes),
+                 line_numbers=tuple(lines))
+
+
+def _table_meta(ar: _Archive, meta, where, bad):
+    """The table's description in session.json, checked: its columns, rows, notes and line numbers."""
     if not isinstance(meta, dict):
         raise ProjectError(f"{ar.label}: {where} is missing or not an object; the file is damaged")
     cols = meta.get("columns")
@@ -381,61 +403,54 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
             and (not lines or (len(lines) == rows and lines[0] >= 1
                                and all(a < b for a, b in zip(lines, lines[1:]))))):
         bad("line_numbers", "must list one increasing row number >= 1 per row")
-    _check_parquet_sizes(ar, data, rows, cols, bad)
-    try:
-        tab = pq.read_table(pa.BufferReader(data))
-    except Exception as exc:  # pyarrow raises several types on damaged data
-        raise ProjectError(f"{ar.label}: member 'table.parquet' is not a readable Parquet table "
-                           f"({type(exc).__name__}: {str(exc)[:200]}); the file is damaged") from None
-    if tab.num_rows != rows:
-        bad("rows", f"says {rows} but table.parquet holds {tab.num_rows} rows")
-    if tab.num_columns != len(cols):
-        bad("columns", f"lists {len(cols)} columns but table.parquet holds {tab.num_columns}")
-    infos, data_cols = {}, {}
-    for j, c in enumerate(cols):
-        f = f"columns[{j}]"
-        if not isinstance(c, dict):
-            bad(f, "must be an object")
-        name = c.get("name")
-        if not isinstance(name, str) or not name:
-            bad(f + ".name", "must be a non-empty column name")
-        if name in infos:
-            bad(f + ".name", f"repeats column '{name}'")
-        if tab.column_names[j] != name:
-            bad(f + ".name", f"is '{name}' but table.parquet has '{tab.column_names[j]}' there")
-        kind = c.get("kind")
-        if kind not in COLUMN_KINDS:
-            bad(f + ".kind", f"is {kind!r}; known kinds are {', '.join(COLUMN_KINDS)}")
-        for k in ("missing", "distinct"):
-            v = c.get(k)
-            if isinstance(v, bool) or not isinstance(v, int) or v < 0:
-                bad(f"{f}.{k}", f"is {v!r}, not a whole number >= 0")
-        if not isinstance(c.get("coded_categories", False), bool):
-            bad(f + ".coded_categories", "must be true or false")
-        if not isinstance(c.get("note", ""), str):
-            bad(f + ".note", "must be text")
-        cells = c.get("bad_cells", [])
-        if not isinstance(cells, list):
-            bad(f + ".bad_cells", "must be a list of [row, text]")
-        for i, cell in enumerate(cells):
-            if not (isinstance(cell, list) and len(cell) == 2 and isinstance(cell[0], int)
-                    and not isinstance(cell[0], bool) and cell[0] >= 1 and isinstance(cell[1], str)):
-                bad(f"{f}.bad_cells[{i}]", "must be [row number >= 1, text]")
-        arr = tab.column(j)
-        if kind == "categorical":
-            if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
-                bad(f + ".kind", f"is categorical but table.parquet stores '{name}' as {arr.type}")
-            data_cols[name] = np.array(arr.to_pylist(), dtype=object)
-        else:
-            if not pa.types.is_float64(arr.type):
-                bad(f + ".kind", f"is {kind} but table.parquet stores '{name}' as {arr.type}")
-            data_cols[name] = arr.to_numpy(zero_copy_only=False).astype(np.float64, copy=True)
-        infos[name] = ColumnInfo(name, kind, c["missing"], c["distinct"], bool(c.get("coded_categories", False)),
-                                 tuple((int(r), str(t)) for r, t in cells), c.get("note", ""))
-    # The same construction as the reader, so dtypes come back as they were.
-    frame = pd.DataFrame(data_cols, index=pd.RangeIndex(rows))
-    return Table(frame=frame, columns=infos, source=meta.get("source", ""), notes=tuple(notes),
-                 line_numbers=tuple(lines))
+    return cols, rows, notes, lines
+
+
+def _stored_column(j: int, c, tab, infos: dict, bad):
+    """Column ``j`` of the stored table: its name, values and :class:`ColumnInfo`, its description
+    checked against itself and against what table.parquet holds there."""
+    import pyarrow as pa
+
+    f = f"columns[{j}]"
+    if not isinstance(c, dict):
+        bad(f, "must be an object")
+    name = c.get("name")
+    if not isinstance(name, str) or not name:
+        bad(f + ".name", "must be a non-empty column name")
+    if name in infos:
+        bad(f + ".name", f"repeats column '{name}'")
+    if tab.column_names[j] != name:
+        bad(f + ".name", f"is '{name}' but table.parquet has '{tab.column_names[j]}' there")
+    kind = c.get("kind")
+    if kind not in COLUMN_KINDS:
+        bad(f + ".kind", f"is {kind!r}; known kinds are {', '.join(COLUMN_KINDS)}")
+    for k in ("missing", "distinct"):
+        v = c.get(k)
+        if isinstance(v, bool) or not isinstance(v, int) or v < 0:
+            bad(f"{f}.{k}", f"is {v!r}, not a whole number >= 0")
+    if not isinstance(c.get("coded_categories", False), bool):
+        bad(f + ".coded_categories", "must be true or false")
+    if not isinstance(c.get("note", ""), str):
+        bad(f + ".note", "must be text")
+    cells = c.get("bad_cells", [])
+    if not isinstance(cells, list):
+        bad(f + ".bad_cells", "must be a list of [row, text]")
+    for i, cell in enumerate(cells):
+        if not (isinstance(cell, list) and len(cell) == 2 and isinstance(cell[0], int)
+                and not isinstance(cell[0], bool) and cell[0] >= 1 and isinstance(cell[1], str)):
+            bad(f"{f}.bad_cells[{i}]", "must be [row number >= 1, text]")
+    arr = tab.column(j)
+    if kind == "categorical":
+        if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
+            bad(f + ".kind", f"is categorical but table.parquet stores '{name}' as {arr.type}")
+        values = np.array(arr.to_pylist(), dtype=object)
+    else:
+        if not pa.types.is_float64(arr.type):
+            bad(f + ".kind", f"is {kind} but table.parquet stores '{name}' as {arr.type}")
+        values = arr.to_numpy(zero_copy_only=False).astype(np.float64, copy=True)
+    info = ColumnInfo(name, kind, c["missing"], c["distinct"], bool(c.get("coded_categories", False)),
+                      tuple((int(r), str(t)) for r, t in cells), c.get("note", ""))
+    return name, values, info
 
 
 #: Bytes a table cell may take once decompressed (a float takes 8; text is held to this on average).
