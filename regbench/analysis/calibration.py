@@ -34,7 +34,7 @@ from typing import Dict, Optional, Tuple
 
 import numpy as np
 
-from regbench.analysis.agreement import in_sentence
+from regbench.analysis.agreement import in_sentence, json_number as j
 from regbench.formatting import sentence_number as fmt
 from regbench.models.results import Result, model_label
 
@@ -62,8 +62,6 @@ class Calibration(Result):
     curve_observed: np.ndarray  # isotonic estimate of the share of "yes" at that probability
 
     def to_dict(self) -> dict:
-        from regbench.analysis.agreement import json_number as j
-
         return {"intercept": j(self.intercept), "slope": j(self.slope), "brier": j(self.brier),
                 "miscalibration": j(self.miscalibration), "discrimination": j(self.discrimination),
                 "uncertainty": j(self.uncertainty), "log_loss": j(self.log_loss),
@@ -84,8 +82,6 @@ class Discrimination(Result):
     flagged: np.ndarray  # weighted share of rows at or above each threshold
 
     def to_dict(self) -> dict:
-        from regbench.analysis.agreement import json_number as j
-
         return {"auc": j(self.auc),
                 "roc": {"false_positive_rate": [j(v) for v in self.roc_fpr],
                         "true_positive_rate": [j(v) for v in self.roc_tpr]},
@@ -112,8 +108,6 @@ class Classification(Result):
     splits: Tuple[str, ...] = field(default=("training", "held_out"))
 
     def to_dict(self) -> dict:
-        from regbench.analysis.agreement import json_number as j
-
         return {
             "positive_level": self.positive_level, "observed_share": j(self.observed_share),
             "threshold": j(self.threshold) if self.threshold is not None else None,

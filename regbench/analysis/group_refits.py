@@ -27,8 +27,11 @@ from dataclasses import replace
 import numpy as np
 
 from regbench.errors import ModelError
+from regbench.models.engine import GRAM_COND_LIMIT, alpha_for, families, problem_for, relaxation_for
 from regbench.models.gram import GramStats, per_fold
 from regbench.models.coding import LevelCoding
+from regbench.models.ols import default_rank_tol, fit_ols
+from regbench.models.penalized import model_from_problem
 from regbench.models.results import LinearModel
 
 #: What is left of a column, relative to its size, below which a refit from cross-products
@@ -49,8 +52,6 @@ class GroupRefits:
     """
 
     def __init__(self, design, settings, alphas: dict, relaxations=None):
-        from regbench.models.engine import alpha_for, families, relaxation_for
-
         if design.groups is None:
             raise ModelError("refits from group cross-products need a group column")
         self.design = design
@@ -94,9 +95,6 @@ class GroupRefits:
 
     def refit(self, counts: np.ndarray) -> dict:
         """OLS and each penalized family on the draw; dict of name -> LinearModel, OLS first."""
-        from regbench.models.engine import problem_for
-        from regbench.models.penalized import model_from_problem
-
         st = self.stats(counts)
         if not st.W > 0:
             raise ModelError("the rows being fitted have total weight 0; there is nothing to fit")
@@ -108,9 +106,6 @@ class GroupRefits:
         return out
 
     def _ols(self, st: GramStats, counts) -> LinearModel:
-        from regbench.models.engine import GRAM_COND_LIMIT
-        from regbench.models.ols import default_rank_tol
-
         design = self.design
         p = design.p
         G, c, mean, sd = st.standardized()
@@ -132,8 +127,6 @@ class GroupRefits:
                            coef_std=coef * sd)
 
     def _ols_on_rows(self, counts) -> LinearModel:
-        from regbench.models.ols import fit_ols
-
         d = self.design
         w = d.weights * np.asarray(counts, dtype=np.float64)[d.groups]
         return fit_ols(replace(d, weights=w), self.settings.pins, self.settings.rank_tol).model

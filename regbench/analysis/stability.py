@@ -27,8 +27,11 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from regbench.analysis.agreement import in_sentence, json_number
+from regbench.analysis.group_refits import GroupRefits
 from regbench.errors import DataError, ModelError
 from regbench.formatting import join_words
+from regbench.models.engine import fit_models_at
+from regbench.models.ols import fit_ols, one_blas_thread
 from regbench.models.results import Result, aligned, model_columns, model_label
 from regbench.progress import check, report
 
@@ -146,8 +149,6 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
     -------
     Stability
     """
-    from regbench.models.ols import one_blas_thread
-
     n_boot = int(n_boot)
     if n_boot < 2:
         raise DataError(f"stability needs at least 2 bootstrap refits, not {n_boot}")
@@ -163,17 +164,12 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
 
 
 def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups, relaxations=None) -> Stability:
-    from regbench.models.engine import fit_models_at
-    from regbench.models.ols import fit_ols
-
     rng = np.random.default_rng(seed)
     draws = None
     names = None
     flat = 0
     refitter = None
     if by_groups:
-        from regbench.analysis.group_refits import GroupRefits
-
         refitter = GroupRefits(design, settings, alphas, relaxations)
     separated = 0
     for b in range(n_boot):

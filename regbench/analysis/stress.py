@@ -38,8 +38,10 @@ from typing import Optional
 import numpy as np
 
 from regbench.analysis.agreement import in_sentence, json_number, weighted_mean, weighted_rms, weighted_sd
+from regbench.data.derive import dependents, recompute
 from regbench.errors import DataError
 from regbench.formatting import join_words, sentence_number
+from regbench.models.engine import fit_all, fit_models_at
 from regbench.models.results import Result, model_label
 from regbench.progress import check, report
 
@@ -281,8 +283,6 @@ def _own_columns(design, column: str) -> list:
 
 def _followers(design, column: str) -> list:
     """(design index, Derived) of the derived design columns computed from ``column``."""
-    from regbench.data.derive import dependents
-
     names = {c: j for j, c in enumerate(design.columns)}
     return [(names[d.name], d) for d in dependents(getattr(design, "derived", ()), column) if d.name in names]
 
@@ -357,8 +357,6 @@ def _damaged(block: np.ndarray, w: np.ndarray, config: StressConfig, one_draw_pe
 
 
 def _damage_with_followers(design, idx, config, follow) -> np.ndarray:
-    from regbench.data.derive import recompute
-
     idx = list(idx)
     own = [j for j in idx if j not in {k for k, _ in follow}]
     block = design.X[:, idx].copy()
@@ -746,8 +744,6 @@ def stress_refit(design, settings, alphas: dict, config: StressConfig, relaxatio
     Each retrained model's predictions on the clean rows are compared with the
     clean fit's predictions at the same α (``engine.fit_models_at``).
     """
-    from regbench.models.engine import fit_models_at
-
     idx = resolve_column(design, config.column)
     strength = config.resolved_strength()
     tol = default_tolerance(design) if config.tolerance is None else float(config.tolerance)
@@ -782,8 +778,6 @@ def stress_command(design, settings, column: Optional[str], all_columns: bool, k
         ``{"json": dict, "result": StressResult or ColumnRanking}`` for ``regbench stress``
         (its text: :func:`regbench.sentences.stress_text` / :func:`~regbench.sentences.ranking_text`).
     """
-    from regbench.models.engine import fit_all
-
     if all_columns and column:
         raise DataError("give either --column or --all-columns, not both")
     if not all_columns and not column:
