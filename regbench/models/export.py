@@ -39,15 +39,13 @@ OBJECTIVE_BINARY = ("minimise (1/W)·Σ wᵢ ℓ(yᵢ, pᵢ) + α·(ρ‖β‖�
 
 
 def _set_aside_json(set_aside) -> list:
-    from regbench.models.ols import set_aside_sentence
-
     return [{
         "column": sa.column,
         "combination": {k: _num(v) for k, v in sa.combination.items()},
         "intercept": _num(sa.intercept),
         "residual": _num(sa.residual),
         "alternatives": list(sa.alternatives),
-        "sentence": set_aside_sentence(sa),
+        "sentence": sa.sentence(),
     } for sa in set_aside]
 
 
