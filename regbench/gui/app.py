@@ -5,6 +5,8 @@ from __future__ import annotations
 import sys
 from typing import Optional
 
+from regbench.gui.window import MainWindow
+
 
 def application():
     """The QApplication (created once, with our names so settings and recovery files have a home)."""
@@ -21,8 +23,6 @@ def application():
 def run(path: Optional[str] = None) -> int:
     """Open the main window (on ``path``, a table or a .regbench project, if given) and run until it closes."""
     app = application()
-    from regbench.gui.window import MainWindow
-
     window = MainWindow()
     window.show()
     if path:

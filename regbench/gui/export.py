@@ -11,6 +11,7 @@ import os
 from PySide6 import QtCore, QtGui, QtSvg, QtWidgets
 
 from regbench.errors import RegbenchError
+from regbench.gui.tables import cell_text, header_text
 
 
 def export_png(plot_widget, path: str, width: int = 1200) -> str:
@@ -100,8 +101,6 @@ def export_plot(widget, path: str) -> str:
 def export_csv(model, path: str) -> str:
     """A table model as CSV (UTF-8, header line first) with every number at full precision."""
     import csv
-
-    from regbench.gui.tables import cell_text, header_text
 
     from PySide6.QtCore import Qt
 

@@ -105,6 +105,7 @@ CAUTIONS = (
 def help_html(panels=None) -> str:
     """The help text; ``panels`` are (menu name, question) pairs, by default the window's own."""
     if panels is None:
+        # The window imports this module for its help view: imported here to break the cycle.
         from regbench.gui.window import _panel_classes
 
         panels = [(cls.nav, cls.title) for cls in _panel_classes()]

@@ -15,9 +15,11 @@ from typing import Optional
 import numpy as np
 from PySide6 import QtCore, QtGui, QtWidgets
 
-from regbench.data.design import Roles, default_predictors
+from regbench.data.derive import apply_derived, make_derived
+from regbench.data.design import Roles, build_design, default_positive_level, default_predictors, target_levels
 from regbench.data.identifiers import identifier_columns
 from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC
+from regbench.errors import DataError
 from regbench.gui.style import PALETTE
 
 Qt = QtCore.Qt
@@ -58,9 +60,6 @@ def openable_roles(table, roles: Roles):
 
     Returns (roles, note); note says what was left unticked (None when nothing was).
     """
-    from regbench.data.design import build_design
-    from regbench.errors import DataError
-
     try:
         build_design(table, roles)
         return roles, None
@@ -111,8 +110,6 @@ class RoleDraft(QtCore.QObject):
 
     def load(self, table, roles: Roles, settings, bootstrap: int, unusable: Optional[dict] = None) -> None:
         """Take the session's choices; ``table`` is the table as read (derived columns are added here)."""
-        from regbench.data.derive import apply_derived
-
         self.base_table = table
         self.derived = tuple(roles.derived)
         table = self.table = apply_derived(table, self.derived)
@@ -166,8 +163,6 @@ class RoleDraft(QtCore.QObject):
 
     def target_levels(self) -> tuple:
         """The target's two values when it has exactly two (a possible yes/no outcome), else ()."""
-        from regbench.data.design import target_levels
-
         if self.table is None or self.target not in self.table.columns:
             return ()
         if self.table.columns[self.target].distinct != 2:
@@ -196,8 +191,6 @@ class RoleDraft(QtCore.QObject):
 
     def add_derived(self, operation: str, columns) -> str:
         """Add a derived column (ticked); raises DataError, changing nothing, when the operation cannot take it."""
-        from regbench.data.derive import apply_derived, make_derived
-
         d = make_derived(operation, list(columns))
         table = apply_derived(self.base_table, self.derived + (d,))
         self.derived += (d,)
@@ -208,8 +201,6 @@ class RoleDraft(QtCore.QObject):
 
     def remove_derived(self, name: str) -> None:
         """Remove a derived column and those built on it, and every choice that names them."""
-        from regbench.data.derive import apply_derived
-
         gone, keep = {name}, []
         for d in self.derived:
             if d.name in gone or gone.intersection(d.columns):
@@ -217,8 +208,6 @@ class RoleDraft(QtCore.QObject):
             else:
                 keep.append(d)
         if self.target in gone:
-            from regbench.errors import DataError
-
             raise DataError(f"'{name}' is what the models explain; choose another target before removing it")
         self.derived = tuple(keep)
         self.table = apply_derived(self.base_table, self.derived)
@@ -392,8 +381,6 @@ class QuestionBar(QtWidgets.QFrame):
         self.yes_level.blockSignals(True)
         self.yes_level.clear()
         if levels:
-            from regbench.data.design import default_positive_level
-
             default = default_positive_level(levels, d.table.columns[d.target].kind)
             for lev in levels:
                 self.yes_level.addItem(f"('{lev}' = yes)", "binary:" + lev)

@@ -18,6 +18,7 @@ def snapshot(project_path, out_dir, size=SIZE) -> list:
     os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
     from PySide6 import QtCore, QtWidgets
 
+    # Imported once the platform is set above, so no Qt module loads before it.
     from regbench.gui.app import application
     from regbench.gui.window import MainWindow
     from regbench.project import load_project

@@ -7,12 +7,28 @@ from typing import Optional
 
 from PySide6 import QtCore, QtGui, QtWidgets
 
+from regbench.data import read_table
 from regbench.errors import DataError, ProjectError, RegbenchError
-from regbench.gui.panels.data import cache_words
+from regbench.gui.export import export_csv, export_plot
+from regbench.gui.help import HelpView
+from regbench.gui.panels.agreement import AgreementPanel
+from regbench.gui.panels.calibration import CalibrationPanel
+from regbench.gui.panels.coefficients import CoefficientsPanel
+from regbench.gui.panels.data import DataPanel, cache_words
+from regbench.gui.panels.fitquality import FitQualityPanel
+from regbench.gui.panels.overlaps import OverlapsPanel
+from regbench.gui.panels.paths import PathsPanel
+from regbench.gui.panels.ranges import RangesPanel
+from regbench.gui.panels.stability import StabilityPanel
+from regbench.gui.panels.stress import StressPanel
 from regbench.gui.roles import TARGET_RULE, QuestionBar, RoleDraft, can_explain, default_roles, openable_roles
 from regbench.gui.style import STYLESHEET, configure_pyqtgraph
 from regbench.gui.tables import view_to_tsv
 from regbench.gui.worker import Runner
+from regbench.models.results import FitSettings
+from regbench.project import load_project, save_project
+from regbench.report import render_report
+from regbench.session import Session
 
 Qt = QtCore.Qt
 TABLE_EXTS = (".csv", ".tsv", ".tab", ".txt", ".xlsx", ".parquet", ".pq")
@@ -65,17 +81,6 @@ def recovery_path() -> str:
 
 
 def _panel_classes():
-    from regbench.gui.panels.agreement import AgreementPanel
-    from regbench.gui.panels.calibration import CalibrationPanel
-    from regbench.gui.panels.coefficients import CoefficientsPanel
-    from regbench.gui.panels.data import DataPanel
-    from regbench.gui.panels.fitquality import FitQualityPanel
-    from regbench.gui.panels.overlaps import OverlapsPanel
-    from regbench.gui.panels.paths import PathsPanel
-    from regbench.gui.panels.ranges import RangesPanel
-    from regbench.gui.panels.stability import StabilityPanel
-    from regbench.gui.panels.stress import StressPanel
-
     # The order a stakeholder asks in; Ctrl+1..9 follow it.  The probabilities panel (yes/no
     # outcomes only) comes last so the others keep their shortcuts.
     return (DataPanel, OverlapsPanel, PathsPanel, CoefficientsPanel, FitQualityPanel, AgreementPanel, StressPanel,
@@ -163,8 +168,6 @@ class MainWindow(QtWidgets.QMainWindow):
             self.panels.append(panel)
             self.stack.addWidget(panel)
             self.nav.addItem(panel.nav)
-        from regbench.gui.help import HelpView
-
         self.help_view = HelpView()
         self.stack.addWidget(self.help_view)
         self.nav.addItem("Help")
@@ -380,8 +383,6 @@ class MainWindow(QtWidgets.QMainWindow):
         ext = os.path.splitext(path)[1].lower()
         if ext == PROJECT_EXT:
             def work(progress, cancel):
-                from regbench.project import load_project
-
                 progress(0, 1, f"reading {os.path.basename(path)}")
                 session = load_project(path, compute=False)
                 computed = None
@@ -396,10 +397,6 @@ class MainWindow(QtWidgets.QMainWindow):
             return
 
         def work(progress, cancel):
-            from regbench.data import read_table
-            from regbench.models.results import FitSettings
-            from regbench.session import Session
-
             progress(0, 2, f"reading {os.path.basename(path)}")
             table = read_table(path, encoding=encoding)
             progress(1, 2, "building the design")
@@ -627,8 +624,6 @@ class MainWindow(QtWidgets.QMainWindow):
         return self.save_to(self.path)
 
     def save_to(self, path: str) -> bool:
-        from regbench.project import save_project
-
         if not path.lower().endswith(PROJECT_EXT):
             path += PROJECT_EXT
         try:
@@ -685,8 +680,6 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def export_report(self, path: str) -> bool:
         try:
-            from regbench.report import render_report
-
             render_report(self.session, path)
         except RegbenchError as exc:
             self.show_error("Cannot write the report", exc)
@@ -712,8 +705,6 @@ class MainWindow(QtWidgets.QMainWindow):
             self.export_plot(path, index)
 
     def export_plot(self, path: str, index: int = 0) -> bool:
-        from regbench.gui.export import export_plot
-
         p = self.current_panel()
         plots = p.plots() if p is not None else []
         try:
@@ -759,8 +750,6 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def export_table(self, path: str, view=None) -> bool:
         """Write a table of the current panel as CSV at full precision."""
-        from regbench.gui.export import export_csv
-
         view = view or self._current_view()
         try:
             if view is None:
@@ -776,8 +765,6 @@ class MainWindow(QtWidgets.QMainWindow):
     def autosave(self) -> bool:
         if self.session is None or not self.dirty or self.runner.busy():
             return False
-        from regbench.project import save_project
-
         path = recovery_path()
         try:
             os.makedirs(os.path.dirname(path), exist_ok=True)
@@ -804,8 +791,6 @@ class MainWindow(QtWidgets.QMainWindow):
             QtWidgets.QMessageBox.Open | QtWidgets.QMessageBox.Discard, QtWidgets.QMessageBox.Open)
         if answer == QtWidgets.QMessageBox.Open:
             try:
-                from regbench.project import load_project
-
                 self.adopt(load_project(path, compute=False), path=None, dirty=True)
                 return True
             except RegbenchError as exc:

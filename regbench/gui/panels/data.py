@@ -4,7 +4,10 @@ from __future__ import annotations
 
 from PySide6 import QtCore, QtWidgets
 
+from regbench.data.table import BOOLEAN, NUMERIC
+from regbench.errors import RegbenchError
 from regbench.gui.panels.base import Panel, caption, hbox
+from regbench.gui.roles import ColumnsModel
 from regbench.gui.tables import FrameModel, GridModel, make_view
 
 
@@ -22,8 +25,6 @@ class DataPanel(Panel):
     nav = "Data"
 
     def build(self, body):
-        from regbench.gui.roles import ColumnsModel
-
         lay = QtWidgets.QVBoxLayout(body)
         lay.setContentsMargins(0, 0, 0, 0)
         split = QtWidgets.QSplitter(QtCore.Qt.Horizontal)
@@ -94,8 +95,6 @@ class DataPanel(Panel):
         self.derive_b.setVisible(two)
 
     def _fill_derive_columns(self):
-        from regbench.data.table import BOOLEAN, NUMERIC
-
         draft = self.window_.draft
         if draft.table is None:
             return
@@ -111,8 +110,6 @@ class DataPanel(Panel):
                 box.blockSignals(False)
 
     def _add_derived(self):
-        from regbench.errors import RegbenchError
-
         op = self.derive_op.currentData()
         cols = [self.derive_a.currentText()] + ([self.derive_b.currentText()] if op == "product" else [])
         try:
@@ -123,8 +120,6 @@ class DataPanel(Panel):
         self.window_.set_status(f"Added {name}; press Fit to use it.")
 
     def _remove_derived(self):
-        from regbench.errors import RegbenchError
-
         draft = self.window_.draft
         rows = {i.row() for i in self.columns_view.selectionModel().selectedIndexes()}
         names = [draft.names[r] for r in sorted(rows) if draft.is_derived(draft.names[r])]

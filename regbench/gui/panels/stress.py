@@ -6,11 +6,15 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
+from regbench.analysis.stress import (DEFAULT_STRENGTH, STRESS_KINDS, StressConfig, rank_columns, run_stress,
+                                      stress_sweep)
+from regbench.data.table import BOOLEAN, CATEGORICAL
 from regbench.errors import RegbenchError
 from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.style import PALETTE, model_colour
 from regbench.gui.tables import GridModel, WARN_BG, make_view
 from regbench.models.results import model_label
+from regbench.session import check_stress
 
 Qt = QtCore.Qt
 KIND_WORDS = {
@@ -29,9 +33,6 @@ CATEGORY_KINDS = ("shuffle", "constant", "missing")
 
 def kinds_for(session, column: str) -> tuple:
     """The kinds of damage that make sense for ``column``: rescaling or adding noise to category codes does not."""
-    from regbench.analysis.stress import STRESS_KINDS
-    from regbench.data.table import BOOLEAN, CATEGORICAL
-
     if session is None or not column:
         return STRESS_KINDS
     try:
@@ -50,8 +51,6 @@ class StressPanel(Panel):
     uses_comparisons = True
 
     def build(self, body):
-        from regbench.analysis.stress import STRESS_KINDS
-
         lay = QtWidgets.QVBoxLayout(body)
         lay.setContentsMargins(0, 0, 0, 0)
         self.column = QtWidgets.QComboBox()
@@ -128,8 +127,6 @@ class StressPanel(Panel):
 
     def _offer_kinds(self, *_):
         """Only the damage that makes sense for the chosen column's kind."""
-        from regbench.analysis.stress import STRESS_KINDS
-
         allowed = kinds_for(self.session, self.column.currentText())
         current = self.kind.currentData()
         self.kind.blockSignals(True)
@@ -148,16 +145,12 @@ class StressPanel(Panel):
         return [self.shift_view, self.rank_view]
 
     def _kind_changed(self, *_):
-        from regbench.analysis.stress import DEFAULT_STRENGTH
-
         d = DEFAULT_STRENGTH.get(self.kind.currentData())
         if d is not None:
             self.strength.setValue(d)
 
     # -- commands -----------------------------------------------------------------------
     def config(self):
-        from regbench.analysis.stress import StressConfig
-
         strength = None if self.use_default.isChecked() else float(self.strength.value())
         return StressConfig(column=self.column.currentText(), kind=self.kind.currentData(), strength=strength,
                             seed=int(self.seed.value()))
@@ -167,8 +160,6 @@ class StressPanel(Panel):
         session = self.session
         if session is None or session.results is None:
             return
-        from regbench.session import check_stress
-
         config = self.config()
         try:
             check_stress(config, session.design, session.table)
@@ -180,8 +171,6 @@ class StressPanel(Panel):
         design, models = session.design, session.models()
 
         def work(progress, cancel):
-            from regbench.analysis.stress import run_stress, stress_sweep
-
             progress(0, 2, f"stress test: {config.kind} {config.column}")
             result = run_stress(design, models, config)
             sweep = None
@@ -235,8 +224,6 @@ class StressPanel(Panel):
             return
 
         def work(progress, cancel):
-            from regbench.analysis.stress import rank_columns
-
             return rank_columns(design, models, kind=kind, strength=strength, seed=seed, columns=columns,
                                 progress=progress, cancel=cancel)
 
