@@ -479,6 +479,12 @@ def cmd_report(args) -> int:
 
 
 def cmd_bench(args) -> int:
+    import importlib.util
+
+    # The scripted route the benchmark times regbench against is built on statsmodels (the `bench` extra).
+    if importlib.util.find_spec("statsmodels") is None:
+        raise RegbenchError("regbench bench times regbench against a scripted statsmodels route, and statsmodels is "
+                            "not installed; install it with: pip install 'regbench[bench]'")
     from regbench.bench import main as bench_main
 
     if args.targets:

@@ -56,3 +56,14 @@ def test_real_process_prints_no_traceback(tmp_path):
                        capture_output=True, text=True, timeout=120)
     assert r.returncode == 2
     assert r.stderr.strip().splitlines() == [f"regbench fit: dup.csv: duplicate column names 'x'; rename them so each column has its own name"]
+
+
+def test_bench_without_statsmodels_says_which_extra_to_install(capsys, monkeypatch):
+    import importlib.util
+
+    real = importlib.util.find_spec
+    monkeypatch.setattr(importlib.util, "find_spec", lambda name, *a: None if name == "statsmodels" else real(name, *a))
+    code = main(["bench", "--quick"])
+    err = capsys.readouterr().err
+    assert code == 2 and err.count("\n") == 1 and err.startswith("regbench bench: ")
+    assert "pip install 'regbench[bench]'" in err and "Traceback" not in err

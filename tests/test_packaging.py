@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import importlib.resources
 import pathlib
+import re
 import tomllib
 
 ROOT = pathlib.Path(__file__).resolve().parents[1]
@@ -33,6 +34,13 @@ def test_the_format_description_ships_with_the_package():
     assert importlib.resources.files("regbench").joinpath("py.typed").is_file()
 
 
-def test_statsmodels_is_a_runtime_dependency():
+def test_statsmodels_is_declared_for_the_benchmark_and_the_tests_and_used_nowhere_else():
     conf = tomllib.loads((ROOT / "pyproject.toml").read_text(encoding="utf-8"))
-    assert any(d.startswith("statsmodels") for d in conf["project"]["dependencies"])
+    extras = conf["project"]["optional-dependencies"]
+    assert any(d.startswith("statsmodels") for d in extras["bench"])
+    assert any(d.startswith("statsmodels") for d in extras["test"])
+    assert not any(d.startswith("statsmodels") for d in conf["project"]["dependencies"])
+    # Only the benchmark imports it, so an install without the extra loses nothing else.
+    importers = sorted(p.name for p in (ROOT / "regbench").rglob("*.py")
+                       if re.search(r"^\s*(import|from) statsmodels", p.read_text(encoding="utf-8"), re.M))
+    assert importers == ["bench.py"], importers
