@@ -26,7 +26,7 @@ from regbench.gui.style import STYLESHEET, configure_pyqtgraph
 from regbench.gui.tables import view_to_tsv
 from regbench.gui.worker import Runner
 from regbench.models.results import FitSettings
-from regbench.project import load_project, save_project
+from regbench import project
 from regbench.report import render_report
 from regbench.session import Session
 
@@ -384,7 +384,7 @@ class MainWindow(QtWidgets.QMainWindow):
         if ext == PROJECT_EXT:
             def work(progress, cancel):
                 progress(0, 1, f"reading {os.path.basename(path)}")
-                session = load_project(path, compute=False)
+                session = project.load_project(path, compute=False)
                 computed = None
                 if session.results is None:  # no cache, or one from another table or settings
                     computed = session.compute_results(progress=progress, cancel=cancel)
@@ -629,7 +629,7 @@ class MainWindow(QtWidgets.QMainWindow):
         try:
             self.panel("data").keep_notes()
             self._store_view_state()
-            save_project(self.session, path)
+            project.save_project(self.session, path)
         except RegbenchError as exc:
             self.show_error("Cannot save the project", exc)
             return False
@@ -769,7 +769,7 @@ class MainWindow(QtWidgets.QMainWindow):
         try:
             os.makedirs(os.path.dirname(path), exist_ok=True)
             with self.session.document_state_kept():   # the recovery copy is not the document's file
-                save_project(self.session, path)
+                project.save_project(self.session, path)
         except (RegbenchError, OSError) as exc:
             self.set_status(f"Recovery copy not written: {exc}")
             return False
@@ -791,7 +791,7 @@ class MainWindow(QtWidgets.QMainWindow):
             QtWidgets.QMessageBox.Open | QtWidgets.QMessageBox.Discard, QtWidgets.QMessageBox.Open)
         if answer == QtWidgets.QMessageBox.Open:
             try:
-                self.adopt(load_project(path, compute=False), path=None, dirty=True)
+                self.adopt(project.load_project(path, compute=False), path=None, dirty=True)
                 return True
             except RegbenchError as exc:
                 self.show_error("The recovered session cannot be opened", exc)
