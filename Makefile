@@ -6,7 +6,7 @@ BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed-stamp
 SAMPLE := sample_projects/greenhouse.regbench
 
-.PHONY: run test install samples snapshots bench bench-quick clean
+.PHONY: run test test-minimums test-newest install samples snapshots bench bench-quick clean
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -35,6 +35,17 @@ run: $(STAMP)
 test: $(STAMP)
 	@QT_QPA_PLATFORM=offscreen $(BIN)/python -m pytest -q; rc=$$?; \
 	if [ $$rc -eq 5 ]; then echo "pytest collected no tests"; exit 1; fi; exit $$rc
+
+# The declared lowest versions (pyproject.toml's >= bounds, the test extra's too) on the lowest declared
+# Python, in a throwaway venv; the tests that need no window. Not part of `make test` (DEVELOPERS.md says why).
+MIN_PYTHON ?= python3.11
+test-minimums:
+	$(PYTHON) scripts/check_versions.py --python $(MIN_PYTHON) --resolution lowest
+
+# The newest versions the registry offers, on the newest Python regbench is checked on.
+NEW_PYTHON ?= python3.13
+test-newest:
+	$(PYTHON) scripts/check_versions.py --python $(NEW_PYTHON) --resolution newest
 
 samples: $(STAMP)
 	$(BIN)/python scripts/make_samples.py
