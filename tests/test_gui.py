@@ -434,11 +434,12 @@ def test_export_plot_png_and_svg(gh, tmp_path):
     assert "png or .svg" in gh.errors[-1]
 
 
-def test_correlation_map_shows_the_numbers_the_cli_and_report_share(gh):
+def test_correlation_map_shows_the_numbers_the_cli_and_report_share(gh, qtbot):
     from regbench.analysis.correlation import correlation_map
 
     gh.show_panel("overlaps")
     panel = gh.panel("overlaps")
+    qtbot.waitUntil(lambda: not panel._deferred, timeout=10_000)  # the map is drawn a turn after the tables
     # The headless map (analysis/correlation.py, itself checked against numpy.cov) is what the window draws.
     ref = correlation_map(gh.session.design)
     assert panel._corr_cols == ref.columns
