@@ -68,6 +68,31 @@ def test_set_aside_as_ols_and_same_fit_without_the_copy(spector):
     np.testing.assert_allclose(res.std_errors[:3], base.std_errors, atol=1e-8)
 
 
+def test_lasso_leaves_an_exact_copy_at_exactly_zero(spector):
+    X, y, cols = spector
+    # GPA on another scale standardizes to the same column: the lasso penalty cannot tell
+    # them apart, so any same-signed split of one weight is optimal.  A copy is either used
+    # or exactly 0: round-off dust (1e-13) would read as "used by the model".
+    X2 = np.column_stack([X, 25.0 * X[:, 0] + 1.0])
+    des = design_from_arrays(X2, y, columns=cols + ("GPA_pct",), outcome="binary")
+    base = design_from_arrays(X, y, columns=cols, outcome="binary")
+    for alpha in (0.002, 0.01, 0.03):
+        m = model_at_alpha(des, "lasso", 1.0, alpha)
+        ref = model_at_alpha(base, "lasso", 1.0, alpha)
+        pair = m.coef_std[[0, 3]]
+        assert not np.any((pair != 0) & (np.abs(pair) < 1e-6)), (alpha, pair)
+        assert np.all(pair * np.sign(ref.coef_std[0]) >= 0)
+        # Same optimum as the table without the copy (the copy's weight folds into GPA's).
+        assert pair.sum() == pytest.approx(ref.coef_std[0], abs=1e-6)
+        np.testing.assert_allclose(m.predict(X2), ref.predict(X), atol=1e-7)
+        assert kkt_violation(X2, y, np.ones_like(y), m) < 1e-6
+    res = fit_all(des, FitSettings(n_penalties=15, folds=3))
+    coef = res.penalized["lasso"].path.coef_std
+    names = list(res.penalized["lasso"].path.columns)
+    both = coef[:, [names.index(cols[0]), names.index("GPA_pct")]]
+    assert not np.any((both != 0) & (np.abs(both) < 1e-6))
+
+
 def _data(n=300, seed=3):
     rng = np.random.default_rng(seed)
     X = rng.normal(size=(n, 5)) * [1.0, 2.0, 0.5, 3.0, 1.0] + [0.0, 10.0, -3.0, 100.0, 0.0]
