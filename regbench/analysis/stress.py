@@ -342,7 +342,10 @@ def _damaged(block: np.ndarray, w: np.ndarray, config: StressConfig, one_draw_pe
     elif kind == "constant":
         block[:] = mean if fill is None else fill
     elif kind == "rescale":
-        block *= strength
+        # A rescale past the float range gives inf on purpose: the figures then report an
+        # infinite shift, so numpy's overflow warning would only repeat what they say.
+        with np.errstate(over="ignore"):
+            block *= strength
         if fill is not None:
             block += fill
     elif kind == "wild":
