@@ -50,6 +50,8 @@ def number_text(v: float, digits: int = 4, *, missing: str = MISSING, unicode_mi
         text = f"{v:.{digits - 1}e}"
     elif fixed_below_one and a < 1:
         text = f"{v:.{digits}f}".rstrip("0").rstrip(".")
+        if text == "-0":  # a small negative rounded away keeps no sign: "-0" reads as a typo
+            text = "0"
     else:
         text = f"{v:.{digits}g}"
     return text.replace("-", "−") if unicode_minus else text

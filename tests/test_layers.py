@@ -79,7 +79,7 @@ def test_observers_hear_one_event_per_kind_of_change(tmp_path):
 
 
 def test_numbers_and_word_lists_for_people_have_one_home():
-    from regbench.formatting import MISSING, join_words, number_text, percent, sentence_number
+    from regbench.formatting import MISSING, cell_text, join_words, number_text, percent, sentence_number
 
     # The helpers themselves (values by hand: the format rules stated in formatting.py).
     assert join_words([]) == "" and join_words(["a"]) == "a" and join_words(["a", "b"], "or") == "a or b"
@@ -87,6 +87,8 @@ def test_numbers_and_word_lists_for_people_have_one_home():
     assert number_text(float("nan")) == MISSING and percent(float("inf")) == MISSING and percent(0.125) == "12.5%"
     assert sentence_number(float("nan")) == "undefined" and sentence_number(0.0123456) == "0.0123"
     assert number_text(-0.5, unicode_minus=True) == "−0.5" and number_text(2e-5, 3) == "2.00e-05"
+    # A small negative rounded to nothing in a fixed-decimals cell reads "0", never "-0".
+    assert cell_text(-0.0002, 3) == "0" and cell_text(-0.0006, 3) == "-0.001" and cell_text(0.0004, 3) == "0"
     # No other module writes its own word-joiner or missing-number mark.
     defs = []
     for path in PKG.rglob("*.py"):
