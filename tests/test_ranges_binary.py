@@ -194,8 +194,8 @@ def test_json_and_sentences_say_it_is_the_quadratic_approximation(spector_fit):
     assert js["approximation"] == "quadratic" and js["outcome"] == "binary"
     assert "quadratic approximation" in js["approximation_note"]
     assert js["tolerance_note"] == "set by the user: within 1 % of the best training log-loss"
-    assert js["sentences"][0].startswith("Any model within 1 % of the best training log-loss (quadratic "
-                                         "approximation of the log-loss around the logistic fit)")
+    assert js["sentences"][0].startswith("Any model within 1 % of the best training log-loss, by the "
+                                         "quadratic approximation of the log-loss around the logistic fit,")
     assert js["rows"]["scale"] == "log_odds"
     _, lo, hi = r.probabilities()
     assert js["rows"]["largest_probability_width"] == pytest.approx((hi - lo).max())
@@ -301,7 +301,7 @@ def test_cli_fit_json_on_the_grading_sample(tmp_path):
                  "--range-tolerance", "0.05", "--json", str(out)]) == 0
     rg = json.loads(out.read_text(encoding="utf-8"))["ranges"]
     assert rg["approximation"] == "quadratic" and rg["rows"]["scale"] == "log_odds"
-    assert rg["sentences"][0].startswith("Any model within 5 % of the best training log-loss (quadratic approximation")
+    assert rg["sentences"][0].startswith("Any model within 5 % of the best training log-loss, by the quadratic approximation")
     top = rg["rows"]["widest"][0]["probability"]
     assert 0 <= top["low"] <= top["prediction"] <= top["high"] <= 1
 

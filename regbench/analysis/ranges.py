@@ -764,7 +764,7 @@ def ranges_sentences(r: Ranges) -> list:
     out = []
     binary = r.outcome == "binary"
     phrase = tolerance_phrase(r)
-    approx = f" ({QUADRATIC_WORDS})" if r.approximation == "quadratic" else ""
+    approx = f", by the {QUADRATIC_WORDS}," if r.approximation == "quadratic" else ""
     cols = list(r.columns)
     open_sign = [j for j in range(len(cols)) if r.bounded[j] and not r.sign_settled[j]]
     first = f"Any model {phrase}{approx}"
