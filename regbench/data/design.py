@@ -296,7 +296,69 @@ def build_design(table: Table, roles: Roles) -> Design:
     """
     table = apply_derived(table, roles.derived)
     src = table.source or "the table"
-    for label, col in (("target", roles.target), ("weights", roles.weights), ("groups", roles.groups)):
+    _check_roles(table, roles, src)
+    tinfo = table.info(roles.target)
+    notes = _column_notes(table)
+    outcome, outcome_levels = outcome_of(table, roles)
+    _check_target_kind(table, roles, tinfo, outcome, src)
+    predictors, unusable = _choose_predictors(table, roles, src)
+    frame = table.frame
+    n = len(frame)
+    rn = table.row_numbers if hasattr(table, "row_numbers") else np.arange(1, n + 1)
+    # Every check below excludes rows into one record, so each row is reported once, by its first reason.
+    ex = _Exclusions(rn)
+    y_all, count_total = _target_values(table, roles, tinfo, outcome, outcome_levels, ex)
+    w_all = _weight_values(table, roles, ex, src)
+    if roles.groups is not None:
+        ex.exclude(frame[roles.groups].isna().to_numpy(), roles.groups, "group is missing")
+    blocks = _predictor_blocks(table, roles, predictors, ex, unusable)
+    rows, excluded = _usable_rows(ex, n, src)
+    y = y_all[rows]
+    # A row of yes/no counts weighs its total count (times its weight, if any).
+    w = w_all[rows] if count_total is None else w_all[rows] * count_total[rows]
+    _check_usable_values(src, roles, outcome, outcome_levels, y, w, rows)
+    names, sources, mats, references = _code_predictors(blocks, rows, w, unusable, src)
+    X = np.hstack(mats)
+    # As many columns as rows or more (a wide table) is allowed: OLS keeps a largest
+    # independent set and says which columns it set aside for want of rows; the penalized
+    # families fit on any number of columns.
+    _check_magnitudes(src, X, names, y, w, rn[rows], roles)
+    groups, labels = _group_codes(frame, roles, rows)
+    return Design(
+        X=np.ascontiguousarray(X, dtype=np.float64),
+        y=y.astype(np.float64),
+        weights=w.astype(np.float64),
+        groups=groups,
+        columns=tuple(names),
+        sources=tuple(sources),
+        target=roles.target,
+        row_numbers=np.asarray(rn)[rows],
+        excluded=excluded,
+        unusable=tuple(unusable),
+        group_labels=labels,
+        weights_column=roles.weights,
+        groups_column=roles.groups,
+        n_table_rows=n,
+        derived=tuple(roles.derived),
+        column_notes=notes,
+        weights_kind=roles.weights_kind if roles.weights is not None else PRECISION,
+        outcome=outcome,
+        levels=tuple(outcome_levels),
+        no_count_column=roles.no_count,
+        reference_levels=tuple(references),
+    )
+
+
+def _column_notes(table: Table) -> tuple:
+    """(column, note, read as text) for each column whose reading needs saying."""
+    return tuple((c, table.columns[c].note, table.columns[c].kind == CATEGORICAL)
+                 for c in table.names if getattr(table.columns[c], "note", ""))
+
+
+def _check_roles(table: Table, roles: Roles, src: str) -> None:
+    """Refuse roles that name unknown columns or give one column two parts, before any row is read."""
+    # table.info raises the "not in the table" message naming the table's columns.
+    for col in (roles.target, roles.weights, roles.groups):
         if col is not None:
             table.info(col)
     for col in roles.predictors + roles.categorical:
@@ -311,24 +373,35 @@ def build_design(table: Table, roles: Roles) -> Design:
         if col is not None and col in roles.predictors:
             raise DataError(f"{src}: column '{col}' is the {label} and is also named among the predictors; "
                             f"remove it from the predictors (or choose another {label})")
-    tinfo = table.info(roles.target)
-    notes = tuple((c, table.columns[c].note, table.columns[c].kind == CATEGORICAL)
-                  for c in table.names if getattr(table.columns[c], "note", ""))
-    outcome, outcome_levels = outcome_of(table, roles)
+
+
+def _check_target_kind(table: Table, roles: Roles, tinfo, outcome: str, src: str) -> None:
+    """A numeric target (or a yes/no count) must hold numbers; a two-valued target of any kind is coded 0/1."""
     if outcome == "binary" and roles.no_count is None:
-        pass  # a two-valued target of any kind; coded 0/1 below
-    elif tinfo.kind not in (NUMERIC, BOOLEAN):
+        return
+    if tinfo.kind not in (NUMERIC, BOOLEAN):
         numeric = [c for c in table.names if table.columns[c].kind == NUMERIC]
         why = f" (it {tinfo.note})" if getattr(tinfo, "note", "") else ""
         raise DataError(
             f"{src}: target '{roles.target}' is {tinfo.kind}, not numeric{why}; choose a numeric target"
             + (f" (numeric columns: {', '.join(numeric)})" if numeric else " (the table has no numeric column)")
         )
+
+
+def _choose_predictors(table: Table, roles: Roles, src: str) -> tuple:
+    """The predictor columns and, when they were chosen by default, the columns left out and why.
+
+    Returns
+    -------
+    (predictors, unusable) : (tuple of str, list of UnusableColumn)
+        ``unusable`` is a list the later steps add to, in the order the reasons are found.
+    """
     predictors = roles.predictors or default_predictors(table, roles)
+    roles_taken = {roles.target, roles.weights, roles.groups, roles.no_count}
     unusable = []
     if not roles.predictors:
         for c in table.names:
-            if c in {roles.target, roles.weights, roles.groups, roles.no_count}:
+            if c in roles_taken:
                 continue
             if table.columns[c].read_as_text:
                 # One-hot coding a mistyped number column would give one indicator per value.
@@ -341,113 +414,147 @@ def build_design(table: Table, roles: Roles) -> Design:
                        "to use it)", rule="identifier"))
             elif table.columns[c].kind == EMPTY:
                 unusable.append(UnusableColumn(c, "every cell is empty", rule="empty"))
-    predictors = tuple(c for c in predictors if c not in {roles.target, roles.weights, roles.groups, roles.no_count})
+    predictors = tuple(c for c in predictors if c not in roles_taken)
     if not predictors:
         ids = [f"'{u.column}' ({u.reason.split('; ')[0]})" for u in unusable if u.rule == "identifier"]
         raise DataError(f"{src}: no predictor columns; choose at least one column besides the target"
                         + (f"; left out: {', '.join(ids)}; name it among the predictors to use it" if ids else ""))
-    frame = table.frame
-    n = len(frame)
-    rn = table.row_numbers if hasattr(table, "row_numbers") else np.arange(1, n + 1)
-    reasons: dict = {}
+    return predictors, unusable
 
-    def exclude(mask, column, why):
+
+class _Exclusions:
+    """The rows left out so far, each with the column and reason that first excluded it."""
+
+    def __init__(self, row_numbers):
+        self.rn = row_numbers
+        self.reasons: dict = {}
+
+    def exclude(self, mask, column, why) -> None:
+        """Exclude the rows where ``mask`` holds; ``why`` is a reason or a function of the row index."""
         for i in np.flatnonzero(mask):
-            if i not in reasons:
-                reasons[i] = (column, why(i) if callable(why) else why)
+            if i not in self.reasons:
+                self.reasons[i] = (column, why(i) if callable(why) else why)
 
+
+def _target_values(table: Table, roles: Roles, tinfo, outcome: str, outcome_levels, ex: _Exclusions) -> tuple:
+    """The target of every table row (NaN where unusable) and, for yes/no count pairs, each row's total count.
+
+    Returns
+    -------
+    (y_all, count_total) : (ndarray, ndarray or None)
+    """
+    frame = table.frame
+    rn = ex.rn
     bad_text = dict(tinfo.bad_cells)
-    count_total = None
     if outcome == "binary" and roles.no_count is None:
         texts = _target_texts(frame[roles.target], tinfo.kind)
         y_all = np.where(texts == outcome_levels[1], 1.0, 0.0)
         y_all[texts == None] = np.nan  # noqa: E711 (element-wise test of an object array)
-        exclude(np.isnan(y_all), roles.target,
-                lambda i: f"text '{bad_text[rn[i]]}' where a number was expected" if rn[i] in bad_text
-                else "target is missing")
+        ex.exclude(np.isnan(y_all), roles.target,
+                   lambda i: f"text '{bad_text[rn[i]]}' where a number was expected" if rn[i] in bad_text
+                   else "target is missing")
     else:
         y_all = frame[roles.target].to_numpy(dtype=float)
-        exclude(~np.isfinite(y_all), roles.target,
-                lambda i: f"text '{bad_text[rn[i]]}' where a number was expected" if rn[i] in bad_text
-                else ("target is infinite" if np.isinf(y_all[i]) else "target is missing"))
-    if roles.no_count is not None:
-        # Aggregated rows: the yes count and the no count of each row.  The row stands for
-        # yes + no people, a share yes/(yes + no) of them "yes"; its weight is that total.
-        yes = y_all
-        no = frame[roles.no_count].to_numpy(dtype=float)
-        nbad = dict(table.info(roles.no_count).bad_cells)
-        exclude(~np.isfinite(no), roles.no_count,
-                lambda i: f"text '{nbad[rn[i]]}' where a count was expected" if rn[i] in nbad
-                else ("no count is infinite" if np.isinf(no[i]) else "no count is missing"))
-        with np.errstate(invalid="ignore"):
-            exclude(yes < 0, roles.target, lambda i: f"yes count is negative ({yes[i]:g}); counts must be >= 0")
-            exclude(no < 0, roles.no_count, lambda i: f"no count is negative ({no[i]:g}); counts must be >= 0")
-            count_total = yes + no
-            y_all = np.where(count_total > 0, yes / np.where(count_total > 0, count_total, 1.0), 0.0)
+        ex.exclude(~np.isfinite(y_all), roles.target,
+                   lambda i: f"text '{bad_text[rn[i]]}' where a number was expected" if rn[i] in bad_text
+                   else ("target is infinite" if np.isinf(y_all[i]) else "target is missing"))
+    if roles.no_count is None:
+        return y_all, None
+    return _count_pair_values(table, roles, y_all, ex)
 
-    if roles.weights is not None:
-        winfo = table.info(roles.weights)
-        if winfo.kind not in (NUMERIC, BOOLEAN):
-            raise DataError(f"{src}: weights column '{roles.weights}' is {winfo.kind}; weights must be numbers >= 0")
-        w_all = frame[roles.weights].to_numpy(dtype=float)
-        wbad = dict(winfo.bad_cells)
 
-        def wreason(i):
-            v = w_all[i]
-            if rn[i] in wbad:
-                return f"weight is text '{wbad[rn[i]]}'"
-            if np.isnan(v):
-                return "weight is missing"
-            if np.isinf(v):
-                return "weight is infinite"
-            return f"weight is negative ({v:g})"
+def _count_pair_values(table: Table, roles: Roles, yes, ex: _Exclusions) -> tuple:
+    """Aggregated yes/no rows: each row's share of "yes" and its total count.
 
-        exclude(~np.isfinite(w_all) | (w_all < 0), roles.weights, wreason)
-    else:
-        w_all = np.ones(n)
+    The row stands for yes + no people, a share yes/(yes + no) of them "yes"; its weight
+    is that total (applied by the caller).
+    """
+    rn = ex.rn
+    no = table.frame[roles.no_count].to_numpy(dtype=float)
+    nbad = dict(table.info(roles.no_count).bad_cells)
+    ex.exclude(~np.isfinite(no), roles.no_count,
+               lambda i: f"text '{nbad[rn[i]]}' where a count was expected" if rn[i] in nbad
+               else ("no count is infinite" if np.isinf(no[i]) else "no count is missing"))
+    with np.errstate(invalid="ignore"):
+        ex.exclude(yes < 0, roles.target, lambda i: f"yes count is negative ({yes[i]:g}); counts must be >= 0")
+        ex.exclude(no < 0, roles.no_count, lambda i: f"no count is negative ({no[i]:g}); counts must be >= 0")
+        count_total = yes + no
+        y_all = np.where(count_total > 0, yes / np.where(count_total > 0, count_total, 1.0), 0.0)
+    return y_all, count_total
 
-    if roles.groups is not None:
-        g_raw = frame[roles.groups]
-        g_missing = g_raw.isna().to_numpy()
-        exclude(g_missing, roles.groups, "group is missing")
 
-    # Predictors: numeric (or boolean) columns as they are, categoricals one-hot.
-    blocks = []  # (design names, source, matrix)
+def _weight_values(table: Table, roles: Roles, ex: _Exclusions, src: str) -> np.ndarray:
+    """The weight of every table row (ones without a weight column); rows with a bad weight are excluded."""
+    if roles.weights is None:
+        return np.ones(len(table.frame))
+    winfo = table.info(roles.weights)
+    if winfo.kind not in (NUMERIC, BOOLEAN):
+        raise DataError(f"{src}: weights column '{roles.weights}' is {winfo.kind}; weights must be numbers >= 0")
+    w_all = table.frame[roles.weights].to_numpy(dtype=float)
+    wbad = dict(winfo.bad_cells)
+    rn = ex.rn
+
+    def wreason(i):
+        v = w_all[i]
+        if rn[i] in wbad:
+            return f"weight is text '{wbad[rn[i]]}'"
+        if np.isnan(v):
+            return "weight is missing"
+        if np.isinf(v):
+            return "weight is infinite"
+        return f"weight is negative ({v:g})"
+
+    ex.exclude(~np.isfinite(w_all) | (w_all < 0), roles.weights, wreason)
+    return w_all
+
+
+def _predictor_blocks(table: Table, roles: Roles, predictors, ex: _Exclusions, unusable: list) -> list:
+    """Each predictor's raw values, tagged 'num' (numeric or boolean, used as they are) or 'cat' (one-hot later).
+
+    Rows missing a predictor are excluded here; the coding waits until the usable rows are
+    known, since a level or a spread seen only on excluded rows must not count.
+    """
+    frame = table.frame
+    rn = ex.rn
+    blocks = []  # (kind, source column, values)
     categorical_marked = set(roles.categorical)
     for col in predictors:
         info = table.columns[col]
         if info.kind == EMPTY:
             unusable.append(UnusableColumn(col, "every cell is missing", rule="empty"))
             continue
-        is_cat = info.kind == CATEGORICAL or col in categorical_marked
         raw = frame[col]
-        if is_cat:
-            present = raw.notna().to_numpy()
-            exclude(~present, col, "value is missing")
+        if info.kind == CATEGORICAL or col in categorical_marked:
+            ex.exclude(~raw.notna().to_numpy(), col, "value is missing")
             blocks.append(("cat", col, raw))
         else:
             x = raw.to_numpy(dtype=float)
             bad = dict(info.bad_cells)
-            exclude(~np.isfinite(x), col,
-                    lambda i, x=x, bad=bad: f"text '{bad[rn[i]]}' where a number was expected" if rn[i] in bad
-                    else ("value is infinite" if np.isinf(x[i]) else "value is missing"))
+            ex.exclude(~np.isfinite(x), col,
+                       lambda i, x=x, bad=bad: f"text '{bad[rn[i]]}' where a number was expected" if rn[i] in bad
+                       else ("value is infinite" if np.isinf(x[i]) else "value is missing"))
             blocks.append(("num", col, x))
+    return blocks
 
+
+def _usable_rows(ex: _Exclusions, n: int, src: str) -> tuple:
+    """The indices of the rows kept and the excluded rows in table order; refuses a table with none kept."""
     keep = np.ones(n, dtype=bool)
-    if reasons:
-        keep[list(reasons)] = False
+    if ex.reasons:
+        keep[list(ex.reasons)] = False
     # Zero weight is allowed: such a row contributes nothing to the fit but is still predicted.
     rows = np.flatnonzero(keep)
-    excluded = tuple(ExcludedRow(int(rn[i]), c, r) for i, (c, r) in sorted(reasons.items()))
+    excluded = tuple(ExcludedRow(int(ex.rn[i]), c, r) for i, (c, r) in sorted(ex.reasons.items()))
     if rows.size == 0:
         raise DataError(
             f"{src}: every row was excluded (first reason: row {excluded[0].row}, "
             f"column '{excluded[0].column}': {excluded[0].reason}); check the roles and the missing values"
         )
-    y = y_all[rows]
-    w = w_all[rows]
-    if count_total is not None:
-        w = w * count_total[rows]
+    return rows, excluded
+
+
+def _check_usable_values(src: str, roles: Roles, outcome: str, outcome_levels, y, w, rows) -> None:
+    """Refuse weights and targets that leave nothing to fit on the usable rows."""
     if roles.weights is not None and not np.any(w > 0):
         raise DataError(f"{src}: weights column '{roles.weights}' is zero on every usable row; weights must add up to more than 0")
     if roles.weights is not None and roles.weights_kind == COUNTS:
@@ -470,6 +577,17 @@ def build_design(table: Table, roles: Roles) -> Design:
             "so there is nothing to explain; choose another target"
         )
 
+
+def _code_predictors(blocks, rows, w, unusable: list, src: str) -> tuple:
+    """The design columns on the usable rows: numbers as they are, categories one-hot against their first level.
+
+    A column constant on the rows that carry weight, or a category with one level there, is
+    set aside (added to ``unusable``).
+
+    Returns
+    -------
+    (names, sources, mats, references) : (list, list, list of (n, 1) arrays, list)
+    """
     names, sources, mats = [], [], []
     references = []
     for kind, col, raw in blocks:
@@ -501,41 +619,18 @@ def build_design(table: Table, roles: Roles) -> Design:
     # collide with a column either.
     _check_unique_names(names + [f"{c}={lev}" for c, lev, _ in references],
                         sources + [c for c, _, _ in references], src)
-    X = np.hstack(mats)
-    # As many columns as rows or more (a wide table) is allowed: OLS keeps a largest
-    # independent set and says which columns it set aside for want of rows; the penalized
-    # families fit on any number of columns.
-    _check_magnitudes(src, X, names, y, w, rn[rows], roles)
-    groups = None
-    labels = ()
-    if roles.groups is not None:
-        gtext = np.array([_level_text(v) for v in frame[roles.groups].to_numpy(dtype=object)[rows]], dtype=object)
-        labels = tuple(sorted(set(gtext)))
-        code = {g: k for k, g in enumerate(labels)}
-        groups = np.array([code[g] for g in gtext], dtype=np.int64)
-    return Design(
-        X=np.ascontiguousarray(X, dtype=np.float64),
-        y=y.astype(np.float64),
-        weights=w.astype(np.float64),
-        groups=groups,
-        columns=tuple(names),
-        sources=tuple(sources),
-        target=roles.target,
-        row_numbers=np.asarray(rn)[rows],
-        excluded=excluded,
-        unusable=tuple(unusable),
-        group_labels=labels,
-        weights_column=roles.weights,
-        groups_column=roles.groups,
-        n_table_rows=n,
-        derived=tuple(roles.derived),
-        column_notes=notes,
-        weights_kind=roles.weights_kind if roles.weights is not None else PRECISION,
-        outcome=outcome,
-        levels=tuple(outcome_levels),
-        no_count_column=roles.no_count,
-        reference_levels=tuple(references),
-    )
+    return names, sources, mats, references
+
+
+def _group_codes(frame, roles: Roles, rows) -> tuple:
+    """Group codes 0..g-1 of the usable rows (in sorted order of the group texts) and the texts; (None, ())
+    without a group column."""
+    if roles.groups is None:
+        return None, ()
+    gtext = np.array([_level_text(v) for v in frame[roles.groups].to_numpy(dtype=object)[rows]], dtype=object)
+    labels = tuple(sorted(set(gtext)))
+    code = {g: k for k, g in enumerate(labels)}
+    return np.array([code[g] for g in gtext], dtype=np.int64), labels
 
 
 #: Target values read as "yes" when a text outcome has one of them (case ignored).
