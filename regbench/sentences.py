@@ -137,10 +137,29 @@ def fit_summary_text(design, results, classification=None) -> str:
     ``classification`` (a yes/no outcome's calibration and discrimination) adds how good
     the probabilities are.
     """
-    # The engine's results carry sentences from this module, so the layouts import the layers above it here.
-    from regbench.analysis.ranges import compute_ranges, ranges_unavailable
-    from regbench.models.export import OBJECTIVE, OBJECTIVE_BINARY
+    binary = getattr(results, "outcome", "numeric") == "binary"
+    lines = _summary_data_lines(design)
+    lines.append("")
+    lines.extend(_summary_overlap_lines(results))
+    lines.append("")
+    lines.extend(_summary_coefficient_lines(results))
+    lines.append("")
+    if binary:
+        lines.extend(_logistic_lines(design, results))
+        if classification is not None:
+            lines.extend(_probability_lines(classification))
+    else:
+        lines.extend(_ols_lines(design, results.ols))
+    lines.extend(_summary_penalty_lines(design, results, binary))
+    lines.append("")
+    lines.extend(_summary_range_lines(design, results))
+    lines.append("")
+    lines.extend(_summary_closing_lines(design, binary))
+    return "\n".join(lines)
 
+
+def _summary_data_lines(design) -> list:
+    """Which rows and columns the fit used, and how the reader read the columns."""
     lines = []
     extra = []
     if design.weights_column:
@@ -156,6 +175,7 @@ def fit_summary_text(design, results, classification=None) -> str:
     if design.excluded:
         lines.append("")
         lines.append("Rows left out")
+        # The JSON output lists every row; a summary stays readable.
         for e in design.excluded[:20]:
             lines.append(f"  row {e.row}, {e.column}: {e.reason}")
         if len(design.excluded) > 20:
@@ -170,9 +190,12 @@ def fit_summary_text(design, results, classification=None) -> str:
         lines.append("How columns were read")
         for c, note, _ in design.column_notes:
             lines.append(f"  {c}: {note}")
+    return lines
 
-    lines.append("")
-    lines.append("What overlaps")
+
+def _summary_overlap_lines(results) -> list:
+    """The columns OLS set aside and the overlap diagnostics, as sentences."""
+    lines = ["What overlaps"]
     if results.ols.set_aside:
         for sa in results.ols.set_aside:
             lines.append(f"  • {set_aside_sentence(sa)}")
@@ -180,7 +203,11 @@ def fit_summary_text(design, results, classification=None) -> str:
         lines.append(f"  • {s}")
     if not results.ols.set_aside and not results.diagnostics.sentences:
         lines.append("  • No strong overlap between the predictors was found.")
+    return lines
 
+
+def _summary_coefficient_lines(results) -> list:
+    """One row per design column, one column per model, in the table's units."""
     names = list(results.models())
     models = results.models()
     labels = [model_label(n) for n in names]
@@ -189,10 +216,9 @@ def fit_summary_text(design, results, classification=None) -> str:
     columns = model_columns(results.columns, models.values())
     width = max([len("(intercept)")] + [len(c) for c in columns]) + 2
     colw = max(12, max(len(l) for l in labels) + 2)
-    lines.append("")
-    lines.append("Coefficients in the table's units (– : not used by that model"
-                 + ("; reference: the level OLS measures the others against" if len(columns) > len(results.columns)
-                    else "") + ")")
+    lines = ["Coefficients in the table's units (– : not used by that model"
+             + ("; reference: the level OLS measures the others against" if len(columns) > len(results.columns)
+                else "") + ")"]
     lines.append(" " * (width + 2) + "".join(l.rjust(colw) for l in labels))
     lines.append("  " + "(intercept)".ljust(width) + "".join(_summary_number(models[n].intercept).rjust(colw) for n in names))
     for c in columns:
@@ -207,18 +233,14 @@ def fit_summary_text(design, results, classification=None) -> str:
                 cells.append(("–" if v == 0.0 else _summary_number(v)).rjust(colw))
         lines.append("  " + c.ljust(width) + "".join(cells))
     lines.append("  " + "columns used".ljust(width) + "".join(str(int(models[n].used.sum())).rjust(colw) for n in names))
+    return lines
 
-    lines.append("")
-    binary = getattr(results, "outcome", "numeric") == "binary"
-    if binary:
-        lines.extend(_logistic_lines(design, results))
-        if classification is not None:
-            lines.extend(_probability_lines(classification))
-    else:
-        lines.extend(_ols_lines(design, results.ols))
+
+def _summary_penalty_lines(design, results, binary: bool) -> list:
+    """Each penalized fit's α, how it was chosen and its held-out error, and the penalty factors."""
     k = results.settings.folds
     kind = "grouped " if design.groups is not None else ""
-    lines.append(f"Penalties (α), {k}-fold {kind}cross-validation:")
+    lines = [f"Penalties (α), {k}-fold {kind}cross-validation:"]
     rules = {"fixed": "fixed by the settings", "cv_min": "lowest CV error", "cv_1se": "largest α within one SE of the lowest"}
     for name, pf in results.penalized.items():
         cv_txt = ""
@@ -238,27 +260,40 @@ def fit_summary_text(design, results, classification=None) -> str:
         lines.append("  Penalty factors: "
                      + ", ".join(f"{c} {_summary_number(v)}" for c, v in results.settings.penalty_factors)
                      + " (0: unpenalized, always kept); every other column 1.")
-    lines.append("")
+    return lines
+
+
+def _summary_range_lines(design, results) -> list:
+    """How far equally good models differ, or why that cannot be computed for this fit."""
+    # The engine's results carry sentences from this module, so the layouts import the layers above it here.
+    from regbench.analysis.ranges import compute_ranges, ranges_unavailable
+
     why = ranges_unavailable(results)
     if why is not None:
-        lines.append("How far equally good models differ: " + why)
-    else:
-        rg = compute_ranges(design, results, results.settings.range_tolerance)
-        approx = " — quadratic approximation" if rg.approximation == "quadratic" else ""
-        lines.append(f"How far equally good models differ (tolerance {number_text(100 * rg.tolerance, 2)} %: "
-                     f"{rg.tolerance_note}{approx})")
-        for s in rg.sentences:
-            lines.append(f"  • {s}")
-        for t in rg.trades:
-            lines.append(f"  • {t['sentence']}")
-    lines.append("")
-    lines.append("Penalty objective: " + (OBJECTIVE_BINARY if binary else OBJECTIVE) + ".")
+        return ["How far equally good models differ: " + why]
+    rg = compute_ranges(design, results, results.settings.range_tolerance)
+    approx = " — quadratic approximation" if rg.approximation == "quadratic" else ""
+    lines = [f"How far equally good models differ (tolerance {number_text(100 * rg.tolerance, 2)} %: "
+             f"{rg.tolerance_note}{approx})"]
+    for s in rg.sentences:
+        lines.append(f"  • {s}")
+    for t in rg.trades:
+        lines.append(f"  • {t['sentence']}")
+    return lines
+
+
+def _summary_closing_lines(design, binary: bool) -> list:
+    """The objective the penalties minimize and the cautions every summary carries."""
+    # The export layer sits above this module (see _summary_range_lines).
+    from regbench.models.export import OBJECTIVE, OBJECTIVE_BINARY
+
+    lines = ["Penalty objective: " + (OBJECTIVE_BINARY if binary else OBJECTIVE) + "."]
     if binary:
         lines.append("Predictions are probabilities of '" + str(design.levels[1]) + "'. A risk score is not a "
                      "decision: the person who acts on it chooses the threshold.")
     lines.append("These are associations, not causes; judge models on held-out groups; "
                  "a model is only as good as its inputs.")
-    return "\n".join(lines)
+    return lines
 
 
 def _ols_lines(design, o) -> list:

@@ -56,7 +56,22 @@ def _names(t, what):
 
 
 def check_fit(results, design) -> None:
-    n, p = design.n, design.p
+    """Check a cached fit against its design, part by part, in the order the fit is built."""
+    _check_fit_header(results, design)
+    _check_ols(results, design)
+    _need(results.outcome == getattr(design, "outcome", "numeric"),
+          "fit.outcome does not match the kind of target of the roles")
+    if results.outcome == "binary":
+        _check_logistic(results.logistic, design)
+    _check_diagnostics(results.diagnostics)
+    _need(isinstance(results.penalized, dict), "fit.penalized must be a dict")
+    for name, pf in results.penalized.items():
+        _check_penalized(name, pf, design)
+
+
+def _check_fit_header(results, design) -> None:
+    """The fit's columns, settings, row count and fold numbers agree with the design."""
+    n = design.n
     _need(isinstance(results, FitResults), "fit is not a fit result")
     _names(results.columns, "fit.columns")
     _need(results.columns == tuple(design.columns), "fit.columns does not match the design columns")
@@ -66,22 +81,27 @@ def check_fit(results, design) -> None:
     _need(n == 0 or 0 <= int(results.fold_ids.min()) <= int(results.fold_ids.max()) < int(results.settings.folds),
           "fit.fold_ids must hold fold numbers from 0 to folds - 1")
 
-    def model(m, where):
-        _need(isinstance(m, LinearModel), f"{where} is not a model")
-        _need(isinstance(m.name, str) and _model_columns_ok(m, design), f"{where}.columns differ from the design")
-        _array(m.coef, (len(m.columns),), f"{where}.coef")
-        _array(m.coef_std, (len(m.columns),), f"{where}.coef_std")
-        _need(isinstance(m.intercept, float), f"{where}.intercept is not a number")
 
+def _check_model(m, where, design) -> None:
+    """One fitted model: its columns match the design and its coefficients have one entry per column."""
+    _need(isinstance(m, LinearModel), f"{where} is not a model")
+    _need(isinstance(m.name, str) and _model_columns_ok(m, design), f"{where}.columns differ from the design")
+    _array(m.coef, (len(m.columns),), f"{where}.coef")
+    _array(m.coef_std, (len(m.columns),), f"{where}.coef_std")
+    _need(isinstance(m.intercept, float), f"{where}.intercept is not a number")
+
+
+def _check_ols(results, design) -> None:
+    """The OLS result: its model, per-column arrays, and each set-aside column's explanation."""
     ols = results.ols
     _need(isinstance(ols, OLSResult), "fit.ols is not an OLS result")
-    model(ols.model, "fit.ols.model")
+    _check_model(ols.model, "fit.ols.model", design)
     _names(ols.columns, "fit.ols.columns")
     _need(ols.columns == results.columns, "fit.ols.columns does not match the design columns")
     _names(ols.kept, "fit.ols.kept")
     _need(set(ols.kept) <= set(results.columns), "fit.ols.kept names unknown columns")
     for arr in ("coef", "std_errors", "t_values", "p_values", "ci_low", "ci_high"):
-        _array(getattr(ols, arr), (p,), f"fit.ols.{arr}")
+        _array(getattr(ols, arr), (design.p,), f"fit.ols.{arr}")
     _need(isinstance(ols.set_aside, tuple), "fit.ols.set_aside must be a tuple")
     for i, sa in enumerate(ols.set_aside):
         _need(isinstance(sa, SetAside) and sa.column in results.columns, f"fit.ols.set_aside[{i}] is damaged")
@@ -89,27 +109,31 @@ def check_fit(results, design) -> None:
                                                        for k, v in sa.combination.items()),
               f"fit.ols.set_aside[{i}].combination is damaged")
         _names(sa.alternatives, f"fit.ols.set_aside[{i}].alternatives")
+        # Building the dict and the sentence touches every field the report reads.
         json.dumps(sa.to_dict())
         sa.sentence()
-    _need(results.outcome == getattr(design, "outcome", "numeric"),
-          "fit.outcome does not match the kind of target of the roles")
-    if results.outcome == "binary":
-        lr = results.logistic
-        _need(isinstance(lr, LogisticResult), "fit.logistic is not a logistic result")
-        for arr in ("coef", "std_errors", "z_values", "p_values", "ci_low", "ci_high"):
-            _array(getattr(lr, arr), (p,), f"fit.logistic.{arr}")
-        _need((lr.model is None) == (lr.separation is not None), "fit.logistic.model and separation disagree")
-        if lr.model is not None:
-            model(lr.model, "fit.logistic.model")
-        else:
-            _need(isinstance(lr.separation, Separation) and isinstance(lr.separation.sentence, str),
-                  "fit.logistic.separation is damaged")
-    dg = results.diagnostics
+
+
+def _check_logistic(lr, design) -> None:
+    """A yes/no fit's logistic result: per-column arrays, and either a model or the reason there is none."""
+    _need(isinstance(lr, LogisticResult), "fit.logistic is not a logistic result")
+    for arr in ("coef", "std_errors", "z_values", "p_values", "ci_low", "ci_high"):
+        _array(getattr(lr, arr), (design.p,), f"fit.logistic.{arr}")
+    # A separated outcome has no finite model, only the sentence saying why.
+    _need((lr.model is None) == (lr.separation is not None), "fit.logistic.model and separation disagree")
+    if lr.model is not None:
+        _check_model(lr.model, "fit.logistic.model", design)
+    else:
+        _need(isinstance(lr.separation, Separation) and isinstance(lr.separation.sentence, str),
+              "fit.logistic.separation is damaged")
+
+
+def _check_diagnostics(dg) -> None:
+    """The overlap diagnostics: names, array shapes that agree with each other, and their sentences."""
     _need(isinstance(dg, Diagnostics), "fit.diagnostics is not diagnostics")
     _names(dg.columns, "fit.diagnostics.columns")
     _names(dg.terms, "fit.diagnostics.terms")
-    k = len(dg.columns)
-    _array(dg.vif, (k,), "fit.diagnostics.vif")
+    _array(dg.vif, (len(dg.columns),), "fit.diagnostics.vif")
     _need(isinstance(dg.condition_indices, np.ndarray) and dg.condition_indices.ndim == 1,
           "fit.diagnostics.condition_indices must be a list of numbers")
     d = dg.condition_indices.shape[0]
@@ -122,27 +146,30 @@ def check_fit(results, design) -> None:
           "fit.diagnostics.damaging is damaged")
     _need(isinstance(dg.sentences, tuple) and all(isinstance(s, str) for s in dg.sentences),
           "fit.diagnostics.sentences must be text")
-    _need(isinstance(results.penalized, dict), "fit.penalized must be a dict")
-    for name, pf in results.penalized.items():
-        where = f"fit.penalized[{name!r}]"
-        _need(isinstance(name, str) and isinstance(pf, PenalizedFit) and pf.name == name, f"{where} is damaged")
-        model(pf.model, f"{where}.model")
-        _need(isinstance(pf.alpha, float) and pf.alpha > 0 and isinstance(pf.alpha_rule, str), f"{where}.alpha")
-        path = pf.path
-        _need(isinstance(path, PathResult) and path.columns == pf.model.columns
-              and path.reference_levels == pf.model.reference_levels, f"{where}.path is damaged")
-        _need(isinstance(path.alphas, np.ndarray) and path.alphas.ndim == 1 and path.alphas.size >= 1
-              and bool(np.all(path.alphas > 0)), f"{where}.path.alphas must be positive numbers")
-        kk = path.alphas.shape[0]
-        _array(path.coef, (kk, len(path.columns)), f"{where}.path.coef")
-        _array(path.coef_std, (kk, len(path.columns)), f"{where}.path.coef_std")
-        _array(path.intercepts, (kk,), f"{where}.path.intercepts")
-        if pf.cv is not None:
-            cv = pf.cv
-            _need(isinstance(cv, CVResult) and isinstance(cv.alphas, np.ndarray) and cv.alphas.ndim == 1,
-                  f"{where}.cv is damaged")
-            for arr in ("mean", "se"):
-                _array(getattr(cv, arr), cv.alphas.shape, f"{where}.cv.{arr}")
+
+
+def _check_penalized(name, pf, design) -> None:
+    """One penalized fit: its model, its α, its path of coefficients and its cross-validation curve."""
+    where = f"fit.penalized[{name!r}]"
+    _need(isinstance(name, str) and isinstance(pf, PenalizedFit) and pf.name == name, f"{where} is damaged")
+    _check_model(pf.model, f"{where}.model", design)
+    _need(isinstance(pf.alpha, float) and pf.alpha > 0 and isinstance(pf.alpha_rule, str), f"{where}.alpha")
+    path = pf.path
+    # The path must name the model's columns (reference levels included) so the report can plot it.
+    _need(isinstance(path, PathResult) and path.columns == pf.model.columns
+          and path.reference_levels == pf.model.reference_levels, f"{where}.path is damaged")
+    _need(isinstance(path.alphas, np.ndarray) and path.alphas.ndim == 1 and path.alphas.size >= 1
+          and bool(np.all(path.alphas > 0)), f"{where}.path.alphas must be positive numbers")
+    kk = path.alphas.shape[0]
+    _array(path.coef, (kk, len(path.columns)), f"{where}.path.coef")
+    _array(path.coef_std, (kk, len(path.columns)), f"{where}.path.coef_std")
+    _array(path.intercepts, (kk,), f"{where}.path.intercepts")
+    if pf.cv is not None:
+        cv = pf.cv
+        _need(isinstance(cv, CVResult) and isinstance(cv.alphas, np.ndarray) and cv.alphas.ndim == 1,
+              f"{where}.cv is damaged")
+        for arr in ("mean", "se"):
+            _array(getattr(cv, arr), cv.alphas.shape, f"{where}.cv.{arr}")
 
 
 def check_derived(derived: dict, design, n_stress: int) -> None:
