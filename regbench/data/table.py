@@ -37,6 +37,10 @@ class ColumnInfo:
         How the reader read the column when that needs saying: percentages or decimal
         commas read as numbers, or why a column that looks numeric was read as text.
         Empty when there is nothing to say.
+    words : tuple of str
+        A boolean column's two values as the file writes them, (false, true) — e.g.
+        ("No", "Yes") — so a yes/no outcome is named in the file's words, not as 0 and 1.
+        Empty for other kinds, or when only one of the two occurs.
     """
 
     name: str
@@ -46,6 +50,7 @@ class ColumnInfo:
     coded_categories: bool = False
     bad_cells: tuple = ()
     note: str = ""
+    words: tuple = ()
 
     @property
     def read_as_text(self) -> bool:

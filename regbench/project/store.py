@@ -92,7 +92,8 @@ def table_meta(table) -> dict:
         "columns": [
             {"name": i.name, "kind": i.kind, "missing": int(i.missing), "distinct": int(i.distinct),
              "coded_categories": bool(i.coded_categories), "bad_cells": [[int(r), str(t)] for r, t in i.bad_cells],
-             **({"note": i.note} if getattr(i, "note", "") else {})}
+             **({"note": i.note} if getattr(i, "note", "") else {}),
+             **({"words": list(i.words)} if getattr(i, "words", ()) else {})}
             for i in (table.columns[n] for n in table.names)
         ],
     }
@@ -432,6 +433,10 @@ def _stored_column(j: int, c, tab, infos: dict, bad):
         bad(f + ".coded_categories", "must be true or false")
     if not isinstance(c.get("note", ""), str):
         bad(f + ".note", "must be text")
+    words = c.get("words", [])
+    if not (isinstance(words, list) and all(isinstance(t, str) and t for t in words)
+            and (not words or (len(words) == 2 and kind == "boolean"))):
+        bad(f + ".words", "must be a boolean column's two values as text, [false, true]")
     cells = c.get("bad_cells", [])
     if not isinstance(cells, list):
         bad(f + ".bad_cells", "must be a list of [row, text]")
@@ -449,7 +454,7 @@ def _stored_column(j: int, c, tab, infos: dict, bad):
             bad(f + ".kind", f"is {kind} but table.parquet stores '{name}' as {arr.type}")
         values = arr.to_numpy(zero_copy_only=False).astype(np.float64, copy=True)
     info = ColumnInfo(name, kind, c["missing"], c["distinct"], bool(c.get("coded_categories", False)),
-                      tuple((int(r), str(t)) for r, t in cells), c.get("note", ""))
+                      tuple((int(r), str(t)) for r, t in cells), c.get("note", ""), tuple(words))
     return name, values, info
 
 
