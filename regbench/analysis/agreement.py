@@ -174,6 +174,17 @@ class Agreement(Result):
         })
 
 
+def _all_pairs(names, train, held, w) -> tuple:
+    """Every pair of models compared on training rows, and on held-out rows where both have them."""
+    pairs = []
+    for i, a in enumerate(names):
+        for b in names[i + 1:]:
+            pairs.append(pair_agreement(train[a], train[b], w, a, b, "training"))
+            if a in held and b in held:
+                pairs.append(pair_agreement(held[a], held[b], w, a, b, "held_out"))
+    return tuple(pairs)
+
+
 def pair_agreement(pa: np.ndarray, pb: np.ndarray, w: np.ndarray, a: str, b: str, split: str) -> PairAgreement:
     """Weighted agreement statistics of two prediction vectors."""
     d = pa - pb
@@ -233,13 +244,7 @@ def compare_models(design, models: dict, heldout: Optional[dict] = None, units: 
             "training": weighted_rms(train[k] - y, w),
             "held_out": weighted_rms(held[k] - y, w) if k in held else float("nan"),
         }
-    pairs = []
-    for i, a in enumerate(names):
-        for b in names[i + 1:]:
-            pairs.append(pair_agreement(train[a], train[b], w, a, b, "training"))
-            if a in held and b in held:
-                pairs.append(pair_agreement(held[a], held[b], w, a, b, "held_out"))
-    pairs = tuple(pairs)
+    pairs = _all_pairs(names, train, held, w)
     if getattr(design, "outcome", "numeric") == "binary":
         return _probability_agreement(design, names, pairs, own, train, held, tiny_share)
     sentences = _sentences(design, names, pairs, own, units, tiny_share)
@@ -270,13 +275,7 @@ def _probability_agreement(design, names, pairs, own, train, held, tiny_share) -
     lo_held = {k: _log_odds(held[k]) for k in held}
     loss = {k: {"training": _log_loss(train[k], y, w),
                 "held_out": _log_loss(held[k], y, w) if k in held else float("nan")} for k in names}
-    lo_pairs = []
-    for i, a in enumerate(names):
-        for b in names[i + 1:]:
-            lo_pairs.append(pair_agreement(lo_train[a], lo_train[b], w, a, b, "training"))
-            if a in lo_held and b in lo_held:
-                lo_pairs.append(pair_agreement(lo_held[a], lo_held[b], w, a, b, "held_out"))
-    lo_pairs = tuple(lo_pairs)
+    lo_pairs = _all_pairs(names, lo_train, lo_held, w)
     sentences = _sentences(design, names, pairs, own, None, tiny_share)
     sentences += _log_odds_sentences(design, lo_pairs, loss)
     return Agreement(models=names, pairs=pairs, own_error=own, target=design.target, tiny_share=float(tiny_share),

@@ -368,8 +368,7 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
     try:
         tab = pq.read_table(pa.BufferReader(data))
     except Exception as exc:  # pyarrow raises several types on damaged data
-        raise ProjectError(f"{ar.label}: member 'table.parquet' is not a readable Parquet table "
-                           f"({type(exc).__name__}: {str(exc)[:200]}); the file is damaged") from None
+        raise _unreadable_parquet(ar, exc) from None
     if tab.num_rows != rows:
         bad("rows", f"says {rows} but table.parquet holds {tab.num_rows} rows")
     if tab.num_columns != len(cols):
@@ -405,6 +404,12 @@ def _table_meta(ar: _Archive, meta, where, bad):
                                and all(a < b for a, b in zip(lines, lines[1:]))))):
         bad("line_numbers", "must list one increasing row number >= 1 per row")
     return cols, rows, notes, lines
+
+
+def _unreadable_parquet(ar, exc) -> ProjectError:
+    """The one line for a table.parquet member pyarrow cannot read (it raises several types)."""
+    return ProjectError(f"{ar.label}: member 'table.parquet' is not a readable Parquet table "
+                        f"({type(exc).__name__}: {str(exc)[:200]}); the file is damaged")
 
 
 def _stored_column(j: int, c, tab, infos: dict, bad):
@@ -471,8 +476,7 @@ def _check_parquet_sizes(ar, data: bytes, rows, cols, bad) -> None:
     try:
         meta = pq.ParquetFile(pa.BufferReader(data)).metadata
     except Exception as exc:  # pyarrow raises several types on a damaged footer
-        raise ProjectError(f"{ar.label}: member 'table.parquet' is not a readable Parquet table "
-                           f"({type(exc).__name__}: {str(exc)[:200]}); the file is damaged") from None
+        raise _unreadable_parquet(ar, exc) from None
     if meta.num_rows != rows:
         bad("rows", f"says {rows} but table.parquet declares {meta.num_rows} rows")
     if meta.num_columns != len(cols):
