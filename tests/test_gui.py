@@ -206,6 +206,26 @@ def test_open_a_table_asks_before_fitting_then_the_sentence_sets_the_roles(qtbot
     close_quietly(w)
 
 
+def test_a_project_saved_without_a_predictor_list_opens_with_nothing_to_fit(qtbot, tmp_path):
+    # `regbench new` without --predictors stores an empty list ("every other usable column");
+    # the window lists those columns as ticks, which is the same fit, so Fit has nothing to do.
+    from regbench.cli import main
+
+    proj = tmp_path / "gh.regbench"
+    assert main(["new", SAMPLE_CSV, "--target", "yield_kg_m2", "--penalties", "8", "--folds", "3",
+                 "--bootstrap", "0", "-o", str(proj)]) == 0
+    w = make_window(qtbot)
+    with qtbot.waitSignal(w.session_changed, timeout=FIT_TIMEOUT_MS):
+        w.open_path(str(proj))
+    wait_idle(qtbot, w)
+    assert w.session.roles.predictors == () and w.has_results()
+    assert w.question.fit_btn.text() == "Fit"
+    # Unticking a column is a real change.
+    _tick(w, "co2_ppm", False)
+    assert w.question.fit_btn.text() == "Fit with these choices"
+    close_quietly(w)
+
+
 def test_identifier_like_numeric_columns_are_left_out_with_a_reason(qtbot, tmp_path):
     rng = np.random.default_rng(5)
     n = 40

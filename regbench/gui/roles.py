@@ -261,8 +261,15 @@ class RoleDraft(QtCore.QObject):
         """True when Fit would change the session's roles, settings or refit count."""
         if session is None or self.table is None:
             return False
-        return (self.roles() != session.roles or self.settings != session.settings
-                or self.bootstrap != session.bootstrap)
+        mine, theirs = self.roles(), session.roles
+        # A session whose predictors are empty uses every other usable column (a project saved by
+        # the command line without --predictors); the draft lists them, so compare what is used.
+        used = set(theirs.predictors) if theirs.predictors else (
+            set(default_predictors(self.table, theirs)) - {theirs.target, theirs.weights, theirs.groups})
+        if set(mine.predictors) != used:
+            return True
+        return (replace(mine, predictors=()) != replace(theirs, predictors=())
+                or self.settings != session.settings or self.bootstrap != session.bootstrap)
 
 
 # == the sentence ===========================================================================
