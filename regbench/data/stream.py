@@ -15,23 +15,29 @@ passes run over the parts, each with memory bounded by the batch:
    :class:`~regbench.models.gram.FactorAccumulator`), plus a seeded sample of
    rows for the views that need rows (scatter plots, residuals, per-row stress).
 
+Before them, a survey (:mod:`regbench.data.survey`) reads only the columns that fix the
+design: the levels of text predictors (coded as in memory: against the first level for
+OLS, one indicator per level for the penalized fits), a yes/no target (refused before the
+full pass), the identifier rule's facts and what derived columns need.  Each batch then
+computes its derived columns and codes its categories the same way (:func:`prepare_batch`).
+
 Only statistics of size p×p (and per-group sums) leave a part, so the same
-two functions run as tasks on a cluster (:mod:`regbench.cluster`).  The folds
+functions run as tasks on a cluster (:mod:`regbench.cluster`).  The folds
 are those of the in-memory route (same seed, same groups, same row order), so
 the fit equals the in-memory fit to round-off.
 
-What the streamed route does not do: categorical (text) predictors are not
-coded and derived columns are not computed (name numeric predictors, or read
-the table in memory); a CSV with text in a numeric column is refused with one
-line naming the column, the row and the text of the first such cell, where
-the in-memory route sets the column aside.
+What the streamed route does not do: yes/no outcomes (a logistic fit needs a pass over
+the rows per step) and text columns holding yes/no words or mostly numbers are refused
+with one line; a CSV with text in a numeric column is refused with one line naming the
+column, the row and the text of the first such cell, where the in-memory route sets the
+column aside.
 """
 
 from __future__ import annotations
 
 import os
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Optional
 
@@ -157,8 +163,9 @@ def batch_rows_for(budget: Optional[int], n_columns: int) -> int:
     return int(max(4096, min(262_144, budget / 32 / (8 * max(n_columns, 1)))))
 
 
-def read_batches(part: Part, columns, batch_rows: int, numeric=()):
-    """Batches of ``part`` as dicts of column name -> numpy array (float64 for ``numeric``, else object)."""
+def read_batches(part: Part, columns, batch_rows: int, numeric=(), text=()):
+    """Batches of ``part`` as dicts of column name -> numpy array (float64 for ``numeric``, else object);
+    the columns in ``text`` stay pyarrow arrays (category predictors, coded by :func:`prepare_batch`)."""
     import pyarrow as pa
 
     if part.kind == "parquet":
@@ -182,7 +189,7 @@ def read_batches(part: Part, columns, batch_rows: int, numeric=()):
             raise _bad_cell(part.path, exc, numeric) from None
         it = _csv_batches(reader, part.path, numeric)
     for batch in it:
-        yield {name: _to_numpy(batch.column(i), name in numeric, part.path, name)
+        yield {name: batch.column(i) if name in text else _to_numpy(batch.column(i), name in numeric, part.path, name)
                for i, name in enumerate(batch.schema.names)}
     # The reader's pages go back to the system between parts rather than staying in the pool.
     pa.default_memory_pool().release_unused()
@@ -226,13 +233,15 @@ def _first_text_cell(path, column):
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
+    from regbench.data.reader import MISSING_TEXTS
+
     opts = pacsv.ConvertOptions(column_types={column: pa.string()}, include_columns=[column],
                                 strings_can_be_null=True)
     row = 0
     with pacsv.open_csv(path, convert_options=opts) as reader:
         for batch in reader:
             for i, v in enumerate(batch.column(0).to_pylist()):
-                if v is not None and v.strip() and not _is_number(v):
+                if v is not None and v.strip().lower() not in MISSING_TEXTS and not _is_number(v):
                     return row + i + 1, v
             row += batch.num_rows
     return None
@@ -277,6 +286,7 @@ class RowsInfo:
     x_min: Optional[np.ndarray] = None
     x_max: Optional[np.ndarray] = None
     w_pos: int = 0
+    x_count: Optional[np.ndarray] = None  # column sums over the usable rows (a level's rows, for indicators)
 
     def merge(self, other: "RowsInfo") -> "RowsInfo":
         out = RowsInfo(n_rows=self.n_rows + other.n_rows, n_kept=self.n_kept + other.n_kept,
@@ -291,26 +301,110 @@ class RowsInfo:
         maxs = [m for m in (self.x_max, other.x_max) if m is not None]
         out.x_min = np.minimum.reduce(mins) if mins else None
         out.x_max = np.maximum.reduce(maxs) if maxs else None
+        sums = [m for m in (self.x_count, other.x_count) if m is not None]
+        out.x_count = np.add.reduce(sums) if sums else None
         return out
 
 
 @dataclass(frozen=True)
 class Plan:
-    """What both passes read: the roles resolved against the table's columns."""
+    """What the passes read and how each batch becomes design rows: the roles resolved against the
+    table's columns, with what the survey (:mod:`regbench.data.survey`) learnt.
+
+    Attributes
+    ----------
+    predictors : tuple of str
+        Predictors as the roles name them (table columns, or derived columns).
+    levels : tuple of (predictor, tuple of level texts)
+        Category predictors and every level seen on the table's rows, sorted.  A batch
+        codes each against the first level (the in-memory reference coding); the levels
+        absent from the usable rows are dropped after the pass.
+    number_levels : tuple of (predictor, tuple of (value, level text))
+        Numbers marked as categories: each value's level text.
+    text : tuple of str
+        Category predictors read as text.
+    derived : tuple of (Derived, affine)
+        Derived columns computed on every batch, in order.
+    design : tuple of (design column, predictor, level index or None), optional
+        The design columns a batch yields; by default every column the coding gives.
+    set_aside : tuple of UnusableColumn
+        Columns the default choice of predictors left out (identifiers, empty columns).
+    """
 
     target: str
     predictors: tuple
     weights: Optional[str]
     groups: Optional[str]
     batch_rows: int
+    levels: tuple = ()
+    number_levels: tuple = ()
+    text: tuple = ()
+    derived: tuple = ()
+    design: Optional[tuple] = None
+    set_aside: tuple = ()
+
+    @property
+    def design_columns(self) -> tuple:
+        if self.design is not None:
+            return self.design
+        cats = dict(self.levels)
+        out = []
+        for c in self.predictors:
+            if c in cats:
+                out += [(f"{c}={lev}", c, i) for i, lev in enumerate(cats[c]) if i > 0]
+            else:
+                out.append((c, c, None))
+        return tuple(out)
+
+    @property
+    def names(self) -> tuple:
+        """The design columns' names."""
+        return tuple(d[0] for d in self.design_columns)
+
+    @property
+    def raw(self) -> tuple:
+        """Table columns read for the target, weights, predictors and derived columns."""
+        made = {d.name for d, _ in self.derived}
+        cols = [self.target] + ([self.weights] if self.weights else [])
+        cols += [c for c in self.predictors if c not in made]
+        cols += [c for d, _ in self.derived for c in d.columns if c not in made]
+        return tuple(dict.fromkeys(cols))
 
     @property
     def numeric(self) -> tuple:
-        return (self.target,) + self.predictors + ((self.weights,) if self.weights else ())
+        return tuple(c for c in self.raw if c not in self.text)
 
     @property
     def columns(self) -> tuple:
-        return self.numeric + ((self.groups,) if self.groups else ())
+        return self.raw + ((self.groups,) if self.groups and self.groups not in self.raw else ())
+
+
+def prepare_batch(b: dict, plan: Plan) -> dict:
+    """A batch with its derived columns computed and each category predictor as its level's
+    index (NaN where missing), ready for :func:`_keep_mask` and :func:`_kept_arrays`."""
+    from regbench.data.derive import _values
+
+    for d, affine in plan.derived:
+        b[d.name] = _values(d, [b[c] for c in d.columns], affine)
+    if not plan.levels:
+        return b
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    from regbench.data.survey import _stripped
+
+    numbers = {c: dict(v) for c, v in plan.number_levels}
+    for c, levels in plan.levels:
+        if c in numbers:
+            at = {t: i for i, t in enumerate(levels)}
+            x = b[c]
+            u, inv = np.unique(x, return_inverse=True)
+            code = np.array([at[numbers[c][float(v)]] if np.isfinite(v) else np.nan for v in u], dtype=float)
+            b[c] = code[inv.reshape(-1)] if u.size else np.full(x.shape, np.nan)
+        else:
+            idx = pc.index_in(_stripped(b[c]), value_set=pa.array(levels, type=pa.string()))
+            b[c] = idx.to_numpy(zero_copy_only=False).astype(np.float64)
+    return b
 
 
 def _level_texts(values) -> np.ndarray:
@@ -358,13 +452,19 @@ def _part_first_row(part: Part, offset: int) -> int:
     return part.first_row if part.kind == "parquet" else offset
 
 
+def _batches(part: Part, plan: Plan):
+    """The part's batches, prepared (derived columns, category codes)."""
+    for b in read_batches(part, plan.columns, plan.batch_rows, plan.numeric, plan.text):
+        yield prepare_batch(b, plan)
+
+
 def rows_pass(part: Part, plan: Plan, cancel=None) -> RowsInfo:
     """First pass over one part."""
     from regbench.progress import check
 
     info = RowsInfo()
     offset = 0
-    for b in read_batches(part, plan.columns, plan.batch_rows, plan.numeric):
+    for b in _batches(part, plan):
         check(cancel)
         n = b[plan.target].shape[0]
         keep = _keep_mask(b, plan, _part_first_row(part, offset), info)
@@ -377,8 +477,9 @@ def rows_pass(part: Part, plan: Plan, cancel=None) -> RowsInfo:
         labels = codes = None
         if plan.groups:
             labels, codes = np.unique(_level_texts(b[plan.groups][keep]).astype(str), return_inverse=True)
-        X = np.column_stack([b[c][keep] for c in plan.predictors])
-        _note_rows(info, X, b[plan.target][keep], w, labels, codes)
+        m = int(keep.sum())
+        X, y, w = _kept_arrays(b, plan, keep, m, len(plan.design_columns))
+        _note_rows(info, X, y, w, labels, codes)
     return info
 
 
@@ -399,7 +500,7 @@ def group_pass(part: Part, plan: Plan, part_index: int, sample_rate: float, seed
     from regbench.models.gram import FactorAccumulator, _accumulate, _chunk_rows
     from regbench.progress import check
 
-    p = len(plan.predictors)
+    p = len(plan.design_columns)
     chunk = _chunk_rows(p)
     info = RowsInfo()
     groups = {}
@@ -407,7 +508,7 @@ def group_pass(part: Part, plan: Plan, part_index: int, sample_rate: float, seed
     got = {"X": [], "y": [], "w": [], "g": [], "row": []}
     rng = np.random.default_rng([int(seed), int(part_index)])
     offset = 0
-    for b in read_batches(part, plan.columns, plan.batch_rows, plan.numeric):
+    for b in _batches(part, plan):
         check(cancel)
         n = b[plan.target].shape[0]
         first = _part_first_row(part, offset)
@@ -455,8 +556,9 @@ def _kept_arrays(b, plan: Plan, keep, m: int, p: int):
     """The predictors, target and weights of a batch's kept rows."""
     X = np.empty((m, p))
     every = m == keep.shape[0]
-    for j, c in enumerate(plan.predictors):
-        X[:, j] = b[c] if every else b[c][keep]
+    for j, (_, c, level) in enumerate(plan.design_columns):
+        x = b[c] if every else b[c][keep]
+        X[:, j] = x if level is None else (x == level)
     if every:
         return X, b[plan.target], b[plan.weights] if plan.weights else np.ones(m)
     w = b[plan.weights][keep] if plan.weights else np.ones(m)
@@ -468,6 +570,8 @@ def _note_rows(info: RowsInfo, X, y, w, labels, codes) -> None:
     target's and the predictors' ranges over the rows with weight."""
     pos = w > 0
     info.w_pos += int(pos.sum())
+    # Every usable row counts for a category's levels (weight 0 included), as in memory.
+    info.x_count = X.sum(axis=0) if info.x_count is None else info.x_count + X.sum(axis=0)
     if labels is not None:
         gw = np.bincount(codes, weights=w, minlength=labels.size)
         gn = np.bincount(codes, minlength=labels.size)
@@ -552,13 +656,13 @@ def stats_pass(part: Part, plan: Plan, folds: Folds, kept_before: int, sample: n
     from regbench.models.gram import FactorAccumulator, FoldAccumulator
     from regbench.progress import check
 
-    p = len(plan.predictors)
+    p = len(plan.design_columns)
     facc = FoldAccumulator(p, folds.K)
     racc = FactorAccumulator(p)
     got = {"X": [], "y": [], "w": [], "g": [], "row": [], "fold": []}
     pos = kept_before
     offset = 0
-    for b in read_batches(part, plan.columns, plan.batch_rows, plan.numeric):
+    for b in _batches(part, plan):
         check(cancel)
         n = b[plan.target].shape[0]
         first = _part_first_row(part, offset)
@@ -628,25 +732,79 @@ class StreamedFit:
                      "every fitted number uses all rows") if self.sampled else "row-level views use every row"}}
 
 
-def plan_for(path, roles, budget: Optional[int]) -> Plan:
-    """Resolve the roles against the table's columns for the streamed route."""
-    names = table_columns(path)
+def column_kinds(path) -> dict:
+    """Each table column's kind (:mod:`regbench.data.survey`'s), from the Parquet schema or the types
+    pyarrow's CSV reader infers from the file's first block."""
+    from regbench.data.survey import arrow_kind
+
+    parts = parts_of(path)
+    if parts[0].kind == "csv":
+        import pyarrow.csv as pacsv
+
+        with pacsv.open_csv(parts[0].path) as reader:
+            schema = reader.schema
+    else:
+        import pyarrow.parquet as pq
+
+        schema = pq.ParquetFile(parts[0].path).schema_arrow
+    return {name: arrow_kind(schema.field(name).type) for name in schema.names}
+
+
+def plan_for(path, roles, budget: Optional[int] = None, run=None, cancel=None) -> Plan:
+    """Resolve the roles against the table's columns for the streamed route.
+
+    Runs the survey (:mod:`regbench.data.survey`) over the columns that decide the
+    design, through ``run`` (the cluster's runner, or in order here), and refuses what
+    the streamed route cannot fit with one line: a yes/no outcome, a derived column
+    outside its operation's domain, text it cannot read as categories.
+    """
+    from regbench.data import survey as sv
+    from regbench.progress import check
+
+    run = run or (lambda fn, args: [fn(*a) for a in args])
     src = str(path)
-    for col in (roles.target, roles.weights, roles.groups, *roles.predictors):
-        if col is not None and col not in names:
+    kinds = column_kinds(path)
+    names = list(kinds)
+    derived_names = [d.name for d in getattr(roles, "derived", ())]
+    for col in (roles.target, roles.weights, roles.groups, *roles.predictors, *roles.categorical):
+        if col is not None and col not in names and col not in derived_names:
             raise DataError(f"{src}: no column '{col}'; columns are: {', '.join(names)}")
-    if roles.categorical:
-        raise DataError(f"{src}: categorical predictors ({', '.join(roles.categorical)}) are not coded on the "
-                        "streamed route; leave them out or read the table in memory (no --memory-budget)")
-    if getattr(roles, "derived", ()):
-        raise DataError(f"{src}: derived columns are not computed on the streamed route; read the table in "
-                        "memory (no --memory-budget)")
-    skip = {roles.target, roles.weights, roles.groups}
-    predictors = tuple(roles.predictors) or tuple(c for c in names if c not in skip)
-    if not predictors:
-        raise DataError(f"{src}: no predictor columns; choose at least one column besides the target")
-    return Plan(target=roles.target, predictors=predictors, weights=roles.weights, groups=roles.groups,
-                batch_rows=batch_rows_for(budget, len(predictors) + 3))
+    if roles.outcome == "binary" or roles.no_count is not None:
+        raise DataError(f"{src}: yes/no outcomes are fitted with the rows in memory, not on the streamed or cluster "
+                        "route; read the table in memory (without --memory-budget or --cluster)")
+    sv._check_derived_roles(src, roles, kinds)
+    parts = parts_of(path)
+    default = not roles.predictors
+    splan = sv.plan_survey(roles, kinds, parts, default)
+    rows = table_rows(path)
+    first_plan, survey = splan, None
+    for _ in range(len(derived_names) + 1):
+        got = sv.Survey()
+        if splan.columns:
+            batch = batch_rows_for(budget, len(splan.columns))
+            outs = run(sv.survey_pass, [(part, splan, kinds, batch) for part in parts])
+            check(cancel)
+            for o in outs:
+                got = got.merge(o)
+        if survey is None:
+            survey = got
+        else:
+            survey.derived.update({k: v for k, v in got.derived.items() if v.seen})
+        derived = sv.resolve_derived(src, splan, survey)
+        if not sv.pending(derived):
+            break
+        # Another round for a standardized column built on a standardized one: only the sources.
+        made = set(derived_names)
+        cols = tuple(dict.fromkeys(c for d, _ in derived for c in d.columns if c not in made))
+        splan = sv.SurveyPlan(columns=cols, derived=derived)
+    found = sv.findings(src, roles, kinds, first_plan, survey, rows if rows is not None else survey.rows, default,
+                        derived, parts)
+    text = tuple(c for c in found.levels if c not in found.number_levels)
+    return Plan(target=roles.target, predictors=found.predictors, weights=roles.weights, groups=roles.groups,
+                batch_rows=batch_rows_for(budget, len(found.predictors) + 3),
+                levels=tuple(found.levels.items()),
+                number_levels=tuple((c, tuple(v.items())) for c, v in found.number_levels.items()),
+                text=text, derived=found.derived, set_aside=found.set_aside)
 
 
 def _folds_by_group(info: RowsInfo, plan: Plan, K: int, seed: int):
@@ -659,9 +817,40 @@ def _folds_by_group(info: RowsInfo, plan: Plan, K: int, seed: int):
     return labels, {lab: int(f) for lab, f in zip(labels, fold_of_groups(gw, gn, K, seed))}
 
 
-def _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run, runner) -> "StreamedFit":
-    """One pass for a grouped Parquet table: per-group statistics, folds as sums of whole groups."""
+@dataclass(frozen=True)
+class Columns:
+    """The design's columns after the pass: which of the pass's columns stay, and why the others went."""
+
+    keep: np.ndarray  # indices into plan.design_columns
+    names: tuple
+    sources: tuple
+    unusable: tuple
+    references: tuple
+
+
+def _design(plan: Plan, cols: Columns, info: RowsInfo, got: dict, labels, roles, X_cols=None):
+    """The Design of the sampled rows, carrying the fit's columns, references and exclusions."""
     from regbench.data.design import Design, ExcludedRow
+
+    cat = lambda k, shape: np.concatenate(got[k]) if got[k] else np.zeros(shape)  # noqa: E731
+    gtext = cat("g", 0) if plan.groups else None
+    code = {lab: i for i, lab in enumerate(labels)}
+    X = cat("X", (0, len(plan.design_columns)))
+    if X_cols is not None:
+        X = X[:, X_cols]
+    return Design(
+        X=np.ascontiguousarray(X), y=cat("y", 0), weights=cat("w", 0),
+        groups=None if gtext is None else np.array([code[t] for t in gtext], dtype=np.int64),
+        columns=cols.names, sources=cols.sources, target=plan.target, row_numbers=cat("row", 0).astype(np.int64),
+        excluded=tuple(ExcludedRow(r, c, why) for r, c, why in info.excluded), unusable=tuple(plan.set_aside) + cols.unusable,
+        group_labels=tuple(labels), weights_column=plan.weights, groups_column=plan.groups, n_table_rows=info.n_rows,
+        derived=tuple(getattr(roles, "derived", ())),
+        weights_kind=roles.weights_kind if roles.weights is not None else "precision",
+        reference_levels=cols.references)
+
+
+def _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run, runner, roles) -> "StreamedFit":
+    """One pass for a grouped Parquet table: per-group statistics, folds as sums of whole groups."""
     from regbench.models.gram import FoldAccumulator, merge
     from regbench.progress import check, report
 
@@ -681,29 +870,21 @@ def _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run
         for k in got:
             got[k] += s2[k]
     src = str(path)
-    unusable, usable = _check_rows(info, plan, src)
-    idx = np.array([plan.predictors.index(c) for c in usable], dtype=int)
-    if idx.size < len(plan.predictors):
+    cols = _check_rows(info, plan, src)
+    idx = cols.keep
+    if idx.size < len(plan.design_columns) or np.any(idx != np.arange(idx.size)):
         groups = {lab: _columns_of(st, idx) for lab, st in groups.items()}
         racc = _factor_columns(racc, idx)
     K = int(settings.folds)
     labels, group_fold = _folds_by_group(info, plan, K, settings.seed)
-    acc = FoldAccumulator(len(usable), K)
+    acc = FoldAccumulator(len(idx), K)
     for lab in labels:
         k = group_fold[lab]
         acc.folds[k] = groups[lab] if acc.folds[k] is None else merge(acc.folds[k], groups[lab])
     full, fold_stats = acc.result()
-    cat = lambda k, shape: np.concatenate(got[k]) if got[k] else np.zeros(shape)  # noqa: E731
-    gtext = cat("g", 0)
-    code = {lab: i for i, lab in enumerate(labels)}
-    X = cat("X", (0, len(plan.predictors)))[:, idx]
-    design = Design(
-        X=np.ascontiguousarray(X), y=cat("y", 0), weights=cat("w", 0),
-        groups=np.array([code[t] for t in gtext], dtype=np.int64),
-        columns=usable, sources=usable, target=plan.target, row_numbers=cat("row", 0).astype(np.int64),
-        excluded=tuple(ExcludedRow(r, c, why) for r, c, why in info.excluded), unusable=unusable,
-        group_labels=labels, weights_column=plan.weights, groups_column=plan.groups, n_table_rows=info.n_rows)
+    design = _design(plan, cols, info, got, labels, roles, X_cols=idx)
     report(progress, 1, total, "fitting every model from the cross-products")
+    gtext = np.concatenate(got["g"]) if got["g"] else np.zeros(0)
     ids = np.array([group_fold[t] for t in gtext], dtype=np.int64)
     results = fit_from_stats(design, settings, full, fold_stats, racc, ids, info.n_kept, cancel=cancel)
     report(progress, total, total, "done")
@@ -711,8 +892,9 @@ def _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run
                        excluded_total=info.n_excluded, route="streamed" if runner is None else "cluster")
 
 
-def _check_rows(info: RowsInfo, plan: Plan, src: str):
-    """The in-memory route's refusals, and the predictors set aside as constant."""
+def _check_rows(info: RowsInfo, plan: Plan, src: str) -> Columns:
+    """The in-memory route's refusals, and the design columns kept: a constant number is set aside,
+    a category keeps the levels its usable rows hold, coded against the first of them."""
     if info.n_kept == 0:
         raise DataError(f"{src}: every row was excluded (first reason: row {info.excluded[0][0]}, column "
                         f"'{info.excluded[0][1]}': {info.excluded[0][2]}); check the roles and the missing values"
@@ -725,16 +907,35 @@ def _check_rows(info: RowsInfo, plan: Plan, src: str):
                         "row, so there is nothing to explain; choose another target")
     from regbench.data.design import UnusableColumn
 
-    constant = info.x_min == info.x_max
-    unusable = tuple(UnusableColumn(c, f"constant ({info.x_min[j]:g}) on every usable row")
-                     for j, c in enumerate(plan.predictors) if constant[j])
-    usable = tuple(c for j, c in enumerate(plan.predictors) if not constant[j])
-    if not usable:
+    design = plan.design_columns
+    cats = dict(plan.levels)
+    keep, unusable, references = [], [], []
+    for c in plan.predictors:
+        at = [j for j, d in enumerate(design) if d[1] == c]
+        if c not in cats:
+            j = at[0]
+            if info.x_min[j] == info.x_max[j]:
+                unusable.append(UnusableColumn(c, f"constant ({info.x_min[j]:g}) on every usable row", rule="constant"))
+            else:
+                keep.append(j)
+            continue
+        levels = cats[c]
+        count = {design[j][2]: info.x_count[j] for j in at}
+        count[0] = info.n_kept - sum(count.values())
+        present = [i for i in range(len(levels)) if count.get(i, 0) > 0]
+        if len(present) < 2:
+            unusable.append(UnusableColumn(c, f"only one level ('{levels[present[0]]}') on every usable row",
+                                           rule="one_level"))
+            continue
+        # The first level present is the reference; its column (if the pass made one) goes.
+        mine = [j for j in at if design[j][2] in present[1:]]
+        keep += mine
+        references.append((c, levels[present[0]], tuple(design[j][0] for j in mine)))
+    if not keep:
         raise DataError(f"{src}: no usable predictor remains; choose other predictors")
-    if len(usable) >= info.w_pos:
-        raise DataError(f"{src}: {len(usable)} predictor columns but only {info.w_pos} usable rows; a linear model "
-                        "needs more rows than predictors. Choose fewer predictors or add rows")
-    return unusable, usable
+    keep = np.array(keep, dtype=int)
+    return Columns(keep=keep, names=tuple(design[j][0] for j in keep), sources=tuple(design[j][1] for j in keep),
+                   unusable=tuple(unusable), references=tuple(references))
 
 
 def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sample_rows: int = SAMPLE_ROWS,
@@ -746,6 +947,8 @@ def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sa
     path : path
         A Parquet file, a folder of Parquet files or a CSV file.
     roles : Roles
+        Numeric and category predictors, derived columns, weights and groups; a yes/no
+        outcome is refused with one line (it is fitted with the rows in memory).
     settings : FitSettings
     memory_budget : int, optional
         Bytes; sets the batch size.
@@ -762,11 +965,13 @@ def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sa
     from regbench.progress import check, report
 
     run = runner or (lambda fn, args: [fn(*a) for a in args])
-    plan = plan_for(path, roles, memory_budget)
+    report(progress, 0, 5, f"surveying the columns of {Path(path).name}")
+    plan = plan_for(path, roles, memory_budget, run=run, cancel=cancel)
+    check(cancel)
     parts = parts_of(path)
     total = 4
     if plan.groups and all(part.rows is not None for part in parts):
-        return _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run, runner)
+        return _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run, runner, roles)
     report(progress, 0, total, f"reading {len(parts)} part(s) of {Path(path).name}: which rows are usable")
     infos = run(rows_pass, [(part, plan) for part in parts])
     check(cancel)
@@ -774,10 +979,8 @@ def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sa
     for other in infos[1:]:
         info = info.merge(other)
     src = str(path)
-    unusable, usable = _check_rows(info, plan, src)
-    from regbench.data.design import Design, ExcludedRow
-
-    plan2 = Plan(plan.target, usable, plan.weights, plan.groups, plan.batch_rows)
+    cols = _check_rows(info, plan, src)
+    plan2 = replace(plan, design=tuple(plan.design_columns[j] for j in cols.keep))
     K = int(settings.folds)
     labels = tuple(sorted(info.groups))
     if plan.groups:
@@ -808,29 +1011,25 @@ def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sa
         for k in got:
             got[k] += g2[k]
     full, fold_stats = facc.result()
-    cat = lambda k, shape: np.concatenate(got[k]) if got[k] else np.zeros(shape)  # noqa: E731
-    gtext = cat("g", 0) if plan.groups else None
-    code = {lab: i for i, lab in enumerate(labels)}
-    design = Design(
-        X=np.ascontiguousarray(cat("X", (0, len(usable)))), y=cat("y", 0), weights=cat("w", 0),
-        groups=None if gtext is None else np.array([code[t] for t in gtext], dtype=np.int64),
-        columns=usable, sources=usable, target=plan.target, row_numbers=cat("row", 0).astype(np.int64),
-        excluded=tuple(ExcludedRow(r, c, why) for r, c, why in info.excluded), unusable=unusable,
-        group_labels=labels, weights_column=plan.weights, groups_column=plan.groups, n_table_rows=info.n_rows)
+    design = _design(plan2, cols, info, got, labels, roles)
     report(progress, 2, total, "fitting every model from the cross-products")
-    results = fit_from_stats(design, settings, full, fold_stats, racc, cat("fold", 0).astype(np.int64),
-                             info.n_kept, cancel=cancel)
+    fold_of = np.concatenate(got["fold"]).astype(np.int64) if got["fold"] else np.zeros(0, dtype=np.int64)
+    results = fit_from_stats(design, settings, full, fold_stats, racc, fold_of, info.n_kept, cancel=cancel)
     report(progress, total, total, "done")
     return StreamedFit(design=design, results=results, rows_used=info.n_kept, sampled=bool(sampled),
                        excluded_total=info.n_excluded, route="streamed" if runner is None else "cluster")
 
 
 def fit_from_stats(design, settings, full, folds, factor, fold_ids, n_obs, cancel=None):
-    """``fit_all`` from gathered statistics: OLS from the merged factor, the rest from the fold Grams."""
+    """``fit_all`` from gathered statistics: OLS from the merged factor, the rest from the fold Grams.
+
+    The penalized problems are built by :func:`regbench.models.engine.problem_for`, as in
+    memory: one indicator per level of a category and the settings' penalty factors.
+    """
     from regbench.models import engine
     from regbench.models.diagnostics import diagnose
     from regbench.models.ols import factor_rows, fit_ols, one_blas_thread
-    from regbench.models.penalized import Problem
+    from regbench.models.relaxed import base_of
     from regbench.models.results import FitResults
     from regbench.progress import check
 
@@ -838,13 +1037,20 @@ def fit_from_stats(design, settings, full, folds, factor, fold_ids, n_obs, cance
     with one_blas_thread():
         ols = fit_ols(design, settings.pins, settings.rank_tol, factor=factor_rows(factor.factor(), factor.W, factor.n))
         diag = diagnose(design, ols)
-        problem = Problem.from_stats(full)
-        train = [Problem.from_stats(engine._training(full, f, k)) for k, f in enumerate(folds)]
+        problem = engine.problem_for(full, design, settings)
+        train = [engine.problem_for(engine._training(full, f, k), design, settings) for k, f in enumerate(folds)]
         grouped = design.groups_column is not None
         penalized = {}
+        fold_betas = {}
         for name, rho in engine.families(settings):
             check(cancel)
-            penalized[name] = engine._family(design, settings, problem, train, folds, name, rho, grouped, cancel)
+            base = base_of(name)
+            if base is None:
+                penalized[name] = engine._family(design, settings, problem, train, folds, name, rho, grouped, cancel,
+                                                 keep=fold_betas)
+            else:
+                penalized[name] = engine._relaxed_family(design, settings, problem, train, folds, name,
+                                                         penalized[base], fold_betas[base], grouped, cancel)
     return FitResults(columns=tuple(design.columns), settings=settings, ols=ols, diagnostics=diag,
                       penalized=penalized, fold_ids=fold_ids, n_obs=int(n_obs), gram=full)
 
