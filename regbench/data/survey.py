@@ -22,6 +22,8 @@ parts merge in row order, so the pass runs as cluster tasks like the others.
 
 from __future__ import annotations
 
+import functools
+import os
 from dataclasses import dataclass, field
 from typing import Optional
 
@@ -408,24 +410,28 @@ def _check_derived_roles(src, roles, kinds: dict) -> None:
         known[name] = NUMBER
 
 
+@functools.lru_cache(maxsize=32)
+def _metadata(path: str, mtime_ns: int):
+    """A Parquet file's footer and the position of each column, read once per file version."""
+    import pyarrow.parquet as pq
+
+    meta = pq.ParquetFile(path).metadata
+    schema = meta.schema
+    return meta, {schema.column(i).path: i for i in range(meta.num_columns)}
+
+
 def _row_group_stats(parts, column: str):
     """(rows, nulls, min, max) of ``column`` in each Parquet part from its statistics (min and max
     None for a part with no value); None when a part is not Parquet or lacks them."""
-    import pyarrow.parquet as pq
-
     out = []
-    metas = {}
     for part in parts:
         if part.kind != "parquet":
             return None
-        meta = metas.get(part.path)
-        if meta is None:
-            meta = metas[part.path] = pq.ParquetFile(part.path).metadata
-        rg = meta.row_group(part.row_group)
-        names = [rg.column(i).path_in_schema for i in range(rg.num_columns)]
-        if column not in names:
+        meta, at = _metadata(part.path, os.stat(part.path).st_mtime_ns)
+        if column not in at:
             return None
-        st = rg.column(names.index(column)).statistics
+        rg = meta.row_group(part.row_group)
+        st = rg.column(at[column]).statistics
         if st is None or not st.has_null_count:
             return None
         filled = rg.num_rows - st.null_count
