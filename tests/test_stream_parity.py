@@ -290,3 +290,15 @@ def test_named_empty_column_and_one_level_category_are_set_aside_as_in_memory(tm
         [(u.column, u.reason, u.rule) for u in design.unusable]
     assert {u.rule for u in design.unusable} == {"empty", "one_level"}
     _compare(s, design, results)
+
+
+def test_one_column_in_two_parts_is_refused_with_the_in_memory_words(tmp_path):
+    path = tmp_path / "t.parquet"
+    _frame(n=100).to_parquet(path, index=False)
+    for roles in (Roles(target="y", weights="y"), Roles(target="y", groups="site", predictors=("x0", "site"))):
+        with pytest.raises(DataError) as mem:
+            build_design(read_table(path), roles)
+        with pytest.raises(DataError) as streamed:
+            stream_fit(path, roles, FitSettings(), memory_budget=10**7)
+        # Source: the in-memory route (data/design.py).
+        assert str(streamed.value).split(": ", 1)[-1] == str(mem.value).split(": ", 1)[-1]

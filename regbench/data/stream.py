@@ -769,6 +769,13 @@ def plan_for(path, roles, budget: Optional[int] = None, run=None, cancel=None) -
     for col in (roles.target, roles.weights, roles.groups, *roles.predictors, *roles.categorical):
         if col is not None and col not in names and col not in derived_names:
             raise DataError(f"{src}: no column '{col}'; columns are: {', '.join(names)}")
+    # The in-memory route's refusals of one column in two parts (data/design.py), word for word.
+    if roles.weights is not None and roles.weights == roles.target:
+        raise DataError(f"column '{roles.target}' cannot be both the target and the weights")
+    for label, col in (("target", roles.target), ("weights", roles.weights), ("groups", roles.groups)):
+        if col is not None and col in roles.predictors:
+            raise DataError(f"{src}: column '{col}' is the {label} and is also named among the predictors; "
+                            f"remove it from the predictors (or choose another {label})")
     if roles.outcome == "binary" or roles.no_count is not None:
         raise DataError(f"{src}: yes/no outcomes are fitted with the rows in memory, not on the streamed or cluster "
                         "route; read the table in memory (without --memory-budget or --cluster)")
