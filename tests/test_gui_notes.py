@@ -146,11 +146,12 @@ def test_a_stale_cache_refitted_on_opening_says_why(qtbot, greenhouse_fitted, tm
     s = w.session
     assert s.cache_status == "stale" and "were not used" in s.cache_note
     status = w.status_label.text()
-    assert status.startswith("Results refitted: the saved results were not used (they were computed by engine "
-                             f"version {store.ENGINE_VERSION - 1}, this is {store.ENGINE_VERSION})")
+    assert status.startswith("Results refitted: the saved results were not used because they were computed by "
+                             f"engine version {store.ENGINE_VERSION - 1}, this is {store.ENGINE_VERSION}; the models "
+                             "are fitted again with the same choices, and nothing in the project is lost")
     w.show_panel("data")
     QtWidgets.QApplication.processEvents()
-    assert "On opening, the saved results were not used (they were computed by engine version" \
+    assert "On opening, the saved results were not used because they were computed by engine version" \
         in w.panel("data").sentences.text()
     _close(w)
 

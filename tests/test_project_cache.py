@@ -156,9 +156,10 @@ def test_report_command_says_in_one_line_that_it_fits_again(saved, tmp_path, cap
     changed = _with_results(path, tmp_path, other)
     assert main(["report", str(changed), "-o", str(tmp_path / "r.html")]) == 0
     err = [line for line in capsys.readouterr().err.splitlines() if line.strip() and "\r" not in line]
-    assert err == [f"regbench report: {changed.name}: the saved results were not used "
-                   "(they were computed by engine version -1, this is "
-                   f"{ENGINE_VERSION}); the models are fitted again"]
+    # One line: what happened, that the same choices are fitted again, that nothing is lost.
+    assert err == [f"regbench report: {changed.name}: the saved results were not used because they were "
+                   f"computed by engine version -1, this is {ENGINE_VERSION}; the models are fitted again "
+                   "with the same choices, and nothing in the project is lost"]
 
 
 def test_a_damaged_member_is_still_refused(saved, tmp_path):
@@ -202,3 +203,22 @@ def test_results_compare_by_value_after_a_round_trip(saved):
     assert ridge.coef[ridge.index(c)] == ridge.by_column(ridge.coef)[c]
     with pytest.raises(KeyError, match="not a column of this result"):
         ridge.index("no such column")
+
+
+def test_a_cache_on_other_columns_says_in_plain_words_that_it_fits_again(saved, tmp_path, capsys):
+    """A project whose cached fit was made on other design columns (as an older version's column
+    rules would give) opens and refits; the line first says what happened and that nothing is lost,
+    then the stored detail (FORMAT.md: stale, never refused, one line saying why)."""
+    original, path = saved
+
+    def other_columns(doc):
+        doc["fit"]["fields"]["columns"]["$tuple"][0] = "row_id"
+
+    changed = _with_results(path, tmp_path, other_columns)
+    s = _stale_then_refit(changed, original, "fit.columns")
+    assert s.cache_note.startswith(f"{changed.name}: the saved results were not used because this version of "
+                                   "regbench stores them differently; the models are fitted again with the same "
+                                   "choices, and nothing in the project is lost (detail: ")
+    assert main(["report", str(changed), "-o", str(tmp_path / "r.html")]) == 0
+    err = [line for line in capsys.readouterr().err.splitlines() if line.strip() and "\r" not in line]
+    assert err == [f"regbench report: {s.cache_note}"]

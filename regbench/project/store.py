@@ -700,25 +700,43 @@ def _load_results(ar, m, session, migrated: bool):
         return "none", None
     raw = _read_checked(ar, m, RESULTS, JSON_LIMITS[RESULTS])
     blobs = {name: _read_checked(ar, m, name) for name in m["_members"] if name.startswith(RESULTS_DIR)}
+    plain = True
     try:
         reason = _install_cache(ar, session, migrated, raw, blobs)
     except ProjectError as exc:
-        reason = str(exc).replace(f"{ar.label}: ", "", 1)
+        reason, plain = str(exc).replace(f"{ar.label}: ", "", 1), False
     if reason is None:
         return "used", None
-    return "stale", f"{ar.label}: the saved results were not used ({reason}); the models are fitted again"
+    return "stale", stale_cache_line(ar.label, reason, plain)
+
+
+#: What a refit after a stale cache keeps: said in every stale-cache line.
+KEPT = "the models are fitted again with the same choices, and nothing in the project is lost"
+
+
+def stale_cache_line(label: str, reason: str, plain: bool = True) -> str:
+    """One line for a person on saved results this version does not use.
+
+    ``plain`` reasons are already words for people ("they were computed by engine version 3,
+    this is 4"); any other reason is a detail of the stored form, given last for whoever
+    looks into it, so the line first says what happened and that nothing is lost.
+    """
+    if plain:
+        return f"{label}: the saved results were not used because {reason}; {KEPT}"
+    return (f"{label}: the saved results were not used because this version of regbench stores them "
+            f"differently; {KEPT} (detail: {reason})")
 
 
 def _install_cache(ar, session, migrated, raw: bytes, blobs: dict):
     """Decode and install the cache; returns why it does not apply, or None once installed."""
     doc = ar.json(RESULTS, raw)
     if not isinstance(doc, dict):
-        return "results.json is not an object"
+        raise StaleCache("results.json is not an object")
     for key in ("table_fingerprint", "settings_sha256", "key"):
         if not isinstance(doc.get(key), str):
-            return f"results.json field {key} is missing or not text"
+            raise StaleCache(f"results.json field {key} is missing or not text")
     if migrated:
-        return "they come from an older project format"
+        return "the project was saved by an older version in an older format"
     version = doc.get("engine_version")
     if version != ENGINE_VERSION:
         return (f"they were computed by engine version {version}, this is {ENGINE_VERSION}" if version is not None
