@@ -59,7 +59,7 @@ def test_panel_shows_the_core_ranges_and_the_tolerance_control_recomputes_withou
     j = core.columns.index("humidity_pct")
     assert m.value(j, 0) == pytest.approx(core.low[j]) and m.value(j, 1) == pytest.approx(core.high[j])
     assert m.value(core.columns.index("day_temp_f"), 0) == "no bound"
-    assert panel.rows_model.value(0, 0) == core.widest[0]["row"]
+    assert panel.rows_model.value(0, 0) == _row_name(s, core.widest[0]["row"])
     assert [panel.fits_model.value(k, 0) for k in range(4)] == ["OLS", "Ridge", "Lasso", "Elastic net"]
 
     results = s.results
@@ -115,7 +115,7 @@ def test_panel_labels_the_quadratic_approximation_for_a_yes_no_outcome(qtbot):
     assert "quadratic approximation" in panel.sentences.text()
     # The rows table shows probabilities, widest in probability first, as the core computes them.
     assert panel.rows_model.headers[1] == "Logistic probability"
-    assert panel.rows_model.value(0, 0) == core.widest[0]["row"]
+    assert panel.rows_model.value(0, 0) == _row_name(s, core.widest[0]["row"])
     assert panel.rows_model.value(0, 2) == pytest.approx(core.widest[0]["p_low"])
     assert panel.fits_model.headers[1] == "Training log-loss above the best (%)"
     assert "probability" in panel.strip.getPlotItem().getAxis("left").labelText
@@ -149,3 +149,10 @@ def test_panel_says_why_a_separated_outcome_has_no_ranges(qtbot):
     assert panel.columns_model.rowCount() == 0
     w.dirty = False
     w.close()
+
+
+def _row_name(session, row):
+    """A row as the panel names it: by the table's identifier column when it has one, else its number."""
+    from regbench.data.identifiers import row_label_column, row_names
+
+    return row_names(session.table, [row])[0] if row_label_column(session.table) else row

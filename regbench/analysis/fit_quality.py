@@ -161,24 +161,54 @@ def fit_quality(design, models: dict, heldout: Optional[dict] = None) -> FitQual
 
 
 def _sentences(q: FitQuality, design) -> list:
-    split = "held_out" if any(f.split == "held_out" for f in q.fits) else "training"
+    best = _best(q)
+    if best is None:
+        return []
+    worst = group_sentence(q, best.model, design)
+    return _overall(q, design, best) + ([worst] if worst else [])
+
+
+def sentences_for_model(q: FitQuality, design, model: str) -> list:
+    """The overall sentences, then the per-group sentence about ``model`` (the model a view shows).
+
+    ``FitQuality.sentences`` speak of the best model; a view that shows another model's
+    groups takes this, so its sentence names the model beside it.
+    """
+    best = _best(q)
+    if best is None:
+        return []
+    worst = group_sentence(q, model, design)
+    return _overall(q, design, best) + ([worst] if worst else [])
+
+
+def _split(q: FitQuality) -> str:
+    return "held_out" if any(f.split == "held_out" for f in q.fits) else "training"
+
+
+def _best(q: FitQuality):
+    """The model with the highest R² on the held-out rows (the training rows without folds)."""
+    split = _split(q)
+    ranked = sorted((f for f in q.fits if f.split == split and np.isfinite(f.r_squared)),
+                    key=lambda f: -f.r_squared)
+    return ranked[0] if ranked else None
+
+
+def _overall(q: FitQuality, design, best) -> list:
+    """How well the best model fits and how far the worst lags; a held-out error far above the training one."""
+    split = _split(q)
     where = ("on held-out " + ("groups" if design.groups is not None else "rows")) if split == "held_out" \
         else "on the rows it was fitted to"
     ranked = sorted((f for f in q.fits if f.split == split and np.isfinite(f.r_squared)),
                     key=lambda f: -f.r_squared)
-    if not ranked:
-        return []
-    best = ranked[0]
     if getattr(design, "outcome", "numeric") == "binary":
         # On a 0/1 outcome the mean squared error of the probabilities is the Brier score and
         # R² is its skill: the share of the error of predicting the observed share for every row
         # that the model removes.
-        out = [f"{model_label(best.model)}'s probabilities have the lowest Brier score {where} "
-               f"({number_text(best.rmse ** 2, 3)}, {number_text(100 * best.r_squared, 3)} % below predicting the "
-               f"observed share of {q.target} for every row)"
-               + (f"; {in_sentence(model_label(ranked[-1].model))} {number_text(ranked[-1].rmse ** 2, 3)}."
-                  if len(ranked) > 1 else ".")]
-        return out
+        return [f"{model_label(best.model)}'s probabilities have the lowest Brier score {where} "
+                f"({number_text(best.rmse ** 2, 3)}, {number_text(100 * best.r_squared, 3)} % below predicting the "
+                f"observed share of {q.target} for every row)"
+                + (f"; {in_sentence(model_label(ranked[-1].model))} {number_text(ranked[-1].rmse ** 2, 3)}."
+                   if len(ranked) > 1 else ".")]
     out = [f"{model_label(best.model)} explains {number_text(100 * best.r_squared, 3)} % of the variation in "
            f"{q.target} {where} (RMSE {number_text(best.rmse, 3)})"
            + (f"; {in_sentence(model_label(ranked[-1].model))} {number_text(100 * ranked[-1].r_squared, 3)} %."
@@ -188,12 +218,20 @@ def _sentences(q: FitQuality, design) -> list:
         if train is not None and train.rmse > 0 and best.rmse > 1.5 * train.rmse:
             out.append(f"Its held-out error is {number_text(best.rmse / train.rmse, 2)}× its training error: "
                        "judge it on the held-out figure, not on the fit to its own rows.")
-    mine = [g for g in q.groups if g.model == best.model]
-    if len(mine) >= 2:
-        worst = max(mine, key=lambda g: g.rmse)
-        typical = float(np.median([g.rmse for g in mine]))
-        if typical > 0 and worst.rmse > 1.5 * typical:
-            out.append(f"Its largest error is in {design.groups_column} {worst.group} "
-                       f"(RMSE {number_text(worst.rmse, 3)}, {number_text(worst.rmse / typical, 2)}× the typical "
-                       "group): look at what is different there before trusting the model on such groups.")
     return out
+
+
+def group_sentence(q: FitQuality, model: str, design) -> Optional[str]:
+    """The group where ``model``'s error stands out (over 1.5× the median group's), naming the model; else None."""
+    if getattr(design, "outcome", "numeric") == "binary":
+        return None  # the probabilities' per-group error is in the table; no sentence (as before)
+    mine = [g for g in q.groups if g.model == model]
+    if len(mine) < 2:
+        return None
+    worst = max(mine, key=lambda g: g.rmse)
+    typical = float(np.median([g.rmse for g in mine]))
+    if not (typical > 0 and worst.rmse > 1.5 * typical):
+        return None
+    return (f"{model_label(model)}'s largest error is in {design.groups_column} {worst.group} "
+            f"(RMSE {number_text(worst.rmse, 3)}, {number_text(worst.rmse / typical, 2)}× the typical "
+            "group): look at what is different there before trusting the model on such groups.")

@@ -95,3 +95,32 @@ def identifier_columns(table: Table) -> dict:
         if why is not None:
             out[c] = why
     return out
+
+
+def row_label_column(table: Table) -> Optional[str]:
+    """The first identifier-like column that names every row once (no empty cell, no repeat), or None.
+
+    Views that point at single rows name them by this column's value (a batch code, an ID), the way
+    a person finds the row in their own file; without one they say "row N" (1-based table row).
+    """
+    for c, _why in identifier_columns(table).items():
+        info = table.columns[c]
+        if info.missing == 0 and info.distinct == table.n_rows:
+            return c
+    return None
+
+
+def row_names(table: Table, rows) -> list:
+    """Names for 1-based table rows: the row-label column's values, else "row N"."""
+    column = row_label_column(table) if table is not None else None
+    if column is None:
+        return [f"row {int(r)}" for r in rows]
+    values = table.frame[column]
+    return [_label_text(values.iloc[int(r) - 1]) for r in rows]
+
+
+def _label_text(value) -> str:
+    """A label cell as a person wrote it: a whole number without '.0'."""
+    if isinstance(value, float) and value == int(value):
+        return str(int(value))
+    return str(value)

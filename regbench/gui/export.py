@@ -34,7 +34,7 @@ def export_png(plot_widget, path: str, width: int = 1200) -> str:
 
 def export_svg(widget, path: str, title: str = "regbench plot") -> str:
     """SVG of a widget (a pyqtgraph PlotWidget or any QWidget) through QSvgGenerator."""
-    size = widget.size()
+    size = widget.export_size() if hasattr(widget, "export_size") else widget.size()
     if size.width() < 50 or size.height() < 50:
         size = QtCore.QSize(900, 600)
         widget.resize(size)
@@ -70,7 +70,7 @@ def export_svg(widget, path: str, title: str = "regbench plot") -> str:
 
 def _painted_png(widget, path: str, width: int) -> str:
     """PNG of a self-painting figure laid out at its on-screen size and drawn at ``width`` pixels."""
-    size = widget.size()
+    size = widget.export_size() if hasattr(widget, "export_size") else widget.size()
     w, h = max(size.width(), 600), max(size.height(), 400)
     scale = max(width / w, 1.0)
     image = QtGui.QImage(int(w * scale), int(h * scale), QtGui.QImage.Format_ARGB32)

@@ -65,6 +65,22 @@ class PenaltyFigure(QtWidgets.QWidget):
             self._pixmap = None
         return self._fig
 
+    def export_size(self) -> QtCore.QSize:
+        """The size an exported picture is laid out at: the widget's, made taller until every path is named.
+
+        On screen a crowded figure names the largest paths and offers the rest on a click; a picture
+        cannot be clicked, so it grows (up to 4,000 pixels) until each path has its end label.
+        """
+        w, h = max(self.width(), 600), max(self.height(), 400)
+        if self.data is None:
+            return QtCore.QSize(w, h)
+        fig = build_figure(self.data, w, h)
+        ends = sum(1 for xs, ys in fig.curves.values() if len(ys))
+        while len(fig.labels) < ends and h < 4000:
+            h = min(4000, int(h * 1.25))
+            fig = build_figure(self.data, w, h)
+        return QtCore.QSize(w, h)
+
     def grid(self) -> np.ndarray:
         """The α grid, largest first."""
         return np.sort(np.asarray(self.data.alphas, dtype=float))[::-1] if self.data is not None else np.array([])

@@ -286,7 +286,7 @@ class QuestionBar(QtWidgets.QFrame):
         self.draft = draft
         lay = QtWidgets.QHBoxLayout(self)
         lay.setContentsMargins(14, 6, 10, 6)
-        lay.setSpacing(4)
+        lay.setSpacing(6)
 
         def words(text):
             lab = QtWidgets.QLabel(text)
@@ -315,16 +315,29 @@ class QuestionBar(QtWidgets.QFrame):
         self.groups_after = words("groups.")
         # A two-valued target reads as yes/no; this says which value is "yes" (or: treat it as a number).
         self.yes_level = QtWidgets.QComboBox()
-        # Sized to the choice shown (see _sync_yes_level).
-        self.yes_level.setSizeAdjustPolicy(QtWidgets.QComboBox.AdjustToMinimumContentsLengthWithIcon)
+        # Sized exactly to the choice shown (_fit_to_choice), so "('Yes' = yes)" is never cut.
         self.yes_level.setToolTip("A target with two values is a yes/no outcome: choose which value counts as yes, "
                                   "or treat it as a number")
         self.yes_level.activated.connect(lambda *_: self._outcome_chosen())
-        for w in (words("Explain"), self.target, self.yes_level, self.ticked_words,
-                  self.weights_before, self.weights, self.weights_kind, self.weights_after,
-                  self.groups_before, self.groups, self.groups_after):
-            lay.addWidget(w)
-        lay.addStretch(1)
+        # The sentence is two clauses, what is explained and how rows count and are held out; the
+        # second moves under the first when both do not fit beside the buttons (_reflow), so no choice
+        # is ever squeezed or cut and the buttons stay inside the window at any width.
+        self.clause_what = _clause(words("Explain"), self.target, self.yes_level, self.ticked_words)
+        self.clause_how = _clause(self.weights_before, self.weights, self.weights_kind, self.weights_after,
+                                  self.groups_before, self.groups, self.groups_after)
+        self.sentence = QtWidgets.QWidget()
+        self.sentence_grid = QtWidgets.QGridLayout(self.sentence)
+        self.sentence_grid.setContentsMargins(0, 0, 0, 0)
+        self.sentence_grid.setHorizontalSpacing(4)
+        self.sentence_grid.setVerticalSpacing(2)
+        self.sentence_grid.addWidget(self.clause_what, 0, 0, Qt.AlignLeft)
+        self.sentence_grid.addWidget(self.clause_how, 0, 1, Qt.AlignLeft)
+        self.sentence_grid.setColumnStretch(2, 1)
+        # The sentence may be narrower than one row of both clauses (_reflow then wraps it), so its
+        # layout does not set its minimum size; _reflow does.
+        self.sentence_grid.setSizeConstraint(QtWidgets.QLayout.SetNoConstraint)
+        self.two_rows = False
+        lay.addWidget(self.sentence, 1)
         self.settings_btn = QtWidgets.QToolButton()
         self.settings_btn.setText("Settings")
         self.settings_btn.setToolTip("Cross-validation folds, L1 ratio, how α is chosen, stability refits")
@@ -339,6 +352,7 @@ class QuestionBar(QtWidgets.QFrame):
         self.fit_btn = QtWidgets.QPushButton("Fit")
         self.fit_btn.setObjectName("primary")
         self.fit_btn.setToolTip("Fit the models with these choices (Ctrl+R fits again as they are)")
+        self.fit_btn.setAccessibleName("Fit the models with these choices")
         self.fit_btn.clicked.connect(self.fit_requested)
         lay.addWidget(self.fit_btn)
         self.target.activated.connect(lambda *_: draft.set_target(self.target.currentText()))
@@ -346,6 +360,7 @@ class QuestionBar(QtWidgets.QFrame):
         self.groups.activated.connect(lambda *_: draft.set_groups(self.groups.currentData()))
         draft.changed.connect(self.sync)
         self.setEnabled(False)
+        self._reflow()  # starts on two rows until the bar is wide enough for one
 
     def sync(self) -> None:
         d = self.draft
@@ -381,6 +396,32 @@ class QuestionBar(QtWidgets.QFrame):
         self.groups_before.setText("hold out whole" if grouped else "hold out")
         self.groups_after.setText("groups." if grouped else "at random.")
         self.setEnabled(True)
+        self._reflow()
+
+    def resizeEvent(self, event) -> None:
+        super().resizeEvent(event)
+        self._reflow()
+
+    def _reflow(self) -> None:
+        """Put the second clause beside the first when both fit beside the buttons, else under it."""
+        lay = self.layout()
+        m = lay.contentsMargins()
+        room = (self.width() - m.left() - m.right() - 2 * lay.spacing()
+                - self.settings_btn.sizeHint().width() - self.fit_btn.sizeHint().width())
+        need = (self.clause_what.sizeHint().width() + self.sentence_grid.horizontalSpacing()
+                + self.clause_how.sizeHint().width())
+        two = need > room
+        if two != self.two_rows:
+            self.two_rows = two
+            self.sentence_grid.removeWidget(self.clause_how)
+            if two:
+                self.sentence_grid.addWidget(self.clause_how, 1, 0, 1, 3, Qt.AlignLeft)
+            else:
+                self.sentence_grid.addWidget(self.clause_how, 0, 1, Qt.AlignLeft)
+        rows = (self.clause_what, self.clause_how)
+        self.sentence.setMinimumSize(max(c.sizeHint().width() for c in rows),
+                                     (sum if two else max)(c.sizeHint().height() for c in rows)
+                                     + (self.sentence_grid.verticalSpacing() if two else 0))
 
     def _sync_yes_level(self) -> None:
         d = self.draft
@@ -394,7 +435,7 @@ class QuestionBar(QtWidgets.QFrame):
             self.yes_level.addItem("(as a number)", "numeric:")
             current = "numeric:" if d.outcome == "numeric" else "binary:" + (d.positive_level or default)
             self.yes_level.setCurrentIndex(max(0, self.yes_level.findData(current)))
-            self.yes_level.setMinimumContentsLength(len(self.yes_level.currentText()))
+            _fit_to_choice(self.yes_level)
         self.yes_level.setVisible(bool(levels))
         self.yes_level.blockSignals(False)
 
@@ -403,11 +444,44 @@ class QuestionBar(QtWidgets.QFrame):
         self.draft.set_outcome(kind, level or None)
 
     def set_pending(self, pending: bool, has_results: bool) -> None:
-        """Say on the Fit button whether pressing it would change anything."""
-        self.fit_btn.setText("Fit with these choices" if pending or not has_results else "Fit")
-        self.fit_btn.setProperty("pending", bool(pending or not has_results))
+        """Say on the Fit button whether pressing it would change anything.
+
+        The label stays short ("Fit now") so the sentence keeps its room; the full words are the
+        button's tooltip and accessible name.
+        """
+        waiting = bool(pending or not has_results)
+        self.fit_btn.setText(PENDING_LABEL if waiting else "Fit")
+        self.fit_btn.setToolTip("Fit with these choices: the views show no fit of them yet" if waiting else
+                                "Fit the models again with these choices (Ctrl+R)")
+        self.fit_btn.setAccessibleName("Fit with these choices" if waiting else "Fit again")
+        self.fit_btn.setProperty("pending", waiting)
         self.fit_btn.style().unpolish(self.fit_btn)
         self.fit_btn.style().polish(self.fit_btn)
+        self._reflow()
+
+
+#: The Fit button's label while the choices differ from the fit shown (or nothing is fitted yet).
+PENDING_LABEL = "Fit now"
+
+
+def _fit_to_choice(combo: QtWidgets.QComboBox) -> None:
+    """Fix a combo box's width to its current text in its own font, with the style's frame and arrow."""
+    opt = QtWidgets.QStyleOptionComboBox()
+    combo.initStyleOption(opt)
+    text = QtCore.QSize(combo.fontMetrics().horizontalAdvance(combo.currentText()) + 6, combo.fontMetrics().height())
+    combo.setFixedWidth(combo.style().sizeFromContents(QtWidgets.QStyle.CT_ComboBox, opt, text, combo).width())
+
+
+def _clause(*widgets) -> QtWidgets.QWidget:
+    """Words and choices kept together on one line, never narrower than they need."""
+    box = QtWidgets.QWidget()
+    lay = QtWidgets.QHBoxLayout(box)
+    lay.setContentsMargins(0, 0, 0, 0)
+    lay.setSpacing(4)
+    for w in widgets:
+        lay.addWidget(w)
+    box.setSizePolicy(QtWidgets.QSizePolicy.Fixed, QtWidgets.QSizePolicy.Preferred)
+    return box
 
 
 class FitSettingsForm(QtWidgets.QWidget):

@@ -43,3 +43,17 @@ def configure_pyqtgraph() -> None:
     import pyqtgraph as pg
 
     pg.setConfigOptions(background=PALETTE["base"], foreground=PALETTE["text"], antialias=True)
+
+
+def plain_axes(*widgets) -> None:
+    """Turn off pyqtgraph's SI-prefix axis scaling ("(x0.001)") on every axis of these plot widgets.
+
+    Numbers on an axis are in the units the tables show; a label names the unit plainly.
+    """
+    import pyqtgraph as pg
+
+    for w in widgets:
+        scene = w.scene() if hasattr(w, "scene") else None
+        for item in (scene.items() if scene is not None else ()):
+            if isinstance(item, pg.AxisItem):
+                item.enableAutoSIPrefix(False)

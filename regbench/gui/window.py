@@ -192,6 +192,9 @@ class MainWindow(QtWidgets.QMainWindow):
     def _build_status(self):
         sb = self.statusBar()
         self.status_label = QtWidgets.QLabel("Open a table or a project to begin.")
+        # A long message must not widen the window past the screen: it is cut at the window's edge
+        # (its tooltip holds it whole).
+        self.status_label.setSizePolicy(QtWidgets.QSizePolicy.Ignored, QtWidgets.QSizePolicy.Preferred)
         self.progress_bar = QtWidgets.QProgressBar()
         self.progress_bar.setFixedWidth(220)
         self.progress_bar.setVisible(False)
@@ -841,6 +844,7 @@ class MainWindow(QtWidgets.QMainWindow):
     def set_status(self, text: str, sticky: bool = True) -> None:
         """Show ``text``; a sticky message (an outcome) stays when the job ends."""
         self.status_label.setText(text)
+        self.status_label.setToolTip(text)
         self._sticky = sticky
 
     def ask_unsaved(self) -> str:

@@ -127,6 +127,11 @@ def model_label(name: str) -> str:
     return name
 
 
+def unpenalized(models) -> str:
+    """The unpenalized model among model keys: 'logistic' for a yes/no outcome, else 'ols'."""
+    return "logistic" if "logistic" in models else "ols"
+
+
 @dataclass(frozen=True, eq=False)
 class LinearModel(Result):
     """A fitted linear predictor in original units: ``intercept + X @ coef``.

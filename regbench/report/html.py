@@ -17,7 +17,7 @@ import numpy as np
 from regbench import __version__
 from regbench.formatting import MISSING, join_words, number_text, percent
 from regbench.models.coding import design_sd
-from regbench.models.results import aligned, model_columns, model_label
+from regbench.models.results import aligned, model_columns, model_label, unpenalized
 from regbench.palette import model_colour
 from regbench.report import svg
 
@@ -560,7 +560,7 @@ def _stability(session) -> str:
     parts.append("<h3>How often each column is set aside or selected</h3>")
     rows = [(c, pct(st.set_aside_freq[j]), *[pct(st.selected_freq[m][j]) for m in sel])
             for j, c in enumerate(st.columns)]
-    parts.append(table(["Column", "Set aside by OLS", *[f"Selected by {model_label(m).lower()}" for m in sel]], rows))
+    parts.append(table(["Column", "Set aside by OLS" if unpenalized(st.models) == "ols" else "Set aside by the logistic model", *[f"Selected by {model_label(m).lower()}" for m in sel]], rows))
     if sel:
         parts.append(figure(svg.bar_chart(list(st.columns), [(model_label(m), st.selected_freq[m]) for m in sel],
                                           title="Share of refits in which a column is selected",

@@ -7,7 +7,7 @@ import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
 from regbench.gui.panels.base import Panel, caption, hbox
-from regbench.gui.style import PALETTE, model_colour
+from regbench.gui.style import PALETTE, model_colour, plain_axes
 from regbench.gui.tables import GridModel, make_view
 from regbench.models.results import model_label
 
@@ -57,12 +57,11 @@ class AgreementPanel(Panel):
         self.plot.export_name = "prediction scatter"
         self.plot.showGrid(x=True, y=True, alpha=0.25)
         self.plot.setAspectLocked(False)
-        for ax in ("bottom", "left"):  # predictions in their own units (probabilities stay 0–1)
-            self.plot.getAxis(ax).enableAutoSIPrefix(False)
         split.addWidget(self.plot)
         split.setSizes([850, 350])   # the pair table whole at 1400 × 900
         lay.addWidget(split, 1)
         self._filling = False
+        plain_axes(*self.plots())  # axis numbers in the units the tables show, never "(x0.001)"
 
     def plots(self):
         return [self.plot]

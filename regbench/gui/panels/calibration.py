@@ -13,7 +13,7 @@ import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
 from regbench.gui.panels.base import Panel, caption, hbox
-from regbench.gui.style import PALETTE, model_colour
+from regbench.gui.style import PALETTE, model_colour, plain_axes
 from regbench.gui.tables import GridModel, make_view
 from regbench.models.results import model_label
 
@@ -57,9 +57,14 @@ class CalibrationPanel(Panel):
         for p in (self.reliability, self.roc):
             p.showGrid(x=True, y=True, alpha=0.2)
             p.setXRange(0, 1, padding=0.02)
-            p.setYRange(0, 1, padding=0.02)
-            # The ROC curves rise through the upper left: its legend sits bottom right, clear of them.
-            p.addLegend(offset=(-8, 8) if p is self.reliability else (-8, -8))
+            # Curves may run anywhere in the unit square (a reliability curve reaches its top right corner,
+            # a poor ROC curve its bottom right), so the legend sits in a band above 1 that no curve enters;
+            # the band grows with the legend and the plot's height (_legend_room).
+            legend = p.addLegend(offset=(8, 4), labelTextSize="8pt")
+            legend.setColumnCount(2)
+            p.getAxis("left").setTicks([[(v, f"{v:g}") for v in (0, 0.2, 0.4, 0.6, 0.8, 1)]])
+            p.getViewBox().sigResized.connect(lambda _vb, p=p: self._legend_room(p))
+            self._legend_room(p)
         plots.addWidget(self.reliability)
         plots.addWidget(self.roc)
         split.addWidget(plots)
@@ -96,9 +101,23 @@ class CalibrationPanel(Panel):
         split.setSizes([500, 620])   # the summary table's six columns whole at 1400 × 900
         lay.addWidget(split, 1)
         self._cl = None
+        plain_axes(*self.plots())  # axis numbers in the units the tables show, never "(x0.001)"
 
     def plots(self):
         return [self.reliability, self.roc]
+
+    @staticmethod
+    def _legend_room(plot) -> None:
+        """Set the y range to 0–1 plus a band above 1 as tall as the legend, in this plot's pixels."""
+        legend = plot.plotItem.legend
+        vb = plot.getViewBox()
+        height = float(vb.height())
+        legend_px = float(legend.boundingRect().height()) if legend is not None and legend.items else 0.0
+        f = min(0.6, (legend_px + 14.0) / height) if height > 0 else 0.3
+        bottom = -0.02
+        # top − 1.02 must hold the legend's share f of the whole span (top − bottom).
+        top = (1.02 - f * bottom) / (1.0 - f)
+        plot.setYRange(bottom, top, padding=0)
 
     def views(self):
         return [self.summary_view, self.table_view]
@@ -174,6 +193,9 @@ class CalibrationPanel(Panel):
             d = dis[k]
             self.roc.plot(np.asarray(d.roc_fpr), np.asarray(d.roc_tpr), pen=pen,
                           name=f"{model_label(k)} (AUC {d.auc:.3f})")
+        for p in (self.reliability, self.roc):
+            p.plotItem.legend.updateSize()
+            self._legend_room(p)
         rows = [[cal[k].brier, cal[k].miscalibration, cal[k].discrimination, cal[k].intercept, cal[k].slope,
                  dis[k].auc] for k in cl.models]
         self.summary.set_rows(rows, ["Brier", "Miscalibration", "Discrimination", "Cal. intercept", "Cal. slope",

@@ -7,7 +7,7 @@ import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
 from regbench.gui.panels.base import Panel, caption, hbox
-from regbench.gui.style import PALETTE, model_colour
+from regbench.gui.style import PALETTE, model_colour, plain_axes
 from regbench.gui.tables import GridModel, WARN_BG, make_view
 from regbench.models.results import aligned, model_columns, model_label
 from regbench.sentences import se_kind_sentence
@@ -42,8 +42,8 @@ class CoefficientsPanel(Panel):
         self.plot.setLabel("bottom", "standardized coefficient")
         split.addWidget(self.plot)
         split.setSizes([640, 360])
-        self.plot.getAxis("bottom").enableAutoSIPrefix(False)
         lay.addWidget(split, 1)
+        plain_axes(*self.plots())  # axis numbers in the units the tables show, never "(x0.001)"
 
     def _row_clicked(self, row: int) -> None:
         """A column's name was clicked: highlight its path in the penalty figure."""

@@ -10,8 +10,9 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
+from regbench.analysis.fit_quality import sentences_for_model
 from regbench.gui.panels.base import Panel, caption, hbox
-from regbench.gui.style import PALETTE, model_colour
+from regbench.gui.style import PALETTE, model_colour, plain_axes
 from regbench.gui.tables import GridModel, make_view
 from regbench.models.results import model_label
 
@@ -64,8 +65,6 @@ class FitQualityPanel(Panel):
         self.plot = pg.PlotWidget()
         self.plot.export_name = "fit quality"
         self.plot.showGrid(x=True, y=True, alpha=0.2)
-        for ax in ("left", "bottom"):
-            self.plot.getAxis(ax).enableAutoSIPrefix(False)
         self.plot.setMenuEnabled(False)
         rl.addWidget(self.plot, 1)
         self.plot_note = QtWidgets.QLabel(" ")
@@ -76,6 +75,7 @@ class FitQualityPanel(Panel):
         lay.addWidget(split, 1)
         self.quality = None
         self._key = None
+        plain_axes(*self.plots())  # axis numbers in the units the tables show, never "(x0.001)"
 
     def plots(self):
         return [self.plot]
@@ -138,7 +138,7 @@ class FitQualityPanel(Panel):
         self.fit_model.set_rows(rows, ["Model", *words,
                                        "MAE held-out" if splits[0] == "held_out" else "MAE fitted"])
         self.fit_view.resizeColumnsToContents()
-        self.set_sentences(list(q.sentences[:3]) or ["Each model's error on the rows it was fitted to."])
+        self._say()
         self._fill_groups()
         self.defer(self._draw_plot)
 
@@ -155,9 +155,19 @@ class FitQualityPanel(Panel):
         box.blockSignals(False)
 
     def _draw(self, *_):
-        """The plot and the per-group table for the chosen model, split and view."""
+        """The plot, the per-group table and the sentences for the chosen model, split and view."""
         self._draw_plot()
         self._fill_groups()
+        self._say()
+
+    def _say(self):
+        """The overall sentences, then the group sentence about the model the table and plot show."""
+        q, session = self.quality, self.session
+        if q is None or session is None or session.design is None:
+            return
+        shown = self.model_box.currentData() or (q.models[0] if q.models else None)
+        said = sentences_for_model(q, session.design, shown) if shown is not None else list(q.sentences)
+        self.set_sentences(said[:3] or ["Each model's error on the rows it was fitted to."])
 
     def _fill_groups(self):
         q, session, name = self.quality, self.session, self.model_box.currentData()

@@ -2,13 +2,15 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pyqtgraph as pg
-from PySide6 import QtCore, QtWidgets
+from PySide6 import QtCore, QtGui, QtWidgets
 
 from regbench.analysis.correlation import correlation_map
 from regbench.gui.panels.base import Panel, caption
-from regbench.gui.style import CORR_STOPS, PALETTE
+from regbench.gui.style import CORR_STOPS, PALETTE, plain_axes
 from regbench.gui.tables import GridModel, WARN_BG, make_view
 
 Qt = QtCore.Qt
@@ -65,6 +67,7 @@ class OverlapsPanel(Panel):
         rl.addWidget(self.glw, 1)
         rl.addWidget(self.corr_readout)
         self.glw.scene().sigMouseMoved.connect(self._hover)
+        self.corr_plot.vb.sigResized.connect(self._label_corr)
         self.tabs.addTab(corr, "Correlation map")
         ci = QtWidgets.QWidget()
         cl = QtWidgets.QVBoxLayout(ci)
@@ -83,6 +86,7 @@ class OverlapsPanel(Panel):
         lay.addWidget(split)
         self._corr = None
         self._corr_cols = ()
+        plain_axes(*self.plots())  # axis numbers in the units the tables show, never "(x0.001)"
 
     def plots(self):
         return [self.glw]
@@ -147,14 +151,25 @@ class OverlapsPanel(Panel):
         self._corr, self._corr_cols = C, cmap.columns
         self.image.setImage(np.nan_to_num(C.T), levels=(-1, 1))
         p = design.p
-        short = [c if len(c) <= 18 else c[:16] + "…" for c in design.columns]
-        # Names down the side, their numbers along the bottom (long names would collide there); beyond what
-        # the map's height and width hold, every k-th label only, so they never run together.
-        side = 1 if p <= 30 else -(-p // 30)
-        bottom = 1 if p <= 20 else -(-p // 20)
-        self.corr_plot.getAxis("left").setTicks([[(j + 0.5, f"{short[j]}  {j + 1}") for j in range(0, p, side)]])
-        self.corr_plot.getAxis("bottom").setTicks([[(j + 0.5, str(j + 1)) for j in range(0, p, bottom)]])
+        self._corr_short = [c if len(c) <= 18 else c[:16] + "…" for c in design.columns]
         self.corr_plot.setRange(xRange=(0, p), yRange=(0, p), padding=0)
+        self._label_corr()
+
+    def _label_corr(self, *_):
+        """Names down the side, their numbers along the bottom (long names would collide there); when the
+        map's height or width cannot hold every one a line of text apart, every k-th only (on each resize)."""
+        short = getattr(self, "_corr_short", None)
+        if not short:
+            return
+        p = len(short)
+        vb = self.corr_plot.vb
+        height, width = max(float(vb.height()), 1.0), max(float(vb.width()), 1.0)
+        left, bottom = self.corr_plot.getAxis("left"), self.corr_plot.getAxis("bottom")
+        fm = QtGui.QFontMetrics(left.style.get("tickFont") or QtWidgets.QApplication.font())
+        side = max(1, math.ceil(p * (fm.height() + 1) / height))
+        bottom_step = max(1, math.ceil(p * (fm.horizontalAdvance(str(p)) + 6) / width))
+        left.setTicks([[(j + 0.5, f"{short[j]}  {j + 1}") for j in range(0, p, side)]])
+        bottom.setTicks([[(j + 0.5, str(j + 1)) for j in range(0, p, bottom_step)]])
 
     def _hover(self, pos):
         if self._corr is None:

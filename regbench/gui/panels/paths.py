@@ -46,8 +46,9 @@ class PathsPanel(Panel):
         self.highlight.setMinimumContentsLength(12)
         self.highlight.setSizeAdjustPolicy(QtWidgets.QComboBox.AdjustToMinimumContentsLengthWithIcon)
         self.highlight.currentIndexChanged.connect(self._highlight_from_box)
+        # Two rows, what is drawn and what α is chosen, so the panel fits a window 1100 pixels wide.
         lay.addWidget(hbox(caption("Family"), self.family, caption("Show"), self.scale, caption("Highlight"),
-                           self.highlight, 1, caption("α"), self.alpha_edit, self.reset_btn))
+                           self.highlight, stretch_last=True))
         self.keep_btn = QtWidgets.QPushButton("Keep this α as an extra fit")
         self.keep_btn.setToolTip("Add this family at the chosen α to the comparisons, beside the four chosen models")
         self.keep_btn.clicked.connect(self._keep_extra)
@@ -55,7 +56,8 @@ class PathsPanel(Panel):
         self.extras.setMinimumContentsLength(18)
         self.remove_btn = QtWidgets.QPushButton("Remove")
         self.remove_btn.clicked.connect(self._remove_extra)
-        lay.addWidget(hbox(self.keep_btn, caption("Extra fits"), self.extras, self.remove_btn, stretch_last=True))
+        lay.addWidget(hbox(caption("α"), self.alpha_edit, self.reset_btn, self.keep_btn, caption("Extra fits"),
+                           self.extras, self.remove_btn, stretch_last=True))
         self.figure = PenaltyFigure()
         self.figure.alpha_chosen.connect(self._figure_alpha)
         self.figure.alpha_moving.connect(lambda a: self.alpha_edit.setText(number_text(a, 4)))

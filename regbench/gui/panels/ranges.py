@@ -17,8 +17,9 @@ import pyqtgraph as pg
 from PySide6 import QtCore, QtGui, QtWidgets
 
 from regbench.analysis.ranges import KIND_HELDOUT, QUADRATIC_WORDS, ranges_unavailable
+from regbench.data.identifiers import row_label_column, row_names
 from regbench.gui.panels.base import Panel, caption, hbox
-from regbench.gui.style import PALETTE, model_colour
+from regbench.gui.style import PALETTE, model_colour, plain_axes
 from regbench.formatting import number_text
 from regbench.gui.tables import GridModel, make_view
 from regbench.models.coding import design_sd
@@ -81,7 +82,6 @@ class RangesPanel(Panel):
         self.bars.showGrid(x=True, y=False, alpha=0.2)
         self.bars.setLabel("bottom", "standardized coefficient (per SD of the column)")
         self.bars.setMouseEnabled(x=True, y=False)
-        self.bars.getAxis("bottom").enableAutoSIPrefix(False)
         left.addWidget(self.bars)
         self.strip = pg.PlotWidget()
         self.strip.export_name = "prediction ranges"
@@ -89,6 +89,7 @@ class RangesPanel(Panel):
         self.strip.setLabel("bottom", "rows by OLS prediction; a line spans the near-best models")
         left.addWidget(self.strip)
         self._strip_labels = []
+        self.strip.getViewBox().sigResized.connect(self._strip_room)
         self.strip.getViewBox().sigResized.connect(self._declutter_labels)
         self.strip.getViewBox().sigRangeChanged.connect(self._declutter_labels)
         left.setSizes([480, 220])
@@ -100,6 +101,8 @@ class RangesPanel(Panel):
         self.tabs.addTab(self.columns_view, "Columns")
         self.rows_model = _Grid()
         self.rows_view = make_view(self.rows_model)
+        # The first column names each row (its identifier or number); a running count beside it says nothing.
+        self.rows_view.verticalHeader().setVisible(False)
         self.tabs.addTab(self.rows_view, "Rows that differ most")
         self.fits_model = _Grid()
         self.fits_view = make_view(self.fits_model)
@@ -115,6 +118,7 @@ class RangesPanel(Panel):
         split.addWidget(right)
         split.setSizes([640, 560])
         lay.addWidget(split, 1)
+        plain_axes(*self.plots())  # axis numbers in the units the tables show, never "(x0.001)"
 
     def plots(self):
         return [self.bars, self.strip]
@@ -160,6 +164,7 @@ class RangesPanel(Panel):
         if rg is None:
             self.bars.clear()
             self.strip.clear()
+            self._strip_span = None
             for m in (self.columns_model, self.rows_model, self.fits_model):
                 m.set_rows([], [])
             self.in_force.setText("")
@@ -246,6 +251,7 @@ class RangesPanel(Panel):
     def _draw_strip(self, rg):
         plot = self.strip
         plot.clear()
+        self._strip_span = None
         if rg.row_half is None or rg.row_half.size == 0:
             return
         n = rg.row_half.size
@@ -274,13 +280,14 @@ class RangesPanel(Panel):
         # (the rows table lists every one).
         at = {int(rg.row_numbers[i]): k for k, i in enumerate(order)}
         self._strip_labels = []
-        for d in rg.widest[:3]:
+        names = self.row_names([d["row"] for d in rg.widest[:3]])
+        for d, name in zip(rg.widest[:3], names):
             k = at.get(int(d["row"]))
             if k is None:
                 continue
             # Near either end the name leans inward so it stays inside the plot.
             side = 1.0 if k > 0.9 * order.size else 0.0 if k < 0.1 * order.size else 0.5
-            t = pg.TextItem(f"row {int(d['row'])}", color=PALETTE["warn"], anchor=(side, 1.1))
+            t = pg.TextItem(name, color=PALETTE["warn"], anchor=(side, 1.1))
             t.setPos(float(k), float(hi[k]))
             plot.addItem(t)
             self._strip_labels.append(t)
@@ -290,9 +297,29 @@ class RangesPanel(Panel):
         else:
             plot.setLabel("left", rg.target)
             plot.setLabel("bottom", "rows by OLS prediction; a line spans the near-best models")
-        top, bottom = float(hi.max()), float(lo.min())
-        plot.setYRange(bottom, top + 0.25 * (top - bottom or 1.0), padding=0.02)  # room for the row names
+        self._strip_span = (float(lo.min()), float(hi.max()))
+        self._strip_room()
         self._declutter_labels()
+
+    def _strip_room(self, *_):
+        """The strip's y range: the lines, plus a band above them one row name tall in this plot's pixels."""
+        span = getattr(self, "_strip_span", None)
+        if span is None:
+            return
+        bottom, top = span
+        height = float(self.strip.getViewBox().height())
+        f = min(0.5, 30.0 / height) if height > 0 else 0.25
+        extent = (top - bottom) or 1.0
+        self.strip.setYRange(bottom, top + extent * f / (1.0 - f), padding=0.02)  # room for the row names
+
+    def label_column(self):
+        """The table's row-label column (its identifier), or None."""
+        table = getattr(self.session, "table", None)
+        return row_label_column(table) if table is not None else None
+
+    def row_names(self, rows) -> list:
+        """1-based table rows named as the table names them ("GH01-003"), else "row N"."""
+        return row_names(getattr(self.session, "table", None), rows)
 
     def _declutter_labels(self, *_):
         """Hide each row name whose box meets one already shown (on every resize or zoom too)."""
@@ -303,6 +330,14 @@ class RangesPanel(Panel):
             t.setVisible(True)
             t.updateTransform(force=True)
             box = t.sceneBoundingRect()
+            # A name that would cross the plot's side leans inward instead (names are as long as the
+            # table's identifiers).
+            area = self.strip.getViewBox().sceneBoundingRect()
+            lean = 1.0 if box.right() > area.right() else 0.0 if box.left() < area.left() else None
+            if lean is not None:
+                t.setAnchor((lean, 1.1))
+                t.updateTransform(force=True)
+                box = t.sceneBoundingRect()
             if any(box.intersects(o) for o in shown):
                 t.setVisible(False)
             else:
@@ -355,6 +390,14 @@ class RangesPanel(Panel):
                 tips[(r, 5)] = "; ".join(unusual)
         heads = (["Row", "Logistic probability", "Lowest", "Highest", "Width", "Unusual values"]
                  if binary else ["Row", "OLS prediction", "Lowest", "Highest", "Width", "Unusual values"])
+        # Each row is named the way the table names it: its identifier, when it has one (the row
+        # number in the cell's tooltip), else its row number.
+        label_column = self.label_column()
+        if label_column is not None:
+            heads[0] = label_column
+            for r, (row, name) in enumerate(zip(rows, self.row_names([d["row"] for d in rg.widest]))):
+                tips[(r, 0)] = f"row {int(row[0])} of the table"
+                row[0] = name
         self.rows_model.set_rows(rows, heads, tips=tips, digits=4)
         self.rows_view.resizeColumnsToContents()
         rows, fg = [], {}

@@ -7,9 +7,9 @@ import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
 from regbench.gui.panels.base import Panel, caption, hbox
-from regbench.gui.style import PALETTE, model_colour
+from regbench.gui.style import PALETTE, model_colour, plain_axes
 from regbench.gui.tables import GridModel, make_view
-from regbench.models.results import model_label
+from regbench.models.results import model_label, unpenalized
 
 Qt = QtCore.Qt
 
@@ -49,6 +49,7 @@ class StabilityPanel(Panel):
         split.addWidget(self.plot)
         split.setSizes([760, 440])
         lay.addWidget(split, 1)
+        plain_axes(*self.plots())  # axis numbers in the units the tables show, never "(x0.001)"
 
     def plots(self):
         return [self.plot]
@@ -81,11 +82,16 @@ class StabilityPanel(Panel):
     @staticmethod
     def selecting(st) -> list:
         """Models whose selection can vary (ridge and OLS keep every column they can)."""
-        return [m for m in st.models if m in st.selected_freq and m not in ("ols", "ridge")]
+        return [m for m in st.models if m in st.selected_freq and m not in ("ols", "logistic", "ridge")]
+
+    @staticmethod
+    def set_aside_label(st) -> str:
+        """The set-aside share names the unpenalized model the other panels name (logistic for a yes/no outcome)."""
+        return f"Set aside ({model_label(unpenalized(st.models))})"
 
     def table_fields(self, st):
         """(header, values) of the first tab: the share of refits that set aside or keep each column."""
-        out = [("Set aside (OLS)", [float(v) for v in st.set_aside_freq])]
+        out = [(self.set_aside_label(st), [float(v) for v in st.set_aside_freq])]
         for m in self.selecting(st):
             out.append((f"Kept: {model_label(m)}", [float(v) for v in st.selected_freq[m]]))
         return out
@@ -106,7 +112,7 @@ class StabilityPanel(Panel):
         self.plot.clear()
         legend = self.plot.getPlotItem().legend or self.plot.addLegend(offset=(6, 2), labelTextSize="8pt")
         legend.clear()
-        series = [("Set aside (OLS)", PALETTE["warn"], np.asarray(st.set_aside_freq, float))]
+        series = [(self.set_aside_label(st), PALETTE["warn"], np.asarray(st.set_aside_freq, float))]
         series += [(f"Kept: {model_label(m)}", model_colour(m), np.asarray(st.selected_freq[m], float))
                    for m in self.selecting(st)]
         p = len(cols)

@@ -11,7 +11,7 @@ from regbench.analysis.stress import (DEFAULT_STRENGTH, STRESS_KINDS, StressConf
 from regbench.data.table import BOOLEAN, CATEGORICAL
 from regbench.errors import RegbenchError
 from regbench.gui.panels.base import Panel, caption, hbox
-from regbench.gui.style import PALETTE, model_colour
+from regbench.gui.style import PALETTE, model_colour, plain_axes
 from regbench.gui.tables import GridModel, WARN_BG, make_view
 from regbench.models.results import model_label
 from regbench.session import check_stress
@@ -100,7 +100,6 @@ class StressPanel(Panel):
         self.plot.export_name = "stress sweep"
         self.plot.showGrid(x=True, y=True, alpha=0.25)
         self.plot.setLabel("left", "RMS shift of predictions")
-        self.plot.getAxis("left").enableAutoSIPrefix(False)
         split.addWidget(self.plot)
         split.setSizes([700, 460])
         lay.addWidget(split, 1)
@@ -111,6 +110,7 @@ class StressPanel(Panel):
         self._rankings = {}          # session key -> ranking at those choices (undo brings one back)
         self._rank_job_key = None
         self._kind_changed()
+        plain_axes(*self.plots())  # axis numbers in the units the tables show, never "(x0.001)"
 
     def clear(self):
         """Forget everything shown for another session (a new table must not show the old results)."""
