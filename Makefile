@@ -53,6 +53,7 @@ samples: $(STAMP)
 snapshots: $(STAMP)
 	QT_QPA_PLATFORM=offscreen $(BIN)/regbench snapshot $(SAMPLE) --out assets/snapshots
 	QT_QPA_PLATFORM=offscreen $(BIN)/regbench snapshot sample_projects/grading.regbench --out assets/snapshots/grading
+	QT_QPA_PLATFORM=offscreen $(BIN)/python scripts/tour_pictures.py assets/tour
 
 bench: $(STAMP)
 	$(BIN)/regbench bench

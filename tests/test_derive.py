@@ -223,3 +223,38 @@ def test_damaging_a_column_spoils_the_columns_derived_from_it():
     assert "log(price)" in res.columns
     assert any("Computed from price, log(price), price*income" in t for t in res.sentences)
     assert res.shifts["ols"].mean_shift == pytest.approx(3 * np.log(1.8), rel=1e-12)
+
+
+def test_cli_stress_takes_derived_columns_and_damages_them_with_their_source(tmp_path):
+    """`regbench stress --derive …` fits with the derived columns and damages them with their source:
+    the command's shifts are the ones run_stress gives on the session built with the same choices
+    (the same engine through its Python entry point), and they differ from a fit without them."""
+    from regbench.analysis.stress import StressConfig, run_stress
+    from regbench.models.results import FitSettings
+    from regbench.session import Session
+
+    rng = np.random.default_rng(21)
+    n = 90
+    frame = pd.DataFrame({"price": rng.uniform(1, 9, n), "income": rng.uniform(2, 5, n)})
+    frame["sales"] = 3 * np.log(frame["price"]) + frame["income"] + rng.normal(scale=0.3, size=n)
+    csv = tmp_path / "shop.csv"
+    frame.to_csv(csv, index=False)
+    args = ["--target", "sales", "--predictors", "price,income", "--folds", "4", "--penalties", "15",
+            "--column", "price", "--kind", "rescale", "--strength", "1.5"]
+    base = [sys.executable, "-m", "regbench", "stress", str(csv)]
+    out = subprocess.run(base + args + ["--derive", "log:price", "--json", "-"], capture_output=True, text=True,
+                         timeout=120)
+    assert out.returncode == 0, out.stderr
+    doc = json.loads(out.stdout)
+    s = Session.from_table_file(str(csv), Roles(target="sales", predictors=("price", "income", "log(price)"),
+                                                derived=(parse_derive("log:price"),)),
+                                FitSettings(folds=4, n_penalties=15))
+    s.set_bootstrap(0)
+    s.compute()
+    want = run_stress(s.design, s.models(), StressConfig("price", "rescale", 1.5))
+    for name, m in doc["models"].items():
+        assert m["shift_rmse"] == pytest.approx(want.shifts[name].shift_rmse, rel=1e-9)
+    assert "log(price)" in want.columns   # the derived column was damaged with its source
+    plain = subprocess.run(base + args + ["--json", "-"], capture_output=True, text=True, timeout=120)
+    assert plain.returncode == 0, plain.stderr
+    assert json.loads(plain.stdout)["models"]["ols"]["shift_rmse"] != doc["models"]["ols"]["shift_rmse"]

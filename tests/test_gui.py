@@ -146,6 +146,7 @@ def test_sample_fills_every_panel_with_sentences(gh):
     beta = np.linalg.lstsq(A, d.y * np.sqrt(d.weights), rcond=None)[0]
     for k, j in enumerate(kept):
         assert ols_col[j] == pytest.approx(beta[k + 1], rel=1e-6, abs=1e-12)
+    assert coef.rows[0][coef.headers.index("OLS")] == pytest.approx(beta[0], rel=1e-6)   # the intercept too
     data = gh.panel("data")
     assert data.frame_model.rowCount() == s.table.n_rows
     # Rows left out (demo.py blanks 3 EC cells and 2 yields) are listed one by one with a reason.
@@ -191,6 +192,10 @@ def test_open_a_table_asks_before_fitting_then_the_sentence_sets_the_roles(qtbot
     # Ticks show what the fit uses: the groups column loses its tick and says what it is for.
     assert cm.data(cm.index(cm.draft.names.index("glasshouse"), cm.C_USE), QtCore.Qt.CheckStateRole) is None
     assert cm.part("glasshouse") == "held-out groups" and "glasshouse" not in w.draft.roles().predictors
+    # So do the weights and the target: neither is ticked as an input, and each says what it is for.
+    for name, part in (("plants_per_bed", "row"), ("yield_kg_m2", "explained (the target)")):
+        assert cm.data(cm.index(cm.draft.names.index(name), cm.C_USE), QtCore.Qt.CheckStateRole) is None
+        assert cm.part(name).startswith(part) and name not in w.draft.roles().predictors
     assert bar.fit_btn.accessibleName() == "Fit with these choices" and bar.fit_btn.text() == "Fit now"
     with qtbot.waitSignal(w.results_applied, timeout=FIT_TIMEOUT_MS):
         bar.fit_btn.click()

@@ -425,3 +425,95 @@ def test_ctrl_c_on_a_table_copies_it_whole_at_full_precision(qtbot, wide):
             if isinstance(v, float) and np.isfinite(v):
                 assert float(cells[j + 1]) == v
     assert f"{model.rowCount()} rows" in wide.status_label.text()
+
+
+# -- legends and data ---------------------------------------------------------------------------------
+
+
+def _data_shapes(plot):
+    """Every drawn point and bar of a pyqtgraph plot, in scene coordinates (QPointF or QRectF)."""
+    import pyqtgraph as pg
+
+    vb = plot.getViewBox()
+    for item in plot.getPlotItem().items:
+        if isinstance(item, pg.BarGraphItem):
+            o = item.opts
+            x0, width = np.broadcast_arrays(np.asarray(o.get("x0"), float), np.asarray(o.get("width"), float))
+            y, height = np.broadcast_arrays(np.asarray(o.get("y"), float), np.asarray(o.get("height"), float))
+            x0, width, y, height = np.broadcast_arrays(x0, width, y, height)
+            for a, w_, b, h in zip(x0.ravel(), width.ravel(), y.ravel(), height.ravel()):
+                if w_ > 0:
+                    yield vb.mapViewToScene(QtCore.QRectF(a, b - h / 2, w_, h)).boundingRect()
+        elif isinstance(item, pg.PlotDataItem) and item.name() is not None:
+            x, y = item.getData()
+            for xi, yi in zip(x if x is not None else (), y if y is not None else ()):
+                if np.isfinite(xi) and np.isfinite(yi):
+                    yield vb.mapViewToScene(QtCore.QPointF(float(xi), float(yi)))
+        elif isinstance(item, pg.ScatterPlotItem):
+            for pt in item.points():
+                yield vb.mapViewToScene(pt.pos())
+
+
+@pytest.mark.parametrize("sample,size", [("greenhouse.regbench", (1400, 900)), ("grading.regbench", (1400, 900)),
+                                         ("grading.regbench", (1100, 700)), ("wide", (1400, 900))])
+def test_no_legend_covers_a_bar_or_a_curve_on_any_panel(qtbot, sample, size, request):
+    """On both samples (and 26 overlapping columns), at 1400 × 900 and 1100 × 700, every panel's legend lies
+    clear of every bar, curve point and marker of its plot, and inside the plot's area (nothing clipped)."""
+    import copy
+
+    import pyqtgraph as pg
+
+    from regbench.project import load_project
+
+    w = _window(qtbot, size)
+    session = copy.deepcopy(request.getfixturevalue("wide_session")) if sample == "wide" else \
+        load_project(os.path.join(SAMPLES, sample))
+    w.adopt(session, path=None, fit=False)
+    _idle(qtbot, w)
+    checked = 0
+    for panel in w.panels:
+        if getattr(panel, "applies", None) is not None and not panel.applies(w.session):
+            continue
+        _show(qtbot, w, panel.key)
+        for plot in panel.plots():
+            if not isinstance(plot, pg.PlotWidget):
+                continue
+            legend = plot.getPlotItem().legend
+            if legend is None or not legend.items or not legend.isVisible():
+                continue
+            checked += 1
+            box = legend.sceneBoundingRect()
+            for shape in _data_shapes(plot):
+                hit = box.intersects(shape) if isinstance(shape, QtCore.QRectF) else box.contains(shape)
+                assert not hit, (panel.key, plot.export_name if hasattr(plot, "export_name") else "", shape)
+            area = plot.getViewBox().sceneBoundingRect().adjusted(-1, -1, 1, 1)
+            assert area.contains(box), (panel.key, box, area)
+    assert checked >= 2
+    _close(w)
+
+
+def test_group_numbers_are_listed_in_numeric_order_in_the_window_and_the_report(qtbot):
+    """Twelve groups numbered 1–12: the fit panel's per-group table and the report list 1, 2, …, 10, 11, 12
+    (numeric order), never 1, 10, 11, 12, 2 (text order)."""
+    from regbench.report.html import report_html
+
+    rng = np.random.default_rng(12)
+    n = 240
+    frame = pd.DataFrame({"block": np.tile(np.arange(1, 13), n // 12), "a": rng.normal(size=n),
+                          "b": rng.normal(size=n)})
+    frame["y"] = frame["a"] - frame["b"] + rng.normal(size=n)
+    s = Session.from_table(table_from_frame(frame), Roles(target="y", predictors=("a", "b"), groups="block"),
+                           FitSettings(folds=4, n_penalties=10))
+    s.set_bootstrap(0)
+    assert s.apply_results(s.compute_results())
+    want = [str(k) for k in range(1, 13)]
+    html = report_html(s)
+    section = html[html.index('id="quality"'):html.index('id="agreement"')]
+    positions = [section.index(f">{g}<") for g in want]
+    assert positions == sorted(positions)
+    w = _window(qtbot)
+    w.adopt(s, path=None, fit=False)
+    _idle(qtbot, w)
+    panel = _show(qtbot, w, "fit")
+    assert [str(r[0]) for r in panel.group_model.rows] == want
+    _close(w)

@@ -591,7 +591,7 @@ class ColumnsModel(QtCore.QAbstractTableModel):
         if role == "target":
             return "explained (the target)"
         if role == "weights":
-            return "row counts (weights)"
+            return "row counts (weights)" if d.weights_kind == "counts" else "row weights (precision)"
         if role == "groups":
             return "held-out groups"
         info = d.table.columns[name]

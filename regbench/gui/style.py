@@ -57,3 +57,27 @@ def plain_axes(*widgets) -> None:
         for item in (scene.items() if scene is not None else ()):
             if isinstance(item, pg.AxisItem):
                 item.enableAutoSIPrefix(False)
+
+
+def keep_legend_above(plot, bottom: float, top: float, pad_px: float = 10.0) -> None:
+    """Show ``bottom``–``top`` of a plot's y axis plus a band above ``top`` as tall as its legend.
+
+    The band is measured in the plot's own pixels (legend height, its offset and ``pad_px``) and
+    measured again on every resize, so the legend never covers a bar or a curve at any window size.
+    """
+    plot._legend_span = (float(bottom), float(top), float(pad_px))
+    vb = plot.getViewBox()
+    if not getattr(plot, "_legend_hooked", False):
+        vb.sigResized.connect(lambda *_: keep_legend_above(plot, *plot._legend_span))
+        plot._legend_hooked = True
+    legend = plot.getPlotItem().legend
+    height = float(vb.height())
+    if legend is not None and legend.items:
+        legend.updateSize()
+        offset = legend.opts.get("offset") or (0, 0)
+        need = float(legend.boundingRect().height()) + abs(float(offset[1])) + pad_px
+    else:
+        need = pad_px
+    f = min(0.6, need / height) if height > 0 else 0.3
+    # (new_top − top) must be the share f of the whole span (new_top − bottom).
+    plot.setYRange(bottom, (top - f * bottom) / (1.0 - f), padding=0)

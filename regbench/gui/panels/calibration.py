@@ -13,7 +13,7 @@ import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
 from regbench.gui.panels.base import Panel, caption, hbox
-from regbench.gui.style import PALETTE, model_colour, plain_axes
+from regbench.gui.style import PALETTE, keep_legend_above, model_colour, plain_axes
 from regbench.gui.tables import GridModel, make_view
 from regbench.models.results import model_label
 
@@ -56,14 +56,14 @@ class CalibrationPanel(Panel):
         self.roc.setLabel("left", "sensitivity")
         for p in (self.reliability, self.roc):
             p.showGrid(x=True, y=True, alpha=0.2)
-            p.setXRange(0, 1, padding=0.02)
+            p.setXRange(-0.04, 1.04, padding=0)  # room for the 0 and 1 tick labels at the ends
             # Curves may run anywhere in the unit square (a reliability curve reaches its top right corner,
             # a poor ROC curve its bottom right), so the legend sits in a band above 1 that no curve enters;
             # the band grows with the legend and the plot's height (_legend_room).
             legend = p.addLegend(offset=(8, 4), labelTextSize="8pt")
             legend.setColumnCount(2)
-            p.getAxis("left").setTicks([[(v, f"{v:g}") for v in (0, 0.2, 0.4, 0.6, 0.8, 1)]])
-            p.getViewBox().sigResized.connect(lambda _vb, p=p: self._legend_room(p))
+            for side in ("left", "bottom"):
+                p.getAxis(side).setTicks([[(v, f"{v:g}") for v in (0, 0.2, 0.4, 0.6, 0.8, 1)]])
             self._legend_room(p)
         plots.addWidget(self.reliability)
         plots.addWidget(self.roc)
@@ -108,16 +108,8 @@ class CalibrationPanel(Panel):
 
     @staticmethod
     def _legend_room(plot) -> None:
-        """Set the y range to 0–1 plus a band above 1 as tall as the legend, in this plot's pixels."""
-        legend = plot.plotItem.legend
-        vb = plot.getViewBox()
-        height = float(vb.height())
-        legend_px = float(legend.boundingRect().height()) if legend is not None and legend.items else 0.0
-        f = min(0.6, (legend_px + 14.0) / height) if height > 0 else 0.3
-        bottom = -0.02
-        # top − 1.02 must hold the legend's share f of the whole span (top − bottom).
-        top = (1.02 - f * bottom) / (1.0 - f)
-        plot.setYRange(bottom, top, padding=0)
+        """The unit square, and above it a band the legend sits in (no curve enters it)."""
+        keep_legend_above(plot, -0.04, 1.02, pad_px=6.0)
 
     def views(self):
         return [self.summary_view, self.table_view]

@@ -7,7 +7,7 @@ import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
 from regbench.gui.panels.base import Panel, caption, hbox
-from regbench.gui.style import PALETTE, model_colour, plain_axes
+from regbench.gui.style import PALETTE, keep_legend_above, model_colour, plain_axes
 from regbench.gui.tables import GridModel, WARN_BG, make_view
 from regbench.models.results import aligned, model_columns, model_label
 from regbench.sentences import se_kind_sentence
@@ -171,4 +171,4 @@ class CoefficientsPanel(Panel):
         ticks = [(p - 1 - i, c) for i, c in enumerate(cols)]
         self.plot.getAxis("left").setTicks([ticks])
         self.plot.addItem(pg.InfiniteLine(pos=0, angle=90, pen=pg.mkPen(PALETTE["muted"])))
-        self.plot.setYRange(-0.6, p + 1.6, padding=0)  # headroom for the legend
+        keep_legend_above(self.plot, -0.6, p - 0.5)  # the bars, and a band above them for the legend

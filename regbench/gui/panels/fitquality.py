@@ -180,8 +180,11 @@ class FitQualityPanel(Panel):
         if groups:
             where = "held-out" if q.group_split == "held_out" else "fitted rows"
             self.group_caption.setText(f"Error per {design.groups_column} ({model_label(name)}, {where})")
+            # On a yes/no outcome the root mean squared error of the probabilities is the root Brier score.
+            binary = getattr(design, "outcome", "numeric") == "binary"
             self.group_model.set_rows([[g.group, g.rows, g.rmse, g.mean_residual] for g in groups],
-                                      [design.groups_column, "Rows", "RMSE", "Mean residual"])
+                                      [design.groups_column, "Rows", "Root Brier" if binary else "RMSE",
+                                       "Mean residual"])
             self.group_view.resizeColumnsToContents()
 
     def _draw_plot(self):
@@ -202,11 +205,13 @@ class FitQualityPanel(Panel):
             rows = np.sort(np.random.default_rng(0).choice(n, MAX_POINTS, replace=False))
         colour = model_colour(name)
         self.plot.clear()
+        binary = getattr(design, "outcome", "numeric") == "binary"
+        predicted = f"predicted probability of {q.target}" if binary else f"predicted {q.target}"
         if view == "observed":
             x, y = pred[rows], obs[rows]
             lo, hi = float(min(x.min(), y.min())), float(max(x.max(), y.max()))
             self.plot.plot([lo, hi], [lo, hi], pen=pg.mkPen(PALETTE["muted"], width=1, style=Qt.DashLine))
-            xl, yl = f"predicted {q.target}", f"observed {q.target}"
+            xl, yl = predicted, (f"observed {q.target} (1 yes, 0 no)" if binary else f"observed {q.target}")
         else:
             if view == "column":
                 col = self.column_box.currentText()
@@ -216,7 +221,7 @@ class FitQualityPanel(Panel):
                 xl = col
             else:
                 x = pred[rows]
-                xl = f"predicted {q.target}"
+                xl = predicted
             y = resid[rows]
             self.plot.addItem(pg.InfiniteLine(pos=0, angle=0, pen=pg.mkPen(PALETTE["muted"], width=1)))
             yl = "residual (observed − predicted)"

@@ -19,7 +19,7 @@ from PySide6 import QtCore, QtGui, QtWidgets
 from regbench.analysis.ranges import KIND_HELDOUT, QUADRATIC_WORDS, ranges_unavailable
 from regbench.data.identifiers import row_label_column, row_names
 from regbench.gui.panels.base import Panel, caption, hbox
-from regbench.gui.style import PALETTE, model_colour, plain_axes
+from regbench.gui.style import PALETTE, keep_legend_above, model_colour, plain_axes
 from regbench.formatting import number_text
 from regbench.gui.tables import GridModel, make_view
 from regbench.models.coding import design_sd
@@ -246,7 +246,7 @@ class RangesPanel(Panel):
         plot.setLabel("bottom", "standardized log-odds coefficient (per SD of the column)"
                       if rg.outcome == "binary" else "standardized coefficient (per SD of the column)")
         plot.setXRange(lo, hi, padding=0)
-        plot.setYRange(-0.7, p + 0.6, padding=0)  # headroom for the legend
+        keep_legend_above(plot, -0.7, p - 0.5)  # the bands, and a band above them for the legend
 
     def _draw_strip(self, rg):
         plot = self.strip

@@ -7,7 +7,7 @@ import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
 from regbench.gui.panels.base import Panel, caption, hbox
-from regbench.gui.style import PALETTE, model_colour, plain_axes
+from regbench.gui.style import PALETTE, keep_legend_above, model_colour, plain_axes
 from regbench.gui.tables import GridModel, make_view
 from regbench.models.results import model_label, unpenalized
 
@@ -125,4 +125,4 @@ class StabilityPanel(Panel):
             legend.addItem(bar, label)
         self.plot.getAxis("left").setTicks([[(p - 1 - i, c) for i, c in enumerate(cols)]])
         self.plot.setXRange(0, 1.0, padding=0.06)  # the bars at 1 stay clear of the edge
-        self.plot.setYRange(-0.6, p + 2.6, padding=0)  # headroom for the legend
+        keep_legend_above(self.plot, -0.6, p - 0.5)  # the bars, and a band above them for the legend
