@@ -131,6 +131,15 @@ def count_text(v, noun: str) -> str:
     return f"{text} {noun}{'' if v == 1 else 's'}"
 
 
+def size_text(n_bytes) -> str:
+    """A memory size for people: '500 MB', '1.5 GB', '800 kB' (powers of 1,000, as the budget is typed)."""
+    v = float(n_bytes)
+    for unit, scale in (("TB", 1e12), ("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
+        if v >= scale:
+            return f"{v / scale:.3g} {unit}"
+    return f"{v:.0f} B"
+
+
 def tick_text(v: float) -> str:
     """An axis tick: four significant digits, a one-decimal exponent outside [1e-3, 1e4)."""
     if v == 0:

@@ -431,3 +431,24 @@ def inspect_text(info: dict) -> str:
         lines.append(f"  {_RESULTS_DIR + '*.npy':<28} {sum(e['size'] for e in arrays):>12,d} bytes  "
                      f"{len(arrays)} arrays, " + (f"failed: {show(', '.join(failed), 400)}" if failed else "all ok"))
     return "\n".join(lines)
+
+
+def row_sample_sentence(sample_rows: int, rows_used: int, seed: int, sampled: bool, route: str = "streamed") -> str:
+    """The one sentence a table read in batches carries on screen and in the report: which rows the
+    row-level views use (rows, seed, of how many) and that every fitted number uses all of them."""
+    where = "on a Dask cluster" if route == "cluster" else "in batches"
+    if not sampled:
+        return (f"The table was read {where}; every one of its {rows_used:,} usable rows is at hand, so row-level "
+                "views use every row.")
+    return (f"The table was read {where}: every fitted number uses all {rows_used:,} usable rows, while row-level "
+            f"views (scatter plots, residuals, per-row stress) use a seeded sample of {sample_rows:,} of them "
+            f"(seed {seed}).")
+
+
+#: What a table read in batches cannot show when the row-level views hold a sample, one line each.
+NOT_ON_SAMPLE = {
+    "heldout": "Held-out predictions are not shown: each fold's refit needs that fold's cross-products over every "
+               "row, and only a sample of rows is at hand; the cross-validation errors use every row.",
+    "stability": "Stability is not computed: its refits need each group's cross-products over every row, and "
+                 "only a sample of rows is at hand; read the table in memory (a larger memory budget) to see it.",
+}

@@ -33,6 +33,7 @@ from regbench.analysis.ranges import Ranges, compute_ranges
 from regbench.analysis.stability import Stability, bootstrap_stability
 from regbench.analysis.stress import StressConfig, StressResult, StressSweep, resolve_column, run_stress, stress_sweep
 from regbench.analysis.structure import Structure, compare_structure
+from regbench.batches import check_rows, file_fingerprint, needs_batches, run_pass, sample_table
 from regbench.data.derive import apply_derived, make_derived
 from regbench.data.design import Roles, build_design
 from regbench.data.reader import read_table
@@ -40,7 +41,9 @@ from regbench.data.table import Table
 from regbench.errors import DataError
 from regbench.models import engine, spec
 from regbench.models.results import FitResults, FitSettings, LinearModel
+from regbench.models.spec import RowSource
 from regbench.progress import check, report
+from regbench.sentences import NOT_ON_SAMPLE, row_sample_sentence
 
 #: How many edits :meth:`Session.undo` can take back.
 UNDO_DEPTH = 50
@@ -115,6 +118,8 @@ class ComputedResults:
     stability_alphas: Dict[str, float] = field(default_factory=dict)
     #: Calibration and discrimination of a yes/no outcome's probabilities; None for a numeric target.
     classification: Optional[Classification] = None
+    #: The streamed pass that produced ``results`` (a table read in batches), else None.
+    streamed: object = None
 
 
 @dataclass(frozen=True)
@@ -158,6 +163,8 @@ class SessionState:
     #: The threshold the person chose for a yes/no outcome's probabilities, with their note:
     #: {"value": float in (0, 1), "note": str}, or None.
     threshold: Optional[dict] = None
+    #: How the rows are read: memory budget and cluster (see :class:`regbench.models.spec.RowSource`).
+    rows: RowSource = RowSource()
 
 
 _State = SessionState  # older name, kept for code written before SessionState was public
@@ -174,6 +181,7 @@ EVENTS = {
     "notes": "the notes text changed (the text)",
     "threshold": "the recorded threshold of a yes/no outcome changed ({value, note}, or None when cleared)",
     "view_state": "a value the window keeps changed ({key, value})",
+    "rows": "the memory budget or cluster changed (the new RowSource); it applies to the next pass over the rows",
     "undo": "an edit was taken back; anything may have changed (None)",
     "results": "new fits were installed, with stability and comparisons where computed (None)",
     "derived": "models, agreement, structure and stress results at the chosen α were installed (None)",
@@ -228,6 +236,10 @@ class Session:
         self.cache_status = "none"
         #: One line for the person when a loaded project's cached results were not used, else None.
         self.cache_note: Optional[str] = None
+        #: The table file read in batches (absolute path), or None when the table is in memory.
+        self.source: Optional[str] = None
+        #: The last pass over a table read in batches (a StreamedFit), else None.
+        self.streamed = None
 
     # -- constructors --------------------------------------------------------------------
 
@@ -238,6 +250,37 @@ class Session:
     @classmethod
     def from_table(cls, table: Table, roles, settings=None) -> "Session":
         return cls(table, roles, settings)
+
+    @classmethod
+    def from_batches(cls, path, roles, settings=None, rows: Optional[RowSource] = None, progress=None,
+                     cancel=None) -> "Session":
+        """A session on a table read in batches (or on a cluster): one pass fits every model.
+
+        The pass (:func:`regbench.batches.run_pass`) is the long part; a window runs
+        it on its worker thread and builds the session with :meth:`from_streamed`.
+        """
+        rows = check_rows(rows or RowSource())
+        settings = _normalized(settings or FitSettings())
+        streamed = run_pass(path, _roles(roles), settings, rows, progress=progress, cancel=cancel)
+        return cls.from_streamed(path, streamed, roles, settings, rows)
+
+    @classmethod
+    def from_streamed(cls, path, streamed, roles, settings=None, rows: Optional[RowSource] = None) -> "Session":
+        """A session on the table at ``path`` from a pass already run over it (a StreamedFit).
+
+        The session's ``table`` holds the pass's seeded row sample, its ``design``
+        the sample's rows and its ``results`` the fits on every usable row.
+        """
+        from pathlib import Path
+
+        source = str(Path(path).resolve())
+        session = cls(sample_table(streamed.design, source), roles, settings, design=streamed.design)
+        session.source = source
+        session._state = replace(session._state, rows=check_rows(rows or RowSource()))
+        session._install_pass(streamed)
+        session.results = streamed.results
+        session.dirty = False
+        return session
 
     @classmethod
     def from_state(cls, table: Table, state: SessionState, design=None) -> "Session":
@@ -293,8 +336,33 @@ class Session:
     @property
     def table_hash(self) -> str:
         if self._fingerprint is None:
-            self._fingerprint = table_fingerprint(self.table)
+            # A table read in batches is known by its file, never hashed cell by cell (a second pass).
+            self._fingerprint = file_fingerprint(self.source) if self.source else table_fingerprint(self.table)
         return self._fingerprint
+
+    @property
+    def rows(self) -> RowSource:
+        """How the rows are read: memory budget and cluster."""
+        return self._state.rows
+
+    @property
+    def sampled(self) -> bool:
+        """True when the rows at hand are a seeded sample of a table read in batches."""
+        return bool(self.streamed is not None and self.streamed.sampled)
+
+    @property
+    def row_sample_note(self) -> Optional[str]:
+        """One sentence on which rows the row-level views use (a table read in batches), else None."""
+        st = self.streamed
+        if st is None:
+            return None
+        return row_sample_sentence(st.design.n, st.rows_used, st.results.settings.seed, st.sampled, st.route)
+
+    def sample_limits(self) -> dict:
+        """What cannot be shown on a row sample, one line each ('heldout', 'stability'); empty otherwise."""
+        if not self.sampled:
+            return {}
+        return {k: v for k, v in NOT_ON_SAMPLE.items() if k != "stability" or self.bootstrap}
 
     def fit_key(self, state: Optional[SessionState] = None) -> str:
         s = state or self._state
@@ -372,7 +440,7 @@ class Session:
         old = self._state
         self._state = new_state
         if new_state.roles != old.roles:
-            self.design = build_design(self.table, new_state.roles)
+            self.design = self._design_for(new_state.roles)
         if new_state.roles != old.roles or _fit_settings(new_state.settings) != _fit_settings(old.settings):
             self.results = None
             self.stability = None
@@ -396,7 +464,7 @@ class Session:
         Raises DataError (and changes nothing) when the roles cannot be used.
         """
         roles = _roles(roles)
-        design = build_design(self.table, roles)  # raise before anything changes
+        design = self._design_for(roles)  # raise before anything changes
         state = replace(self._state, roles=roles)
         # A penalty factor of a column that is no longer a predictor has nothing to act on.
         keep = set(design.sources) | {u.column for u in design.unusable}
@@ -404,6 +472,28 @@ class Session:
         if pf != tuple(self.settings.penalty_factors):
             state = replace(state, settings=replace(self.settings, penalty_factors=pf))
         self._edit("roles", state, "roles", roles)
+
+    def _design_for(self, roles: Roles):
+        """The design ``roles`` make of the table; raises DataError when they cannot be used.
+
+        For a table read in batches the roles are checked against the file's columns and the
+        design of the last pass is kept until the next pass replaces it (a design needs a pass).
+        """
+        if self.source is None:
+            return build_design(self.table, roles)
+        from regbench.data.stream import plan_for
+
+        plan_for(self.source, roles, self.rows.memory_budget)
+        return self.design
+
+    def set_rows(self, rows) -> None:
+        """Set the memory budget and cluster (a RowSource or a dict of its fields).
+
+        They decide how a table is read when it is opened, and where the next pass over a table read in
+        batches runs; the fits stay (every route gives the same numbers).  Raises DataError naming the setting.
+        """
+        rows = check_rows(rows)
+        self._edit("rows", replace(self._state, rows=rows), "rows", rows)
 
     def add_derived(self, operation: str, columns) -> str:
         """Add a derived column (see :mod:`regbench.data.derive`); returns its name.
@@ -459,7 +549,7 @@ class Session:
         all its indicators.  The fits are cleared.  Raises DataError (and changes
         nothing) for a column that is not a predictor or a factor out of range.
         """
-        design = build_design(self.table, self.roles)
+        design = self._design_for(self.roles)
         if column not in set(design.sources) | {u.column for u in design.unusable}:
             raise DataError(f"'{column}' is not a predictor of this session; "
                             f"predictors are: {', '.join(dict.fromkeys(design.sources))}")
@@ -604,16 +694,24 @@ class Session:
         fit_key = self.fit_key(state)
         key = self.key(state) if n_boot == state.bootstrap else _digest({"base": self.key(state), "boot": n_boot})
         total = 3 if n_boot else 2  # fit, compare (agreement, structure, stress), stability
-        if table_results is None or refit:
+        streamed, sampled = None, self.sampled
+        if (table_results is None or refit) and self.source is not None:
+            report(progress, 0, total * 100, "one pass over the rows of the table, read in batches")
+            streamed = run_pass(self.source, state.roles, state.settings, state.rows,
+                                progress=_within(progress, 0, total), cancel=cancel)
+            design, results, sampled = streamed.design, streamed.results, streamed.sampled
+        elif table_results is None or refit:
             report(progress, 0, total * 100, "fitting the models")
             results = engine.fit_all(design, state.settings, progress=_within(progress, 0, total), cancel=cancel)
         else:
             results = table_results
         check(cancel)
         report(progress, 100, total * 100, "comparing the models and running the stress tests")
-        derived = _derive(design, results, state, cancel)
+        derived = _derive(design, results, state, cancel, sampled=sampled)
         check(cancel)
         stability, alphas = None, _alphas_of(results, state)
+        if n_boot and sampled:
+            n_boot = 0  # grouped refits need every group's cross-products (sample_limits says so)
         if n_boot:
             report(progress, 200, total * 100, f"stability ({n_boot} refits)")
             stability = bootstrap_stability(design, state.settings, alphas, n_boot=n_boot, seed=state.settings.seed,
@@ -621,7 +719,8 @@ class Session:
                                             relaxations=relaxations_of(results))
         report(progress, total * 100, total * 100, "done")
         return ComputedResults(fit_key=fit_key, key=key, results=results, stability=stability,
-                               stability_alphas=alphas if stability is not None else {}, **derived)
+                               stability_alphas=alphas if stability is not None else {}, streamed=streamed,
+                               **derived)
 
     def apply_results(self, computed: ComputedResults) -> bool:
         """Install what :meth:`compute_results` produced (GUI thread).
@@ -632,6 +731,8 @@ class Session:
         """
         if computed.fit_key != self.fit_key():
             return False
+        if computed.streamed is not None:
+            self._install_pass(computed.streamed)
         self.results = computed.results
         if computed.key == self.key() or computed.stability_alphas == _alphas_of(computed.results, self._state):
             self.stability = computed.stability
@@ -688,7 +789,7 @@ class Session:
                 chosen[name] = _positive(alpha, f"α for {name}")
             if chosen != state.chosen_alpha:
                 state, have = replace(state, chosen_alpha=chosen), {}
-        derived = _derive(design, results, state, cancel, have)
+        derived = _derive(design, results, state, cancel, have, sampled=self.sampled)
         return AlphaUpdate(key=self.key(state), name=name, alpha=None if alpha is None else float(alpha), **derived)
 
     def apply_alpha_update(self, update: AlphaUpdate) -> bool:
@@ -715,7 +816,8 @@ class Session:
             return {}
         if any(k not in self._cache for k in ("agreement", "stress", "ranges")) or (
                 self.design.outcome == "binary" and self._cache.get("classification") is None):
-            self._cache.update(_derive(self.design, self.results, self._state, None, self._cache))
+            self._cache.update(_derive(self.design, self.results, self._state, None, self._cache,
+                                       sampled=self.sampled))
         return self._cache
 
     _derived = derived_results
@@ -762,6 +864,13 @@ class Session:
     def classification(self):
         """Calibration and discrimination of every model (a yes/no outcome), else None."""
         return self._derived().get("classification")
+
+    def _install_pass(self, streamed) -> None:
+        """Take the design and row sample of a pass over a table read in batches."""
+        self.streamed = streamed
+        self.design = streamed.design
+        self.table = sample_table(streamed.design, self.source, self.row_sample_note or "")
+        self._columns_table_for = None
 
     # -- used by the project layer --------------------------------------------------------
 
@@ -835,8 +944,12 @@ def _alphas_of(results, state: SessionState) -> dict:
     return {name: float(state.chosen_alpha.get(name, pf.alpha)) for name, pf in results.penalized.items()}
 
 
-def _derive(design, results, state: SessionState, cancel, have: Optional[dict] = None) -> dict:
-    """Models at the chosen α, held-out predictions, agreement, structure, stress results."""
+def _derive(design, results, state: SessionState, cancel, have: Optional[dict] = None, sampled: bool = False) -> dict:
+    """Models at the chosen α, held-out predictions, agreement, structure, stress results.
+
+    ``sampled``: the design holds a seeded sample of a table read in batches; held-out predictions
+    need each fold's statistics over every row, so there are none (``Session.sample_limits`` says so).
+    """
     have = have or {}
     models = have.get("models")
     if models is None:
@@ -853,7 +966,7 @@ def _derive(design, results, state: SessionState, cancel, have: Optional[dict] =
     check(cancel)
     heldout = have.get("heldout")
     if heldout is None:
-        heldout = engine.heldout_predictions(design, results, models)
+        heldout = {} if sampled else engine.heldout_predictions(design, results, models)
     agreement, structure = have.get("agreement"), have.get("structure")
     if agreement is None:
         agreement = compare_models(design, models, heldout)

@@ -375,3 +375,68 @@ def check_value(declared: Spec, value, error: Callable[[str], Exception], where:
     if p is not None:
         raise error(f"{where} {p}")
     return declared.rule.coerce(value)
+
+
+# -- where the rows are read --------------------------------------------------------------------
+
+#: Scheduler addresses a cluster route accepts besides ``'local'``.
+_SCHEDULER_PREFIXES = ("tcp://", "tls://", "inproc://")
+
+
+@dataclass(frozen=True)
+class Address(Rule):
+    """Where the pass over the rows runs: ``'local'`` (a cluster started on this machine) or a
+    scheduler address such as ``tcp://HOST:8786``."""
+
+    def problem(self, value):
+        if isinstance(value, str) and (value == "local" or (
+                value.startswith(_SCHEDULER_PREFIXES) and value.split("://", 1)[1].strip()
+                and not any(ch.isspace() for ch in value))):
+            return None
+        return f"{_g(value)} is not 'local' or a scheduler address like tcp://HOST:8786"
+
+    def coerce(self, value):
+        return str(value)
+
+
+@dataclass(frozen=True)
+class RowSource:
+    """How a project's rows are read: the memory they may take and where the pass over them runs.
+
+    Declared like :class:`regbench.models.settings.FitSettings`; the command line
+    (``--memory-budget``, ``--cluster``), the session, the project loader
+    (``session.json`` field ``rows``) and the window check through :func:`check`.
+    A table whose in-memory form would exceed ``memory_budget`` (or any table
+    when ``cluster`` is set) is read in batches, and every fitted number comes
+    from its cross-products.
+
+    Attributes
+    ----------
+    memory_budget : int or None
+        Bytes the table may take in memory; None: no limit.
+    cluster : str or None
+        ``'local'`` or a scheduler address; None: this computer, no cluster.
+    """
+
+    memory_budget: _Opt[int] = setting(
+        None, OrNone(Whole(10**6, 2**50), empty="no limit"),
+        "memory the table may take, e.g. 500MB or 2GB; a larger Parquet/CSV table (or a folder of Parquet files) "
+        "is read in batches and row-level views use a seeded sample of its rows", flag="--memory-budget")
+    cluster: _Opt[str] = setting(
+        None, OrNone(Address(), empty="this computer"),
+        "run the pass over the rows on a Dask cluster: 'local' starts one on this machine, tcp://HOST:PORT uses a "
+        "running scheduler whose workers can read the table's path", flag="--cluster")
+
+    def to_dict(self) -> dict:
+        return to_dict(self)
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "RowSource":
+        return from_dict(cls, d)
+
+    def check(self, error: Callable[[str], Exception], label: Callable[[str, Spec], str] = label_setting) -> None:
+        check(type(self), self, error, label)
+
+    @property
+    def is_default(self) -> bool:
+        return self.memory_budget is None and self.cluster is None
