@@ -63,12 +63,7 @@ def _add_table_options(p: argparse.ArgumentParser, table: bool = True) -> None:
     p.add_argument("--thousands", choices=(",", ".", " ", "'"),
                    help="thousands separator to remove from numbers written in text cells (default: none)")
     _add_settings_options(p)
-    p.add_argument("--memory-budget", metavar="SIZE",
-                   help="memory the table may take, e.g. 500MB or 2GB; a larger Parquet/CSV table (or a folder "
-                        "of Parquet files) is read in batches (default: $REGBENCH_MEMORY_BUDGET, else no limit)")
-    p.add_argument("--cluster", metavar="ADDRESS",
-                   help="run the pass over the rows on a Dask cluster: 'local' starts one on this machine, "
-                        "tcp://HOST:PORT uses a running scheduler (Parquet tables)")
+    _add_row_options(p)
     p.add_argument("--derive", action="append", default=[], metavar="OP:COLUMN",
                    help="add a derived column, repeatable: log:C, log1p:C, sqrt:C, square:C, standardize:C "
                         "or product:C1,C2; it is named e.g. log(C) or C1*C2 and joins listed predictors")
@@ -102,6 +97,17 @@ def _add_settings_options(p: argparse.ArgumentParser) -> None:
         if kwargs.get("default") not in (None, [], False):
             kwargs["help"] += f" (default {kwargs['default']})"
         p.add_argument(declared.flag, **kwargs)
+
+
+def _add_row_options(p: argparse.ArgumentParser) -> None:
+    """--memory-budget and --cluster, their help from the declaration (models/spec.py RowSource)."""
+    from regbench.models import spec
+
+    declared = spec.specs(spec.RowSource)
+    p.add_argument(declared["memory_budget"][0].flag, dest="memory_budget", metavar="SIZE",
+                   help=declared["memory_budget"][0].help + " (default: $REGBENCH_MEMORY_BUDGET, else no limit)")
+    p.add_argument(declared["cluster"][0].flag, dest="cluster", metavar="ADDRESS",
+                   help=declared["cluster"][0].help)
 
 
 def _json_option(p: argparse.ArgumentParser) -> None:
@@ -310,24 +316,38 @@ def _progress_to_stderr(done: int, total: int, message: str) -> None:
             sys.stderr.write("\n")
 
 
-def _out_of_memory_route(args):
-    """``(budget, cluster)`` when the table is to be read in batches or on a cluster, else None."""
-    from regbench.data.stream import memory_budget_from_env, parse_size, should_stream
+def rows_from_args(args):
+    """The RowSource of ``--memory-budget`` (or $REGBENCH_MEMORY_BUDGET) and ``--cluster``, checked."""
+    from regbench.data.stream import memory_budget_from_env, parse_size
+    from regbench.models import spec
 
     budget = parse_size(args.memory_budget) if getattr(args, "memory_budget", None) else memory_budget_from_env()
-    cluster = getattr(args, "cluster", None)
-    if cluster or should_stream(args.table, budget):
-        return budget, cluster
+    values = {"memory_budget": budget, "cluster": getattr(args, "cluster", None)}
+    spec.check(spec.RowSource, values, RegbenchError, spec.label_flag)
+    return spec.RowSource.from_dict(values)
+
+
+def _out_of_memory_route(args):
+    """``(budget, cluster)`` when the table is to be read in batches or on a cluster, else None."""
+    from regbench.batches import needs_batches
+
+    rows = rows_from_args(args)
+    if needs_batches(args.table, rows):
+        return rows.memory_budget, rows.cluster
     return None
+
+
+def _refuse_read_options(args) -> None:
+    if (getattr(args, "encoding", None) or getattr(args, "sheet", None) or getattr(args, "decimal", ".") != "."
+            or getattr(args, "thousands", None)):
+        raise RegbenchError("--encoding, --sheet, --decimal and --thousands apply to tables read in memory; the "
+                            "streamed route reads UTF-8 CSV with '.' decimals and Parquet")
 
 
 def _stream_fit(args, settings, budget, cluster):
     from regbench.data.stream import stream_fit
 
-    if (getattr(args, "encoding", None) or getattr(args, "sheet", None) or getattr(args, "decimal", ".") != "."
-            or getattr(args, "thousands", None)):
-        raise RegbenchError("--encoding, --sheet, --decimal and --thousands apply to tables read in memory; the "
-                            "streamed route reads UTF-8 CSV with '.' decimals and Parquet")
+    _refuse_read_options(args)
     if cluster:
         from regbench.cluster import cluster_fit
 
@@ -400,20 +420,13 @@ def _refuse_yes_no_streamed(args, design) -> None:
                             f"which is fitted with the rows in memory, not on the streamed or cluster route; {how}")
 
 
-def _refuse_out_of_memory(args, what: str) -> None:
-    route = _out_of_memory_route(args)
-    if route is not None:
-        budget, cluster = route
-        why = f"the cluster route ({cluster})" if cluster else f"a table beyond --memory-budget ({budget:,} bytes)"
-        raise RegbenchError(f"{args.table}: {what} needs the rows in memory and is not available on {why}; "
-                            "use `regbench fit` with the same options for every fitted number, or raise the budget")
-
-
 def cmd_stress(args) -> int:
     from regbench.analysis.stress import stress_command
 
-    _refuse_out_of_memory(args, "the stress test")
     settings = settings_from_args(args)
+    route = _out_of_memory_route(args)
+    if route is not None:
+        return _stress_streamed(args, settings, route)
     _, design = load_design(args)
     out = stress_command(design, settings, column=args.column, all_columns=args.all_columns,
                          kind=args.kind, strength=args.strength, seed=args.seed, tolerance=args.tolerance,
@@ -429,13 +442,74 @@ def cmd_stress(args) -> int:
     return EXIT_OK
 
 
+def _stress_streamed(args, settings, route) -> int:
+    """``stress`` on a table read in batches: fits from every row; figures over every row where the damage has
+    a closed form in the cross-products (rescale, constant), per-row figures on the seeded sample, labelled."""
+    from regbench.analysis.stress import StressConfig, stress_on_models
+    from regbench.analysis.stress_stats import all_rows_figures
+    from regbench.sentences import ranking_text, row_sample_sentence, stress_text
+
+    streamed = _stream_fit(args, settings, *route)
+    design, results = streamed.design, streamed.results
+    _refuse_yes_no_streamed(args, design)
+    models = results.models()
+    out = stress_on_models(design, models, column=args.column, all_columns=args.all_columns, kind=args.kind,
+                           strength=args.strength, seed=args.seed, tolerance=args.tolerance,
+                           progress=_progress_to_stderr)
+    note = row_sample_sentence(design.n, streamed.rows_used, settings.seed, streamed.sampled, streamed.route)
+    js = dict(out["json"], route=streamed.route, rows_used=int(streamed.rows_used),
+              row_sample={"sampled": bool(streamed.sampled), "rows": int(design.n), "seed": int(settings.seed),
+                          "note": note})
+    columns = [args.column] if args.column else list(dict.fromkeys(design.sources))
+    every = {}
+    for col in columns:
+        figs = all_rows_figures(results.gram, design.columns, models,
+                                StressConfig(col, args.kind, args.strength, args.seed, args.tolerance))
+        if figs is not None:
+            every[col] = figs
+    if every:
+        js["all_rows"] = every
+    if args.json:
+        write_json(js, args.json)
+    else:
+        text = ranking_text(design, out["result"]) if args.all_columns else stress_text(design, out["result"])
+        label = "on the seeded row sample" if streamed.sampled else "on every row"
+        lines = [f"Per-row figures below are {label}.", text]
+        if every:
+            lines.append(_all_rows_text(every))
+        lines.append(f"({note})")
+        sys.stdout.write("\n".join(lines) + "\n")
+    return EXIT_OK
+
+
+def _all_rows_text(every: dict) -> str:
+    """The closed-form figures over every row, one line per column and model."""
+    from regbench.formatting import number_text
+
+    lines = ["Over every row, from the cross-products (shift RMSE, mean shift, error before -> after):"]
+    for col, figs in every.items():
+        for name, f in figs.items():
+            lines.append(f"  {col}  {name}: {number_text(f['shift_rmse'])}, {number_text(f['mean_shift'])}, "
+                         f"{number_text(f['error_clean'])} -> {number_text(f['error_damaged'])}")
+    return "\n".join(lines)
+
+
 def cmd_new(args) -> int:
     from regbench.session import Session
     from regbench.project import save_project
 
-    _refuse_out_of_memory(args, "a project (it keeps its table inside)")
     settings = settings_from_args(args)
-    session = Session.from_table_file(args.table, roles_from_args(args), settings, **_read_options(args))
+    rows = rows_from_args(args)
+    if _out_of_memory_route(args) is not None:
+        _refuse_read_options(args)
+        _refuse_yes_no_streamed(args, None)
+        session = Session.from_batches(args.table, roles_from_args(args), settings, rows,
+                                       progress=_progress_to_stderr)
+        _refuse_yes_no_streamed(args, session.design)
+    else:
+        session = Session.from_table_file(args.table, roles_from_args(args), settings, **_read_options(args))
+        if not rows.is_default:
+            session.set_rows(rows)
     for text in args.chosen_alpha:
         name, sep, value = text.partition("=")
         try:
@@ -446,7 +520,16 @@ def cmd_new(args) -> int:
             raise RegbenchError(f"--chosen-alpha: '{text}' is not MODEL=ALPHA; e.g. ridge=0.5")
         session.set_alpha(name.strip(), alpha)
     session.compute(progress=_progress_to_stderr, bootstrap=args.bootstrap)
+    session.clear_history()
     save_project(session, args.output)
+    if session.streamed is not None:
+        st = session.streamed
+        sys.stdout.write(f"saved {args.output}: {st.rows_used} rows used, {st.excluded_total} excluded; the project "
+                         f"refers to {session.source}, which it reads again on opening\n")
+        sys.stdout.write(f"  {session.row_sample_note}\n")
+        for line in session.sample_limits().values():
+            sys.stdout.write(f"  {line}\n")
+        return EXIT_OK
     sys.stdout.write(f"saved {args.output}: {session.design.n} rows used, {len(session.design.excluded)} excluded\n")
     for column, note, _ in getattr(session.design, "column_notes", ()):
         sys.stdout.write(f"  column '{column}': {note}\n")

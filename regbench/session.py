@@ -265,12 +265,17 @@ class Session:
         return cls.from_streamed(path, streamed, roles, settings, rows)
 
     @classmethod
-    def from_streamed(cls, path, streamed, roles, settings=None, rows: Optional[RowSource] = None) -> "Session":
+    def from_streamed(cls, path, streamed, roles, settings=None, rows: Optional[RowSource] = None,
+                      state: Optional[SessionState] = None) -> "Session":
         """A session on the table at ``path`` from a pass already run over it (a StreamedFit).
 
         The session's ``table`` holds the pass's seeded row sample, its ``design``
         the sample's rows and its ``results`` the fits on every usable row.
+        ``state`` (as a project file keeps it) replaces roles, settings and rows
+        when given; the session then has no undo history.
         """
+        if state is not None:
+            roles, settings, rows = state.roles, state.settings, state.rows
         from pathlib import Path
 
         source = str(Path(path).resolve())
@@ -279,6 +284,8 @@ class Session:
         session._state = replace(session._state, rows=check_rows(rows or RowSource()))
         session._install_pass(streamed)
         session.results = streamed.results
+        if state is not None:
+            session._install_loaded(state, results=streamed.results, design=streamed.design)
         session.dirty = False
         return session
 

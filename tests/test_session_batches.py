@@ -165,3 +165,163 @@ def read_table_small():
     rng = np.random.default_rng(0)
     return table_from_frame(pd.DataFrame({"a": rng.normal(size=30), "b": rng.normal(size=30),
                                           "y": rng.normal(size=30)}))
+
+
+# -- the command line, the project file and the report --------------------------------------
+
+
+@pytest.fixture()
+def big(tmp_path):
+    """A 3,000-row grouped table (about 1.6 MB in memory): beyond a 1 MB budget."""
+    f = _frame(n=3000, seed=5, missing=False)
+    path = tmp_path / "t.parquet"
+    f.to_parquet(path, index=False, row_group_size=500)
+    return path
+
+
+def test_new_on_a_table_beyond_the_budget_writes_a_project_that_reads_the_file_again(big, tmp_path, capsys):
+    from regbench.cli import main
+    from regbench.project import inspect_project, load_project
+    from regbench.project.store import session_document
+
+    out = tmp_path / "p.regbench"
+    base = [str(big), "--target", "y", "--groups", "site", "--weights", "w", "--folds", "4", "--seed", "3"]
+    assert main(["new", *base, "--memory-budget", "1MB", "--bootstrap", "10", "-o", str(out)]) == 0
+    said = capsys.readouterr().out
+    assert "3000 rows used" in said and "refers to" in said and "every one of its 3,000 usable rows" in said
+    assert inspect_project(out)["table_rows"] == 3000
+    s = load_project(out)
+    assert s.source == str(big.resolve()) and s.rows == RowSource(memory_budget=10**6)
+    assert s.cache_note is None and not s.dirty
+    doc = session_document(s)
+    assert doc["rows"] == {"memory_budget": 10**6, "cluster": None}
+    assert doc["table_file"]["path"] == str(big.resolve()) and doc["table_file"]["rows_used"] == 3000
+    # Source: the same project fitted in memory (no budget).
+    mem_out = tmp_path / "m.regbench"
+    assert main(["new", *base, "--bootstrap", "10", "-o", str(mem_out)]) == 0
+    mem = load_project(mem_out)
+    assert mem.source is None and mem.rows == RowSource()
+    _close(mem.results.ols, s.results.ols, "ols")
+    _close(mem.stability, s.stability, "stability")
+    # A changed file is read again and said so in one line.
+    import os
+
+    os.utime(big, ns=(1, 1))
+    again = load_project(out)
+    assert "changed since the project was saved" in again.cache_note
+    # A missing file: one line naming it.
+    big.rename(tmp_path / "gone.parquet")
+    from regbench.errors import ProjectError
+
+    with pytest.raises(ProjectError, match="reads its rows from .*t.parquet, which is not there"):
+        load_project(out)
+
+
+def test_project_keeps_the_row_settings_and_older_projects_open_unchanged(tmp_path):
+    from regbench.project import load_project, save_project
+    from regbench.project.store import session_document
+
+    s = Session(read_table_small(), Roles(target="y"), FitSettings(folds=3, n_penalties=10))
+    s.set_bootstrap(0)
+    assert "rows" not in session_document(s) and "table_file" not in session_document(s)  # as older projects
+    save_project(s, tmp_path / "a.regbench")
+    assert load_project(tmp_path / "a.regbench", compute=False).rows == RowSource()
+    s.set_rows(RowSource(memory_budget=5 * 10**8, cluster="tcp://127.0.0.1:8786"))
+    save_project(s, tmp_path / "b.regbench")
+    back = load_project(tmp_path / "b.regbench", compute=False)
+    assert back.rows == RowSource(5 * 10**8, "tcp://127.0.0.1:8786") and back.source is None
+
+
+def test_a_damaged_row_setting_in_a_project_is_one_line(tmp_path):
+    import json
+    import zipfile
+
+    from regbench.errors import ProjectError
+    from regbench.project import load_project, save_project
+
+    s = Session(read_table_small(), Roles(target="y"), FitSettings(folds=3, n_penalties=10))
+    s.set_rows(RowSource(memory_budget=10**9))
+    save_project(s, tmp_path / "a.regbench")
+    # Rewrite session.json with a cluster address that is not one (and the manifest's hash to match).
+    import hashlib
+
+    with zipfile.ZipFile(tmp_path / "a.regbench") as z:
+        members = {n: z.read(n) for n in z.namelist()}
+    doc = json.loads(members["session.json"])
+    doc["rows"]["cluster"] = "somewhere"
+    members["session.json"] = json.dumps(doc).encode()
+    man = json.loads(members["manifest.json"])
+    for m in man["members"]:
+        if m["name"] == "session.json":
+            m["size"], m["sha256"] = len(members["session.json"]), hashlib.sha256(members["session.json"]).hexdigest()
+    members["manifest.json"] = json.dumps(man).encode()
+    with zipfile.ZipFile(tmp_path / "b.regbench", "w") as z:
+        for n, b in members.items():
+            z.writestr(n, b)
+    with pytest.raises(ProjectError, match=r"field rows.cluster is unusable: 'somewhere' is not 'local'"):
+        load_project(tmp_path / "b.regbench")
+
+
+def test_stress_on_a_table_beyond_the_budget_gives_every_row_figures_and_labels_the_sample(big, tmp_path, capsys):
+    import json
+
+    from regbench.cli import main
+
+    base = [str(big), "--target", "y", "--groups", "site", "--weights", "w", "--folds", "4", "--seed", "3"]
+    assert main(["stress", *base, "--column", "x0", "--kind", "rescale", "--strength", "1.8",
+                 "--json", str(tmp_path / "m.json")]) == 0
+    assert main(["stress", *base, "--column", "x0", "--kind", "rescale", "--strength", "1.8",
+                 "--memory-budget", "1MB", "--json", str(tmp_path / "s.json")]) == 0
+    m = json.loads((tmp_path / "m.json").read_text())
+    s = json.loads((tmp_path / "s.json").read_text())
+    assert s["route"] == "streamed" and s["row_sample"]["rows"] == 3000 and not s["row_sample"]["sampled"]
+    # Source: the in-memory stress test on every row; the closed form over every row must equal it.
+    for name, shift in m["models"].items():
+        every = s["all_rows"]["x0"][name]
+        for k in ("shift_rmse", "mean_shift", "error_clean", "error_damaged"):
+            assert every[k] == pytest.approx(shift[k], rel=1e-9, abs=1e-12), (name, k)
+        assert s["models"][name]["shift_rmse"] == pytest.approx(shift["shift_rmse"], rel=1e-9)
+    # Text: the per-row figures are labelled, and the sentence on the rows closes it.
+    assert main(["stress", *base, "--all-columns", "--kind", "shuffle", "--memory-budget", "1MB"]) == 0
+    text = capsys.readouterr().out
+    assert "Per-row figures below are on every row." in text and "every one of its 3,000 usable rows" in text
+    assert "Over every row" not in text  # a shuffle has no closed form over rows not at hand
+
+
+@pytest.mark.parametrize("kind,strength,fill", [("rescale", 1.8, None), ("rescale", 0.1, 3.0),
+                                                ("constant", None, None), ("constant", None, 2.5)])
+def test_closed_form_stress_equals_the_stress_test_on_every_row(pair, kind, strength, fill):
+    from regbench.analysis.stress import run_stress
+    from regbench.analysis.stress_stats import stress_from_stats
+
+    _, mem, _ = pair
+    cfg = StressConfig("x2", kind, strength, fill=fill)
+    rows = run_stress(mem.design, mem.models(), cfg)  # source: the damage applied to every row
+    stats = stress_from_stats(mem.results.gram, mem.design.columns, mem.models(), cfg)
+    for name, shift in rows.shifts.items():
+        for k in ("shift_rmse", "mean_shift", "error_clean", "error_damaged"):
+            assert getattr(stats[name], k) == pytest.approx(getattr(shift, k), rel=1e-9, abs=1e-10), (name, k)
+    with pytest.raises(DataError, match="random per row"):
+        stress_from_stats(mem.results.gram, mem.design.columns, mem.models(), StressConfig("x2", "shuffle", None))
+
+
+def test_the_report_says_which_rows_the_row_level_views_use(tmp_path):
+    from regbench.report import render_report
+
+    f = _frame(n=1500, seed=1)
+    path = tmp_path / "t.parquet"
+    f.to_parquet(path, index=False, row_group_size=400)
+    roles = Roles(target="y", weights="w", predictors=tuple(f"x{j}" for j in range(8)))
+    from regbench.data.stream import stream_fit
+
+    settings = FitSettings(folds=4, seed=3)
+    streamed = stream_fit(path, roles, settings, memory_budget=10**6, sample_rows=300)
+    s = Session.from_streamed(path, streamed, roles, settings, RowSource(memory_budget=10**6))
+    s.set_bootstrap(10)
+    s.compute()
+    render_report(s, tmp_path / "r.html")
+    html = (tmp_path / "r.html").read_text()
+    assert 'id="row-sample"' in html and "a seeded sample of 300 of them (seed 3)" in html
+    assert "1495 of the table" in html  # rows used over the whole table, not the sample
+    assert "Stability is not computed" in html and "Held-out predictions are not shown" in html
+    assert "--memory-budget 1000000" in html and "memory for rows 1 MB" in html

@@ -21,14 +21,18 @@ from datetime import datetime, timezone
 import numpy as np
 import pandas as pd
 
+from typing import Optional
+
 from regbench import __version__
 from regbench.analysis.stress import STRESS_KINDS
+from regbench.batches import run_pass
 from regbench.data.design import Roles, build_design
 from regbench.data.table import COLUMN_KINDS, ColumnInfo, Table
 from regbench.errors import DataError, ProjectError
 from regbench.models import ENGINE_VERSION, spec
 from regbench.models.gram import per_fold
 from regbench.models.results import FitSettings
+from regbench.models.spec import RowSource
 from regbench.project.atomic import atomic_writer
 from regbench.project.checks import check_derived, check_fit, check_stability, guarded
 from regbench.project.codec import Decoder, Encoder, StaleCache, Unstorable
@@ -172,7 +176,20 @@ def session_document(session) -> dict:
         "notes": session.notes,
         "view_state": session.view_state,
         "table": table_meta(session.table),
-    } | ({"threshold": session.threshold} if session.threshold is not None else {})
+    } | ({"threshold": session.threshold} if session.threshold is not None else {}) | _rows_document(session)
+
+
+def _rows_document(session) -> dict:
+    """``rows`` (memory budget and cluster) when set, and ``table_file`` for a table read in batches, whose
+    rows stay in their own file: the project keeps the row sample as its table and reads the file again."""
+    out = {}
+    if not session.rows.is_default:
+        out["rows"] = session.rows.to_dict()
+    if session.source is not None:
+        st = session.streamed
+        out["table_file"] = {"path": session.source, "fingerprint": session.table_hash,
+                             "rows_used": int(st.rows_used), "sampled": bool(st.sampled)}
+    return out
 
 
 # -- reading the archive ------------------------------------------------------------------
@@ -509,7 +526,7 @@ class _Refuse:
 
 
 _SESSION_KEYS = {"roles", "settings", "chosen_alpha", "extra_fits", "stress", "bootstrap", "notes", "view_state",
-                 "table", "threshold"}
+                 "table", "threshold", "rows", "table_file"}
 
 
 def _session_state(ar: _Archive, doc, table):
@@ -549,8 +566,42 @@ def _session_state(ar: _Archive, doc, table):
         bad("view_state", "must be an object")
     state = SessionState(roles=roles, settings=settings, chosen_alpha=chosen, extra_fits=extra,
                          stress_configs=configs, bootstrap=boot, notes=notes, view_state=vs,
-                         threshold=_threshold_of(doc, design, bad))
+                         threshold=_threshold_of(doc, design, bad), rows=_rows_of(doc, bad))
     return state, design
+
+
+def _rows_of(doc, bad) -> RowSource:
+    """The memory budget and cluster (absent: no limit, this computer), checked against their declaration."""
+    d = doc.get("rows", {})
+    if not isinstance(d, dict):
+        bad("rows", "must be an object")
+    for name, problem in spec.problems(RowSource, d):
+        bad(f"rows.{name}", f"is unusable: {problem}")
+    return RowSource.from_dict(d)
+
+
+def _table_file_of(ar, doc) -> Optional[str]:
+    """The path of a table read in batches (session.json field ``table_file``), checked; None when absent."""
+    tf = doc.get("table_file")
+    if tf is None:
+        return None
+    bad = _Refuse(f"{ar.label}: session.json")
+    if not isinstance(tf, dict) or not isinstance(tf.get("path"), str) or not tf["path"]:
+        bad("table_file", "must be an object with the table's path")
+    if not os.path.exists(tf["path"]):
+        raise ProjectError(f"{ar.label}: the project reads its rows from {tf['path']}, which is not there; put the "
+                           "table back at that path (the project keeps only a sample of its rows)")
+    return tf["path"]
+
+
+def _open_batches(ar, path, state, table_file, progress, cancel):
+    """A session on a table read in batches: the pass over its rows runs again (the fits need every row;
+    the project keeps only their sample), under the stored roles, settings, memory budget and cluster."""
+    try:
+        streamed = run_pass(table_file, state.roles, state.settings, state.rows, progress=progress, cancel=cancel)
+    except DataError as exc:
+        raise ProjectError(f"{ar.label}: the rows of {table_file} cannot be read again with the stored roles ({exc})")
+    return Session.from_streamed(table_file, streamed, state.roles, state=state)
 
 
 def _roles_of(doc, table, bad) -> Roles:
@@ -818,11 +869,20 @@ def load_project(path, compute: bool = True, progress=None, cancel=None):
         table = _read_table(ar, table_bytes, doc.get("table"))
         # The design checked here serves the session too: a table is coded once per opening.
         state, design = _session_state(ar, doc, table)
-        session = Session.from_state(table, state, design=design)
-        status, note = _load_results(ar, m, session, migrated)
+        table_file = _table_file_of(ar, doc)
+        if table_file is not None:
+            session = _open_batches(ar, path, state, table_file, progress, cancel)
+            status, note = "none", None
+            if doc["table_file"].get("fingerprint") != session.table_hash:
+                note = (f"{ar.label}: {table_file} changed since the project was saved (its size or time); the "
+                        "models were fitted again on it as it is now")
+        else:
+            session = Session.from_state(table, state, design=design)
+            status, note = _load_results(ar, m, session, migrated)
     finally:
         ar.close()
-    if session.results is None and compute:
+    # A table read in batches has its fits from the pass just run; the comparisons and stability follow here.
+    if compute and (session.results is None or table_file is not None):
         session.compute(progress=progress, cancel=cancel)
     session.mark_loaded(os.fspath(path), m["created"], m["saved"], status,
                         dirty=migrated or (status == "stale" and session.results is not None), note=note)

@@ -15,6 +15,7 @@ from html import escape
 import numpy as np
 
 from regbench import __version__
+from regbench.batches import budget_words
 from regbench.formatting import MISSING, join_words, number_text, percent
 from regbench.models.coding import design_sd
 from regbench.models.results import aligned, model_columns, model_label, unpenalized
@@ -70,6 +71,7 @@ td.zero { color: #9aa3ab; }
 td.neg { color: #8c2d19; }
 .muted { color: var(--muted); }
 p.warn { color: #8c2d19; font-weight: 600; }
+p.notice { border-left: 4px solid var(--accent); padding: 4px 10px; margin: 6px 0; }
 figure { margin: 10px 0 16px; }
 figure figcaption { font-size: 12px; color: var(--muted); }
 svg.chart { max-width: 100%; height: auto; }
@@ -168,9 +170,10 @@ def coef_cell(v) -> tuple:
 def _question(session) -> str:
     d, r = session.design, session.roles
     preds = list(dict.fromkeys(d.sources))
+    used, left_out = _rows_counted(session)
     parts = [f'<p class="answer">Which inputs predict <b>{e(d.target)}</b>, and which model of it can we trust? '
-             f'{d.n} of the table\'s {d.n_table_rows} rows are used; {len(d.excluded)} '
-             f'{"is" if len(d.excluded) == 1 else "are"} left out (listed below).</p>']
+             f'{used} of the table\'s {d.n_table_rows} rows are used; {left_out} '
+             f'{"is" if left_out == 1 else "are"} left out (listed below).</p>'] + _rows_notice(session)
     info = [("Table", session.table.source or "(in memory)"), ("Target", d.target),
             ("Predictors", ", ".join(preds)), ("Design columns", f"{d.p} (categories coded one column per level "
                                                                    "beside the first; the penalized fits add the "
@@ -181,6 +184,8 @@ def _question(session) -> str:
                              if getattr(d, "counts", False) else
                              f"{r.weights}: precision weights (one observation per row, of unequal quality)")),
             ("Held-out groups", f"{r.groups} ({len(d.group_labels)} groups)" if r.groups else "none")]
+    if budget_words(session.rows):
+        info.append(("Reading the rows", budget_words(session.rows)))
     parts.append(table(None, info))
     parts.append("<h3>Rows left out, and why</h3>")
     if d.excluded:
@@ -545,8 +550,27 @@ def _stress(session) -> str:
     return "".join(parts)
 
 
+def _rows_counted(session) -> tuple:
+    """(rows used, rows left out) over the whole table, also when it was read in batches."""
+    st = session.streamed
+    if st is not None:
+        return st.rows_used, st.excluded_total
+    return session.design.n, len(session.design.excluded)
+
+
+def _rows_notice(session) -> list:
+    """The one sentence on which rows the row-level views use, and what a row sample cannot show."""
+    note = session.row_sample_note
+    if note is None:
+        return []
+    return [f'<p class="notice" id="row-sample">{e(note)}</p>'] + [
+        f'<p class="notice">{e(line)}</p>' for line in session.sample_limits().values()]
+
+
 def _stability(session) -> str:
     st = session.stability
+    if st is None and "stability" in session.sample_limits():
+        return f'<p class="notice">{e(session.sample_limits()["stability"])}</p>'
     if st is None:
         return "<p>No stability check was run (bootstrap count 0).</p>"
     parts = []
@@ -671,6 +695,10 @@ def _command(session) -> str:
         args += ["--relaxed"]
     if s.range_tolerance is not None:
         args += ["--range-tolerance", repr(float(s.range_tolerance))]
+    if session.rows.memory_budget is not None:
+        args += ["--memory-budget", str(int(session.rows.memory_budget))]
+    if session.rows.cluster is not None:
+        args += ["--cluster", session.rows.cluster]
     args += ["--bootstrap", str(session.bootstrap), "-o", "project.regbench"]
     return " ".join(shlex.quote(a) for a in args)
 
