@@ -121,7 +121,8 @@ def save_project(session, path) -> None:
     table_bytes = table_to_parquet(session.table)
     members.append((TABLE, table_bytes, zipfile.ZIP_STORED))
     members.append((SESSION, _dumps(session_document(session)), zipfile.ZIP_DEFLATED))
-    members.extend(_results_members(session) if session.results is not None else [])
+    # A table read in batches is fitted again from its file on opening (the cache would need every row).
+    members.extend(_results_members(session) if session.results is not None and session.source is None else [])
     saved = _now()
     manifest = {
         "format": FORMAT_NAME,
