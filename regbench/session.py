@@ -118,8 +118,10 @@ class ComputedResults:
     stability_alphas: Dict[str, float] = field(default_factory=dict)
     #: Calibration and discrimination of a yes/no outcome's probabilities; None for a numeric target.
     classification: Optional[Classification] = None
-    #: The streamed pass that produced ``results`` (a table read in batches), else None.
+    #: The streamed pass that produced ``results`` (a table read in batches), else None, and its row
+    #: sample as a Table (built on the worker thread: typing the rows is not GUI-thread work).
     streamed: object = None
+    sample: Optional[Table] = None
 
 
 @dataclass(frozen=True)
@@ -279,10 +281,11 @@ class Session:
         from pathlib import Path
 
         source = str(Path(path).resolve())
-        session = cls(sample_table(streamed.design, source), roles, settings, design=streamed.design)
+        table = sample_table(streamed.design, source, _sample_sentence(streamed))
+        session = cls(table, roles, settings, design=streamed.design)
         session.source = source
         session._state = replace(session._state, rows=check_rows(rows or RowSource()))
-        session._install_pass(streamed)
+        session._install_pass(streamed, table)
         session.results = streamed.results
         if state is not None:
             session._install_loaded(state, results=streamed.results, design=streamed.design)
@@ -360,10 +363,7 @@ class Session:
     @property
     def row_sample_note(self) -> Optional[str]:
         """One sentence on which rows the row-level views use (a table read in batches), else None."""
-        st = self.streamed
-        if st is None:
-            return None
-        return row_sample_sentence(st.design.n, st.rows_used, st.results.settings.seed, st.sampled, st.route)
+        return None if self.streamed is None else _sample_sentence(self.streamed)
 
     def sample_limits(self) -> dict:
         """What cannot be shown on a row sample, one line each ('heldout', 'stability'); empty otherwise."""
@@ -701,12 +701,13 @@ class Session:
         fit_key = self.fit_key(state)
         key = self.key(state) if n_boot == state.bootstrap else _digest({"base": self.key(state), "boot": n_boot})
         total = 3 if n_boot else 2  # fit, compare (agreement, structure, stress), stability
-        streamed, sampled = None, self.sampled
+        streamed, sampled, sample = None, self.sampled, None
         if (table_results is None or refit) and self.source is not None:
             report(progress, 0, total * 100, "one pass over the rows of the table, read in batches")
             streamed = run_pass(self.source, state.roles, state.settings, state.rows,
                                 progress=_within(progress, 0, total), cancel=cancel)
             design, results, sampled = streamed.design, streamed.results, streamed.sampled
+            sample = sample_table(design, self.source, _sample_sentence(streamed))
         elif table_results is None or refit:
             report(progress, 0, total * 100, "fitting the models")
             results = engine.fit_all(design, state.settings, progress=_within(progress, 0, total), cancel=cancel)
@@ -727,7 +728,7 @@ class Session:
         report(progress, total * 100, total * 100, "done")
         return ComputedResults(fit_key=fit_key, key=key, results=results, stability=stability,
                                stability_alphas=alphas if stability is not None else {}, streamed=streamed,
-                               **derived)
+                               sample=sample, **derived)
 
     def apply_results(self, computed: ComputedResults) -> bool:
         """Install what :meth:`compute_results` produced (GUI thread).
@@ -739,7 +740,7 @@ class Session:
         if computed.fit_key != self.fit_key():
             return False
         if computed.streamed is not None:
-            self._install_pass(computed.streamed)
+            self._install_pass(computed.streamed, computed.sample)
         self.results = computed.results
         if computed.key == self.key() or computed.stability_alphas == _alphas_of(computed.results, self._state):
             self.stability = computed.stability
@@ -872,11 +873,12 @@ class Session:
         """Calibration and discrimination of every model (a yes/no outcome), else None."""
         return self._derived().get("classification")
 
-    def _install_pass(self, streamed) -> None:
+    def _install_pass(self, streamed, table: Optional[Table] = None) -> None:
         """Take the design and row sample of a pass over a table read in batches."""
         self.streamed = streamed
         self.design = streamed.design
-        self.table = sample_table(streamed.design, self.source, self.row_sample_note or "")
+        self.table = table if table is not None else sample_table(streamed.design, self.source,
+                                                                  _sample_sentence(streamed))
         self._columns_table_for = None
 
     # -- used by the project layer --------------------------------------------------------
@@ -933,6 +935,12 @@ class Session:
         self._cache = dict(derived or {})
         self._undo.clear()
         self.dirty = False
+
+
+def _sample_sentence(streamed) -> str:
+    """The one sentence on which rows a pass over a table read in batches left for the row-level views."""
+    return row_sample_sentence(streamed.design.n, streamed.rows_used, streamed.results.settings.seed,
+                               streamed.sampled, streamed.route)
 
 
 def _within(progress, step: int, total: int):

@@ -21,12 +21,15 @@ from regbench.gui.panels.paths import PathsPanel
 from regbench.gui.panels.ranges import RangesPanel
 from regbench.gui.panels.stability import StabilityPanel
 from regbench.gui.panels.stress import StressPanel
+from regbench.gui.rowsettings import ask_rows, open_in_batches, reads_in_batches
 from regbench.gui.roles import TARGET_RULE, QuestionBar, RoleDraft, can_explain, default_roles, openable_roles
 from regbench.gui.style import STYLESHEET, configure_pyqtgraph
 from regbench.gui.tables import view_to_tsv
 from regbench.gui.worker import Runner
 from regbench.models.results import FitSettings
+from regbench.models.spec import RowSource
 from regbench import project
+from regbench.batches import budget_words
 from regbench.report import render_report
 from regbench.session import Session
 
@@ -121,6 +124,8 @@ class MainWindow(QtWidgets.QMainWindow):
         self._stale: set = set()
         self._refresh_pending = False
         self.draft = RoleDraft(self)
+        #: Memory budget and cluster for tables opened from now on (Edit ▸ Reading the rows…).
+        self.row_source = RowSource()
         self._build_central()
         self._build_status()
         self._build_menus()
@@ -235,6 +240,7 @@ class MainWindow(QtWidgets.QMainWindow):
         self.act_copy = self._action(e, "Copy table", self.copy_table, K.StandardKey.Copy)
         e.addSeparator()
         self.act_refit = self._action(e, "Refit", lambda: self.refit(force=True), "Ctrl+R")
+        self.act_rows = self._action(e, "Reading the rows…", self.row_settings_dialog)
         v = self.view_menu = mb.addMenu("&View")
         for i, panel in enumerate(self.panels):
             # Ctrl+1 … Ctrl+9, then Ctrl+0 for the tenth panel.
@@ -384,6 +390,9 @@ class MainWindow(QtWidgets.QMainWindow):
         if not confirmed and not self._confirm_discard():
             return
         ext = os.path.splitext(path)[1].lower()
+        if ext != PROJECT_EXT and reads_in_batches(path, self.row_source):
+            self.open_in_batches(path, roles)
+            return
         if ext == PROJECT_EXT:
             def work(progress, cancel):
                 progress(0, 1, f"reading {os.path.basename(path)}")
@@ -437,6 +446,34 @@ class MainWindow(QtWidgets.QMainWindow):
             self.show_error("Cannot open the table", exc)
 
         self.runner.start(work, label=f"Reading {os.path.basename(path)}", slot="open", done=opened, failed=failed)
+
+    def open_in_batches(self, path: str, roles=None) -> None:
+        """Open a table beyond the memory budget (or on a cluster): the one pass runs on the worker with
+        progress and cancel; the session holds a seeded sample of rows and says so."""
+        rows = self.row_source
+
+        def opened(session):
+            self.adopt(session, path=None, dirty=True, fit=False)
+            self.show_panel("data")
+            self.set_status(session.row_sample_note + " Change the roles in the sentence above and press Fit "
+                            "to read the rows again with them.")
+
+        self.runner.start(lambda progress, cancel: open_in_batches(path, rows, roles, progress, cancel),
+                          label=f"Reading {os.path.basename(path)} in batches", slot="open", done=opened,
+                          failed=lambda exc: self.show_error("Cannot read the table", exc),
+                          cancelled=lambda: self.set_status("Reading cancelled; nothing was changed."))
+
+    def row_settings_dialog(self) -> None:
+        rows = ask_rows(self, self.session.rows if self.session is not None else self.row_source)
+        if rows is not None:
+            self.set_row_source(rows)
+
+    def set_row_source(self, rows: RowSource) -> None:
+        """Use ``rows`` for tables opened from now on and keep it in the open project."""
+        self.row_source = rows
+        if self.session is not None and rows != self.session.rows:
+            self.session.set_rows(rows)
+        self.set_status("Reading the rows: " + (budget_words(rows) or "no memory limit, on this computer") + ".")
 
     def ask_encoding(self, name: str) -> Optional[str]:
         """Ask which text encoding a file that is not UTF-8 uses; None when the person cancels."""

@@ -164,6 +164,11 @@ class DataPanel(Panel):
             return
         s = [f"{n:,} rows and {len(table.names)} columns were read from {table.source or 'the table'}; "
              f"{design.n:,} rows enter the fit with {design.p} design columns."]
+        if getattr(session, "row_sample_note", None):
+            # A table read in batches: the rows shown are the pass's seeded sample, and the window says so.
+            shown = "a seeded sample of its rows" if session.sampled else "every usable row"
+            s = [session.row_sample_note, f"The table below shows {shown} ({n:,}), with each row's number in the "
+                                          "file."] + list(session.sample_limits().values())
         if excluded:
             first = excluded[0]
             s.append(f"{len(excluded)} row{'s were' if len(excluded) != 1 else ' was'} left out "

@@ -1,0 +1,126 @@
+"""The window on a table beyond memory: the "Reading the rows" settings and the streamed open (pytest-qt, offscreen).
+
+Source for the numbers: the streamed route of this package, which tests/test_stream.py and
+tests/test_session_batches.py check against the in-memory route to 1e-9.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+_HOME = tempfile.mkdtemp(prefix="regbench-gui-rows-test-")
+os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
+os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
+os.environ["HOME"] = _HOME
+
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+import pytest  # noqa: E402
+
+pytest.importorskip("pytestqt")
+from PySide6 import QtCore, QtWidgets  # noqa: E402
+
+from regbench.models.spec import RowSource  # noqa: E402
+
+pytestmark = pytest.mark.gui
+QtCore.QStandardPaths.setTestModeEnabled(True)
+
+
+def make_window(qtbot):
+    from regbench.gui.window import MainWindow
+
+    w = MainWindow(autosave=False)
+    w.ask_unsaved = lambda: "discard"
+    qtbot.addWidget(w)
+    w.resize(1400, 900)
+    w.show()
+    return w
+
+
+def wait_idle(qtbot, w, timeout=120_000):
+    qtbot.waitUntil(lambda: not w.runner.busy(), timeout=timeout)
+    QtWidgets.QApplication.processEvents()
+
+
+def test_the_settings_dialog_checks_what_it_is_given(qtbot):
+    from regbench.gui.rowsettings import RowSettingsDialog
+
+    d = RowSettingsDialog(RowSource(memory_budget=5 * 10**8, cluster="local"))
+    qtbot.addWidget(d)
+    assert d.memory.text() == "500MB" and d.where.currentText() == "a local cluster"
+    assert not d.address.isEnabled()
+    d.where.setCurrentIndex(2)
+    assert d.address.isEnabled()
+    d.address.setText("tcp://127.0.0.1:8786")
+    d.memory.setText("2GB")
+    assert d.values() == RowSource(memory_budget=2 * 10**9, cluster="tcp://127.0.0.1:8786")
+    # A bad address or size: one line under the fields, and the dialog stays open.
+    d.address.setText("somewhere")
+    d.accept()
+    assert "Where to run: 'somewhere' is not 'local' or a scheduler address" in d.problem.text()
+    assert d.result() != QtWidgets.QDialog.DialogCode.Accepted
+    d.address.setText("tcp://127.0.0.1:8786")
+    d.memory.setText("plenty")
+    d.accept()
+    assert "Memory for rows: 'plenty' is not a size" in d.problem.text()
+    d.memory.setText("")
+    d.where.setCurrentIndex(0)
+    d.accept()
+    assert d.chosen == RowSource()
+
+
+def test_the_window_reads_a_table_beyond_the_budget_in_batches_and_says_so(qtbot, tmp_path):
+    rng = np.random.default_rng(4)
+    n = 24_000
+    f = pd.DataFrame({f"x{j}": rng.normal(size=n) + j for j in range(6)})
+    f["site"] = [f"s{v:02d}" for v in rng.integers(0, 9, n)]
+    f["y"] = f["x0"] - 0.5 * f["x1"] + rng.normal(size=n)
+    path = tmp_path / "big.parquet"
+    f.to_parquet(path, index=False, row_group_size=5000)
+    w = make_window(qtbot)
+    w.set_row_source(RowSource(memory_budget=10**6))
+    assert "memory for rows 1 MB" in w.status_label.text()
+    w.open_path(str(path), confirmed=True)
+    wait_idle(qtbot, w)
+    s = w.session
+    # The pass ran on the worker: every row fitted, a seeded sample of 20,000 at hand, and said so.
+    assert s is not None and s.source == str(path.resolve()) and s.sampled
+    assert s.streamed.rows_used == n and s.design.n == 20_000 and s.rows == RowSource(memory_budget=10**6)
+    assert s.roles.target == "y" and "site" not in s.design.columns  # text is not an input on this route
+    data = w.panel("data")
+    w.show_panel("data")
+    w.refresh_everything()
+    said = data.sentences.text()
+    assert "seeded sample of 20,000" in said and "every fitted number uses all 24,000" in said
+    assert "Held-out predictions are not shown" in said
+    assert w.panel("data").frame_model.rowCount() == 20_000
+    # The comparisons follow on the worker; the project keeps the budget and refers to the file.
+    wait_idle(qtbot, w)
+    assert s.derived_ready and s.heldout() == {}
+    out = tmp_path / "p.regbench"
+    assert w.save_to(str(out))
+    from regbench.project.store import session_document
+
+    assert session_document(s)["table_file"]["path"] == str(path.resolve())
+    w.dirty = False
+    w.runner.cancel_all()
+    w.close()
+
+
+def test_the_row_settings_go_into_the_open_project(qtbot, tmp_path):
+    from regbench.data.reader import table_from_frame
+    from regbench.data import Roles
+    from regbench.session import Session
+
+    rng = np.random.default_rng(0)
+    t = table_from_frame(pd.DataFrame({"a": rng.normal(size=40), "b": rng.normal(size=40), "y": rng.normal(size=40)}))
+    w = make_window(qtbot)
+    w.adopt(Session.from_table(t, Roles(target="y")), fit=False)
+    w.set_row_source(RowSource(memory_budget=2 * 10**9, cluster="local"))
+    assert w.session.rows == RowSource(2 * 10**9, "local") and w.session.dirty
+    w.undo()
+    assert w.session.rows == RowSource()
+    w.dirty = False
+    w.close()
