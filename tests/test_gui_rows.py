@@ -124,3 +124,16 @@ def test_the_row_settings_go_into_the_open_project(qtbot, tmp_path):
     assert w.session.rows == RowSource()
     w.dirty = False
     w.close()
+
+
+def test_the_readme_names_the_windows_own_words_for_the_row_settings(qtbot):
+    import pathlib
+
+    from regbench.gui.rowsettings import WHERE
+
+    w = make_window(qtbot)
+    readme = (pathlib.Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    section = readme.split("## Tables beyond memory and clusters", 1)[1].split("\n## ", 1)[0]
+    assert f"Edit ▸ {w.act_rows.text()}" in section
+    assert all(words.rstrip("…") in section for words, _ in WHERE)
+    w.close()

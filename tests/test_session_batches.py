@@ -325,3 +325,27 @@ def test_the_report_says_which_rows_the_row_level_views_use(tmp_path):
     assert "1495 of the table" in html  # rows used over the whole table, not the sample
     assert "Stability is not computed" in html and "Held-out predictions are not shown" in html
     assert "--memory-budget 1000000" in html and "memory for rows 1 MB" in html
+
+
+@pytest.mark.timeout(240)
+def test_the_readme_way_to_a_cluster_runs_a_session_on_a_local_cluster(tmp_path):
+    """README's "Tables beyond memory and clusters": the flag and the window's setting it names, and a
+    session whose cluster is 'local' (a Dask cluster started on this machine, loopback only)."""
+    pytest.importorskip("dask.distributed")
+    import pathlib
+    import re
+
+    readme = (pathlib.Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    section = readme.split("## Tables beyond memory and clusters", 1)[1].split("\n## ", 1)[0]
+    assert "--cluster local" in section and re.search(r"--cluster tcp://HOST:\d+", section)
+    assert "Edit ▸ Reading the rows…" in section and "*Where to run*" in section and "*Memory for rows*" in section
+    f = _frame(n=1500, seed=1)
+    path = tmp_path / "t.parquet"
+    f.to_parquet(path, index=False, row_group_size=400)
+    roles = Roles(target="y", weights="w", groups="site")
+    settings = FitSettings(folds=4, seed=3)
+    s = Session.from_batches(path, roles, settings, RowSource(cluster="local"))
+    assert s.streamed.route == "cluster" and "on a Dask cluster" in s.row_sample_note
+    mem = Session(read_table(path), roles, settings)
+    mem.compute(bootstrap=0)
+    _close(mem.results, s.results, "results")  # source: the in-memory session
