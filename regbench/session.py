@@ -33,7 +33,7 @@ from regbench.analysis.ranges import Ranges, compute_ranges
 from regbench.analysis.stability import Stability, bootstrap_stability
 from regbench.analysis.stress import StressConfig, StressResult, StressSweep, resolve_column, run_stress, stress_sweep
 from regbench.analysis.structure import Structure, compare_structure
-from regbench.batches import check_rows, file_fingerprint, needs_batches, run_pass, sample_table
+from regbench.batches import check_rows, file_fingerprint, run_pass, sample_table
 from regbench.data.derive import apply_derived, make_derived
 from regbench.data.design import Roles, build_design
 from regbench.data.reader import read_table
@@ -432,11 +432,13 @@ class Session:
     # -- edits ----------------------------------------------------------------------------
 
     def _snapshot(self):
+        # The row sample (table and pass) goes with the design: a table read in batches changes both.
         return (self._state, self.design, self.results, self.stability, dict(self.stability_alphas),
-                dict(self._cache))
+                dict(self._cache), self.table, self.streamed)
 
     def _restore(self, snap) -> None:
-        (self._state, self.design, self.results, self.stability, self.stability_alphas, self._cache) = snap
+        (self._state, self.design, self.results, self.stability, self.stability_alphas, self._cache,
+         self.table, self.streamed) = snap
 
     def _edit(self, tag, new_state: SessionState, event: str, detail=None, coalesce: bool = False) -> None:
         if new_state == self._state:
