@@ -391,6 +391,10 @@ def inspect_text(info: dict) -> str:
         f"table        {show(rows)} rows × {show(cols)} columns, sha256 {show(info['table_sha256'])[:16]}…",
         f"hash check   {info['hash_check']}",
     ]
+    tf = info.get("table_file")
+    if isinstance(tf, dict):
+        lines.insert(-1, f"rows from    {show(tf.get('path'))} ({show(tf.get('rows_used'))} usable rows; the table "
+                         f"above is {'a seeded sample of them' if tf.get('sampled') else 'every one of them'})")
     roles = info.get("roles")
     if isinstance(roles, dict) and roles:
         preds = roles.get("predictors")

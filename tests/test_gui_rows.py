@@ -104,6 +104,14 @@ def test_the_window_reads_a_table_beyond_the_budget_in_batches_and_says_so(qtbot
     from regbench.project.store import session_document
 
     assert session_document(s)["table_file"]["path"] == str(path.resolve())
+    # Reopening the project reads the file again on the worker and says so the same way.
+    w.open_path(str(out), confirmed=True)
+    wait_idle(qtbot, w)
+    assert w.errors == [] and w.session is not s
+    assert w.session.source == str(path.resolve()) and w.session.sampled
+    assert w.session.rows == RowSource(memory_budget=10**6)
+    w.refresh_everything()
+    assert "seeded sample of 20,000" in w.panel("data").sentences.text()
     w.dirty = False
     w.runner.cancel_all()
     w.close()

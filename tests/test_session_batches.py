@@ -189,7 +189,12 @@ def test_new_on_a_table_beyond_the_budget_writes_a_project_that_reads_the_file_a
     assert main(["new", *base, "--memory-budget", "1MB", "--bootstrap", "10", "-o", str(out)]) == 0
     said = capsys.readouterr().out
     assert "3000 rows used" in said and "refers to" in said and "every one of its 3,000 usable rows" in said
-    assert inspect_project(out)["table_rows"] == 3000
+    info = inspect_project(out)
+    assert info["table_rows"] == 3000 and info["table_file"]["path"] == str(big.resolve())
+    assert info["rows"] == {"memory_budget": 10**6, "cluster": None}
+    from regbench.sentences import inspect_text
+
+    assert f"rows from    {big.resolve()} (3000 usable rows; the table above is every one of them)" in inspect_text(info)
     s = load_project(out)
     assert s.source == str(big.resolve()) and s.rows == RowSource(memory_budget=10**6)
     assert s.cache_note is None and not s.dirty
@@ -349,3 +354,19 @@ def test_the_readme_way_to_a_cluster_runs_a_session_on_a_local_cluster(tmp_path)
     mem = Session(read_table(path), roles, settings)
     mem.compute(bootstrap=0)
     _close(mem.results, s.results, "results")  # source: the in-memory session
+
+
+def test_row_numbers_of_a_table_read_in_batches_are_the_files_own(tmp_path):
+    """Row groups of 5,000 rows read in batches of 4,096 (a 1 MB budget): every sampled and excluded row
+    keeps its row number in the file (source: the in-memory route's row numbers)."""
+    from regbench.data.stream import stream_fit
+
+    f = _frame(n=12_000, seed=2)
+    path = tmp_path / "t.parquet"
+    f.to_parquet(path, index=False, row_group_size=5000)
+    roles = Roles(target="y", weights="w", predictors=tuple(f"x{j}" for j in range(8)))
+    s = stream_fit(path, roles, FitSettings(), memory_budget=10**6, sample_rows=20_000)
+    mem = Session(read_table(path), roles, FitSettings())
+    np.testing.assert_array_equal(s.design.row_numbers, mem.design.row_numbers)
+    assert [e.row for e in s.design.excluded] == [e.row for e in mem.design.excluded]
+    np.testing.assert_array_equal(s.design.X, mem.design.X)

@@ -449,7 +449,8 @@ def _keep_mask(b: dict, plan: Plan, first_row: int, info: Optional[RowsInfo]):
 
 
 def _part_first_row(part: Part, offset: int) -> int:
-    return part.first_row if part.kind == "parquet" else offset
+    """0-based table row of the first row of a batch that starts ``offset`` rows into ``part``."""
+    return part.first_row + offset
 
 
 def _batches(part: Part, plan: Plan):

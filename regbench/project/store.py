@@ -929,6 +929,10 @@ def inspect_project(path) -> dict:
             "cached_results": RESULTS in m["_members"],
             "cached_arrays": sum(1 for n in m["_members"] if n.startswith(RESULTS_DIR)),
         }
+        # A table read in batches: where its rows are, and the memory budget and cluster (present when set).
+        for key in ("table_file", "rows"):
+            if key in doc:
+                info[key] = doc[key]
     finally:
         ar.close()
     return info
