@@ -42,6 +42,21 @@ def run_pass(path, roles, settings, rows: RowSource, progress=None, cancel=None)
     return stream_fit(path, roles, settings, memory_budget=rows.memory_budget, progress=progress, cancel=cancel)
 
 
+def check_roles(path, roles) -> None:
+    """The cheap checks of ``roles`` against a table read in batches (its schema only, no rows read):
+    every named column exists and the outcome is not yes/no.  The pass refuses the rest in one line."""
+    from regbench.data.stream import table_columns
+
+    names = set(table_columns(path))
+    made = {d.name for d in getattr(roles, "derived", ())}
+    for col in (roles.target, roles.weights, roles.groups, *roles.predictors, *roles.categorical):
+        if col is not None and col not in names and col not in made:
+            raise DataError(f"{path}: no column '{col}'; columns are: {', '.join(sorted(names))}")
+    if roles.outcome == "binary" or roles.no_count is not None:
+        raise DataError(f"{path}: yes/no outcomes are fitted with the rows in memory, not on the streamed or cluster "
+                        "route; read the table in memory (a larger memory budget, no cluster)")
+
+
 def file_fingerprint(path) -> str:
     """SHA-256 over the resolved path, size and modification time of the table's file(s).
 
@@ -60,22 +75,30 @@ def file_fingerprint(path) -> str:
 
 
 def sample_table(design, source: str, note: str = ""):
-    """The rows a streamed fit kept (its seeded sample) as a Table: target, predictors, weights, groups.
+    """The rows a streamed fit kept (its seeded sample) as a Table of the file's own columns: target,
+    predictors (a text column's words back from its level indicators), weights and groups.
 
-    Row numbers are the table's own (``Table.line_numbers``), so a row named on
-    screen is the row of the file.
+    Derived columns are left out: they are derived from these columns like any table's.  Row
+    numbers are the table's own (``Table.line_numbers``), so a row named on screen is the file's row.
     """
     import numpy as np
     import pandas as pd
 
     from regbench.data.reader import table_from_frame
 
+    derived = {getattr(d, "name", d) for d in getattr(design, "derived", ())}
+    coded = {col: (ref, cols) for col, ref, cols in getattr(design, "reference_levels", ())}
     cols = {design.target: design.y}
-    for j, c in enumerate(design.columns):
-        cols[c] = design.X[:, j]
-    if design.weights_column:
+    for src in dict.fromkeys(design.sources):
+        if src in derived or src in cols:
+            continue
+        if src in coded:
+            cols[src] = _level_words(design, src, *coded[src])
+        elif src in design.columns:
+            cols[src] = design.X[:, design.columns.index(src)]
+    if design.weights_column and design.weights_column not in cols:
         cols[design.weights_column] = design.weights
-    if design.groups_column and design.groups is not None:
+    if design.groups_column and design.groups is not None and design.groups_column not in cols:
         labels = np.asarray(design.group_labels, dtype=object)
         cols[design.groups_column] = labels[design.groups] if len(design.groups) else np.array([], dtype=object)
     table = table_from_frame(pd.DataFrame(cols), source=str(source))
@@ -83,6 +106,18 @@ def sample_table(design, source: str, note: str = ""):
 
     return replace(table, line_numbers=tuple(int(r) for r in design.row_numbers),
                    notes=tuple(table.notes) + ((note,) if note else ()))
+
+
+def _level_words(design, column: str, reference: str, level_columns):
+    """Each row's level of a coded text column: the level whose indicator is 1, else the reference level."""
+    import numpy as np
+
+    out = np.full(design.n, reference, dtype=object)
+    prefix = f"{column}="
+    for c in level_columns:
+        on = design.X[:, design.columns.index(c)] == 1.0
+        out[on] = c[len(prefix):] if c.startswith(prefix) else c
+    return out
 
 
 def check_rows(rows) -> RowSource:

@@ -33,7 +33,7 @@ from regbench.analysis.ranges import Ranges, compute_ranges
 from regbench.analysis.stability import Stability, bootstrap_stability
 from regbench.analysis.stress import StressConfig, StressResult, StressSweep, resolve_column, run_stress, stress_sweep
 from regbench.analysis.structure import Structure, compare_structure
-from regbench.batches import check_rows, file_fingerprint, run_pass, sample_table
+from regbench.batches import check_roles, check_rows, file_fingerprint, run_pass, sample_table
 from regbench.data.derive import apply_derived, make_derived
 from regbench.data.design import Roles, build_design
 from regbench.data.reader import read_table
@@ -490,9 +490,7 @@ class Session:
         """
         if self.source is None:
             return build_design(self.table, roles)
-        from regbench.data.stream import plan_for
-
-        plan_for(self.source, roles, self.rows.memory_budget)
+        check_roles(self.source, roles)  # the schema only: the pass itself runs on a worker
         return self.design
 
     def set_rows(self, rows) -> None:

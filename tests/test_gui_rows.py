@@ -88,7 +88,7 @@ def test_the_window_reads_a_table_beyond_the_budget_in_batches_and_says_so(qtbot
     # The pass ran on the worker: every row fitted, a seeded sample of 20,000 at hand, and said so.
     assert s is not None and s.source == str(path.resolve()) and s.sampled
     assert s.streamed.rows_used == n and s.design.n == 20_000 and s.rows == RowSource(memory_budget=10**6)
-    assert s.roles.target == "y" and "site" not in s.design.columns  # text is not an input on this route
+    assert s.roles.target == "y" and "site" in s.design.sources  # a text input, coded as in memory
     data = w.panel("data")
     w.show_panel("data")
     w.refresh_everything()

@@ -370,3 +370,59 @@ def test_row_numbers_of_a_table_read_in_batches_are_the_files_own(tmp_path):
     np.testing.assert_array_equal(s.design.row_numbers, mem.design.row_numbers)
     assert [e.row for e in s.design.excluded] == [e.row for e in mem.design.excluded]
     np.testing.assert_array_equal(s.design.X, mem.design.X)
+
+
+def test_text_predictors_and_derived_columns_on_a_table_read_in_batches(tmp_path):
+    """A text predictor and a derived column through the session, the project file and back
+    (source: the same session in memory)."""
+    from regbench.cli import main
+    from regbench.data.derive import make_derived
+    from regbench.project import load_project
+
+    f = _frame(n=3000, seed=1, missing=False)  # about 1.6 MB in memory: beyond a 1 MB budget
+    f["x0"] = f["x0"].abs() + 1.0
+    path = tmp_path / "t.parquet"
+    f.to_parquet(path, index=False, row_group_size=400)
+    log = make_derived("log", ("x0",))
+    roles = Roles(target="y", weights="w", predictors=("x0", "x1", "x2", "site", log.name), derived=(log,))
+    settings = FitSettings(folds=4, seed=3)
+    mem = Session(read_table(path), roles, settings)
+    mem.compute(bootstrap=0)
+    st = Session.from_batches(path, roles, settings, RowSource(memory_budget=10**6))
+    st.compute(bootstrap=0)
+    assert st.design.columns == mem.design.columns
+    # Variance-decomposition proportions of near-equal eigenvalues (the indicators of levels of similar
+    # size) rotate with round-off; the condition indices themselves are compared.
+    SIGN_FREE.add("variance_proportions")
+    try:
+        _close(mem.results, st.results, "results")
+    finally:
+        SIGN_FREE.discard("variance_proportions")
+    _close(mem.agreement(), st.agreement(), "agreement")
+    # The row sample as a table holds the file's own columns: the text column's words, the source of the
+    # derived column (re-derived from it like any table column).
+    assert list(st.table.frame["site"][:5]) == list(f["site"][:5])
+    assert st.columns_table.names[-1] == log.name
+    out = tmp_path / "p.regbench"
+    base = [str(path), "--target", "y", "--weights", "w", "--predictors", "x0,x1,x2,site", "--derive", "log:x0",
+            "--folds", "4", "--seed", "3", "--bootstrap", "0"]
+    assert main(["new", *base, "--memory-budget", "1MB", "-o", str(out)]) == 0
+    back = load_project(out)
+    assert back.source == str(path.resolve()) and back.design.columns == mem.design.columns
+    _close(mem.results.ols, back.results.ols, "ols")
+
+
+def test_new_roles_on_a_table_read_in_batches_take_effect_at_the_next_pass(pair):
+    path, _, st = pair
+    s = Session.from_batches(path, st.roles, st.settings, RowSource(memory_budget=10**6))
+    with pytest.raises(DataError, match="no column 'nope'"):
+        s.set_roles(Roles(target="nope", weights="w", groups="site"))
+    roles = Roles(target="y", weights="w", groups="site", predictors=("x0", "x1", "x3"))
+    s.set_roles(roles)
+    assert s.results is None
+    s.compute(bootstrap=0)
+    assert s.design.columns == ("x0", "x1", "x3") and tuple(s.table.names) == ("y", "x0", "x1", "x3", "w", "site")
+    ref = Session(read_table(path), roles, st.settings)
+    ref.compute(bootstrap=0)
+    _close(ref.results.ols, s.results.ols, "ols")  # source: the same roles in memory
+    assert s.undo() and s.design.columns == st.design.columns and "x2" in s.table.names

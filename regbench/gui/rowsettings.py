@@ -119,7 +119,7 @@ def reads_in_batches(path: str, rows: Optional[RowSource]) -> bool:
 
 def starting_roles(path: str):
     """Roles to start from on a table read in batches: the window's rule (:data:`~regbench.gui.roles.TARGET_RULE`)
-    applied to its first rows, the inputs limited to columns of numbers (the pass codes no text)."""
+    applied to its first rows, the inputs those the first rows' design uses."""
     import pyarrow.parquet as pq
 
     from regbench.data.design import build_design
@@ -139,15 +139,14 @@ def starting_roles(path: str):
         frame = pd.read_csv(p, nrows=HEAD_ROWS)
     head = table_from_frame(frame, source=p)
     start = default_roles(head)
-    numeric = ("numeric", "boolean")
     try:
         sources = dict.fromkeys(build_design(head, start).sources)
     except RegbenchError:
         sources = dict.fromkeys(start.predictors)
-    preds = tuple(c for c in sources if head.columns[c].kind in numeric and c != start.target)
+    preds = tuple(c for c in sources if c != start.target)
     if not preds:
-        raise DataError(f"{os.path.basename(p)}: no column of numbers to use as an input besides "
-                        f"'{start.target}'; a table read in batches needs columns of numbers")
+        raise DataError(f"{os.path.basename(p)}: no column to use as an input besides '{start.target}' in its "
+                        "first rows; open a table with columns to explain it from")
     from dataclasses import replace
 
     return replace(start, predictors=preds)
