@@ -46,6 +46,7 @@ REDRAWS = {
     "notes": (),
     "view_state": (),
     "saved": (),
+    "rows": (),   # the memory budget and cluster apply to the next pass; nothing on screen changes
     "alpha": ("paths", "stability", "comparisons"),
     "extra_fits": ("paths", "comparisons"),
     "stress": ("stress",),
