@@ -145,3 +145,21 @@ def test_the_readme_names_the_windows_own_words_for_the_row_settings(qtbot):
     assert f"Edit ▸ {w.act_rows.text()}" in section
     assert all(words.rstrip("…") in section for words, _ in WHERE)
     w.close()
+
+
+def test_reading_in_batches_can_be_cancelled_and_changes_nothing(qtbot, tmp_path):
+    rng = np.random.default_rng(5)
+    n = 30_000
+    f = pd.DataFrame({f"x{j}": rng.normal(size=n) for j in range(5)})
+    f["y"] = f["x0"] + rng.normal(size=n)
+    path = tmp_path / "big.parquet"
+    f.to_parquet(path, index=False, row_group_size=5000)
+    w = make_window(qtbot)
+    w.set_row_source(RowSource(memory_budget=10**6))
+    w.open_path(str(path), confirmed=True)
+    # Cancel at once: the pass checks between its steps and stops there (it takes far longer than this call).
+    w.cancel_work()
+    wait_idle(qtbot, w)
+    assert w.session is None and w.errors == []
+    assert "Reading cancelled; nothing was changed." in w.status_label.text()
+    w.close()
