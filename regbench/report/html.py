@@ -563,8 +563,9 @@ def _rows_notice(session) -> list:
     note = session.row_sample_note
     if note is None:
         return []
+    # Stability's line stands in its own section.
     return [f'<p class="notice" id="row-sample">{e(note)}</p>'] + [
-        f'<p class="notice">{e(line)}</p>' for line in session.sample_limits().values()]
+        f'<p class="notice">{e(line)}</p>' for k, line in session.sample_limits().items() if k != "stability"]
 
 
 def _stability(session) -> str:
