@@ -371,6 +371,7 @@ def cmd_fit(args) -> int:
         if args.json:
             out = fit_to_json(design, results)
             out.update(streamed.notes())
+            out["rows"] = {"memory_budget": route[0], "cluster": route[1]}
             write_json(out, args.json)
         else:
             note = streamed.notes()["row_sample"]["note"]

@@ -171,6 +171,7 @@ def test_cli_fit_streams_beyond_the_budget_and_says_so(tmp_path, capsys):
     # Source: the in-memory route's JSON; the streamed one adds the route and the row sample.
     assert s["route"] == "streamed" and s["rows_used"] == m["rows_used"] == 3000
     assert s["row_sample"]["sampled"] is False
+    assert s["rows"] == {"memory_budget": 10**6, "cluster": None}
     for name in ("ols", "ridge", "lasso", "elastic_net"):
         for col, v in m["models"][name]["coefficients"].items():
             assert s["models"][name]["coefficients"][col] == pytest.approx(v, rel=1e-9, abs=1e-12)
