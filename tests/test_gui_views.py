@@ -278,6 +278,10 @@ def test_ranges_name_rows_by_the_tables_identifier(qtbot):
     labels = [t.textItem.toPlainText() for t in panel._strip_labels]
     assert labels and all(t in want[:3] for t in labels)
     assert not any(t.startswith("row ") for t in labels)
+    # The sentence names the widest row both ways: its number and its batch.
+    i = int(np.argmax(np.subtract(*s.ranges().probabilities()[2:0:-1])))
+    row = int(rg.row_numbers[i])
+    assert f"(most on row {row}, batch {batch.iloc[row - 1]})" in panel.sentences.text()
     _close(w)
 
 
@@ -516,4 +520,18 @@ def test_group_numbers_are_listed_in_numeric_order_in_the_window_and_the_report(
     _idle(qtbot, w)
     panel = _show(qtbot, w, "fit")
     assert [str(r[0]) for r in panel.group_model.rows] == want
+    _close(w)
+
+
+def test_the_yes_level_list_shows_every_choice_whole(qtbot):
+    """The box is as wide as the choice shown; the list that drops down is as wide as its longest choice."""
+    w = _window(qtbot)
+    with qtbot.waitSignal(w.session_changed, timeout=TIMEOUT_MS):
+        w.open_path(os.path.join(SAMPLES, "grading.csv"))
+    _idle(qtbot, w)
+    yes = w.question.yes_level
+    texts = [yes.itemText(i) for i in range(yes.count())]
+    assert "('standard' = yes)" in texts and "(as a number)" in texts
+    fm = yes.view().fontMetrics()
+    assert yes.view().minimumWidth() >= max(fm.horizontalAdvance(t) for t in texts)
     _close(w)

@@ -436,6 +436,8 @@ class QuestionBar(QtWidgets.QFrame):
             current = "numeric:" if d.outcome == "numeric" else "binary:" + (d.positive_level or default)
             self.yes_level.setCurrentIndex(max(0, self.yes_level.findData(current)))
             _fit_to_choice(self.yes_level)
+            # The list that drops down shows every choice whole, wider than the box if it must be.
+            self.yes_level.view().setMinimumWidth(self.yes_level.view().sizeHintForColumn(0) + 24)
         self.yes_level.setVisible(bool(levels))
         self.yes_level.blockSignals(False)
 

@@ -12,6 +12,8 @@ strip shows probabilities.
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pyqtgraph as pg
 from PySide6 import QtCore, QtGui, QtWidgets
@@ -179,7 +181,7 @@ class RangesPanel(Panel):
                   "exactly the extremes over those models; coefficients are on the log-odds scale."
                   if rg.approximation == "quadratic" else "")
         self.in_force.setText(f"In force ({which}): {rg.tolerance_note}.{approx}")
-        self.set_sentences(list(rg.sentences[:2]))
+        self.set_sentences([self._name_rows(t) for t in rg.sentences[:2]])
         self.trades.setText("\n".join(t["sentence"] for t in rg.trades) + (
             "\n" + " ".join(rg.sentences[2:]) if len(rg.sentences) > 2 else ""))
         self.trades.setVisible(bool(self.trades.text().strip()))
@@ -311,6 +313,14 @@ class RangesPanel(Panel):
         f = min(0.5, 30.0 / height) if height > 0 else 0.25
         extent = (top - bottom) or 1.0
         self.strip.setYRange(bottom, top + extent * f / (1.0 - f), padding=0.02)  # room for the row names
+
+    def _name_rows(self, text: str) -> str:
+        """Add the table's name of the row a sentence points at ("row 270" → "row 270, batch GH05-030")."""
+        column = self.label_column()
+        if column is None:
+            return text
+        return re.sub(r"\(most on row (\d+)\)",
+                      lambda m: f"(most on row {m.group(1)}, {column} {self.row_names([int(m.group(1))])[0]})", text)
 
     def label_column(self):
         """The table's row-label column (its identifier), or None."""
