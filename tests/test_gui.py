@@ -118,11 +118,13 @@ def test_data_view_over_a_million_rows_is_lazy(qtbot):
 # -- opening, panels, roles ---------------------------------------------------------------
 
 
-def test_sample_fills_every_panel_with_sentences(gh):
+def test_sample_fills_every_panel_with_sentences(gh, qtbot):
     s = gh.session
     for panel in gh.panels:
         gh.show_panel(panel.key)
         gh._refresh_panel(panel)
+        # Numbers a panel needs beyond the session's own come from the worker, then it draws them.
+        qtbot.waitUntil(lambda: not panel._deferred, timeout=10_000)
         assert panel.sentences.text().strip(), panel.key
     assert gh.errors == []
     coef = gh.panel("coefficients").model

@@ -201,6 +201,7 @@ def test_grading_sample_opens_as_a_yes_no_outcome_and_fit_quality_speaks_of_brie
     w.show_panel("fit")
     panel = w.panel("fit")
     w._refresh_panel(panel)
+    qtbot.waitUntil(lambda: not panel._deferred, timeout=TIMEOUT_MS)   # its numbers come from the worker
     m = panel.fit_model
     assert m.headers[1:5] == ["Brier fitted", "Brier held-out", "Brier skill fitted", "Brier skill held-out"]
     q = panel.quality

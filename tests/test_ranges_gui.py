@@ -109,6 +109,7 @@ def test_panel_labels_the_quadratic_approximation_for_a_yes_no_outcome(qtbot):
     w.show_panel("ranges")
     panel = w.panel("ranges")
     w._refresh_panel(panel)
+    panel.flush()   # the plots are drawn a turn after the tables
     core = compute_ranges(s.design, s.results, 0.05, models=s.models())
     assert "Quadratic approximation" in panel.in_force.text() and "log-odds" in panel.in_force.text()
     assert panel.sentences.text().startswith(core.sentences[0][:60])

@@ -90,7 +90,9 @@ class StallLog:
         for _ in range(3):
             self.app.processEvents()
         self.beat.reset()
-        action()
+        # The action arrives through the event loop, as a click or a key press does: the loop
+        # ticks the heartbeat between the action and the drawing steps it leaves for later turns.
+        QtCore.QTimer.singleShot(0, action)
         deadline = time.perf_counter() + timeout_s
         quiet_since = None
         while time.perf_counter() < deadline:

@@ -155,6 +155,10 @@ _GRID_ROLES = frozenset((Qt.DisplayRole, Qt.TextAlignmentRole, Qt.BackgroundRole
 #: Rows (beyond the visible ones) that fitting a column's width looks at: a 100 x 100 grid is sized in
 #: a blink instead of over a second on the GUI thread.
 SIZE_ROWS = 40
+#: Cells measured at most when a view sizes its columns: a wide grid (a 60 x 60 matrix) looks at fewer
+#: rows, never fewer than :data:`SIZE_ROWS_MIN`, so sizing stays a few milliseconds however wide it is.
+SIZE_CELLS = 480
+SIZE_ROWS_MIN = 6
 
 
 #: Tables with at most this many columns are squeezed to the width they are given instead of scrolling
@@ -191,20 +195,23 @@ class FittedTableView(QtWidgets.QTableView):
             return []
         fm = self.fontMetrics()
         n = model.rowCount()
-        rows = set(range(min(n, SIZE_ROWS)))
+        sample = max(SIZE_ROWS_MIN, min(SIZE_ROWS, SIZE_CELLS // max(1, model.columnCount())))
+        rows = set(range(min(n, sample)))
         top = self.rowAt(0)
         if top >= 0:
-            rows.update(range(top, min(n, top + SIZE_ROWS)))
+            rows.update(range(top, min(n, top + sample)))
+        advance = _text_widths(fm)
         style = self.style()
         # The delegate's text margins on both sides, the grid line, and a check box where a cell has one.
         pad = 2 * (style.pixelMetric(QtWidgets.QStyle.PM_FocusFrameHMargin, None, self) + 1) + 2
         check = style.pixelMetric(QtWidgets.QStyle.PM_IndicatorWidth, None, self) + 2 * pad
         widths, self._cells, self._header_lines = [], [], []
+        header_width = _header_widths(h)
         for c in range(model.columnCount()):
             # A header may take two lines when its column is squeezed: the width of its longer half.
             plain = model.plain_header(c) if hasattr(model, "plain_header") else model.headerData(c, Qt.Horizontal)
             plain = "" if plain is None else str(plain)
-            one = h.sectionSizeHint(c)
+            one = header_width(c)
             margin = max(0, one - fm.horizontalAdvance(plain))
             two = max((fm.horizontalAdvance(line) for line in two_lines(plain).split("\n")), default=0) + margin
             self._header_lines.append((one, min(one, two)))
@@ -214,7 +221,7 @@ class FittedTableView(QtWidgets.QTableView):
                 text = model.data(idx, Qt.DisplayRole)
                 extra = check if model.data(idx, Qt.CheckStateRole) is not None else 0
                 if text is not None and text != "":
-                    w = max(w, fm.horizontalAdvance(str(text)) + pad + extra)
+                    w = max(w, advance(str(text)) + pad + extra)
                 elif extra:
                     w = max(w, extra)
             self._cells.append(w)
@@ -266,6 +273,40 @@ def make_view(model: QtCore.QAbstractTableModel, stretch_last: bool = True) -> Q
     view.horizontalHeader().setResizeContentsPrecision(SIZE_ROWS)
     view.setWordWrap(False)
     return view
+
+
+def _text_widths(fm: QtGui.QFontMetrics):
+    """``fm.horizontalAdvance`` remembered per text (a grid repeats many texts: 0, 1, no, …)."""
+    seen: dict = {}
+
+    def advance(text: str) -> int:
+        w = seen.get(text)
+        if w is None:
+            w = seen[text] = fm.horizontalAdvance(text)
+        return w
+
+    return advance
+
+
+def _header_widths(h: QtWidgets.QHeaderView):
+    """A header section's width for its text, like ``h.sectionSizeHint``: Qt's own answer for the
+    longest text, then the same margins around each text's widest line, within the header's least
+    and largest section sizes (Qt asks the model for every role of a section each time, which on a
+    wide table was most of the sizing)."""
+    bold = QtGui.QFont(h.font())
+    bold.setBold(True)   # Qt measures a section's text in bold (room for a highlighted section)
+    model, fm = h.model(), QtGui.QFontMetrics(bold)
+    texts = []
+    for c in range(model.columnCount() if h.orientation() == Qt.Horizontal else model.rowCount()):
+        text = model.headerData(c, h.orientation(), Qt.DisplayRole)
+        texts.append("" if text is None else str(text))
+    lines = [fm.size(0, t).width() for t in texts]   # the widest line, as the style measures it
+    if not texts:
+        return lambda c: h.sectionSizeHint(c)
+    longest = max(range(len(texts)), key=lambda c: lines[c])
+    margin = max(0, h.sectionSizeHint(longest) - lines[longest])
+    low, high = h.minimumSectionSize(), h.maximumSectionSize()
+    return lambda c: min(high, max(low, lines[c] + margin)) if c < len(lines) else h.sectionSizeHint(c)
 
 
 def two_lines(text: str) -> str:

@@ -267,10 +267,13 @@ class MainWindow(QtWidgets.QMainWindow):
         return w if w in self.panels else None
 
     def _show_row(self, row: int) -> None:
-        self.stack.setCurrentIndex(row)
-        p = self.current_panel()
+        # An out-of-date panel is redrawn while still hidden: showing or hiding a widget inside a
+        # visible panel lays out the whole window again at once, and a panel's redraw does that
+        # for each sentence and table it fills, so the window is laid out once instead, as it shows.
+        p = self.panels[row] if 0 <= row < len(self.panels) else None
         if p is not None and p.key in self._stale:
             self._refresh_panel(p)
+        self.stack.setCurrentIndex(row)
 
     def _refresh_panel(self, panel) -> None:
         if self.session is None:
@@ -281,10 +284,32 @@ class MainWindow(QtWidgets.QMainWindow):
             self.request_derived()
             return
         self._stale.discard(panel.key)
+        hidden = self._hide_while_drawing(panel)
         try:
             panel.refresh(self.session)
         except Exception as exc:  # a panel must never take the window down with it
             self.show_error(f"Cannot show {panel.nav}", exc)
+        finally:
+            if hidden:
+                panel.show()
+
+    @staticmethod
+    def _hide_while_drawing(panel) -> bool:
+        """Hide a shown panel for its redraw when nothing in it is in use; True if hidden.
+
+        Every widget a redraw shows or hides inside a visible panel lays out the whole window at
+        once (Qt activates each enclosing layout); hidden, the panel is laid out once when it shows
+        again in the same turn, before anything is painted, so nothing flickers.  A panel that
+        holds the keyboard focus or a pressed mouse button (an α being dragged or stepped) keeps
+        showing: hiding it would take the focus or the drag away.
+        """
+        if not panel.isVisible() or QtWidgets.QApplication.mouseButtons() != Qt.NoButton:
+            return False
+        focus = QtWidgets.QApplication.focusWidget()
+        if focus is not None and (focus is panel or panel.isAncestorOf(focus)):
+            return False
+        panel.hide()
+        return True
 
     def refresh_all(self, now: bool = False) -> None:
         """Mark every panel out of date; the visible one is redrawn (soon, or now)."""

@@ -128,28 +128,50 @@ class AgreementPanel(Panel):
 
     def predictions(self, session, split):
         """(a, b, pred_a, pred_b) for the chosen pair on the chosen rows."""
+        return self._pair_work(session, split)()
+
+    def _pair_work(self, session, split):
+        """What the scatter needs, read from the session here; the products over the rows and the
+        sample are left to the returned function (the worker runs it)."""
         a, b = self.a_box.currentData(), self.b_box.currentData()
         design = session.design
-        if split == "held_out":
-            held = session.heldout()
+        held = session.heldout() if split == "held_out" else {}
+        models = {} if (a in held and b in held) else session.models()
+
+        def work():
             if a in held and b in held:
                 return a, b, np.asarray(held[a]), np.asarray(held[b])
-        models = session.models()
-        return a, b, models[a].predict(design.X), models[b].predict(design.X)
+            return a, b, models[a].predict(design.X), models[b].predict(design.X)
+
+        return work
 
     def _scatter(self, session, split):
-        self.plot.clear()
         a, b = self.a_box.currentData(), self.b_box.currentData()
         if a is None or b is None:
+            self.plot.clear()
             return
-        a, b, pa, pb = self.predictions(session, split)
-        n = pa.size
-        if n > SCATTER_MAX:  # a seeded sample keeps the plot responsive
-            idx = np.random.default_rng(0).choice(n, SCATTER_MAX, replace=False)
-            pa, pb = pa[idx], pb[idx]
+        pair = self._pair_work(session, split)
+
+        def work():
+            a, b, pa, pb = pair()
+            n = pa.size
+            if n > SCATTER_MAX:  # a seeded sample keeps the plot responsive
+                idx = np.random.default_rng(0).choice(n, SCATTER_MAX, replace=False)
+                pa, pb = pa[idx], pb[idx]
+            return a, b, split, np.asarray(pa, float), np.asarray(pb, float)
+
+        self.prepare(self._draw_scatter, (session.key(), a, b, split), work, "Comparing the predictions")
+
+    def _draw_scatter(self, prepared):
+        a, b, split, pa, pb = prepared
+        session = self.session
+        self.plot.clear()
+        if session is None or pa.size == 0:
+            return
         brush = pg.mkColor(model_colour(b))
         brush.setAlpha(150)
-        self.plot.plot(pa, pb, pen=None, symbol="o", symbolSize=5, symbolBrush=brush, symbolPen=None)
+        # One scatter item with one style: pyqtgraph's plot() route with symbols costs several times more.
+        self.plot.addItem(pg.ScatterPlotItem(x=pa, y=pb, size=5, pen=None, brush=brush))
         lo = float(min(pa.min(), pb.min()))
         hi = float(max(pa.max(), pb.max()))
         self.plot.plot([lo, hi], [lo, hi], pen=pg.mkPen(PALETTE["muted"], style=Qt.DashLine))

@@ -24,6 +24,8 @@ class Panel(QtWidgets.QWidget):
     def __init__(self, window, parent=None):
         super().__init__(parent)
         self.window_ = window
+        #: Drawings left for later turns of the event loop (see :meth:`defer` and :meth:`prepare`).
+        self._deferred: dict = {}
         outer = QtWidgets.QVBoxLayout(self)
         outer.setContentsMargins(14, 10, 14, 8)
         outer.setSpacing(8)
@@ -49,36 +51,101 @@ class Panel(QtWidgets.QWidget):
 
     def clear(self) -> None:
         """Forget what was shown for another session (called before a new one is adopted)."""
-        self.__dict__.setdefault("_deferred", {}).clear()
+        self._pending().clear()
+        self.__dict__.setdefault("_prepared", {}).clear()
         self.set_sentences([])
 
     def defer(self, fn, *args) -> None:
-        """Run ``fn(*args)`` once the event loop has had a turn, when the window draws in steps.
+        """Run ``fn(*args)`` in a later turn of the event loop, when the window draws in steps.
 
-        A panel's first drawing (its tables and sentences, then its plots, then Qt's painting)
-        would otherwise hold the GUI thread in one piece; in steps each piece is shorter and the
-        window answers in between.  A newer request for the same ``fn`` replaces an older one.
+        A panel's first drawing (its tables and sentences, then each plot, then Qt's painting)
+        would otherwise hold the GUI thread in one piece.  Deferred drawings run one per turn,
+        oldest first, so the window answers (and paints) between any two of them.  A newer
+        request for the same ``fn`` replaces an older one that has not run yet.
         """
         if not getattr(self.window_, "draw_in_steps", False):
             fn(*args)
             return
-        pending = self.__dict__.setdefault("_deferred", {})
+        pending = self._pending()
+        pending.pop(fn.__name__, None)   # the newer request goes to the back of the line
+        pending[fn.__name__] = (fn, args, None)
+        self._queue_step()
+
+    def prepare(self, draw, key, work, label: str = "Preparing the view") -> None:
+        """Draw from numbers computed off the GUI thread: ``draw(work())``.
+
+        ``work`` (no Qt, no change to the session) runs on the window's worker; ``draw`` then
+        runs with its result on the GUI thread, in a turn of its own.  The last result is kept
+        under ``key`` (anything comparable naming what it was computed from), so drawing the
+        same thing again needs no work.  A newer request for the same ``draw`` replaces an
+        older one.  Without steps (pictures, some tests) everything runs at once.
+        """
+        kept = self.__dict__.setdefault("_prepared", {})
+        name = draw.__name__
+        if name in kept and _same(kept[name][0], key):
+            self.defer(draw, kept[name][1])
+            return
+        if not getattr(self.window_, "draw_in_steps", False):
+            result = work()
+            kept[name] = (key, result)
+            draw(result)
+            return
+        pending = self._pending()
+        pending.pop(name, None)
         token = object()
-        pending[fn.__name__] = (token, fn, args)
+        pending[name] = (draw, (), (token, key, work))
 
-        def run():
-            entry = pending.get(fn.__name__)
-            if entry is not None and entry[0] is token:
-                del pending[fn.__name__]
-                fn(*args)
+        def arrived(result):
+            entry = pending.get(name)
+            if entry is None or entry[2] is None or entry[2][0] is not token:
+                return   # replaced or cleared meanwhile
+            kept[name] = (key, result)
+            pending[name] = (draw, (result,), None)
+            self._queue_step()
 
-        QtCore.QTimer.singleShot(0, run)
+        def dropped(*_):
+            entry = pending.get(name)
+            if entry is not None and entry[2] is not None and entry[2][0] is token:
+                del pending[name]
+
+        runner = getattr(self.window_, "runner", None)
+        runner.start(lambda progress, cancel: work(), label=label, slot=f"prepare:{self.key}:{name}",
+                     done=arrived, failed=lambda exc: (dropped(), self.window_.show_error(f"{label} failed", exc)),
+                     cancelled=dropped)
+
+    def _pending(self) -> dict:
+        return self.__dict__.setdefault("_deferred", {})
+
+    def _queue_step(self) -> None:
+        if not self.__dict__.get("_step_queued"):
+            self._step_queued = True
+            QtCore.QTimer.singleShot(0, self._run_one_step)
+
+    def _run_one_step(self) -> None:
+        """Run the oldest drawing that is ready; the next one waits for another turn."""
+        self._step_queued = False
+        pending = self._pending()
+        name = next((k for k, (_, _, waiting) in pending.items() if waiting is None), None)
+        if name is None:
+            return   # what is left waits for the worker, which queues a step when it answers
+        fn, args, _ = pending.pop(name)
+        if any(waiting is None for (_, _, waiting) in pending.values()):
+            self._queue_step()
+        fn(*args)
 
     def flush(self) -> None:
-        """Run every deferred drawing now (pictures and tests that look at once)."""
-        pending = self.__dict__.setdefault("_deferred", {})
+        """Run every deferred drawing now, computing what the worker has not returned yet (pictures
+        and tests that look at once)."""
+        pending = self._pending()
+        kept = self.__dict__.setdefault("_prepared", {})
         while pending:
-            _, (_, fn, args) = pending.popitem()
+            name = next(iter(pending))
+            fn, args, waiting = pending.pop(name)
+            if waiting is not None:
+                _, key, work = waiting
+                result = work()
+                kept[name] = (key, result)
+                args = (result,)
             fn(*args)
 
     def plots(self) -> list:
@@ -98,6 +165,13 @@ class Panel(QtWidgets.QWidget):
     @property
     def session(self):
         return self.window_.session
+
+
+def _same(a, b) -> bool:
+    """Two keys name the same thing: the same object, or equal plain values (a design is compared by
+    identity, never element by element)."""
+    plain = (str, int, float, tuple)
+    return a is b or (isinstance(a, plain) and type(a) is type(b) and a == b)
 
 
 def hbox(*widgets, stretch_last=False):

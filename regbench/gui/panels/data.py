@@ -41,9 +41,10 @@ class DataPanel(Panel):
         self.columns_model = ColumnsModel(self.window_.draft)
         self.columns_view = make_view(self.columns_model)
         header = self.columns_view.horizontalHeader()
-        for c in range(ColumnsModel.C_PART):
-            header.setSectionResizeMode(c, QtWidgets.QHeaderView.ResizeToContents)
+        # Sized once from the text when a table arrives (not Qt's size-to-contents mode, which asks every
+        # row of every column again at each layout of the window).
         header.setSectionResizeMode(ColumnsModel.C_PART, QtWidgets.QHeaderView.Stretch)   # long reasons elide
+        self.columns_model.modelReset.connect(self._size_columns)
         self.columns_view.verticalHeader().setVisible(False)
         l1.addWidget(self.columns_view)
         self.derive_op = QtWidgets.QComboBox()
@@ -87,6 +88,13 @@ class DataPanel(Panel):
         split.addWidget(self.tabs)
         split.setSizes([780, 380])   # room for each column's part in the fit
         lay.addWidget(split)
+
+    def _size_columns(self):
+        """Each column but the reasons as wide as its text (the reasons take the rest of the room)."""
+        widths = self.columns_view.content_widths()
+        header = self.columns_view.horizontalHeader()
+        for c in range(min(ColumnsModel.C_PART, len(widths))):
+            header.resizeSection(c, widths[c])
 
     # -- derived columns (computed by regbench.data.derive; nothing typed is run as code) ----------
     def _derive_shape(self, *_):

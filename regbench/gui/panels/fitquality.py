@@ -10,7 +10,7 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
-from regbench.analysis.fit_quality import sentences_for_model
+from regbench.analysis.fit_quality import fit_quality, sentences_for_model
 from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.style import PALETTE, model_colour, plain_axes
 from regbench.gui.tables import GridModel, make_view
@@ -90,7 +90,7 @@ class FitQualityPanel(Panel):
         self.group_model.set_rows([], [])
         self.plot.clear()
         self.plot_note.setText(" ")
-        self.set_sentences([])
+        super().clear()
 
     def view_state(self):
         return {"model": self.model_box.currentData(), "split": self.split_box.currentData(),
@@ -107,8 +107,24 @@ class FitQualityPanel(Panel):
             return
         key = session.key()
         if key != self._key:
-            self.quality = session.fit_quality()
-            self._key = key
+            # The numbers come from the worker; the models and held-out predictions are the session's
+            # own (already there for this panel), read here on the GUI thread.
+            design, models, heldout = session.design, session.models(), session.heldout()
+            work = (lambda: (key, fit_quality(design, models, heldout))) if models else (lambda: (key, None))
+            self.prepare(self._quality_arrived, key, work, "Measuring how well each model fits")
+            return
+        self._show(session)
+
+    def _quality_arrived(self, keyed):
+        key, quality = keyed
+        session = self.session
+        if session is None or session.results is None or session.key() != key:
+            return   # the session moved on; its own refresh asks again
+        self.quality, self._key = quality, key
+        self._show(session)
+
+    def _show(self, session):
+        """The tables, sentences and (a turn later) the plot for the numbers in ``self.quality``."""
         q = self.quality
         if q is None:
             self.clear()

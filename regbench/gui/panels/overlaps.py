@@ -97,7 +97,10 @@ class OverlapsPanel(Panel):
     def refresh(self, session):
         results = session.results
         design = session.design
-        self.defer(self._draw_corr, design)
+        if design is None or design.p == 0:
+            self._draw_corr(None)
+        else:   # the map's numbers come from the worker; the panel only draws them
+            self.prepare(self._draw_corr, design, lambda: correlation_map(design), "Measuring how columns overlap")
         if results is None:
             self.aside_text.clear()
             self.vif_model.set_rows([], [])
@@ -139,19 +142,20 @@ class OverlapsPanel(Panel):
         sentences = list(diag.sentences[:2]) or [sa.sentence() for sa in ols.set_aside[:2]]
         self.set_sentences(sentences or ["No column overlaps strongly with the others."])
 
-    def _draw_corr(self, design):
-        if design is None or design.p == 0:
+    def _draw_corr(self, cmap):
+        """Draw a correlation map computed on the worker (None: nothing to draw)."""
+        if cmap is None:
             self.image.clear()
+            self._corr = None
             return
-        if self._corr is not None and getattr(self, "_corr_design", None) is design:
+        if self._corr is not None and getattr(self, "_corr_map", None) is cmap:
             return
-        self._corr_design = design
-        cmap = correlation_map(design)  # the numbers the CLI and the report show too
+        self._corr_map = cmap
         C = cmap.matrix
         self._corr, self._corr_cols = C, cmap.columns
         self.image.setImage(np.nan_to_num(C.T), levels=(-1, 1))
-        p = design.p
-        self._corr_short = [c if len(c) <= 18 else c[:16] + "…" for c in design.columns]
+        p = len(cmap.columns)
+        self._corr_short = [c if len(c) <= 18 else c[:16] + "…" for c in cmap.columns]
         self.corr_plot.setRange(xRange=(0, p), yRange=(0, p), padding=0)
         self._label_corr()
 

@@ -188,9 +188,10 @@ class RangesPanel(Panel):
         # A fit on every level of a category sits here as the same predictor on the design's columns.
         sd = design_sd(session.design, session.results)
         models = {k: m.on_design(sd) for k, m in session.models().items()}
-        self._draw_bars(rg, models)
-        self._draw_strip(rg)
         self._fill_tables(rg)
+        # The plots come a turn each after the tables, so no piece of the drawing holds the window long.
+        self.defer(self._draw_bars, rg, models)
+        self.defer(self._draw_strip, rg)
 
     def _draw_bars(self, rg, models):
         plot = self.bars

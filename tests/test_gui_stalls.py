@@ -1,0 +1,212 @@
+"""The window's GUI thread stays free: numbers are computed on the worker, drawing comes in steps.
+
+Nothing here times anything (timings belong to ``python -m regbench.gui.heartbeat``); each test checks
+a mechanism that keeps a piece of GUI-thread work short: which thread runs an analysis, how many
+drawing steps share one turn of the event loop, whether a panel is laid out while hidden, how many
+cells and headers sizing a table asks for.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+import threading
+
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+_HOME = tempfile.mkdtemp(prefix="regbench-gui-stalls-")
+os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
+os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
+os.environ["HOME"] = _HOME
+
+import numpy as np  # noqa: E402
+import pytest  # noqa: E402
+
+pytest.importorskip("pytestqt")
+from PySide6 import QtCore, QtWidgets  # noqa: E402
+
+from regbench.gui import tables  # noqa: E402
+from regbench.gui.tables import GridModel, make_view  # noqa: E402
+
+pytestmark = pytest.mark.gui
+QtCore.QStandardPaths.setTestModeEnabled(True)
+TIMEOUT_MS = 120_000
+
+
+@pytest.fixture
+def win(qtbot, greenhouse_fitted):
+    """A window on the fitted greenhouse sample, idle."""
+    from regbench.gui.window import MainWindow
+
+    w = MainWindow(autosave=False)
+    w.ask_unsaved = lambda: "discard"
+    qtbot.addWidget(w)
+    w.resize(1400, 900)
+    w.show()
+    w.adopt(greenhouse_fitted)
+    qtbot.waitUntil(lambda: not w.runner.busy(), timeout=TIMEOUT_MS)
+    QtWidgets.QApplication.processEvents()
+    yield w
+    w.dirty = False
+    w.runner.cancel_all()
+    w.runner.wait(60_000)
+    w.close()
+
+
+def _settle(qtbot, w, panel):
+    qtbot.waitUntil(lambda: not panel._deferred and not w.runner.busy(), timeout=TIMEOUT_MS)
+
+
+def _record_threads(monkeypatch, module, name, seen):
+    """Replace ``module.name`` by a wrapper noting the thread each call runs on."""
+    real = getattr(module, name)
+
+    def wrapper(*args, **kwargs):
+        seen.append(threading.current_thread())
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(module, name, wrapper)
+
+
+def test_correlation_map_and_fit_quality_are_computed_off_the_gui_thread(win, qtbot, monkeypatch):
+    from regbench.analysis.correlation import correlation_map
+    from regbench.analysis.fit_quality import fit_quality
+    from regbench import session as session_module
+    from regbench.gui.panels import fitquality, overlaps
+
+    seen_map, seen_fit = [], []
+    _record_threads(monkeypatch, overlaps, "correlation_map", seen_map)
+    for module in (fitquality, session_module):   # wherever the window may call it from
+        if hasattr(module, "fit_quality"):
+            _record_threads(monkeypatch, module, "fit_quality", seen_fit)
+    gui = threading.current_thread()
+    for key, seen in (("overlaps", seen_map), ("fit", seen_fit)):
+        win.show_panel(key)
+        _settle(qtbot, win, win.panel(key))
+        assert seen and all(t is not gui for t in seen), key
+    # The panels draw what the worker computed: the same numbers as the analysis layer's own call.
+    s = win.session
+    np.testing.assert_array_equal(win.panel("overlaps")._corr, correlation_map(s.design).matrix)
+    want = fit_quality(s.design, s.models(), s.heldout())
+    got = win.panel("fit").quality
+    assert [f.rmse for f in got.fits] == [f.rmse for f in want.fits]
+
+
+def test_agreement_predictions_on_training_rows_are_computed_off_the_gui_thread(win, qtbot, monkeypatch):
+    from regbench.models import results
+
+    panel = win.panel("agreement")
+    win.show_panel("agreement")
+    _settle(qtbot, win, panel)
+    seen = []
+    _record_threads(monkeypatch, results.LinearModel, "predict", seen)
+    gui = threading.current_thread()
+    panel.split_box.setCurrentIndex(panel.split_box.findData("training"))
+    _settle(qtbot, win, panel)
+    assert seen and all(t is not gui for t in seen)
+    # The scatter shows one point per training row (the sample caps only tables over its size).
+    s = win.session
+    items = [i for i in panel.plot.getPlotItem().items if hasattr(i, "points")]
+    assert items and len(items[0].points()) == min(s.design.n, 20_000)
+    a = panel.a_box.currentData()
+    xs = np.sort(items[0].getData()[0])
+    np.testing.assert_allclose(xs, np.sort(s.models()[a].predict(s.design.X)), rtol=1e-12)
+
+
+def test_deferred_drawings_take_one_turn_each(win, qtbot):
+    """Another event queued after two deferred drawings runs between them, not after both."""
+    panel = win.panel("coefficients")
+    order = []
+    panel.defer(lambda: order.append("first"))
+
+    def second():
+        order.append("second")
+
+    panel.defer(second)
+    QtCore.QTimer.singleShot(0, lambda: order.append("other"))
+    qtbot.waitUntil(lambda: len(order) == 3, timeout=5_000)
+    assert order == ["first", "other", "second"]
+
+
+def test_a_panel_is_filled_while_hidden_and_keeps_the_focus(win, qtbot, monkeypatch):
+    """Filling a shown panel lays out the whole window for every widget it shows or hides; filled while
+    hidden, the window is laid out once."""
+    panel = win.panel("stress")
+    visible = []
+    real = panel.refresh
+
+    def refresh(session):
+        visible.append(panel.isVisible())
+        real(session)
+
+    monkeypatch.setattr(panel, "refresh", refresh)
+    win._stale.add("stress")
+    win.show_panel("stress")              # first visit: filled before it shows
+    assert visible == [False] and panel.isVisible()
+    win.nav.setFocus()
+    win.refresh_all(now=True)             # a shown panel: hidden for the refill, shown again at once
+    assert visible == [False, False] and panel.isVisible()
+    panel.rank_view.setFocus()
+    qtbot.waitUntil(lambda: panel.rank_view.hasFocus(), timeout=5_000)
+    win.refresh_all(now=True)             # the focus is inside: the panel stays shown, the focus stays
+    assert visible == [False, False, True] and panel.rank_view.hasFocus()
+
+
+def test_the_columns_list_is_sized_once_not_at_every_layout(win, qtbot):
+    from regbench.gui.roles import ColumnsModel
+
+    panel = win.panel("data")
+    view = panel.columns_view
+    header = view.horizontalHeader()
+    modes = [header.sectionResizeMode(c) for c in range(ColumnsModel.C_PART)]
+    assert QtWidgets.QHeaderView.ResizeToContents not in modes
+    # Sized from the text all the same: each column at least as wide as Qt's own size for its cells.
+    win.show_panel("data")
+    QtWidgets.QApplication.processEvents()
+    for c in (ColumnsModel.C_NAME, ColumnsModel.C_KIND):
+        if not view.isColumnHidden(c):
+            assert header.sectionSize(c) >= view.sizeHintForColumn(c) - 1
+
+
+class _Counting(GridModel):
+    def __init__(self):
+        super().__init__()
+        self.cells = 0
+        self.headers_asked = 0
+
+    def data(self, index, role=QtCore.Qt.DisplayRole):
+        if role == QtCore.Qt.DisplayRole:
+            self.cells += 1
+        return super().data(index, role)
+
+    def headerData(self, section, orientation, role=QtCore.Qt.DisplayRole):
+        self.headers_asked += 1
+        return super().headerData(section, orientation, role)
+
+
+def test_sizing_a_wide_grid_reads_a_bounded_number_of_cells_and_headers(qtbot):
+    p = 60
+    rng = np.random.default_rng(0)
+    model = _Counting()
+    view = make_view(model)
+    qtbot.addWidget(view)
+    view.resize(900, 600)
+    view.show()
+    model.set_rows(rng.normal(size=(p, p)).tolist(), [f"column_{j:02d}" for j in range(p)], digits=3)
+    model.cells = model.headers_asked = 0
+    view.resizeColumnsToContents()
+    assert model.cells <= getattr(tables, "SIZE_CELLS", 480) + p
+    assert model.headers_asked <= 3 * p + 100   # Qt's own size hint asks each header for many roles
+    # Every column still fits its header's text (Qt's size for it) and its widest sampled cell.
+    header = view.horizontalHeader()
+    assert all(header.sectionSize(c) >= header.sectionSizeHint(c) for c in range(p))
+
+
+def test_header_widths_match_qt_size_hints(qtbot):
+    model = GridModel()
+    view = make_view(model)
+    qtbot.addWidget(view)
+    heads = ["a", "Row", "RMSE held-out", "Limits of agreement: low", "As\ncategories", "R² of that", ""]
+    model.set_rows([[1.0] * len(heads)], heads)
+    widths = tables._header_widths(view.horizontalHeader())
+    assert [widths(c) for c in range(len(heads))] == [view.horizontalHeader().sectionSizeHint(c)
+                                                      for c in range(len(heads))]
