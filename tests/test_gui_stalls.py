@@ -210,3 +210,35 @@ def test_header_widths_match_qt_size_hints(qtbot):
     widths = tables._header_widths(view.horizontalHeader())
     assert [widths(c) for c in range(len(heads))] == [view.horizontalHeader().sectionSizeHint(c)
                                                       for c in range(len(heads))]
+
+
+def test_stepping_alpha_lays_out_only_what_moves(win, qtbot, monkeypatch):
+    from regbench.gui import penaltyfigure
+
+    win.show_panel("paths")
+    panel = win.panel("paths")
+    fig = panel.figure
+    fig.grab()                               # painted once: the whole figure laid out
+    QtWidgets.QApplication.processEvents()
+    calls = {"build": 0, "move": 0}
+    real_build, real_move = penaltyfigure.build_figure, getattr(penaltyfigure, "move_figure", None)
+
+    def build(*args, **kwargs):
+        calls["build"] += 1
+        return real_build(*args, **kwargs)
+
+    def move(*args, **kwargs):
+        calls["move"] += 1
+        return real_move(*args, **kwargs)
+
+    monkeypatch.setattr(penaltyfigure, "build_figure", build)
+    monkeypatch.setattr(penaltyfigure, "move_figure", move, raising=False)
+    before = fig.data.alpha
+    fig.setFocus()
+    qtbot.keyClick(fig, QtCore.Qt.Key_Right)
+    fig.grab()
+    assert fig.data.alpha != before
+    assert calls["build"] == 0 and calls["move"] >= 1
+    # The handle sits where a figure laid out afresh at the new α puts it.
+    fresh = real_build(fig.data, fig.width(), fig.height())
+    assert fig.figure().handle_x == fresh.handle_x and fig.figure().prims == fresh.prims

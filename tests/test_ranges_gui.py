@@ -71,6 +71,7 @@ def test_panel_shows_the_core_ranges_and_the_tolerance_control_recomputes_withou
     assert "set here" in panel.in_force.text() and "within 1 %" in panel.sentences.text()
     one = compute_ranges(s.design, s.results, 0.01, models=s.models())
     assert m.value(j, 1) == pytest.approx(one.high[j])
+    panel.flush()   # the plots are drawn a turn after the tables
     assert len(panel.plots()) == 2 and all(p.getPlotItem().listDataItems() or p.getPlotItem().items
                                            for p in panel.plots())
     w.undo()

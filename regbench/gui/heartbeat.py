@@ -9,8 +9,10 @@ did in that gap, which is what the gap shrinks to on a quiet machine).
     QT_QPA_PLATFORM=offscreen python -m regbench.gui.heartbeat [PROJECT] [--rounds N]
 
 (``scripts/gui_stalls.py`` runs the same.)  The actions: open a project, the first visit to
-each panel, switching between panels afterwards, releasing an α drag on each penalized
-family, stepping α from the keyboard, and undo.
+each panel, switching between panels afterwards, switching the penalty figure to another
+family, releasing an α drag on each family, stepping α from the keyboard, and undo.  Each
+action is sent through the event loop (as a click or a key press arrives), so the heartbeat
+ticks between the action itself and the drawing steps it leaves for later turns.
 """
 
 from __future__ import annotations
@@ -132,7 +134,8 @@ def run_actions(log: StallLog, project: str, rounds: int) -> None:
         w.show_panel("paths")
         paths = w.panel("paths")
         for k in range(paths.family.count()):
-            paths.family.setCurrentIndex(k)
+            if k != paths.family.currentIndex():   # a new family's paths are laid out and painted afresh
+                log.measure("switch penalty family", lambda k=k: paths.family.setCurrentIndex(k))
             grid = paths.figure.grid()
             log.measure("release an α drag", lambda grid=grid: paths.move_alpha(float(grid[len(grid) // 3])))
             paths.figure.setFocus()

@@ -18,7 +18,7 @@ from typing import Optional
 import numpy as np
 from PySide6 import QtCore, QtGui, QtWidgets
 
-from regbench.report.pathfig import FigureData, build_figure
+from regbench.report.pathfig import FigureData, build_figure, move_figure
 
 Qt = QtCore.Qt
 
@@ -41,15 +41,20 @@ class PenaltyFigure(QtWidgets.QWidget):
         self.data: Optional[FigureData] = None
         self._fig = None
         self._fig_size = None
-        self._pixmap = None          # the figure painted once; repaints (focus, hover) only blit it
+        self._fig_key = None
+        self._moved = False          # only α, the read-out or the extra fits changed since _fig was laid out
+        self._pixmap = None          # the parts of the figure that α does not move, painted once
         self._dragging = False
         self.setToolTip("Drag the α handle, or use ← → (Shift: ten steps); click a curve or a name to highlight it")
 
     # -- data ---------------------------------------------------------------------------
     def set_data(self, data: Optional[FigureData]) -> None:
         self.data = data
-        self._fig = None
-        self._pixmap = None
+        if self._fig is not None and data is not None and self._fig_key == _fixed_key(data):
+            self._moved = True       # the same paths and error: only what α decides is laid out again
+        else:
+            self._fig = None
+            self._pixmap = None
         self.update()
 
     def figure(self, width: Optional[int] = None, height: Optional[int] = None):
@@ -62,7 +67,12 @@ class PenaltyFigure(QtWidgets.QWidget):
         if self._fig is None or self._fig_size != (w, h):
             self._fig = build_figure(self.data, w, h)
             self._fig_size = (w, h)
+            self._fig_key = _fixed_key(self.data)
+            self._moved = False
             self._pixmap = None
+        elif self._moved:
+            self._fig = move_figure(self._fig, self.data)
+            self._moved = False
         return self._fig
 
     def export_size(self) -> QtCore.QSize:
@@ -100,11 +110,13 @@ class PenaltyFigure(QtWidgets.QWidget):
                     pm.fill(QtGui.QColor("#ffffff"))
                     p2 = QtGui.QPainter(pm)
                     try:
-                        paint_figure(p2, fig)
+                        paint_prims(p2, fig.prims[:fig.fixed])
                     finally:
                         p2.end()
                     self._pixmap = pm
                 painter.drawPixmap(0, 0, self._pixmap)
+                # The handle, the read-out and the extra marks: a few shapes, painted over at each move.
+                paint_prims(painter, fig.prims[fig.fixed:])
             if self.hasFocus() and fig is not None:
                 kx, ky, kw, kh = fig.knob
                 pen = QtGui.QPen(QtGui.QColor("#26303a"), 1, Qt.DotLine)
@@ -176,8 +188,7 @@ class PenaltyFigure(QtWidgets.QWidget):
         self.data.alpha = float(alpha)
         self.data.readout = None       # read off the path until the exact model arrives
         self.data.n_used = None
-        self._fig = None
-        self._pixmap = None
+        self._moved = True
         self.update()
         self.alpha_moving.emit(float(alpha))
 
@@ -230,14 +241,26 @@ class PenaltyFigure(QtWidgets.QWidget):
         super().focusOutEvent(event)
 
 
+def _fixed_key(d: FigureData) -> tuple:
+    """What the parts of the figure that α does not move are drawn from (arrays by identity: the
+    session's own path and error arrays, the same objects from one redraw to the next)."""
+    cv = None if d.cv is None else tuple(id(v) if isinstance(v, np.ndarray) else v for v in d.cv)
+    return (id(d.alphas), id(d.coef), tuple(d.columns), cv, d.colour, d.highlight, d.ylabel, d.error_label)
+
+
 def paint_figure(painter: QtGui.QPainter, fig) -> None:
     """Draw a laid-out figure's primitives with ``painter``."""
+    paint_prims(painter, fig.prims)
+
+
+def paint_prims(painter: QtGui.QPainter, prims) -> None:
+    """Draw laid-out primitives with ``painter``, in order."""
     painter.setRenderHint(QtGui.QPainter.Antialiasing, True)
     painter.setRenderHint(QtGui.QPainter.TextAntialiasing, True)
     base_font = QtGui.QFont(painter.font())
     fonts, pens, brushes = {}, {}, {}
     no_pen, no_brush = QtGui.QPen(Qt.NoPen), QtGui.QBrush(Qt.NoBrush)
-    for p in fig.prims:
+    for p in prims:
         painter.setOpacity(p.opacity)
         if p.kind in ("line", "poly", "circle", "rect"):
             if p.stroke:

@@ -338,8 +338,13 @@ class MainWindow(QtWidgets.QMainWindow):
             p.flush()
 
     # == session =====================================================================
-    def adopt(self, session, path: Optional[str] = None, dirty: bool = False, fit: bool = True) -> None:
-        """Make ``session`` the window's document."""
+    def adopt(self, session, path: Optional[str] = None, dirty: bool = False, fit: bool = True,
+              in_steps: bool = False) -> None:
+        """Make ``session`` the window's document.
+
+        ``in_steps`` (a table or project just opened) leaves drawing the open panel and recording the
+        recent file to later turns of the event loop, so adopting holds the GUI thread only briefly.
+        """
         if self.session is not None:
             self.session.unsubscribe(self._on_session_event)
         self.runner.cancel_all()
@@ -352,13 +357,15 @@ class MainWindow(QtWidgets.QMainWindow):
         session.subscribe(self._on_session_event)
         self._load_draft()
         self._restore_view_state()
-        self.refresh_all(now=True)
+        self.refresh_all(now=not in_steps)
         self._update_title()
         self._update_actions()
         where = os.path.basename(path) if path else (session.table.source or "the table")
         self.set_status(f"Opened {where}: {session.design.n:,} rows in the fit.", sticky=False)
         self.session_changed.emit()
-        if path:
+        if path and in_steps:
+            QtCore.QTimer.singleShot(0, lambda: self._add_recent(path))
+        elif path:
             self._add_recent(path)
         if fit and not self.has_results():
             self.refit()
@@ -456,7 +463,7 @@ class MainWindow(QtWidgets.QMainWindow):
         def opened(out):
             session, note = out
             # Nothing long starts until the person has looked at the question and pressed Fit.
-            self.adopt(session, path=None, dirty=True, fit=roles is not None)
+            self.adopt(session, path=None, dirty=True, fit=roles is not None, in_steps=True)
             if roles is None:
                 self.show_panel("data")
                 self.set_status((note + " " if note else "")
@@ -510,7 +517,7 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def _adopt_opened(self, path, session, computed) -> None:
         """Adopt a project read on the worker; install results fitted there (GUI thread)."""
-        self.adopt(session, path=path, fit=False)
+        self.adopt(session, path=path, fit=False, in_steps=True)
         if computed is not None:
             try:
                 installed = session.apply_results(computed)

@@ -19,8 +19,9 @@ QPainter, and the window hit-tests the same geometry.
 
 from __future__ import annotations
 
+import copy
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Optional, Sequence
 
 import numpy as np
@@ -79,6 +80,10 @@ class Figure:
     rx: float = 1.0    # log10 α at the right edge
     x0: float = 0.0    # pixel of the left edge
     x1: float = 1.0    # pixel of the right edge
+    #: How many of ``prims`` (the first ones) do not depend on the chosen α, its read-out or the extra fits.
+    fixed: int = 0
+    #: The layout the figure came from, kept so that :func:`move_figure` lays out only what moves.
+    layout: object = field(default=None, repr=False, compare=False)
 
     def alpha_at(self, px: float) -> float:
         """α under pixel column ``px`` (clamped to the drawn range)."""
@@ -230,10 +235,34 @@ def build_figure(d: FigureData, width: int, height: int) -> Figure:
     _strip(c)
     if c.has_cv:
         _error_band(c)
+    c.fig.fixed = len(c.fig.prims)
+    c.fig.layout = c
+    _moving_parts(c)
+    return c.fig
+
+
+def move_figure(fig: Figure, d: FigureData) -> Figure:
+    """``fig`` (from :func:`build_figure`) at ``d``'s chosen α, read-out and extra fits.
+
+    ``d`` must show the same paths, held-out error, highlight and labels as the data ``fig`` was
+    built from; only the handle, the read-out and the extra marks are laid out again (the rest of
+    the figure is kept as it is), which is what dragging or stepping α changes.
+    """
+    c = copy.copy(fig.layout)
+    c.d = d
+    c.a_log = c.alpha_log(d)
+    c.fig = replace(fig, prims=fig.prims[:fig.fixed])
+    c.P = c.fig.prims
+    c.fig.layout = c
+    _moving_parts(c)
+    return c.fig
+
+
+def _moving_parts(c) -> None:
+    """What the chosen α decides: the handle, the read-out beside it and the other fits' marks."""
     _handle(c)
     _readout(c)
     _extras(c)
-    return c.fig
 
 
 class _Layout:
@@ -261,7 +290,8 @@ class _Layout:
         if d.cv is not None:
             cla = np.log10(np.asarray(d.cv[0], dtype=float))
             lo, hi = min(lo, float(cla.min())), max(hi, float(cla.max()))
-        self.a_log = math.log10(d.alpha) if d.alpha and d.alpha > 0 else hi
+        self.hi = hi
+        self.a_log = self.alpha_log(d)
         if hi - lo < 1e-9:
             lo, hi = lo - 0.5, hi + 0.5
         pad = 0.02 * (hi - lo)
@@ -281,6 +311,10 @@ class _Layout:
         self.order = np.argsort(la)[::-1]          # left (large α) to right (small α)
         self.xs = np.array([self.X(v) for v in la[self.order]])
         self.hl = d.highlight if d.highlight in self.cols else None
+
+    def alpha_log(self, d: FigureData) -> float:
+        """log10 of the chosen α (the weakest penalty drawn when there is none)."""
+        return math.log10(d.alpha) if d.alpha and d.alpha > 0 else self.hi
 
     def X(self, logv):
         """Pixel column of log10 α."""

@@ -44,7 +44,7 @@ class DataPanel(Panel):
         # Sized once from the text when a table arrives (not Qt's size-to-contents mode, which asks every
         # row of every column again at each layout of the window).
         header.setSectionResizeMode(ColumnsModel.C_PART, QtWidgets.QHeaderView.Stretch)   # long reasons elide
-        self.columns_model.modelReset.connect(self._size_columns)
+        self.columns_model.modelReset.connect(lambda: self.defer(self._size_columns))
         self.columns_view.verticalHeader().setVisible(False)
         l1.addWidget(self.columns_view)
         self.derive_op = QtWidgets.QComboBox()
