@@ -609,8 +609,8 @@ class ColumnsModel(QtCore.QAbstractTableModel):
 
     def data(self, index, role=Qt.DisplayRole):
         d = self.draft
-        if not index.isValid() or d.table is None:
-            return None
+        if role not in _COLUMN_ROLES or not index.isValid() or d.table is None:
+            return None   # painting asks each cell for many roles: answer the unused ones at once
         name = self._name(index.row())
         info = d.table.columns[name]
         c = index.column()
@@ -695,3 +695,8 @@ class ColumnsModel(QtCore.QAbstractTableModel):
             self.draft.set_categorical(name, on)
             return True
         return False
+
+
+#: The roles ColumnsModel.data answers (painting asks for many more).
+_COLUMN_ROLES = frozenset((Qt.CheckStateRole, Qt.DisplayRole, Qt.EditRole, Qt.ToolTipRole, Qt.ForegroundRole,
+                           Qt.TextAlignmentRole))

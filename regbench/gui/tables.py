@@ -27,12 +27,21 @@ class FrameModel(QtCore.QAbstractTableModel):
     def set_frame(self, frame) -> None:
         self.beginResetModel()
         if frame is None:
-            self._names, self._cols, self._n = [], [], 0
+            self._frame, self._names, self._cols, self._n = None, [], [], 0
         else:
+            # Each column becomes an array when the view first asks for one of its cells: a wide table
+            # shows a few columns at a time, and converting all of them would hold the GUI thread.
+            self._frame = frame
             self._names = [str(c) for c in frame.columns]
-            self._cols = [frame[c].to_numpy() for c in frame.columns]
+            self._cols = [None] * len(self._names)
             self._n = len(frame)
         self.endResetModel()
+
+    def _col(self, c: int):
+        col = self._cols[c]
+        if col is None:
+            col = self._cols[c] = self._frame.iloc[:, c].to_numpy()
+        return col
 
     def rowCount(self, parent=QtCore.QModelIndex()):
         return 0 if parent.isValid() else self._n
@@ -42,9 +51,9 @@ class FrameModel(QtCore.QAbstractTableModel):
 
     def data(self, index, role=Qt.DisplayRole):
         if role == Qt.DisplayRole:
-            return fmt(self._cols[index.column()][index.row()], 6)
+            return fmt(self._col(index.column())[index.row()], 6)
         if role == Qt.TextAlignmentRole:
-            col = self._cols[index.column()]
+            col = self._col(index.column())
             return int(Qt.AlignRight | Qt.AlignVCenter) if col.dtype.kind in "fiub" else int(Qt.AlignLeft | Qt.AlignVCenter)
         return None
 
@@ -57,7 +66,7 @@ class FrameModel(QtCore.QAbstractTableModel):
 
     def raw_text(self, r: int, c: int) -> str:
         """The cell at full precision (copy and CSV export)."""
-        return full_text(self._cols[c][r])
+        return full_text(self._col(c)[r])
 
 
 class GridModel(QtCore.QAbstractTableModel):
