@@ -242,3 +242,29 @@ def test_stepping_alpha_lays_out_only_what_moves(win, qtbot, monkeypatch):
     # The handle sits where a figure laid out afresh at the new α puts it.
     fresh = real_build(fig.data, fig.width(), fig.height())
     assert fig.figure().handle_x == fresh.handle_x and fig.figure().prims == fresh.prims
+
+
+def test_a_big_scatter_is_added_a_slice_per_turn(win, qtbot):
+    from regbench.gui.panels.base import SLICE_POINTS
+
+    panel = win.panel("agreement")
+    rng = np.random.default_rng(5)
+    n = 2 * SLICE_POINTS + 123
+    x, y = rng.normal(size=n), rng.normal(size=n)
+    panel.plot.clear()
+    panel.scatter(panel.plot, x, y, size=5, pen=None)
+
+    def shown():
+        return [i for i in panel.plot.getPlotItem().items if hasattr(i, "points")]
+
+    assert [len(i.points()) for i in shown()] == [SLICE_POINTS]   # the first slice at once
+    qtbot.waitUntil(lambda: not panel._deferred, timeout=5_000)
+    assert [len(i.points()) for i in shown()] == [SLICE_POINTS, SLICE_POINTS, 123]
+    got = np.concatenate([i.getData()[0] for i in shown()])
+    np.testing.assert_array_equal(got, x)   # every point, in order, none twice
+    # A plot cleared before the slices are in drops the rest of the older drawing.
+    panel.plot.clear()
+    panel.scatter(panel.plot, x, y, size=5, pen=None)
+    panel.plot.clear()
+    qtbot.waitUntil(lambda: not panel._deferred, timeout=5_000)
+    assert shown() == []

@@ -171,7 +171,7 @@ class AgreementPanel(Panel):
         brush = pg.mkColor(model_colour(b))
         brush.setAlpha(150)
         # One scatter item with one style: pyqtgraph's plot() route with symbols costs several times more.
-        self.plot.addItem(pg.ScatterPlotItem(x=pa, y=pb, size=5, pen=None, brush=brush))
+        self.scatter(self.plot, pa, pb, size=5, pen=None, brush=brush)
         lo = float(min(pa.min(), pb.min()))
         hi = float(max(pa.max(), pb.max()))
         self.plot.plot([lo, hi], [lo, hi], pen=pg.mkPen(PALETTE["muted"], style=Qt.DashLine))

@@ -2,9 +2,13 @@
 
 from __future__ import annotations
 
+import numpy as np
+import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
 Qt = QtCore.Qt
+#: Points one scatter item takes at most; more are added a slice per turn (see :meth:`Panel.scatter`).
+SLICE_POINTS = 5000
 
 
 class Panel(QtWidgets.QWidget):
@@ -147,6 +151,30 @@ class Panel(QtWidgets.QWidget):
                 kept[name] = (key, result)
                 args = (result,)
             fn(*args)
+
+    def scatter(self, plot, x, y, **style) -> None:
+        """Add the points (x, y) to ``plot`` as scatter items of one style, a slice per turn.
+
+        Up to :data:`SLICE_POINTS` points go in at once; a larger set is added in slices of that
+        many, one per turn of the event loop (pyqtgraph lays out every point of an item when it
+        is added, which for tens of thousands held the GUI thread in one piece).  A newer scatter
+        on the same panel replaces the slices of an older one still waiting.
+        """
+        x, y = np.asarray(x, float), np.asarray(y, float)
+        ends = list(range(0, x.size, SLICE_POINTS)) + [x.size]
+
+        items = []
+
+        def scatter_slice(k):
+            if k and items[0] not in plot.getPlotItem().items:
+                return   # the plot was cleared meanwhile: these points belong to an older drawing
+            items.append(pg.ScatterPlotItem(x=x[ends[k]:ends[k + 1]], y=y[ends[k]:ends[k + 1]], **style))
+            plot.addItem(items[-1])
+            if k + 2 < len(ends):
+                self.defer(scatter_slice, k + 1)
+
+        if x.size:
+            scatter_slice(0)
 
     def plots(self) -> list:
         """pyqtgraph PlotWidgets this panel can export."""

@@ -243,8 +243,7 @@ class FitQualityPanel(Panel):
             yl = "residual (observed − predicted)"
         c = pg.mkColor(colour)
         c.setAlpha(120)
-        self.plot.addItem(pg.ScatterPlotItem(x=np.asarray(x, float), y=np.asarray(y, float), size=5,
-                                             pen=None, brush=pg.mkBrush(c)))
+        self.scatter(self.plot, x, y, size=5, pen=None, brush=pg.mkBrush(c))
         self.plot.setLabel("bottom", xl)
         self.plot.setLabel("left", yl)
         self.plot.enableAutoRange()
