@@ -866,17 +866,23 @@ def _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run
     n_rows = sum(part.rows for part in parts)
     rate = min(1.0, sample_rows / max(n_rows, 1))
     report(progress, 0, total, f"one pass over {len(parts)} part(s) of {Path(path).name}")
-    outs = run(group_pass, [(part, plan, i, rate, settings.seed) for i, part in enumerate(parts)])
-    check(cancel)
-    info, groups, racc, got = outs[0]
+    args = [(part, plan, i, rate, settings.seed) for i, part in enumerate(parts)]
+    # In this process each part's per-group statistics (groups × p² numbers) are merged as soon as
+    # the part is read rather than held for every part (measured: 800 MB held at 10M × 100 in 50
+    # row groups of 200 groups); a cluster hands them back together.
+    outs = iter(run(group_pass, args) if runner is not None else (group_pass(*a, cancel) for a in args))
+    info, groups, racc, got = next(outs)
     groups = dict(groups)
-    for i2, g2, r2, s2 in outs[1:]:
+    for i2, g2, r2, s2 in outs:
+        check(cancel)
         info = info.merge(i2)
         for lab, st in g2.items():
             groups[lab] = st if lab not in groups else merge(groups[lab], st)
         racc = racc.combine(r2)
         for k in got:
             got[k] += s2[k]
+        del i2, g2, r2, s2
+    check(cancel)
     src = str(path)
     cols = _check_rows(info, plan, src)
     idx = cols.keep
