@@ -369,7 +369,14 @@ class Session:
         """What cannot be shown on a row sample, one line each ('heldout', 'stability'); empty otherwise."""
         if not self.sampled:
             return {}
-        return {k: v for k, v in NOT_ON_SAMPLE.items() if k != "stability" or self.bootstrap}
+        return {k: v for k, v in NOT_ON_SAMPLE.items()
+                if (k != "stability" or self.bootstrap) and (k != "heldout" or not self.streamed.fold_stats)}
+
+    def _sample_pass(self, streamed=None):
+        """The pass whose row sample the design holds (``streamed``, a fresh one, else the session's), or None
+        when the rows at hand are every row."""
+        st = streamed if streamed is not None else self.streamed
+        return st if st is not None and st.sampled else None
 
     def fit_key(self, state: Optional[SessionState] = None) -> str:
         s = state or self._state
@@ -715,7 +722,7 @@ class Session:
             results = table_results
         check(cancel)
         report(progress, 100, total * 100, "comparing the models and running the stress tests")
-        derived = _derive(design, results, state, cancel, sampled=sampled)
+        derived = _derive(design, results, state, cancel, sample=self._sample_pass(streamed))
         check(cancel)
         stability, alphas = None, _alphas_of(results, state)
         if n_boot and sampled:
@@ -797,7 +804,7 @@ class Session:
                 chosen[name] = _positive(alpha, f"α for {name}")
             if chosen != state.chosen_alpha:
                 state, have = replace(state, chosen_alpha=chosen), {}
-        derived = _derive(design, results, state, cancel, have, sampled=self.sampled)
+        derived = _derive(design, results, state, cancel, have, sample=self._sample_pass())
         return AlphaUpdate(key=self.key(state), name=name, alpha=None if alpha is None else float(alpha), **derived)
 
     def apply_alpha_update(self, update: AlphaUpdate) -> bool:
@@ -825,7 +832,7 @@ class Session:
         if any(k not in self._cache for k in ("agreement", "stress", "ranges")) or (
                 self.design.outcome == "binary" and self._cache.get("classification") is None):
             self._cache.update(_derive(self.design, self.results, self._state, None, self._cache,
-                                       sampled=self.sampled))
+                                       sample=self._sample_pass()))
         return self._cache
 
     _derived = derived_results
@@ -959,11 +966,12 @@ def _alphas_of(results, state: SessionState) -> dict:
     return {name: float(state.chosen_alpha.get(name, pf.alpha)) for name, pf in results.penalized.items()}
 
 
-def _derive(design, results, state: SessionState, cancel, have: Optional[dict] = None, sampled: bool = False) -> dict:
+def _derive(design, results, state: SessionState, cancel, have: Optional[dict] = None, sample=None) -> dict:
     """Models at the chosen α, held-out predictions, agreement, structure, stress results.
 
-    ``sampled``: the design holds a seeded sample of a table read in batches; held-out predictions
-    need each fold's statistics over every row, so there are none (``Session.sample_limits`` says so).
+    ``sample``: the pass (a StreamedFit) whose seeded row sample the design holds, when it is a sample of a
+    table read in batches; held-out predictions then come from its folds' statistics over every row (none
+    when the pass did not keep them; ``Session.sample_limits`` says so).
     """
     have = have or {}
     models = have.get("models")
@@ -981,7 +989,13 @@ def _derive(design, results, state: SessionState, cancel, have: Optional[dict] =
     check(cancel)
     heldout = have.get("heldout")
     if heldout is None:
-        heldout = {} if sampled else engine.heldout_predictions(design, results, models)
+        if sample is None:
+            heldout = engine.heldout_predictions(design, results, models)
+        elif sample.fold_stats:
+            # Each fold's model from every row's cross-products, predicting the sampled rows of that fold.
+            heldout = engine.heldout_predictions(design, results, models, fold_stats=sample.fold_stats)
+        else:
+            heldout = {}
     agreement, structure = have.get("agreement"), have.get("structure")
     if agreement is None:
         agreement = compare_models(design, models, heldout)

@@ -127,9 +127,14 @@ def test_a_sampled_session_says_so_and_withholds_what_needs_every_row(tmp_path):
     assert st.sampled and st.design.n == 300 and st.table.n_rows == 300
     note = st.row_sample_note
     assert "all 1,495 usable rows" in note and "sample of 300" in note and "seed 3" in note
-    # What needs every row is withheld with one line each, not computed on the sample.
-    assert st.heldout() == {} and st.stability is None
-    assert set(st.sample_limits()) == {"heldout", "stability"}
+    # Held-out predictions of the sampled rows come from each fold's cross-products over every row, so
+    # they equal the in-memory route's at those rows (source: the in-memory session).
+    at = np.searchsorted(mem.design.row_numbers, st.design.row_numbers)
+    assert set(st.heldout()) == set(mem.heldout())
+    for name, pred in mem.heldout().items():
+        np.testing.assert_allclose(st.heldout()[name], pred[at], rtol=TOL, atol=TOL * np.abs(pred).max())
+    # Stability needs every group's statistics: withheld with one line, not computed on the sample.
+    assert st.stability is None and set(st.sample_limits()) == {"stability"}
     # Row-level views use the sample: the stress figures cover its 300 rows.
     assert st.stress_results() == () and st.agreement() is not None
     # Ranges over near-best models come from the statistics of every row, so they equal memory's.
@@ -328,7 +333,7 @@ def test_the_report_says_which_rows_the_row_level_views_use(tmp_path):
     html = (tmp_path / "r.html").read_text()
     assert 'id="row-sample"' in html and "a seeded sample of 300 of them (seed 3)" in html
     assert "1495 of the table" in html  # rows used over the whole table, not the sample
-    assert "Stability is not computed" in html and "Held-out predictions are not shown" in html
+    assert "Stability is not computed" in html and "Held-out predictions are not shown" not in html
     assert "--memory-budget 1000000" in html and "memory for rows 1 MB" in html
 
 
@@ -426,3 +431,24 @@ def test_new_roles_on_a_table_read_in_batches_take_effect_at_the_next_pass(pair)
     ref.compute(bootstrap=0)
     _close(ref.results.ols, s.results.ols, "ols")  # source: the same roles in memory
     assert s.undo() and s.design.columns == st.design.columns and "x2" in s.table.names
+
+
+def test_held_out_predictions_of_a_grouped_sample_come_from_every_rows_folds(tmp_path):
+    """Grouped folds on the one-pass grouped route: the sample's held-out predictions equal the in-memory
+    route's at the same rows (source: the in-memory session)."""
+    from regbench.data.stream import stream_fit
+
+    f = _frame(n=1500, seed=1)
+    path = tmp_path / "t.parquet"
+    f.to_parquet(path, index=False, row_group_size=400)
+    roles = Roles(target="y", weights="w", groups="site")
+    settings = FitSettings(folds=4, seed=3)
+    st = Session.from_streamed(path, stream_fit(path, roles, settings, memory_budget=10**6, sample_rows=300),
+                               roles, settings)
+    st.compute(bootstrap=0)
+    mem = Session(read_table(path), roles, settings)
+    mem.compute(bootstrap=0)
+    assert st.sampled and st.sample_limits() == {}
+    at = np.searchsorted(mem.design.row_numbers, st.design.row_numbers)
+    for name, pred in mem.heldout().items():
+        np.testing.assert_allclose(st.heldout()[name], pred[at], rtol=TOL, atol=TOL * np.abs(pred).max())

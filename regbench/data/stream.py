@@ -724,6 +724,9 @@ class StreamedFit:
     sampled: bool
     excluded_total: int
     route: str = "streamed"
+    #: Each CV fold's cross-products over every usable row (GramStats, in fold order): held-out
+    #: predictions of the sampled rows come from them (the sample's own rows would give other models).
+    fold_stats: tuple = field(default=(), compare=False, repr=False)
 
     def notes(self) -> dict:
         """What the fit JSON and the report say about the route and the sample."""
@@ -903,7 +906,8 @@ def _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run
     results = fit_from_stats(design, settings, full, fold_stats, racc, ids, info.n_kept, cancel=cancel)
     report(progress, total, total, "done")
     return StreamedFit(design=design, results=results, rows_used=info.n_kept, sampled=design.n < info.n_kept,
-                       excluded_total=info.n_excluded, route="streamed" if runner is None else "cluster")
+                       excluded_total=info.n_excluded, route="streamed" if runner is None else "cluster",
+                       fold_stats=tuple(fold_stats))
 
 
 def _check_rows(info: RowsInfo, plan: Plan, src: str) -> Columns:
@@ -1031,7 +1035,8 @@ def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sa
     results = fit_from_stats(design, settings, full, fold_stats, racc, fold_of, info.n_kept, cancel=cancel)
     report(progress, total, total, "done")
     return StreamedFit(design=design, results=results, rows_used=info.n_kept, sampled=bool(sampled),
-                       excluded_total=info.n_excluded, route="streamed" if runner is None else "cluster")
+                       excluded_total=info.n_excluded, route="streamed" if runner is None else "cluster",
+                       fold_stats=tuple(fold_stats))
 
 
 def fit_from_stats(design, settings, full, folds, factor, fold_ids, n_obs, cancel=None):

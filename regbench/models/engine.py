@@ -341,7 +341,7 @@ def _relaxation_of(results: FitResults, name: str):
     raise ModelError(f"{name}: its relaxation is not known; fit again")
 
 
-def heldout_predictions(design, results: FitResults, models: dict) -> dict:
+def heldout_predictions(design, results: FitResults, models: dict, fold_stats=None) -> dict:
     """Each row predicted by a model of the same family fitted without that row's fold.
 
     Parameters
@@ -352,6 +352,10 @@ def heldout_predictions(design, results: FitResults, models: dict) -> dict:
     models : dict of name -> LinearModel
         Penalized models are refitted at their own α and L1 ratio; 'ols' is
         refitted on the columns OLS kept.
+    fold_stats : sequence of GramStats, optional
+        Each fold's cross-products over every row when ``design`` holds only a
+        sample of the rows (a table read in batches); the refits then come from
+        ``results.gram`` minus each fold, never from the sample's rows.
 
     Returns
     -------
@@ -364,7 +368,10 @@ def heldout_predictions(design, results: FitResults, models: dict) -> dict:
     K = int(ids.max()) + 1
     if getattr(results, "outcome", "numeric") == "binary":
         return _heldout_binary(design, results, models, ids, K)
-    full, folds = per_fold(design.X, design.y, design.weights, ids, K)
+    if fold_stats is not None:
+        full, folds = results.gram, list(fold_stats)
+    else:
+        full, folds = per_fold(design.X, design.y, design.weights, ids, K)
     train_stats = [_training(full, f, k) for k, f in enumerate(folds)]
     problems = [None] * K
     coding = LevelCoding.of(design)
@@ -374,7 +381,8 @@ def heldout_predictions(design, results: FitResults, models: dict) -> dict:
         pred = np.empty(design.n)
         for k in range(K):
             if name == "ols":
-                fm = _ols_on_stats(design, train_stats[k], ids != k, results.ols.kept)
+                fm = _ols_on_stats(design, train_stats[k], None if fold_stats is not None else ids != k,
+                                   results.ols.kept)
             else:
                 if problems[k] is None:
                     problems[k] = _problem(train_stats[k], design, results.settings)
@@ -423,7 +431,8 @@ def _ols_on_stats(design, stats: GramStats, train_rows, kept) -> LinearModel:
         if live.size:
             Gk = G[np.ix_(live, live)]
             lam, V = np.linalg.eigh(Gk)
-            if lam[0] > lam[-1] / GRAM_COND_LIMIT:
+            if lam[0] > lam[-1] / GRAM_COND_LIMIT or train_rows is None:
+                # Without the rows (a sample of a table read in batches) the cross-products are all there is.
                 coef[live] = (V @ ((V.T @ c[live]) / lam)) / sd[live]
             else:
                 import scipy.linalg
