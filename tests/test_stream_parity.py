@@ -302,3 +302,22 @@ def test_one_column_in_two_parts_is_refused_with_the_in_memory_words(tmp_path):
             stream_fit(path, roles, FitSettings(), memory_budget=10**7)
         # Source: the in-memory route (data/design.py).
         assert str(streamed.value).split(": ", 1)[-1] == str(mem.value).split(": ", 1)[-1]
+
+
+@pytest.mark.parametrize("ext", ["parquet", "csv"])
+def test_text_of_yes_no_words_is_read_as_one_and_zero_as_in_memory(tmp_path, ext):
+    f = _frame(n=900, seed=13)
+    rng = np.random.default_rng(3)
+    f["covered"] = rng.choice(["Yes", "no", "yes ", "NO"], len(f))
+    f.loc[[5, 6], "covered"] = "NA"
+    f["y"] = f["y"] + 0.7 * f["covered"].str.strip().str.lower().eq("yes")
+    path = tmp_path / f"t.{ext}"
+    f.to_parquet(path, index=False, row_group_size=200) if ext == "parquet" else f.to_csv(path, index=False)
+    roles = Roles(target="y", predictors=("x0", "covered", "soil", "x1"))
+    settings = FitSettings(folds=3, seed=1)
+    design, results = _in_memory(path, roles, settings)
+    # Source: the in-memory reader types such a column as yes/no (1 and 0) and excludes the rows it misses.
+    assert "covered" in design.columns and len(design.excluded) == 2
+    s = stream_fit(path, roles, settings, memory_budget=1_000_000)
+    assert [e.row for e in s.design.excluded] == [e.row for e in design.excluded]
+    _compare(s, design, results)

@@ -27,8 +27,8 @@ are those of the in-memory route (same seed, same groups, same row order), so
 the fit equals the in-memory fit to round-off.
 
 What the streamed route does not do: yes/no outcomes (a logistic fit needs a pass over
-the rows per step) and text columns holding yes/no words or mostly numbers are refused
-with one line; a CSV with text in a numeric column is refused with one line naming the
+the rows per step) and text columns holding mostly numbers are refused with one line (a
+text column of yes/no words is read as 1 and 0, as in memory); a CSV with text in a numeric column is refused with one line naming the
 column, the row and the text of the first such cell, where the in-memory route sets the
 column aside.
 """
@@ -329,6 +329,8 @@ class Plan:
         The design columns a batch yields; by default every column the coding gives.
     set_aside : tuple of UnusableColumn
         Columns the default choice of predictors left out (identifiers, empty columns).
+    booleans : tuple of str
+        Text predictors of yes/no words (also in ``text``), read as 1 and 0 as the in-memory reader does.
     """
 
     target: str
@@ -342,6 +344,7 @@ class Plan:
     derived: tuple = ()
     design: Optional[tuple] = None
     set_aside: tuple = ()
+    booleans: tuple = ()
 
     @property
     def design_columns(self) -> tuple:
@@ -384,14 +387,22 @@ def prepare_batch(b: dict, plan: Plan) -> dict:
     index (NaN where missing), ready for :func:`_keep_mask` and :func:`_kept_arrays`."""
     from regbench.data.derive import _values
 
-    for d, affine in plan.derived:
-        b[d.name] = _values(d, [b[c] for c in d.columns], affine)
-    if not plan.levels:
-        return b
     import pyarrow as pa
     import pyarrow.compute as pc
 
     from regbench.data.survey import _stripped
+
+    for c in plan.booleans:
+        from regbench.data.reader import _FALSE, _TRUE
+
+        low = pc.utf8_lower(_stripped(b[c]))
+        yes = pc.is_in(low, value_set=pa.array(sorted(_TRUE))).to_numpy(zero_copy_only=False)
+        no = pc.is_in(low, value_set=pa.array(sorted(_FALSE))).to_numpy(zero_copy_only=False)
+        b[c] = np.where(yes, 1.0, np.where(no, 0.0, np.nan))
+    for d, affine in plan.derived:
+        b[d.name] = _values(d, [b[c] for c in d.columns], affine)
+    if not plan.levels:
+        return b
 
     numbers = {c: dict(v) for c, v in plan.number_levels}
     for c, levels in plan.levels:
@@ -815,7 +826,8 @@ def plan_for(path, roles, budget: Optional[int] = None, run=None, cancel=None) -
                 batch_rows=batch_rows_for(budget, len(found.predictors) + 3),
                 levels=tuple(found.levels.items()),
                 number_levels=tuple((c, tuple(v.items())) for c, v in found.number_levels.items()),
-                text=text, derived=found.derived, set_aside=found.set_aside)
+                text=text + found.booleans, derived=found.derived, set_aside=found.set_aside,
+                booleans=found.booleans)
 
 
 def _folds_by_group(info: RowsInfo, plan: Plan, K: int, seed: int):

@@ -374,6 +374,8 @@ class Findings:
         Columns the default choice leaves out (identifier, empty, numbers written as text).
     derived : tuple of (Derived, affine)
         Each derived column with the (mean, SD) a standardized one is made with (else None).
+    booleans : tuple of str
+        Text predictors of yes/no words, read as 1 ("yes", "true" …) and 0.
     """
 
     predictors: tuple
@@ -381,6 +383,7 @@ class Findings:
     number_levels: dict
     set_aside: tuple
     derived: tuple
+    booleans: tuple = ()
 
 
 def _yes_no_line(src: str, target: str, values) -> str:
@@ -548,9 +551,7 @@ def _text_column(src, c, cs: ColumnSurvey, named: bool):
     if not present:
         return present, None, "empty"
     if {t.lower() for t in present} <= (_TRUE | _FALSE):
-        return present, (f"{src}: column '{c}' holds yes/no words, which the streamed route does not read as "
-                         "0 and 1; leave it out of the predictors, or read the table in memory (without "
-                         "--memory-budget)"), None
+        return present, None, "boolean"
     total = sum(present.values())
     numbers = sum(k for t, k in present.items() if _is_number(t))
     if numbers and numbers >= NUMERIC_SHARE * total:
@@ -603,7 +604,7 @@ def findings(src, roles, kinds: dict, plan: SurveyPlan, survey: Survey, n_rows: 
     derived_names = [d.name for d in roles.derived]
     names = list(kinds) + derived_names
     predictors = [c for c in (names if default else roles.predictors) if c not in taken]
-    set_aside, levels, number_levels = [], {}, {}
+    set_aside, levels, number_levels, booleans = [], {}, {}, []
     keep = []
     for c in predictors:
         kind = NUMBER if c in derived_names else kinds[c]
@@ -618,6 +619,15 @@ def findings(src, roles, kinds: dict, plan: SurveyPlan, survey: Survey, n_rows: 
             present, refuse, rule = _text_column(src, c, cs, not default)
             if refuse:
                 raise DataError(refuse)
+            if rule == "boolean":
+                if c in roles.categorical:
+                    raise DataError(f"{src}: column '{c}' holds yes/no words, which the streamed route reads as 1 and "
+                                    "0, not as categories; leave it out of the categorical columns, or read the "
+                                    "table in memory (without --memory-budget)")
+                # Yes/no words are the numbers 1 and 0, as the in-memory reader types them.
+                booleans.append(c)
+                keep.append(c)
+                continue
             distinct = len(present) if present is not None else None
             if rule is None and default and (distinct is None or distinct > max(IDENTIFIER_LEVELS, n_rows / 10)):
                 rule = "identifier"
@@ -660,4 +670,4 @@ def findings(src, roles, kinds: dict, plan: SurveyPlan, survey: Survey, n_rows: 
         raise DataError(f"{src}: no predictor columns; choose at least one column besides the target"
                         + (f"; left out: {', '.join(ids)}; name it among the predictors to use it" if ids else ""))
     return Findings(predictors=tuple(keep), levels=levels, number_levels=number_levels, set_aside=tuple(set_aside),
-                    derived=derived)
+                    derived=derived, booleans=tuple(booleans))
