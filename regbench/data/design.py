@@ -17,7 +17,7 @@ import numpy as np
 
 from regbench.data.derive import Derived, apply_derived
 from regbench.data.identifiers import identifier_reason, looks_like_identifier
-from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC, Table
+from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC, Table, side_by_side
 from regbench.errors import DataError
 
 #: What a weight column can mean (see :class:`Roles`).
@@ -318,14 +318,14 @@ def build_design(table: Table, roles: Roles) -> Design:
     w = w_all[rows] if count_total is None else w_all[rows] * count_total[rows]
     _check_usable_values(src, roles, outcome, outcome_levels, y, w, rows)
     names, sources, mats, references = _code_predictors(blocks, rows, w, unusable, src)
-    X = np.hstack(mats)
+    X = _design_matrix(mats, rows, n)
     # As many columns as rows or more (a wide table) is allowed: OLS keeps a largest
     # independent set and says which columns it set aside for want of rows; the penalized
     # families fit on any number of columns.
     _check_magnitudes(src, X, names, y, w, rn[rows], roles)
     groups, labels = _group_codes(frame, roles, rows)
     return Design(
-        X=np.ascontiguousarray(X, dtype=np.float64),
+        X=X,
         y=y.astype(np.float64),
         weights=w.astype(np.float64),
         groups=groups,
@@ -347,6 +347,27 @@ def build_design(table: Table, roles: Roles) -> Design:
         no_count_column=roles.no_count,
         reference_levels=tuple(references),
     )
+
+
+def _design_matrix(mats, rows, n: int) -> np.ndarray:
+    """The design's (rows, p) float64 matrix, columns contiguous (Fortran order).
+
+    ``mats`` holds, per design column, either its values on every table row (a numeric
+    column, not yet restricted to ``rows``) or its values on the usable rows (a coded level).
+    When every row is usable and the numeric columns lie side by side in the table's block
+    (:func:`regbench.data.table.side_by_side`), the design is a read-only view of the table:
+    the numbers are held once.  Otherwise they are copied column by column into one matrix,
+    without a second temporary copy.
+    """
+    every_row = rows.size == n
+    if every_row and all(m.shape[0] == n for m in mats):
+        view = side_by_side([np.asarray(m, dtype=np.float64) for m in mats])
+        if view is not None:
+            return view
+    X = np.empty((rows.size, len(mats)), dtype=np.float64, order="F")
+    for j, m in enumerate(mats):
+        X[:, j] = m if m.shape[0] == rows.size else m[rows]
+    return X
 
 
 def _column_notes(table: Table) -> tuple:
@@ -586,19 +607,21 @@ def _code_predictors(blocks, rows, w, unusable: list, src: str) -> tuple:
 
     Returns
     -------
-    (names, sources, mats, references) : (list, list, list of (n, 1) arrays, list)
+    (names, sources, mats, references) : (list, list, list of arrays, list)
+        ``mats``: a numeric column's values on every table row, a level's indicator on the
+        usable rows (see :func:`_design_matrix`).
     """
     names, sources, mats = [], [], []
     references = []
     for kind, col, raw in blocks:
         if kind == "num":
-            x = raw[rows]
+            x = raw if rows.size == raw.shape[0] else raw[rows]
             if np.ptp(x[w > 0]) == 0 if np.any(w > 0) else True:
                 unusable.append(UnusableColumn(col, f"constant ({x[0]:g}) on every usable row", rule="constant"))
                 continue
             names.append(col)
             sources.append(col)
-            mats.append(x[:, None])
+            mats.append(raw)  # every table row: the matrix is built once, on the usable rows
         else:
             vals = raw.to_numpy(dtype=object)[rows]
             texts = np.array([_level_text(v) for v in vals], dtype=object)
@@ -610,7 +633,7 @@ def _code_predictors(blocks, rows, w, unusable: list, src: str) -> tuple:
             for lev in levels[1:]:
                 names.append(f"{col}={lev}")
                 sources.append(col)
-                mats.append((texts == lev).astype(float)[:, None])
+                mats.append((texts == lev).astype(float))
             references.append((col, levels[0], tuple(f"{col}={lev}" for lev in levels[1:])))
     if not mats:
         reasons_txt = "; ".join(f"{u.column}: {u.reason}" for u in unusable)
@@ -627,10 +650,14 @@ def _group_codes(frame, roles: Roles, rows) -> tuple:
     without a group column."""
     if roles.groups is None:
         return None, ()
-    gtext = np.array([_level_text(v) for v in frame[roles.groups].to_numpy(dtype=object)[rows]], dtype=object)
-    labels = tuple(sorted(set(gtext)))
+    import pandas as pd
+
+    # Each distinct value is turned into text once (a long column costs one hashing pass).
+    found, uniques = pd.factorize(frame[roles.groups].to_numpy(dtype=object)[rows], sort=False)
+    texts = [_level_text(v) for v in uniques]
+    labels = tuple(sorted(set(texts)))
     code = {g: k for k, g in enumerate(labels)}
-    return np.array([code[g] for g in gtext], dtype=np.int64), labels
+    return np.array([code[t] for t in texts], dtype=np.int64)[found], labels
 
 
 #: Target values read as "yes" when a text outcome has one of them (case ignored).

@@ -17,7 +17,7 @@ from typing import Optional
 import numpy as np
 import pandas as pd
 
-from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC, ColumnInfo, Table
+from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC, ColumnInfo, Table, column_block, frame_of
 from regbench.errors import DataError
 
 #: Cell texts read as "no value".
@@ -412,9 +412,16 @@ def _percentages(texts: pd.Series, bad: np.ndarray, style=PLAIN):
 def _why_text(texts: pd.Series, present: np.ndarray, bad: np.ndarray, rows=None) -> str:
     """The note for a column that looks numeric but is read as text, naming rows and cells."""
     idx = np.flatnonzero(bad)
+    n_num = int(present.sum() - bad.sum())
+    if n_num + idx.size < LOOKS_NUMERIC_SHARE * int(present.sum()):
+        return ""
+    if n_num < LOOKS_NUMERIC_SHARE * int(present.sum()):
+        # Only cells written with a comma can add to the numbers; counting commas is cheap.
+        with_comma = int(texts.iloc[idx].astype(str).str.contains(",", regex=False).sum())
+        if n_num + with_comma < LOOKS_NUMERIC_SHARE * int(present.sum()) or n_num + with_comma == 0:
+            return ""
     cells = [str(texts.iat[i]) for i in idx]
     comma = [bool(_DECIMAL_COMMA.fullmatch(c) or _THOUSANDS_COMMA.fullmatch(c)) for c in cells]
-    n_num = int(present.sum() - bad.sum())
     looks = n_num + sum(comma)
     total = int(present.sum())
     if looks == 0 or looks < LOOKS_NUMERIC_SHARE * total:
@@ -599,25 +606,76 @@ def _check_formulas(path, name, label, rows):
 
 
 def _read_parquet(path, name):
+    """Numeric columns straight into one float64 block, a few columns at a time.
+
+    Each group of columns is decoded by pyarrow, copied into its place in the block and
+    released before the next, so the read holds the table's numbers once plus one group
+    (compare ``pq.read_table`` + ``to_pandas``, which holds them three times).  Other columns
+    (text, booleans, dates, decimals) are typed from their cells as before.
+    """
     try:
+        import pyarrow as pa
         import pyarrow.parquet as pq
     except ImportError:  # pragma: no cover - declared dependency
         raise DataError("reading Parquet needs the pyarrow package; reinstall regbench") from None
+
+    def unreadable(exc):
+        return DataError(f"{name}: not a readable Parquet file ({type(exc).__name__}: {str(exc)[:200]}); export "
+                         "it again")
+
     try:
-        names = [str(n) for n in pq.read_schema(path).names]
+        pf = pq.ParquetFile(path)
+        schema = pf.schema_arrow
     except Exception as exc:
-        raise DataError(f"{name}: not a readable Parquet file ({type(exc).__name__}: {str(exc)[:200]}); export "
-                        "it again") from None
-    _check_header(names, name)
-    try:
-        tab = pq.read_table(path)
-    except Exception as exc:
-        raise DataError(f"{name}: not a readable Parquet file ({type(exc).__name__}: {str(exc)[:200]}); export "
-                        "it again") from None
-    header = [str(c) for c in tab.column_names]
+        raise unreadable(exc) from None
+    header = [str(n) for n in schema.names]
     _check_header(header, name)
-    frame = tab.to_pandas()
-    return _typed_frame(frame, header, name)
+    n = pf.metadata.num_rows
+    if n == 0:
+        raise DataError(f"{name}: the header is there but no data rows follow")
+    numeric = [f.name for f in schema if pa.types.is_integer(f.type) or pa.types.is_floating(f.type)]
+    block = column_block(n, len(numeric))
+    slot = {c: k for k, c in enumerate(numeric)}
+    data, infos = {}, {}
+    for group in _column_groups(schema.names, n):
+        try:
+            tab = pf.read(columns=group, use_threads=True)
+        except Exception as exc:
+            raise unreadable(exc) from None
+        if tab.num_rows != n:
+            raise DataError(f"{name}: holds {tab.num_rows} rows where its description says {n}; export it again")
+        for c in group:
+            h = str(c)
+            col = tab.column(c)
+            if c in slot:
+                out = block[:, slot[c]]
+                _fill(out, col)
+                values, info = _type_numeric_column(h, out, n, copy=False)
+            else:
+                values, info = _type_cells(h, col.to_pandas(), n)
+            data[h], infos[h] = values, info
+        del tab
+    return Table(frame=frame_of(header, data, n), columns=infos, source=name)
+
+
+#: Bytes of decoded columns held at once while a Parquet file is read into its block.
+PARQUET_GROUP_BYTES = 64 * 2**20
+
+
+def _column_groups(names, n):
+    """The columns in file order, in groups of about :data:`PARQUET_GROUP_BYTES` of float64."""
+    per = max(1, PARQUET_GROUP_BYTES // (8 * n))
+    names = list(names)
+    return [names[i:i + per] for i in range(0, len(names), per)]
+
+
+def _fill(out: np.ndarray, col) -> None:
+    """Copy a pyarrow numeric column (nulls as NaN) into ``out`` chunk by chunk."""
+    a = 0
+    for chunk in col.chunks:
+        b = a + len(chunk)
+        out[a:b] = chunk.to_numpy(zero_copy_only=False)
+        a = b
 
 
 # -- typing ------------------------------------------------------------------------------
@@ -662,22 +720,26 @@ def _typed_frame(frame: pd.DataFrame, header, name) -> Table:
     data = {}
     infos = {}
     for j, h in enumerate(header):
-        col = frame.iloc[:, j]
-        if pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col):
-            values, info = _type_numeric_column(h, col.to_numpy(dtype=float, na_value=np.nan), n)
-        elif pd.api.types.infer_dtype(col, skipna=True) in ("string", "empty"):
-            # Text only: the vectorized text rules, as for a CSV column.
-            values, info = _type_text_series(h, col.astype(object).where(pd.notna(col), None), n)
-        else:
-            cells = col.astype(object).where(pd.notna(col), None).tolist()
-            values, info = _type_column(h, cells, n)
-        data[h] = values
-        infos[h] = info
+        data[h], infos[h] = _type_cells(h, frame.iloc[:, j], n)
     return Table(frame=pd.DataFrame(data, index=pd.RangeIndex(n)), columns=infos, source=name)
 
 
-def _type_numeric_column(name, nums, n):
-    """The numeric branch of :func:`_type_column` for a column stored as numbers (same result, vectorized)."""
+def _type_cells(h, col: pd.Series, n):
+    """One column of a frame typed: numbers as they are, text by the text rules, anything else cell by cell."""
+    if pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col):
+        return _type_numeric_column(h, col.to_numpy(dtype=float, na_value=np.nan), n)
+    if pd.api.types.infer_dtype(col, skipna=True) in ("string", "empty"):
+        # Text only: the vectorized text rules, as for a CSV column.
+        return _type_text_series(h, col.astype(object).where(pd.notna(col), None), n)
+    cells = col.astype(object).where(pd.notna(col), None).tolist()
+    return _type_column(h, cells, n)
+
+
+def _type_numeric_column(name, nums, n, copy: bool = True):
+    """The numeric branch of :func:`_type_column` for a column stored as numbers (same result, vectorized).
+
+    ``copy=False`` returns ``nums`` itself as the column's values (a column of a reader's block).
+    """
     missing = int(np.isnan(nums).sum())
     if missing == n:
         return np.full(n, np.nan), ColumnInfo(name, EMPTY, missing, 0)
@@ -690,7 +752,7 @@ def _type_numeric_column(name, nums, n):
         and np.all(finite == np.round(finite))
         and finite.size >= 2 * distinct
     )
-    return nums.copy(), ColumnInfo(name, NUMERIC, missing, distinct, coded, ())
+    return (nums.copy() if copy else nums), ColumnInfo(name, NUMERIC, missing, distinct, coded, ())
 
 
 def _cell_text(v):

@@ -3,8 +3,9 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Mapping
+from typing import Mapping, Optional
 
+import numpy as np
 import pandas as pd
 
 NUMERIC = "numeric"
@@ -111,3 +112,50 @@ class Table:
                 + f"; its columns are: {', '.join(self.names)}"
             )
         return self.columns[name]
+
+
+def column_block(n: int, k: int) -> np.ndarray:
+    """An empty (n, k) float64 matrix whose columns are contiguous, for the numeric columns of a table.
+
+    Readers fill it column by column and hand each column to :func:`frame_of` as a view, so the
+    typed table holds its numbers once and the design can take a run of them without copying
+    (:func:`side_by_side`).
+    """
+    return np.empty((n, k), dtype=np.float64, order="F")
+
+
+def frame_of(header, data: Mapping, n: int) -> pd.DataFrame:
+    """The table's frame over ``data`` (column name to values) in ``header`` order, without copying."""
+    return pd.DataFrame({h: data[h] for h in header}, index=pd.RangeIndex(n), copy=False)
+
+
+def _root(a: np.ndarray) -> np.ndarray:
+    while isinstance(a.base, np.ndarray):
+        a = a.base
+    return a
+
+
+def side_by_side(arrays) -> Optional[np.ndarray]:
+    """A read-only (n, p) view over float64 columns that lie side by side in one block, else None.
+
+    Columns of a :func:`column_block`, taken in block order without gaps, are one matrix already:
+    the design of a table whose predictors are such a run shares the table's memory instead of
+    copying it.  The view is read-only so that no fit can change the table under it.
+    """
+    if not arrays:
+        return None
+    a0 = arrays[0]
+    n = a0.shape[0] if a0.ndim == 1 else -1
+    if any(a.ndim != 1 or a.dtype != np.float64 or a.shape[0] != n or a.strides[0] != 8 for a in arrays) or n < 1:
+        return None
+    root = _root(a0)
+    if any(_root(a) is not root for a in arrays[1:]):
+        return None
+    addr = [a.__array_interface__["data"][0] for a in arrays]
+    step = addr[1] - addr[0] if len(arrays) > 1 else n * 8
+    if step < n * 8 or any(addr[j] != addr[0] + j * step for j in range(len(arrays))):
+        return None
+    start = root.__array_interface__["data"][0]
+    if not root.flags.forc or addr[0] < start or addr[-1] + n * 8 > start + root.nbytes:
+        return None
+    return np.lib.stride_tricks.as_strided(a0, shape=(n, len(arrays)), strides=(8, step), writeable=False)
