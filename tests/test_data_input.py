@@ -255,8 +255,14 @@ def test_fast_and_careful_csv_readers_agree(tmp_path, monkeypatch):
     )
     p = write(tmp_path, "mix.csv", text)
     fast = read_table(p)
+    monkeypatch.setattr(reader, "_read_text_direct", lambda *a: None)
+    from_text = read_table(p)
     monkeypatch.setattr(reader, "_read_text_fast", lambda *a: None)
     careful = read_table(p)
+    for got in (fast, from_text):
+        assert got.columns == careful.columns
+        pd.testing.assert_frame_equal(got.frame, careful.frame)
+        assert got.line_numbers == careful.line_numbers
     assert fast.names == careful.names
     assert fast.columns == careful.columns
     pd.testing.assert_frame_equal(fast.frame, careful.frame)

@@ -212,6 +212,9 @@ def _line_ends(text: str) -> str:
 def _read_text(path, name, sep, encoding, style=PLAIN):
     import csv
 
+    fast = _read_text_direct(path, name, sep, encoding, style)
+    if fast is not None:
+        return fast
     try:
         with open(path, "rb") as fh:
             raw = fh.read()
@@ -274,6 +277,121 @@ def _read_text(path, name, sep, encoding, style=PLAIN):
         rows = None
     table = _typed_text_frame(frame, header, name, style, rows)
     return _with_line_numbers(table, rows)
+
+
+_UTF8_NAMES = frozenset({"utf-8", "utf8", "utf-8-sig", "utf_8", "utf_8_sig"})
+
+
+def _plain_bytes(path):
+    """The file's first bytes when it holds no NUL byte and no carriage return outside CR LF, else None."""
+    import mmap
+
+    with open(path, "rb") as fh, mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_READ) as mm:
+        if mm.find(b"\x00") >= 0:
+            return None
+        at = mm.find(b"\r")
+        while at >= 0:  # rare: only files with carriage returns are walked
+            if mm[at + 1:at + 2] != b"\n":
+                return None
+            at = mm.find(b"\r", at + 2)
+        return mm[:65536]
+
+
+def _read_text_direct(path, name, sep, encoding, style=PLAIN):
+    """pandas' C parser straight from the file; None when the file needs the readers below.
+
+    Taken for UTF-8 files with plain numbers (no decimal comma or thousands separator), no NUL
+    bytes, no lone carriage returns, no blank lines above the header and an unquoted header — a
+    cheap scan of the bytes decides.  Numeric columns stay in the parser's float64 block, which
+    the table shares (pandas' float parsing equals Python's ``float`` of the text; a test keeps
+    that honest); every other column is typed from its cell texts by the careful reader's rules.
+    Blank lines are read as empty rows, so each row keeps the number of its line.  Anything the
+    parser refuses (ragged rows, bad quoting, bad UTF-8) goes to the careful reader, which names
+    the line.
+    """
+    import csv
+
+    if not style.plain or (encoding is not None and encoding.lower() not in _UTF8_NAMES):
+        return None
+    try:
+        head = _plain_bytes(path)
+    except (OSError, ValueError):
+        return None
+    if head is None or head.startswith((b"\xff\xfe", b"\xfe\xff")) or any(head.startswith(m) for m, _ in _MAGIC):
+        return None
+    text = head.decode("utf-8", errors="replace").lstrip("\ufeff")
+    first_line = text.split("\n", 1)[0].rstrip("\r")
+    if not text[:1].strip() or '"' in first_line or "\n" not in text:
+        return None
+    if sep is None:
+        try:
+            sep = csv.Sniffer().sniff(text[:20000], delimiters=",;\t").delimiter
+        except csv.Error:
+            sep = ","
+    first = next(csv.reader(io.StringIO(first_line), delimiter=sep), None)
+    if not first:
+        return None
+    header = [h.strip() for h in first]
+    _check_header(header, name)
+    frame = _parse_direct(path, sep, len(header))
+    if frame is None:
+        return None
+    return _typed_direct(frame, header, name, path, sep)
+
+
+def _parse_direct(path, sep, width, only=None):
+    """The rows under the header as pandas parses them (blank lines as empty rows), or None."""
+    na = sorted({v for t in MISSING_TEXTS for v in (t, t.upper(), t.title())})
+    texts = {} if only is None else {"usecols": only, "dtype": str, "na_filter": False}
+    try:
+        return pd.read_csv(path, sep=sep, header=None, skiprows=1, names=range(width), keep_default_na=False,
+                           na_values=na, skip_blank_lines=False, engine="c", index_col=False, encoding="utf-8",
+                           **texts)
+    except Exception:  # any parser complaint: the careful reader names the row
+        return None
+
+
+def _typed_direct(frame, header, name, path, sep):
+    """Type the parsed columns; rows with every cell missing are dropped like blank lines."""
+    empty = frame.isna().all(axis=1).to_numpy()
+    keep = None
+    if empty.any():
+        keep = np.flatnonzero(~empty)
+        frame = frame.iloc[keep].reset_index(drop=True)
+    n = len(frame)
+    if n == 0:
+        raise DataError(f"{name}: the header is there but no data rows follow")
+    # Row k of the parse is line k under the header, unless a quoted cell spans lines (refused below).
+    rows = None if keep is None or np.array_equal(keep, np.arange(n)) else keep + 1
+    kinds = [_parsed_kind(frame[j]) for j in range(len(header))]
+    other = [j for j, k in enumerate(kinds) if k == "other"]
+    raw = _parse_direct(path, sep, len(header), other) if other else None
+    if other and (raw is None or len(raw) != len(empty)):
+        return None
+    data, infos = {}, {}
+    for j, h in enumerate(header):
+        col = frame[j]
+        if kinds[j] == "number":
+            # A float64 column is the parser's own memory (no copy); whole numbers become floats.
+            nums = col.to_numpy() if col.dtype == np.float64 else col.to_numpy(dtype=np.float64, na_value=np.nan)
+            data[h], infos[h] = _type_numeric_column(h, nums, n, copy=False)
+            continue
+        if kinds[j] == "other":
+            col = raw[j] if keep is None else raw[j].iloc[keep].reset_index(drop=True)
+        if col.str.contains("\n", regex=False).any():
+            return None  # a quoted cell over several lines: the careful reader checks its quotes
+        data[h], infos[h] = _type_text_series(h, col, n, PLAIN, rows)
+    return _with_line_numbers(Table(frame=frame_of(header, data, n), columns=infos, source=name), rows)
+
+
+def _parsed_kind(col: pd.Series) -> str:
+    """'number' (kept as parsed), 'text' (typed from its texts) or 'other' (booleans or a column of
+    mixed cells: parsed again as texts, so the file's spelling is kept)."""
+    if pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col):
+        return "number"
+    if pd.api.types.is_string_dtype(col) and pd.api.types.infer_dtype(col, skipna=True) in ("string", "empty"):
+        return "text"
+    return "other"
 
 
 def _check_quotes(records, name, sep, lead):
@@ -450,48 +568,63 @@ def _rows_text(rows) -> str:
 
 def _boolean_words(texts) -> tuple:
     """(false word, true word) as the file most often spells them, or () unless both occur."""
-    counts = Counter(str(t) for t in texts)
+    counts = texts if isinstance(texts, Counter) else Counter(str(t) for t in texts)
     false = [t for t, _ in counts.most_common() if t.lower() in _FALSE]
     true = [t for t, _ in counts.most_common() if t.lower() in _TRUE]
     return (false[0], true[0]) if false and true else ()
 
 
 def _type_text_series(name, col, n, style=PLAIN, rows=None):
-    stripped = col.astype(object).where(col.notna(), None).str.strip()
-    lowered = stripped.str.lower()
-    present = ~(stripped.isna() | lowered.isin(MISSING_TEXTS)).to_numpy()
+    """Type a column of cell texts (None or NaN where empty) by the rules of :func:`_type_column`.
+
+    Every rule looks at one cell at a time, so each distinct text is looked at once and the
+    answers are spread over the rows by their codes: a column of a few hundred labels over a
+    million rows costs one hashing pass, not a million string operations.
+    """
+    codes, uniq = pd.factorize(col, use_na_sentinel=True)
+    m = len(uniq)
+    codes = np.where(codes < 0, m, codes)  # the empty cells share one extra slot
+    u = pd.Series(list(uniq) + [None], dtype=object)
+    stripped_u = u.where(u.notna(), None).str.strip()
+    lowered_u = stripped_u.str.lower()
+    present_u = ~(stripped_u.isna() | lowered_u.isin(MISSING_TEXTS)).to_numpy()
+    present = present_u[codes]
     missing = int(n - present.sum())
     if not present.any():
         return np.full(n, np.nan), ColumnInfo(name, EMPTY, missing, 0)
-    uniq = set(lowered[present].unique())
-    if uniq <= (_TRUE | _FALSE):
-        vals = np.full(n, np.nan)
-        vals[present] = lowered[present].isin(_TRUE).to_numpy().astype(float)
-        return vals, ColumnInfo(name, BOOLEAN, missing, len(uniq), words=_boolean_words(stripped[present]))
-    texts = stripped.where(present, None)
-    nums = _parse_numbers(texts, style)
-    bad = present & np.isnan(nums)
+    words_u = set(lowered_u[present_u])
+    if words_u <= (_TRUE | _FALSE):
+        truth_u = np.where(present_u, lowered_u.isin(_TRUE).to_numpy().astype(float), np.nan)
+        counts = np.bincount(codes, minlength=m + 1)
+        spelled = Counter()
+        for k in np.flatnonzero(present_u):
+            spelled[stripped_u.iat[k]] += int(counts[k])
+        return truth_u[codes], ColumnInfo(name, BOOLEAN, missing, len(words_u), words=_boolean_words(spelled))
+    texts_u = stripped_u.where(present_u, None)
+    nums_u = _parse_numbers(texts_u, style)
+    bad_u = present_u & np.isnan(nums_u)
     note = ""
-    if bad.any():
-        pct = _percentages(texts, bad, style)
-        if np.isfinite(pct).any():
-            nums = np.where(np.isfinite(pct), pct, nums)
-            bad = present & np.isnan(nums)
-            k = int(np.isfinite(pct).sum())
+    if bad_u.any():
+        pct_u = _percentages(texts_u, bad_u, style)
+        if np.isfinite(pct_u).any():
+            nums_u = np.where(np.isfinite(pct_u), pct_u, nums_u)
+            bad_u = present_u & np.isnan(nums_u)
+            hit = np.flatnonzero(np.isfinite(pct_u)[codes])
+            k = hit.size
             note = (f"{k} cell{'s' if k > 1 else ''} written as percentages read as numbers of percent "
-                    f"('{texts.iat[int(np.flatnonzero(np.isfinite(pct))[0])]}' is read as "
-                    f"{pct[np.isfinite(pct)][0]:g})")
+                    f"('{texts_u.iat[codes[hit[0]]]}' is read as {pct_u[codes[hit[0]]]:g})")
+    nums, bad = nums_u[codes], bad_u[codes]
     n_num = int(present.sum() - bad.sum())
     if n_num and n_num >= NUMERIC_SHARE * present.sum():
         nums = np.where(present, nums, np.nan)
         _, info = _type_numeric_column(name, nums, n)
         bad_idx = np.flatnonzero(bad)
-        bad_cells = tuple((int(rows[i]) if rows is not None else int(i) + 1, texts.iat[i]) for i in bad_idx)
+        bad_cells = tuple((int(rows[i]) if rows is not None else int(i) + 1, texts_u.iat[codes[i]]) for i in bad_idx)
         return nums, ColumnInfo(name, NUMERIC, missing, info.distinct, info.coded_categories, bad_cells, note)
-    vals = texts.to_numpy(dtype=object, copy=True)
-    vals[~present] = None  # the Table's convention for a missing category (not NaN)
-    return vals, ColumnInfo(name, CATEGORICAL, missing, len(set(vals[present])),
-                            note=_why_text(texts, present, bad, rows))
+    vals = texts_u.to_numpy(dtype=object)[codes]  # None where missing: the Table's convention for a category
+    distinct = len(set(texts_u[present_u]))
+    return vals, ColumnInfo(name, CATEGORICAL, missing, distinct,
+                            note=_why_text(pd.Series(vals, dtype=object), present, bad, rows))
 
 
 def _read_xlsx(path, name, sheet):
