@@ -162,8 +162,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="with --targets: also the 3M and 10M row tables (about 10 GB of disk, several minutes)")
     p.add_argument("--pairs", type=int, default=3, help="paired runs per ratio (default 3)")
     p.add_argument("--only", metavar="NAMES",
-                   help="with --targets: only these, comma-separated (stability, startup, headline, wide_rows, "
-                        "memory_1m, stream_3m, stream_10m)")
+                   help="with --targets: only these, comma-separated (stability, startup, headline, read_csv, "
+                        "read_parquet, open_project, wide_rows, memory_1m, stream_3m, stream_10m)")
     p.add_argument("--wide", action="store_true",
                    help="only the wide case: 200 rows × 2,000 sensors, regbench against the scripted route")
     p.add_argument("--logistic", action="store_true",

@@ -73,13 +73,33 @@ def table_fingerprint(table: Table) -> str:
         if info.kind in ("numeric", "boolean", "empty"):
             h.update(np.ascontiguousarray(col.to_numpy(dtype=np.float64)).tobytes())
         else:
-            for v in col.to_numpy(dtype=object):
-                if v is None or (isinstance(v, float) and math.isnan(v)):
-                    h.update(b"\x01")
-                else:
-                    b = str(v).encode("utf-8")
-                    h.update(b"\x02" + len(b).to_bytes(8, "little") + b)
+            h.update(_text_bytes(col.to_numpy(dtype=object)))
     return h.hexdigest()
+
+
+def _text_bytes(values) -> bytes:
+    """A text column as the fingerprint hashes it: b"\\x01" for a missing cell, else b"\\x02", the
+    length of its UTF-8 text (8 bytes, little-endian) and the text.  Each distinct value is
+    encoded once; the pieces are joined in row order (the same bytes as cell after cell)."""
+    import pandas as pd
+
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)
+    if not all(isinstance(v, str) for v in uniques):
+        # Hashing merges equal values of different types (1, 1.0, True) whose texts differ.
+        codes, uniques = np.arange(len(values)), [None if _missing(v) else v for v in values]
+    pieces = []
+    for v in uniques:
+        if _missing(v):
+            pieces.append(b"\x01")
+        else:
+            b = str(v).encode("utf-8")
+            pieces.append(b"\x02" + len(b).to_bytes(8, "little") + b)
+    pieces.append(b"\x01")  # factorize's code -1: a missing cell
+    return b"".join([pieces[c] for c in codes])
+
+
+def _missing(v) -> bool:
+    return v is None or (isinstance(v, float) and math.isnan(v))
 
 
 def _digest(obj) -> str:

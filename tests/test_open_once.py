@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -32,3 +33,60 @@ def test_opening_a_project_builds_the_design_once(monkeypatch):
     assert len(calls) == 1
     # The one design is the one the loader checked the roles against.
     assert session.design.columns and session.design.n == session.table.n_rows - len(session.design.excluded)
+
+
+def _fingerprint_cell_by_cell(table) -> str:
+    """The table fingerprint as first defined: one hash update per cell of a text column."""
+    import hashlib
+    import math
+
+    h = hashlib.sha256()
+    for name in table.names:
+        info = table.columns[name]
+        h.update(b"\x00col\x00" + name.encode("utf-8") + b"\x00" + info.kind.encode())
+        col = table.frame[name]
+        if info.kind in ("numeric", "boolean", "empty"):
+            h.update(np.ascontiguousarray(col.to_numpy(dtype=np.float64)).tobytes())
+        else:
+            for v in col.to_numpy(dtype=object):
+                if v is None or (isinstance(v, float) and math.isnan(v)):
+                    h.update(b"\x01")
+                else:
+                    b = str(v).encode("utf-8")
+                    h.update(b"\x02" + len(b).to_bytes(8, "little") + b)
+    return h.hexdigest()
+
+
+def test_table_fingerprint_is_unchanged_by_hashing_each_text_once():
+    """Saved projects check their cache against this fingerprint: the bytes hashed must not change."""
+    import pandas as pd
+
+    from regbench.data import read_table, table_from_frame
+    from regbench.session import table_fingerprint
+
+    tables = [read_table(ROOT / "sample_projects" / "greenhouse.csv"),
+              read_table(ROOT / "sample_projects" / "grading.csv"),
+              table_from_frame(pd.DataFrame({"y": [1.0, 2.0, 3.0, 4.0], "t": ["a", None, "é", "a"],
+                                             "u": ["x", "y", "x", "NA"]}))]
+    # A text column holding values of other types (as a frame handed in by a program may).
+    mixed = tables[2]
+    mixed.frame["t"] = pd.Series(["1", 1, 1.0, None], dtype=object)
+    tables.append(mixed)
+    for t in tables:
+        assert table_fingerprint(t) == _fingerprint_cell_by_cell(t)
+
+
+def test_opened_design_equals_a_fresh_one():
+    """The one design built on open holds the same numbers as building it again from the stored table."""
+    from regbench.data import build_design
+    from regbench.project import load_project
+
+    for name in ("greenhouse.regbench", "grading.regbench"):
+        sample = ROOT / "sample_projects" / name
+        if not sample.exists():
+            pytest.skip("the sample projects are made by `make samples`")
+        s = load_project(sample, compute=False)
+        fresh = build_design(s.table, s.roles)
+        for f in ("X", "y", "weights", "row_numbers"):
+            np.testing.assert_array_equal(getattr(s.design, f), getattr(fresh, f))
+        assert s.design.columns == fresh.columns and s.design.excluded == fresh.excluded

@@ -417,10 +417,12 @@ def _choose_predictors(table: Table, roles: Roles, src: str) -> tuple:
     (predictors, unusable) : (tuple of str, list of UnusableColumn)
         ``unusable`` is a list the later steps add to, in the order the reasons are found.
     """
-    predictors = roles.predictors or default_predictors(table, roles)
+    predictors = roles.predictors
     roles_taken = {roles.target, roles.weights, roles.groups, roles.no_count}
     unusable = []
     if not roles.predictors:
+        # The rule of default_predictors, each column looked at once: every column of another
+        # role, or left out below, is not a predictor.
         for c in table.names:
             if c in roles_taken:
                 continue
@@ -435,6 +437,8 @@ def _choose_predictors(table: Table, roles: Roles, src: str) -> tuple:
                        "to use it)", rule="identifier"))
             elif table.columns[c].kind == EMPTY:
                 unusable.append(UnusableColumn(c, "every cell is empty", rule="empty"))
+        left_out = {u.column for u in unusable}
+        predictors = tuple(c for c in table.names if c not in roles_taken and c not in left_out)
     predictors = tuple(c for c in predictors if c not in roles_taken)
     if not predictors:
         ids = [f"'{u.column}' ({u.reason.split('; ')[0]})" for u in unusable if u.rule == "identifier"]

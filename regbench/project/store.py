@@ -19,7 +19,6 @@ import zipfile
 from datetime import datetime, timezone
 
 import numpy as np
-import pandas as pd
 
 from typing import Optional
 
@@ -27,7 +26,7 @@ from regbench import __version__
 from regbench.analysis.stress import STRESS_KINDS
 from regbench.batches import run_pass
 from regbench.data.design import Roles, build_design
-from regbench.data.table import COLUMN_KINDS, ColumnInfo, Table
+from regbench.data.table import COLUMN_KINDS, ColumnInfo, Table, column_block, frame_of
 from regbench.errors import DataError, ProjectError
 from regbench.models import ENGINE_VERSION, spec
 from regbench.models.gram import per_fold
@@ -392,11 +391,15 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
     if tab.num_columns != len(cols):
         bad("columns", f"lists {len(cols)} columns but table.parquet holds {tab.num_columns}")
     infos, data_cols = {}, {}
+    # Number columns land in one block, as the reader puts them, so a design shares their memory.
+    floats = [j for j in range(tab.num_columns) if pa.types.is_float64(tab.schema.field(j).type)]
+    block = column_block(rows, len(floats))
+    slot = {j: block[:, k] for k, j in enumerate(floats)}
     for j, c in enumerate(cols):
-        name, values, info = _stored_column(j, c, tab, infos, bad)
+        name, values, info = _stored_column(j, c, tab, infos, bad, slot.get(j))
         data_cols[name], infos[name] = values, info
-    # The same construction as the reader, so dtypes come back as they were.
-    frame = pd.DataFrame(data_cols, index=pd.RangeIndex(rows))
+    del tab
+    frame = frame_of(list(data_cols), data_cols, rows)
     return Table(frame=frame, columns=infos, source=meta.get("source", ""), notes=tuple(notes),
                  line_numbers=tuple(lines))
 
@@ -430,9 +433,10 @@ def _unreadable_parquet(ar, exc) -> ProjectError:
                         f"({type(exc).__name__}: {str(exc)[:200]}); the file is damaged")
 
 
-def _stored_column(j: int, c, tab, infos: dict, bad):
+def _stored_column(j: int, c, tab, infos: dict, bad, out=None):
     """Column ``j`` of the stored table: its name, values and :class:`ColumnInfo`, its description
-    checked against itself and against what table.parquet holds there."""
+    checked against itself and against what table.parquet holds there.  A float column's values
+    are written into ``out`` (its place in the table's block) when given."""
     import pyarrow as pa
 
     f = f"columns[{j}]"
@@ -475,7 +479,14 @@ def _stored_column(j: int, c, tab, infos: dict, bad):
     else:
         if not pa.types.is_float64(arr.type):
             bad(f + ".kind", f"is {kind} but table.parquet stores '{name}' as {arr.type}")
-        values = arr.to_numpy(zero_copy_only=False).astype(np.float64, copy=True)
+        if out is None:
+            values = arr.to_numpy(zero_copy_only=False).astype(np.float64, copy=True)
+        else:
+            a = 0
+            for chunk in arr.chunks:
+                out[a:a + len(chunk)] = chunk.to_numpy(zero_copy_only=False)
+                a += len(chunk)
+            values = out
     info = ColumnInfo(name, kind, c["missing"], c["distinct"], bool(c.get("coded_categories", False)),
                       tuple((int(r), str(t)) for r, t in cells), c.get("note", ""), tuple(words))
     return name, values, info
