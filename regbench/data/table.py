@@ -69,6 +69,8 @@ class Table:
         Numeric columns as float64 (NaN where missing or bad text), boolean
         columns as float64 0/1, categorical columns as text (pandas' string or object dtype; missing is None or NaN, test with ``pandas.isna``).
         The index is 0..n-1; messages call index ``i`` row ``row_numbers[i]``.
+        The number columns a reader typed are views of one float64 block (:func:`column_block`),
+        which a design may share (:func:`side_by_side`): treat the frame as read-only.
     columns : mapping of name to ColumnInfo
     source : str
         Where the table came from (a path or a description).
