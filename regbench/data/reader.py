@@ -353,7 +353,12 @@ def _parse_direct(path, sep, width, only=None):
 
 def _typed_direct(frame, header, name, path, sep):
     """Type the parsed columns; rows with every cell missing are dropped like blank lines."""
-    empty = frame.isna().all(axis=1).to_numpy()
+    empty = None
+    for j in range(len(header)):  # column by column, stopping once no row is empty throughout
+        gap = frame[j].isna().to_numpy()
+        empty = gap if empty is None else empty & gap
+        if not empty.any():
+            break
     keep = None
     if empty.any():
         keep = np.flatnonzero(~empty)
