@@ -185,3 +185,18 @@ def test_csv_direct_route_is_taken_only_for_plain_files(tmp_path, monkeypatch):
         t = read_table(tmp_path / name)
         assert t.frame["x"].tolist() == [2.0, 5.0, 4.0], name
         assert bool(taken) == (name == "plain.csv"), name
+
+
+def test_csv_direct_route_leaves_other_encodings_to_the_text_readers(tmp_path):
+    """A header in Windows-1252 is not UTF-8: the reader says so (and a named encoding reads it)."""
+    from regbench.errors import DataError
+
+    path = tmp_path / "café.csv"
+    path.write_bytes("températ,yield\n20,1.5\n21,1.7\n".encode("cp1252"))
+    with pytest.raises(DataError, match=r"café\.csv: not UTF-8 text \(byte 4, line 1\)"):
+        read_table(path)
+    assert read_table(path, encoding="cp1252").names == ("températ", "yield")
+    body = tmp_path / "body.csv"
+    body.write_bytes("t,y\n20,1.5\n21,caf\xe9\n".encode("latin-1"))
+    with pytest.raises(DataError, match=r"body\.csv: not UTF-8 text \(byte \d+, line 3\)"):
+        read_table(body)

@@ -319,7 +319,13 @@ def _read_text_direct(path, name, sep, encoding, style=PLAIN):
         return None
     if head is None or head.startswith((b"\xff\xfe", b"\xfe\xff")) or any(head.startswith(m) for m, _ in _MAGIC):
         return None
-    text = head.decode("utf-8", errors="replace").lstrip("\ufeff")
+    try:
+        text = head.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        if exc.start < len(head) - 3:
+            return None  # not UTF-8: the text readers name the byte and line, or ask for the encoding
+        text = head[:exc.start].decode("utf-8")  # a character cut at the end of the look
+    text = text.lstrip("\ufeff")
     first_line = text.split("\n", 1)[0].rstrip("\r")
     if not text[:1].strip() or '"' in first_line or "\n" not in text:
         return None
