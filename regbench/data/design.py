@@ -350,21 +350,21 @@ def build_design(table: Table, roles: Roles) -> Design:
 
 
 def _design_matrix(mats, rows, n: int) -> np.ndarray:
-    """The design's (rows, p) float64 matrix, columns contiguous (Fortran order).
+    """The design's (rows, p) float64 matrix.
 
     ``mats`` holds, per design column, either its values on every table row (a numeric
     column, not yet restricted to ``rows``) or its values on the usable rows (a coded level).
     When every row is usable and the numeric columns lie side by side in the table's block
-    (:func:`regbench.data.table.side_by_side`), the design is a read-only view of the table:
-    the numbers are held once.  Otherwise they are copied column by column into one matrix,
-    without a second temporary copy.
+    (:func:`regbench.data.table.side_by_side`), the design is a read-only view of the table
+    (columns contiguous): the numbers are held once.  Otherwise they are copied column by
+    column into one row-major matrix (the layout designs always had, so their round-off is
+    unchanged), without a second temporary copy.
     """
-    every_row = rows.size == n
-    if every_row and all(m.shape[0] == n for m in mats):
+    if rows.size == n:
         view = side_by_side([np.asarray(m, dtype=np.float64) for m in mats])
         if view is not None:
             return view
-    X = np.empty((rows.size, len(mats)), dtype=np.float64, order="F")
+    X = np.empty((rows.size, len(mats)), dtype=np.float64)
     for j, m in enumerate(mats):
         X[:, j] = m if m.shape[0] == rows.size else m[rows]
     return X
