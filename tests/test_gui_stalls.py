@@ -268,3 +268,20 @@ def test_a_big_scatter_is_added_a_slice_per_turn(win, qtbot):
     panel.plot.clear()
     qtbot.waitUntil(lambda: not panel._deferred, timeout=5_000)
     assert shown() == []
+
+
+def test_fit_quality_numbers_from_the_worker_fill_the_panel_while_hidden(win, qtbot, monkeypatch):
+    panel = win.panel("fit")
+    visible = []
+    real = panel._show
+
+    def show(session):
+        visible.append(panel.isVisible())
+        real(session)
+
+    monkeypatch.setattr(panel, "_show", show)
+    win.nav.setFocus()
+    win.show_panel("fit")
+    _settle(qtbot, win, panel)
+    assert visible and visible[0] is False and panel.isVisible()
+    assert panel.fit_model.rowCount() == len(win.session.models())

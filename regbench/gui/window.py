@@ -486,7 +486,7 @@ class MainWindow(QtWidgets.QMainWindow):
         rows = self.row_source
 
         def opened(session):
-            self.adopt(session, path=None, dirty=True, fit=False)
+            self.adopt(session, path=None, dirty=True, fit=False, in_steps=True)
             self.show_panel("data")
             self.set_status(session.row_sample_note + " Change the roles in the sentence above and press Fit "
                             "to read the rows again with them.")

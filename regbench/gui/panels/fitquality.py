@@ -121,7 +121,15 @@ class FitQualityPanel(Panel):
         if session is None or session.results is None or session.key() != key:
             return   # the session moved on; its own refresh asks again
         self.quality, self._key = quality, key
-        self._show(session)
+        # Filled while hidden when nothing in it is in use, so the window is laid out once (see
+        # MainWindow._hide_while_drawing): the numbers arrive after the panel is already shown.
+        hide = getattr(self.window_, "_hide_while_drawing", None)
+        hidden = hide(self) if hide is not None else False
+        try:
+            self._show(session)
+        finally:
+            if hidden:
+                self.show()
 
     def _show(self, session):
         """The tables, sentences and (a turn later) the plot for the numbers in ``self.quality``."""

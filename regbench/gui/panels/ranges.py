@@ -326,7 +326,11 @@ class RangesPanel(Panel):
     def label_column(self):
         """The table's row-label column (its identifier), or None."""
         table = getattr(self.session, "table", None)
-        return row_label_column(table) if table is not None else None
+        if table is None:
+            return None
+        if getattr(self, "_label_of", None) is not table:   # one look through the columns per table
+            self._label_of, self._label = table, row_label_column(table)
+        return self._label
 
     def row_names(self, rows) -> list:
         """1-based table rows named as the table names them ("GH01-003"), else "row N"."""
