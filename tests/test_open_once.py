@@ -90,3 +90,29 @@ def test_opened_design_equals_a_fresh_one():
         for f in ("X", "y", "weights", "row_numbers"):
             np.testing.assert_array_equal(getattr(s.design, f), getattr(fresh, f))
         assert s.design.columns == fresh.columns and s.design.excluded == fresh.excluded
+
+
+def test_opened_project_design_shares_the_stored_table(tmp_path):
+    """A project's stored number columns land in one block; a design whose predictors lie side by
+    side there with every row usable is a read-only view of it, not a second copy."""
+    import pandas as pd
+
+    from regbench.data import Roles, table_from_frame
+    from regbench.models.results import FitSettings
+    from regbench.project import load_project, save_project
+    from regbench.session import Session
+
+    rng = np.random.default_rng(4)
+    frame = pd.DataFrame({"site": rng.choice(["a", "b", "c"], 120)})
+    for j in range(4):
+        frame[f"x{j}"] = rng.normal(j, 1, 120)
+    frame["y"] = frame["x0"] - frame["x2"] + rng.normal(0, 0.1, 120)
+    s = Session.from_table(table_from_frame(frame, "t.csv"), Roles(target="y", groups="site"),
+                           FitSettings(folds=3, n_penalties=10))
+    path = tmp_path / "t.regbench"
+    save_project(s, path)
+    opened = load_project(path, compute=False)
+    d = opened.design
+    assert d.columns == ("x0", "x1", "x2", "x3")
+    assert np.shares_memory(d.X, opened.table.frame["x0"].to_numpy()) and not d.X.flags.writeable
+    np.testing.assert_array_equal(d.X, frame[["x0", "x1", "x2", "x3"]].to_numpy())
