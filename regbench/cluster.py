@@ -72,16 +72,30 @@ def connect(address: str = "local", *, processes: bool = True, n_workers: Option
 
 
 def runner_for(client):
-    """Run one pass: each argument tuple becomes a task; results come back in order."""
+    """Run one pass: each argument tuple becomes a task; results come back in order.
 
-    def run(fn, args):
+    With ``combine`` (a function of two neighbouring results), the results are merged
+    pairwise on the workers, neighbours first, and only the merged result comes back
+    (a list of one): the client never holds every part's statistics at once.
+    """
+
+    def run(fn, args, combine=None):
         futures = [client.submit(fn, *a, pure=False) for a in args]
+        made = list(futures)
         try:
+            while combine is not None and len(futures) > 1:
+                nxt = [client.submit(combine, futures[i], futures[i + 1], pure=False)
+                       for i in range(0, len(futures) - 1, 2)]
+                if len(futures) % 2:
+                    nxt.append(futures[-1])
+                made += nxt
+                futures = nxt
             return client.gather(futures)
         finally:
-            for f in futures:
+            for f in made:
                 f.release()
 
+    run.reduces = True
     return run
 
 
