@@ -44,6 +44,7 @@ from typing import Optional
 
 import numpy as np
 
+from regbench.models.active_set import enet_path_gram
 from regbench.models.gram import GramStats
 from regbench.models.results import LinearModel, PathResult
 
@@ -203,11 +204,10 @@ def _factor(problem: Problem):
 def enet_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None, tol=None) -> np.ndarray:
     """Standardized lasso / elastic-net coefficients (len(alphas), p), warm-started along ``alphas``.
 
-    ``alphas`` should be descending for the warm starts to help.
+    ``alphas`` should be descending for the warm starts to help.  Solved by the active-set
+    method (:mod:`regbench.models.active_set`, exact up to round-off); coordinate descent
+    takes over where it gives up.
     """
-    from sklearn.exceptions import ConvergenceWarning
-    from sklearn.linear_model import enet_path
-
     alphas = np.atleast_1d(np.asarray(alphas, dtype=float))
     p = problem.c.shape[0]
     out = np.zeros((alphas.size, p))
@@ -227,9 +227,25 @@ def enet_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None, tol=Non
     k = A.shape[0]
     if k == 0:
         return out
+    Gl = problem.G[np.ix_(problem.live, problem.live)]
+    init = None if coef_init is None else np.asarray(coef_init, dtype=float)[problem.live]
+    exact = enet_path_gram(Gl, problem.c[problem.live], alphas, l1_ratio, init)
+    if exact is not None:
+        out[:, problem.live] = exact
+        if l1_ratio == 1.0:
+            _merge_copies(problem, out)
+        return out
+    return _enet_cd(problem, A, b, Gl, alphas, l1_ratio, coef_init, tol, out)
+
+
+def _enet_cd(problem, A, b, Gl, alphas, l1_ratio, coef_init, tol, out) -> np.ndarray:
+    """The path by scikit-learn's coordinate descent, where the active-set method gave up."""
+    from sklearn.exceptions import ConvergenceWarning
+    from sklearn.linear_model import enet_path
+
+    k = A.shape[0]
     # Coordinate descent on the precomputed Gram (k·G, k·c) costs p² per sweep and
     # measured about three times faster here than sweeping the k×p factor itself.
-    Gl = problem.G[np.ix_(problem.live, problem.live)]
     Q = np.ascontiguousarray(k * Gl)
     q = np.ascontiguousarray(k * problem.c[problem.live])
     init = None
@@ -379,6 +395,10 @@ def _merge_copies(problem: Problem, beta: np.ndarray) -> None:
     d = np.sqrt(np.clip(np.diag(G), 0.0, None))
     with np.errstate(invalid="ignore", divide="ignore"):
         R = G / np.outer(d, d)
+    close = np.abs(R) >= 1.0 - COPY_TOL
+    np.fill_diagonal(close, False)
+    if not close.any():
+        return  # no copies: nothing to move (the usual case, decided in one comparison)
     taken = np.zeros(live.size, dtype=bool)
     for a in range(live.size):
         if taken[a]:
@@ -656,10 +676,8 @@ def factor_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None) -> np
 
 
 def _weighted_enet(sub: Problem, v: np.ndarray, alphas: np.ndarray, l1_ratio: float, init) -> np.ndarray:
-    """Elastic net with factors ``v`` on a reduced problem: one lasso solve per α, warm-started."""
-    from sklearn.exceptions import ConvergenceWarning
-    from sklearn.linear_model import enet_path
-
+    """Elastic net with factors ``v`` on a reduced problem: one lasso solve per α, warm-started
+    (active set; coordinate descent where it gives up)."""
     out = np.zeros((alphas.size, sub.c.shape[0]))
     live = np.flatnonzero(sub.live)
     if live.size == 0:
@@ -676,6 +694,14 @@ def _weighted_enet(sub: Problem, v: np.ndarray, alphas: np.ndarray, l1_ratio: fl
     for i in np.argsort(-alphas, kind="stable"):
         a = float(alphas[i])
         Q = np.ascontiguousarray((Gl + np.diag(a * (1.0 - l1_ratio) * vl)) * ss)
+        exact = enet_path_gram(Q, q, [a * l1_ratio], 1.0, gamma)
+        if exact is not None:
+            gamma = exact[0]
+            out[i, live] = gamma * s
+            continue
+        from sklearn.exceptions import ConvergenceWarning
+        from sklearn.linear_model import enet_path
+
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)
             _, coefs, _ = enet_path(X1, y1, l1_ratio=1.0, alphas=[a * l1_ratio], precompute=Q, Xy=q, copy_X=False,
