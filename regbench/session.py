@@ -751,7 +751,8 @@ class Session:
             report(progress, 200, total * 100, f"stability ({n_boot} refits)")
             stability = bootstrap_stability(design, state.settings, alphas, n_boot=n_boot, seed=state.settings.seed,
                                             progress=_within(progress, 2, total), cancel=cancel,
-                                            relaxations=relaxations_of(results))
+                                            relaxations=relaxations_of(results),
+                                            full_ols=getattr(results, "ols", None))
         report(progress, total * 100, total * 100, "done")
         return ComputedResults(fit_key=fit_key, key=key, results=results, stability=stability,
                                stability_alphas=alphas if stability is not None else {}, streamed=streamed,

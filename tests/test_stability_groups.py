@@ -97,3 +97,20 @@ def test_group_refits_cancel_between_refits():
     with pytest.raises(Cancelled):
         bootstrap_stability(d, FitSettings(alpha=0.1), {}, n_boot=50, seed=0, cancel=cancel)
     assert len(calls) == 4
+
+
+def test_ordered_choice_keeps_every_independent_column_in_walk_order():
+    # With no dependency the walk keeps every column, pins first (the one-factorization shortcut);
+    # source: fit_ols on the rows keeps the same columns.
+    from regbench.models.ols import fit_ols
+
+    rng = np.random.default_rng(7)
+    X = rng.normal(size=(400, 6)) + rng.normal(0, 5, 6)
+    X[:, 5] = 3.0  # no spread: never kept
+    d = design_from_arrays(X, X[:, 0] + rng.normal(size=400), columns=tuple(f"c{j}" for j in range(6)))
+    st = gram_stats(d.X, d.y, d.weights)
+    _, _, mean, sd = st.standardized()
+    size = np.sqrt(sd ** 2 + mean ** 2)
+    S = st.centered_xx() / st.W / np.outer(size, size)
+    assert ordered_choice(S, [3], 1e-6, sd) == [3, 0, 1, 2, 4]
+    assert tuple(d.columns[j] for j in (0, 1, 2, 3, 4)) == fit_ols(d).kept

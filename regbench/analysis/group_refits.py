@@ -37,6 +37,8 @@ from regbench.models.results import LinearModel
 #: What is left of a column, relative to its size, below which a refit from cross-products
 #: sets it aside (see the module docstring); the rows resolve down to ``rank_tol``.
 GRAM_RANK_TOL = 1e-6
+#: Memory of the summed cross-products of the draws made ready together.
+BATCH_BYTES = 64 * 2**20
 
 
 class GroupRefits:
@@ -79,11 +81,31 @@ class GroupRefits:
         np.minimum.at(self.y_min, g[pos], design.y[pos])
         np.maximum.at(self.y_max, g[pos], design.y[pos])
         self.pin_idx = [design.columns.index(c) for c in dict.fromkeys(settings.pins) if c in design.columns]
+        self._whole = {}  # each penalized family's standardized fit on the whole design (see _start)
 
-    def stats(self, counts: np.ndarray) -> GramStats:
-        """The cross-products of a draw that takes group g ``counts[g]`` times."""
+    def draw_many(self, rng: np.random.Generator, k: int) -> list:
+        """``k`` draws of group counts in a row (as ``k`` calls of ``group_counts`` would make them),
+        each with its summed cross-products, made in one matrix product: ``[(counts, xx), …]``.
+
+        One product for several draws reads the groups' G×p×p cross-products once rather than
+        once per draw (the per-draw sum is bound by memory, not arithmetic).
+        """
+        from regbench.analysis.stability import group_counts  # stability imports this module
+
+        C = np.stack([group_counts(self.n_groups, rng) for _ in range(int(k))])
+        p = self.xx.shape[1]
+        xx = (C @ self.xx.reshape(self.n_groups, p * p)).reshape(-1, p, p)
+        return list(zip(C, xx))
+
+    def batch(self, left: int) -> int:
+        """Draws to sum in one product: at most :data:`BATCH_BYTES` of summed cross-products."""
+        p = self.xx.shape[1]
+        return int(max(1, min(int(left), 32, BATCH_BYTES // (8 * p * p + 1))))
+
+    def stats(self, counts: np.ndarray, xx: np.ndarray = None) -> GramStats:
+        """The cross-products of a draw that takes group g ``counts[g]`` times (``xx`` when summed already)."""
         c = np.asarray(counts, dtype=np.float64)
-        xx = np.tensordot(c, self.xx, axes=1)
+        xx = np.tensordot(c, self.xx, axes=1) if xx is None else xx
         return GramStats(W=float(c @ self.W), n=int(round(c @ self.n)), shift_x=self.shift_x, shift_y=self.shift_y,
                          sx=c @ self.sx, sy=float(c @ self.sy), xx=0.5 * (xx + xx.T), xy=c @ self.xy,
                          yy=float(c @ self.yy), xx_scale=c @ self.scale)
@@ -93,19 +115,34 @@ class GroupRefits:
         drawn = (np.asarray(counts) > 0) & (self.n_pos > 0)
         return not drawn.any() or self.y_max[drawn].max() == self.y_min[drawn].min()
 
-    def refit(self, counts: np.ndarray) -> dict:
+    def refit(self, counts: np.ndarray, xx: np.ndarray = None) -> dict:
         """OLS and each penalized family on the draw; dict of name -> LinearModel, OLS first."""
-        st = self.stats(counts)
+        st = self.stats(counts, xx)
         if not st.W > 0:
             raise ModelError("the rows being fitted have total weight 0; there is nothing to fit")
         coding = LevelCoding.of(self.design)  # every level of a category alike, as in the fit
-        out = {"ols": self._ols(st, counts)}
         problem = problem_for(st, self.design, self.settings)  # with the settings' penalty factors
+        out = {"ols": self._ols(st, counts, problem)}
         for name, rho, a, gamma in self.families:
-            out[name] = coding.label(model_from_problem(problem, name, rho, a, coding.names, relaxation=gamma))
+            out[name] = coding.label(model_from_problem(problem, name, rho, a, coding.names,
+                                                        coef_init=self._start(name, rho, a), relaxation=gamma))
         return out
 
-    def _ols(self, st: GramStats, counts) -> LinearModel:
+    def _start(self, name, rho, alpha):
+        """Where each draw's solve of a family starts: the family's fit on the whole design.
+
+        A draw's fit is a small change of it (the columns in use barely move), and the
+        solver's optimum does not depend on where it starts.
+        """
+        if rho == 0.0:
+            return None  # ridge is solved in closed form
+        if name not in self._whole:
+            coding = LevelCoding.of(self.design)
+            problem = problem_for(self.stats(np.ones(self.n_groups)), self.design, self.settings)
+            self._whole[name] = model_from_problem(problem, name, rho, alpha, coding.names).coef_std
+        return self._whole[name]
+
+    def _ols(self, st: GramStats, counts, problem=None) -> LinearModel:
         design = self.design
         p = design.p
         G, c, mean, sd = st.standardized()
@@ -117,8 +154,12 @@ class GroupRefits:
         kept = sorted(ordered_choice(S, self.pin_idx, max(tol, GRAM_RANK_TOL), sd))
         coef = np.zeros(p)
         if kept:
-            Gk = G[np.ix_(kept, kept)]
-            lk, Vk = np.linalg.eigh(Gk)
+            if (problem is not None and problem.G.shape[0] == p and problem.factors is None
+                    and np.array_equal(np.flatnonzero(problem.live), kept)):
+                # The penalized problem's Gram on the same columns: its eigen-decomposition serves.
+                lk, Vk = problem.evals, problem.evecs
+            else:
+                lk, Vk = np.linalg.eigh(G[np.ix_(kept, kept)])
             if not lk[0] > lk[-1] / GRAM_COND_LIMIT:
                 return self._ols_on_rows(counts)
             coef[kept] = (Vk @ ((Vk.T @ c[kept]) / lk)) / sd[kept]
@@ -144,6 +185,16 @@ def ordered_choice(S: np.ndarray, pin_idx, tol: float, sd: np.ndarray) -> list:
 
     p = S.shape[0]
     order = list(pin_idx) + [j for j in range(p) if j not in set(pin_idx)]
+    live = [j for j in order if sd[j] != 0]
+    if live:
+        # When every column is kept, the walk is the Cholesky factorization of S in this order
+        # (the length left of each column is its pivot): one LAPACK call instead of p solves.
+        try:
+            pivots = np.diag(np.linalg.cholesky(S[np.ix_(live, live)]))
+        except np.linalg.LinAlgError:
+            pivots = None
+        if pivots is not None and np.all(pivots * pivots > tol * tol):
+            return live
     L = np.zeros((p, p))
     kept = []
     for j in order:

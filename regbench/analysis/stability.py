@@ -122,7 +122,7 @@ def group_counts(n_groups: int, rng: np.random.Generator) -> np.ndarray:
 
 
 def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed: int = 0, progress=None,
-                        cancel=None, method: str = "auto", relaxations=None) -> Stability:
+                        cancel=None, method: str = "auto", relaxations=None, full_ols=None) -> Stability:
     """Refit every model on bootstrap samples at the fixed α of each family.
 
     Parameters
@@ -144,6 +144,9 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
         except that OLS, working from cross-products, sets a column aside when what
         is left of it is within :data:`~regbench.analysis.group_refits.GRAM_RANK_TOL`
         of its size (the rows resolve down to round-off).
+    full_ols : OLSResult, optional
+        OLS on the whole design with these settings (the fit's own), which says which
+        set-aside columns are exact aliases; fitted here when not given.
 
     Returns
     -------
@@ -160,10 +163,11 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
     if method == "groups" and design.groups is None:
         raise DataError("stability from group cross-products needs a group column")
     with one_blas_thread():
-        return _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups, relaxations)
+        return _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups, relaxations, full_ols)
 
 
-def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups, relaxations=None) -> Stability:
+def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups, relaxations=None,
+               full_ols=None) -> Stability:
     rng = np.random.default_rng(seed)
     draws = None
     names = None
@@ -172,13 +176,16 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
     if by_groups:
         refitter = GroupRefits(design, settings, alphas, relaxations)
     separated = 0
+    ready = []  # draws of groups made ahead, in the order the generator gives them
     for b in range(n_boot):
         check(cancel)
         try:
             if refitter is not None:
-                per_group = group_counts(refitter.n_groups, rng)
+                if not ready:
+                    ready = refitter.draw_many(rng, refitter.batch(n_boot - b))
+                per_group, xx = ready.pop(0)
                 flat += int(refitter.flat(per_group))
-                models = refitter.refit(per_group)
+                models = refitter.refit(per_group, xx)
             else:
                 counts = resample_counts(design, rng)
                 drawn = design.y[(counts > 0) & (design.weights > 0)]
@@ -211,7 +218,9 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
     unpen = "logistic" if "logistic" in names else "ols"
     set_aside = 1.0 - np.nan_to_num(selected[unpen], nan=0.0)
     set_aside[design.p:] = 0.0  # a reference level is never set aside: the intercept carries it
-    full = fit_ols(design, settings.pins, settings.rank_tol)
+    full = full_ols
+    if full is None or tuple(full.columns) != tuple(design.columns):
+        full = fit_ols(design, settings.pins, settings.rank_tol)
     order_driven = tuple(sa.column for sa in full.set_aside
                          if getattr(sa, "exact", True) and set_aside[design.columns.index(sa.column)] == 1.0)
     with warnings.catch_warnings():
