@@ -224,3 +224,34 @@ def test_diagnostics_from_blocks_equal_one_block(greenhouse, hald, chunk):
     # (Montgomery, Peck & Vining, from memory, REFERENCES.md).
     np.testing.assert_allclose(diagnose(hald, fit_ols(hald, chunk_rows=chunk)).vif,
                                [38.50, 254.42, 46.87, 282.51], atol=0.006)
+
+
+def test_near_dependency_search_from_correlations_equals_the_search_on_coordinates():
+    # The search reads its choices from the correlation matrix (one row per step); source: the same greedy
+    # search carried out on the triangular coordinates, column by column, and statsmodels WLS R² of the
+    # column on the columns named.
+    from regbench.models import diagnostics as dm
+
+    rng = np.random.default_rng(5)
+    drivers = rng.normal(size=(800, 5))
+    X = drivers @ rng.normal(size=(5, 40)) + rng.normal(0, 0.05, (800, 40))
+    X[:, 39] = X[:, 0] + X[:, 1] + 1e-5 * rng.normal(size=800)  # a very near dependency, kept by OLS
+    w = rng.uniform(0.5, 2.0, 800)
+    d = design_from_arrays(X, drivers[:, 0] + rng.normal(size=800), weights=w)
+    r = fit_ols(d)
+    fast = diagnose(d, r)
+    Xk, wk = kept_matrix(d, r)
+    assert len(fast.near_dependencies) > 20
+    R = None
+    for nd in fast.near_dependencies:
+        j = r.kept.index(nd.column)
+        if R is None:
+            from scipy import linalg
+
+            Xc = (Xk - wk @ Xk / wk.sum()) * np.sqrt(wk)[:, None]
+            R = linalg.qr(Xc / np.linalg.norm(Xc, axis=0), mode="r")[0][:Xk.shape[1]]
+        chosen, r2 = dm._choose_on_coordinates(j, R, 1.0 - 1.0 / nd.vif)
+        assert nd.explained_by == tuple(r.kept[i] for i in chosen)
+        assert nd.r_squared == pytest.approx(r2, abs=1e-12)
+        cols = [r.kept.index(c) for c in nd.explained_by]
+        assert nd.r_squared == pytest.approx(wls_r2(Xk[:, j], Xk[:, cols], wk), abs=1e-9)

@@ -106,9 +106,12 @@ def _diagnose(design, ols_result) -> Diagnostics:
             damaging.append({"index": float(cond[d]), "dimension": int(d), "terms": high})
 
     near = []
-    for j in np.argsort(-vif, kind="stable"):
-        if vif[j] > VIF_SERIOUS:
-            near.append(_near_dependency(j, R, kept, float(vif[j])))
+    serious = [j for j in np.argsort(-vif, kind="stable") if vif[j] > VIF_SERIOUS]
+    if serious:
+        Rn = R / np.linalg.norm(R, axis=0)
+        S = Rn.T @ Rn  # correlations of the kept columns: the searches choose from its rows
+        for j in serious:
+            near.append(_near_dependency(j, R, kept, float(vif[j]), Rn, S))
 
     sentences = _summary(ols_result, kept, vif, cond, damaging)
     return Diagnostics(
@@ -123,11 +126,74 @@ def _diagnose(design, ols_result) -> Diagnostics:
     )
 
 
-def _near_dependency(j, R, kept, vif) -> NearDependency:
+def _near_dependency(j, R, kept, vif, Rn=None, S=None) -> NearDependency:
+    """Greedy forward selection of the columns that explain column j (see :func:`_choose`)."""
+    chosen, r2 = None, 0.0
+    if S is not None:
+        chosen, r2 = _choose(j, Rn, S, 1.0 - 1.0 / vif)
+    if chosen is None:
+        chosen, r2 = _choose_on_coordinates(j, R, 1.0 - 1.0 / vif)
+    return _dependency(j, kept, vif, chosen, r2)
+
+
+def _choose(j, Rn, S, r2_all):
+    """Forward selection read from the correlation matrix ``S``: O(k) work per step.
+
+    A step takes the column with the largest squared correlation with what the chosen
+    columns leave of column j, among what they leave of the others; those partial
+    quantities follow from rows of ``S`` and the Cholesky factor of the chosen block, so
+    no k×k matrix is updated per column (at 1,000 columns that update was most of the
+    diagnostics' time).  Left-over lengths below 1e-6, where the correlations' round-off
+    would matter, are measured on the coordinates ``Rn`` instead, and so is each step's R²
+    (a QR of the chosen columns' coordinates: the accuracy of the rows, not of ``S``).
+    Returns ``(None, 0)`` when the chosen block is not numerically positive definite
+    (the caller then searches on the coordinates).
+    """
+    from scipy import linalg
+
+    k = S.shape[0]
+    t = Rn[:, j]
+    out = np.zeros(k, dtype=bool)
+    out[j] = True
+    chosen, r2 = [], 0.0
+    while not out.all() and len(chosen) < MAX_EXPLAINERS and r2 < r2_all - R2_SLACK:
+        if chosen:
+            try:
+                L = np.linalg.cholesky(S[np.ix_(chosen, chosen)])
+            except np.linalg.LinAlgError:
+                return None, 0.0
+            B = linalg.solve_triangular(L, S[chosen, :], lower=True, check_finite=False)  # Uᵀ·columns
+            a = S[j, :] - B[:, j] @ B  # what is left of j against each column
+            norms = 1.0 - np.einsum("ij,ij->j", B, B)
+            Q = np.linalg.qr(Rn[:, chosen])[0]
+            shaky = np.flatnonzero(~out & (norms < 1e-6))
+            if shaky.size:
+                left = t - Q @ (Q.T @ t)
+                left -= Q @ (Q.T @ left)
+                C = Rn[:, shaky] - Q @ (Q.T @ Rn[:, shaky])
+                C -= Q @ (Q.T @ C)
+                norms[shaky] = np.einsum("ij,ij->j", C, C)
+                a[shaky] = left @ C
+        else:
+            a = S[j, :].copy()
+            norms = np.einsum("ij,ij->j", Rn, Rn)
+        ok = norms > 1e-24
+        gain = np.where(ok, a * a / np.where(ok, norms, 1.0), -1.0)
+        gain[out] = -np.inf
+        best = int(np.argmax(gain))
+        chosen.append(best)
+        out[best] = True
+        Q = np.linalg.qr(Rn[:, chosen])[0]
+        left = t - Q @ (Q.T @ t)
+        left -= Q @ (Q.T @ left)
+        r2 = float(1.0 - left @ left)
+    return chosen, r2
+
+
+def _choose_on_coordinates(j, R, r2_all):
     """Greedy forward selection on the coordinates ``R`` of the unit-length centered columns."""
-    r2_all = 1.0 - 1.0 / vif
     t = R[:, j] / np.linalg.norm(R[:, j])
-    others = np.array([i for i in range(len(kept)) if i != j], dtype=int)
+    others = np.array([i for i in range(R.shape[1]) if i != j], dtype=int)
     cand = R[:, others].copy()
     left = t.copy()  # what the chosen columns leave of column j
     chosen, r2 = [], 0.0
@@ -143,6 +209,12 @@ def _near_dependency(j, R, kept, vif) -> NearDependency:
         others = np.delete(others, best)
         cand = np.delete(cand, best, axis=1)
         r2 = float(1.0 - left @ left)
+    return chosen, r2
+
+
+def _dependency(j, kept, vif, chosen, r2) -> NearDependency:
+    """The :class:`NearDependency` of column j explained by the columns ``chosen`` with ``r2``."""
+    r2_all = 1.0 - 1.0 / vif
     names = tuple(kept[i] for i in chosen)
     col = kept[j]
     sentence = (f"{col} is {percent(r2)} explained by {join_words(names)} (R² {r2_text(r2)}, VIF "

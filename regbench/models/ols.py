@@ -609,9 +609,15 @@ class _Walk:
     the kept columns so the combination reproducing a candidate is known."""
 
     def __init__(self, m):
-        self.Q = np.zeros((m, 0))
+        # Kept directions fill a Fortran-ordered buffer column by column (no copy of Q per column kept:
+        # at 1,000 columns the copies cost more than the projections).
+        self._Q = np.zeros((m, 16), order="F")
         self.R = np.zeros((0, 0))
         self.idx = []
+
+    @property
+    def Q(self):
+        return self._Q[:, :len(self.idx)]
 
     def project(self, v):
         Q = self.Q
@@ -634,7 +640,11 @@ class _Walk:
         R[:k, k] = coords
         R[k, k] = nr
         self.R = R
-        self.Q = np.column_stack([self.Q, r / nr])
+        if k == self._Q.shape[1]:
+            grown = np.zeros((self._Q.shape[0], 2 * k), order="F")
+            grown[:, :k] = self._Q
+            self._Q = grown
+        self._Q[:, k] = r / nr
         self.idx.append(j)
 
 
