@@ -285,3 +285,25 @@ def test_fit_quality_numbers_from_the_worker_fill_the_panel_while_hidden(win, qt
     _settle(qtbot, win, panel)
     assert visible and visible[0] is False and panel.isVisible()
     assert panel.fit_model.rowCount() == len(win.session.models())
+
+
+def test_a_timer_due_during_a_drawing_runs_before_the_next_drawing(win, qtbot):
+    """The next drawing waits behind timers (and input) already due, so the window answers between them."""
+    panel = win.panel("coefficients")
+    order = []
+
+    def first():
+        order.append("first")
+        timer = QtCore.QTimer(panel)
+        timer.setSingleShot(True)
+        timer.setInterval(0)
+        timer.timeout.connect(lambda: order.append("timer"))
+        timer.start()
+
+    def second():
+        order.append("second")
+
+    panel.defer(first)
+    panel.defer(second)
+    qtbot.waitUntil(lambda: len(order) == 3, timeout=5_000)
+    assert order == ["first", "timer", "second"]

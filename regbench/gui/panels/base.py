@@ -121,9 +121,22 @@ class Panel(QtWidgets.QWidget):
         return self.__dict__.setdefault("_deferred", {})
 
     def _queue_step(self) -> None:
-        if not self.__dict__.get("_step_queued"):
-            self._step_queued = True
+        """Run the next drawing soon: right after this turn, or, asked during a drawing, from a timer,
+        which the event loop takes after the input and timers already due, so those are served between
+        two drawings instead of after both."""
+        if self.__dict__.get("_step_queued"):
+            return
+        self._step_queued = True
+        if not self.__dict__.get("_in_step"):
             QtCore.QTimer.singleShot(0, self._run_one_step)
+            return
+        timer = self.__dict__.get("_step_timer")
+        if timer is None:
+            timer = self._step_timer = QtCore.QTimer(self)
+            timer.setSingleShot(True)
+            timer.setInterval(1)
+            timer.timeout.connect(self._run_one_step)
+        timer.start()
 
     def _run_one_step(self) -> None:
         """Run the oldest drawing that is ready; the next one waits for another turn."""
@@ -133,9 +146,13 @@ class Panel(QtWidgets.QWidget):
         if name is None:
             return   # what is left waits for the worker, which queues a step when it answers
         fn, args, _ = pending.pop(name)
-        if any(waiting is None for (_, _, waiting) in pending.values()):
-            self._queue_step()
-        fn(*args)
+        self._in_step = True
+        try:
+            if any(waiting is None for (_, _, waiting) in pending.values()):
+                self._queue_step()
+            fn(*args)
+        finally:
+            self._in_step = False
 
     def flush(self) -> None:
         """Run every deferred drawing now, computing what the worker has not returned yet (pictures
