@@ -52,6 +52,7 @@ def test_panel_shows_the_core_ranges_and_the_tolerance_control_recomputes_withou
     w.show_panel("ranges")
     panel = w.panel("ranges")
     w._refresh_panel(panel)
+    panel.flush()   # the tables on hidden tabs are filled in later turns
     core = compute_ranges(s.design, s.results, None, models=s.models())
     assert panel.sentences.text().startswith(core.sentences[0])
     assert "held-out default" in panel.in_force.text()
@@ -158,3 +159,44 @@ def _row_name(session, row):
     from regbench.data.identifiers import row_label_column, row_names
 
     return row_names(session.table, [row])[0] if row_label_column(session.table) else row
+
+
+def test_first_visit_fills_the_shown_table_now_and_the_hidden_tabs_in_later_turns(qtbot):
+    """A wide table's first visit fills and sizes only the table on show; the tables behind the other
+    two tabs wait for later turns of the event loop (so the visit holds the GUI thread less), and
+    flush() or bringing a tab forward fills them.  Checked against the headless core's ranges."""
+    from regbench.analysis.ranges import compute_ranges
+    from regbench.gui.window import MainWindow
+    from regbench.session import Session
+
+    s = Session.from_table_file(SAMPLE_CSV, Roles.from_dict(GREENHOUSE_ROLES), FitSettings(folds=3, n_penalties=20))
+    s.set_bootstrap(0)
+    s.compute()
+    w = MainWindow(autosave=False)
+    w.ask_unsaved = lambda: "discard"
+    qtbot.addWidget(w)
+    w.resize(1400, 900)
+    w.adopt(s, fit=False)
+    _idle(qtbot, w)
+    panel = w.panel("ranges")
+    assert w.draw_in_steps and panel.tabs.currentIndex() == 0
+    w._refresh_panel(panel)   # the first visit's own turn, before the event loop runs again
+    core = compute_ranges(s.design, s.results, None, models=s.models())
+    assert panel.columns_model.rowCount() == len(core.columns)
+    assert panel.rows_model.rowCount() == 0 and panel.fits_model.rowCount() == 0
+    # Bringing a tab forward fills its table at once, before its turn comes.
+    panel.tabs.setCurrentIndex(2)
+    assert [panel.fits_model.value(k, 0) for k in range(4)] == ["OLS", "Ridge", "Lasso", "Elastic net"]
+    assert panel.rows_model.rowCount() == 0
+    panel.flush()
+    assert panel.rows_model.rowCount() == len(core.widest)
+    assert panel.rows_model.value(0, 0) == _row_name(s, core.widest[0]["row"])
+    # Filled once: the turns left over find nothing more to fill.
+    assert not panel._deferred and not panel._unfilled
+    # A refresh with the fits tab shown fills that table now and the columns and rows tables later.
+    w._refresh_panel(panel)
+    assert panel.fits_model.rowCount() == 4 and sorted(panel._unfilled) == [0, 1]
+    qtbot.waitUntil(lambda: not panel._deferred, timeout=10_000)
+    assert not panel._unfilled and panel.columns_model.rowCount() == len(core.columns)
+    w.dirty = False
+    w.close()

@@ -72,6 +72,10 @@ def identifier_reason(table: Table, column: str) -> Optional[str]:
     if filled < MIN_FILLED or info.distinct != filled:
         return None
     v = table.frame[column].to_numpy(dtype=float)
+    head = v[:64]
+    head = head[np.isfinite(head)]
+    if not np.all(head == np.round(head)):
+        return None   # a fraction among the first cells settles it without a pass over the column
     v = v[np.isfinite(v)]
     if v.size < MIN_FILLED or not np.all(v == np.round(v)):
         return None
@@ -110,9 +114,19 @@ def row_label_column(table: Table) -> Optional[str]:
     return None
 
 
-def row_names(table: Table, rows) -> list:
-    """Names for 1-based table rows: the row-label column's values, else "row N"."""
-    column = row_label_column(table) if table is not None else None
+_LOOK = object()
+
+
+def row_names(table: Table, rows, column=_LOOK) -> list:
+    """Names for 1-based table rows: the row-label column's values, else "row N".
+
+    ``column`` is the table's row-label column when the caller already knows it (None: none),
+    which spares a look through every column.
+    """
+    if column is _LOOK:
+        column = row_label_column(table) if table is not None else None
+    if table is None:
+        column = None
     if column is None:
         return [f"row {int(r)}" for r in rows]
     values = table.frame[column]

@@ -54,7 +54,7 @@ class FrameModel(QtCore.QAbstractTableModel):
             return fmt(self._col(index.column())[index.row()], 6)
         if role == Qt.TextAlignmentRole:
             col = self._col(index.column())
-            return int(Qt.AlignRight | Qt.AlignVCenter) if col.dtype.kind in "fiub" else int(Qt.AlignLeft | Qt.AlignVCenter)
+            return _RIGHT if col.dtype.kind in "fiub" else _LEFT
         return None
 
     def headerData(self, section, orientation, role=Qt.DisplayRole):
@@ -125,8 +125,8 @@ class GridModel(QtCore.QAbstractTableModel):
             return fmt(v, self.digits)
         if role == Qt.TextAlignmentRole:
             if isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool):
-                return int(Qt.AlignRight | Qt.AlignVCenter)
-            return int(Qt.AlignLeft | Qt.AlignVCenter)
+                return _RIGHT
+            return _LEFT
         if role == Qt.BackgroundRole and (r, c) in self.backgrounds:
             return QtGui.QBrush(QtGui.QColor(self.backgrounds[(r, c)]))
         if role == Qt.ForegroundRole and (r, c) in self.foregrounds:
@@ -160,6 +160,10 @@ class GridModel(QtCore.QAbstractTableModel):
         return str(section + 1)
 
 
+#: Cell alignments, combined once (combining Qt flags builds a new enum value on every call, and a
+#: table's paint asks once per cell).
+_RIGHT = int(Qt.AlignRight | Qt.AlignVCenter)
+_LEFT = int(Qt.AlignLeft | Qt.AlignVCenter)
 _GRID_ROLES = frozenset((Qt.DisplayRole, Qt.TextAlignmentRole, Qt.BackgroundRole, Qt.ForegroundRole, Qt.ToolTipRole))
 #: Rows (beyond the visible ones) that fitting a column's width looks at: a 100 x 100 grid is sized in
 #: a blink instead of over a second on the GUI thread.

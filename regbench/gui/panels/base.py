@@ -121,15 +121,12 @@ class Panel(QtWidgets.QWidget):
         return self.__dict__.setdefault("_deferred", {})
 
     def _queue_step(self) -> None:
-        """Run the next drawing soon: right after this turn, or, asked during a drawing, from a timer,
-        which the event loop takes after the input and timers already due, so those are served between
-        two drawings instead of after both."""
+        """Run the next drawing soon, from a timer, which the event loop takes after the input and timers
+        already due, so those are served between the action (or a drawing) and the next drawing instead of
+        after both (a zero-delay single shot is a posted event, run before them)."""
         if self.__dict__.get("_step_queued"):
             return
         self._step_queued = True
-        if not self.__dict__.get("_in_step"):
-            QtCore.QTimer.singleShot(0, self._run_one_step)
-            return
         timer = self.__dict__.get("_step_timer")
         if timer is None:
             timer = self._step_timer = QtCore.QTimer(self)

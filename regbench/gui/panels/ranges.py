@@ -109,6 +109,7 @@ class RangesPanel(Panel):
         self.fits_model = _Grid()
         self.fits_view = make_view(self.fits_model)
         self.tabs.addTab(self.fits_view, "The fits")
+        self.tabs.currentChanged.connect(self._tab_shown)
         self.trades = QtWidgets.QLabel("")
         self.trades.setWordWrap(True)
         self.trades.setTextInteractionFlags(Qt.TextSelectableByMouse)
@@ -160,6 +161,16 @@ class RangesPanel(Panel):
         self.choice.blockSignals(False)
 
     # -- drawing -------------------------------------------------------------------------
+    def clear(self):
+        super().clear()
+        self._unfilled = {}
+        self._hold_paint(False)
+
+    def _hold_paint(self, hold: bool) -> None:
+        """Keep both plots from painting until their drawing runs (or let them paint again)."""
+        for plot in self.plots():
+            plot.setUpdatesEnabled(not hold)
+
     def refresh(self, session):
         self._show_choice(session.settings.range_tolerance)
         rg = session.ranges() if session.results is not None else None
@@ -167,6 +178,8 @@ class RangesPanel(Panel):
             self.bars.clear()
             self.strip.clear()
             self._strip_span = None
+            self._unfilled = {}
+            self._hold_paint(False)
             for m in (self.columns_model, self.rows_model, self.fits_model):
                 m.set_rows([], [])
             self.in_force.setText("")
@@ -189,12 +202,16 @@ class RangesPanel(Panel):
         sd = design_sd(session.design, session.results)
         models = {k: m.on_design(sd) for k, m in session.models().items()}
         self._fill_tables(rg)
-        # The plots come a turn each after the tables, so no piece of the drawing holds the window long.
+        # The plots come a turn each after the shown table, so no piece of the drawing holds the window long;
+        # each is painted once drawn, in a turn of its own, not with the table in the panel's first paint.
+        self._hold_paint(getattr(self.window_, "draw_in_steps", False))
         self.defer(self._draw_bars, rg, models)
         self.defer(self._draw_strip, rg)
+        self._fill_hidden_tables()
 
     def _draw_bars(self, rg, models):
         plot = self.bars
+        plot.setUpdatesEnabled(True)
         plot.clear()
         legend = plot.getPlotItem().legend or plot.addLegend(offset=(6, 2), labelTextSize="8pt")
         legend.clear()
@@ -253,6 +270,7 @@ class RangesPanel(Panel):
 
     def _draw_strip(self, rg):
         plot = self.strip
+        plot.setUpdatesEnabled(True)
         plot.clear()
         self._strip_span = None
         if rg.row_half is None or rg.row_half.size == 0:
@@ -334,7 +352,7 @@ class RangesPanel(Panel):
 
     def row_names(self, rows) -> list:
         """1-based table rows named as the table names them ("GH01-003"), else "row N"."""
-        return row_names(getattr(self.session, "table", None), rows)
+        return row_names(getattr(self.session, "table", None), rows, column=self.label_column())
 
     def _declutter_labels(self, *_):
         """Hide each row name whose box meets one already shown (on every resize or zoom too)."""
@@ -359,6 +377,40 @@ class RangesPanel(Panel):
                 shown.append(box)
 
     def _fill_tables(self, rg):
+        """Fill the table on the shown tab now; the other two wait for later turns (see
+        :meth:`_fill_hidden_tables`), so a wide table's first visit fills and sizes one table, not three."""
+        fills = (self._fill_columns, self._fill_rows, self._fill_fits)
+        shown = self.tabs.currentIndex()
+        self._unfilled = {k: (fill, rg) for k, fill in enumerate(fills) if k != shown}
+        fills[shown](rg)
+
+    def _fill_hidden_tables(self):
+        """Leave each table not on show for a turn of its own, after the plots."""
+        later = (self._fill_columns_later, self._fill_rows_later, self._fill_fits_later)
+        for k in sorted(self.__dict__.get("_unfilled", {})):
+            self.defer(later[k])   # one name each: a deferred drawing is replaced by its name
+
+    def _fill_columns_later(self):
+        self._fill_unfilled(0)
+
+    def _fill_rows_later(self):
+        self._fill_unfilled(1)
+
+    def _fill_fits_later(self):
+        self._fill_unfilled(2)
+
+    def _fill_unfilled(self, k):
+        """Fill table ``k`` if it still waits (a tab switch may have filled it already)."""
+        entry = self.__dict__.get("_unfilled", {}).pop(k, None)
+        if entry is not None:
+            fill, rg = entry
+            fill(rg)
+
+    def _tab_shown(self, k):
+        """A tab brought forward shows its table filled, even before its turn came."""
+        self._fill_unfilled(k)
+
+    def _fill_columns(self, rg):
         binary = rg.outcome == "binary"
         # Least squares: importance as a share of the best error; yes/no: the mean square of the log-odds change.
         scale = 1.0 if binary or not rg.best_error > 0 else rg.best_error
@@ -390,6 +442,9 @@ class RangesPanel(Panel):
         heads = ["Lowest", "Highest", "Sign", "Importance from", "to"]
         self.columns_model.set_rows(rows, heads, row_labels=list(rg.columns), foregrounds=fg, tips=tips, digits=3)
         self.columns_view.resizeColumnsToContents()
+
+    def _fill_rows(self, rg):
+        binary = rg.outcome == "binary"
         rows, tips = [], {}
         for r, d in enumerate(rg.widest):
             unusual = [f"{c} {v:.4g} ({z:+.1f} SD)" for c, v, z in d["unusual"]]
@@ -415,6 +470,9 @@ class RangesPanel(Panel):
                 row[0] = name
         self.rows_model.set_rows(rows, heads, tips=tips, digits=4)
         self.rows_view.resizeColumnsToContents()
+
+    def _fill_fits(self, rg):
+        binary = rg.outcome == "binary"
         rows, fg = [], {}
         for k, (name, m) in enumerate(rg.models.items()):
             rows.append([model_label(name), float(100.0 * m.excess), "yes" if m.inside else "no"])
