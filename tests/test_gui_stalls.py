@@ -113,18 +113,23 @@ def test_agreement_predictions_on_training_rows_are_computed_off_the_gui_thread(
 
 
 def test_deferred_drawings_take_one_turn_each(win, qtbot):
-    """Another event queued after two deferred drawings runs between them, not after both."""
+    """An event queued after the action that asked for two deferred drawings runs before the first of
+    them, and one queued during the first runs before the second: never after both."""
     panel = win.panel("coefficients")
     order = []
-    panel.defer(lambda: order.append("first"))
+
+    def first():
+        order.append("first")
+        QtCore.QTimer.singleShot(0, lambda: order.append("other"))
 
     def second():
         order.append("second")
 
+    panel.defer(first)
     panel.defer(second)
-    QtCore.QTimer.singleShot(0, lambda: order.append("other"))
-    qtbot.waitUntil(lambda: len(order) == 3, timeout=5_000)
-    assert order == ["first", "other", "second"]
+    QtCore.QTimer.singleShot(0, lambda: order.append("before"))
+    qtbot.waitUntil(lambda: len(order) == 4, timeout=5_000)
+    assert order == ["before", "first", "other", "second"]
 
 
 def test_a_panel_is_filled_while_hidden_and_keeps_the_focus(win, qtbot, monkeypatch):
