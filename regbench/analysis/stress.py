@@ -781,6 +781,15 @@ def stress_command(design, settings, column: Optional[str], all_columns: bool, k
         ``{"json": dict, "result": StressResult or ColumnRanking}`` for ``regbench stress``
         (its text: :func:`regbench.sentences.stress_text` / :func:`~regbench.sentences.ranking_text`).
     """
+    # Check the request before the fit, so a typo fails fast.
+    _check_request(design, column, all_columns, kind, strength, seed, tolerance)
+    results = fit_all(design, settings, progress=progress)
+    return stress_on_models(design, results.models(), column, all_columns, kind, strength, seed, tolerance,
+                            progress)
+
+
+def _check_request(design, column, all_columns: bool, kind: str, strength, seed: int, tolerance) -> None:
+    """One line for a stress request that names no column, both routes, an unknown column, kind or strength."""
     if all_columns and column:
         raise DataError("give either --column or --all-columns, not both")
     if not all_columns and not column:
@@ -788,11 +797,7 @@ def stress_command(design, settings, column: Optional[str], all_columns: bool, k
         raise DataError(f"--column is required (or --all-columns); predictors are: {sources}")
     if column:
         resolve_column(design, column)
-    # Check the kind and strength before the fit, so a typo fails fast.
     StressConfig(column or design.sources[0], kind, strength, seed, tolerance).resolved_strength()
-    results = fit_all(design, settings, progress=progress)
-    return stress_on_models(design, results.models(), column, all_columns, kind, strength, seed, tolerance,
-                            progress)
 
 
 def stress_on_models(design, models: dict, column: Optional[str], all_columns: bool, kind: str,
@@ -800,14 +805,7 @@ def stress_on_models(design, models: dict, column: Optional[str], all_columns: b
                      progress=None) -> dict:
     """Stress one column (or rank all of them) for models already fitted (e.g. on every row of a table
     read in batches, with ``design`` its row sample); returns what :func:`stress_command` returns."""
-    if all_columns and column:
-        raise DataError("give either --column or --all-columns, not both")
-    if not all_columns and not column:
-        sources = ", ".join(dict.fromkeys(design.sources))
-        raise DataError(f"--column is required (or --all-columns); predictors are: {sources}")
-    if column:
-        resolve_column(design, column)
-    StressConfig(column or design.sources[0], kind, strength, seed, tolerance).resolved_strength()
+    _check_request(design, column, all_columns, kind, strength, seed, tolerance)
     if all_columns:
         rk = rank_columns(design, models, kind=kind, strength=strength, seed=seed, progress=progress)
         js = {"kind": kind, "strength": rk.strength, "seed": seed, "ranking": rk.to_dict(),
