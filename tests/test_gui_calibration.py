@@ -8,12 +8,8 @@ threshold against the session state the project file keeps.
 from __future__ import annotations
 
 import os
-import tempfile
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
-_HOME = tempfile.mkdtemp(prefix="regbench-gui-test-")
-os.environ.setdefault("XDG_CONFIG_HOME", os.path.join(_HOME, "config"))
-os.environ.setdefault("XDG_DATA_HOME", os.path.join(_HOME, "data"))
 
 import pytest  # noqa: E402
 

@@ -4,12 +4,8 @@ lines instead of losing letters (pytest-qt, offscreen)."""
 from __future__ import annotations
 
 import os
-import tempfile
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
-_HOME = tempfile.mkdtemp(prefix="regbench-gui-layout-")
-os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
-os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
 
 import pytest  # noqa: E402
 

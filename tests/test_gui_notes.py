@@ -9,12 +9,8 @@ session, so the window cannot say something the fit JSON does not.
 from __future__ import annotations
 
 import os
-import tempfile
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
-_HOME = tempfile.mkdtemp(prefix="regbench-gui-notes-")
-os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
-os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
 
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402

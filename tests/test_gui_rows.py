@@ -7,13 +7,8 @@ tests/test_session_batches.py check against the in-memory route to 1e-9.
 from __future__ import annotations
 
 import os
-import tempfile
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
-_HOME = tempfile.mkdtemp(prefix="regbench-gui-rows-test-")
-os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
-os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
-os.environ["HOME"] = _HOME
 
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402

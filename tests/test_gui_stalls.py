@@ -9,14 +9,9 @@ cells and headers sizing a table asks for.
 from __future__ import annotations
 
 import os
-import tempfile
 import threading
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
-_HOME = tempfile.mkdtemp(prefix="regbench-gui-stalls-")
-os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
-os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
-os.environ["HOME"] = _HOME
 
 import numpy as np  # noqa: E402
 import pytest  # noqa: E402

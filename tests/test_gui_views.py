@@ -9,12 +9,8 @@ Qt reports (no picture is compared by eye here; the panel pictures are looked at
 from __future__ import annotations
 
 import os
-import tempfile
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
-_HOME = tempfile.mkdtemp(prefix="regbench-gui-views-")
-os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
-os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
 
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
@@ -147,7 +143,7 @@ def test_stability_names_the_logistic_model_for_a_yes_no_outcome(qtbot, pima):
 def test_report_names_the_logistic_model_in_the_stability_table(pima_session):
     from regbench.report import render_report
 
-    path = os.path.join(_HOME, "pima.html")
+    path = os.path.join(os.environ["HOME"], "pima.html")
     render_report(pima_session, path)
     html = open(path, encoding="utf-8").read()
     assert "Set aside by the logistic model" in html and "Set aside by OLS" not in html

@@ -7,12 +7,8 @@ the window comes from :func:`regbench.analysis.ranges.compute_ranges`).
 from __future__ import annotations
 
 import os
-import tempfile
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
-_HOME = tempfile.mkdtemp(prefix="regbench-ranges-gui-")
-os.environ["XDG_CONFIG_HOME"] = os.path.join(_HOME, "config")
-os.environ["XDG_DATA_HOME"] = os.path.join(_HOME, "data")
 
 import numpy as np  # noqa: E402
 import pytest  # noqa: E402
