@@ -347,3 +347,110 @@ def test_closed_form_ranking_leaves_overflow_to_the_column_route(small):
     rk = rank_columns(d, models, "rescale", strength=1e308, seed=0)
     one = run_stress(d, models, StressConfig("a", "rescale", strength=1e308))
     assert rk.shift_rmse[rk.models.index("ols"), 0] == one.shifts["ols"].shift_rmse == math.inf
+
+
+# -- the closed-form ranking against the rows themselves ----------------------------------
+
+
+@pytest.mark.parametrize("layout", ["rows", "columns"])
+@pytest.mark.parametrize("kind,strength,fill", [
+    ("shuffle", None, None), ("shuffle", 0.3, None), ("noise", 0.7, None), ("constant", None, None),
+    ("constant", None, 2.5), ("rescale", 1.8, None), ("rescale", 0.5, -1.0), ("wild", 0.1, None),
+    ("missing", 0.3, None), ("missing", 1.0, None),
+])
+def test_closed_form_ranking_on_either_memory_layout(small, layout, kind, strength, fill):
+    # Source: run_stress, which damages one column and predicts every row again; the design
+    # stored row by row or column by column (a table's float block) takes different routes.
+    d, models = small
+    from dataclasses import replace
+
+    X = np.ascontiguousarray(d.X) if layout == "rows" else np.asfortranarray(d.X)
+    d = replace(d, X=X)
+    rk = rank_columns(d, models, kind, strength=strength, seed=7) if fill is None else None
+    if fill is not None:
+        # rank_columns has no fill; the pass it runs does.
+        from regbench.analysis.stress import _difference_sums
+
+        cfg = StressConfig("a", kind, strength, seed=7, fill=fill)
+        resid = np.column_stack([m.predict(d.X) - d.y for m in models.values()])
+        dd, _ = _difference_sums(d.X, d.weights, np.arange(3), cfg, d.weights[:, None] * resid)
+        for j, col in enumerate(("a", "b", "c")):
+            one = run_stress(d, models, StressConfig(col, kind, strength, seed=7, fill=fill))
+            b = models["ols"].coef[j]
+            assert abs(b) * math.sqrt(dd[j] / d.weights.sum()) == pytest.approx(one.shifts["ols"].shift_rmse, rel=1e-12)
+        return
+    for j, col in enumerate(rk.columns):
+        one = run_stress(d, models, StressConfig(col, kind, strength=strength, seed=7))
+        for i, k in enumerate(rk.models):
+            assert rk.shift_rmse[i, j] == pytest.approx(one.shifts[k].shift_rmse, rel=1e-12, abs=1e-300)
+            assert rk.error_damaged[i, j] == pytest.approx(one.shifts[k].error_damaged, rel=1e-12)
+        assert rk.error_clean[k] == pytest.approx(one.shifts[k].error_clean, rel=1e-13)
+
+
+@pytest.mark.parametrize("layout", ["rows", "columns"])
+def test_shuffle_ranking_equals_a_plain_permutation(small, layout):
+    # Source: numpy alone. A full shuffle with seed s is the permutation default_rng(s).permutation(n)
+    # of the rows (the module's convention); predict with the damaged column and take the weighted
+    # RMS of the change and the weighted RMSE against the target.
+    d, models = small
+    from dataclasses import replace
+
+    d = replace(d, X=np.ascontiguousarray(d.X) if layout == "rows" else np.asfortranarray(d.X))
+    rk = rank_columns(d, models, "shuffle", seed=4)
+    X, y, w = np.array(d.X), d.y, d.weights
+    perm = np.random.default_rng(4).permutation(d.n)
+    for j in range(3):
+        Xd = X.copy()
+        Xd[:, j] = X[perm, j]
+        for i, k in enumerate(rk.models):
+            m = models[k]
+            clean = m.intercept + X @ m.coef
+            moved = m.intercept + Xd @ m.coef
+            shift = math.sqrt(np.sum(w * (moved - clean) ** 2) / w.sum())
+            error = math.sqrt(np.sum(w * (moved - y) ** 2) / w.sum())
+            if m.coef[j] == 0.0:
+                # Unused column: no move at all (the full product above rounds differently, about 1e-16).
+                assert rk.shift_rmse[i, j] == 0.0 and shift < 1e-14
+                continue
+            assert rk.shift_rmse[i, j] == pytest.approx(shift, rel=1e-12)
+            assert rk.error_damaged[i, j] == pytest.approx(error, rel=1e-12)
+
+
+def test_ranking_of_probabilities_follows_the_logistic_curve(small):
+    # A yes/no outcome: damage moves the log-odds linearly and the probability through the logistic
+    # curve, so the ranking must agree with run_stress (which predicts every damaged row again), not
+    # with a linear closed form.
+    d, _ = small
+    from dataclasses import replace
+
+    rng = np.random.default_rng(3)
+    d = replace(d, y=(rng.uniform(size=d.n) < 0.4).astype(float), outcome="binary", levels=("0", "1"))
+    cols = d.columns
+    models = {"lasso": replace(lm("lasso", -8.0, [1.2, 0.0, 0.03], cols), outcome="binary"),
+              "ridge": replace(lm("ridge", -7.5, [1.0, -0.1, 0.03], cols), outcome="binary")}
+    rk = rank_columns(d, models, "shuffle", seed=1)
+    for j, col in enumerate(rk.columns):
+        one = run_stress(d, models, StressConfig(col, "shuffle", seed=1))
+        for i, k in enumerate(rk.models):
+            assert rk.shift_rmse[i, j] == pytest.approx(one.shifts[k].shift_rmse, rel=1e-12, abs=1e-300)
+            assert rk.error_damaged[i, j] == pytest.approx(one.shifts[k].error_damaged, rel=1e-12)
+
+
+def test_ranking_reads_a_model_on_every_level_in_the_designs_coding():
+    # A penalized model on every level of a two-level category carries the reference level as an extra
+    # column; damaging the one design column moves its predictions by (b_level - b_reference) · D.
+    import pandas as pd
+
+    rng = np.random.default_rng(5)
+    n = 200
+    frame = pd.DataFrame({"shade": rng.choice(["low", "high"], n), "x": rng.normal(size=n)})
+    frame["y"] = frame["x"] + (frame["shade"] == "low") * 2.0 + rng.normal(0, 0.1, n)
+    d = build_design(table_from_frame(frame), Roles(target="y"))
+    assert d.columns == ("shade=low", "x")
+    m = LinearModel(name="ridge", columns=("shade=low", "x", "shade=high"), intercept=0.5,
+                    coef=np.array([1.5, 0.9, -0.4]), coef_std=np.array([1.5, 0.9, -0.4]),
+                    reference_levels=(("shade=high", ("shade=low",)),))
+    rk = rank_columns(d, {"ridge": m}, "shuffle", seed=3)
+    one = run_stress(d, {"ridge": m}, StressConfig("shade", "shuffle", seed=3))
+    assert rk.shift_rmse[0, 0] == pytest.approx(one.shifts["ridge"].shift_rmse, rel=1e-12)
+    assert rk.shift_rmse[0, 0] > 0

@@ -310,21 +310,22 @@ def damage_block(design, idx: np.ndarray, config: StressConfig) -> np.ndarray:
     follow = [(j, d) for j, d in _followers(design, config.column) if j in idx]
     if follow:
         return _damage_with_followers(design, idx, config, follow)
-    return _damaged(design.X[:, idx].copy(), design.weights, config, one_draw_per_row=False)
+    return _damaged(design.X[:, idx].copy(), design.weights, config)
 
 
-def _damaged(block: np.ndarray, w: np.ndarray, config: StressConfig, one_draw_per_row: bool) -> np.ndarray:
+def _damaged(block: np.ndarray, w: np.ndarray, config: StressConfig) -> np.ndarray:
     """``block`` (a copy, overwritten) damaged as ``config`` says.
 
-    With ``one_draw_per_row`` the noise is one draw per row shared by every column,
-    so each column is damaged exactly as it would be alone (every other kind draws
-    per row already): what the closed-form ranking needs.
+    Every kind draws per row, and noise one draw per cell; the closed-form ranking
+    (:func:`_difference_sums`) draws as this does for a single column.
     """
     strength = config.resolved_strength()
     rng = np.random.default_rng(config.seed)
     n = block.shape[0]
-    mean = np.array([weighted_mean(block[:, j], w) for j in range(block.shape[1])])
     kind = config.kind
+    # Only the kinds that fill with the mean or draw around it need it.
+    mean = (np.array([weighted_mean(block[:, j], w) for j in range(block.shape[1])])
+            if kind in ("constant", "wild", "missing") else None)
     fill = None if config.fill is None else float(config.fill)
 
     def some_rows(share):
@@ -338,7 +339,7 @@ def _damaged(block: np.ndarray, w: np.ndarray, config: StressConfig, one_draw_pe
         block[rows] = block[rows[rng.permutation(rows.size)]]
     elif kind == "noise":
         sd = np.array([weighted_sd(block[:, j], w) for j in range(block.shape[1])])
-        block += strength * sd * rng.standard_normal((n, 1) if one_draw_per_row else block.shape)
+        block += strength * sd * rng.standard_normal(block.shape)
     elif kind == "constant":
         block[:] = mean if fill is None else fill
     elif kind == "rescale":
@@ -560,7 +561,7 @@ def _delta_predictions(model, idx, block_clean, block_damaged, clean_pred):
         from scipy.special import expit, logit
 
         with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
-            eta = logit(clean_pred) + ((block_damaged[:, sel] - block_clean[:, sel]) * model.coef[used]).sum(axis=1)
+            eta = logit(clean_pred) + ((block_damaged[:, sel] - block_clean[:, sel]) * coef[used]).sum(axis=1)
         return expit(eta)
     # A few columns: element-wise beats a threaded BLAS call on a busy machine.
     return clean_pred + ((block_damaged[:, sel] - block_clean[:, sel]) * coef[used]).sum(axis=1)
@@ -623,7 +624,7 @@ def rank_columns(design, models: dict, kind: str = "shuffle", strength: Optional
     columns = tuple(dict.fromkeys(design.sources)) if columns is None else tuple(columns)
     resolved = StressConfig(columns[0], kind, strength).resolved_strength()
     names = tuple(models)
-    clean = {k: m.predict(design.X) for k, m in models.items()}
+    clean = _clean_predictions(design, models)
     w = design.weights
     err_clean = {k: weighted_rms(clean[k] - design.y, w) for k in names}
     shift = np.zeros((len(names), len(columns)))
@@ -672,13 +673,18 @@ def rank_columns(design, models: dict, kind: str = "shuffle", strength: Optional
                          sentences=tuple(sentences))
 
 
-#: Design columns damaged at once by the closed-form ranking (bounds its n × k temporaries).
-CLOSED_FORM_COLUMNS = 32
+#: Bytes of one block of damaged differences the closed-form ranking forms at once: small enough
+#: to stay in cache between forming it and summing it, large enough that numpy's per-call cost
+#: is negligible.
+CLOSED_FORM_BYTES = 2 << 20
 
 
 def _closed_form_columns(design, columns) -> dict:
     """Source column -> its design column, for the columns damaged alone (one design column,
-    no derived columns following it): their figures have a closed form."""
+    no derived columns following it): their figures have a closed form.  None for a yes/no
+    outcome, whose probabilities move through the logistic curve rather than linearly."""
+    if getattr(design, "outcome", "numeric") == "binary":
+        return {}
     out = {}
     for col in columns:
         own = _own_columns(design, col)
@@ -687,9 +693,34 @@ def _closed_form_columns(design, columns) -> dict:
     return out
 
 
+def _clean_predictions(design, models: dict) -> dict:
+    """Each model's predictions on the clean rows, the linear ones from one product with the design.
+
+    Only the columns some model uses enter the product (as in ``LinearModel.predict``), so one
+    pass over the rows serves every model rather than one pass each.
+    """
+    names = [k for k, m in models.items() if getattr(m, "outcome", "numeric") != "binary"]
+    out = {k: m.predict(design.X) for k, m in models.items() if k not in names}
+    if not names:
+        return out
+    pairs = [models[k].design_coefficients() for k in names]
+    C = np.column_stack([c for _, c in pairs])
+    used = np.flatnonzero(np.any(C != 0.0, axis=1))
+    X = design.X
+    if used.size == X.shape[1]:
+        P = X @ C
+    elif used.size:
+        P = X[:, used] @ C[used]
+    else:
+        P = np.zeros((X.shape[0], len(names)))
+    for t, (k, (b0, _)) in enumerate(zip(names, pairs)):
+        out[k] = P[:, t] + b0
+    return out
+
+
 def _rank_closed_form(design, models, names, columns, single, kind, strength, seed, clean, err_clean, shift, err,
                       progress, cancel):
-    """The ranking's figures for columns damaged alone, from one damaged copy and column sums.
+    """The ranking's figures for columns damaged alone, from column sums of the damaged differences.
 
     Damaging column j moves model k's predictions by ``b_kj · D_j`` with ``D_j`` the
     damaged minus the clean column, so with ``r_k`` the clean residuals and weights w::
@@ -697,45 +728,140 @@ def _rank_closed_form(design, models, names, columns, single, kind, strength, se
         shift_rmse = |b_kj| · √(Σ w D_j² / Σ w)
         error_damaged = √((Σ w r_k² + 2 b_kj Σ w r_k D_j + b_kj² Σ w D_j²) / Σ w)
 
-    The damage is drawn column by column as :func:`damage_block` draws it (the same
-    seed for every column), so the figures equal those of damaging each column in
-    turn to round-off.  A column whose damage is not finite (an extreme rescale or
-    wild value) is left to the column-by-column route.
+    The damage is drawn as :func:`damage_block` draws it for one column (the same seed
+    for every column), so the figures equal those of damaging each column in turn to
+    round-off.  A column whose damage is not finite (an extreme rescale or wild value)
+    is left to the column-by-column route.
     """
-    X, w, W = design.X, design.weights, design.weights.sum()
+    w, W = design.weights, design.weights.sum()
     cfg = StressConfig(columns[0], kind, strength=strength, seed=seed)
     resid = np.column_stack([clean[k] - design.y for k in names])  # n × models
     ss_r = (w[:, None] * resid * resid).sum(axis=0)
     position = {c: j for j, c in enumerate(columns)}
     items = list(single.items())
-    done = 0
-    for a in range(0, len(items), CLOSED_FORM_COLUMNS):
-        chunk = items[a:a + CLOSED_FORM_COLUMNS]
-        idx = np.array([j for _, j in chunk])
-        with np.errstate(over="ignore", invalid="ignore"):  # overflow is caught below, per column
-            D = _damaged(X[:, idx].copy(), w, cfg, one_draw_per_row=True)
-            D -= X[:, idx]
-            wD = w[:, None] * D
-            dd = (wD * D).sum(axis=0)  # Σ w D_j²
-            rd = resid.T @ wD  # models × k: Σ w r_k D_j
-        finite = np.isfinite(dd) & np.all(np.isfinite(rd), axis=0)
-        for t, (col, j) in enumerate(chunk):
-            check(cancel)
-            report(progress, done + t, len(columns), f"stress test: {kind} {col}")
-            if not finite[t]:
-                single.pop(col)  # the column-by-column route handles overflow as it always has
+    idx = np.array([j for _, j in items])
+    with np.errstate(over="ignore", invalid="ignore"):  # overflow is caught below, per column
+        dd, rd = _difference_sums(design.X, w, idx, cfg, w[:, None] * resid, cancel)
+    finite = np.isfinite(dd) & np.all(np.isfinite(rd), axis=0)
+    coef = [models[k].design_coefficients()[1] for k in names]
+    for t, (col, j) in enumerate(items):
+        check(cancel)
+        report(progress, t, len(columns), f"stress test: {kind} {col}")
+        if not finite[t]:
+            single.pop(col)  # the column-by-column route handles overflow as it always has
+            continue
+        for i, k in enumerate(names):
+            b = coef[i][j]
+            if b == 0.0:
+                shift[i, position[col]] = 0.0
+                err[i, position[col]] = err_clean[k]
                 continue
-            for i, k in enumerate(names):
-                b = models[k].coef[j]
-                if b == 0.0:
-                    shift[i, position[col]] = 0.0
-                    err[i, position[col]] = err_clean[k]
-                    continue
-                shift[i, position[col]] = abs(b) * np.sqrt(dd[t] / W)
-                e2 = (ss_r[i] + 2.0 * b * rd[i, t] + b * b * dd[t]) / W
-                err[i, position[col]] = np.sqrt(max(e2, 0.0))
-        done += len(chunk)
+            shift[i, position[col]] = abs(b) * np.sqrt(dd[t] / W)
+            e2 = (ss_r[i] + 2.0 * b * rd[i, t] + b * b * dd[t]) / W
+            err[i, position[col]] = np.sqrt(max(e2, 0.0))
     return shift, err
+
+
+def _difference_sums(X, w, idx, config: StressConfig, wr, cancel=None):
+    """``Σ w D²`` per column and ``Σ w r D`` per model and column, for ``D`` the damaged minus the
+    clean values of design columns ``idx`` under ``config`` and ``wr`` (n × models) the weighted
+    clean residuals.
+
+    The draws are :func:`_damaged`'s for a single column, one per row and shared by every column, so
+    each column is damaged exactly as it would be alone.  ``D`` is formed only on the rows the damage
+    touches, a column at a time when the design is stored column by column and a block of rows at a
+    time otherwise (a row gathered from a column-major design touches every column's memory); noise
+    needs no ``D`` at all (``D_j`` is ``strength · sd_j · z``).  No copy of the design is made.
+    """
+    n, k = X.shape[0], idx.size
+    strength = config.resolved_strength()
+    rng = np.random.default_rng(config.seed)
+    kind = config.kind
+    fill = None if config.fill is None else float(config.fill)
+    whole = k == X.shape[1] and np.array_equal(idx, np.arange(k))
+    step = max(256, CLOSED_FORM_BYTES // (8 * max(k, 1)))
+
+    def cols(rows):
+        return X[rows] if whole else X[rows][:, idx]
+
+    def moments(sd: bool):
+        """Weighted mean (and SD) of each damaged column over every row, as ``_damaged`` takes them."""
+        W = w.sum()
+        total = np.zeros(k)
+        for a in range(0, n, step):
+            total += w[a:a + step] @ cols(slice(a, a + step))
+        mean = total / W
+        if not sd:
+            return mean, None
+        var = np.zeros(k)
+        for a in range(0, n, step):
+            c = cols(slice(a, a + step)) - mean
+            c *= c
+            var += w[a:a + step] @ c
+        return mean, np.sqrt(var / W)
+
+    def some_rows(share):
+        m = int(round(share * n))
+        if m >= n:
+            return None  # every row
+        return np.sort(rng.choice(n, size=m, replace=False))
+
+    if kind == "noise":
+        _, sd = moments(sd=True)
+        z = rng.standard_normal(n)
+        scale = strength * sd
+        return scale * scale * (w @ (z * z)), np.outer(wr.T @ z, scale)
+    rows = source = value = mean = sd = sign = None
+    if kind == "shuffle":
+        rows = some_rows(strength)
+        perm = rng.permutation(n if rows is None else rows.size)
+        source = perm if rows is None else rows[perm]
+    elif kind in ("constant", "missing"):
+        if kind == "missing":
+            rows = some_rows(strength)
+        value = moments(sd=False)[0] if fill is None else np.full(k, fill)
+    elif kind == "wild":
+        mean, sd = moments(sd=True)
+        rows = some_rows(strength)
+        sign = rng.choice((-1.0, 1.0), size=(n if rows is None else rows.size, 1))[:, 0]
+    m = n if rows is None else rows.size
+
+    def difference(get, ps, t):
+        """Damaged minus clean values at positions ``ps`` of the damaged rows, columns ``t``
+        (``get(rows)`` reads the clean values); and the design rows they are."""
+        at = ps if rows is None else rows[ps]
+        clean = get(at)
+        if kind == "shuffle":
+            D = get(source[ps])
+        elif kind == "rescale":
+            D = clean * strength
+            if fill is not None:
+                D += fill
+        elif kind == "wild":
+            D = mean[t] + (sign[ps] if clean.ndim == 1 else sign[ps, None]) * WILD_SDS * sd[t]
+        else:
+            D = np.broadcast_to(value[t], clean.shape).copy()
+        D -= clean
+        return D, at
+
+    dd = np.zeros(k)
+    rd = np.zeros((wr.shape[1], k))
+    if X.strides[0] < X.strides[1]:  # column-major: each column's rows lie together
+        w_at, wr_at = (w, wr) if rows is None else (w[rows], wr[rows])
+        for t, j in enumerate(idx):
+            check(cancel)
+            D, _ = difference(X[:, j].__getitem__, slice(None), t)
+            rd[:, t] = wr_at.T @ D
+            dd[t] = w_at @ (D * D)
+        return dd, rd
+    everything = slice(None)
+    for a in range(0, m, step):
+        check(cancel)
+        D, at = difference(cols, slice(a, min(a + step, m)), everything)
+        rd += wr[at].T @ D
+        D *= D
+        dd += w[at] @ D
+    return dd, rd
 
 
 # -- retraining on damaged data -----------------------------------------------------------
