@@ -453,6 +453,7 @@ def row_sample_sentence(sample_rows: int, rows_used: int, seed: int, sampled: bo
 NOT_ON_SAMPLE = {
     "heldout": "Held-out predictions are not shown: each fold's refit needs that fold's cross-products over every "
                "row, and only a sample of rows is at hand; the cross-validation errors use every row.",
-    "stability": "Stability is not computed: its refits need each group's cross-products over every row, and "
-                 "only a sample of rows is at hand; read the table in memory (a larger memory budget) to see it.",
+    "stability": "Stability is not computed: without a group column each refit draws single rows, and only a "
+                 "sample of rows is at hand; name a group column (whole groups are refitted from their "
+                 "cross-products over every row) or read the table in memory (a larger memory budget) to see it.",
 }

@@ -389,8 +389,12 @@ class Session:
         """What cannot be shown on a row sample, one line each ('heldout', 'stability'); empty otherwise."""
         if not self.sampled:
             return {}
-        return {k: v for k, v in NOT_ON_SAMPLE.items()
-                if (k != "stability" or self.bootstrap) and (k != "heldout" or not self.streamed.fold_stats)}
+        out = {k: v for k, v in NOT_ON_SAMPLE.items()
+               if k != "stability" and (k != "heldout" or not self.streamed.fold_stats)}
+        if self.bootstrap and getattr(self.streamed, "group_sums", None) is None:
+            # Kept only with a group column and within the memory budget; the pass says which.
+            out["stability"] = getattr(self.streamed, "group_sums_note", "") or NOT_ON_SAMPLE["stability"]
+        return out
 
     def _sample_pass(self, streamed=None):
         """The pass whose row sample the design holds (``streamed``, a fresh one, else the session's), or None
@@ -745,14 +749,18 @@ class Session:
         derived = _derive(design, results, state, cancel, sample=self._sample_pass(streamed))
         check(cancel)
         stability, alphas = None, _alphas_of(results, state)
-        if n_boot and sampled:
-            n_boot = 0  # grouped refits need every group's cross-products (sample_limits says so)
+        # On a row sample, grouped refits add up every group's cross-products kept by the pass; without
+        # them (no group column, or more than the memory budget allows) stability is withheld, and
+        # sample_limits says why.
+        sums = getattr(self._sample_pass(streamed), "group_sums", None) if sampled else None
+        if n_boot and sampled and sums is None:
+            n_boot = 0
         if n_boot:
             report(progress, 200, total * 100, f"stability ({n_boot} refits)")
             stability = bootstrap_stability(design, state.settings, alphas, n_boot=n_boot, seed=state.settings.seed,
                                             progress=_within(progress, 2, total), cancel=cancel,
                                             relaxations=relaxations_of(results),
-                                            full_ols=getattr(results, "ols", None))
+                                            full_ols=getattr(results, "ols", None), group_sums=sums)
         report(progress, total * 100, total * 100, "done")
         return ComputedResults(fit_key=fit_key, key=key, results=results, stability=stability,
                                stability_alphas=alphas if stability is not None else {}, streamed=streamed,

@@ -29,9 +29,6 @@ TOL = 1e-9
 SIGN_FREE = {"r_factor"}
 #: The solver's certificates (duality gaps of size round-off, iteration counts), not results.
 ROUND_OFF = {"convergence"}
-#: Figures the streamed route does not compute yet (None there): group-robust standard errors need each
-#: group's scores, which the pass does not gather.
-NOT_STREAMED = {"cluster_std_errors", "cluster_intercept_se", "n_clusters"}
 
 
 def _close(a, b, where="") -> None:
@@ -39,7 +36,7 @@ def _close(a, b, where="") -> None:
     if dataclasses.is_dataclass(a) and not isinstance(a, type):
         assert type(a) is type(b), where
         for f in dataclasses.fields(a):
-            if f.compare and f.name not in SIGN_FREE | NOT_STREAMED | ROUND_OFF:
+            if f.compare and f.name not in SIGN_FREE | ROUND_OFF:
                 _close(getattr(a, f.name), getattr(b, f.name), f"{where}.{f.name}")
     elif isinstance(a, dict):
         assert set(a) == set(b), where

@@ -48,6 +48,14 @@ def _compare(streamed, design, results, tol=1e-9):
     ok = np.isfinite(results.ols.std_errors)
     np.testing.assert_allclose(r2.ols.std_errors[ok], results.ols.std_errors[ok], rtol=tol)
     assert r2.ols.r_squared == pytest.approx(results.ols.r_squared, rel=tol)
+    # Cluster-robust standard errors by group: each group's scores from its cross-products on the
+    # streamed route, from the rows in memory (checked against statsmodels in test_rank_rule.py).
+    if results.ols.cluster_std_errors is None:
+        assert r2.ols.cluster_std_errors is None
+    else:
+        assert r2.ols.n_clusters == results.ols.n_clusters
+        np.testing.assert_allclose(r2.ols.cluster_std_errors[ok], results.ols.cluster_std_errors[ok], rtol=tol)
+        assert r2.ols.cluster_intercept_se == pytest.approx(results.ols.cluster_intercept_se, rel=tol)
     np.testing.assert_allclose(r2.diagnostics.vif, results.diagnostics.vif, rtol=1e-7)
     for name, pf in results.penalized.items():
         q = r2.penalized[name]

@@ -50,6 +50,14 @@ def _compare(streamed, design, results, tol=1e-9):
     ok = np.isfinite(results.ols.std_errors)
     np.testing.assert_allclose(r2.ols.std_errors[ok], results.ols.std_errors[ok], rtol=tol)
     assert r2.ols.r_squared == pytest.approx(results.ols.r_squared, rel=tol)
+    # Cluster-robust standard errors by group: each group's scores from its cross-products on the
+    # streamed route, from the rows in memory (checked against statsmodels in test_rank_rule.py).
+    if results.ols.cluster_std_errors is None:
+        assert r2.ols.cluster_std_errors is None
+    else:
+        assert r2.ols.n_clusters == results.ols.n_clusters
+        np.testing.assert_allclose(r2.ols.cluster_std_errors[ok], results.ols.cluster_std_errors[ok], rtol=tol)
+        assert r2.ols.cluster_intercept_se == pytest.approx(results.ols.cluster_intercept_se, rel=tol)
     for name, pf in results.penalized.items():
         q = r2.penalized[name]
         assert q.model.columns == pf.model.columns
@@ -268,6 +276,18 @@ def test_cluster_route_with_categories_derived_columns_and_longley(tmp_path):
         nist = cluster_fit(longley, Roles(target="TOTEMP"), FitSettings(folds=3), client=client)
     assert s.route == "cluster"
     _compare(s, design, results)
+    # Grouped stability from the groups' statistics the workers merged: the in-memory refits (on the rows'
+    # group cross-products) with the same draws give the same frequencies and coefficients to 1e-9.
+    from regbench.analysis.stability import bootstrap_stability
+
+    a = bootstrap_stability(design, settings, {k: pf.alpha for k, pf in results.penalized.items()}, n_boot=10,
+                            seed=5, full_ols=results.ols)
+    b = bootstrap_stability(s.design, settings, {k: pf.alpha for k, pf in s.results.penalized.items()}, n_boot=10,
+                            seed=5, full_ols=s.results.ols, group_sums=s.group_sums)
+    for k in a.models:
+        np.testing.assert_array_equal(b.selected_freq[k], a.selected_freq[k])
+        scale = np.nanmax(np.abs(a.coef_draws[k]))
+        np.testing.assert_allclose(b.coef_draws[k], a.coef_draws[k], rtol=1e-9, atol=1e-9 * scale, equal_nan=True)
     r2 = Roles(target="y", predictors=("x0", "soil", "log(pos)"), derived=derived)
     _compare(ungrouped, *_in_memory(whole, r2, settings))
     _check_longley(nist.results.ols)

@@ -18,6 +18,13 @@ what is left of it is within :data:`GRAM_RANK_TOL` of its size (exact
 aliases, built from other columns by a few float operations, leave about
 1e-8 here).  A refit whose kept columns are badly conditioned
 (:data:`regbench.models.engine.GRAM_COND_LIMIT`) is solved on the rows instead.
+
+A table read in batches has no rows at hand, only the groups' statistics its
+pass kept (:class:`regbench.data.stream.GroupSums`): the refits are the same
+sums and solves, and a badly conditioned refit is solved from the cross-products
+(counted in :attr:`GroupRefits.from_cross_products`, and said by the stability
+sentences), so its OLS coefficients carry about that condition number times the
+round-off of the cross-products.
 """
 
 from __future__ import annotations
@@ -51,19 +58,31 @@ class GroupRefits:
     settings : FitSettings
     alphas : dict of str -> float
         α of each penalized family.
+    sums : GroupSums, optional
+        Each group's statistics over every row (a table read in batches, whose
+        ``design`` holds only a sample of rows); the groups are then those of
+        ``sums``, in its order, and no refit touches a row.
     """
 
-    def __init__(self, design, settings, alphas: dict, relaxations=None):
-        if design.groups is None:
+    def __init__(self, design, settings, alphas: dict, relaxations=None, sums=None):
+        if design.groups is None and sums is None:
             raise ModelError("refits from group cross-products need a group column")
         self.design = design
         self.settings = settings
-        self.n_groups = int(design.groups.max()) + 1
         self.families = []
         for name, rho in families(settings):
             a = alpha_for(name, alphas, settings)
             self.families.append((name, float(rho), float(a), relaxation_for(settings, name, relaxations)))
-        _, parts = per_fold(design.X, design.y, design.weights, design.groups, self.n_groups)
+        #: False when only the groups' statistics are at hand (``sums``): no refit can go to the rows.
+        self.on_rows = sums is None
+        #: Refits whose OLS was solved from cross-products although badly conditioned (no rows at hand).
+        self.from_cross_products = 0
+        if sums is None:
+            self.n_groups = int(design.groups.max()) + 1
+            _, parts = per_fold(design.X, design.y, design.weights, design.groups, self.n_groups)
+        else:
+            self.n_groups = len(sums.stats)
+            parts = list(sums.stats)
         self.shift_x, self.shift_y = parts[0].shift_x, parts[0].shift_y
         self.W = np.array([s.W for s in parts])
         self.n = np.array([s.n for s in parts], dtype=np.float64)
@@ -73,13 +92,18 @@ class GroupRefits:
         self.xy = np.stack([s.xy for s in parts])
         self.yy = np.array([s.yy for s in parts])
         self.scale = np.stack([s._scale() for s in parts])
-        pos = design.weights > 0
-        g = design.groups
-        self.n_pos = np.bincount(g[pos], minlength=self.n_groups).astype(np.float64)
-        self.y_min = np.full(self.n_groups, np.inf)
-        self.y_max = np.full(self.n_groups, -np.inf)
-        np.minimum.at(self.y_min, g[pos], design.y[pos])
-        np.maximum.at(self.y_max, g[pos], design.y[pos])
+        if sums is not None:
+            self.n_pos = np.asarray(sums.n_pos, dtype=np.float64)
+            self.y_min = np.asarray(sums.y_min, dtype=np.float64)
+            self.y_max = np.asarray(sums.y_max, dtype=np.float64)
+        else:
+            pos = design.weights > 0
+            g = design.groups
+            self.n_pos = np.bincount(g[pos], minlength=self.n_groups).astype(np.float64)
+            self.y_min = np.full(self.n_groups, np.inf)
+            self.y_max = np.full(self.n_groups, -np.inf)
+            np.minimum.at(self.y_min, g[pos], design.y[pos])
+            np.maximum.at(self.y_max, g[pos], design.y[pos])
         self.pin_idx = [design.columns.index(c) for c in dict.fromkeys(settings.pins) if c in design.columns]
         self._whole = {}  # each penalized family's standardized fit on the whole design (see _start)
 
@@ -161,7 +185,9 @@ class GroupRefits:
             else:
                 lk, Vk = np.linalg.eigh(G[np.ix_(kept, kept)])
             if not lk[0] > lk[-1] / GRAM_COND_LIMIT:
-                return self._ols_on_rows(counts)
+                if self.on_rows:
+                    return self._ols_on_rows(counts)
+                self.from_cross_products += 1
             coef[kept] = (Vk @ ((Vk.T @ c[kept]) / lk)) / sd[kept]
         intercept = st.mean_y() - coef @ mean
         return LinearModel(name="ols", columns=tuple(design.columns), intercept=float(intercept), coef=coef,

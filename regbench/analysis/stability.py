@@ -122,7 +122,8 @@ def group_counts(n_groups: int, rng: np.random.Generator) -> np.ndarray:
 
 
 def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed: int = 0, progress=None,
-                        cancel=None, method: str = "auto", relaxations=None, full_ols=None) -> Stability:
+                        cancel=None, method: str = "auto", relaxations=None, full_ols=None,
+                        group_sums=None) -> Stability:
     """Refit every model on bootstrap samples at the fixed α of each family.
 
     Parameters
@@ -147,6 +148,11 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
     full_ols : OLSResult, optional
         OLS on the whole design with these settings (the fit's own), which says which
         set-aside columns are exact aliases; fitted here when not given.
+    group_sums : GroupSums, optional
+        Each group's cross-products over every row of a table read in batches
+        (:class:`regbench.data.stream.GroupSums`), when ``design`` holds only a sample
+        of its rows: the refits sum them (same draws, same models as the rows in
+        memory would give) and ``full_ols`` must be the fit of every row.
 
     Returns
     -------
@@ -162,19 +168,25 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
                  and getattr(design, "outcome", "numeric") != "binary")
     if method == "groups" and design.groups is None:
         raise DataError("stability from group cross-products needs a group column")
+    if group_sums is not None:
+        if method == "rows" or full_ols is None or design.groups is None:
+            raise ValueError("group_sums: refits from every group's statistics need method 'auto' or 'groups', "
+                             "a design with groups and the fit's own OLS")
+        by_groups = True
     with one_blas_thread():
-        return _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups, relaxations, full_ols)
+        return _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups, relaxations, full_ols,
+                          group_sums)
 
 
 def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups, relaxations=None,
-               full_ols=None) -> Stability:
+               full_ols=None, group_sums=None) -> Stability:
     rng = np.random.default_rng(seed)
     draws = None
     names = None
     flat = 0
     refitter = None
     if by_groups:
-        refitter = GroupRefits(design, settings, alphas, relaxations)
+        refitter = GroupRefits(design, settings, alphas, relaxations, sums=group_sums)
     separated = 0
     ready = []  # draws of groups made ahead, in the order the generator gives them
     for b in range(n_boot):
@@ -219,7 +231,7 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
     set_aside = 1.0 - np.nan_to_num(selected[unpen], nan=0.0)
     set_aside[design.p:] = 0.0  # a reference level is never set aside: the intercept carries it
     full = full_ols
-    if full is None or tuple(full.columns) != tuple(design.columns):
+    if group_sums is None and (full is None or tuple(full.columns) != tuple(design.columns)):
         full = fit_ols(design, settings.pins, settings.rank_tol)
     order_driven = tuple(sa.column for sa in full.set_aside
                          if getattr(sa, "exact", True) and set_aside[design.columns.index(sa.column)] == 1.0)
@@ -236,6 +248,15 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
     if flat:
         sentences.append(f"{flat} of the {n_boot} refits drew rows whose {design.target} is the same everywhere; "
                          "every coefficient is 0 there, which lowers the frequencies above. Use more rows or groups.")
+    if group_sums is not None:
+        # First, so that a view showing only the opening sentences says where the numbers come from.
+        n_rows = int(round(sum(st.n for st in group_sums.stats)))
+        sentences.insert(0, f"The table was read in batches: each refit adds up the cross-products of the groups it "
+                         f"drew over all {n_rows:,} usable rows, not the row sample.")
+        if refitter.from_cross_products:
+            sentences.append(f"In {refitter.from_cross_products} of the {n_boot} refits OLS's kept columns overlap "
+                             "so closely that, without the rows at hand, its coefficients there carry more round-off "
+                             "than in memory.")
     return Stability(columns=tuple(cols), models=names, n_boot=n_boot, seed=int(seed),
                      grouped=design.groups is not None, alphas={k: float(v) for k, v in alphas.items()},
                      set_aside_freq=set_aside, selected_freq=selected, coef_mean=mean, coef_sd=sd,

@@ -14,6 +14,9 @@ passes run over the parts, each with memory bounded by the batch:
    (:class:`regbench.models.gram.FoldAccumulator`,
    :class:`~regbench.models.gram.FactorAccumulator`), plus a seeded sample of
    rows for the views that need rows (scatter plots, residuals, per-row stress).
+   With a group column, each group's cross-products too (:class:`GroupSums`):
+   OLS's cluster-robust standard errors and grouped bootstrap stability follow
+   from them without the rows.
 
 Before them, a survey (:mod:`regbench.data.survey`) reads only the columns that fix the
 design: the levels of text predictors (coded as in memory: against the first level for
@@ -281,7 +284,8 @@ class RowsInfo:
     n_kept: int = 0
     excluded: list = field(default_factory=list)  # (table row 1-based, column, reason)
     n_excluded: int = 0
-    groups: dict = field(default_factory=dict)  # label text -> [weight, rows]
+    #: label text -> [weight, rows, rows with weight, lowest and highest target on those rows]
+    groups: dict = field(default_factory=dict)
     y_range: tuple = (np.inf, -np.inf)
     x_min: Optional[np.ndarray] = None
     x_max: Optional[np.ndarray] = None
@@ -294,9 +298,9 @@ class RowsInfo:
                        n_excluded=self.n_excluded + other.n_excluded, groups=dict(self.groups),
                        y_range=(min(self.y_range[0], other.y_range[0]), max(self.y_range[1], other.y_range[1])),
                        w_pos=self.w_pos + other.w_pos)
-        for k, (gw, gn) in other.groups.items():
-            a = out.groups.get(k, [0.0, 0])
-            out.groups[k] = [a[0] + gw, a[1] + gn]
+        for k, (gw, gn, gp, lo, hi) in other.groups.items():
+            a = out.groups.get(k, [0.0, 0, 0, np.inf, -np.inf])
+            out.groups[k] = [a[0] + gw, a[1] + gn, a[2] + gp, min(a[3], lo), max(a[4], hi)]
         mins = [m for m in (self.x_min, other.x_min) if m is not None]
         maxs = [m for m in (self.x_max, other.x_max) if m is not None]
         out.x_min = np.minimum.reduce(mins) if mins else None
@@ -509,7 +513,7 @@ def group_pass(part: Part, plan: Plan, part_index: int, sample_rate: float, seed
     -------
     (RowsInfo, dict of label -> GramStats, FactorAccumulator, dict of sampled columns)
     """
-    from regbench.models.gram import FactorAccumulator, _accumulate, _chunk_rows
+    from regbench.models.gram import FactorAccumulator, _chunk_rows
     from regbench.progress import check
 
     p = len(plan.design_columns)
@@ -536,23 +540,7 @@ def group_pass(part: Part, plan: Plan, part_index: int, sample_rate: float, seed
         gtext = _level_texts(b[plan.groups][keep]).astype(str)
         labels, codes = np.unique(gtext, return_inverse=True)
         _note_rows(info, X, y, w, labels, codes)
-        # Each group's sums are taken about the group's mean in the batch where it first
-        # appeared: a reference near its mean, so later batches add without cancelling and
-        # without a co-moment update per group and batch (parts merge by that update).
-        order = np.argsort(codes, kind="stable")
-        bounds = np.searchsorted(codes[order], np.arange(labels.size + 1))
-        for i, lab in enumerate(labels):
-            rows = order[bounds[i]:bounds[i + 1]]
-            lab = str(lab)
-            cur = groups.get(lab)
-            if cur is None:
-                wk = w[rows]
-                Wk = wk.sum()
-                Xk, yk = X[rows], y[rows]
-                shift = ((wk @ Xk) / Wk, float(wk @ yk) / Wk) if Wk > 0 else (Xk.mean(axis=0), float(yk.mean()))
-                groups[lab] = _accumulate(X, y, w, rows, shift[0], shift[1], chunk)
-            else:
-                groups[lab] = cur + _accumulate(X, y, w, rows, cur.shift_x, cur.shift_y, chunk)
+        _add_to_groups(groups, X, y, w, labels, codes, chunk)
         racc.add(X, y, w)
         pick = np.flatnonzero(u[keep] < sample_rate)
         if pick.size:
@@ -562,6 +550,31 @@ def group_pass(part: Part, plan: Plan, part_index: int, sample_rate: float, seed
             got["g"].append(gtext[pick])
             got["row"].append(first + np.flatnonzero(keep)[pick] + 1)
     return info, groups, racc, got
+
+
+def _add_to_groups(groups: dict, X, y, w, labels, codes, chunk: int) -> None:
+    """Add a batch's rows to each group's cross-products (``groups``: label text -> GramStats).
+
+    Each group's sums are taken about the group's mean in the batch where it first
+    appeared: a reference near its mean, so later batches add without cancelling and
+    without a co-moment update per group and batch (parts merge by that update).
+    """
+    from regbench.models.gram import _accumulate
+
+    order = np.argsort(codes, kind="stable")
+    bounds = np.searchsorted(codes[order], np.arange(labels.size + 1))
+    for i, lab in enumerate(labels):
+        rows = order[bounds[i]:bounds[i + 1]]
+        lab = str(lab)
+        cur = groups.get(lab)
+        if cur is None:
+            wk = w[rows]
+            Wk = wk.sum()
+            Xk, yk = X[rows], y[rows]
+            shift = ((wk @ Xk) / Wk, float(wk @ yk) / Wk) if Wk > 0 else (Xk.mean(axis=0), float(yk.mean()))
+            groups[lab] = _accumulate(X, y, w, rows, shift[0], shift[1], chunk)
+        else:
+            groups[lab] = cur + _accumulate(X, y, w, rows, cur.shift_x, cur.shift_y, chunk)
 
 
 def _kept_arrays(b, plan: Plan, keep, m: int, p: int):
@@ -587,10 +600,20 @@ def _note_rows(info: RowsInfo, X, y, w, labels, codes) -> None:
     if labels is not None:
         gw = np.bincount(codes, weights=w, minlength=labels.size)
         gn = np.bincount(codes, minlength=labels.size)
-        for lab, a, c in zip(labels, gw, gn):
-            cur = info.groups.setdefault(str(lab), [0.0, 0])
+        # Rows with weight and their target's range per group: a bootstrap draw of whole groups
+        # knows from them whether its rows leave anything to fit (GroupSums).
+        gp = np.bincount(codes[pos], minlength=labels.size)
+        lo = np.full(labels.size, np.inf)
+        hi = np.full(labels.size, -np.inf)
+        np.minimum.at(lo, codes[pos], y[pos])
+        np.maximum.at(hi, codes[pos], y[pos])
+        for lab, a, c, q, l, h in zip(labels, gw, gn, gp, lo, hi):
+            cur = info.groups.setdefault(str(lab), [0.0, 0, 0, np.inf, -np.inf])
             cur[0] += float(a)
             cur[1] += int(c)
+            cur[2] += int(q)
+            cur[3] = min(cur[3], float(l))
+            cur[4] = max(cur[4], float(h))
     if pos.any():
         yp = y[pos]
         info.y_range = (min(info.y_range[0], float(yp.min())), max(info.y_range[1], float(yp.max())))
@@ -663,15 +686,18 @@ def stats_pass(part: Part, plan: Plan, folds: Folds, kept_before: int, sample: n
 
     Returns
     -------
-    (FoldAccumulator, FactorAccumulator, dict of sampled columns)
+    (FoldAccumulator, FactorAccumulator, dict of sampled columns, dict of label -> GramStats)
+        The last holds each group's cross-products (empty without groups).
     """
-    from regbench.models.gram import FactorAccumulator, FoldAccumulator
+    from regbench.models.gram import FactorAccumulator, FoldAccumulator, _chunk_rows
     from regbench.progress import check
 
     p = len(plan.design_columns)
     facc = FoldAccumulator(p, folds.K)
     racc = FactorAccumulator(p)
     got = {"X": [], "y": [], "w": [], "g": [], "row": [], "fold": []}
+    groups = {}
+    chunk = _chunk_rows(p)
     pos = kept_before
     offset = 0
     for b in _batches(part, plan):
@@ -691,6 +717,9 @@ def stats_pass(part: Part, plan: Plan, folds: Folds, kept_before: int, sample: n
             ids = folds.row_folds[pos - kept_before:pos - kept_before + m]
         facc.add(X, y, w, ids)
         racc.add(X, y, w)
+        if gtext is not None:
+            labels, codes = np.unique(gtext, return_inverse=True)
+            _add_to_groups(groups, X, y, w, labels, codes, chunk)
         lo, hi = np.searchsorted(sample, [pos, pos + m])
         if hi > lo:
             local = sample[lo:hi] - pos
@@ -702,10 +731,72 @@ def stats_pass(part: Part, plan: Plan, folds: Folds, kept_before: int, sample: n
             if gtext is not None:
                 got["g"].append(gtext[local])
         pos += m
-    return facc, racc, got
+    return facc, racc, got, groups
 
 
 # --------------------------------------------------------------------------- driver
+
+#: Share of the memory budget the groups' cross-products may keep after the pass (for stability).
+GROUP_SUMS_SHARE = 0.5
+
+
+@dataclass(frozen=True, eq=False)
+class GroupSums:
+    """Each group's weighted cross-products over every usable row, kept after the pass.
+
+    A grouped bootstrap draw's cross-products are these added up with the number of
+    times each group is drawn (:mod:`regbench.analysis.group_refits`), and each
+    group's scores for the cluster-robust standard errors follow from them; neither
+    needs a row.
+
+    Attributes
+    ----------
+    labels : tuple of str
+        Group labels, sorted (the design's group codes index them).
+    stats : tuple of GramStats
+        One per label, all about the whole table's weighted means (one reference
+        point, so they add without a co-moment update).
+    n_pos : ndarray (G,)
+        Rows with weight above 0 in each group.
+    y_min, y_max : ndarray (G,)
+        The target's range on those rows.
+    """
+
+    labels: tuple
+    stats: tuple
+    n_pos: np.ndarray
+    y_min: np.ndarray
+    y_max: np.ndarray
+
+    @property
+    def nbytes(self) -> int:
+        """Memory the statistics take: about groups × (p² + 3p) float64 numbers."""
+        return int(sum(st.xx.nbytes + st.sx.nbytes + st.xy.nbytes + st.shift_x.nbytes + st._scale().nbytes
+                       for st in self.stats))
+
+
+def group_sums(groups: dict, info: RowsInfo, labels, full) -> GroupSums:
+    """:class:`GroupSums` from the pass's per-group statistics (label -> GramStats) and row counts,
+    recentred on the whole table's weighted means (those of ``full``)."""
+    sx, sy = full.shift_x, full.shift_y
+    rows = [info.groups[lab] for lab in labels]
+    return GroupSums(labels=tuple(labels), stats=tuple(groups[lab].recentred(sx, sy) for lab in labels),
+                     n_pos=np.array([r[2] for r in rows], dtype=np.float64),
+                     y_min=np.array([r[3] for r in rows], dtype=np.float64),
+                     y_max=np.array([r[4] for r in rows], dtype=np.float64))
+
+
+def _kept_sums(sums: Optional[GroupSums], budget: Optional[int]):
+    """``(sums, note)``: the groups' statistics when they fit in :data:`GROUP_SUMS_SHARE` of the memory
+    budget (or no budget is set), else ``(None, the one line saying why stability is not computed)``."""
+    from regbench.formatting import size_text
+
+    if sums is None or budget is None or sums.nbytes <= GROUP_SUMS_SHARE * budget:
+        return sums, ""
+    need = int(np.ceil(sums.nbytes / GROUP_SUMS_SHARE))
+    return None, (f"Stability is not computed: the cross-products of the {len(sums.labels):,} groups take "
+                  f"{size_text(sums.nbytes)}, more than half the memory budget ({size_text(budget)}); set the "
+                  f"memory budget to at least {size_text(need)} to keep them and see it.")
 
 
 @dataclass(frozen=True)
@@ -738,6 +829,11 @@ class StreamedFit:
     #: Each CV fold's cross-products over every usable row (GramStats, in fold order): held-out
     #: predictions of the sampled rows come from them (the sample's own rows would give other models).
     fold_stats: tuple = field(default=(), compare=False, repr=False)
+    #: Each group's cross-products over every usable row (GroupSums), for grouped bootstrap stability;
+    #: None without a group column, or when they would take more than half the memory budget
+    #: (``group_sums_note`` then says so in one line).
+    group_sums: Optional[GroupSums] = field(default=None, compare=False, repr=False)
+    group_sums_note: str = field(default="", compare=False)
 
     def notes(self) -> dict:
         """What the fit JSON and the report say about the route and the sample."""
@@ -872,7 +968,8 @@ def _design(plan: Plan, cols: Columns, info: RowsInfo, got: dict, labels, roles,
         reference_levels=cols.references)
 
 
-def _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run, runner, roles) -> "StreamedFit":
+def _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run, runner, roles,
+                 budget=None) -> "StreamedFit":
     """One pass for a grouped Parquet table: per-group statistics, folds as sums of whole groups."""
     from regbench.models.gram import FoldAccumulator, merge
     from regbench.progress import check, report
@@ -919,11 +1016,15 @@ def _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run
     report(progress, 1, total, "fitting every model from the cross-products")
     gtext = np.concatenate(got["g"]) if got["g"] else np.zeros(0)
     ids = np.array([group_fold[t] for t in gtext], dtype=np.int64)
-    results = fit_from_stats(design, settings, full, fold_stats, racc, ids, info.n_kept, cancel=cancel)
+    sums = group_sums(groups, info, labels, full)
+    del groups
+    results = fit_from_stats(design, settings, full, fold_stats, racc, ids, info.n_kept, cancel=cancel,
+                             group_sums=sums)
     report(progress, total, total, "done")
+    sums, note = _kept_sums(sums, budget)
     return StreamedFit(design=design, results=results, rows_used=info.n_kept, sampled=design.n < info.n_kept,
                        excluded_total=info.n_excluded, route="streamed" if runner is None else "cluster",
-                       fold_stats=tuple(fold_stats))
+                       fold_stats=tuple(fold_stats), group_sums=sums, group_sums_note=note)
 
 
 def combine_group_parts(a, b):
@@ -1009,6 +1110,7 @@ def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sa
     -------
     StreamedFit
     """
+    from regbench.models.gram import merge
     from regbench.progress import check, report
 
     run = runner or (lambda fn, args: [fn(*a) for a in args])
@@ -1018,7 +1120,8 @@ def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sa
     parts = parts_of(path)
     total = 4
     if plan.groups and all(part.rows is not None for part in parts):
-        return _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run, runner, roles)
+        return _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run, runner, roles,
+                            memory_budget)
     report(progress, 0, total, f"reading {len(parts)} part(s) of {Path(path).name}: which rows are usable")
     infos = run(rows_pass, [(part, plan) for part in parts])
     check(cancel)
@@ -1051,28 +1154,37 @@ def stream_fit(path, roles, settings, *, memory_budget: Optional[int] = None, sa
         args.append((part, plan2, own, a, sample[lo:hi]))
     outs = run(stats_pass, args)
     check(cancel)
-    facc, racc, got = outs[0]
-    for f2, r2, g2 in outs[1:]:
+    facc, racc, got, groups = outs[0]
+    groups = dict(groups)
+    for f2, r2, g2, s2 in outs[1:]:
         facc = facc.combine(f2)
         racc = racc.combine(r2)
         for k in got:
             got[k] += g2[k]
+        for lab, st in s2.items():
+            groups[lab] = st if lab not in groups else merge(groups[lab], st)
+    del outs
     full, fold_stats = facc.result()
     design = _design(plan2, cols, info, got, labels, roles)
     report(progress, 2, total, "fitting every model from the cross-products")
     fold_of = np.concatenate(got["fold"]).astype(np.int64) if got["fold"] else np.zeros(0, dtype=np.int64)
-    results = fit_from_stats(design, settings, full, fold_stats, racc, fold_of, info.n_kept, cancel=cancel)
+    sums = group_sums(groups, info, labels, full) if plan.groups else None
+    results = fit_from_stats(design, settings, full, fold_stats, racc, fold_of, info.n_kept, cancel=cancel,
+                             group_sums=sums)
     report(progress, total, total, "done")
+    sums, note = _kept_sums(sums, memory_budget)
     return StreamedFit(design=design, results=results, rows_used=info.n_kept, sampled=bool(sampled),
                        excluded_total=info.n_excluded, route="streamed" if runner is None else "cluster",
-                       fold_stats=tuple(fold_stats))
+                       fold_stats=tuple(fold_stats), group_sums=sums, group_sums_note=note)
 
 
-def fit_from_stats(design, settings, full, folds, factor, fold_ids, n_obs, cancel=None):
+def fit_from_stats(design, settings, full, folds, factor, fold_ids, n_obs, cancel=None, group_sums=None):
     """``fit_all`` from gathered statistics: OLS from the merged factor, the rest from the fold Grams.
 
     The penalized problems are built by :func:`regbench.models.engine.problem_for`, as in
-    memory: one indicator per level of a category and the settings' penalty factors.
+    memory: one indicator per level of a category and the settings' penalty factors.  With
+    ``group_sums`` (:class:`GroupSums`) OLS also gets its cluster-robust standard errors, each
+    group's scores following from its cross-products.
     """
     from regbench.models import engine
     from regbench.models.diagnostics import diagnose
@@ -1083,7 +1195,8 @@ def fit_from_stats(design, settings, full, folds, factor, fold_ids, n_obs, cance
 
     engine._validate(settings)
     with one_blas_thread():
-        ols = fit_ols(design, settings.pins, settings.rank_tol, factor=factor_rows(factor.factor(), factor.W, factor.n))
+        ols = fit_ols(design, settings.pins, settings.rank_tol, factor=factor_rows(factor.factor(), factor.W, factor.n),
+                      group_stats=None if group_sums is None else group_sums.stats)
         diag = diagnose(design, ols)
         problem = engine.problem_for(full, design, settings)
         train = [engine.problem_for(engine._training(full, f, k), design, settings) for k, f in enumerate(folds)]

@@ -110,7 +110,7 @@ def one_blas_thread():
 
 
 def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None, *,
-            chunk_rows: Optional[int] = None, factor=None) -> OLSResult:
+            chunk_rows: Optional[int] = None, factor=None, group_stats=None) -> OLSResult:
     """Weighted least squares with intercept, setting aside columns the others reproduce.
 
     Parameters
@@ -132,6 +132,9 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None, 
         :func:`factor_rows`); ``design`` then needs only ``columns``.  Without
         the rows the solution is not refined on residuals; it is the QR
         solution of the factor.
+    group_stats : sequence of GramStats, optional
+        With ``factor``: each group's weighted cross-products over its rows (a streamed
+        pass), from which the cluster-robust standard errors follow without the rows.
 
     Returns
     -------
@@ -150,10 +153,10 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None, 
         depend on each other (named), non-finite values or bad weights.
     """
     with one_blas_thread():
-        return _fit_ols(design, pins, rank_tol, chunk_rows, factor)
+        return _fit_ols(design, pins, rank_tol, chunk_rows, factor, group_stats)
 
 
-def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None) -> OLSResult:
+def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None, group_stats=None) -> OLSResult:
     columns = tuple(design.columns)
     p = len(columns)
     fac = weighted_factor(design, chunk_rows) if factor is None else factor
@@ -186,6 +189,9 @@ def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None) -> OLSResult:
         resid = fac.rows.residuals(_full(p, kept, beta_k), icpt)
         cl_se, cl_icpt_se, n_clusters = _cluster_se(design, fac.rows, kept, fac.mean, resid, xtwx_inv, fac.W,
                                                     stats["observations"], p)
+    elif group_stats is not None and len(group_stats):
+        scores = _group_scores(group_stats, kept, beta_k, fac.mean, fac.ybar)
+        cl_se, cl_icpt_se, n_clusters = _sandwich(scores, kept, fac.mean, xtwx_inv, fac.W, stats["observations"], p)
 
     sources = tuple(getattr(design, "sources", columns) or columns)
     set_aside = _explain_all(aside, kept, C, columns, fac.rows, fac.W, fac.mean, fac.sd, sc.scale, sc.size,
@@ -352,6 +358,34 @@ def _cluster_se(design, rows, kept, mean, resid, xtwx_inv, W, n_eff, p):
         Zb *= we[a:b, None]
         ind = sparse.csr_matrix((np.ones(b - a), (code[a:b], np.arange(b - a))), shape=(G, b - a))
         S += ind @ Zb
+    return _sandwich(S, kept, mean, xtwx_inv, W, n_eff, p)
+
+
+def _group_scores(group_stats, kept, beta_k, mean, ybar) -> np.ndarray:
+    """Each group's score ``s_g = Σ_{i in g} w_i e_i z_i`` (``z = [1, x - m]``) from its cross-products.
+
+    About the reference point (m, ȳ), with ``e = (y - ȳ) - (x - m)ᵀβ``:
+    ``s_g = [Σw(y-ȳ) - Σw(x-m)ᵀβ,  Σw(x-m)(y-ȳ) - Σw(x-m)(x-m)ᵀβ]``.  Each group's
+    statistics are recentred on (m, ȳ) first (its centred co-moments plus the offset of
+    its mean, nothing cancelling); groups without weight have no score.
+    """
+    k = len(kept)
+    rows = []
+    for st in group_stats:
+        if not st.W > 0:
+            continue
+        r = st.recentred(mean, ybar)
+        s = np.empty(k + 1)
+        s[0] = r.sy - r.sx[kept] @ beta_k
+        s[1:] = r.xy[kept] - r.xx[np.ix_(kept, kept)] @ beta_k
+        rows.append(s)
+    return np.array(rows).reshape(len(rows), k + 1)
+
+
+def _sandwich(S, kept, mean, xtwx_inv, W, n_eff, p):
+    """The cluster-robust standard errors from the groups' scores ``S`` (G × (k+1)); see :func:`_cluster_se`."""
+    G = S.shape[0]
+    k = len(kept)
     B = np.zeros((k + 1, k + 1))
     B[0, 0] = 1.0 / W
     B[1:, 1:] = xtwx_inv

@@ -65,8 +65,10 @@ class StabilityPanel(Panel):
             self.ranges_model.set_rows([], [])
             self.plot.clear()
             self.note.setText("")
-            self.set_sentences(["No bootstrap refits yet: set 'Stability refits' above 0 under Settings (top right), then press Fit."
-                                if session.results is not None else "Fit the models to check their stability."])
+            withheld = session.sample_limits().get("stability") if session.results is not None else None
+            self.set_sentences([withheld or ("No bootstrap refits yet: set 'Stability refits' above 0 under Settings "
+                                             "(top right), then press Fit." if session.results is not None
+                                             else "Fit the models to check their stability.")])
             return
         self.note.setText("" if session.stability_current else
                           "These refits used an earlier α; the chosen α has changed since.")
