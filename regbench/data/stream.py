@@ -777,10 +777,13 @@ class GroupSums:
 
 def group_sums(groups: dict, info: RowsInfo, labels, full) -> GroupSums:
     """:class:`GroupSums` from the pass's per-group statistics (label -> GramStats) and row counts,
-    recentred on the whole table's weighted means (those of ``full``)."""
+    recentred on the whole table's weighted means (those of ``full``).
+
+    Empties ``groups`` as it goes, so the statistics are held once, not twice.
+    """
     sx, sy = full.shift_x, full.shift_y
     rows = [info.groups[lab] for lab in labels]
-    return GroupSums(labels=tuple(labels), stats=tuple(groups[lab].recentred(sx, sy) for lab in labels),
+    return GroupSums(labels=tuple(labels), stats=tuple(groups.pop(lab).recentred(sx, sy) for lab in labels),
                      n_pos=np.array([r[2] for r in rows], dtype=np.float64),
                      y_min=np.array([r[3] for r in rows], dtype=np.float64),
                      y_max=np.array([r[4] for r in rows], dtype=np.float64))
@@ -1017,7 +1020,6 @@ def _grouped_fit(path, plan, parts, settings, sample_rows, progress, cancel, run
     gtext = np.concatenate(got["g"]) if got["g"] else np.zeros(0)
     ids = np.array([group_fold[t] for t in gtext], dtype=np.int64)
     sums = group_sums(groups, info, labels, full)
-    del groups
     results = fit_from_stats(design, settings, full, fold_stats, racc, ids, info.n_kept, cancel=cancel,
                              group_sums=sums)
     report(progress, total, total, "done")
