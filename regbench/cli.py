@@ -378,7 +378,7 @@ def cmd_fit(args) -> int:
             sys.stdout.write(fit_summary_text(design, results).replace(
                 f"{design.n} rows used", f"{streamed.rows_used} rows used", 1) + f"\n({note})\n")
         return EXIT_OK
-    _, design = load_design(args)
+    table, design = load_design(args)
     from regbench.models.engine import fit_all
 
     results = fit_all(design, settings, progress=_progress_to_stderr)
@@ -388,7 +388,7 @@ def cmd_fit(args) -> int:
         _columns_left_out(design, sys.stderr)   # after the result, so a failed write stays one line
     else:
         # The summary's "Columns not used" names each left-out column; here with the flag.
-        sys.stdout.write(fit_summary_text(design, results, classification).replace(*_NAME_IT) + "\n")
+        sys.stdout.write(fit_summary_text(design, results, classification, table).replace(*_NAME_IT) + "\n")
     return EXIT_OK
 
 
@@ -592,7 +592,7 @@ def cmd_open(args) -> int:
 def cmd_snapshot(args) -> int:
     from regbench.gui.snapshot import snapshot
 
-    paths = snapshot(args.project, args.out)
+    paths = snapshot(args.project, args.out, say=lambda line: sys.stderr.write(f"regbench snapshot: {line}\n"))
     for p in paths:
         sys.stdout.write(f"{p}\n")
     return EXIT_OK

@@ -131,11 +131,12 @@ def set_aside_sentence(sa: SetAside) -> str:
             "gives almost the same predictions.")
 
 
-def fit_summary_text(design, results, classification=None) -> str:
+def fit_summary_text(design, results, classification=None, table=None) -> str:
     """A plain-text summary of the fit, in the order a reader asks about it.
 
     ``classification`` (a yes/no outcome's calibration and discrimination) adds how good
-    the probabilities are.
+    the probabilities are.  ``table``, the table the design was built from, names a row the
+    way the table does (its identifier column) where a sentence points at one.
     """
     binary = getattr(results, "outcome", "numeric") == "binary"
     lines = _summary_data_lines(design)
@@ -152,7 +153,7 @@ def fit_summary_text(design, results, classification=None) -> str:
         lines.extend(_ols_lines(design, results.ols))
     lines.extend(_summary_penalty_lines(design, results, binary))
     lines.append("")
-    lines.extend(_summary_range_lines(design, results))
+    lines.extend(_summary_range_lines(design, results, table))
     lines.append("")
     lines.extend(_summary_closing_lines(design, binary))
     return "\n".join(lines)
@@ -263,10 +264,12 @@ def _summary_penalty_lines(design, results, binary: bool) -> list:
     return lines
 
 
-def _summary_range_lines(design, results) -> list:
+def _summary_range_lines(design, results, table=None) -> list:
     """How far equally good models differ, or why that cannot be computed for this fit."""
-    # The engine's results carry sentences from this module, so the layouts import the layers above it here.
+    # The engine's results carry sentences from this module, so the layouts import the layers above it
+    # here; the row names' module loads pandas, which `inspect` does not need.
     from regbench.analysis.ranges import compute_ranges, ranges_unavailable
+    from regbench.data.identifiers import with_row_names
 
     why = ranges_unavailable(results)
     if why is not None:
@@ -276,7 +279,7 @@ def _summary_range_lines(design, results) -> list:
     lines = [f"How far equally good models differ (tolerance {number_text(100 * rg.tolerance, 2)} %: "
              f"{rg.tolerance_note}{approx})"]
     for s in rg.sentences:
-        lines.append(f"  • {s}")
+        lines.append(f"  • {with_row_names(s, table)}")
     for t in rg.trades:
         lines.append(f"  • {t['sentence']}")
     return lines

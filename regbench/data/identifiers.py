@@ -133,6 +133,29 @@ def row_names(table: Table, rows, column=_LOOK) -> list:
     return [_label_text(values.iloc[int(r) - 1]) for r in rows]
 
 
+def with_row_names(text: str, table: Optional[Table], column=_LOOK) -> str:
+    """A sentence that points at a row as "(most on row N)" with the row's name added the way the
+    table names it ("(most on row 270, batch GH05-030)") when its identifier column names every row.
+
+    ``column`` as in :func:`row_names`.  Without such a column, or without the table, ``text`` is
+    returned as it is.
+    """
+    if table is None:
+        return text
+    if column is _LOOK:
+        column = row_label_column(table)
+    if column is None:
+        return text
+
+    def named(m):
+        row = int(m.group(1))
+        if not 1 <= row <= table.n_rows:
+            return m.group(0)
+        return f"(most on row {row}, {column} {row_names(table, [row], column=column)[0]})"
+
+    return re.sub(r"\(most on row (\d+)\)", named, text)
+
+
 def _label_text(value) -> str:
     """A label cell as a person wrote it: a whole number without '.0'."""
     if isinstance(value, float) and value == int(value):

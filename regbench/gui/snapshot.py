@@ -7,8 +7,11 @@ import os
 SIZE = (1400, 900)
 
 
-def snapshot(project_path, out_dir, size=SIZE) -> list:
+def snapshot(project_path, out_dir, size=SIZE, say=None) -> list:
     """Open ``project_path`` in a window of ``size`` and write one PNG per panel (the question sentence shows across the top of each).
+
+    ``say``, when given, is called with the project layer's one line when the saved results
+    are not used and the models are fitted again (as ``regbench report`` prints it).
 
     Returns
     -------
@@ -25,6 +28,8 @@ def snapshot(project_path, out_dir, size=SIZE) -> list:
 
     app = application()
     session = load_project(os.fspath(project_path))
+    if session.cache_note and say is not None:
+        say(session.cache_note)
     os.makedirs(out_dir, exist_ok=True)
     window = MainWindow(autosave=False)
     window.resize(*size)

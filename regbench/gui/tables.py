@@ -245,6 +245,19 @@ class FittedTableView(QtWidgets.QTableView):
         super().resizeEvent(event)
         self._squeeze()
 
+    def keep_to_columns(self) -> None:
+        """Make the view no wider than its columns at their natural widths (:meth:`resizeColumnsToContents`),
+        so a splitter gives the room left over to its neighbour instead of an empty stretch beside the
+        last column."""
+        h, vh = self.horizontalHeader(), self.verticalHeader()
+        natural = getattr(self, "_natural", None)
+        if not natural or len(natural) != h.count():
+            natural = [h.sectionSize(i) for i in range(h.count())]
+        need = (sum(natural)
+                + (0 if vh.isHidden() else vh.sizeHint().width())
+                + 2 * self.frameWidth() + self.verticalScrollBar().sizeHint().width() + 2)
+        self.setMaximumWidth(max(need, 120))
+
     def _squeeze(self):
         h = self.horizontalHeader()
         natural = getattr(self, "_natural", None)

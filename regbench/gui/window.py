@@ -9,6 +9,7 @@ from PySide6 import QtCore, QtGui, QtWidgets
 
 from regbench.data import read_table
 from regbench.errors import DataError, ProjectError, RegbenchError
+from regbench.gui.elided import ElidedLabel
 from regbench.gui.export import export_csv, export_plot
 from regbench.gui.help import HelpView
 from regbench.gui.panels.agreement import AgreementPanel
@@ -197,10 +198,9 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def _build_status(self):
         sb = self.statusBar()
-        self.status_label = QtWidgets.QLabel("Open a table or a project to begin.")
-        # A long message must not widen the window past the screen: it is cut at the window's edge
-        # (its tooltip holds it whole).
-        self.status_label.setSizePolicy(QtWidgets.QSizePolicy.Ignored, QtWidgets.QSizePolicy.Preferred)
+        # A long message must not widen the window past the screen: it ends in "…" at the window's
+        # edge, and its tooltip holds it whole.
+        self.status_label = ElidedLabel("Open a table or a project to begin.")
         self.progress_bar = QtWidgets.QProgressBar()
         self.progress_bar.setFixedWidth(220)
         self.progress_bar.setVisible(False)
@@ -913,8 +913,7 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def set_status(self, text: str, sticky: bool = True) -> None:
         """Show ``text``; a sticky message (an outcome) stays when the job ends."""
-        self.status_label.setText(text)
-        self.status_label.setToolTip(text)
+        self.status_label.setText(text)   # its tooltip holds the whole text
         self._sticky = sticky
 
     def ask_unsaved(self) -> str:

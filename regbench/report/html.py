@@ -16,6 +16,7 @@ import numpy as np
 
 from regbench import __version__
 from regbench.batches import budget_words
+from regbench.data.identifiers import with_row_names
 from regbench.formatting import MISSING, join_words, number_text, percent
 from regbench.models.coding import design_sd
 from regbench.models.results import aligned, model_columns, model_label, unpenalized
@@ -431,7 +432,8 @@ def _ranges(session) -> str:
     label = "<p><strong>Quadratic approximation.</strong></p>" if rg.approximation == "quadratic" else ""
     parts = [label, f"<p>Not just four fits: every linear model {e(tolerance_phrase(rg))} — {e(kind)}; "
              f"{e(rg.tolerance_note)}. {e(approximation_note(rg))}</p>",
-             sentences(rg.sentences), sentences([t["sentence"] for t in rg.trades])]
+             sentences([with_row_names(t, session.table) for t in rg.sentences]),
+             sentences([t["sentence"] for t in rg.trades])]
     marks = [(model_label(n), n, _std_coef(session, n)) for n in rg.models]
     scale = "standardized log-odds coefficient" if binary else "standardized coefficient"
     parts.append(figure(svg.range_bars(rg.columns, rg.low_std, rg.high_std, marks,

@@ -34,6 +34,8 @@ FONT_PX = 11
 CHAR_PX = 6.3
 LABEL_GAP = 13.0
 READOUT_ROWS = 8
+#: Opacity of the read-out's paper: the words read clearly and the curves behind still show.
+READOUT_PAPER = 0.72
 
 
 @dataclass
@@ -510,16 +512,58 @@ def _readout(c: _Layout) -> None:
     names_w = max((text_width(t, 10) for t, v, _ in lines[1:] if v is not None), default=0.0)
     box_w = max(text_width(head, 10) + 20, names_w + vals_w + 30, 140.0)
     box_h = 8 + 14 * len(lines)
-    bx = hx + 10 if hx + 10 + box_w <= fig.x1 else hx - 10 - box_w
-    by = c.r_paths[1] + 4
-    P.append(Prim("rect", ((bx, by),), w=box_w, h=box_h, fill=PALETTE["base"], stroke=accent, opacity=0.93, r=3.0,
-                  role="readout"))
+    bx, by = _readout_place(c, hx, box_w, box_h)
+    # See-through paper under the words (curves behind it stay visible), the frame at full strength.
+    P.append(Prim("rect", ((bx, by),), w=box_w, h=box_h, fill=PALETTE["base"], opacity=READOUT_PAPER, r=3.0))
+    P.append(Prim("rect", ((bx, by),), w=box_w, h=box_h, stroke=accent, r=3.0, role="readout"))
     for k, (text, v, strong) in enumerate(lines):
         ty = by + 16 + 14 * k
         P.append(Prim("text", ((bx + 8, ty),), text=text, fill=ink if k else accent, size=10, bold=strong))
         if v is not None:
             P.append(Prim("text", ((bx + box_w - 8, ty),), text=("≈" if approx else "") + number_text(v, 4),
                           fill=ink, size=10, anchor="end", bold=strong))
+
+
+def _readout_place(c: _Layout, hx: float, box_w: float, box_h: float) -> tuple:
+    """Where the read-out box hides the least of the paths: beside the handle (right, else left), at the
+    top, middle or bottom of the paths, whichever covers the fewest sampled curve points (the
+    highlighted curve counts most); the top right when several tie."""
+    fig, r = c.fig, c.r_paths
+    xs = [x for x in (hx + 10, hx - 10 - box_w) if fig.x0 <= x and x + box_w <= fig.x1] or \
+        [min(max(hx + 10, fig.x0), max(fig.x0, fig.x1 - box_w))]
+    top, bottom = r[1] + 4, max(r[1] + 4, r[3] - 4 - box_h)
+    ys = list(dict.fromkeys((top, (top + bottom) / 2, bottom)))
+    grid_x, grid_y, weight = _curve_grid(c)
+    best, where = None, (xs[0], ys[0])
+    for x in xs:
+        inside_x = (grid_x >= x) & (grid_x <= x + box_w)
+        if not inside_x.any() or grid_y.size == 0:
+            return x, ys[0]
+        band = grid_y[:, inside_x]
+        for y in ys:
+            hidden = float((((band >= y) & (band <= y + box_h)).sum(axis=1) * weight).sum())
+            if best is None or hidden < best:
+                best, where = hidden, (x, y)
+    return where
+
+
+def _curve_grid(c: _Layout):
+    """Each curve's pixel height every few pixels across the paths (made once per layout): the
+    read-out's placement counts the points a box would cover."""
+    grid = getattr(c, "_grid", None)
+    if grid is None:
+        fig = c.fig
+        gx = np.arange(fig.x0, fig.x1 + 1.0, 4.0)
+        rows, weight = [], []
+        for col, (cx, cy) in fig.curves.items():
+            if len(cx) < 2:
+                continue
+            order = np.argsort(cx)
+            rows.append(np.interp(gx, np.asarray(cx)[order], np.asarray(cy)[order], left=np.nan, right=np.nan))
+            weight.append(8.0 if col == c.hl else 1.0)
+        gy = np.vstack(rows) if rows else np.empty((0, gx.size))
+        grid = c._grid = (gx, gy, np.asarray(weight, dtype=float))
+    return grid
 
 
 def _extras(c: _Layout) -> None:

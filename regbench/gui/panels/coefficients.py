@@ -32,7 +32,8 @@ class CoefficientsPanel(Panel):
         lay.addWidget(hbox(caption("Coefficients"), self.scale, stretch_last=True))
         split = QtWidgets.QSplitter(Qt.Horizontal)
         self.model = GridModel()
-        self.view = make_view(self.model)
+        # Columns as wide as their numbers; the plot beside takes the room the table does not need.
+        self.view = make_view(self.model, stretch_last=False)
         self.view.verticalHeader().sectionClicked.connect(self._row_clicked)
         self.view.verticalHeader().setToolTip("Click a column's name to follow its path in 'Fits differ · penalty'")
         split.addWidget(self.view)
@@ -143,6 +144,7 @@ class CoefficientsPanel(Panel):
                     tips.setdefault((r, k0 + 2), "cluster-robust: rows of one group may share influences")
         self.model.set_rows(rows, headers, row_labels=[INTERCEPT] + cols, backgrounds=bg, foregrounds=fg, tips=tips)
         self.view.resizeColumnsToContents()
+        self.view.keep_to_columns()
         self.defer(self._draw, models, cols)
         st = session.structure()
         sentences = list(getattr(st, "sentences", ()) or ())

@@ -12,14 +12,12 @@ strip shows probabilities.
 
 from __future__ import annotations
 
-import re
-
 import numpy as np
 import pyqtgraph as pg
 from PySide6 import QtCore, QtGui, QtWidgets
 
 from regbench.analysis.ranges import KIND_HELDOUT, QUADRATIC_WORDS, ranges_unavailable
-from regbench.data.identifiers import row_label_column, row_names
+from regbench.data.identifiers import row_label_column, row_names, with_row_names
 from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.style import PALETTE, keep_legend_above, model_colour, plain_axes
 from regbench.formatting import number_text
@@ -335,11 +333,7 @@ class RangesPanel(Panel):
 
     def _name_rows(self, text: str) -> str:
         """Add the table's name of the row a sentence points at ("row 270" → "row 270, batch GH05-030")."""
-        column = self.label_column()
-        if column is None:
-            return text
-        return re.sub(r"\(most on row (\d+)\)",
-                      lambda m: f"(most on row {m.group(1)}, {column} {self.row_names([int(m.group(1))])[0]})", text)
+        return with_row_names(text, getattr(self.session, "table", None), column=self.label_column())
 
     def label_column(self):
         """The table's row-label column (its identifier), or None."""
