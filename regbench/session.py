@@ -262,6 +262,9 @@ class Session:
         self.source: Optional[str] = None
         #: The last pass over a table read in batches (a StreamedFit), else None.
         self.streamed = None
+        #: A table read in batches: its first rows with every column (the roles are chosen from them;
+        #: the pass's row sample holds only the columns the fit reads), else None.
+        self.first_rows: Optional[Table] = None
 
     # -- constructors --------------------------------------------------------------------
 
@@ -285,6 +288,28 @@ class Session:
         settings = _normalized(settings or FitSettings())
         streamed = run_pass(path, _roles(roles), settings, rows, progress=progress, cancel=cancel)
         return cls.from_streamed(path, streamed, roles, settings, rows)
+
+    @classmethod
+    def from_first_rows(cls, path, table: Table, roles, settings=None, rows: Optional[RowSource] = None) -> "Session":
+        """A session on a table to be read in batches, before its pass: nothing long has run yet.
+
+        ``table`` holds the file's first rows with every column, so the roles can be chosen as for a
+        table in memory; the design is theirs until :meth:`compute_results` runs the pass over every
+        row (when the person fits), which replaces table and design with the pass's row sample.
+        :attr:`first_rows` keeps them for choosing roles afterwards.
+        """
+        from pathlib import Path
+
+        session = cls(table, roles, settings)
+        session.source = str(Path(path).resolve())
+        session.first_rows = table
+        session._state = replace(session._state, rows=check_rows(rows or RowSource()))
+        return session
+
+    @property
+    def awaiting_pass(self) -> bool:
+        """True for a table read in batches whose pass has not run yet (the rows at hand are its first rows)."""
+        return self.source is not None and self.streamed is None
 
     @classmethod
     def from_streamed(cls, path, streamed, roles, settings=None, rows: Optional[RowSource] = None,

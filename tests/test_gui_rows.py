@@ -17,6 +17,7 @@ import pytest  # noqa: E402
 pytest.importorskip("pytestqt")
 from PySide6 import QtCore, QtWidgets  # noqa: E402
 
+from regbench.gui.rowsettings import HEAD_ROWS  # noqa: E402
 from regbench.models.spec import RowSource  # noqa: E402
 
 pytestmark = pytest.mark.gui
@@ -72,6 +73,7 @@ def test_the_window_reads_a_table_beyond_the_budget_in_batches_and_says_so(qtbot
     f = pd.DataFrame({f"x{j}": rng.normal(size=n) + j for j in range(6)})
     f["site"] = [f"s{v:02d}" for v in rng.integers(0, 9, n)]
     f["y"] = f["x0"] - 0.5 * f["x1"] + rng.normal(size=n)
+    f.insert(0, "row_id", np.arange(n))   # counts the rows: left out of the inputs, listed all the same
     path = tmp_path / "big.parquet"
     f.to_parquet(path, index=False, row_group_size=5000)
     w = make_window(qtbot)
@@ -80,10 +82,28 @@ def test_the_window_reads_a_table_beyond_the_budget_in_batches_and_says_so(qtbot
     w.open_path(str(path), confirmed=True)
     wait_idle(qtbot, w)
     s = w.session
+    # Opening reads only the first rows, every column, and starts nothing long: the roles are drafted
+    # from them (the window's rule) and wait for Fit, as for a table in memory.
+    assert s is not None and s.source == str(path.resolve()) and s.awaiting_pass and s.results is None
+    assert s.streamed is None and not s.sampled and s.table.n_rows == HEAD_ROWS
+    assert w.draft.names == list(f.columns) and w.draft.target == "y"
+    assert "press Fit to read every row in batches" in w.status_label.text()
+    w.refresh_everything()
+    assert f"The first {HEAD_ROWS:,} rows of big.parquet are shown" in w.panel("data").sentences.text()
+    with qtbot.waitSignal(w.results_applied, timeout=120_000):
+        w.fit_pressed()
     # The pass ran on the worker: every row fitted, a seeded sample of 20,000 at hand, and said so.
-    assert s is not None and s.source == str(path.resolve()) and s.sampled
+    assert s is w.session and s.sampled and not s.awaiting_pass
     assert s.streamed.rows_used == n and s.design.n == 20_000 and s.rows == RowSource(memory_budget=10**6)
     assert s.roles.target == "y" and "site" in s.design.sources  # a text input, coded as in memory
+    assert "row_id" not in s.table.names and "row_id" not in s.design.sources
+    # The sample holds only the fit's columns; the column list still lists every column of the table,
+    # after a change of roles too.
+    assert w.draft.names == list(f.columns) and not w.draft.uses("row_id")
+    w.draft.set_ticked("x5", False)
+    with qtbot.waitSignal(w.results_applied, timeout=120_000):
+        w.fit_pressed()
+    assert "x5" not in s.roles.predictors and w.draft.names == list(f.columns)
     data = w.panel("data")
     w.show_panel("data")
     w.refresh_everything()
@@ -105,6 +125,7 @@ def test_the_window_reads_a_table_beyond_the_budget_in_batches_and_says_so(qtbot
     assert w.errors == [] and w.session is not s
     assert w.session.source == str(path.resolve()) and w.session.sampled
     assert w.session.rows == RowSource(memory_budget=10**6)
+    assert w.draft.names == list(f.columns)   # every column again, from the file's first rows
     w.refresh_everything()
     assert "seeded sample of 20,000" in w.panel("data").sentences.text()
     w.dirty = False
@@ -152,9 +173,52 @@ def test_reading_in_batches_can_be_cancelled_and_changes_nothing(qtbot, tmp_path
     w = make_window(qtbot)
     w.set_row_source(RowSource(memory_budget=10**6))
     w.open_path(str(path), confirmed=True)
-    # Cancel at once: the pass checks between its steps and stops there (it takes far longer than this call).
+    wait_idle(qtbot, w)
+    s = w.session
+    assert s is not None and s.awaiting_pass
+    # Fit, then cancel at once: the pass checks between its steps and stops there (it takes far longer
+    # than this call); the session keeps its first rows and waits for Fit again.
+    w.fit_pressed()
     w.cancel_work()
     wait_idle(qtbot, w)
-    assert w.session is None and w.errors == []
-    assert "Reading cancelled; nothing was changed." in w.status_label.text()
+    assert w.session is s and s.awaiting_pass and s.results is None and w.errors == []
+    assert "cancelled; nothing was changed." in w.status_label.text()
+    w.dirty = False
+    w.close()
+
+
+def test_installing_the_pass_draws_the_data_panel_once_and_its_cells_in_a_later_turn(qtbot, tmp_path, monkeypatch):
+    """The turn that installs a pass's results draws the data panel's sentences only; its 20,000 sampled
+    cells fill in a later turn, once, and the comparisons arriving afterwards do not redraw it (each
+    redraw lays out and paints the panel again on the GUI thread)."""
+    from regbench.gui.panels.data import DataPanel
+
+    rng = np.random.default_rng(6)
+    n = 24_000
+    f = pd.DataFrame({f"x{j}": rng.normal(size=n) for j in range(4)})
+    f["y"] = f["x0"] + rng.normal(size=n)
+    path = tmp_path / "big.parquet"
+    f.to_parquet(path, index=False, row_group_size=6000)
+    w = make_window(qtbot)
+    w.set_row_source(RowSource(memory_budget=10**6))
+    w.open_path(str(path), confirmed=True)
+    wait_idle(qtbot, w)
+    qtbot.waitUntil(lambda: not w.panel("data")._deferred, timeout=10_000)
+    data = w.panel("data")
+    assert data.frame_model.rowCount() == HEAD_ROWS
+    calls = []
+    for name in ("refresh", "_fill_cells"):
+        real = getattr(DataPanel, name)
+        monkeypatch.setattr(DataPanel, name, lambda self, *a, real=real, name=name: (calls.append(name), real(self, *a)))
+    at_install = []
+    w.results_applied.connect(lambda: at_install.append((list(calls), data.frame_model.rowCount())))
+    w.fit_pressed()
+    qtbot.waitUntil(lambda: bool(at_install), timeout=120_000)
+    wait_idle(qtbot, w)
+    qtbot.waitUntil(lambda: w.session.derived_ready and not data._deferred and not w.runner.busy(), timeout=120_000)
+    QtWidgets.QApplication.processEvents()
+    assert at_install[0] == (["refresh"], HEAD_ROWS)       # sentences now, the cells not yet
+    assert calls == ["refresh", "_fill_cells"]              # each once, the comparisons redrew nothing here
+    assert data.frame_model.rowCount() == 20_000 and w.session.sampled
+    w.dirty = False
     w.close()

@@ -7,10 +7,13 @@ it includes waiting for a core) and in the GUI thread's own CPU time (the work t
 did in that gap, which is what the gap shrinks to on a quiet machine).
 
     QT_QPA_PLATFORM=offscreen python -m regbench.gui.heartbeat [PROJECT] [--rounds N]
+    QT_QPA_PLATFORM=offscreen python -m regbench.gui.heartbeat --batches TABLE [--memory-budget 50MB]
 
 (``scripts/gui_stalls.py`` runs the same.)  The actions: open a project, the first visit to
 each panel, switching between panels afterwards, switching the penalty figure to another
-family, releasing an α drag on each family, stepping α from the keyboard, and undo.  Each
+family, releasing an α drag on each family, stepping α from the keyboard, and undo; with
+``--batches TABLE [--memory-budget 50MB]``, opening a table read in batches, fitting it (the pass
+runs on the worker; its results are installed on the GUI thread), and each panel.  Each
 action is sent through the event loop (as a click or a key press arrives), so the heartbeat
 ticks between the action itself and the drawing steps it leaves for later turns.
 """
@@ -145,11 +148,32 @@ def run_actions(log: StallLog, project: str, rounds: int) -> None:
         w.dirty = False
 
 
+def run_batches(log: StallLog, table: str, budget: int, rounds: int) -> None:
+    """Open ``table`` under a memory budget of ``budget`` bytes ``rounds`` times: its first rows, then Fit
+    (the pass over every row on the worker, then the results installed), then every panel."""
+    from regbench.models.spec import RowSource
+
+    w = log.window
+    w.set_row_source(RowSource(memory_budget=budget))
+    for _ in range(rounds):
+        w.show_panel("data")
+        log.measure("open a table in batches", lambda: w.open_path(table, confirmed=True))
+        log.measure("fit a table read in batches", w.fit_pressed, timeout_s=600.0)
+        for i, panel in enumerate(w.panels):
+            log.measure(f"first visit: {panel.nav}", lambda i=i: w.show_panel(i))
+        for i in range(len(w.panels)):
+            log.measure("switch panel (visited before)", lambda i=i: w.show_panel(i))
+        w.dirty = False
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(prog="python -m regbench.gui.heartbeat",
                                  description="GUI-thread stalls per action, measured with a heartbeat timer")
     ap.add_argument("project", nargs="?", default=str(SAMPLE))
     ap.add_argument("--rounds", type=int, default=3)
+    ap.add_argument("--batches", metavar="TABLE",
+                    help="instead of a project: open this Parquet or CSV table read in batches, then fit it")
+    ap.add_argument("--memory-budget", default="50MB", help="the memory for rows with --batches (default 50MB)")
     args = ap.parse_args(argv)
     from regbench.gui.app import application
     from regbench.gui.window import MainWindow
@@ -160,9 +184,15 @@ def main(argv=None) -> int:
     w.resize(1400, 900)
     w.show()
     log = StallLog(w, app)
-    run_actions(log, args.project, args.rounds)
+    if args.batches:
+        from regbench.data.stream import parse_size
+
+        run_batches(log, args.batches, parse_size(args.memory_budget), args.rounds)
+    else:
+        run_actions(log, args.project, args.rounds)
     log.beat.stop()
-    print(f"GUI-thread stalls (worst gap between {TICK_MS} ms ticks), {args.rounds} rounds, {args.project}:")
+    what = f"{args.batches} read in batches ({args.memory_budget})" if args.batches else args.project
+    print(f"GUI-thread stalls (worst gap between {TICK_MS} ms ticks), {args.rounds} rounds, {what}:")
     print("  (wall: the gap a person sees; GUI CPU: the GUI thread's own work in its longest gap, which is what "
           "the gap shrinks to on a quiet machine)")
     for line in log.lines():

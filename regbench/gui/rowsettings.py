@@ -3,9 +3,11 @@
 The values are the project's :class:`regbench.models.spec.RowSource`, checked
 through its declaration like every other route (CLI ``--memory-budget`` and
 ``--cluster``, ``session.json`` field ``rows``).  A table whose in-memory form
-would exceed the memory budget, or any table when a cluster is chosen, is read
-in batches on the worker thread (:func:`open_in_batches`); the session then
-holds a seeded sample of the rows for the row-level views and says so.
+would exceed the memory budget, or any table when a cluster is chosen, opens
+from its first rows (:func:`first_rows_session`, every column, for choosing
+the roles) and is read in batches on the worker thread when the person fits;
+the session then holds a seeded sample of the rows for the row-level views
+and says so.
 """
 
 from __future__ import annotations
@@ -17,7 +19,7 @@ from PySide6 import QtWidgets
 
 from regbench.batches import needs_batches
 from regbench.data.stream import parse_size, table_columns
-from regbench.errors import DataError, RegbenchError
+from regbench.errors import Cancelled, DataError, RegbenchError
 from regbench.formatting import size_text
 from regbench.models import spec
 from regbench.models.spec import RowSource
@@ -117,14 +119,12 @@ def reads_in_batches(path: str, rows: Optional[RowSource]) -> bool:
         return False
 
 
-def starting_roles(path: str):
-    """Roles to start from on a table read in batches: the window's rule (:data:`~regbench.gui.roles.TARGET_RULE`)
-    applied to its first rows, the inputs those the first rows' design uses."""
+def first_rows(path: str):
+    """The first :data:`HEAD_ROWS` rows of a table read in batches, every column, as a Table (row
+    numbers the file's own): what the person chooses the roles from before the pass."""
     import pyarrow.parquet as pq
 
-    from regbench.data.design import build_design
     from regbench.data.reader import table_from_frame
-    from regbench.gui.roles import default_roles
 
     names = table_columns(path)
     p = os.fspath(path)
@@ -132,33 +132,40 @@ def starting_roles(path: str):
         from regbench.data.stream import parts_of
 
         first = parts_of(p)[0]
-        frame = next(pq.ParquetFile(first.path).iter_batches(batch_size=HEAD_ROWS, columns=names)).to_pandas()
+        batch = next(pq.ParquetFile(first.path).iter_batches(batch_size=HEAD_ROWS, columns=names), None)
+        frame = batch.to_pandas() if batch is not None else pq.read_schema(first.path).empty_table().to_pandas()
     else:
         import pandas as pd
 
         frame = pd.read_csv(p, nrows=HEAD_ROWS)
-    head = table_from_frame(frame, source=p)
-    start = default_roles(head)
-    try:
-        sources = dict.fromkeys(build_design(head, start).sources)
-    except RegbenchError:
-        sources = dict.fromkeys(start.predictors)
-    preds = tuple(c for c in sources if c != start.target)
-    if not preds:
-        raise DataError(f"{os.path.basename(p)}: no column to use as an input besides '{start.target}' in its "
-                        "first rows; open a table with columns to explain it from")
-    from dataclasses import replace
-
-    return replace(start, predictors=preds)
+    return table_from_frame(frame, source=p)
 
 
-def open_in_batches(path: str, rows: RowSource, roles=None, progress=None, cancel=None):
-    """The worker part of opening a table read in batches: starting roles, then the one pass (a Session)."""
+def first_rows_session(path: str, rows: RowSource, roles=None, progress=None, cancel=None):
+    """The worker part of opening a table read in batches: its first rows and the starting roles, no pass.
+
+    Returns ``(session, note)``: a :meth:`Session.from_first_rows` whose roles are ``roles`` or the
+    window's rule (:data:`~regbench.gui.roles.TARGET_RULE`) applied to the first rows, and a note when
+    columns were left unticked so that it opens (else None).  The pass over every row runs when the
+    person fits.
+    """
+    from regbench.gui.roles import can_explain, default_roles, openable_roles
     from regbench.models.results import FitSettings
     from regbench.session import Session
 
+    name = os.path.basename(os.fspath(path))
     if progress is not None:
-        progress(0, 1, f"choosing the starting roles from the first rows of {os.path.basename(path)}")
-    roles = roles or starting_roles(path)
-    return Session.from_batches(path, roles, FitSettings(), rows, progress=progress, cancel=cancel)
-
+        progress(0, 1, f"reading the first rows of {name}")
+    head = first_rows(path)
+    if cancel is not None and cancel():
+        raise Cancelled()
+    if head.n_rows == 0:
+        raise DataError(f"{name}: no rows to read; open a table with rows")
+    note = None
+    if roles is None:
+        start = default_roles(head)
+        if not can_explain(head, start.target):
+            raise DataError(f"{name}: no column of numbers to explain among its {len(head.names)} columns; open a "
+                            "table with a column of numbers")
+        roles, note = openable_roles(head, start)
+    return Session.from_first_rows(path, head, roles, FitSettings(), rows), note

@@ -281,6 +281,14 @@ class FittedTableView(QtWidgets.QTableView):
                 cap -= 4
             widths = [max(f, min(w, cap)) for f, w in zip(floor, natural)]
             wrapped = {i for i in range(n) if widths[i] < lines[i][0] and lines[i][1] < lines[i][0]}
+        elif getattr(self, "spread", False) and avail > sum(natural):
+            free = [i for i in range(n) if h.sectionResizeMode(i) == QtWidgets.QHeaderView.Interactive]
+            if len(free) == n:   # a column that stretches itself takes the room instead
+                # Room to spare goes to every column alike, so no column sits far from its header
+                # (the last one stretches only in a view whose columns were never measured).
+                h.setStretchLastSection(False)
+                share, extra = divmod(avail - sum(natural), n)
+                widths = [w + share + (1 if i < extra else 0) for i, w in enumerate(natural)]
         if hasattr(self.model(), "set_wrapped_headers"):
             self.model().set_wrapped_headers(wrapped)
         for i, w in enumerate(widths):
@@ -289,10 +297,16 @@ class FittedTableView(QtWidgets.QTableView):
 
 
 def make_view(model: QtCore.QAbstractTableModel, stretch_last: bool = True) -> QtWidgets.QTableView:
+    """A table view of ``model`` whose columns size to their text.
+
+    ``stretch_last``: a table narrower than its view shares the room left over among its columns
+    (the last column alone stretching would stand far from its header); False leaves it empty.
+    """
     view = FittedTableView()
     view.setModel(model)
     view.setAlternatingRowColors(True)
     view.setSelectionBehavior(QtWidgets.QAbstractItemView.SelectItems)
+    view.spread = stretch_last
     view.horizontalHeader().setStretchLastSection(stretch_last)
     view.verticalHeader().setDefaultSectionSize(22)
     view.verticalHeader().setResizeContentsPrecision(SIZE_ROWS)

@@ -22,7 +22,7 @@ from regbench.gui.panels.paths import PathsPanel
 from regbench.gui.panels.ranges import RangesPanel
 from regbench.gui.panels.stability import StabilityPanel
 from regbench.gui.panels.stress import StressPanel
-from regbench.gui.rowsettings import ask_rows, open_in_batches, reads_in_batches
+from regbench.gui.rowsettings import ask_rows, first_rows, first_rows_session, reads_in_batches
 from regbench.gui.roles import TARGET_RULE, QuestionBar, RoleDraft, can_explain, default_roles, openable_roles
 from regbench.gui.style import STYLESHEET, configure_pyqtgraph
 from regbench.gui.tables import view_to_tsv
@@ -52,6 +52,7 @@ REDRAWS = {
     "extra_fits": ("paths", "comparisons"),
     "stress": ("stress",),
     "bootstrap": ("stability",),
+    "derived": ("paths", "comparisons"),   # the worker's comparisons at the chosen α arrived
 }
 
 
@@ -328,7 +329,9 @@ class MainWindow(QtWidgets.QMainWindow):
     def _do_refresh(self):
         self._refresh_pending = False
         p = self.current_panel()
-        if p is not None:
+        # Only when still out of date: a redraw asked for now (refresh_all(now=True)) after one was
+        # scheduled has drawn it already, and drawing it again held the GUI thread twice as long.
+        if p is not None and p.key in self._stale:
             self._refresh_panel(p)
 
     def refresh_everything(self) -> None:
@@ -375,7 +378,9 @@ class MainWindow(QtWidgets.QMainWindow):
     def _load_draft(self) -> None:
         s = self.session
         unusable = {u.column: u.reason for u in (s.design.unusable if s.design is not None else ())}
-        self.draft.load(s.table, s.roles, s.settings, s.bootstrap, unusable)
+        # A table read in batches: the roles are chosen from every column of its first rows.
+        table = s.first_rows if getattr(s, "first_rows", None) is not None else s.table
+        self.draft.load(table, s.roles, s.settings, s.bootstrap, unusable)
 
     def _draft_changed(self) -> None:
         self.question.set_pending(self.draft.differs_from(self.session), self.has_results())
@@ -430,6 +435,13 @@ class MainWindow(QtWidgets.QMainWindow):
             def work(progress, cancel):
                 progress(0, 1, f"reading {os.path.basename(path)}")
                 session = project.load_project(path, compute=False)
+                if session.source is not None and session.first_rows is None:
+                    # The project keeps the pass's row sample, which holds only the fit's columns; the roles
+                    # are chosen from every column of the file's first rows.
+                    try:
+                        session.first_rows = first_rows(session.source)
+                    except (RegbenchError, OSError, ValueError):
+                        pass   # the sample's columns are listed instead
                 computed = None
                 if session.results is None:  # no cache, or one from another table or settings
                     computed = session.compute_results(progress=progress, cancel=cancel)
@@ -481,18 +493,24 @@ class MainWindow(QtWidgets.QMainWindow):
         self.runner.start(work, label=f"Reading {os.path.basename(path)}", slot="open", done=opened, failed=failed)
 
     def open_in_batches(self, path: str, roles=None) -> None:
-        """Open a table beyond the memory budget (or on a cluster): the one pass runs on the worker with
-        progress and cancel; the session holds a seeded sample of rows and says so."""
+        """Open a table beyond the memory budget (or on a cluster) as an in-memory one opens: its first
+        rows (every column) on the worker, the roles drafted from them, and nothing long until the person
+        presses Fit, which reads every row in batches on the worker with progress and cancel."""
         rows = self.row_source
+        name = os.path.basename(path)
 
-        def opened(session):
-            self.adopt(session, path=None, dirty=True, fit=False, in_steps=True)
-            self.show_panel("data")
-            self.set_status(session.row_sample_note + " Change the roles in the sentence above and press Fit "
-                            "to read the rows again with them.")
+        def opened(out):
+            session, note = out
+            self.adopt(session, path=None, dirty=True, fit=roles is not None, in_steps=True)
+            if roles is None:
+                self.show_panel("data")
+                self.set_status((note + " " if note else "")
+                                + f"Explaining {session.roles.target} ({TARGET_RULE}), chosen from the first "
+                                f"{session.table.n_rows:,} rows of {name}; change it in the sentence above, tick the "
+                                "columns to use, then press Fit to read every row in batches.")
 
-        self.runner.start(lambda progress, cancel: open_in_batches(path, rows, roles, progress, cancel),
-                          label=f"Reading {os.path.basename(path)} in batches", slot="open", done=opened,
+        self.runner.start(lambda progress, cancel: first_rows_session(path, rows, roles, progress, cancel),
+                          label=f"Reading the first rows of {name}", slot="open", done=opened,
                           failed=lambda exc: self.show_error("Cannot read the table", exc),
                           cancelled=lambda: self.set_status("Reading cancelled; nothing was changed."))
 
@@ -572,7 +590,7 @@ class MainWindow(QtWidgets.QMainWindow):
                 self.refit()
                 return
             self.refresh_all(now=True)
-            self.set_status("Fit done.")
+            self.set_status("Fit done." + (f" {session.row_sample_note}" if computed.streamed is not None else ""))
             self.results_applied.emit()
 
         self.runner.start(work, label="Fitting", slot="fit", done=done,
@@ -656,7 +674,7 @@ class MainWindow(QtWidgets.QMainWindow):
         def done(update):
             if self.session is session and session.apply_alpha_update(update):
                 self.derived_applied += 1
-                self.refresh_all(now=True)
+                self.refresh_for("derived")
             finished()
 
         def failed(exc):

@@ -187,8 +187,9 @@ def _rows_document(session) -> dict:
         out["rows"] = session.rows.to_dict()
     if session.source is not None:
         st = session.streamed
-        out["table_file"] = {"path": session.source, "fingerprint": session.table_hash,
-                             "rows_used": int(st.rows_used), "sampled": bool(st.sampled)}
+        out["table_file"] = {"path": session.source, "fingerprint": session.table_hash}
+        if st is not None:   # none before the first pass: the project then keeps the file's first rows
+            out["table_file"].update(rows_used=int(st.rows_used), sampled=bool(st.sampled))
     return out
 
 

@@ -144,6 +144,7 @@ class CalibrationPanel(Panel):
             self.threshold_spin.blockSignals(False)
             if not self.note_edit.hasFocus():
                 self.note_edit.setText(thr["note"])
+                self.note_edit.setCursorPosition(0)   # the note read from its start, not its end
         if cl is None:
             self.set_sentences(["Fit the models to see how good their probabilities are."])
             for p in (self.reliability, self.roc):
@@ -206,3 +207,4 @@ class CalibrationPanel(Panel):
         trows = [[float(a), float(b), float(f)] for a, b, f in zip(d.sensitivity, d.specificity, d.flagged)]
         self.table.set_rows(trows, ["Sensitivity", "Specificity", "Share flagged"], row_labels=labels,
                             backgrounds=backgrounds, digits=3)
+        self.table_view.resizeColumnsToContents()   # the room left over shared by the three columns

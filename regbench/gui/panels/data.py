@@ -2,8 +2,11 @@
 
 from __future__ import annotations
 
+import os
+
 from PySide6 import QtCore, QtWidgets
 
+from regbench.batches import budget_words
 from regbench.data.table import BOOLEAN, NUMERIC
 from regbench.errors import RegbenchError
 from regbench.gui.panels.base import Panel, caption, hbox
@@ -141,6 +144,23 @@ class DataPanel(Panel):
         except RegbenchError as exc:
             self.window_.show_error("Cannot remove this column", exc)
 
+    def clear(self):
+        super().clear()
+        self._frame_id = self._excluded_of = None   # the next session's cells and rows are filled afresh
+
+    def _fill_cells(self, table):
+        """Every cell of the table (the model reads them as they are painted), columns sized to names and first rows."""
+        self.frame_model.set_frame(table.frame)
+        self._frame_id = id(table.frame)
+        if self.frame_model.columnCount() <= WIDTH_FROM_CELLS_MAX_COLUMNS:
+            self.frame_view.resizeColumnsToContents()   # whole names; the first rows' widths
+
+    def _fill_excluded(self, excluded):
+        """The rows left out of the fit, one line each with its column and reason."""
+        self.excluded_model.set_rows([[e.row, e.column, e.reason] for e in excluded], ["Row", "Column", "Reason"])
+        self.excluded_view.resizeColumnsToContents()
+        self._excluded_of = excluded
+
     def views(self):
         return [self.columns_view, self.frame_view, self.excluded_view]
 
@@ -157,22 +177,29 @@ class DataPanel(Panel):
             self.notes.setPlainText(session.notes)
             self.notes.blockSignals(False)
         table = session.table
-        if self.frame_model.rowCount() != table.n_rows or getattr(self, "_frame_id", None) != id(table.frame):
-            self.frame_model.set_frame(table.frame)
-            self._frame_id = id(table.frame)
-            if self.frame_model.columnCount() <= WIDTH_FROM_CELLS_MAX_COLUMNS:
-                self.frame_view.resizeColumnsToContents()   # whole names; the first rows' widths
         design = session.design
         excluded = design.excluded if design is not None else ()
-        self.excluded_model.set_rows([[e.row, e.column, e.reason] for e in excluded], ["Row", "Column", "Reason"])
-        self.excluded_view.resizeColumnsToContents()
+        # The cells and the rows left out fill in later turns, each in its own: on a table of tens of
+        # thousands of rows (a row sample) the sentences, the cells and the left-out rows together held
+        # the GUI thread too long in one piece.
+        if self.frame_model.rowCount() != table.n_rows or getattr(self, "_frame_id", None) != id(table.frame):
+            self.defer(self._fill_cells, table)
+        if getattr(self, "_excluded_of", None) is not excluded:
+            self.defer(self._fill_excluded, excluded)
         n = table.n_rows
         if design is None:
             self.set_sentences([f"{n:,} rows and {len(table.names)} columns were read from {table.source or 'the table'}."])
             return
         s = [f"{n:,} rows and {len(table.names)} columns were read from {table.source or 'the table'}; "
              f"{design.n:,} rows enter the fit with {design.p} design columns."]
-        if getattr(session, "row_sample_note", None):
+        if getattr(session, "awaiting_pass", False):
+            # A table read in batches before its pass: the first rows are at hand, for choosing the roles.
+            how = budget_words(session.rows)
+            s = [f"The first {n:,} rows of {os.path.basename(session.source)} are shown, with every column, to choose "
+                 "the roles" + (f" ({how})" if how else "") + "; the empty cells and distinct values in the column list are "
+                 "those of these rows. Fit reads every row in batches: every fitted number uses all of them, "
+                 "the row-level views a seeded sample."]
+        elif getattr(session, "row_sample_note", None):
             # A table read in batches: the rows shown are the pass's seeded sample, and the window says so.
             shown = "a seeded sample of its rows" if session.sampled else "every usable row"
             s = [session.row_sample_note, f"The table below shows {shown} ({n:,}), with each row's number in the "
