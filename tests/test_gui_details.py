@@ -126,3 +126,26 @@ def test_the_coefficient_table_sizes_its_columns_to_their_numbers_and_leaves_no_
     assert panel.plot.width() > view.width()
     w.dirty = False
     w.close()
+
+
+def test_a_table_narrower_than_its_view_shares_the_spare_room_among_its_columns(qtbot):
+    """The stress ranking's case: four short columns of numbers in a wide view. Each column gets its
+    own width plus the same share of the room left over, so the last one stands no further from its
+    header than the others (Qt's stretch-last would give it all the spare room)."""
+    from regbench.gui.tables import GridModel, make_view
+
+    model = GridModel()
+    view = make_view(model)
+    qtbot.addWidget(view)
+    view.resize(900, 300)
+    view.show()
+    model.set_rows([["brix", 0.1346, 0.0546, 0.0841], ["variety", 0.0455, 0.0138, 0.0]],
+                   ["Column", "Logistic", "Ridge", "Elastic net"])
+    view.resizeColumnsToContents()
+    QtWidgets.QApplication.processEvents()
+    header = view.horizontalHeader()
+    natural = view.content_widths()
+    extra = [header.sectionSize(i) - natural[i] for i in range(header.count())]
+    assert min(extra) >= 0 and max(extra) - min(extra) <= 1, extra
+    # The columns fill the view: nothing is left over beside the last one.
+    assert abs(sum(header.sectionSize(i) for i in range(header.count())) - (view.viewport().width() - 2)) <= 1
