@@ -130,11 +130,12 @@ def test_bad_budget_gets_one_line_and_a_text_predictor_is_coded(tmp_path):
     results = fit_all(design, FitSettings())
     streamed = stream_fit(path, Roles(target="y"), FitSettings(), memory_budget=10**7)
     assert "site=s01" in streamed.design.columns
-    # 1e-8 here, not 1e-9: one indicator per level of 13 sites has an exact null direction (the
-    # indicators sum to the intercept), along which the ridge path's far end magnifies the round-off
-    # of either route's cross-products by about 1/α (measured 7e-9 at the smallest α; the lasso and
-    # elastic-net paths agree to 1e-10, and tests/test_stream_parity.py checks categories at 1e-9).
-    _compare(streamed, design, results, tol=1e-8)
+    # One indicator per level of 13 sites has an exact null direction (the indicators sum to the
+    # intercept); ridge's closed form leaves it out rather than dividing either route's round-off
+    # along it by α (which gave 7e-9 at the path's far end), so the routes agree to 1e-9 here too.
+    _compare(streamed, design, results, tol=1e-9)
+    ridge, mem = streamed.results.penalized["ridge"].path.coef, results.penalized["ridge"].path.coef
+    np.testing.assert_allclose(ridge, mem, rtol=0, atol=1e-9 * np.abs(mem).max())
 
 
 def test_streamed_csv_names_the_file_column_row_and_text_of_a_bad_cell(tmp_path):

@@ -184,6 +184,9 @@ def ridge_beta(problem: Problem, alphas) -> np.ndarray:
     if V.size:
         proj = V.T @ problem.c[problem.live]  # (k,)
         lam = np.clip(lam, 0.0, None)
+        # c lies in the range of G, so along a null direction its component is round-off only,
+        # which 1/(λ + α) would magnify at small α: it is exactly 0.
+        proj = np.where(lam > EIG_RTOL * max(float(lam.max(initial=0.0)), np.finfo(float).tiny), proj, 0.0)
         out[:, problem.live] = (proj[None, :] / (lam[None, :] + alphas[:, None])) @ V.T
     return out
 
