@@ -63,13 +63,20 @@ def test_chunk_size_does_not_change_the_result():
     assert a.n == b.n == 1000
 
 
-def test_fold_gram_by_subtraction_equals_direct_gram_of_training_rows():
-    X, y, w = _data(n=600, seed=2)
-    ids = np.random.default_rng(3).integers(0, 4, 600)
-    full, folds = per_fold(X, y, w, ids, 4, chunk=50)
+@pytest.mark.parametrize("n, p, chunk, order", [
+    (600, 5, 50, "C"),  # the gather of each fold's rows, in blocks of 50
+    (600, 5, None, "C"),  # the pass over consecutive blocks, split by fold
+    (3000, 300, None, "F"),  # several blocks of column-ordered rows
+])
+def test_fold_gram_by_subtraction_equals_direct_gram_of_training_rows(n, p, chunk, order):
+    X, y, w = _data(n=n, p=p, seed=2)
+    X = np.asarray(X, order=order)
+    ids = np.random.default_rng(3).integers(0, 4, n)
+    full, folds = per_fold(X, y, w, ids, 4, chunk=chunk)
     direct_full = gram_stats(X, y, w)
     np.testing.assert_allclose(full.centered_xx(), direct_full.centered_xx(), rtol=1e-11, atol=1e-8)
     for k in range(4):
+        assert folds[k].n == (ids == k).sum()
         train = full - folds[k]
         rows = ids != k
         W, m, my, cxx, cxy, cyy, sd = _direct(X[rows], y[rows], w[rows])

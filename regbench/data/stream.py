@@ -1198,7 +1198,7 @@ def fit_from_stats(design, settings, full, folds, factor, fold_ids, n_obs, cance
     engine._validate(settings)
     with one_blas_thread():
         ols = fit_ols(design, settings.pins, settings.rank_tol, factor=factor_rows(factor.factor(), factor.W, factor.n),
-                      group_stats=None if group_sums is None else group_sums.stats)
+                      group_stats=None if group_sums is None else group_sums.stats, stats=full)
         diag = diagnose(design, ols)
         problem = engine.problem_for(full, design, settings)
         train = [engine.problem_for(engine._training(full, f, k), design, settings) for k, f in enumerate(folds)]

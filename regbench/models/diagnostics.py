@@ -100,9 +100,9 @@ def _diagnose(design, ols_result) -> Diagnostics:
     props = (phi / phi.sum(axis=1, keepdims=True)).T  # rows: dimensions, columns: terms
 
     damaging = []
-    for d in range(k + 1):
-        high = [terms[j] for j in range(k + 1) if props[d, j] > PROPORTION_HIGH]
-        if cond[d] > CONDITION_DAMAGING and len(high) >= 2:
+    for d in np.flatnonzero(cond > CONDITION_DAMAGING):
+        high = [terms[j] for j in np.flatnonzero(props[d] > PROPORTION_HIGH)]
+        if len(high) >= 2:
             damaging.append({"index": float(cond[d]), "dimension": int(d), "terms": high})
 
     near = []
@@ -110,8 +110,9 @@ def _diagnose(design, ols_result) -> Diagnostics:
     if serious:
         Rn = R / np.linalg.norm(R, axis=0)
         S = Rn.T @ Rn  # correlations of the kept columns: the searches choose from its rows
+        lengths = np.einsum("ij,ij->j", Rn, Rn)  # every search's first step reads these
         for j in serious:
-            near.append(_near_dependency(j, R, kept, float(vif[j]), Rn, S))
+            near.append(_near_dependency(j, R, kept, float(vif[j]), Rn, S, lengths))
 
     sentences = _summary(ols_result, kept, vif, cond, damaging)
     return Diagnostics(
@@ -126,17 +127,17 @@ def _diagnose(design, ols_result) -> Diagnostics:
     )
 
 
-def _near_dependency(j, R, kept, vif, Rn=None, S=None) -> NearDependency:
+def _near_dependency(j, R, kept, vif, Rn=None, S=None, lengths=None) -> NearDependency:
     """Greedy forward selection of the columns that explain column j (see :func:`_choose`)."""
     chosen, r2 = None, 0.0
     if S is not None:
-        chosen, r2 = _choose(j, Rn, S, 1.0 - 1.0 / vif)
+        chosen, r2 = _choose(j, Rn, S, 1.0 - 1.0 / vif, lengths)
     if chosen is None:
         chosen, r2 = _choose_on_coordinates(j, R, 1.0 - 1.0 / vif)
     return _dependency(j, kept, vif, chosen, r2)
 
 
-def _choose(j, Rn, S, r2_all):
+def _choose(j, Rn, S, r2_all, lengths=None):
     """Forward selection read from the correlation matrix ``S``: O(k) work per step.
 
     A step takes the column with the largest squared correlation with what the chosen
@@ -165,9 +166,9 @@ def _choose(j, Rn, S, r2_all):
             B = linalg.solve_triangular(L, S[chosen, :], lower=True, check_finite=False)  # Uᵀ·columns
             a = S[j, :] - B[:, j] @ B  # what is left of j against each column
             norms = 1.0 - np.einsum("ij,ij->j", B, B)
-            Q = np.linalg.qr(Rn[:, chosen])[0]
             shaky = np.flatnonzero(~out & (norms < 1e-6))
             if shaky.size:
+                # Q of the chosen columns: the one the last step's R² was measured with.
                 left = t - Q @ (Q.T @ t)
                 left -= Q @ (Q.T @ left)
                 C = Rn[:, shaky] - Q @ (Q.T @ Rn[:, shaky])
@@ -176,7 +177,7 @@ def _choose(j, Rn, S, r2_all):
                 a[shaky] = left @ C
         else:
             a = S[j, :].copy()
-            norms = np.einsum("ij,ij->j", Rn, Rn)
+            norms = np.einsum("ij,ij->j", Rn, Rn) if lengths is None else lengths.copy()
         ok = norms > 1e-24
         gain = np.where(ok, a * a / np.where(ok, norms, 1.0), -1.0)
         gain[out] = -np.inf

@@ -80,10 +80,10 @@ def problem_for(stats: GramStats, design, settings: FitSettings) -> Problem:
 _problem = problem_for
 
 
-def _ols(design, settings):
+def _ols(design, settings, stats=None):
     from regbench.models.ols import fit_ols
 
-    return fit_ols(design, settings.pins, settings.rank_tol)
+    return fit_ols(design, settings.pins, settings.rank_tol, stats=stats)
 
 
 def fit_all(design, settings: FitSettings = FitSettings(), progress=None, cancel=None) -> FitResults:
@@ -129,7 +129,7 @@ def _fit_numeric(design, settings: FitSettings, progress, cancel) -> FitResults:
     check(cancel)
     step += 1
     report(progress, step, total, "fitting OLS")
-    ols = _ols(design, settings)
+    ols = _ols(design, settings, full)
     check(cancel)
     step += 1
     report(progress, step, total, "measuring collinearity")

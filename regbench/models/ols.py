@@ -50,6 +50,15 @@ runs on the (p+2)×(p+2) factor, which the result keeps for the diagnostics.
 The pass runs with one BLAS thread (:func:`one_blas_thread`): on cores shared
 with other work, many short multi-threaded calls wait on each other (measured
 here: 1-8 s with two threads against 0.5 s with one on 100,000 × 100 rows).
+
+When the engine hands over the cross-products it has already gathered
+(``stats``) and the centred columns are well conditioned (condition number at
+most :data:`GRAM_FACTOR_MAX_COND`, no constant column, the target not nearly
+reproduced), the factor is the Cholesky factor of the centred co-moments
+instead, and the QR pass is skipped (:func:`factor_from_stats`): forming the
+Gram squares the condition number, so the relative error this adds is at most
+about κ²·eps = 2e-10, and the solution is still refined on the rows.  The
+streamed route hands over the same statistics and decides the same way.
 """
 
 from __future__ import annotations
@@ -72,6 +81,15 @@ NEGLIGIBLE_TERM = 1e-6
 #: A column's stored values carry round-off of about eps times its size (weighted RMS);
 #: a left-over below this many eps times the sizes involved is that round-off.
 DATA_ROUNDOFF = 16.0
+#: Largest condition number of the centred, unit-SD columns for which the factor is taken from
+#: the engine's cross-products (:func:`factor_from_stats`).  Forming the Gram squares the
+#: condition number, so what follows from the factor then carries a relative error of about
+#: κ²·eps: at most 2e-10 here, against the 1e-9 to which the streamed and in-memory routes agree.
+#: Above it the factor comes from a QR of the rows (Householder accuracy).
+GRAM_FACTOR_MAX_COND = 1e3
+#: Smallest share of the target's spread the columns may leave over for that route: the
+#: residual sum of squares is then a difference, accurate to eps over this share (2e-12).
+GRAM_FACTOR_MIN_LEFT = 1e-4
 #: Budget of one QR step over a block of rows, in rows × columns²: about 5-25 ms of
 #: one core here, so no single call on the rows runs long.
 BLOCK_WORK = 2 ** 25
@@ -110,7 +128,7 @@ def one_blas_thread():
 
 
 def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None, *,
-            chunk_rows: Optional[int] = None, factor=None, group_stats=None) -> OLSResult:
+            chunk_rows: Optional[int] = None, factor=None, group_stats=None, stats=None) -> OLSResult:
     """Weighted least squares with intercept, setting aside columns the others reproduce.
 
     Parameters
@@ -135,6 +153,11 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None, 
     group_stats : sequence of GramStats, optional
         With ``factor``: each group's weighted cross-products over its rows (a streamed
         pass), from which the cluster-robust standard errors follow without the rows.
+    stats : GramStats, optional
+        The weighted cross-products of the same rows (the engine's one pass).
+        When the centred columns are well conditioned (:func:`factor_from_stats`)
+        the factor is their Cholesky factor and OLS makes no QR pass over the rows;
+        every route that has the statistics decides the same way, so they agree.
 
     Returns
     -------
@@ -153,13 +176,18 @@ def fit_ols(design, pins: Sequence[str] = (), rank_tol: Optional[float] = None, 
         depend on each other (named), non-finite values or bad weights.
     """
     with one_blas_thread():
-        return _fit_ols(design, pins, rank_tol, chunk_rows, factor, group_stats)
+        return _fit_ols(design, pins, rank_tol, chunk_rows, factor, group_stats, stats)
 
 
-def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None, group_stats=None) -> OLSResult:
+def _fit_ols(design, pins, rank_tol, chunk_rows, factor=None, group_stats=None, stats=None) -> OLSResult:
     columns = tuple(design.columns)
     p = len(columns)
-    fac = weighted_factor(design, chunk_rows) if factor is None else factor
+    fac = None
+    if stats is not None:
+        fac = factor_from_stats(stats, design if factor is None else None, chunk_rows,
+                                n=None if factor is None else factor.n)
+    if fac is None:
+        fac = weighted_factor(design, chunk_rows) if factor is None else factor
     pin_idx = _pin_positions(pins, columns)
     if rank_tol is not None and not (np.isfinite(rank_tol) and rank_tol >= 0):
         raise ModelError(f"rank tolerance must be a number >= 0, got {rank_tol!r}")
@@ -351,11 +379,13 @@ def _cluster_se(design, rows, kept, mean, resid, xtwx_inv, W, n_eff, p):
     k = len(kept)
     S = np.zeros((G, k + 1))
     we = rows.w * resid
+    every = k == p
     for a, b, block in rows.blocks():
-        Zb = np.empty((b - a, k + 1))
-        Zb[:, 0] = 1.0
-        Zb[:, 1:] = block[:, kept] - mean[kept]
-        Zb *= we[a:b, None]
+        # Column-ordered like the design's rows: written straight in, no transposing copy.
+        Zb = np.empty((b - a, k + 1), order="F")
+        Zb[:, 0] = we[a:b]
+        np.subtract(block if every else block[:, kept], mean[kept], out=Zb[:, 1:])
+        Zb[:, 1:] *= we[a:b, None]
         ind = sparse.csr_matrix((np.ones(b - a), (code[a:b], np.arange(b - a))), shape=(G, b - a))
         S += ind @ Zb
     return _sandwich(S, kept, mean, xtwx_inv, W, n_eff, p)
@@ -530,6 +560,70 @@ class _Factor:
             setattr(self, k, v)
 
 
+def factor_from_stats(stats, design=None, chunk_rows: Optional[int] = None, n: Optional[int] = None):
+    """The factor :func:`weighted_factor` returns, from the cross-products when that is accurate.
+
+    ``RᵀR`` is the centred co-moment matrix of ``(x, y)`` over ``W``, so its Cholesky factor is
+    the factor of ``sqrt(w/W)·[x - m, y - ȳ]`` up to the signs of its rows.  It is taken only
+    when the centred columns at unit SD have a condition number (from the eigenvalues of their
+    correlation matrix) of at most :data:`GRAM_FACTOR_MAX_COND`, none is constant, and the columns
+    leave at least :data:`GRAM_FACTOR_MIN_LEFT` of the target's spread over; else None, and the
+    caller factors the rows (or uses a factor gathered with them).
+
+    Parameters
+    ----------
+    stats : GramStats
+        Weighted cross-products of the rows (any shift).
+    design : Design, optional
+        The rows themselves, kept for the refinement and the measures on residuals;
+        without them (a streamed or distributed pass) ``n`` is required.
+    chunk_rows : int, optional
+        Rows per block of the later passes over the rows.
+    n : int, optional
+        Rows of weight above 0, when ``design`` is not given.
+    """
+    from scipy.linalg import lapack
+
+    p = stats.p
+    q = p + 1
+    if not stats.W > 0:
+        return None
+    mean, ybar = stats.mean_x(), stats.mean_y()
+    A = np.empty((q, q))
+    A[:p, :p] = stats.centered_xx()
+    A[:p, p] = A[p, :p] = stats.centered_xy()
+    A[p, p] = stats.centered_yy()
+    A /= stats.W
+    if not np.all(np.isfinite(A)) or not np.all(np.isfinite(mean)):
+        return None  # a non-finite value: the pass over the rows names its row
+    sd = np.sqrt(np.clip(np.diag(A), 0.0, None))
+    size = np.sqrt(sd[:p] ** 2 + mean ** 2)
+    if not (np.all(sd > 0) and np.all(sd[:p] > DATA_ROUNDOFF * EPS * size)):
+        return None
+    S = A / np.outer(sd, sd)
+    evals = np.linalg.eigvalsh(S[:p, :p])
+    if not (evals[0] > 0 and evals[-1] <= GRAM_FACTOR_MAX_COND ** 2 * evals[0]):
+        return None
+    Rs, info = lapack.dpotrf(S, lower=0, clean=1)
+    if info != 0 or not Rs[p, p] ** 2 >= GRAM_FACTOR_MIN_LEFT:
+        return None
+    if design is not None:
+        X = np.asarray(design.X, dtype=np.float64)
+        y = np.asarray(design.y, dtype=np.float64)
+        w = np.asarray(design.weights, dtype=np.float64)
+        _check_inputs(design, X, y, w)
+        rows = _Rows(X, y, w, w > 0, block_rows(p) if chunk_rows is None else chunk_rows)
+        n = rows.n
+    R = np.zeros((q + 1, q + 1))
+    R[0, 0] = 1.0
+    R[0, 1:p + 1] = mean
+    R[0, p + 1] = ybar
+    R[1:, 1:] = Rs * sd
+    if design is None:
+        rows = _FactorOnly(R, float(stats.W), int(n))
+    return _Factor(rows=rows, n=int(n), W=float(stats.W), mean=mean, ybar=float(ybar), sd=sd[:p], R=R)
+
+
 def weighted_factor(design, chunk_rows: Optional[int] = None) -> _Factor:
     """Check the design and factor its weighted rows in one blocked pass (after the means).
 
@@ -699,6 +793,8 @@ def _ordered_choice(C, pin_idx, tol, constant, rel_size, n) -> tuple:
     columns are set aside for want of rows, not because of what they are.
     """
     p = C.shape[1]
+    if not pin_idx and not constant.any() and _every_column_kept(C, tol, rel_size):
+        return list(range(p)), p >= max(n - 1, 0) and p > 0
     order = list(pin_idx) + [j for j in range(p) if j not in set(pin_idx)]
     walk = _Walk(C.shape[0])
     full_at = None
@@ -714,6 +810,38 @@ def _ordered_choice(C, pin_idx, tol, constant, rel_size, n) -> tuple:
             walk.add(j, r, coords, nr)
     row_limited = len(walk.idx) >= max(n - 1, 0) and len(walk.idx) > 0
     return list(walk.idx), row_limited
+
+
+#: The walk's answer is read from the factor's diagonal only when every left-over clears its
+#: tolerance by this factor (the walk's own round-off is a few eps of each left-over).
+CLEAR_MARGIN = 2.0
+
+
+def _every_column_kept(C, tol, rel_size) -> bool:
+    """Whether the walk in design order would keep every column, read from the triangle ``C``.
+
+    ``C`` is upper triangular, so what the columns before ``j`` leave of column ``j`` is
+    ``|C[j, j]|`` and the combination of them that comes closest is
+    ``C[:j, :j]⁻¹ C[:j, j] = −C[j, j]·(C⁻¹)[:j, j]``: one triangular inverse gives every
+    step of the walk at once.  When every left-over is above :data:`CLEAR_MARGIN` times its
+    tolerance (:func:`_tolerance`) the answer is the walk's; otherwise the caller walks.
+    """
+    from scipy.linalg import lapack
+
+    p = C.shape[1]
+    if p == 0 or C.shape[0] < p:
+        return False
+    T = np.ascontiguousarray(C[:p, :p])
+    d = np.abs(np.diag(T))
+    if not np.all(d > 0):
+        return False
+    Tinv, info = lapack.dtrtri(T, lower=0)
+    if info != 0 or not np.all(np.isfinite(Tinv)):
+        return False
+    # Σ_k |c_k|·rel_size_k over the columns before j, for every j.
+    spread = d * (rel_size @ np.triu(np.abs(Tinv), 1))
+    need = tol + DATA_ROUNDOFF * EPS * (rel_size + spread)
+    return bool(np.all(d > CLEAR_MARGIN * need))
 
 
 def _check_pins(C, pin_idx, columns, tol, constant, rel_size) -> None:
