@@ -184,6 +184,12 @@ def test_cli_fit_streams_beyond_the_budget_and_says_so(tmp_path, capsys):
     for name in ("ols", "ridge", "lasso", "elastic_net"):
         for col, v in m["models"][name]["coefficients"].items():
             assert s["models"][name]["coefficients"][col] == pytest.approx(v, rel=1e-9, abs=1e-12)
+    # Cluster-robust standard errors by site, from each site's cross-products on the streamed route.
+    assert s["models"]["ols"]["n_clusters"] == m["models"]["ols"]["n_clusters"] > 1
+    assert s["models"]["ols"]["cluster_intercept_se"] == pytest.approx(m["models"]["ols"]["cluster_intercept_se"],
+                                                                       rel=1e-9)
+    for col, v in m["models"]["ols"]["cluster_std_errors"].items():
+        assert s["models"]["ols"]["cluster_std_errors"][col] == pytest.approx(v, rel=1e-9)
     # `new` on a table beyond the budget writes a project that reads its rows from the file
     # (tests/test_session_batches.py checks what it holds).
     assert main(["new", *base, "--memory-budget", "1MB", "--bootstrap", "0", "-o", str(tmp_path / "p.regbench")]) == 0
