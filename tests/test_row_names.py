@@ -69,3 +69,14 @@ def test_a_row_outside_the_table_or_no_table_leaves_the_sentence_as_it_is():
     assert with_row_names("on any row (most on row 3).", None) == "on any row (most on row 3)."
     named = with_row_names("on any row (most on row 3).", table)
     assert named == f"on any row (most on row 3, batch {pd.read_csv(GRADING_CSV)['batch'].iloc[2]})."
+
+
+def test_the_reports_rows_table_names_each_row_by_the_tables_identifier(tmp_path):
+    out = tmp_path / "r.html"
+    assert main(["report", str(GRADING), "-o", str(out)]) == 0
+    html = out.read_text(encoding="utf-8")
+    part = html.split("Rows where equally good models disagree most", 1)[1].split("</table>", 1)[0]
+    file = pd.read_csv(GRADING_CSV)
+    named = re.findall(r"<td[^>]*>([^<]*) \(row (\d+)\)</td>", part)
+    assert named and "<th class=t>batch</th>" in part
+    assert all(name == file["batch"].iloc[int(row) - 1] for name, row in named)

@@ -16,7 +16,7 @@ import numpy as np
 
 from regbench import __version__
 from regbench.batches import budget_words
-from regbench.data.identifiers import with_row_names
+from regbench.data.identifiers import row_label_column, row_names, with_row_names
 from regbench.formatting import MISSING, join_words, number_text, percent
 from regbench.models.coding import design_sd
 from regbench.models.results import aligned, model_columns, model_label, unpenalized
@@ -447,7 +447,7 @@ def _ranges(session) -> str:
     parts.append("<h3>Where the fitted models sit</h3>")
     parts.append(table(["Model", f"Training {word} above the best", "Inside the set"],
                        [(model_label(n), pct(m.excess), "yes" if m.inside else "no") for n, m in rg.models.items()]))
-    parts.extend(_ranges_rows(rg))
+    parts.extend(_ranges_rows(rg, session.table))
     parts.append('<p class="muted">A range says what the data cannot tell apart, not which story is true: '
                  "associations are not causes, and a model is only as good as its inputs.</p>")
     return "".join(parts)
@@ -484,13 +484,18 @@ def _ranges_columns(rg) -> list:
     return out
 
 
-def _ranges_rows(rg) -> list:
-    """The rows where equally good models disagree most (probabilities for a yes/no outcome)."""
+def _ranges_rows(rg, data=None) -> list:
+    """The rows where equally good models disagree most (probabilities for a yes/no outcome), each named
+    as the table names it (its identifier column, as in the window) when one names every row."""
     if not rg.widest:
         return []
     binary = rg.outcome == "binary"
+    label = row_label_column(data) if data is not None else None   # ``data``: the session's table
+    names = row_names(data, [d["row"] for d in rg.widest], column=label) if label else None
     rows = []
-    for d in rg.widest:
+    for k, d in enumerate(rg.widest):
+        if names is not None:
+            d = {**d, "row": f"{names[k]} (row {d['row']})"}
         unusual = "; ".join(f"{c} {num(v)} ({'+' if z > 0 else '−'}{num(abs(z), 2)} SD)" for c, v, z in d["unusual"])
         if binary:
             rows.append((str(d["row"]), num(d["p_centre"], 3), f"{num(d['p_low'], 3)} to {num(d['p_high'], 3)}",
@@ -499,13 +504,14 @@ def _ranges_rows(rg) -> list:
             rows.append((str(d["row"]), num(d["centre"]), f"{num(d['low'])} to {num(d['high'])}", num(d["width"]),
                          unusual or "nothing unusual"))
     if binary:
-        heads = ["Row", f"Logistic probability of {rg.target}", "Range over near-best models", "Width",
+        heads = [label or "Row", f"Logistic probability of {rg.target}", "Range over near-best models", "Width",
                  "Log-odds range", "Unusual values"]
         _, lo, hi = rg.probabilities()
         w = hi - lo
         what = "the width of the probability range"
     else:
-        heads = ["Row", f"OLS prediction of {rg.target}", "Range over near-best models", "Width", "Unusual values"]
+        heads = [label or "Row", f"OLS prediction of {rg.target}", "Range over near-best models", "Width",
+                 "Unusual values"]
         w = 2 * rg.row_half
         what = "the width"
     return ["<h3>Rows where equally good models disagree most</h3>", table(heads, rows),
