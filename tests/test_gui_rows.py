@@ -111,6 +111,13 @@ def test_the_window_reads_a_table_beyond_the_budget_in_batches_and_says_so(qtbot
     assert "seeded sample of 20,000" in said and "every fitted number uses all 24,000" in said
     assert "Stability is not computed" in said and "Held-out predictions are not shown" not in said
     assert w.panel("data").frame_model.rowCount() == 20_000
+    # Each sampled row is numbered as in the file (line below the header), and its cells are that line's.
+    fm = data.frame_model
+    for r in (0, 1, 19_999):
+        line = int(fm.headerData(r, QtCore.Qt.Vertical))
+        assert line == s.table.line_numbers[r]
+        j = list(s.table.frame.columns).index("x0")
+        assert float(fm.raw_text(r, j)) == f["x0"].iloc[line - 1]
     # The comparisons follow on the worker; the project keeps the budget and refers to the file.
     wait_idle(qtbot, w)
     assert s.derived_ready and set(s.heldout()) == set(s.models())  # from every row's fold statistics

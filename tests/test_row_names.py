@@ -80,3 +80,17 @@ def test_the_reports_rows_table_names_each_row_by_the_tables_identifier(tmp_path
     named = re.findall(r"<td[^>]*>([^<]*) \(row (\d+)\)</td>", part)
     assert named and "<th class=t>batch</th>" in part
     assert all(name == file["batch"].iloc[int(row) - 1] for name, row in named)
+
+
+def test_rows_after_blank_lines_are_named_by_their_line_not_their_position(tmp_path):
+    # Row numbers count lines below the header, blank ones too (README); the third data line is row 4.
+    path = tmp_path / "t.csv"
+    path.write_text("code,x,y\nA1,1,2\n\nB2,2,3\nC3,3,5\nD4,4,4\n", encoding="utf-8")
+    table = read_table(path)
+    assert list(table.row_numbers) == [1, 3, 4, 5]
+    from regbench.data.identifiers import row_names
+
+    assert row_names(table, [3, 4], column="code") == ["B2", "C3"]
+    assert row_names(table, [2], column="code") == ["row 2"]   # the blank line holds no row
+    assert with_row_names("(most on row 4)", table, column="code") == "(most on row 4, code C3)"
+    assert with_row_names("(most on row 2)", table, column="code") == "(most on row 2)"

@@ -118,7 +118,8 @@ _LOOK = object()
 
 
 def row_names(table: Table, rows, column=_LOOK) -> list:
-    """Names for 1-based table rows: the row-label column's values, else "row N".
+    """Names for rows numbered as messages number them (``Table.row_numbers``): the row-label column's
+    values, else "row N" (also for a row the table does not hold).
 
     ``column`` is the table's row-label column when the caller already knows it (None: none),
     which spares a look through every column.
@@ -130,7 +131,17 @@ def row_names(table: Table, rows, column=_LOOK) -> list:
     if column is None:
         return [f"row {int(r)}" for r in rows]
     values = table.frame[column]
-    return [_label_text(values.iloc[int(r) - 1]) for r in rows]
+    at = _positions(table, rows)
+    return [_label_text(values.iloc[i]) if i is not None else f"row {int(r)}" for r, i in zip(rows, at)]
+
+
+def _positions(table: Table, rows) -> list:
+    """Where each row number (as messages give it: ``Table.row_numbers``) sits in the table, None when absent
+    (a row a sample does not hold)."""
+    if table.line_numbers:
+        where = {int(n): i for i, n in enumerate(table.line_numbers)}
+        return [where.get(int(r)) for r in rows]
+    return [int(r) - 1 if 1 <= int(r) <= table.n_rows else None for r in rows]
 
 
 def with_row_names(text: str, table: Optional[Table], column=_LOOK) -> str:
@@ -149,7 +160,7 @@ def with_row_names(text: str, table: Optional[Table], column=_LOOK) -> str:
 
     def named(m):
         row = int(m.group(1))
-        if not 1 <= row <= table.n_rows:
+        if _positions(table, [row])[0] is None:
             return m.group(0)
         return f"(most on row {row}, {column} {row_names(table, [row], column=column)[0]})"
 

@@ -24,8 +24,11 @@ class FrameModel(QtCore.QAbstractTableModel):
         super().__init__(parent)
         self.set_frame(frame)
 
-    def set_frame(self, frame) -> None:
+    def set_frame(self, frame, row_numbers=None) -> None:
+        """Show ``frame``; ``row_numbers`` (``Table.line_numbers``: a row sample's rows in the file, or
+        rows after blank lines) number the rows, else 1, 2, 3, …"""
         self.beginResetModel()
+        self._row_numbers = tuple(row_numbers) if row_numbers else None
         if frame is None:
             self._frame, self._names, self._cols, self._n = None, [], [], 0
         else:
@@ -62,7 +65,8 @@ class FrameModel(QtCore.QAbstractTableModel):
             return None
         if orientation == Qt.Horizontal:
             return self._names[section] if section < len(self._names) else None
-        return str(section + 1)
+        numbers = self._row_numbers
+        return str(numbers[section] if numbers is not None and section < len(numbers) else section + 1)
 
     def raw_text(self, r: int, c: int) -> str:
         """The cell at full precision (copy and CSV export)."""

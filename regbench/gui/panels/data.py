@@ -150,7 +150,7 @@ class DataPanel(Panel):
 
     def _fill_cells(self, table):
         """Every cell of the table (the model reads them as they are painted), columns sized to names and first rows."""
-        self.frame_model.set_frame(table.frame)
+        self.frame_model.set_frame(table.frame, table.line_numbers)   # each row's number in the file
         self._frame_id = id(table.frame)
         if self.frame_model.columnCount() <= WIDTH_FROM_CELLS_MAX_COLUMNS:
             self.frame_view.resizeColumnsToContents()   # whole names; the first rows' widths
