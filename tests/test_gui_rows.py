@@ -229,3 +229,31 @@ def test_installing_the_pass_draws_the_data_panel_once_and_its_cells_in_a_later_
     assert data.frame_model.rowCount() == 20_000 and w.session.sampled
     w.dirty = False
     w.close()
+
+
+def test_a_table_read_in_batches_saved_before_its_first_fit_reopens_with_every_row(qtbot, tmp_path):
+    rng = np.random.default_rng(7)
+    n = 24_000
+    f = pd.DataFrame({f"x{j}": rng.normal(size=n) for j in range(3)})
+    f["note"] = [f"n{v}" for v in range(n)]   # names every row: listed, left out of the inputs
+    f["y"] = f["x0"] + rng.normal(size=n)
+    path = tmp_path / "big.parquet"
+    f.to_parquet(path, index=False, row_group_size=6000)
+    w = make_window(qtbot)
+    w.set_row_source(RowSource(memory_budget=10**6))
+    w.open_path(str(path), confirmed=True)
+    wait_idle(qtbot, w)
+    assert w.session.awaiting_pass
+    out = tmp_path / "p.regbench"
+    assert w.save_to(str(out)) and w.errors == []
+    from regbench.project.store import session_document
+
+    doc = session_document(w.session)["table_file"]
+    assert doc["path"] == str(path.resolve()) and "rows_used" not in doc   # no pass has run yet
+    w.open_path(str(out), confirmed=True)
+    wait_idle(qtbot, w)
+    s = w.session
+    assert w.errors == [] and s.sampled and s.streamed.rows_used == n and not s.awaiting_pass
+    assert w.draft.names == list(f.columns) and not w.draft.uses("note")
+    w.dirty = False
+    w.close()
