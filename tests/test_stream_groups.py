@@ -77,6 +77,29 @@ def test_grouped_stability_of_a_row_sample_sums_every_groups_cross_products(tmp_
     assert st.results.ols.n_clusters == len(mem.design.group_labels)
 
 
+def test_stability_from_group_sums_with_categories_penalty_factors_zero_weights_and_relaxed_families(tmp_path):
+    from test_stream_parity import _frame as _frame_with_categories
+
+    f = _frame_with_categories(n=1500, seed=4)
+    f.loc[f["site"] == "s03", "w"] = 0.0  # a group of weight 0: drawn like any other, fitting nothing
+    f.loc[::17, "w"] = 0.0
+    path = tmp_path / "t.parquet"
+    f.to_parquet(path, index=False, row_group_size=313)
+    roles = Roles(target="y", weights="w", groups="site", categorical=("tray",),
+                  predictors=("x0", "x1", "x2", "soil", "tray", "x4"))
+    settings = FitSettings(folds=4, seed=1, relaxed=True, penalty_factors=(("x0", 0.0), ("soil", 2.0)))
+    streamed = stream_fit(path, roles, settings, memory_budget=10**6, sample_rows=300)
+    st = Session.from_streamed(path, streamed, roles, settings, RowSource(memory_budget=10**6))
+    mem = Session(read_table(path), roles, settings)
+    for s in (st, mem):
+        s.set_bootstrap(20)
+        s.compute()
+    assert st.sampled and "relaxed_lasso" in st.stability.models
+    _same_stability(mem.stability, st.stability)
+    _close(mem.results.ols, st.results.ols, "ols")  # cluster-robust errors over 10 groups with weight
+    assert st.results.ols.n_clusters == mem.results.ols.n_clusters == len(mem.design.group_labels) - 1
+
+
 def test_longley_in_chunks_of_3_gives_memorys_cluster_errors_and_stability(tmp_path):
     f = _longley_frame()
     f["era"] = [f"e{i // 2}" for i in range(len(f))]  # eight groups of two consecutive years

@@ -9,7 +9,9 @@ penalized objective this is the same problem as stacking k copies of the row
 (the objective sums wᵢ over rows), and no rows are copied.  With groups, a
 refit needs no row at all: the drawn sample's cross-products are the groups'
 cross-products added up with their counts (:mod:`regbench.analysis.group_refits`),
-so each refit is p×p work after one pass over the rows.
+so each refit is p×p work after one pass over the rows.  A table read in batches
+keeps those group statistics over every row (``group_sums``), so its refits are
+the in-memory route's although only a sample of its rows is at hand.
 
 Reported per column: how often OLS sets it aside, how often each model uses it
 (coefficient ≠ 0: "selected" for lasso and elastic net), and each
