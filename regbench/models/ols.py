@@ -287,8 +287,14 @@ def _solve_kept(C, qz, kept, fac, scale):
     if not kept:
         return np.zeros(0), fac.ybar, None
     rows, mean, W, p = fac.rows, fac.mean, fac.W, C.shape[1]
-    Qk, Rk = linalg.qr(C[:, kept], mode="economic", check_finite=False)
-    b = linalg.solve_triangular(Rk, Qk.T @ qz, check_finite=False)
+    k = len(kept)
+    if k == p and C.shape[0] > p and not np.any(np.tril(C, -1)):
+        # Every column kept and ``C`` already triangular: it is its own QR (Q the identity).
+        Rk = np.triu(C[:k])
+        b = linalg.solve_triangular(Rk, qz[:k], check_finite=False)
+    else:
+        Qk, Rk = linalg.qr(C[:, kept], mode="economic", check_finite=False)
+        b = linalg.solve_triangular(Rk, Qk.T @ qz, check_finite=False)
     beta_k = b / scale[kept]
     icpt = fac.ybar - mean[kept] @ beta_k
     for _ in range(2 if rows.has_rows else 0):
@@ -421,13 +427,13 @@ def _sandwich(S, kept, mean, xtwx_inv, W, n_eff, p):
     B[1:, 1:] = xtwx_inv
     K = k + 1
     c = (G / (G - 1.0)) * ((n_eff - 1.0) / (n_eff - K)) if G > 1 and n_eff > K else float("nan")
-    Vc = c * (B @ (S.T @ S) @ B)
-    # Back from the intercept at the means to the intercept at zero: b0 = a - mᵀβ.
-    J = np.eye(K)
-    J[0, 1:] = -mean[kept]
-    V = J @ Vc @ J.T
+    # V = c·J B SᵀS B Jᵀ, J taking the intercept at the means back to the intercept at zero
+    # (b0 = a - mᵀβ).  Only its diagonal is wanted: the squared row lengths of U = J B Sᵀ,
+    # K×G, instead of three K×K products.
+    U = B @ S.T
+    U[0] -= mean[kept] @ U[1:]
     se = np.full(p, np.nan)
-    d = np.sqrt(np.clip(np.diag(V), 0.0, None))
+    d = np.sqrt(np.clip(c * np.einsum("ij,ij->i", U, U), 0.0, None))
     se[kept] = d[1:]
     return se, float(d[0]), int(G)
 
@@ -472,8 +478,17 @@ class _Rows:
 
     has_rows = True
 
+    _last = None
+
     def residuals(self, beta, icpt) -> np.ndarray:
-        return self.y - icpt - self.products(beta)
+        # The fit's final residuals are asked for twice (sums of squares, group-robust errors):
+        # the last answer is kept so the rows are read once.
+        last = self._last
+        if last is not None and last[1] == icpt and np.array_equal(last[0], beta):
+            return last[2]
+        resid = self.y - icpt - self.products(beta)
+        self._last = (np.array(beta, copy=True), icpt, resid)
+        return resid
 
     def sums_of_squares(self, beta, icpt, ybar):
         """Weighted residual and total sums of squares of a fit."""
