@@ -286,9 +286,15 @@ def _rank_decision(fit):
 
 
 def _ellipsoid_from_ols(ols, stats, budget_fn):
-    """The ellipsoid of least squares, from OLS's factor (or the cross-products) and its rank decision."""
+    """The ellipsoid of least squares, from OLS's factor (or the cross-products) and its rank decision.
+
+    ``stats`` is a GramStats, None, or a function returning one, called only when OLS carries no
+    factor (a project opened from its file gathers its cross-products only when first needed).
+    """
     columns, p, kept, aside, links = _rank_decision(ols)
     R = getattr(ols, "r_factor", None)
+    if R is None or np.asarray(R).shape != (p + 2, p + 2):
+        stats = stats() if callable(stats) else stats
     if R is not None and np.asarray(R).shape == (p + 2, p + 2):
         Rc = np.asarray(R, dtype=float)[1:, 1:]  # factor of sqrt(w/W)·[x − m, y − ȳ]
         S = _triangular(np.column_stack([Rc[:, kept], Rc[:, p]]))
@@ -430,7 +436,7 @@ def compute_ranges(design, results, tolerance: Optional[float] = None, models: O
     models = models if models is not None else results.models()
     if _is_binary(results):
         return _binary_ranges(design, results, tau, kind, note, models)
-    ell, best, sd = _ellipsoid_from_ols(results.ols, getattr(results, "gram", None), lambda b: tau * b)
+    ell, best, sd = _ellipsoid_from_ols(results.ols, lambda: _stats_of(results), lambda b: tau * b)
     centre = np.where(np.isfinite(results.ols.coef), results.ols.coef, 0.0).astype(float)
     mean = _means(design, results)
     best_safe = best if best > 0 else 0.0
@@ -499,13 +505,19 @@ def _binary_ranges(design, results, tau, kind, note, models) -> Ranges:
                      models, excess, design.X, xv, design.row_numbers, float(lr.intercept), outcome="binary")
 
 
+def _stats_of(results):
+    """The fit's cross-products of the whole design, gathered now if a project opened without them."""
+    whole = getattr(results, "whole_stats", None)
+    return whole() if whole is not None else getattr(results, "gram", None)
+
+
 def _means(design, results) -> np.ndarray:
     """Weighted column means, from OLS's factor or the cross-products when at hand."""
     p = len(results.columns)
     R = getattr(results.ols, "r_factor", None)
     if R is not None and np.asarray(R).shape == (p + 2, p + 2):
         return np.asarray(R, float)[0, 1:p + 1].copy()
-    stats = getattr(results, "gram", None)
+    stats = _stats_of(results)
     if stats is not None:
         return stats.mean_x()
     w = np.asarray(design.weights, float)

@@ -326,7 +326,9 @@ def model_at(design, results: FitResults, name: str, alpha: float) -> LinearMode
         from regbench.models.logistic import model_at_alpha
 
         return model_at_alpha(design, name, rho, float(alpha))
-    stats = results.gram if isinstance(results.gram, GramStats) else gram_stats(design.X, design.y, design.weights)
+    stats = results.whole_stats()
+    if not isinstance(stats, GramStats):
+        stats = gram_stats(design.X, design.y, design.weights)
     problem = _problem(stats, design, results.settings)
     check_alpha(problem, float(alpha), name)
     coding = LevelCoding.of(design)

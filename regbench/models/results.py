@@ -16,7 +16,7 @@ SD and W = sum_i w_i; rho = 0 is ridge, rho = 1 lasso, in between elastic net.
 from __future__ import annotations
 
 from dataclasses import dataclass, field, fields, replace
-from typing import TYPE_CHECKING, Dict, Optional, Tuple
+from typing import TYPE_CHECKING, Callable, Dict, Optional, Tuple
 
 import numpy as np
 
@@ -550,8 +550,24 @@ class FitResults(Result):
     def unpenalized_name(self) -> str:
         """'ols' for a numeric target, 'logistic' for a yes/no outcome."""
         return "logistic" if self.outcome == "binary" else "ols"
-    #: The engine's per-fold cross-products (not stored in a project; rebuilt on load).
+    #: The engine's cross-products of the whole design, accumulated fold by fold (not stored in a
+    #: project; a project opened from its file gathers them on first use, see :meth:`whole_stats`).
     gram: Optional[GramStats] = field(default=None, repr=False, compare=False)
+    #: How to gather ``gram`` when it is first needed; None once gathered or when nothing can.
+    gram_source: Optional[Callable[[], GramStats]] = field(default=None, repr=False, compare=False)
+
+    def whole_stats(self) -> Optional[GramStats]:
+        """``gram``, gathered on first use when these results were restored from a project file.
+
+        Opening a project needs no pass over its rows; the first refit at a new α, range or
+        comparison that needs the cross-products pays for the pass, in the thread that asks
+        (a refit's worker), once.
+        """
+        if self.gram is None and self.gram_source is not None:
+            # A cache of the engine, outside the value (compare=False): filled in once, in place.
+            object.__setattr__(self, "gram", self.gram_source())
+            object.__setattr__(self, "gram_source", None)
+        return self.gram
 
     def models(self) -> dict:
         """name -> LinearModel for the unpenalized model and every penalized model, in display order.

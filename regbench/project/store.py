@@ -8,6 +8,7 @@ from the file is executed: JSON is parsed as data, arrays are read with
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import io
 import json
@@ -838,17 +839,22 @@ def _install_cache(ar, session, migrated, raw: bytes, blobs: dict):
 
 
 def _restore_engine_cache(design, results):
-    """FitResults.gram is a cache of the engine and is not stored: rebuild it the way
-    ``fit_all`` does (whole design, accumulated fold by fold) so later refits at a new
-    α match a fresh session bit for bit."""
+    """FitResults.gram is a cache of the engine and is not stored: it is gathered the way
+    ``fit_all`` gathers it (whole design, accumulated fold by fold, so later refits at a new
+    α match a fresh session bit for bit), but only when a refit first needs it, not on
+    opening (:meth:`FitResults.whole_stats`)."""
     from dataclasses import replace
-
 
     ids = np.asarray(results.fold_ids)
     if ids.size == 0 or ids.min() < 0:
         raise ProjectError("results.json: field fit.fold_ids holds a negative fold; the cached results are damaged")
-    full, _ = per_fold(design.X, design.y, design.weights, ids, int(ids.max()) + 1)
-    return replace(results, gram=full)
+    source = functools.partial(_whole_design_stats, design.X, design.y, design.weights, ids, int(ids.max()) + 1)
+    return replace(results, gram=None, gram_source=source)
+
+
+def _whole_design_stats(X, y, w, ids, K):
+    """The whole design's cross-products, accumulated fold by fold as ``fit_all`` does."""
+    return per_fold(X, y, w, ids, K)[0]
 
 
 # -- public entry points -------------------------------------------------------------------
