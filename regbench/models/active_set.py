@@ -83,7 +83,9 @@ def _solve(G, c, l1, l2, beta, usable, size):
     for _ in range(50 + 4 * p):
         act = np.flatnonzero(beta)
         if settled:
-            g = c - G[:, act] @ beta[act]
+            # Rows of the symmetric G, not its columns: a row gather copies contiguous memory
+            # (a third of the time of the column gather at 1,000 columns).
+            g = c - beta[act] @ G[act]
             excess = np.abs(g) - l1
             excess[act] = -np.inf
             excess[~usable] = -np.inf
