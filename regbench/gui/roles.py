@@ -560,6 +560,7 @@ class ColumnsModel(QtCore.QAbstractTableModel):
         draft.changed.connect(self._refresh)
 
     def _refresh(self):
+        self._memo = {}
         if self._shown is not self.draft.table:
             self.beginResetModel()
             self._shown = self.draft.table
@@ -608,6 +609,17 @@ class ColumnsModel(QtCore.QAbstractTableModel):
         return "not used"
 
     def data(self, index, role=Qt.DisplayRole):
+        # Painting asks every cell for many roles at each paint: each answer is worked out once per
+        # change of the draft (``_refresh`` forgets them), which made painting the list several times faster.
+        key = (index.row(), index.column(), role)
+        memo = self.__dict__.setdefault("_memo", {})
+        try:
+            return memo[key]
+        except KeyError:
+            value = memo[key] = self._data(index, role)
+            return value
+
+    def _data(self, index, role):
         d = self.draft
         if role not in _COLUMN_ROLES or not index.isValid() or d.table is None:
             return None   # painting asks each cell for many roles: answer the unused ones at once
@@ -661,6 +673,15 @@ class ColumnsModel(QtCore.QAbstractTableModel):
         return None
 
     def flags(self, index):
+        key = (index.row(), index.column(), "flags")
+        memo = self.__dict__.setdefault("_memo", {})
+        try:
+            return memo[key]
+        except KeyError:
+            value = memo[key] = self._flags(index)
+            return value
+
+    def _flags(self, index):
         f = Qt.ItemIsEnabled | Qt.ItemIsSelectable
         if not index.isValid() or self.draft.table is None:
             return f

@@ -103,6 +103,7 @@ class GridModel(QtCore.QAbstractTableModel):
         self.tips = tips or {}
         self.digits = digits
         self.wrapped = frozenset()
+        self._memo = {}
         self.endResetModel()
 
     def rowCount(self, parent=QtCore.QModelIndex()):
@@ -119,6 +120,15 @@ class GridModel(QtCore.QAbstractTableModel):
         return full_text(self.rows[r][c] if c < len(self.rows[r]) else None)
 
     def data(self, index, role=Qt.DisplayRole):
+        # Every paint asks each cell for several roles again: each answer is worked out once per set_rows.
+        key = (index.row(), index.column(), role)
+        try:
+            return self._memo[key]
+        except KeyError:
+            value = self._memo[key] = self._data(index, role)
+            return value
+
+    def _data(self, index, role):
         if role not in _GRID_ROLES:  # sizing asks for many roles per cell; answer the rest at once
             return None
         r, c = index.row(), index.column()
