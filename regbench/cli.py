@@ -465,7 +465,7 @@ def _stress_streamed(args, settings, route) -> int:
     every = {}
     for col in columns:
         figs = all_rows_figures(results.gram, design.columns, models,
-                                StressConfig(col, args.kind, args.strength, args.seed, args.tolerance))
+                                StressConfig(col, args.kind, args.strength, args.seed, args.tolerance), design=design)
         if figs is not None:
             every[col] = figs
     if every:
