@@ -178,3 +178,12 @@ def test_every_column_kept_read_from_the_triangle_is_the_walks_answer(which, mon
     np.testing.assert_array_equal(read.coef, walked.coef)
     if which == "near_alias":
         assert [s.column for s in walked.set_aside] == [cols[-1]]
+
+
+def test_a_design_without_columns_fits_the_weighted_mean_from_the_cross_products():
+    y = np.arange(20.0)
+    w = np.linspace(0.5, 2.0, 20)
+    design = design_from_arrays(np.zeros((20, 0)), y, weights=w, columns=())
+    r = fit_ols(design, stats=gram_stats(np.zeros((20, 0)), y, w))
+    # Source: the weighted mean computed by numpy.
+    assert r.rank == 0 and r.intercept == pytest.approx(np.average(y, weights=w), rel=1e-14)

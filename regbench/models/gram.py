@@ -301,6 +301,8 @@ def _add_syrk(upper, Z):
     stored without copying it (a design's columns are usually stored one after another)."""
     from scipy.linalg import blas
 
+    if 0 in Z.shape:  # no rows or no columns: nothing to add (and BLAS refuses empty arrays)
+        return upper
     if Z.flags.f_contiguous:
         return blas.dsyrk(1.0, Z, beta=1.0, c=upper, trans=1, lower=0, overwrite_c=1)
     return blas.dsyrk(1.0, np.ascontiguousarray(Z).T, beta=1.0, c=upper, trans=0, lower=0, overwrite_c=1)

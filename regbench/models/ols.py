@@ -601,7 +601,7 @@ def factor_from_stats(stats, design=None, chunk_rows: Optional[int] = None, n: O
 
     p = stats.p
     q = p + 1
-    if not stats.W > 0:
+    if not stats.W > 0 or p == 0:
         return None
     mean, ybar = stats.mean_x(), stats.mean_y()
     A = np.empty((q, q))
