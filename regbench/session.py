@@ -395,6 +395,15 @@ class Session:
             self._fingerprint = file_fingerprint(self.source) if self.source else table_fingerprint(self.table)
         return self._fingerprint
 
+    def adopt_table_hash(self, fingerprint: str) -> None:
+        """Take ``fingerprint`` as the table's (:attr:`table_hash`) instead of hashing every cell again.
+
+        For a project file whose cached results were computed on the very bytes of its stored table
+        (checked by SHA-256); nothing changes once the table has been hashed.
+        """
+        if self._fingerprint is None:
+            self._fingerprint = str(fingerprint)
+
     @property
     def rows(self) -> RowSource:
         """How the rows are read: memory budget and cluster."""

@@ -119,3 +119,36 @@ def test_the_window_opens_a_project_without_the_pass_and_refits_on_the_worker(sa
     w.runner.cancel_all()
     w.runner.wait(60_000)
     w.close()
+
+
+def test_the_table_is_not_hashed_again_when_the_cache_names_its_bytes(saved, monkeypatch, tmp_path):
+    # Source of truth: the fingerprint recomputed cell by cell from the opened table.
+    import json
+    import zipfile
+
+    import regbench.session as session_mod
+
+    real = session_mod.table_fingerprint
+    hashed = []
+    monkeypatch.setattr(session_mod, "table_fingerprint", lambda t: hashed.append(1) or real(t))
+    s = load_project(saved, compute=False)
+    assert s.cache_status == "used" and hashed == []
+    assert s.table_hash == real(s.table)
+    # A file whose cache does not name the table's bytes (as written before) hashes the table, and uses the cache.
+    with zipfile.ZipFile(saved) as zf:
+        members = {i.filename: zf.read(i) for i in zf.infolist()}
+    doc = json.loads(members["results.json"])
+    assert isinstance(doc.pop("table_sha256"), str)
+    members["results.json"] = json.dumps(doc).encode()
+    import hashlib
+
+    m = json.loads(members["manifest.json"])
+    for e in m["members"]:
+        e["size"], e["sha256"] = len(members[e["name"]]), hashlib.sha256(members[e["name"]]).hexdigest()
+    members["manifest.json"] = json.dumps(m).encode()
+    older = tmp_path / "older.regbench"
+    with zipfile.ZipFile(older, "w") as zf:
+        for n, b in members.items():
+            zf.writestr(n, b)
+    s2 = load_project(older, compute=False)
+    assert hashed == [1] and s2.cache_status == "used" and s2.table_hash == s.table_hash

@@ -119,10 +119,12 @@ def save_project(session, path) -> None:
     path = os.fspath(path)
     members = []  # (name, bytes, compress)
     table_bytes = table_to_parquet(session.table)
+    table_sha = _sha(table_bytes)
     members.append((TABLE, table_bytes, zipfile.ZIP_STORED))
     members.append((SESSION, _dumps(session_document(session)), zipfile.ZIP_DEFLATED))
     # A table read in batches is fitted again from its file on opening (the cache would need every row).
-    members.extend(_results_members(session) if session.results is not None and session.source is None else [])
+    members.extend(_results_members(session, table_sha) if session.results is not None and session.source is None
+                   else [])
     saved = _now()
     manifest = {
         "format": FORMAT_NAME,
@@ -130,7 +132,7 @@ def save_project(session, path) -> None:
         "app_version": __version__,
         "created": getattr(session, "created", None) or saved,
         "saved": saved,
-        "table_sha256": _sha(table_bytes),
+        "table_sha256": table_sha,
         "members": [{"name": n, "size": len(b), "sha256": _sha(b)} for n, b, _ in members],
     }
     stamp = tuple(int(x) for x in (saved[0:4], saved[5:7], saved[8:10], saved[11:13], saved[14:16], saved[17:19]))
@@ -144,14 +146,16 @@ def save_project(session, path) -> None:
     session.mark_saved(path, manifest["created"], saved)
 
 
-def _results_members(session) -> list:
+def _results_members(session, table_sha: str) -> list:
     """results.json and its arrays; none when a result has no stored form (the cache is optional:
-    the project is saved whole and is fitted again on opening)."""
+    the project is saved whole and is fitted again on opening).  ``table_sha`` is the SHA-256 of
+    the stored table's bytes, which the fingerprint beside it was taken of."""
     enc = Encoder(RESULTS_DIR)
     try:
         doc = {
             "engine_version": ENGINE_VERSION,
             "table_fingerprint": session.table_hash,
+            "table_sha256": table_sha,
             "settings_sha256": session.settings_hash(),
             "key": session.key(),
             "fit": enc.encode(session.results, "results"),
@@ -767,7 +771,7 @@ def _load_results(ar, m, session, migrated: bool):
     blobs = {name: _read_checked(ar, m, name) for name in m["_members"] if name.startswith(RESULTS_DIR)}
     plain = True
     try:
-        reason = _install_cache(ar, session, migrated, raw, blobs)
+        reason = _install_cache(ar, session, migrated, raw, blobs, m["table_sha256"])
     except ProjectError as exc:
         reason, plain = str(exc).replace(f"{ar.label}: ", "", 1), False
     if reason is None:
@@ -792,8 +796,13 @@ def stale_cache_line(label: str, reason: str, plain: bool = True) -> str:
             f"differently; {KEPT} (detail: {reason})")
 
 
-def _install_cache(ar, session, migrated, raw: bytes, blobs: dict):
-    """Decode and install the cache; returns why it does not apply, or None once installed."""
+def _install_cache(ar, session, migrated, raw: bytes, blobs: dict, table_sha: str):
+    """Decode and install the cache; returns why it does not apply, or None once installed.
+
+    ``table_sha`` is the SHA-256 of the stored table's bytes, checked against the manifest.  A cache
+    that records the same SHA-256 was computed on these very bytes, so its table fingerprint is the
+    table's and the cells need not be hashed again (files without it: the table is hashed).
+    """
     doc = ar.json(RESULTS, raw)
     if not isinstance(doc, dict):
         raise StaleCache("results.json is not an object")
@@ -806,6 +815,8 @@ def _install_cache(ar, session, migrated, raw: bytes, blobs: dict):
     if version != ENGINE_VERSION:
         return (f"they were computed by engine version {version}, this is {ENGINE_VERSION}" if version is not None
                 else "they were computed by an engine without a version")
+    if doc.get("table_sha256") == table_sha:
+        session.adopt_table_hash(doc["table_fingerprint"])
     if doc["table_fingerprint"] != session.table_hash:
         return "the table differs from the one they were computed on"
     if doc["settings_sha256"] != session.settings_hash():
