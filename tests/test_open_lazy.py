@@ -152,3 +152,32 @@ def test_the_table_is_not_hashed_again_when_the_cache_names_its_bytes(saved, mon
             zf.writestr(n, b)
     s2 = load_project(older, compute=False)
     assert hashed == [1] and s2.cache_status == "used" and s2.table_hash == s.table_hash
+
+
+def test_the_stored_table_is_read_in_place_and_still_checked(saved, tmp_path):
+    # Source of truth: Python's zipfile reading the same member (with its CRC check).
+    import zipfile
+
+    from regbench.errors import ProjectError
+    from regbench.project.store import _Archive
+
+    ar = _Archive(saved)
+    try:
+        view = ar.in_place("table.parquet")
+        assert view is not None and bytes(view) == ar.raw("table.parquet")
+        assert ar.in_place("results.json") is None  # compressed members go through zipfile
+        del view
+    finally:
+        ar.close()
+    # One byte of the table changed in the file, the manifest left as it was: refused by its SHA-256.
+    data = bytearray(saved.read_bytes())
+    with zipfile.ZipFile(saved) as zf:
+        info = zf.getinfo("table.parquet")
+        table = zf.read(info)
+    at = bytes(data).find(table[1000:1100])
+    assert at > 0
+    data[at + 10] ^= 0xFF
+    bad = tmp_path / "bad.regbench"
+    bad.write_bytes(bytes(data))
+    with pytest.raises(ProjectError, match="SHA-256"):
+        load_project(bad, compute=False)

@@ -13,9 +13,11 @@ import hashlib
 import io
 import json
 import math
+import mmap
 import os
 import posixpath
 import stat
+import struct
 import zipfile
 from datetime import datetime, timezone
 
@@ -227,6 +229,7 @@ class _Archive:
             raise ProjectError(f"{self.label}: not a regbench project (not a readable zip archive: {exc}); "
                                "open a .regbench file, or load a table with 'new from table'") from None
         self.infos = {}
+        self._map = None
         try:
             infolist = self.zf.infolist()
         except Exception as exc:  # zipfile can fail lazily on damaged central directories
@@ -253,6 +256,40 @@ class _Archive:
 
     def close(self):
         self.zf.close()
+        if self._map is not None:
+            try:
+                self._map.close()
+            except BufferError:  # a view of it is still held by the caller: let it go with the view
+                pass
+            self._map = None
+
+    def in_place(self, name: str):
+        """A read-only view of a stored (uncompressed) member's bytes in the file itself, or None
+        when the member is compressed or its local header does not agree with the directory (the
+        caller then reads it through :meth:`raw`, which reports any damage).
+
+        Reading in place saves copying the bytes and zipfile's CRC pass over them; the caller must
+        check them against the manifest's SHA-256, which stands for the CRC.
+        """
+        info = self.infos.get(name)
+        if info is None or info.compress_type != zipfile.ZIP_STORED or info.flag_bits & 0x1:
+            return None
+        try:
+            if self._map is None:
+                with open(self.path, "rb") as fh:
+                    self._map = mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_READ)
+            m, h = self._map, info.header_offset
+            if h < 0 or h + 30 > len(m) or m[h:h + 4] != b"PK\x03\x04":
+                return None
+            method, = struct.unpack("<H", m[h + 8:h + 10])
+            n, e = struct.unpack("<HH", m[h + 26:h + 30])
+            start = h + 30 + n + e
+            if method != 0 or m[h + 30:h + 30 + n] != info.orig_filename.encode("utf-8", "replace") \
+                    or start + info.file_size > len(m):
+                return None
+            return memoryview(m)[start:start + info.file_size]
+        except (OSError, ValueError, OverflowError):
+            return None
 
     def raw(self, name: str, limit: int = MAX_MEMBER) -> bytes:
         info = self.infos.get(name)
@@ -364,12 +401,16 @@ def _manifest(ar: _Archive) -> dict:
     return m
 
 
-def _read_checked(ar: _Archive, m: dict, name: str, limit: int = MAX_MEMBER) -> bytes:
+def _read_checked(ar: _Archive, m: dict, name: str, limit: int = MAX_MEMBER, in_place: bool = False):
+    """A member's bytes, checked against the manifest's size and SHA-256 (``in_place``: a read-only
+    view of them in the file when the member is stored uncompressed, as the table is)."""
     entry = m["_members"][name]
     if name not in ar.infos:
         raise ProjectError(f"{ar.label}: member '{name}' is listed in manifest.json but missing; "
                            "the file is damaged or incomplete")
-    data = ar.raw(name, limit)
+    data = ar.in_place(name) if in_place and ar.infos[name].file_size <= limit else None
+    if data is None:
+        data = ar.raw(name, limit)
     if len(data) != entry["size"] or _sha(data) != entry["sha256"]:
         raise ProjectError(f"{ar.label}: member '{name}' fails its SHA-256 check (the manifest records "
                            f"{entry['size']} bytes, sha256 {entry['sha256'][:12]}…); the file is damaged. "
@@ -889,7 +930,7 @@ def load_project(path, compute: bool = True, progress=None, cancel=None):
     ar = _Archive(path)
     try:
         m = _manifest(ar)
-        table_bytes = _read_checked(ar, m, TABLE)
+        table_bytes = _read_checked(ar, m, TABLE, in_place=True)
         doc = ar.json(SESSION, _read_checked(ar, m, SESSION, JSON_LIMITS[SESSION]))
         migrated = m["format_version"] < FORMAT_VERSION
         if migrated:
