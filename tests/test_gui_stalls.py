@@ -307,3 +307,48 @@ def test_a_timer_due_during_a_drawing_runs_before_the_next_drawing(win, qtbot):
     panel.defer(second)
     qtbot.waitUntil(lambda: len(order) == 3, timeout=5_000)
     assert order == ["first", "timer", "second"]
+
+
+@pytest.mark.parametrize("key", ["fit", "agreement", "overlaps", "ranges", "calibration"])
+def test_a_panel_visited_before_shows_without_drawing_again(win, qtbot, monkeypatch, key):
+    """Switching back to a panel whose numbers have not changed only shows it: no refresh, no work sent
+    to the worker, no plot cleared or scatter added, no drawing left for later turns."""
+    from regbench.gui.panels import base
+
+    panel = win.panel(key)
+    win.show_panel(key)
+    _settle(qtbot, win, panel)
+    win.show_panel("data")
+    _settle(qtbot, win, win.panel("data"))
+    items_before = [list(p.getPlotItem().items) for p in panel.plots() if hasattr(p, "getPlotItem")]
+    calls = []
+    for name in ("refresh", "clear"):
+        real = getattr(panel, name)
+        monkeypatch.setattr(panel, name, lambda *a, _real=real, _name=name, **k: (calls.append(_name), _real(*a, **k)))
+    for name in ("prepare", "defer", "scatter"):
+        real = getattr(base.Panel, name)
+        monkeypatch.setattr(base.Panel, name,
+                            lambda self, *a, _real=real, _name=name, **k: (calls.append(_name), _real(self, *a, **k)))
+    real_start = win.runner.start
+    monkeypatch.setattr(win.runner, "start", lambda *a, **k: (calls.append("worker"), real_start(*a, **k))[1])
+    win.show_panel(key)
+    QtWidgets.QApplication.processEvents()
+    _settle(qtbot, win, panel)
+    assert panel.isVisible() and win.current_panel() is panel
+    assert calls == []
+    assert [list(p.getPlotItem().items) for p in panel.plots() if hasattr(p, "getPlotItem")] == items_before
+
+
+def test_the_window_leaves_a_core_for_its_gui_thread(qtbot):
+    """BLAS threads spin after each call; the window limits them to every core but one, so the GUI thread
+    finds a core while the worker makes many small calls."""
+    from threadpoolctl import threadpool_info
+
+    from regbench.gui.app import application, keep_a_core_for_the_window
+
+    application()
+    try:
+        blas = [lib for lib in threadpool_info() if lib["user_api"] == "blas"]
+        assert blas and all(lib["num_threads"] <= max(1, (os.cpu_count() or 1) - 1) for lib in blas)
+    finally:
+        keep_a_core_for_the_window.limits.restore_original_limits()

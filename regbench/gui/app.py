@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import sys
 from typing import Optional
 
@@ -17,7 +18,31 @@ def application():
         app = QtWidgets.QApplication(sys.argv[:1])
     app.setOrganizationName("regbench")
     app.setApplicationName("regbench")
+    keep_a_core_for_the_window()
     return app
+
+
+def keep_a_core_for_the_window() -> Optional[int]:
+    """Let BLAS/LAPACK use every core but one, so the GUI thread always finds a core free.
+
+    OpenBLAS's threads spin for a while after each call instead of sleeping; while the worker
+    makes many small calls (a table read in batches: one set of cross-products per batch), its
+    threads keep every core busy, and the GUI thread waits for one: on two cores the window
+    stalled 95-115 ms with 50 ms of its own work (``python -m regbench.gui.heartbeat``), and
+    52-57 ms with BLAS on one thread.  One thread is also what the engine picks for its own
+    passes (see :func:`regbench.models.ols.one_blas_thread`).  Returns the limit set, or None
+    when threadpoolctl is missing.
+    """
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # pragma: no cover - a declared dependency
+        return None
+    import scipy.linalg  # noqa: F401  (SciPy's own OpenBLAS: a limit covers only libraries loaded)
+
+    limit = max(1, (os.cpu_count() or 1) - 1)
+    # Kept, not used as a context: the limit lasts for the window's whole life.
+    keep_a_core_for_the_window.limits = threadpool_limits(limits=limit, user_api="blas")
+    return limit
 
 
 def run(path: Optional[str] = None) -> int:
