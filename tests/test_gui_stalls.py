@@ -352,3 +352,20 @@ def test_the_window_leaves_a_core_for_its_gui_thread(qtbot):
         assert blas and all(lib["num_threads"] <= max(1, (os.cpu_count() or 1) - 1) for lib in blas)
     finally:
         keep_a_core_for_the_window.limits.restore_original_limits()
+
+
+def test_the_window_sets_the_loaded_libraries_aside_from_full_collections(qtbot):
+    """A full garbage collection walks every container object; those loaded before the window opens are
+    frozen (gc.freeze), so a collection on the GUI thread walks only what came after them."""
+    import gc
+
+    from regbench.gui.app import application, keep_a_core_for_the_window
+
+    gc.unfreeze()
+    assert gc.get_freeze_count() == 0
+    try:
+        application()
+        assert gc.get_freeze_count() > 10_000     # numpy, pandas, Qt and pyqtgraph alone hold more
+    finally:
+        gc.unfreeze()
+        keep_a_core_for_the_window.limits.restore_original_limits()
