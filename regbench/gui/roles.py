@@ -21,6 +21,7 @@ from regbench.data.identifiers import identifier_columns
 from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC
 from regbench.errors import DataError
 from regbench.gui.style import PALETTE
+from regbench.gui.tables import DISPLAY, HORIZONTAL, TOOLTIP
 
 Qt = QtCore.Qt
 KIND_WORDS = {NUMERIC: "number", CATEGORICAL: "text", BOOLEAN: "yes/no", EMPTY: "empty"}
@@ -575,11 +576,11 @@ class ColumnsModel(QtCore.QAbstractTableModel):
         return 0 if parent.isValid() else len(self.HEADERS)
 
     def headerData(self, section, orientation, role=Qt.DisplayRole):
-        if role == Qt.DisplayRole and orientation == Qt.Horizontal:
+        if role == DISPLAY and orientation == HORIZONTAL:
             # Two-word headers over narrow ticks and numbers take two lines, leaving room for the reasons.
             text = self.HEADERS[section]
             return text.replace(" ", "\n", 1) if section in (self.C_CATS, self.C_PENALTY) else text
-        if role == Qt.ToolTipRole and orientation == Qt.Horizontal:
+        if role == TOOLTIP and orientation == HORIZONTAL:
             return {self.C_USE: "Tick the columns the models may use",
                     self.C_CATS: "Treat whole-number codes as categories (one indicator per value)",
                     self.C_PART: "What the fit does with the column"}.get(section)

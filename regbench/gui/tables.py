@@ -15,6 +15,11 @@ from regbench.formatting import cell_text as fmt
 from regbench.gui.style import PALETTE
 
 Qt = QtCore.Qt
+# Roles and orientations read once: each ``Qt.DisplayRole`` looks the name up in PySide's enum again
+# (about 3 µs), and a table's paint asks every cell and header for several roles, several times.
+DISPLAY, ALIGNMENT, TOOLTIP = Qt.DisplayRole, Qt.TextAlignmentRole, Qt.ToolTipRole
+BACKGROUND, FOREGROUND, HORIZONTAL = Qt.BackgroundRole, Qt.ForegroundRole, Qt.Horizontal
+CHECK = Qt.CheckStateRole
 
 
 class FrameModel(QtCore.QAbstractTableModel):
@@ -53,17 +58,17 @@ class FrameModel(QtCore.QAbstractTableModel):
         return 0 if parent.isValid() else len(self._cols)
 
     def data(self, index, role=Qt.DisplayRole):
-        if role == Qt.DisplayRole:
+        if role == DISPLAY:
             return fmt(self._col(index.column())[index.row()], 6)
-        if role == Qt.TextAlignmentRole:
+        if role == ALIGNMENT:
             col = self._col(index.column())
             return _RIGHT if col.dtype.kind in "fiub" else _LEFT
         return None
 
     def headerData(self, section, orientation, role=Qt.DisplayRole):
-        if role != Qt.DisplayRole:
+        if role != DISPLAY:
             return None
-        if orientation == Qt.Horizontal:
+        if orientation == HORIZONTAL:
             return self._names[section] if section < len(self._names) else None
         numbers = self._row_numbers
         return str(numbers[section] if numbers is not None and section < len(numbers) else section + 1)
@@ -133,19 +138,19 @@ class GridModel(QtCore.QAbstractTableModel):
             return None
         r, c = index.row(), index.column()
         v = self.rows[r][c] if c < len(self.rows[r]) else None
-        if role == Qt.DisplayRole:
+        if role == DISPLAY:
             if c in self.percent_cols and isinstance(v, (float, int, np.floating, np.integer)) and not isinstance(v, bool):
                 return percent_text(float(v))
             return fmt(v, self.digits)
-        if role == Qt.TextAlignmentRole:
+        if role == ALIGNMENT:
             if isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool):
                 return _RIGHT
             return _LEFT
-        if role == Qt.BackgroundRole and (r, c) in self.backgrounds:
+        if role == BACKGROUND and (r, c) in self.backgrounds:
             return QtGui.QBrush(QtGui.QColor(self.backgrounds[(r, c)]))
-        if role == Qt.ForegroundRole and (r, c) in self.foregrounds:
+        if role == FOREGROUND and (r, c) in self.foregrounds:
             return QtGui.QBrush(QtGui.QColor(self.foregrounds[(r, c)]))
-        if role == Qt.ToolTipRole and (r, c) in self.tips:
+        if role == TOOLTIP and (r, c) in self.tips:
             return self.tips[(r, c)]
         return None
 
@@ -162,9 +167,9 @@ class GridModel(QtCore.QAbstractTableModel):
                 self.headerDataChanged.emit(Qt.Horizontal, 0, len(self.headers) - 1)
 
     def headerData(self, section, orientation, role=Qt.DisplayRole):
-        if role != Qt.DisplayRole:
+        if role != DISPLAY:
             return None
-        if orientation == Qt.Horizontal:
+        if orientation == HORIZONTAL:
             if section >= len(self.headers):
                 return None
             text = self.headers[section]
@@ -245,8 +250,8 @@ class FittedTableView(QtWidgets.QTableView):
             w = 0
             for r in rows:
                 idx = model.index(r, c)
-                text = model.data(idx, Qt.DisplayRole)
-                extra = check if model.data(idx, Qt.CheckStateRole) is not None else 0
+                text = model.data(idx, DISPLAY)
+                extra = check if model.data(idx, CHECK) is not None else 0
                 if text is not None and text != "":
                     w = max(w, advance(str(text)) + pad + extra)
                 elif extra:
@@ -351,8 +356,9 @@ def _header_widths(h: QtWidgets.QHeaderView):
     bold.setBold(True)   # Qt measures a section's text in bold (room for a highlighted section)
     model, fm = h.model(), QtGui.QFontMetrics(bold)
     texts = []
-    for c in range(model.columnCount() if h.orientation() == Qt.Horizontal else model.rowCount()):
-        text = model.headerData(c, h.orientation(), Qt.DisplayRole)
+    orientation = h.orientation()
+    for c in range(model.columnCount() if orientation == HORIZONTAL else model.rowCount()):
+        text = model.headerData(c, orientation, DISPLAY)
         texts.append("" if text is None else str(text))
     lines = [fm.size(0, t).width() for t in texts]   # the widest line, as the style measures it
     if not texts:

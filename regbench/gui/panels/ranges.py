@@ -21,7 +21,7 @@ from regbench.data.identifiers import row_label_column, row_names, with_row_name
 from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.style import PALETTE, keep_legend_above, model_colour, plain_axes
 from regbench.formatting import number_text
-from regbench.gui.tables import GridModel, make_view
+from regbench.gui.tables import DISPLAY, GridModel, make_view
 from regbench.models.coding import design_sd
 from regbench.models.results import model_label
 
@@ -42,7 +42,7 @@ class _Grid(GridModel):
     """Numbers with significant digits (a coefficient of 0.00014 must not read as 0)."""
 
     def data(self, index, role=Qt.DisplayRole):
-        if role == Qt.DisplayRole:
+        if role == DISPLAY:
             v = self.value(index.row(), index.column()) if index.column() < len(self.rows[index.row()]) else None
             if isinstance(v, (float, np.floating)):
                 return number_text(v, self.digits, missing="")
