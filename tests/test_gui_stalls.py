@@ -344,14 +344,14 @@ def test_the_window_leaves_a_core_for_its_gui_thread(qtbot):
     finds a core while the worker makes many small calls."""
     from threadpoolctl import threadpool_info
 
-    from regbench.gui.app import application, keep_a_core_for_the_window
+    from regbench.gui.app import application, release_the_cores
 
     application()
     try:
         blas = [lib for lib in threadpool_info() if lib["user_api"] == "blas"]
         assert blas and all(lib["num_threads"] <= max(1, (os.cpu_count() or 1) - 1) for lib in blas)
     finally:
-        keep_a_core_for_the_window.limits.restore_original_limits()
+        release_the_cores()
 
 
 def test_the_window_sets_the_loaded_libraries_aside_from_full_collections(qtbot):
@@ -359,7 +359,7 @@ def test_the_window_sets_the_loaded_libraries_aside_from_full_collections(qtbot)
     frozen (gc.freeze), so a collection on the GUI thread walks only what came after them."""
     import gc
 
-    from regbench.gui.app import application, keep_a_core_for_the_window
+    from regbench.gui.app import application, release_the_cores
 
     gc.unfreeze()
     assert gc.get_freeze_count() == 0
@@ -368,4 +368,4 @@ def test_the_window_sets_the_loaded_libraries_aside_from_full_collections(qtbot)
         assert gc.get_freeze_count() > 10_000     # numpy, pandas, Qt and pyqtgraph alone hold more
     finally:
         gc.unfreeze()
-        keep_a_core_for_the_window.limits.restore_original_limits()
+        release_the_cores()

@@ -46,9 +46,22 @@ def keep_a_core_for_the_window() -> Optional[int]:
     import scipy.linalg  # noqa: F401  (SciPy's own OpenBLAS: a limit covers only libraries loaded)
 
     limit = max(1, (os.cpu_count() or 1) - 1)
-    # Kept, not used as a context: the limit lasts for the window's whole life.
-    keep_a_core_for_the_window.limits = threadpool_limits(limits=limit, user_api="blas")
+    # Kept, not used as a context: the limit lasts for the window's whole life (set once, so that
+    # release_the_cores gives back what BLAS had before the first window).
+    if _kept.get("limits") is None:
+        _kept["limits"] = threadpool_limits(limits=limit, user_api="blas")
     return limit
+
+
+def release_the_cores() -> None:
+    """Give BLAS back the threads it had before :func:`keep_a_core_for_the_window` (a process that
+    draws pictures of the window and then goes on computing, as the test suite does)."""
+    limits = _kept.pop("limits", None)
+    if limits is not None:
+        limits.restore_original_limits()
+
+
+_kept: dict = {}
 
 
 def run(path: Optional[str] = None) -> int:
