@@ -53,8 +53,22 @@ def number_text(v: float, digits: int = 4, *, missing: str = MISSING, unicode_mi
         if text == "-0":  # a small negative rounded away keeps no sign: "-0" reads as a typo
             text = "0"
     else:
-        text = f"{v:.{digits}g}"
+        text = _significant(v, digits)
     return text.replace("-", "−") if unicode_minus else text
+
+
+def _significant(v: float, digits: int) -> str:
+    """``digits`` significant digits without an exponent; a number of more integer digits keeps them
+    all (150, not '1.5e+02'; 123456, not '1.235e+05'): Python's 'g' turns to an exponent as soon as
+    the integer part is longer than ``digits``."""
+    a = abs(v)
+    if a < 1:
+        return f"{v:.{digits}g}"
+    decimals = max(digits - int(math.floor(math.log10(a))) - 1, 0)
+    text = f"{v:.{decimals}f}"
+    if "." in text:
+        text = text.rstrip("0").rstrip(".")
+    return text
 
 
 def cell_text(v, digits: int = 4) -> str:
@@ -76,7 +90,8 @@ def sentence_number(x, digits: int = 3) -> str:
         return "undefined"
     if x == 0:
         return "0"
-    return f"{float(x):.{digits}g}"
+    x = float(x)
+    return _significant(x, digits) if 1 <= abs(x) < 1e6 else f"{x:.{digits}g}"
 
 
 def percent(x, decimals: int = 1) -> str:
