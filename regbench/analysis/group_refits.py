@@ -17,7 +17,8 @@ than ε, so a column counts as reproduced by the columns kept before it when
 what is left of it is within :data:`GRAM_RANK_TOL` of its size (exact
 aliases, built from other columns by a few float operations, leave about
 1e-8 here).  A refit whose kept columns are badly conditioned
-(:data:`regbench.models.engine.GRAM_COND_LIMIT`) is solved on the rows instead.
+(:data:`regbench.models.engine.GRAM_COND_LIMIT`, decided by :func:`regbench.models.engine.gram_solve`)
+is solved on the rows instead.
 
 A table read in batches has no rows at hand, only the groups' statistics its
 pass kept (:class:`regbench.data.stream.GroupSums`): the refits are the same
@@ -34,7 +35,7 @@ from dataclasses import replace
 import numpy as np
 
 from regbench.errors import ModelError
-from regbench.models.engine import GRAM_COND_LIMIT, alpha_for, families, problem_for, relaxation_for
+from regbench.models.engine import alpha_for, families, gram_solve, problem_for, relaxation_for
 from regbench.models.gram import GramStats, per_fold
 from regbench.models.coding import LevelCoding
 from regbench.models.ols import default_rank_tol, fit_ols
@@ -146,7 +147,7 @@ class GroupRefits:
             raise ModelError("the rows being fitted have total weight 0; there is nothing to fit")
         coding = LevelCoding.of(self.design)  # every level of a category alike, as in the fit
         problem = problem_for(st, self.design, self.settings)  # with the settings' penalty factors
-        out = {"ols": self._ols(st, counts, problem)}
+        out = {"ols": self._ols(st, counts)}
         for name, rho, a, gamma in self.families:
             out[name] = coding.label(model_from_problem(problem, name, rho, a, coding.names,
                                                         coef_init=self._start(name, rho, a), relaxation=gamma))
@@ -166,7 +167,7 @@ class GroupRefits:
             self._whole[name] = model_from_problem(problem, name, rho, alpha, coding.names).coef_std
         return self._whole[name]
 
-    def _ols(self, st: GramStats, counts, problem=None) -> LinearModel:
+    def _ols(self, st: GramStats, counts) -> LinearModel:
         design = self.design
         p = design.p
         G, c, mean, sd = st.standardized()
@@ -178,17 +179,14 @@ class GroupRefits:
         kept = sorted(ordered_choice(S, self.pin_idx, max(tol, GRAM_RANK_TOL), sd))
         coef = np.zeros(p)
         if kept:
-            if (problem is not None and problem.G.shape[0] == p and problem.factors is None
-                    and np.array_equal(np.flatnonzero(problem.live), kept)):
-                # The penalized problem's Gram on the same columns: its eigen-decomposition serves.
-                lk, Vk = problem.evals, problem.evecs
-            else:
-                lk, Vk = np.linalg.eigh(G[np.ix_(kept, kept)])
-            if not lk[0] > lk[-1] / GRAM_COND_LIMIT:
+            # A Cholesky factor and its condition estimate decide the rule of GRAM_COND_LIMIT where it
+            # is clear, the eigenvalues where it is not (engine.gram_solve).
+            sol, well = gram_solve(G[np.ix_(kept, kept)], c[kept], need_ill=not self.on_rows)
+            if not well:
                 if self.on_rows:
                     return self._ols_on_rows(counts)
                 self.from_cross_products += 1
-            coef[kept] = (Vk @ ((Vk.T @ c[kept]) / lk)) / sd[kept]
+            coef[kept] = sol / sd[kept]
         intercept = st.mean_y() - coef @ mean
         return LinearModel(name="ols", columns=tuple(design.columns), intercept=float(intercept), coef=coef,
                            coef_std=coef * sd)

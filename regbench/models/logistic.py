@@ -148,9 +148,7 @@ def _inner(H, c, alpha, rho, init):
     if fast is not None:
         return fast
     live = np.diag(H) > 0
-    Hl = H[np.ix_(live, live)]
-    lam, V = np.linalg.eigh(Hl) if Hl.size else (np.zeros(0), np.zeros((0, 0)))
-    prob = Problem(G=H, c=c, mean=np.zeros(k), sd=np.ones(k), mean_y=0.0, live=live, evals=lam, evecs=V)
+    prob = Problem(G=H, c=c, mean=np.zeros(k), sd=np.ones(k), mean_y=0.0, live=live)
     return solve_beta(prob, [alpha], rho, coef_init=init)[0]
 
 

@@ -96,12 +96,13 @@ def _wide_eigen(Gl: np.ndarray):
 
 @dataclass(frozen=True)
 class Problem:
-    """The standardized problem of one set of rows, ready to solve for any α."""
+    """The standardized problem of one set of rows, ready to solve for any α.
 
-    @property
-    def wide(self) -> bool:
-        """Far fewer non-null directions than columns (the L1 solver sweeps the k×p factor)."""
-        return 3 * self.evals.size < int(np.count_nonzero(self.live))
+    The eigen-decomposition of the live columns' Gram (``evals``, ``evecs``) is computed on
+    first use only: the ridge path, the α grid, the floor on α and coordinate descent need it,
+    while a refit at one α does not (ridge by a Cholesky factor of ``G + αI``, lasso and elastic
+    net by the active-set method), and on 1,000 columns it costs ten Cholesky factors.
+    """
 
     G: np.ndarray
     c: np.ndarray
@@ -109,13 +110,51 @@ class Problem:
     sd: np.ndarray
     mean_y: float
     live: np.ndarray  # columns with sd > 0
-    evals: np.ndarray  # eigenvalues of G[live][:, live], ascending
-    evecs: np.ndarray
     var_y: float = 1.0  # ỹᵀWỹ/W, twice the objective at β = 0 (for the duality gap)
     #: Penalty factor vⱼ ≥ 0 of each column; None when every factor is 1.
     factors: Optional[np.ndarray] = None
+    #: Rows behind the Gram when known: fewer rows than columns make its eigenpairs cheaper (:func:`_wide_eigen`).
+    n_rows: Optional[int] = None
     #: Reduced problems with the factors, built once per problem (see :func:`_reduce`).
     _reduced: dict = field(default_factory=dict, compare=False, repr=False)
+    #: The eigenpairs once computed (see :meth:`eigen`).
+    _eig: dict = field(default_factory=dict, compare=False, repr=False)
+
+    @property
+    def _wide_shape(self) -> bool:
+        k = int(np.count_nonzero(self.live))
+        return self.n_rows is not None and k > WIDE_MIN_COLUMNS and int(self.n_rows) < k
+
+    @property
+    def wide(self) -> bool:
+        """Far fewer non-null directions than columns (the L1 solver sweeps the k×p factor).
+
+        Only a Gram of fewer rows than columns can be wide: any other keeps every eigenpair,
+        so the answer needs no eigen-decomposition there.
+        """
+        if not self._wide_shape:
+            return False
+        return 3 * self.evals.size < int(np.count_nonzero(self.live))
+
+    def eigen(self):
+        """(λ ascending, V) of ``G[live][:, live]``; a wide Gram's null directions are left out."""
+        if "pairs" not in self._eig:
+            Gl = self.G[np.ix_(self.live, self.live)]
+            if self._wide_shape:
+                self._eig["pairs"] = _wide_eigen(Gl)
+            else:
+                self._eig["pairs"] = np.linalg.eigh(Gl) if Gl.size else (np.zeros(0), np.zeros((0, 0)))
+        return self._eig["pairs"]
+
+    @property
+    def evals(self) -> np.ndarray:
+        """Eigenvalues of ``G[live][:, live]``, ascending (computed on first use)."""
+        return self.eigen()[0]
+
+    @property
+    def evecs(self) -> np.ndarray:
+        """Eigenvectors matching :attr:`evals` (computed on first use)."""
+        return self.eigen()[1]
 
     @classmethod
     def from_stats(cls, stats: GramStats, factors=None) -> "Problem":
@@ -126,14 +165,9 @@ class Problem:
                 factors = None
         G, c, mean, sd = stats.standardized()
         live = sd > 0
-        Gl = G[np.ix_(live, live)]
-        if Gl.shape[0] > WIDE_MIN_COLUMNS and int(stats.n) < Gl.shape[0]:
-            lam, V = _wide_eigen(Gl)
-        else:
-            lam, V = np.linalg.eigh(Gl) if Gl.size else (np.zeros(0), np.zeros((0, 0)))
         var_y = max(stats.centered_yy() / stats.W, 0.0)
-        return cls(G=G, c=c, mean=mean, sd=sd, mean_y=stats.mean_y(), live=live, evals=lam, evecs=V, var_y=var_y,
-                   factors=factors)
+        return cls(G=G, c=c, mean=mean, sd=sd, mean_y=stats.mean_y(), live=live, var_y=var_y, factors=factors,
+                   n_rows=int(stats.n))
 
     def to_original(self, beta: np.ndarray):
         """Standardized coefficients (…, p) → original-unit coefficients and intercepts."""
@@ -175,11 +209,25 @@ def alpha_grid(c: np.ndarray, l1_ratio: float, n_penalties: int = 100, penalty_r
     return np.geomspace(top, bottom, n_penalties)
 
 
+#: Ridge at this many α or fewer is solved by a Cholesky factor of ``G + αI`` per α (p³/3 work
+#: each) rather than from the eigen-decomposition of G (about ten times that, shared by every α).
+RIDGE_FACTOR_MAX_ALPHAS = 3
+#: ... when ``(‖G‖₁ + α)/α``, an upper bound on the condition number of ``G + αI`` (‖G‖₁ ≥ λmax),
+#: is at most this.  Both routes then agree to about this times ε (2e-10 relative at worst), the
+#: round-off along null directions of G that the eigen route zeroes included: divided by
+#: ``λ + α ≥ α``, it stays below that share of the coefficients.
+RIDGE_FACTOR_MAX_COND = 1e6
+
+
 def ridge_beta(problem: Problem, alphas) -> np.ndarray:
     """Standardized ridge coefficients (len(alphas), p) in closed form."""
     alphas = np.atleast_1d(np.asarray(alphas, dtype=float))
     p = problem.c.shape[0]
     out = np.zeros((alphas.size, p))
+    if not problem.live.any():
+        return out
+    if alphas.size <= RIDGE_FACTOR_MAX_ALPHAS and _ridge_by_factor(problem, alphas, out):
+        return out
     V, lam = problem.evecs, problem.evals
     if V.size:
         proj = V.T @ problem.c[problem.live]  # (k,)
@@ -189,6 +237,31 @@ def ridge_beta(problem: Problem, alphas) -> np.ndarray:
         proj = np.where(lam > EIG_RTOL * max(float(lam.max(initial=0.0)), np.finfo(float).tiny), proj, 0.0)
         out[:, problem.live] = (proj[None, :] / (lam[None, :] + alphas[:, None])) @ V.T
     return out
+
+
+def _ridge_by_factor(problem: Problem, alphas: np.ndarray, out: np.ndarray) -> bool:
+    """Ridge at each α by a Cholesky factor of ``G + αI`` into ``out``; False (``out`` untouched) when
+    some α is too small beside ‖G‖₁ for that route (:data:`RIDGE_FACTOR_MAX_COND`)."""
+    from scipy.linalg import lapack
+
+    live = problem.live
+    Gl = problem.G[np.ix_(live, live)]
+    top = float(np.max(np.sum(np.abs(Gl), axis=0), initial=0.0))
+    if not np.all((alphas > 0) & (top + alphas <= RIDGE_FACTOR_MAX_COND * alphas)):
+        return False
+    cl = problem.c[live]
+    rows = []
+    for a in alphas:
+        M = Gl + float(a) * np.eye(Gl.shape[0])
+        U, info = lapack.dpotrf(M, lower=0, clean=0, overwrite_a=1)
+        if info != 0:
+            return False
+        x, info = lapack.dpotrs(U, cl, lower=0)
+        if info != 0 or not np.all(np.isfinite(x)):
+            return False
+        rows.append(x)
+    out[:, live] = np.asarray(rows)
+    return True
 
 
 def _factor(problem: Problem):
@@ -226,10 +299,8 @@ def enet_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None, tol=Non
         if l1_ratio == 1.0:
             _merge_copies(problem, out)
         return out
-    A, b = _factor(problem)
-    k = A.shape[0]
-    if k == 0:
-        return out
+    # A live column has a standardized variance of 1, so G has a non-null direction: the
+    # active-set method needs nothing more, and the factor of G only coordinate descent.
     Gl = problem.G[np.ix_(problem.live, problem.live)]
     init = None if coef_init is None else np.asarray(coef_init, dtype=float)[problem.live]
     exact = enet_path_gram(Gl, problem.c[problem.live], alphas, l1_ratio, init)
@@ -237,6 +308,9 @@ def enet_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None, tol=Non
         out[:, problem.live] = exact
         if l1_ratio == 1.0:
             _merge_copies(problem, out)
+        return out
+    A, b = _factor(problem)
+    if A.shape[0] == 0:
         return out
     return _enet_cd(problem, A, b, Gl, alphas, l1_ratio, coef_init, tol, out)
 
@@ -576,10 +650,7 @@ def _sub_problem(G: np.ndarray, c: np.ndarray, var_y: float, live=None) -> Probl
     k = c.shape[0]
     if live is None:
         live = np.diag(G) > REDUCED_RTOL if k else np.zeros(0, dtype=bool)
-    Gl = G[np.ix_(live, live)]
-    lam, V = np.linalg.eigh(Gl) if Gl.size else (np.zeros(0), np.zeros((0, 0)))
-    return Problem(G=G, c=c, mean=np.zeros(k), sd=np.ones(k), mean_y=0.0, live=live, evals=lam, evecs=V,
-                   var_y=var_y)
+    return Problem(G=G, c=c, mean=np.zeros(k), sd=np.ones(k), mean_y=0.0, live=live, var_y=var_y)
 
 
 def _reduce(problem: Problem, kind: str = "plain") -> _Reduced:
