@@ -189,3 +189,21 @@ def test_progress_is_reported_and_cancel_stops():
 def test_bad_settings_are_refused(settings, fragment):
     with pytest.raises(ModelError, match=fragment):
         fit_all(_design(seed=4), settings)
+
+
+def test_heldout_predictions_reuse_the_fits_fold_statistics(fitted, monkeypatch):
+    from dataclasses import replace
+
+    from regbench.models import engine
+
+    d, r = fitted
+    assert r.fold_stats is not None and len(r.fold_stats) == int(r.fold_ids.max()) + 1
+    models = r.models()
+    without = heldout_predictions(d, replace(r, fold_stats=None), models)  # a second pass over the rows
+    calls = []
+    monkeypatch.setattr(engine, "per_fold", lambda *a, **k: calls.append(1) or (_ for _ in ()).throw(AssertionError))
+    held = heldout_predictions(d, r, models)
+    assert not calls
+    for name in models:
+        # Source: the same refits from a fresh pass over the rows (bit for bit: the same sums).
+        np.testing.assert_array_equal(held[name], without[name])

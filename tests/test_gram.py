@@ -155,3 +155,33 @@ def test_column_constant_on_training_rows_is_constant_after_subtraction():
     G, c, mean, sd = (full - folds[0]).standardized()
     assert sd[1] == 0.0 and c[1] == 0.0 and np.all(G[1] == 0.0)
     assert np.all(sd[[0, 2]] > 0)
+
+
+@pytest.mark.parametrize("negative", [False, True])
+def test_per_group_stack_equals_each_groups_rows(negative):
+    from regbench.models.gram import GroupStack, per_group
+
+    X, y, w = _data(n=300, p=6, seed=5)
+    if negative:
+        w[3] = -0.5  # the general product's route (refused before a fit, but the sums must hold)
+    groups = np.random.default_rng(6).integers(0, 7, 300)
+    stack = per_group(X, y, w, groups, 7)
+    W = w.sum()
+    sx, sy = w @ X / W, w @ y / W
+    iu = np.triu_indices(6)
+    for g in range(7):
+        r = groups == g
+        Z, t = X[r] - sx, y[r] - sy
+        # Source: numpy sums over the group's rows about the whole table's weighted means.
+        xx = Z.T @ (w[r][:, None] * Z)
+        np.testing.assert_allclose(stack.xx[g], xx[iu], rtol=1e-12, atol=1e-9)
+        np.testing.assert_allclose(stack.unpack(stack.xx[g]), xx, rtol=1e-12, atol=1e-9)
+        np.testing.assert_allclose(stack.sx[g], w[r] @ Z, rtol=1e-12, atol=1e-9)
+        np.testing.assert_allclose(stack.xy[g], Z.T @ (w[r] * t), rtol=1e-12, atol=1e-9)
+        assert stack.W[g] == pytest.approx(w[r].sum(), rel=1e-13) and stack.n[g] == r.sum()
+        assert stack.yy[g] == pytest.approx(w[r] @ t ** 2, rel=1e-12)
+    # The stack of GramStats (a table read in batches keeps its groups' statistics so) packs alike.
+    _, parts = per_fold(X, y, w, groups, 7)
+    again = GroupStack.of(parts)
+    np.testing.assert_allclose(again.xx, stack.xx, rtol=1e-12, atol=1e-9)
+    np.testing.assert_allclose(again.scale, stack.scale, rtol=1e-12, atol=1e-9)

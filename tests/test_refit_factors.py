@@ -36,7 +36,7 @@ def _diabetes(wide: bool):
     return design_from_arrays(X, y, columns=cols, groups=groups)
 
 
-def _eigen_solve(G, c, need_ill=True):
+def _eigen_solve(G, c, need_ill=True, factor=None):
     """The OLS refit as it was solved before: eigenvalues decide the rule, eigenvectors solve."""
     lam, V = np.linalg.eigh(G)
     return V @ ((V.T @ c) / lam), bool(lam[0] > lam[-1] / engine.GRAM_COND_LIMIT)

@@ -36,7 +36,7 @@ import numpy as np
 
 from regbench.errors import ModelError
 from regbench.models.engine import alpha_for, families, gram_solve, problem_for, relaxation_for
-from regbench.models.gram import GramStats, per_fold
+from regbench.models.gram import GramStats, GroupStack, per_group
 from regbench.models.coding import LevelCoding
 from regbench.models.ols import default_rank_tol, fit_ols
 from regbench.models.penalized import model_from_problem
@@ -80,19 +80,14 @@ class GroupRefits:
         self.from_cross_products = 0
         if sums is None:
             self.n_groups = int(design.groups.max()) + 1
-            _, parts = per_fold(design.X, design.y, design.weights, design.groups, self.n_groups)
+            stack = per_group(design.X, design.y, design.weights, design.groups, self.n_groups)
         else:
             self.n_groups = len(sums.stats)
-            parts = list(sums.stats)
-        self.shift_x, self.shift_y = parts[0].shift_x, parts[0].shift_y
-        self.W = np.array([s.W for s in parts])
-        self.n = np.array([s.n for s in parts], dtype=np.float64)
-        self.sx = np.stack([s.sx for s in parts])
-        self.sy = np.array([s.sy for s in parts])
-        self.xx = np.stack([s.xx for s in parts])
-        self.xy = np.stack([s.xy for s in parts])
-        self.yy = np.array([s.yy for s in parts])
-        self.scale = np.stack([s._scale() for s in parts])
+            stack = GroupStack.of(sums.stats)
+        self.stack = stack
+        self.shift_x, self.shift_y = stack.shift_x, stack.shift_y
+        self.W, self.n, self.sx, self.sy = stack.W, stack.n, stack.sx, stack.sy
+        self.xx, self.xy, self.yy, self.scale = stack.xx, stack.xy, stack.yy, stack.scale
         if sums is not None:
             self.n_pos = np.asarray(sums.n_pos, dtype=np.float64)
             self.y_min = np.asarray(sums.y_min, dtype=np.float64)
@@ -118,21 +113,19 @@ class GroupRefits:
         from regbench.analysis.stability import group_counts  # stability imports this module
 
         C = np.stack([group_counts(self.n_groups, rng) for _ in range(int(k))])
-        p = self.xx.shape[1]
-        xx = (C @ self.xx.reshape(self.n_groups, p * p)).reshape(-1, p, p)
-        return list(zip(C, xx))
+        return list(zip(C, C @ self.xx))  # packed upper triangles (GroupStack)
 
     def batch(self, left: int) -> int:
         """Draws to sum in one product: at most :data:`BATCH_BYTES` of summed cross-products."""
-        p = self.xx.shape[1]
-        return int(max(1, min(int(left), 32, BATCH_BYTES // (8 * p * p + 1))))
+        return int(max(1, min(int(left), 32, BATCH_BYTES // (8 * self.xx.shape[1] + 1))))
 
     def stats(self, counts: np.ndarray, xx: np.ndarray = None) -> GramStats:
-        """The cross-products of a draw that takes group g ``counts[g]`` times (``xx`` when summed already)."""
+        """The cross-products of a draw that takes group g ``counts[g]`` times (``xx``, its packed upper
+        triangle, when summed already)."""
         c = np.asarray(counts, dtype=np.float64)
-        xx = np.tensordot(c, self.xx, axes=1) if xx is None else xx
+        xx = c @ self.xx if xx is None else xx
         return GramStats(W=float(c @ self.W), n=int(round(c @ self.n)), shift_x=self.shift_x, shift_y=self.shift_y,
-                         sx=c @ self.sx, sy=float(c @ self.sy), xx=0.5 * (xx + xx.T), xy=c @ self.xy,
+                         sx=c @ self.sx, sy=float(c @ self.sy), xx=self.stack.unpack(xx), xy=c @ self.xy,
                          yy=float(c @ self.yy), xx_scale=c @ self.scale)
 
     def flat(self, counts: np.ndarray) -> bool:
@@ -147,7 +140,7 @@ class GroupRefits:
             raise ModelError("the rows being fitted have total weight 0; there is nothing to fit")
         coding = LevelCoding.of(self.design)  # every level of a category alike, as in the fit
         problem = problem_for(st, self.design, self.settings)  # with the settings' penalty factors
-        out = {"ols": self._ols(st, counts)}
+        out = {"ols": self._ols(st, counts, problem)}
         for name, rho, a, gamma in self.families:
             out[name] = coding.label(model_from_problem(problem, name, rho, a, coding.names,
                                                         coef_init=self._start(name, rho, a), relaxation=gamma))
@@ -167,26 +160,36 @@ class GroupRefits:
             self._whole[name] = model_from_problem(problem, name, rho, alpha, coding.names).coef_std
         return self._whole[name]
 
-    def _ols(self, st: GramStats, counts) -> LinearModel:
+    def _ols(self, st: GramStats, counts, problem=None) -> LinearModel:
         design = self.design
         p = design.p
-        G, c, mean, sd = st.standardized()
+        if problem is not None and problem.G.shape[0] == p:
+            # The penalized problem standardized these very statistics (no level columns appended).
+            G, c, mean, sd = problem.G, problem.c, problem.mean, problem.sd
+        else:
+            G, c, mean, sd = st.standardized()
         size = np.sqrt(sd * sd + mean * mean)
         size = np.where(size > 0, size, 1.0)
-        S = st.centered_xx() / st.W / np.outer(size, size)
+        # Co-moments of the columns at unit RMS: G rescaled (a column with sd 0 is never walked).
+        e = sd / size
+        S = G * e[:, None] * e[None, :]
         n_pos = int(round(np.asarray(counts) @ self.n_pos))
         tol = default_rank_tol(n_pos, p) if self.settings.rank_tol is None else float(self.settings.rank_tol)
-        kept = sorted(ordered_choice(S, self.pin_idx, max(tol, GRAM_RANK_TOL), sd))
+        order, L = _choice_and_factor(S, self.pin_idx, max(tol, GRAM_RANK_TOL), sd)
         coef = np.zeros(p)
-        if kept:
+        if order:
             # A Cholesky factor and its condition estimate decide the rule of GRAM_COND_LIMIT where it
-            # is clear, the eigenvalues where it is not (engine.gram_solve).
-            sol, well = gram_solve(G[np.ix_(kept, kept)], c[kept], need_ill=not self.on_rows)
+            # is clear, the eigenvalues where it is not (engine.gram_solve).  When every live column
+            # stays, the walk's factor of S in its order is G's up to the scaling e: no second factor.
+            Gk = G if len(order) == p and order == list(range(p)) else G[np.ix_(order, order)]
+            # (L/e)ᵀ, Fortran-ordered as LAPACK reads it: UᵀU = G in the walk's order.
+            factor = None if L is None else (L / e[order][:, None]).T
+            sol, well = gram_solve(Gk, c[order], need_ill=not self.on_rows, factor=factor)
             if not well:
                 if self.on_rows:
                     return self._ols_on_rows(counts)
                 self.from_cross_products += 1
-            coef[kept] = sol / sd[kept]
+            coef[order] = sol / sd[order]
         intercept = st.mean_y() - coef @ mean
         return LinearModel(name="ols", columns=tuple(design.columns), intercept=float(intercept), coef=coef,
                            coef_std=coef * sd)
@@ -205,6 +208,19 @@ def ordered_choice(S: np.ndarray, pin_idx, tol: float, sd: np.ndarray) -> list:
     squared length left of column j is ``S_jj − S_jK S_KK⁻¹ S_Kj``, from a Cholesky factor
     of the kept block grown one column at a time.
     """
+    return list(_choice_and_factor(S, pin_idx, tol, sd)[0])
+
+
+def _choice_and_factor(S: np.ndarray, pin_idx, tol: float, sd: np.ndarray):
+    """The kept columns in the walk's order (pins first), and the lower Cholesky factor of
+    ``S`` on them in that order when every live column is kept (None otherwise)."""
+    kept = _walk(S, pin_idx, tol, sd)
+    if isinstance(kept, tuple):
+        return kept
+    return kept, None
+
+
+def _walk(S, pin_idx, tol, sd):
     from scipy.linalg import solve_triangular
 
     p = S.shape[0]
@@ -213,12 +229,13 @@ def ordered_choice(S: np.ndarray, pin_idx, tol: float, sd: np.ndarray) -> list:
     if live:
         # When every column is kept, the walk is the Cholesky factorization of S in this order
         # (the length left of each column is its pivot): one LAPACK call instead of p solves.
+        Sl = S if live == list(range(S.shape[0])) else S[np.ix_(live, live)]
         try:
-            pivots = np.diag(np.linalg.cholesky(S[np.ix_(live, live)]))
+            L = np.linalg.cholesky(Sl)
         except np.linalg.LinAlgError:
-            pivots = None
-        if pivots is not None and np.all(pivots * pivots > tol * tol):
-            return live
+            L = None
+        if L is not None and np.all(np.diag(L) ** 2 > tol * tol):
+            return live, L
     L = np.zeros((p, p))
     kept = []
     for j in order:

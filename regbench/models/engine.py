@@ -154,7 +154,7 @@ def _fit_numeric(design, settings: FitSettings, progress, cancel) -> FitResults:
         step += 1
     report(progress, step, total, "done")
     return FitResults(columns=tuple(design.columns), settings=settings, ols=ols, diagnostics=diag,
-                      penalized=penalized, fold_ids=ids, n_obs=int(design.n), gram=full)
+                      penalized=penalized, fold_ids=ids, n_obs=int(design.n), gram=full, fold_stats=tuple(folds))
 
 
 #: Below this share of the largest eigenvalue of the standardized Gram, a direction is round-off;
@@ -382,6 +382,9 @@ def heldout_predictions(design, results: FitResults, models: dict, fold_stats=No
         return _heldout_binary(design, results, models, ids, K)
     if fold_stats is not None:
         full, folds = results.gram, list(fold_stats)
+    elif results.fold_stats is not None and results.gram is not None and len(results.fold_stats) == K:
+        # The fit's own pass over these rows and folds: the same statistics, bit for bit.
+        full, folds = results.gram, list(results.fold_stats)
     else:
         full, folds = per_fold(design.X, design.y, design.weights, ids, K)
     train_stats = [_training(full, f, k) for k, f in enumerate(folds)]
@@ -433,7 +436,7 @@ GRAM_COND_LIMIT = 1e7
 COND_MARGIN = 10.0
 
 
-def gram_solve(G: np.ndarray, c: np.ndarray, need_ill: bool = True):
+def gram_solve(G: np.ndarray, c: np.ndarray, need_ill: bool = True, factor=None):
     """``G⁻¹c`` for a symmetric positive semi-definite ``G``, and whether ``G`` is within the rule
     λmin > λmax / :data:`GRAM_COND_LIMIT` (its 2-norm condition number below the limit).
 
@@ -447,6 +450,8 @@ def gram_solve(G: np.ndarray, c: np.ndarray, need_ill: bool = True):
     failed factor (λmin within round-off of 0), puts κ₂ above it.  Between the two the
     eigenvalues decide, exactly as before, and the solve is the eigen one.
 
+    ``factor``, when given, is an upper Cholesky factor U of ``G`` (UᵀU = G) already at hand.
+
     Returns
     -------
     (ndarray or None, bool)
@@ -457,7 +462,7 @@ def gram_solve(G: np.ndarray, c: np.ndarray, need_ill: bool = True):
 
     k = G.shape[0]
     anorm = float(np.max(np.sum(np.abs(G), axis=0), initial=0.0))
-    U, info = lapack.dpotrf(G, lower=0, clean=0)
+    U, info = (factor, 0) if factor is not None else lapack.dpotrf(G, lower=0, clean=0)
     if info == 0 and anorm > 0:
         rcond, info = lapack.dpocon(U, anorm)
         if info == 0 and rcond * GRAM_COND_LIMIT > COND_MARGIN:

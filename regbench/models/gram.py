@@ -246,7 +246,9 @@ def _chunk_rows(p: int) -> int:
     return max(1024, CHUNK_BYTES // (8 * max(p, 1)))
 
 
-def _accumulate(X, y, w, rows, shift_x, shift_y, chunk):
+def _accumulate(X, y, w, rows, shift_x, shift_y, chunk, packed=False):
+    """The statistics of ``rows`` (all when None) about the shift; with ``packed`` a tuple
+    ``(GramStats without xx, xx's upper triangle in np.triu_indices order)``."""
     p = X.shape[1]
     W = 0.0
     sx = np.zeros(p)
@@ -291,6 +293,11 @@ def _accumulate(X, y, w, rows, shift_x, shift_y, chunk):
         sy += wy.sum()
         yy += wy @ yc
         W += wc.sum()
+    if packed:
+        iu = np.triu_indices(p)
+        tri = upper[iu] + 0.5 * (general + general.T)[iu]
+        return GramStats(W=float(W), n=int(n), shift_x=shift_x, shift_y=float(shift_y), sx=sx, sy=float(sy),
+                         xx=None, xy=xy, yy=float(yy), xx_scale=np.diag(upper) + np.diag(general)), tri
     xx = np.triu(upper) + np.triu(upper, 1).T + 0.5 * (general + general.T)
     return GramStats(W=float(W), n=int(n), shift_x=shift_x, shift_y=float(shift_y), sx=sx, sy=float(sy),
                      xx=xx, xy=xy, yy=float(yy), xx_scale=np.diag(xx).copy())
@@ -384,6 +391,96 @@ def _per_fold(X, y, w, fold_ids, K, chunk):
     for f in folds[1:]:
         full = full + f
     return full, folds
+
+
+@dataclass(frozen=True)
+class GroupStack:
+    """Each group's weighted cross-products about one reference point, side by side.
+
+    What grouped bootstrap refits add up with each group's draw count
+    (:mod:`regbench.analysis.group_refits`).  ``xx`` holds the upper triangle of each
+    group's ``Σ w (x − s)(x − s)ᵀ`` packed in ``np.triu_indices(p)`` order: half the
+    memory of the full matrices and half the work of every sum over the groups.
+    """
+
+    shift_x: np.ndarray
+    shift_y: float
+    W: np.ndarray  # (G,)
+    n: np.ndarray  # (G,)
+    sx: np.ndarray  # (G, p)
+    sy: np.ndarray  # (G,)
+    xx: np.ndarray  # (G, p(p+1)/2)
+    xy: np.ndarray  # (G, p)
+    yy: np.ndarray  # (G,)
+    scale: np.ndarray  # (G, p): the size of the sums behind each diagonal (GramStats.xx_scale)
+
+    @property
+    def p(self) -> int:
+        return self.sx.shape[1]
+
+    @classmethod
+    def of(cls, parts) -> "GroupStack":
+        """The stack of a sequence of GramStats sharing one shift."""
+        parts = list(parts)
+        p = parts[0].p
+        iu = np.triu_indices(p)
+        xx = np.empty((len(parts), iu[0].size))
+        for g, st in enumerate(parts):
+            xx[g] = st.xx[iu]
+        return cls(shift_x=parts[0].shift_x, shift_y=float(parts[0].shift_y), W=np.array([s.W for s in parts]),
+                   n=np.array([s.n for s in parts], dtype=np.float64), sx=np.stack([s.sx for s in parts]),
+                   sy=np.array([s.sy for s in parts]), xx=xx, xy=np.stack([s.xy for s in parts]),
+                   yy=np.array([s.yy for s in parts]), scale=np.stack([s._scale() for s in parts]))
+
+    def unpack(self, tri: np.ndarray) -> np.ndarray:
+        """The symmetric p×p matrix of a packed upper triangle (a sum of rows of ``xx``)."""
+        p = self.p
+        out = np.empty((p, p))
+        flat, mirror = _packed_places(p)
+        out.ravel()[flat] = tri
+        out.ravel()[mirror] = tri
+        return out
+
+
+_PACKED = {}
+
+
+def _packed_places(p: int):
+    """Flat positions of the upper triangle in a p×p C-ordered matrix, and of its mirror image."""
+    if p not in _PACKED:
+        i, j = np.triu_indices(p)
+        _PACKED.clear()  # one size at a time: a refit run works on one design
+        _PACKED[p] = (i * p + j, j * p + i)
+    return _PACKED[p]
+
+
+def per_group(X, y, w, groups, G: int) -> GroupStack:
+    """Each group's statistics about the whole design's weighted means, in one pass.
+
+    The rows of one group are gathered and their upper triangle packed before the next group:
+    no p×p matrix per group is kept whole (G of them would take G·p² numbers).
+    """
+    from regbench.models.ols import one_blas_thread
+
+    X = np.asarray(X, dtype=np.float64)
+    y = np.asarray(y, dtype=np.float64)
+    w = np.asarray(w, dtype=np.float64)
+    groups = np.asarray(groups)
+    n, p = X.shape
+    shift_x, shift_y = _default_shift(X, y, w)
+    order = np.argsort(groups, kind="stable")
+    bounds = np.searchsorted(groups[order], np.arange(G + 1))
+    chunk = _chunk_rows(p)
+    xx = np.empty((G, p * (p + 1) // 2))
+    stats = []
+    with one_blas_thread():
+        for g in range(G):
+            st, xx[g] = _accumulate(X, y, w, order[bounds[g]:bounds[g + 1]], shift_x, shift_y, chunk, packed=True)
+            stats.append(st)
+    return GroupStack(shift_x=shift_x, shift_y=float(shift_y), W=np.array([s.W for s in stats]),
+                      n=np.array([s.n for s in stats], dtype=np.float64), sx=np.stack([s.sx for s in stats]),
+                      sy=np.array([s.sy for s in stats]), xx=xx, xy=np.stack([s.xy for s in stats]),
+                      yy=np.array([s.yy for s in stats]), scale=np.stack([s.xx_scale for s in stats]))
 
 
 #: Bytes of one block of rows in :func:`_accumulate_folds`: small enough that splitting it by

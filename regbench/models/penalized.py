@@ -139,12 +139,20 @@ class Problem:
     def eigen(self):
         """(λ ascending, V) of ``G[live][:, live]``; a wide Gram's null directions are left out."""
         if "pairs" not in self._eig:
-            Gl = self.G[np.ix_(self.live, self.live)]
+            Gl = self.live_gram()
             if self._wide_shape:
                 self._eig["pairs"] = _wide_eigen(Gl)
             else:
                 self._eig["pairs"] = np.linalg.eigh(Gl) if Gl.size else (np.zeros(0), np.zeros((0, 0)))
         return self._eig["pairs"]
+
+    def live_gram(self) -> np.ndarray:
+        """``G[live][:, live]``: G itself when every column is live (read it, never write to it)."""
+        if self.live.all():
+            return self.G
+        if "gram" not in self._eig:
+            self._eig["gram"] = self.G[np.ix_(self.live, self.live)]
+        return self._eig["gram"]
 
     @property
     def evals(self) -> np.ndarray:
@@ -245,7 +253,7 @@ def _ridge_by_factor(problem: Problem, alphas: np.ndarray, out: np.ndarray) -> b
     from scipy.linalg import lapack
 
     live = problem.live
-    Gl = problem.G[np.ix_(live, live)]
+    Gl = problem.live_gram()
     top = float(np.max(np.sum(np.abs(Gl), axis=0), initial=0.0))
     if not np.all((alphas > 0) & (top + alphas <= RIDGE_FACTOR_MAX_COND * alphas)):
         return False
@@ -293,7 +301,7 @@ def enet_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None, tol=Non
         # Far fewer rows than columns: most coefficients are 0 along the path, so each α is
         # solved on the columns the strong rules keep, with a check of the rest (see below).
         init = None if coef_init is None else np.asarray(coef_init, dtype=float)[problem.live]
-        out[:, problem.live] = screened_path(problem.G[np.ix_(problem.live, problem.live)], problem.c[problem.live],
+        out[:, problem.live] = screened_path(problem.live_gram(), problem.c[problem.live],
                                              float(problem.var_y), alphas, l1_ratio, init,
                                              SCREEN_TOL if tol is None else min(tol, SCREEN_TOL))
         if l1_ratio == 1.0:
@@ -301,7 +309,7 @@ def enet_beta(problem: Problem, alphas, l1_ratio: float, coef_init=None, tol=Non
         return out
     # A live column has a standardized variance of 1, so G has a non-null direction: the
     # active-set method needs nothing more, and the factor of G only coordinate descent.
-    Gl = problem.G[np.ix_(problem.live, problem.live)]
+    Gl = problem.live_gram()
     init = None if coef_init is None else np.asarray(coef_init, dtype=float)[problem.live]
     exact = enet_path_gram(Gl, problem.c[problem.live], alphas, l1_ratio, init)
     if exact is not None:
@@ -468,8 +476,18 @@ def _merge_copies(problem: Problem, beta: np.ndarray) -> None:
     live = np.flatnonzero(problem.live)
     if live.size < 2:
         return
-    G = problem.G[np.ix_(live, live)]
+    G = problem.live_gram()
     d = np.sqrt(np.clip(np.diag(G), 0.0, None))
+    # Only weight can move, so when no column a fit uses has a copy nothing changes: the
+    # correlations of those columns decide it (|used| × p work rather than p²).
+    used = np.flatnonzero(np.any(beta[:, live] != 0.0, axis=0))
+    if used.size == 0:
+        return
+    with np.errstate(invalid="ignore", divide="ignore"):
+        Ru = np.abs(G[used] / (d[used][:, None] * d[None, :])) >= 1.0 - COPY_TOL
+    Ru[np.arange(used.size), used] = False
+    if not Ru.any():
+        return
     with np.errstate(invalid="ignore", divide="ignore"):
         R = G / np.outer(d, d)
     close = np.abs(R) >= 1.0 - COPY_TOL

@@ -555,6 +555,9 @@ class FitResults(Result):
     gram: Optional[GramStats] = field(default=None, repr=False, compare=False)
     #: How to gather ``gram`` when it is first needed; None once gathered or when nothing can.
     gram_source: Optional[Callable[[], GramStats]] = field(default=None, repr=False, compare=False)
+    #: The cross-products of each fold from the same pass (``gram`` is their sum), so that held-out
+    #: refits of this design need no second pass; not stored, None when restored from a project.
+    fold_stats: Optional[tuple] = field(default=None, repr=False, compare=False)
 
     def whole_stats(self) -> Optional[GramStats]:
         """``gram``, gathered on first use when these results were restored from a project file.
