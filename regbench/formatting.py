@@ -16,7 +16,7 @@ from __future__ import annotations
 import math
 import numbers
 import re
-from typing import Iterable
+from typing import Iterable, Optional
 
 import numpy as np
 
@@ -165,9 +165,12 @@ def tick_text(v: float) -> str:
     return f"{v:.4g}"
 
 
-def join_words(items: Iterable[str], word: str = "and") -> str:
-    """'a', 'a and b', 'a, b and c' (``word`` may be 'or')."""
+def join_words(items: Iterable[str], word: str = "and", most: Optional[int] = None) -> str:
+    """'a', 'a and b', 'a, b and c' (``word`` may be 'or'); beyond ``most`` items, the first ``most``
+    and how many more ('a, b, c and 997 more'), so a sentence about a wide table stays a sentence."""
     items = list(items)
+    if most is not None and len(items) > most + 1:
+        return ", ".join(items[:most]) + f" {word} {len(items) - most:,} more"
     if len(items) <= 1:
         return "".join(items)
     return ", ".join(items[:-1]) + f" {word} " + items[-1]

@@ -114,3 +114,18 @@ def test_with_the_engine_on_an_exact_alias():
             assert cs.shares[i].sum() == pytest.approx(1.0, rel=1e-12)
     # Ridge shrinks but does not select: its closed form gives no exact zeros (almost surely).
     assert cs.shares[st.models.index("ridge")].min() > 0
+
+
+def test_a_sentence_about_many_overlapping_columns_names_a_few_and_counts_the_rest():
+    """A set of 40 overlapping columns: the sentence names the first NAMED and counts the others (the
+    tables list every one), so on a wide table it stays one sentence."""
+    from regbench.analysis.structure import NAMED, _set_sentence
+    from regbench.formatting import join_words
+
+    group = tuple(f"probe_{j:02d}" for j in range(40))
+    shares = np.full((2, 40), 1 / 40)
+    text = _set_sentence(group, ("ols", "ridge"), shares, (), "Across the overlapping columns")
+    assert text.startswith("Across the overlapping columns " + ", ".join(group[:NAMED]) + f" and {40 - NAMED} more:")
+    assert "probe_39" not in text
+    assert join_words(["a", "b", "c"], most=2) == "a, b and c"   # one name short of the limit: no count
+    assert join_words(list("abcde"), most=2) == "a, b and 3 more"

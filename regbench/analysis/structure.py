@@ -257,6 +257,10 @@ def _most(group, s, n=3) -> str:
     return ", ".join(f"{_pct(s[j])} on {group[j]}" for j in order)
 
 
+#: Columns a sentence names at most; the rest are counted ("s001, …, s006 and 994 more"), the tables list them.
+NAMED = 6
+
+
 def _set_sentence(group, names, shares, aside, lead) -> str:
     k = len(group)
     parts = []
@@ -269,7 +273,7 @@ def _set_sentence(group, names, shares, aside, lead) -> str:
             parts.append(f"{label} uses none of them")
         elif name in ("ols", "logistic") and aside and len(on) + len(aside) == k:
             where = join_words(on) if len(on) <= 3 else f"the other {_count(len(on))} ({_most(group, s)})"
-            parts.append(f"{label} sets {join_words(aside)} aside and puts all the weight on {where}")
+            parts.append(f"{label} sets {join_words(aside, most=NAMED)} aside and puts all the weight on {where}")
         elif len(on) == k:
             parts.append(f"{label} spreads it over all {_count(k)} columns (largest share {_pct(s[top])} on {group[top]})")
         elif len(on) == 1:
@@ -278,7 +282,7 @@ def _set_sentence(group, names, shares, aside, lead) -> str:
             parts.append(f"{label} keeps only {join_words(on)} ({_most(group, s)})")
         else:
             parts.append(f"{label} keeps {_count(len(on))} of the {_count(k)} ({_most(group, s)})")
-    return f"{lead} {join_words(group)}: " + "; ".join(parts) + "."
+    return f"{lead} {join_words(group, most=NAMED)}: " + "; ".join(parts) + "."
 
 
 def _flip_sentence(flips) -> str:

@@ -16,7 +16,7 @@ from typing import Optional, Sequence
 import numpy as np
 
 from regbench.data.derive import Derived, apply_derived
-from regbench.data.identifiers import identifier_reason, looks_like_identifier
+from regbench.data.identifiers import identifier_columns, identifier_reason
 from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC, Table, side_by_side
 from regbench.errors import DataError
 
@@ -278,9 +278,10 @@ def default_predictors(table: Table, roles: Roles) -> tuple:
     number, whole numbers named like an identifier) and was not read as text although it looks
     numeric (see ``ColumnInfo.read_as_text``)."""
     skip = {roles.target, roles.weights, roles.groups, roles.no_count}
+    ids = identifier_columns(table)
     return tuple(
         c for c in table.names
-        if c not in skip and table.columns[c].kind != EMPTY and not looks_like_identifier(table, c)
+        if c not in skip and table.columns[c].kind != EMPTY and c not in ids
         and not table.columns[c].read_as_text
     )
 

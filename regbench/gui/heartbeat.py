@@ -47,10 +47,14 @@ class Heartbeat(QtCore.QObject):
         The GUI thread's CPU time (s) in each of those gaps.
     """
 
-    def __init__(self, parent=None):
+    def __init__(self, parent=None, profile: bool = False):
         super().__init__(parent)
         self.gaps: List[float] = []
         self.cpu: List[float] = []
+        #: With ``profile``: a cProfile of the GUI thread over each gap, the longest one kept.
+        self.profile = profile
+        self._profiler = None
+        self.worst_profile = None
         self._last = time.perf_counter()
         self._last_cpu = time.thread_time()
         self.timer = QtCore.QTimer(self)
@@ -67,13 +71,46 @@ class Heartbeat(QtCore.QObject):
     def reset(self) -> None:
         self.gaps.clear()
         self.cpu.clear()
+        self.worst_profile = None
+        self._restart_profiler()
         self._last, self._last_cpu = time.perf_counter(), time.thread_time()
 
+    def watch(self, stream, after_s: float = 0.1) -> None:
+        """From now on, each tick arms a dump of every thread's Python stack to ``stream`` should the next
+        tick come ``after_s`` late, and every ``after_s`` after that until it comes (so a gap's length shows
+        as its number of dumps).  faulthandler's own thread writes it: it names the call a worker is in
+        while holding the interpreter, which a sampler written in Python could not run during."""
+        self._watch = (stream, after_s)
+        self._arm()
+
+    def _arm(self) -> None:
+        watch = getattr(self, "_watch", None)
+        if watch is not None:
+            import faulthandler
+
+            faulthandler.dump_traceback_later(watch[1], repeat=True, file=watch[0])
+
     def tick(self) -> None:
+        self._arm()
         now, now_cpu = time.perf_counter(), time.thread_time()
-        self.gaps.append(now - self._last)
+        gap = now - self._last
+        if self._profiler is not None:
+            self._profiler.disable()
+            if gap > max(self.gaps, default=0.0):
+                self.worst_profile = self._profiler
+        self.gaps.append(gap)
         self.cpu.append(now_cpu - self._last_cpu)
-        self._last, self._last_cpu = now, now_cpu
+        self._restart_profiler()
+        self._last, self._last_cpu = time.perf_counter(), time.thread_time()
+
+    def _restart_profiler(self) -> None:
+        if self.profile:
+            import cProfile
+
+            if self._profiler is not None:
+                self._profiler.disable()
+            self._profiler = cProfile.Profile()
+            self._profiler.enable()
 
     def worst(self) -> tuple:
         """(longest wall gap, longest GUI-thread CPU chunk) in seconds since :meth:`reset`."""
@@ -83,11 +120,13 @@ class Heartbeat(QtCore.QObject):
 class StallLog:
     """Runs actions on a window under a heartbeat and keeps each action's worst gaps."""
 
-    def __init__(self, window, app):
+    def __init__(self, window, app, profile: bool = False):
         self.window, self.app = window, app
-        self.beat = Heartbeat()
+        self.beat = Heartbeat(profile=profile)
         self.wall: Dict[str, list] = {}
         self.cpu: Dict[str, list] = {}
+        #: With ``profile``: the profile of each action's longest gap over 100 ms, printed by :meth:`profiles`.
+        self.slow: List[tuple] = []
         self.beat.start()
 
     def measure(self, name: str, action: Callable[[], object], timeout_s: float = 180.0) -> None:
@@ -113,6 +152,20 @@ class StallLog:
         wall, cpu = self.beat.worst()
         self.wall.setdefault(name, []).append(wall)
         self.cpu.setdefault(name, []).append(cpu)
+        if self.beat.worst_profile is not None and wall > 0.1:
+            self.slow.append((name, wall, cpu, self.beat.worst_profile))
+
+    def profiles(self, top: int = 25) -> str:
+        """The functions that took most of each slow action's longest gap (cumulative time, GUI thread)."""
+        import io
+        import pstats
+
+        out = io.StringIO()
+        for name, wall, cpu, prof in self.slow:
+            out.write(f"\n== {name}: wall {1000 * wall:.0f} ms, GUI CPU {1000 * cpu:.0f} ms (profiled; "
+                      "the profiler slows Python code)\n")
+            pstats.Stats(prof, stream=out).sort_stats("cumulative").print_stats(top)
+        return out.getvalue()
 
     def lines(self) -> list:
         """One line per action: the worst and median of the per-action worst gaps, wall and GUI CPU."""
@@ -148,9 +201,12 @@ def run_actions(log: StallLog, project: str, rounds: int) -> None:
         w.dirty = False
 
 
-def run_batches(log: StallLog, table: str, budget: int, rounds: int) -> None:
+def run_batches(log: StallLog, table: str, budget: int, rounds: int, bootstrap=None) -> None:
     """Open ``table`` under a memory budget of ``budget`` bytes ``rounds`` times: its first rows, then Fit
-    (the pass over every row on the worker, then the results installed), then every panel."""
+    (the pass over every row on the worker, then the results installed), then every panel.
+
+    ``bootstrap`` (when given) sets the stability refits before each fit, so a wide table's fit
+    finishes in seconds while its panels are measured."""
     from regbench.models.spec import RowSource
 
     w = log.window
@@ -158,6 +214,8 @@ def run_batches(log: StallLog, table: str, budget: int, rounds: int) -> None:
     for _ in range(rounds):
         w.show_panel("data")
         log.measure("open a table in batches", lambda: w.open_path(table, confirmed=True))
+        if bootstrap is not None:
+            w.session.set_bootstrap(bootstrap)
         log.measure("fit a table read in batches", w.fit_pressed, timeout_s=600.0)
         for i, panel in enumerate(w.panels):
             log.measure(f"first visit: {panel.nav}", lambda i=i: w.show_panel(i))
@@ -174,6 +232,13 @@ def main(argv=None) -> int:
     ap.add_argument("--batches", metavar="TABLE",
                     help="instead of a project: open this Parquet or CSV table read in batches, then fit it")
     ap.add_argument("--memory-budget", default="50MB", help="the memory for rows with --batches (default 50MB)")
+    ap.add_argument("--bootstrap", type=int, default=None,
+                    help="with --batches: the stability refits of each fit (default: the session's, 200)")
+    ap.add_argument("--stacks", metavar="FILE",
+                    help="write every thread's Python stack to FILE whenever the GUI thread misses the heartbeat "
+                         "by more than 100 ms (what a worker runs while the window waits)")
+    ap.add_argument("--profile", action="store_true",
+                    help="profile the GUI thread and print what it ran in each action's longest gap over 100 ms")
     args = ap.parse_args(argv)
     from regbench.gui.app import application
     from regbench.gui.window import MainWindow
@@ -183,20 +248,30 @@ def main(argv=None) -> int:
     w.ask_unsaved = lambda: "discard"
     w.resize(1400, 900)
     w.show()
-    log = StallLog(w, app)
+    log = StallLog(w, app, profile=args.profile)
+    stacks = open(args.stacks, "w") if args.stacks else None
+    if stacks is not None:
+        log.beat.watch(stacks)
     if args.batches:
         from regbench.data.stream import parse_size
 
-        run_batches(log, args.batches, parse_size(args.memory_budget), args.rounds)
+        run_batches(log, args.batches, parse_size(args.memory_budget), args.rounds, args.bootstrap)
     else:
         run_actions(log, args.project, args.rounds)
     log.beat.stop()
+    if stacks is not None:
+        import faulthandler
+
+        faulthandler.cancel_dump_traceback_later()
+        stacks.close()
     what = f"{args.batches} read in batches ({args.memory_budget})" if args.batches else args.project
     print(f"GUI-thread stalls (worst gap between {TICK_MS} ms ticks), {args.rounds} rounds, {what}:")
     print("  (wall: the gap a person sees; GUI CPU: the GUI thread's own work in its longest gap, which is what "
           "the gap shrinks to on a quiet machine)")
     for line in log.lines():
         print(line)
+    if args.profile:
+        print(log.profiles())
     w.close()
     QtWidgets.QApplication.processEvents()
     return 0

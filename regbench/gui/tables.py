@@ -97,10 +97,13 @@ class GridModel(QtCore.QAbstractTableModel):
 
     def set_rows(self, rows, headers, row_labels=None, backgrounds=None, foregrounds=None, tips=None, digits=4,
                  percent_cols=()):
-        """Show ``rows``; columns in ``percent_cols`` hold shares (0.962) shown as percentages (96.2 %)."""
+        """Show ``rows``; columns in ``percent_cols`` hold shares (0.962) shown as percentages (96.2 %).
+
+        ``rows`` may be a 2-d array of numbers, kept as it is (a 1,000 × 1,000 grid made into lists of
+        Python floats held the GUI thread for a quarter of a second)."""
         self.beginResetModel()
         self.percent_cols = frozenset(percent_cols)
-        self.rows = [list(r) for r in rows]
+        self.rows = rows if isinstance(rows, np.ndarray) and rows.ndim == 2 else [list(r) for r in rows]
         self.headers = list(headers)
         self.row_labels = list(row_labels) if row_labels is not None else None
         self.backgrounds = backgrounds or {}
@@ -137,11 +140,9 @@ class GridModel(QtCore.QAbstractTableModel):
         if role not in _GRID_ROLES:  # sizing asks for many roles per cell; answer the rest at once
             return None
         r, c = index.row(), index.column()
-        v = self.rows[r][c] if c < len(self.rows[r]) else None
         if role == DISPLAY:
-            if c in self.percent_cols and isinstance(v, (float, int, np.floating, np.integer)) and not isinstance(v, bool):
-                return percent_text(float(v))
-            return fmt(v, self.digits)
+            return self.cell_display(r, c)
+        v = self.rows[r][c] if c < len(self.rows[r]) else None
         if role == ALIGNMENT:
             if isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool):
                 return _RIGHT
@@ -153,6 +154,14 @@ class GridModel(QtCore.QAbstractTableModel):
         if role == TOOLTIP and (r, c) in self.tips:
             return self.tips[(r, c)]
         return None
+
+    def cell_display(self, r: int, c: int) -> str:
+        """The text cell (r, c) shows (what ``data`` answers for the display role; sizing reads it here
+        without making a model index per cell)."""
+        v = self.rows[r][c] if c < len(self.rows[r]) else None
+        if c in self.percent_cols and isinstance(v, (float, int, np.floating, np.integer)) and not isinstance(v, bool):
+            return percent_text(float(v))
+        return fmt(v, self.digits)
 
     def plain_header(self, section: int) -> Optional[str]:
         """A column's header on one line (what Copy and export write)."""
@@ -239,6 +248,8 @@ class FittedTableView(QtWidgets.QTableView):
         check = style.pixelMetric(QtWidgets.QStyle.PM_IndicatorWidth, None, self) + 2 * pad
         widths, self._cells, self._header_lines = [], [], []
         header_width = _header_widths(h)
+        # A grid answers each cell's text directly and has no check boxes.
+        direct = getattr(model, "cell_display", None)
         for c in range(model.columnCount()):
             # A header may take two lines when its column is squeezed: the width of its longer half.
             plain = model.plain_header(c) if hasattr(model, "plain_header") else model.headerData(c, Qt.Horizontal)
@@ -248,6 +259,12 @@ class FittedTableView(QtWidgets.QTableView):
             two = max((fm.horizontalAdvance(line) for line in two_lines(plain).split("\n")), default=0) + margin
             self._header_lines.append((one, min(one, two)))
             w = 0
+            if direct is not None:
+                texts = [direct(r, c) for r in rows]
+                w = max((advance(str(t)) + pad for t in texts if t is not None and t != ""), default=0)
+                self._cells.append(w)
+                widths.append(max(w, one))
+                continue
             for r in rows:
                 idx = model.index(r, c)
                 text = model.data(idx, DISPLAY)

@@ -36,6 +36,9 @@ LABEL_GAP = 13.0
 READOUT_ROWS = 8
 #: Opacity of the read-out's paper: the words read clearly and the curves behind still show.
 READOUT_PAPER = 0.72
+#: Beyond this many paths every path but a highlighted one is drawn :data:`HAIRLINE` wide.
+MANY_PATHS = 60
+HAIRLINE = 1.0
 
 
 @dataclass
@@ -61,6 +64,41 @@ class Prim:
     w: float = 0.0
     h: float = 0.0
     role: str = ""
+
+
+class Points:
+    """A polyline's (x, y) pairs held as one (n, 2) array.
+
+    Reads as a tuple of pairs (iterating, indexing, ``==`` against another or a tuple) without
+    making a pair object per point: a thousand paths of a hundred points each are laid out in
+    milliseconds, and a painter takes :attr:`array` as it is.
+    """
+
+    __slots__ = ("array",)
+
+    def __init__(self, array: np.ndarray):
+        self.array = array
+
+    def __len__(self) -> int:
+        return len(self.array)
+
+    def __iter__(self):
+        return iter(map(tuple, self.array.tolist()))
+
+    def __getitem__(self, i):
+        return tuple(self.array[i].tolist())
+
+    def __eq__(self, other) -> bool:
+        if isinstance(other, Points):
+            return bool(np.array_equal(self.array, other.array))
+        if isinstance(other, tuple):
+            return tuple(self) == other
+        return NotImplemented
+
+    __hash__ = None
+
+    def __repr__(self) -> str:
+        return f"Points({len(self)} pairs)"
 
 
 @dataclass
@@ -363,21 +401,29 @@ def _paths(c: _Layout) -> None:
     P.append(Prim("text", ((fig.x0 + 4, r_paths[1] + 11),), text=c.d.ylabel, fill=muted))
 
     c.colours = colours = {col: series_colour(j) for j, col in enumerate(c.cols)}
+    every = Yp(coef[c.order])           # every path's pixel heights at once, one column per path
     for j, col in enumerate(c.cols):
-        ys = np.array([Yp(v) for v in coef[c.order, j]])
+        ys = every[:, j]
         ok = np.isfinite(ys)
         fig.curves[col] = (c.xs[ok], ys[ok])
+    # A crowd of paths is drawn in hairlines: they keep apart where thicker lines merge into one
+    # band, and a painter strokes a hairline several times faster than a wider line.
+    full, dimmed = (HAIRLINE, HAIRLINE) if c.p > MANY_PATHS else (1.5, 1.1)
     drawing = [col for col in c.cols if col != hl] + ([hl] if hl else [])
     for col in drawing:
         cx, cy = fig.curves[col]
         if len(cx) < 2:
             continue
         if hl is None:
-            P.append(Prim("line", tuple(zip(cx, cy)), stroke=colours[col], width=1.5, role=f"curve:{col}"))
+            P.append(Prim("line", _pairs(cx, cy), stroke=colours[col], width=full, role=f"curve:{col}"))
         elif col == hl:
-            P.append(Prim("line", tuple(zip(cx, cy)), stroke=colours[col], width=2.8, role=f"curve:{col}"))
+            P.append(Prim("line", _pairs(cx, cy), stroke=colours[col], width=2.8, role=f"curve:{col}"))
         else:
-            P.append(Prim("line", tuple(zip(cx, cy)), stroke=faint, width=1.1, role=f"curve:{col}"))
+            P.append(Prim("line", _pairs(cx, cy), stroke=faint, width=dimmed, role=f"curve:{col}"))
+
+
+def _pairs(xs: np.ndarray, ys: np.ndarray) -> "Points":
+    return Points(np.column_stack((np.asarray(xs, dtype=float), np.asarray(ys, dtype=float))))
 
 
 def _end_labels(c: _Layout) -> None:
@@ -386,7 +432,8 @@ def _end_labels(c: _Layout) -> None:
     muted, faint = PALETTE["muted"], PALETTE["faint"]
     ends = {col: fig.curves[col][1][-1] for col in cols if len(fig.curves[col][1])}
     room = int((r_paths[3] - r_paths[1]) // LABEL_GAP) + 1
-    ranked = sorted(ends, key=lambda col: (col != hl, -abs(c.coef[c.order[-1], cols.index(col)])))
+    last = dict(zip(cols, np.abs(c.coef[c.order[-1]]).tolist()))   # each path's size at its end
+    ranked = sorted(ends, key=lambda col: (col != hl, -last[col]))
     shown = [col for col in ranked[:room]]
     placed = spread([ends[col] for col in shown], r_paths[1] + 6, r_paths[3] - 6)
     lab_x = fig.x1 + 8
@@ -400,8 +447,10 @@ def _end_labels(c: _Layout) -> None:
                       bold=(col == hl), opacity=1.0 if (hl is None or col == hl) else 0.75, role=f"label:{col}"))
         fig.labels[col] = (lab_x, yy - 7, text_width(text), 14.0)
     if len(shown) < len(ends):
-        P.append(Prim("text", ((lab_x, r_paths[3] + 8),), text=f"+{len(ends) - len(shown)} more (click a curve)",
-                      fill=muted, size=10))
+        text = f"+{len(ends) - len(shown)} more (click a curve)"
+        # Short column names leave a narrow label margin: the note then ends at the figure's edge.
+        x, anchor = (lab_x, "start") if lab_x + text_width(text, 10) <= fig.width - 4 else (fig.width - 4, "end")
+        P.append(Prim("text", ((x, r_paths[3] + 8),), text=text, fill=muted, size=10, anchor=anchor))
 
 
 def _strip(c: _Layout) -> None:

@@ -6,6 +6,7 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
+from regbench.gui.axislabels import name_categories
 from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.style import PALETTE, keep_legend_above, model_colour, plain_axes
 from regbench.gui.tables import GridModel, WARN_BG, make_view
@@ -170,7 +171,6 @@ class CoefficientsPanel(Panel):
                                   brush=model_colour(n), pen=None)
             self.plot.addItem(bar)
             legend.addItem(bar, model_label(n))
-        ticks = [(p - 1 - i, c) for i, c in enumerate(cols)]
-        self.plot.getAxis("left").setTicks([ticks])
+        name_categories(self.plot, "left", np.arange(p)[::-1], cols)
         self.plot.addItem(pg.InfiniteLine(pos=0, angle=90, pen=pg.mkPen(PALETTE["muted"])))
         keep_legend_above(self.plot, -0.6, p - 0.5)  # the bars, and a band above them for the legend

@@ -2,13 +2,12 @@
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pyqtgraph as pg
 from PySide6 import QtCore, QtGui, QtWidgets
 
 from regbench.analysis.correlation import correlation_map
+from regbench.gui.axislabels import name_categories
 from regbench.gui.panels.base import Panel, caption
 from regbench.gui.style import CORR_STOPS, PALETTE, plain_axes
 from regbench.gui.tables import GridModel, WARN_BG, make_view
@@ -67,7 +66,6 @@ class OverlapsPanel(Panel):
         rl.addWidget(self.glw, 1)
         rl.addWidget(self.corr_readout)
         self.glw.scene().sigMouseMoved.connect(self._hover)
-        self.corr_plot.vb.sigResized.connect(self._label_corr)
         self.tabs.addTab(corr, "Correlation map")
         ci = QtWidgets.QWidget()
         cl = QtWidgets.QVBoxLayout(ci)
@@ -77,6 +75,9 @@ class OverlapsPanel(Panel):
         cl.addWidget(caption("Condition indices (worst first) with each term's share of its variance"))
         cl.addWidget(self.ci_view, 1)
         self.tabs.addTab(ci, "Condition indices")
+        self.ci_tab = ci
+        self._ci_waiting = None
+        self.tabs.currentChanged.connect(lambda *_: self._fill_ci())
         split = QtWidgets.QSplitter(Qt.Horizontal)
         split.addWidget(left)
         split.addWidget(self.tabs)
@@ -105,6 +106,7 @@ class OverlapsPanel(Panel):
             self.aside_text.clear()
             self.vif_model.set_rows([], [])
             self.ci_model.set_rows([], [])
+            self._ci_waiting = None
             self.set_sentences(["Fit the models to see which columns OLS sets aside."])
             return
         ols, diag = results.ols, results.diagnostics
@@ -126,21 +128,35 @@ class OverlapsPanel(Panel):
                 bg[(i, 1)] = WARN_BG
         self.vif_model.set_rows(rows, ["Column", "VIF", "Mostly explained by", "R² of that"], backgrounds=bg)
         self.vif_view.resizeColumnsToContents()
-        ci = np.asarray(diag.condition_indices)
-        vp = np.asarray(diag.variance_proportions)
-        order = np.argsort(ci)[::-1]  # the worst dimension first
-        rows, bg = [], {}
-        for r, i in enumerate(order):
-            rows.append([float(ci[i])] + [float(v) for v in vp[i]])
-            if ci[i] > CI_STRONG:
-                bg[(r, 0)] = WARN_BG
-                for j, v in enumerate(vp[i]):
-                    if v > SHARE_STRONG:
-                        bg[(r, j + 1)] = WARN_BG
-        self.ci_model.set_rows(rows, ["Condition index"] + list(diag.terms), backgrounds=bg, digits=3)
-        self.ci_view.resizeColumnsToContents()
+        # The condition indices' tab is filled when it is brought forward, or a turn later.
+        self._ci_waiting = diag
+        if self.tabs.currentWidget() is self.ci_tab:
+            self._fill_ci()
+        else:
+            self.defer(self._fill_ci)
         sentences = list(diag.sentences[:2]) or [sa.sentence() for sa in ols.set_aside[:2]]
         self.set_sentences(sentences or ["No column overlaps strongly with the others."])
+
+    def clear(self):
+        super().clear()
+        self._ci_waiting = None
+
+    def _fill_ci(self):
+        """Fill the condition indices' table if it waits: one array, the worst dimension first."""
+        diag, self._ci_waiting = self._ci_waiting, None
+        if diag is None:
+            return
+        ci = np.asarray(diag.condition_indices, dtype=float)
+        vp = np.asarray(diag.variance_proportions, dtype=float).reshape(len(ci), -1)
+        order = np.argsort(ci)[::-1]
+        grid = np.column_stack([ci[order], vp[order]])
+        # Belsley, Kuh & Welsch's marks: a large index, and the shares above one half on its row.
+        strong = ci[order] > CI_STRONG
+        bg = {(int(r), 0): WARN_BG for r in np.flatnonzero(strong)}
+        rs, js = np.nonzero(strong[:, None] & (vp[order] > SHARE_STRONG))
+        bg.update({(int(r), int(j) + 1): WARN_BG for r, j in zip(rs, js)})
+        self.ci_model.set_rows(grid, ["Condition index"] + list(diag.terms), backgrounds=bg, digits=3)
+        self.ci_view.resizeColumnsToContents()
 
     def _draw_corr(self, cmap):
         """Draw a correlation map computed on the worker (None: nothing to draw)."""
@@ -155,25 +171,13 @@ class OverlapsPanel(Panel):
         self._corr, self._corr_cols = C, cmap.columns
         self.image.setImage(np.nan_to_num(C.T), levels=(-1, 1))
         p = len(cmap.columns)
-        self._corr_short = [c if len(c) <= 18 else c[:16] + "…" for c in cmap.columns]
+        short = [c if len(c) <= 18 else c[:16] + "…" for c in cmap.columns]
         self.corr_plot.setRange(xRange=(0, p), yRange=(0, p), padding=0)
-        self._label_corr()
-
-    def _label_corr(self, *_):
-        """Names down the side, their numbers along the bottom (long names would collide there); when the
-        map's height or width cannot hold every one a line of text apart, every k-th only (on each resize)."""
-        short = getattr(self, "_corr_short", None)
-        if not short:
-            return
-        p = len(short)
-        vb = self.corr_plot.vb
-        height, width = max(float(vb.height()), 1.0), max(float(vb.width()), 1.0)
-        left, bottom = self.corr_plot.getAxis("left"), self.corr_plot.getAxis("bottom")
-        fm = QtGui.QFontMetrics(left.style.get("tickFont") or QtWidgets.QApplication.font())
-        side = max(1, math.ceil(p * (fm.height() + 1) / height))
-        bottom_step = max(1, math.ceil(p * (fm.horizontalAdvance(str(p)) + 6) / width))
-        left.setTicks([[(j + 0.5, f"{short[j]}  {j + 1}") for j in range(0, p, side)]])
-        bottom.setTicks([[(j + 0.5, str(j + 1)) for j in range(0, p, bottom_step)]])
+        # Names down the side, their numbers along the bottom (long names would collide there); as many
+        # as fit a line of text (or a number) apart, chosen again on every resize.
+        centres = np.arange(p) + 0.5
+        name_categories(self.corr_plot, "left", centres, [f"{short[j]}  {j + 1}" for j in range(p)])
+        name_categories(self.corr_plot, "bottom", centres, [str(j + 1) for j in range(p)])
 
     def _hover(self, pos):
         if self._corr is None:

@@ -18,10 +18,11 @@ from PySide6 import QtCore, QtGui, QtWidgets
 
 from regbench.analysis.ranges import KIND_HELDOUT, QUADRATIC_WORDS, ranges_unavailable
 from regbench.data.identifiers import row_label_column, row_names, with_row_names
+from regbench.gui.axislabels import name_categories
 from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.style import PALETTE, keep_legend_above, model_colour, plain_axes
 from regbench.formatting import number_text
-from regbench.gui.tables import DISPLAY, GridModel, make_view
+from regbench.gui.tables import GridModel, make_view
 from regbench.models.coding import design_sd
 from regbench.models.results import model_label
 
@@ -36,17 +37,25 @@ SYMBOLS = {"ols": "|", "ridge": "o", "lasso": "d", "elastic_net": "t"}
 STRIP_ROWS = 2000
 SETTLED = "#2f6f73"
 OPEN = "#d4a017"
+#: Bands with no bound carry the words "no bound" up to this many columns (then a line of text each
+#: would overlap the next).
+WORDED_BANDS = 40
+
+
+def _see_through(colour: str, alpha: int) -> QtGui.QBrush:
+    fill = QtGui.QColor(colour)
+    fill.setAlpha(alpha)
+    return QtGui.QBrush(fill)
 
 
 class _Grid(GridModel):
     """Numbers with significant digits (a coefficient of 0.00014 must not read as 0)."""
 
-    def data(self, index, role=Qt.DisplayRole):
-        if role == DISPLAY:
-            v = self.value(index.row(), index.column()) if index.column() < len(self.rows[index.row()]) else None
-            if isinstance(v, (float, np.floating)):
-                return number_text(v, self.digits, missing="")
-        return super().data(index, role)
+    def cell_display(self, r, c):
+        v = self.value(r, c) if c < len(self.rows[r]) else None
+        if isinstance(v, (float, np.floating)):
+            return number_text(v, self.digits, missing="")
+        return super().cell_display(r, c)
 
 
 class RangesPanel(Panel):
@@ -196,16 +205,25 @@ class RangesPanel(Panel):
         self.trades.setText("\n".join(t["sentence"] for t in rg.trades) + (
             "\n" + " ".join(rg.sentences[2:]) if len(rg.sentences) > 2 else ""))
         self.trades.setVisible(bool(self.trades.text().strip()))
-        # A fit on every level of a category sits here as the same predictor on the design's columns.
-        sd = design_sd(session.design, session.results)
-        models = {k: m.on_design(sd) for k, m in session.models().items()}
         self._fill_tables(rg)
         # The plots come a turn each after the shown table, so no piece of the drawing holds the window long;
         # each is painted once drawn, in a turn of its own, not with the table in the panel's first paint.
         self._hold_paint(getattr(self.window_, "draw_in_steps", False))
-        self.defer(self._draw_bars, rg, models)
+        # The design's SDs (a pass over its rows when the fit kept no cross-products) come from the worker.
+        design, results = session.design, session.results
+        self.prepare(self._draw_bands, design, lambda: design_sd(design, results),
+                     "Measuring each column's spread")
         self.defer(self._draw_strip, rg)
         self._fill_hidden_tables()
+
+    def _draw_bands(self, sd):
+        """The bands and the fits on them, with the design's SDs ``sd``."""
+        session = self.session
+        rg = session.ranges() if session is not None and session.results is not None else None
+        if rg is None:
+            return
+        # A fit on every level of a category sits here as the same predictor on the design's columns.
+        self._draw_bars(rg, {k: m.on_design(sd) for k, m in session.models().items()})
 
     def _draw_bars(self, rg, models):
         plot = self.bars
@@ -223,32 +241,25 @@ class RangesPanel(Panel):
         lo, hi = float(cat.min()), float(cat.max())
         span = (hi - lo) or 1.0
         lo, hi = lo - 0.05 * span, hi + 0.05 * span
-        for j in range(p):
-            y = ys[j]
-            if rg.bounded[j]:
-                colour = SETTLED if rg.sign_settled[j] else OPEN
-                a, b = float(rg.low_std[j]), float(rg.high_std[j])
-                item = QtWidgets.QGraphicsRectItem(a, y - 0.22, max(b - a, 1e-12), 0.44)
-                c = QtGui.QColor(colour)
-                fill = QtGui.QColor(c)
-                fill.setAlpha(80)
-                item.setBrush(QtGui.QBrush(fill))
-                pen = QtGui.QPen(c)
-                pen.setCosmetic(True)
-                item.setPen(pen)
-            else:
-                item = QtWidgets.QGraphicsRectItem(lo, y - 0.22, hi - lo, 0.44)
-                c = QtGui.QColor(PALETTE["warn"])
-                fill = QtGui.QColor(c)
-                fill.setAlpha(22)
-                item.setBrush(QtGui.QBrush(fill))
-                pen = QtGui.QPen(c, 1, Qt.DashLine)
-                pen.setCosmetic(True)
-                item.setPen(pen)
-                text = pg.TextItem("no bound", color=PALETTE["warn"], anchor=(1, 0.5))
-                text.setPos(hi, y + 0.32)
-                plot.addItem(text)
-            plot.addItem(item)
+        # One item per kind of band (sign settled, sign open, no bound), each holding every column's band:
+        # a thousand rectangle items took a tenth of a second to add and as long to paint.
+        bounded, settled = np.asarray(rg.bounded, bool), np.asarray(rg.sign_settled, bool)
+        low, high = np.asarray(rg.low_std, float), np.asarray(rg.high_std, float)
+        for mask, colour in ((bounded & settled, SETTLED), (bounded & ~settled, OPEN)):
+            if mask.any():
+                plot.addItem(pg.BarGraphItem(x0=low[mask], width=np.maximum(high[mask] - low[mask], 1e-12),
+                                             y=ys[mask], height=0.44, brush=_see_through(colour, 80),
+                                             pen=pg.mkPen(colour, width=1)))
+        free = ~bounded
+        if free.any():
+            plot.addItem(pg.BarGraphItem(x0=np.full(int(free.sum()), lo), width=hi - lo, y=ys[free], height=0.44,
+                                         brush=_see_through(PALETTE["warn"], 22),
+                                         pen=pg.mkPen(PALETTE["warn"], width=1, style=Qt.DashLine)))
+            if p <= WORDED_BANDS:   # beyond, the words would run together; the table says "no bound"
+                for j in np.flatnonzero(free):
+                    text = pg.TextItem("no bound", color=PALETTE["warn"], anchor=(1, 0.5))
+                    text.setPos(hi, ys[j] + 0.32)
+                    plot.addItem(text)
         zero = pg.InfiniteLine(pos=0, angle=90, pen=pg.mkPen(PALETTE["text"], width=1))
         plot.addItem(zero)
         for name, m in models.items():
@@ -260,7 +271,7 @@ class RangesPanel(Panel):
                                     pen=pg.mkPen(model_colour(name), width=2), brush=brush)
             plot.addItem(sc)
             legend.addItem(sc, model_label(name))
-        plot.getAxis("left").setTicks([[(ys[j], cols[j]) for j in range(p)]])
+        name_categories(plot, "left", ys, cols)
         plot.setLabel("bottom", "standardized log-odds coefficient (per SD of the column)"
                       if rg.outcome == "binary" else "standardized coefficient (per SD of the column)")
         plot.setXRange(lo, hi, padding=0)

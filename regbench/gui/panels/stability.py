@@ -6,6 +6,7 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6 import QtCore, QtWidgets
 
+from regbench.gui.axislabels import name_categories
 from regbench.gui.panels.base import Panel, caption, hbox
 from regbench.gui.style import PALETTE, keep_legend_above, model_colour, plain_axes
 from regbench.gui.tables import GridModel, make_view
@@ -125,6 +126,6 @@ class StabilityPanel(Panel):
             bar = pg.BarGraphItem(x0=np.zeros(p), y=y, height=height * 0.9, width=a, brush=colour, pen=None)
             self.plot.addItem(bar)
             legend.addItem(bar, label)
-        self.plot.getAxis("left").setTicks([[(p - 1 - i, c) for i, c in enumerate(cols)]])
+        name_categories(self.plot, "left", np.arange(p)[::-1], cols)
         self.plot.setXRange(0, 1.0, padding=0.06)  # the bars at 1 stay clear of the edge
         keep_legend_above(self.plot, -0.6, p - 0.5)  # the bars, and a band above them for the legend
