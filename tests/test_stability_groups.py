@@ -7,6 +7,8 @@ probabilities and stacked copies) given the same seeded draws, and numpy sums on
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
@@ -114,3 +116,23 @@ def test_ordered_choice_keeps_every_independent_column_in_walk_order():
     S = st.centered_xx() / st.W / np.outer(size, size)
     assert ordered_choice(S, [3], 1e-6, sd) == [3, 0, 1, 2, 4]
     assert tuple(d.columns[j] for j in (0, 1, 2, 3, 4)) == fit_ols(d).kept
+
+
+@pytest.mark.parametrize("weighted", [True, False])
+def test_row_draws_from_cross_products_equal_row_refits(weighted):
+    # Source: the row route (every refit on the re-weighted rows, OLS by a factor of the rows) on the same draws.
+    d = _design(weighted=weighted)
+    d = replace(d, groups=None, groups_column=None)
+    settings = FitSettings()
+    alphas = {"ridge": 0.5, "lasso": 0.05, "elastic_net": 0.08}
+    a = bootstrap_stability(d, settings, alphas, n_boot=30, seed=3)  # 'auto': cross-products per draw
+    b = bootstrap_stability(d, settings, alphas, n_boot=30, seed=3, method="rows")
+    assert a.models == b.models and not a.grouped
+    for k in a.models:
+        np.testing.assert_array_equal(a.selected_freq[k], b.selected_freq[k])
+        scale = np.abs(b.coef_draws[k]).max()
+        np.testing.assert_allclose(a.coef_draws[k], b.coef_draws[k], atol=1e-8 * scale)
+    np.testing.assert_array_equal(a.set_aside_freq, b.set_aside_freq)
+    assert a.set_aside_freq[6] == 1.0 and a.set_aside_freq[7] == 0.0
+    assert np.any((a.selected_freq["lasso"] > 0) & (a.selected_freq["lasso"] < 1))
+    assert a.sentences == b.sentences

@@ -36,7 +36,7 @@ import numpy as np
 
 from regbench.errors import ModelError
 from regbench.models.engine import alpha_for, families, gram_solve, problem_for, relaxation_for
-from regbench.models.gram import GramStats, GroupStack, per_group
+from regbench.models.gram import GramStats, GroupStack, gram_stats, per_group
 from regbench.models.coding import LevelCoding
 from regbench.models.ols import default_rank_tol, fit_ols
 from regbench.models.penalized import model_from_problem
@@ -156,9 +156,17 @@ class GroupRefits:
             return None  # ridge is solved in closed form
         if name not in self._whole:
             coding = LevelCoding.of(self.design)
-            problem = problem_for(self.stats(np.ones(self.n_groups)), self.design, self.settings)
+            problem = problem_for(self._whole_stats(), self.design, self.settings)
             self._whole[name] = model_from_problem(problem, name, rho, alpha, coding.names).coef_std
         return self._whole[name]
+
+    def _whole_stats(self) -> GramStats:
+        """The cross-products of the whole design (every group once)."""
+        return self.stats(np.ones(self.n_groups))
+
+    def _n_pos(self, counts) -> int:
+        """Rows with weight above 0 in the draw (for the default rank tolerance)."""
+        return int(round(np.asarray(counts) @ self.n_pos))
 
     def _ols(self, st: GramStats, counts, problem=None) -> LinearModel:
         design = self.design
@@ -173,7 +181,7 @@ class GroupRefits:
         # Co-moments of the columns at unit RMS: G rescaled (a column with sd 0 is never walked).
         e = sd / size
         S = G * e[:, None] * e[None, :]
-        n_pos = int(round(np.asarray(counts) @ self.n_pos))
+        n_pos = self._n_pos(counts)
         tol = default_rank_tol(n_pos, p) if self.settings.rank_tol is None else float(self.settings.rank_tol)
         order, L = _choice_and_factor(S, self.pin_idx, max(tol, GRAM_RANK_TOL), sd)
         coef = np.zeros(p)
@@ -198,6 +206,55 @@ class GroupRefits:
         d = self.design
         w = d.weights * np.asarray(counts, dtype=np.float64)[d.groups]
         return fit_ols(replace(d, weights=w), self.settings.pins, self.settings.rank_tol).model
+
+
+class RowRefits(GroupRefits):
+    """Refit every model at fixed α on a draw of single rows, from the draw's cross-products.
+
+    A draw of rows (no groups) changes every row's weight, so each refit takes one weighted
+    pass over the rows (``XᵀWX``, a ``syrk``) and then the p×p solves of :class:`GroupRefits`:
+    OLS from a factor of the cross-products (on the rows when its kept columns are badly
+    conditioned, :data:`regbench.models.engine.GRAM_COND_LIMIT`), the penalized families as
+    the fit solves them.  A refit of OLS on the rows instead factors the rows (a QR, several
+    times the pass on a wide table).
+
+    ``counts`` are per row (:func:`regbench.analysis.stability.resample_counts`).
+    """
+
+    def __init__(self, design, settings, alphas: dict, relaxations=None):
+        self.design = design
+        self.settings = settings
+        self.families = [(name, float(rho), float(alpha_for(name, alphas, settings)),
+                          relaxation_for(settings, name, relaxations)) for name, rho in families(settings)]
+        self.on_rows = True
+        self.from_cross_products = 0
+        self.pin_idx = [design.columns.index(c) for c in dict.fromkeys(settings.pins) if c in design.columns]
+        self._whole = {}
+        w = design.weights
+        W = float(w.sum())
+        if not W > 0:
+            raise ModelError("the rows being fitted have total weight 0; there is nothing to fit")
+        # One reference point for every draw, the whole design's means, so each draw's sums keep their digits.
+        self.shift = ((w @ design.X) / W, float(w @ design.y) / W)
+
+    def stats(self, counts: np.ndarray, xx: np.ndarray = None) -> GramStats:
+        d = self.design
+        return gram_stats(d.X, d.y, d.weights * np.asarray(counts, dtype=np.float64), shift=self.shift)
+
+    def _whole_stats(self) -> GramStats:
+        return self.stats(np.ones(self.design.n))
+
+    def _n_pos(self, counts) -> int:
+        return int(np.count_nonzero((np.asarray(counts) > 0) & (self.design.weights > 0)))
+
+    def flat(self, counts: np.ndarray) -> bool:
+        drawn = self.design.y[(np.asarray(counts) > 0) & (self.design.weights > 0)]
+        return bool(drawn.size == 0 or np.ptp(drawn) == 0)
+
+    def _ols_on_rows(self, counts) -> LinearModel:
+        d = self.design
+        return fit_ols(replace(d, weights=d.weights * np.asarray(counts, dtype=np.float64)), self.settings.pins,
+                       self.settings.rank_tol).model
 
 
 def ordered_choice(S: np.ndarray, pin_idx, tol: float, sd: np.ndarray) -> list:

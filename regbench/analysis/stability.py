@@ -29,7 +29,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from regbench.analysis.agreement import in_sentence, json_number
-from regbench.analysis.group_refits import GroupRefits
+from regbench.analysis.group_refits import GroupRefits, RowRefits
 from regbench.errors import DataError, ModelError
 from regbench.formatting import join_words
 from regbench.models.engine import fit_models_at
@@ -143,7 +143,10 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
         ``'groups'`` refits from the cross-products of each group, re-weighted by
         how often the draw took it (p×p work per refit, :mod:`regbench.analysis.group_refits`);
         ``'rows'`` refits on the re-weighted rows.  ``'auto'`` uses the groups
-        when the design has them.  Given the same draws both give the same models,
+        when the design has them; without groups (a numeric target) each refit takes
+        the drawn rows' cross-products in one weighted pass and solves as the groups
+        route does (:class:`~regbench.analysis.group_refits.RowRefits`), where
+        ``'rows'`` factors the rows for OLS.  Given the same draws all give the same models,
         except that OLS, working from cross-products, sets a column aside when what
         is left of it is within :data:`~regbench.analysis.group_refits.GRAM_RANK_TOL`
         of its size (the rows resolve down to round-off).
@@ -166,8 +169,8 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
     if method not in ("auto", "groups", "rows"):
         raise ValueError(f"method: '{method}' is not one of auto, groups, rows")
     # A yes/no outcome's logistic models are not least-squares problems: they refit on the rows.
-    by_groups = (design.groups is not None and method in ("auto", "groups")
-                 and getattr(design, "outcome", "numeric") != "binary")
+    numeric = getattr(design, "outcome", "numeric") != "binary"
+    by_groups = design.groups is not None and method in ("auto", "groups") and numeric
     if method == "groups" and design.groups is None:
         raise DataError("stability from group cross-products needs a group column")
     if group_sums is not None:
@@ -175,13 +178,15 @@ def bootstrap_stability(design, settings, alphas: dict, n_boot: int = 200, seed:
             raise ValueError("group_sums: refits from every group's statistics need method 'auto' or 'groups', "
                              "a design with groups and the fit's own OLS")
         by_groups = True
+    # Draws of single rows of a numeric target: one weighted pass per refit, then p×p solves (RowRefits).
+    by_sums = method == "auto" and numeric and not by_groups
     with one_blas_thread():
         return _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups, relaxations, full_ols,
-                          group_sums)
+                          group_sums, by_sums)
 
 
 def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_groups, relaxations=None,
-               full_ols=None, group_sums=None) -> Stability:
+               full_ols=None, group_sums=None, by_sums=False) -> Stability:
     rng = np.random.default_rng(seed)
     draws = None
     names = None
@@ -189,6 +194,7 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
     refitter = None
     if by_groups:
         refitter = GroupRefits(design, settings, alphas, relaxations, sums=group_sums)
+    rows_refitter = RowRefits(design, settings, alphas, relaxations) if by_sums else None
     separated = 0
     ready = []  # draws of groups made ahead, in the order the generator gives them
     for b in range(n_boot):
@@ -200,6 +206,10 @@ def _bootstrap(design, settings, alphas, n_boot, seed, progress, cancel, by_grou
                 per_group, xx = ready.pop(0)
                 flat += int(refitter.flat(per_group))
                 models = refitter.refit(per_group, xx)
+            elif rows_refitter is not None:
+                counts = resample_counts(design, rng)
+                flat += int(rows_refitter.flat(counts))
+                models = rows_refitter.refit(counts)
             else:
                 counts = resample_counts(design, rng)
                 drawn = design.y[(counts > 0) & (design.weights > 0)]
