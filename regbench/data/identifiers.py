@@ -19,6 +19,7 @@ A count that starts elsewhere (years 1947, 1948, …) is a trend, not a row numb
 from __future__ import annotations
 
 import re
+import weakref
 from typing import Optional
 
 import numpy as np
@@ -92,7 +93,25 @@ def looks_like_identifier(table: Table, column: str) -> bool:
 
 
 def identifier_columns(table: Table) -> dict:
-    """Every column of ``table`` that looks like an identifier, with its reason (in table order)."""
+    """Every column of ``table`` that looks like an identifier, with its reason (in table order).
+
+    A table is read-only, so the answer is kept for the last few tables asked about: the window asks
+    three times for one table each time it loads the roles (on opening, on every undo)."""
+    for ref, answer in _KEPT:
+        if ref() is table:
+            return dict(answer)
+    out = _identifier_columns(table)
+    _KEPT.insert(0, (weakref.ref(table), dict(out)))
+    del _KEPT[_KEEP:]
+    return out
+
+
+#: (weak reference to a table, its identifier columns), most recent first.
+_KEPT: list = []
+_KEEP = 4
+
+
+def _identifier_columns(table: Table) -> dict:
     out = {}
     fractional = _fractional_heads(table)
     for c in table.names:

@@ -103,13 +103,16 @@ class CoefficientsPanel(Panel):
                 if by_group:
                     row.append(float(getattr(ols, "cluster_intercept_se", float("nan"))))
         rows.append(row)
+        # Each model's coefficients over the columns at once (a name looked up per cell is p² work).
+        values = {n: aligned(models[n], cols, standardized=std).tolist() for n in names}
+        carried = {n: frozenset(models[n].columns) for n in names}
         for i, c in enumerate(cols):
             row = []
             for n in names:
                 m = models[n]
-                v = m.coefficient(c, standardized=std)
+                v = values[n][i]
                 k = len(row)
-                if c not in m.columns:
+                if c not in carried[n]:
                     row += ["reference"] + ([None] * len(ols_extra) if n == unpen else [])
                     fg[(i, k)] = PALETTE["muted"]
                     tips[(i, k)] = (f"{c} is the level {model_label(n)} measures the other levels of its category "

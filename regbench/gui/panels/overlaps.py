@@ -156,6 +156,10 @@ class OverlapsPanel(Panel):
         rs, js = np.nonzero(strong[:, None] & (vp[order] > SHARE_STRONG))
         bg.update({(int(r), int(j) + 1): WARN_BG for r, j in zip(rs, js)})
         self.ci_model.set_rows(grid, ["Condition index"] + list(diag.terms), backgrounds=bg, digits=3)
+        # Sizing reads a few rows of every column (6,000 texts for 1,000 terms): a turn of its own.
+        self.defer(self._size_ci)
+
+    def _size_ci(self):
         self.ci_view.resizeColumnsToContents()
 
     def _draw_corr(self, cmap):
