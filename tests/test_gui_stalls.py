@@ -178,6 +178,10 @@ class _Counting(GridModel):
             self.cells += 1
         return super().data(index, role)
 
+    def cell_display(self, r, c):   # sizing reads a cell's text here, without a model index
+        self.cells += 1
+        return super().cell_display(r, c)
+
     def headerData(self, section, orientation, role=QtCore.Qt.DisplayRole):
         self.headers_asked += 1
         return super().headerData(section, orientation, role)
@@ -198,6 +202,13 @@ def test_sizing_a_wide_grid_reads_a_bounded_number_of_cells_and_headers(qtbot):
     assert model.headers_asked <= 3 * p + 100   # Qt's own size hint asks each header for many roles
     # Every column still fits its header's text (Qt's size for it) and its widest sampled cell.
     header = view.horizontalHeader()
+    assert all(header.sectionSize(c) >= header.sectionSizeHint(c) for c in range(p))
+    # A grid of 1,000 columns reads at most SIZE_CELLS_WIDE cells (two rows each), and fits every header.
+    p = 1000
+    model.set_rows(rng.normal(size=(8, p)), [f"c{j:03d}" for j in range(p)], digits=3)
+    model.cells = 0
+    view.resizeColumnsToContents()
+    assert 0 < model.cells <= tables.SIZE_CELLS_WIDE + p
     assert all(header.sectionSize(c) >= header.sectionSizeHint(c) for c in range(p))
 
 
