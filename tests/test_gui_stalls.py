@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import os
 import threading
+import time
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
 
@@ -380,3 +381,34 @@ def test_the_window_sets_the_loaded_libraries_aside_from_full_collections(qtbot)
     finally:
         gc.unfreeze()
         release_the_cores()
+
+
+def test_the_stall_harness_names_what_ran_while_the_gui_thread_was_late(qtbot, tmp_path):
+    """The heartbeat keeps a profile of its longest gap and, when watching, writes every thread's stack
+    while the GUI thread is late: a drawing that holds the thread 300 ms shows up by name in both."""
+    import pstats
+
+    from regbench.gui.heartbeat import Heartbeat
+
+    def slow_drawing():
+        time.sleep(0.3)
+
+    beat = Heartbeat(profile=True)
+    dumps = open(tmp_path / "stacks.txt", "w")
+    beat.start()
+    beat.watch(dumps)
+    try:
+        QtCore.QTimer.singleShot(20, slow_drawing)
+        qtbot.wait(500)
+    finally:
+        beat.stop()
+        import faulthandler
+
+        faulthandler.cancel_dump_traceback_later()
+        dumps.close()
+    wall, _cpu = beat.worst()
+    assert wall >= 0.3
+    names = {func for (_file, _line, func) in pstats.Stats(beat.worst_profile).stats}
+    assert "slow_drawing" in names
+    text = (tmp_path / "stacks.txt").read_text()
+    assert "slow_drawing" in text and text.count("Timeout") >= 2   # one dump each 100 ms it was late
