@@ -206,3 +206,19 @@ def test_a_polyline_painted_from_its_array_equals_one_painted_point_by_point(qtb
         images.append(img)
     assert images[0] == images[1]
     assert images[0].pixelColor(200, int(round(100 + 60 * np.sin(200 / 30)))) != QtGui.QColor("#ffffff")
+
+
+def test_a_sentence_listing_every_column_is_cut_at_a_word_with_the_whole_in_its_tooltip(win, qtbot):
+    """A result saved by an older engine may list a thousand columns in one sentence: the panel shows the
+    start (cut at a word, ending in "…") and keeps the whole text in the tooltip; short ones are untouched."""
+    from regbench.gui.panels.base import SENTENCE_CHARS
+
+    panel = win.panel("coefficients")
+    long = "Across the overlapping columns " + ", ".join(f"s{j:03d}" for j in range(1000)) + ": all kept."
+    panel.set_sentences([long])
+    shown = panel.sentences.text()
+    assert len(shown) <= SENTENCE_CHARS + 2 and shown.endswith(" …")
+    assert long.startswith(shown[:-2]) and long[len(shown) - 2] in " ,"   # cut between two names
+    assert panel.sentences.toolTip() == long
+    panel.set_sentences(["OLS uses all 300 columns."])
+    assert panel.sentences.text() == "OLS uses all 300 columns." and panel.sentences.toolTip() == ""

@@ -9,6 +9,8 @@ from PySide6 import QtCore, QtWidgets
 Qt = QtCore.Qt
 #: Points one scatter item takes at most; more are added a slice per turn (see :meth:`Panel.scatter`).
 SLICE_POINTS = 5000
+#: Characters of sentences shown above a panel at most (about six lines at 1400 pixels); the rest is in the tooltip.
+SENTENCE_CHARS = 900
 
 
 class Panel(QtWidgets.QWidget):
@@ -200,8 +202,17 @@ class Panel(QtWidgets.QWidget):
 
     # -- helpers -------------------------------------------------------------------------
     def set_sentences(self, sentences) -> None:
+        """Show ``sentences`` above the panel's body; a text longer than :data:`SENTENCE_CHARS` (a saved
+        result listing a thousand columns) is cut at a word with "…", the whole of it in the tooltip, so
+        the body keeps its room."""
         sentences = [s for s in (sentences or ()) if s]
-        self.sentences.setText(" ".join(sentences) if sentences else "")
+        text = " ".join(sentences) if sentences else ""
+        shown = text
+        if len(text) > SENTENCE_CHARS:
+            cut = text.rfind(" ", 0, SENTENCE_CHARS)
+            shown = text[:cut if cut > 0 else SENTENCE_CHARS].rstrip(" ,;:") + " …"
+        self.sentences.setText(shown)
+        self.sentences.setToolTip(text if shown != text else "")
         self.sentences.setVisible(bool(sentences))
 
     @property
