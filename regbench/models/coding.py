@@ -49,13 +49,30 @@ class LevelCoding:
             idx = tuple(self.columns.index(c) for c in siblings)
             self.groups.append((f"{source}={level}", source, idx))
         self.m = len(self.groups)
-        T = np.zeros((self.p, self.p + self.m))
-        T[:, :self.p] = np.eye(self.p)
-        a = np.zeros(self.p + self.m)
-        for g, (_, _, idx) in enumerate(self.groups):
-            T[list(idx), self.p + g] = -1.0
-            a[self.p + g] = 1.0
-        self.T, self.a = T, a
+        self._map = None
+
+    def _maps(self):
+        # Built on first use: a design without categories never needs them, and on 1,000 columns
+        # the p×(p+m) matrix costs a few milliseconds per coding (every stability refit makes some).
+        if self._map is None:
+            T = np.zeros((self.p, self.p + self.m))
+            T[:, :self.p] = np.eye(self.p)
+            a = np.zeros(self.p + self.m)
+            for g, (_, _, idx) in enumerate(self.groups):
+                T[list(idx), self.p + g] = -1.0
+                a[self.p + g] = 1.0
+            self._map = (T, a)
+        return self._map
+
+    @property
+    def T(self) -> np.ndarray:
+        """The map from design columns to columns on all levels, (p, p + m)."""
+        return self._maps()[0]
+
+    @property
+    def a(self) -> np.ndarray:
+        """The offset of that map (1 on each reference level's column)."""
+        return self._maps()[1]
 
     @classmethod
     def of(cls, design) -> "LevelCoding":
