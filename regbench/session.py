@@ -40,6 +40,7 @@ from regbench.data.reader import read_table
 from regbench.data.table import Table
 from regbench.errors import DataError
 from regbench.models import engine, spec
+from regbench.models.ols import one_blas_thread
 from regbench.models.results import FitResults, FitSettings, LinearModel
 from regbench.models.spec import RowSource
 from regbench.progress import check, report
@@ -1035,7 +1036,17 @@ def _derive(design, results, state: SessionState, cancel, have: Optional[dict] =
     ``sample``: the pass (a StreamedFit) whose seeded row sample the design holds, when it is a sample of a
     table read in batches; held-out predictions then come from its folds' statistics over every row (none
     when the pass did not keep them; ``Session.sample_limits`` says so).
+
+    On one BLAS thread, as the fit and the stability refits run: these are p×p solves and products
+    of moderate size, and on shared cores BLAS threads waiting on each other cost more than they
+    save (the 20,000 × 1,000 project's comparisons: see DEVELOPERS.md, "Wide projects").
     """
+    with one_blas_thread():
+        return _derive_all(design, results, state, cancel, have, sample)
+
+
+def _derive_all(design, results, state: SessionState, cancel, have: Optional[dict] = None, sample=None) -> dict:
+    """:func:`_derive`'s work."""
     have = have or {}
     models = have.get("models")
     if models is None:
