@@ -259,8 +259,10 @@ def _ridge_by_factor(problem: Problem, alphas: np.ndarray, out: np.ndarray) -> b
         return False
     cl = problem.c[live]
     rows = []
+    diag = np.diag_indices(Gl.shape[0])
     for a in alphas:
-        M = Gl + float(a) * np.eye(Gl.shape[0])
+        M = np.array(Gl, order="F")  # one copy, in the order LAPACK factors in place
+        M[diag] += float(a)
         U, info = lapack.dpotrf(M, lower=0, clean=0, overwrite_a=1)
         if info != 0:
             return False
