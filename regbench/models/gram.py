@@ -322,7 +322,7 @@ def _default_shift(X, y, w):
     return (w @ X) / W, float(w @ y) / W
 
 
-def gram_stats(X, y, w=None, shift=None, chunk: Optional[int] = None) -> GramStats:
+def gram_stats(X, y, w=None, shift=None, chunk: Optional[int] = None, rows=None) -> GramStats:
     """Gather the weighted cross-products of every row in one pass.
 
     Parameters
@@ -336,6 +336,8 @@ def gram_stats(X, y, w=None, shift=None, chunk: Optional[int] = None) -> GramSta
         default.  Statistics meant to be added or subtracted must share it.
     chunk : int, optional
         Rows per block (default: about 8 MiB of rows).
+    rows : ndarray of int, optional
+        Only these rows (``n`` then counts them).
 
     Returns
     -------
@@ -345,7 +347,7 @@ def gram_stats(X, y, w=None, shift=None, chunk: Optional[int] = None) -> GramSta
     y = np.asarray(y, dtype=np.float64)
     w = np.ones(X.shape[0]) if w is None else np.asarray(w, dtype=np.float64)
     shift_x, shift_y = _default_shift(X, y, w) if shift is None else shift
-    return _accumulate(X, y, w, None, np.asarray(shift_x, dtype=np.float64), float(shift_y),
+    return _accumulate(X, y, w, rows, np.asarray(shift_x, dtype=np.float64), float(shift_y),
                        chunk or _chunk_rows(X.shape[1]))
 
 
