@@ -108,12 +108,35 @@ def test_a_wide_tables_column_names_beside_bars_never_run_together(win, qtbot, k
     assert gap >= line, (key, gap, line)
     cols = list(win.session.results.columns)
     assert set(names) <= set(cols)
+    # A column with the longest bar (the widest band) is among those named.
+    assert _heaviest(win.session, key, cols) & set(names), key
     # The bars stand at P-1 … 0, the first column on top; zoomed in on 12 of them, all 12 are named.
     plot.getPlotItem().getViewBox().setYRange(100, 111, padding=0)
     QtWidgets.QApplication.processEvents()
     names, gap = _names_apart(plot)
     assert [cols[P - 1 - y] for y in range(111, 99, -1)] == sorted(names, key=cols.index), (key, names)
     assert gap >= line
+
+
+def _heaviest(session, key, cols):
+    """The columns whose bar or band is longest in the panel ``key`` (the headless numbers it draws)."""
+    from regbench.models.results import aligned
+
+    if key == "coefficients":
+        models = session.models().values()
+        return _longest(cols, np.max([np.abs(aligned(m, cols, standardized=True)) for m in models], axis=0))
+    if key == "stability":
+        st = session.stability
+        shares = [np.asarray(st.set_aside_freq, float)] + [np.asarray(v, float) for m, v in st.selected_freq.items()
+                                                            if m not in ("ols", "logistic", "ridge")]
+        return _longest(list(st.columns), np.max(shares, axis=0))
+    rg = session.ranges()
+    width = np.where(rg.bounded, np.asarray(rg.high_std) - np.asarray(rg.low_std), np.inf)
+    return _longest(list(rg.columns), width)
+
+
+def _longest(cols, values) -> set:
+    return {c for c, v in zip(cols, values) if v == np.max(values)}
 
 
 def test_the_correlation_map_of_300_columns_names_what_fits(win, qtbot):

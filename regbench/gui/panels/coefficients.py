@@ -174,6 +174,9 @@ class CoefficientsPanel(Panel):
                                   brush=model_colour(n), pen=None)
             self.plot.addItem(bar)
             legend.addItem(bar, model_label(n))
-        name_categories(self.plot, "left", np.arange(p)[::-1], cols)
+        # The columns with the longest bars are named first.
+        longest = np.max([np.abs(aligned(m, cols, standardized=True)) for m in models.values()], axis=0) if models \
+            else None
+        name_categories(self.plot, "left", np.arange(p)[::-1], cols, weight=longest)
         self.plot.addItem(pg.InfiniteLine(pos=0, angle=90, pen=pg.mkPen(PALETTE["muted"])))
         keep_legend_above(self.plot, -0.6, p - 0.5)  # the bars, and a band above them for the legend

@@ -271,7 +271,8 @@ class RangesPanel(Panel):
                                     pen=pg.mkPen(model_colour(name), width=2), brush=brush)
             plot.addItem(sc)
             legend.addItem(sc, model_label(name))
-        name_categories(plot, "left", ys, cols)
+        # The widest bands (a column with no bound first) are named first.
+        name_categories(plot, "left", ys, cols, weight=np.where(bounded, high - low, np.inf))
         plot.setLabel("bottom", "standardized log-odds coefficient (per SD of the column)"
                       if rg.outcome == "binary" else "standardized coefficient (per SD of the column)")
         plot.setXRange(lo, hi, padding=0)

@@ -126,6 +126,7 @@ class StabilityPanel(Panel):
             bar = pg.BarGraphItem(x0=np.zeros(p), y=y, height=height * 0.9, width=a, brush=colour, pen=None)
             self.plot.addItem(bar)
             legend.addItem(bar, label)
-        name_categories(self.plot, "left", np.arange(p)[::-1], cols)
+        name_categories(self.plot, "left", np.arange(p)[::-1], cols,
+                        weight=np.max([a for _, _, a in series], axis=0))   # the longest bars named first
         self.plot.setXRange(0, 1.0, padding=0.06)  # the bars at 1 stay clear of the edge
         keep_legend_above(self.plot, -0.6, p - 0.5)  # the bars, and a band above them for the legend
