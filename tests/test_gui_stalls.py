@@ -411,4 +411,4 @@ def test_the_stall_harness_names_what_ran_while_the_gui_thread_was_late(qtbot, t
     names = {func for (_file, _line, func) in pstats.Stats(beat.worst_profile).stats}
     assert "slow_drawing" in names
     text = (tmp_path / "stacks.txt").read_text()
-    assert "slow_drawing" in text and text.count("Timeout") >= 2   # one dump each 100 ms it was late
+    assert "slow_drawing" in text and text.count("Timeout") == 1   # one dump per late tick

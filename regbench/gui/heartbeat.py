@@ -77,9 +77,11 @@ class Heartbeat(QtCore.QObject):
 
     def watch(self, stream, after_s: float = 0.1) -> None:
         """From now on, each tick arms a dump of every thread's Python stack to ``stream`` should the next
-        tick come ``after_s`` late, and every ``after_s`` after that until it comes (so a gap's length shows
-        as its number of dumps).  faulthandler's own thread writes it: it names the call a worker is in
-        while holding the interpreter, which a sampler written in Python could not run during."""
+        tick come ``after_s`` late.  faulthandler's own thread writes it: it names the call a worker is in
+        while holding the interpreter, which a sampler written in Python could not run during.  It reads
+        the other threads' frames without the interpreter lock, which is why it dumps once per late tick
+        (dumping every ``after_s`` through a long gap once crashed the process after 7 dumps; keep it to
+        diagnosis runs)."""
         self._watch = (stream, after_s)
         self._arm()
 
@@ -88,7 +90,7 @@ class Heartbeat(QtCore.QObject):
         if watch is not None:
             import faulthandler
 
-            faulthandler.dump_traceback_later(watch[1], repeat=True, file=watch[0])
+            faulthandler.dump_traceback_later(watch[1], repeat=False, file=watch[0])
 
     def tick(self) -> None:
         self._arm()
@@ -236,7 +238,8 @@ def main(argv=None) -> int:
                     help="with --batches: the stability refits of each fit (default: the session's, 200)")
     ap.add_argument("--stacks", metavar="FILE",
                     help="write every thread's Python stack to FILE whenever the GUI thread misses the heartbeat "
-                         "by more than 100 ms (what a worker runs while the window waits)")
+                         "by more than 100 ms (what a worker runs while the window waits; faulthandler reads "
+                         "the threads without the interpreter lock, so keep it to diagnosis runs)")
     ap.add_argument("--profile", action="store_true",
                     help="profile the GUI thread and print what it ran in each action's longest gap over 100 ms")
     args = ap.parse_args(argv)
