@@ -489,3 +489,19 @@ def test_a_fit_without_the_statistics_ranges_need_leaves_the_rest_standing():
                    bootstrap=0, notes="", view_state={})
     out = _derive(design, bare, state, None, {"models": results.models()})
     assert out["ranges"] is None and out["agreement"] is not None
+
+
+def test_blocked_triangular_solve_equals_one_solve(monkeypatch):
+    """The solve done a block of columns at a time (so the window's thread is not kept waiting) gives
+    scipy.linalg.solve_triangular's answer in one call (reference library), including a ragged last block."""
+    from scipy import linalg
+
+    from regbench.analysis import ranges
+
+    rng = np.random.default_rng(3)
+    R = np.triu(rng.standard_normal((40, 40))) + 40 * np.eye(40)
+    B = rng.standard_normal((40, 203))
+    whole = linalg.solve_triangular(R, B, trans="T")
+    monkeypatch.setattr(ranges, "SOLVE_BLOCK", 40 * 40 * 17)  # 17 columns a block: 12 blocks, the last of 16
+    np.testing.assert_allclose(ranges._solve_upper_transposed(R, B), whole, rtol=1e-12, atol=1e-12)
+    assert ranges._solve_upper_transposed(R, B[:, :0]).shape == (40, 0)
