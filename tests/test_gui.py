@@ -172,15 +172,17 @@ def test_open_a_table_asks_before_fitting_then_the_sentence_sets_the_roles(qtbot
     # Nothing long starts before the person confirms: no fit, no stability refits.
     assert s.results is None and not w.runner.busy()
     assert "press Fit" in w.status_label.text()
-    # The stated rule: the last numeric column that is not an identifier is the target;
-    # a text column with a level per bed is left out, with the reason shown in the column list.
-    assert s.roles.target == "yield_kg_m2"
+    # The stated rules: the last numeric column that is not an identifier is the target; a text
+    # column labelling repeated rows (a bed, measured week after week) starts as the held-out groups.
+    assert s.roles.target == "yield_kg_m2" and s.roles.groups == "bed"
     assert "bed" not in s.roles.predictors and "glasshouse" in s.roles.predictors
     cm = w.panel("data").columns_model
-    assert cm.part("bed").startswith("left out: text with 96 different values")
+    assert cm.part("bed") == "held-out groups"
     bar = w.question
     _pick(bar.weights, "plants_per_bed")
     _pick(bar.groups, "glasshouse")
+    # Freed from the groups, a text column with a level per bed is left out, the reason shown.
+    assert cm.part("bed").startswith("left out: text with 96 different values")
     _tick(w, "week", True, which="cats")
     _tick(w, "week", True)
     bar.settings_form.boot.setValue(0)
@@ -1157,3 +1159,27 @@ def test_relaxed_families_chosen_in_settings_show_in_the_penalty_figure(gh, qtbo
     paths.family.setCurrentIndex(i)
     fig = paths.figure.figure()
     assert fig is not None and set(fig.labels) == set(s.results.penalized["relaxed_lasso"].path.columns)
+
+
+def test_a_repeating_text_label_starts_as_the_held_out_groups_and_the_status_says_why(qtbot, tmp_path):
+    from regbench.data.identifiers import GROUPS_RULE
+
+    rng = np.random.default_rng(8)
+    n = 180
+    frame = pd.DataFrame({"batch": [f"B{k:03d}" for k in rng.permutation(np.repeat(np.arange(30), 6))],
+                          "x1": rng.normal(size=n), "x2": rng.normal(size=n)})
+    frame["y"] = frame["x1"] - frame["x2"] + rng.normal(scale=0.1, size=n)
+    path = tmp_path / "batches.csv"
+    frame.to_csv(path, index=False)
+    w = make_window(qtbot)
+    with qtbot.waitSignal(w.session_changed, timeout=FIT_TIMEOUT_MS):
+        w.open_path(str(path))
+    wait_idle(qtbot, w)
+    s = w.session
+    # Groups, not 29 indicator columns; nothing fitted until the person presses Fit.
+    assert s.roles.groups == "batch" and s.results is None
+    assert set(s.roles.predictors) == {"x1", "x2"}
+    assert w.question.groups.currentText() == "batch"
+    assert GROUPS_RULE in w.status_label.text()
+    assert w.panel("data").columns_model.part("batch") == "held-out groups"
+    close_quietly(w)

@@ -125,3 +125,38 @@ def test_a_table_read_from_file_keeps_file_order(tmp_path):
     p.write_text("y,k,x\n1,3,0.5\n2,1,0.1\n3,2,0.7\n4,4,0.2\n")
     t = read_table(str(p))
     assert identifier_reason(t, "k") is None
+
+
+def _batches(n_groups=30, per=6, seed=2):
+    rng = np.random.default_rng(seed)
+    n = n_groups * per
+    f = pd.DataFrame({"batch": [f"B{k:03d}" for k in rng.permutation(np.repeat(np.arange(n_groups), per))],
+                      "shift": rng.choice(["early", "late"], size=n),
+                      "x1": rng.normal(size=n), "x2": rng.normal(size=n)})
+    f["y"] = f["x1"] + rng.normal(scale=0.1, size=n)
+    return f
+
+
+def test_group_rule_picks_a_repeating_text_label_and_refuses_what_is_not_one():
+    from regbench.data.identifiers import group_label_column
+
+    f = _batches()
+    assert group_label_column(table_from_frame(f)) == "batch"
+    assert group_label_column(table_from_frame(f), skip=("batch",)) is None
+    # Two values are a category, not groups (IDENTIFIER_LEVELS, 20, is the threshold for both rules).
+    assert group_label_column(table_from_frame(f.drop(columns="batch"))) is None
+    # A label on one row each names rows: nothing to hold out together.
+    one_each = f.assign(batch=[f"P{k}" for k in range(len(f))])
+    assert group_label_column(table_from_frame(one_each)) is None
+    # Half the labels seen once (as on the first rows of a big file) is below the 3-in-4 share.
+    half = f.copy()
+    half.loc[: 14, "batch"] = [f"Q{k}" for k in range(15)]
+    half.loc[15:, "batch"] = [f"R{k % 5}" for k in range(len(f) - 15)]
+    assert group_label_column(table_from_frame(half)) is None
+    # An empty cell would drop its row from a grouped fit: such a column is not picked.
+    gap = f.copy()
+    gap.loc[3, "batch"] = None
+    assert group_label_column(table_from_frame(gap)) is None
+    # Two labels: the coarser grouping (fewer groups) is the stricter held-out test.
+    two = f.assign(site=[f"S{k % 25:02d}" for k in range(len(f))])
+    assert group_label_column(table_from_frame(two)) == "site"

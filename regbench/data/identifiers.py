@@ -211,3 +211,38 @@ def _label_text(value) -> str:
     if isinstance(value, float) and value == int(value):
         return str(int(value))
     return str(value)
+
+
+#: The window's starting groups, said in its status line and the README.
+GROUPS_RULE = (f"a text column of more than {IDENTIFIER_LEVELS} values, at least 3 in 4 of them on two rows or "
+               "more and no cell empty, labels groups of rows; the one with the fewest groups is held out whole")
+
+#: The share of a group label's values that must repeat: on the first rows of a table read in
+#: batches a group may show only one of its rows.
+REPEATED_SHARE = 0.75
+
+
+def group_label_column(table: Table, skip=()) -> Optional[str]:
+    """The column the window starts with as held-out groups (:data:`GROUPS_RULE`), or None.
+
+    Rows that share a batch, a site or a person are not independent: scoring a model on single
+    held-out rows whose batch-mates were fitted flatters it, and a text label of many values,
+    ticked as an input, adds a column per group besides.  Among the text columns not in ``skip``
+    (the target, the weights), one with more than :data:`IDENTIFIER_LEVELS` values, most of which
+    (:data:`REPEATED_SHARE`) repeat, and no empty cell labels groups; with several, the fewest
+    groups (the stricter test) wins, then the first in the table.
+    """
+    best = None
+    for c in table.names:
+        info = table.columns[c]
+        if c in skip or info.kind != CATEGORICAL or info.read_as_text or info.missing:
+            continue
+        if not IDENTIFIER_LEVELS < info.distinct <= table.n_rows // 2:
+            continue
+        counts = table.frame[c].value_counts(sort=False, dropna=True)
+        counts = counts[counts > 0]  # a category's unused levels
+        if counts.size <= IDENTIFIER_LEVELS or (counts >= 2).mean() < REPEATED_SHARE:
+            continue
+        if best is None or counts.size < best[1]:
+            best = (c, counts.size)
+    return None if best is None else best[0]

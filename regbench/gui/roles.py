@@ -17,7 +17,7 @@ from PySide6 import QtCore, QtGui, QtWidgets
 
 from regbench.data.derive import apply_derived, make_derived
 from regbench.data.design import Roles, build_design, default_positive_level, default_predictors, target_levels
-from regbench.data.identifiers import identifier_columns
+from regbench.data.identifiers import GROUPS_RULE, group_label_column, identifier_columns
 from regbench.data.table import BOOLEAN, CATEGORICAL, EMPTY, NUMERIC
 from regbench.errors import DataError
 from regbench.gui.style import PALETTE
@@ -47,13 +47,24 @@ def can_explain(table, name: str) -> bool:
 
 def default_roles(table) -> Roles:
     """A stated starting point (:data:`TARGET_RULE`): the target is the last column of numbers or of
-    two values that is not an identifier; the inputs are the data layer's default
+    two values that is not an identifier; a text column labelling groups of rows is held out whole
+    (:data:`~regbench.data.identifiers.GROUPS_RULE`); the inputs are the data layer's default
     (:func:`regbench.data.design.default_predictors`)."""
     ids = identifier_columns(table)
     candidates = [c for c in table.names if can_explain(table, c)]
     target = next((c for c in reversed(candidates) if c not in ids),
                   candidates[-1] if candidates else table.names[-1])
-    return Roles(target=target, predictors=default_predictors(table, Roles(target=target)))
+    groups = group_label_column(table, skip=(target,))
+    start = Roles(target=target, groups=groups)
+    return replace(start, predictors=default_predictors(table, start))
+
+
+def starting_words(roles: Roles) -> str:
+    """The status line's account of the starting roles: the target's rule, and the groups' when set."""
+    words = f"Explaining {roles.target} ({TARGET_RULE})"
+    if roles.groups is not None:
+        words += f"; holding out whole groups of {roles.groups} ({GROUPS_RULE})"
+    return words
 
 
 def openable_roles(table, roles: Roles):

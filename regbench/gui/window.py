@@ -23,7 +23,7 @@ from regbench.gui.panels.ranges import RangesPanel
 from regbench.gui.panels.stability import StabilityPanel
 from regbench.gui.panels.stress import StressPanel
 from regbench.gui.rowsettings import ask_rows, first_rows, first_rows_session, reads_in_batches
-from regbench.gui.roles import TARGET_RULE, QuestionBar, RoleDraft, can_explain, default_roles, openable_roles
+from regbench.gui.roles import QuestionBar, RoleDraft, can_explain, default_roles, openable_roles, starting_words
 from regbench.gui.style import STYLESHEET, configure_pyqtgraph
 from regbench.gui.tables import view_to_tsv
 from regbench.gui.worker import Runner
@@ -479,8 +479,8 @@ class MainWindow(QtWidgets.QMainWindow):
             if roles is None:
                 self.show_panel("data")
                 self.set_status((note + " " if note else "")
-                                + f"Explaining {session.roles.target} ({TARGET_RULE}); change it in the sentence "
-                                "above, tick the columns to use, then press Fit.")
+                                + starting_words(session.roles) + "; change it in the sentence above, tick the "
+                                "columns to use, then press Fit.")
 
         def failed(exc):
             if encoding is None and "not UTF-8" in str(exc):
@@ -505,7 +505,7 @@ class MainWindow(QtWidgets.QMainWindow):
             if roles is None:
                 self.show_panel("data")
                 self.set_status((note + " " if note else "")
-                                + f"Explaining {session.roles.target} ({TARGET_RULE}), chosen from the first "
+                                + starting_words(session.roles) + f", chosen from the first "
                                 f"{session.table.n_rows:,} rows of {name}; change it in the sentence above, tick the "
                                 "columns to use, then press Fit to read every row in batches.")
 
