@@ -1180,6 +1180,8 @@ def test_a_repeating_text_label_starts_as_the_held_out_groups_and_the_status_say
     assert s.roles.groups == "batch" and s.results is None
     assert set(s.roles.predictors) == {"x1", "x2"}
     assert w.question.groups.currentText() == "batch"
-    assert GROUPS_RULE in w.status_label.text()
+    assert "holding out whole batch groups" in w.status_label.text()
+    from regbench.gui.help import help_html
+    assert GROUPS_RULE in help_html()
     assert w.panel("data").columns_model.part("batch") == "held-out groups"
     close_quietly(w)

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from PySide6 import QtWidgets
 
+from regbench.data.identifiers import GROUPS_RULE
+
 TERMS = (
     ("α (penalty)", "How hard a penalized model pulls its coefficients towards zero. Every penalized "
      "model minimises (1/(2W))·Σ wᵢ(yᵢ − b₀ − xᵢβ)² + α·Σⱼ vⱼ(ρ|βⱼ| + (1−ρ)/2·βⱼ²) on predictors "
@@ -31,7 +33,8 @@ TERMS = (
     ("Row counts (weights)", "A column saying how many times each row counts (\"each row counts … times\" in "
      "the sentence at the top); with none, every row counts once."),
     ("Held-out groups", "A column whose values name groups (glasshouses, batches, sites); cross-validation "
-     "and the stability refits keep every row of a group on the same side (\"hold out whole … groups\")."),
+     "and the stability refits keep every row of a group on the same side (\"hold out whole … groups\"). "
+     "A table opens with such a column chosen when one qualifies: " + GROUPS_RULE + "."),
     ("As categories", "Whole-number codes (1, 2, 3 for three varieties) read as categories: each value gets "
      "its own indicator column instead of one slope. The column list suggests it for whole numbers with "
      "few different values."),

@@ -63,7 +63,8 @@ def starting_words(roles: Roles) -> str:
     """The status line's account of the starting roles: the target's rule, and the groups' when set."""
     words = f"Explaining {roles.target} ({TARGET_RULE})"
     if roles.groups is not None:
-        words += f"; holding out whole groups of {roles.groups} ({GROUPS_RULE})"
+        # The rule in full is in Help and the README; the line names the column and why in brief.
+        words += f", holding out whole {roles.groups} groups (its text labels repeated rows)"
     return words
 
 
