@@ -163,6 +163,25 @@ def _tick(w, column, on=True, which="use"):
     assert m.setData(m.index(r, c), QtCore.Qt.Checked if on else QtCore.Qt.Unchecked, QtCore.Qt.CheckStateRole)
 
 
+def _y_from_two_inputs(rng, first: dict) -> pd.DataFrame:
+    """The columns ``first``, then x1 and x2 (standard normal) and y = x1 − x2 + small noise."""
+    n = len(next(iter(first.values())))
+    frame = pd.DataFrame({**first, "x1": rng.normal(size=n), "x2": rng.normal(size=n)})
+    frame["y"] = frame["x1"] - frame["x2"] + rng.normal(scale=0.1, size=n)
+    return frame
+
+
+def _open_frame(qtbot, tmp_path, frame, name):
+    """A new window that has opened ``frame`` written as the CSV ``name`` (roles by the window's rules)."""
+    path = tmp_path / name
+    frame.to_csv(path, index=False)
+    w = make_window(qtbot)
+    with qtbot.waitSignal(w.session_changed, timeout=FIT_TIMEOUT_MS):
+        w.open_path(str(path))
+    wait_idle(qtbot, w)
+    return w
+
+
 def test_open_a_table_asks_before_fitting_then_the_sentence_sets_the_roles(qtbot):
     w = make_window(qtbot)
     with qtbot.waitSignal(w.session_changed, timeout=FIT_TIMEOUT_MS):
@@ -231,15 +250,8 @@ def test_a_project_saved_without_a_predictor_list_opens_with_nothing_to_fit(qtbo
 def test_identifier_like_numeric_columns_are_left_out_with_a_reason(qtbot, tmp_path):
     rng = np.random.default_rng(5)
     n = 40
-    frame = pd.DataFrame({"row": np.arange(1, n + 1), "customer_id": rng.permutation(n) * 7 + 1000,
-                          "x1": rng.normal(size=n), "x2": rng.normal(size=n)})
-    frame["y"] = frame["x1"] - frame["x2"] + rng.normal(scale=0.1, size=n)
-    path = tmp_path / "ids.csv"
-    frame.to_csv(path, index=False)
-    w = make_window(qtbot)
-    with qtbot.waitSignal(w.session_changed, timeout=FIT_TIMEOUT_MS):
-        w.open_path(str(path))
-    wait_idle(qtbot, w)
+    frame = _y_from_two_inputs(rng, {"row": np.arange(1, n + 1), "customer_id": rng.permutation(n) * 7 + 1000})
+    w = _open_frame(qtbot, tmp_path, frame, "ids.csv")
     s = w.session
     assert s.roles.target == "y" and s.results is None
     assert set(s.roles.predictors) == {"x1", "x2"}
@@ -1084,12 +1096,7 @@ def test_a_table_wider_than_long_opens(qtbot, tmp_path):
     n, p = 12, 30
     frame = pd.DataFrame(rng.normal(size=(n, p)), columns=[f"x{j}" for j in range(p)])
     frame["y"] = frame["x0"] + rng.normal(scale=0.1, size=n)
-    path = tmp_path / "wide.csv"
-    frame.to_csv(path, index=False)
-    w = make_window(qtbot)
-    with qtbot.waitSignal(w.session_changed, timeout=FIT_TIMEOUT_MS):
-        w.open_path(str(path))
-    wait_idle(qtbot, w)
+    w = _open_frame(qtbot, tmp_path, frame, "wide.csv")
     assert w.session is not None and w.session.roles.target == "y" and w.errors == []
     assert w.panel("data").columns_model.rowCount() == p + 1
     close_quietly(w)
@@ -1165,16 +1172,8 @@ def test_a_repeating_text_label_starts_as_the_held_out_groups_and_the_status_say
     from regbench.data.identifiers import GROUPS_RULE
 
     rng = np.random.default_rng(8)
-    n = 180
-    frame = pd.DataFrame({"batch": [f"B{k:03d}" for k in rng.permutation(np.repeat(np.arange(30), 6))],
-                          "x1": rng.normal(size=n), "x2": rng.normal(size=n)})
-    frame["y"] = frame["x1"] - frame["x2"] + rng.normal(scale=0.1, size=n)
-    path = tmp_path / "batches.csv"
-    frame.to_csv(path, index=False)
-    w = make_window(qtbot)
-    with qtbot.waitSignal(w.session_changed, timeout=FIT_TIMEOUT_MS):
-        w.open_path(str(path))
-    wait_idle(qtbot, w)
+    frame = _y_from_two_inputs(rng, {"batch": [f"B{k:03d}" for k in rng.permutation(np.repeat(np.arange(30), 6))]})
+    w = _open_frame(qtbot, tmp_path, frame, "batches.csv")
     s = w.session
     # Groups, not 29 indicator columns; nothing fitted until the person presses Fit.
     assert s.roles.groups == "batch" and s.results is None
