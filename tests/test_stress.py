@@ -454,3 +454,19 @@ def test_ranking_reads_a_model_on_every_level_in_the_designs_coding():
     one = run_stress(d, {"ridge": m}, StressConfig("shade", "shuffle", seed=3))
     assert rk.shift_rmse[0, 0] == pytest.approx(one.shifts["ridge"].shift_rmse, rel=1e-12)
     assert rk.shift_rmse[0, 0] > 0
+
+
+def test_predictions_a_block_of_rows_at_a_time_match_one_product(small, monkeypatch):
+    """Predictions made a few rows at a time equal numpy's product of the used columns in one go
+    (reference: numpy), the last block short; an unused column of NaN still moves nothing."""
+    from regbench.models import results
+
+    d, models = small
+    lasso = models["lasso"]
+    used = np.flatnonzero(lasso.coef != 0.0)
+    whole = lasso.intercept + d.X[:, used] @ lasso.coef[used]
+    monkeypatch.setattr(results, "PREDICT_BLOCK", 7 * used.size)  # 7 rows a block
+    np.testing.assert_allclose(lasso.predict(d.X), whole, rtol=1e-14, atol=1e-12)
+    X = d.X.copy()
+    X[:, 1] = np.nan
+    assert np.array_equal(lasso.predict(X), lasso.predict(d.X))

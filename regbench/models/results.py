@@ -252,7 +252,20 @@ class LinearModel(Result):
         used = np.flatnonzero(coef != 0.0)
         if used.size == 0:
             return np.full(X.shape[0], intercept)
-        return intercept + X[:, used] @ coef[used]
+        b = coef[used]
+        if X.ndim != 2 or X.shape[0] * used.size <= PREDICT_BLOCK:
+            return intercept + X[:, used] @ b
+        # The used columns of a block of rows at a time: one copy of them for all 100,000 rows, made
+        # afresh for each of two dozen predictions, took 0.3 s of a project at 100 columns.
+        step = max(1, PREDICT_BLOCK // used.size)
+        out = np.empty(X.shape[0])
+        for s in range(0, X.shape[0], step):
+            out[s:s + step] = X[s:s + step, used] @ b
+        return intercept + out
+
+
+#: Cells of the used columns gathered at a time by :meth:`LinearModel.linear_predictor` (4 MB).
+PREDICT_BLOCK = 1 << 19
 
 
 @dataclass(frozen=True, eq=False)
