@@ -505,3 +505,23 @@ def test_blocked_triangular_solve_equals_one_solve(monkeypatch):
     monkeypatch.setattr(ranges, "SOLVE_BLOCK", 40 * 40 * 17)  # 17 columns a block: 12 blocks, the last of 16
     np.testing.assert_allclose(ranges._solve_upper_transposed(R, B), whole, rtol=1e-12, atol=1e-12)
     assert ranges._solve_upper_transposed(R, B[:, :0]).shape == (40, 0)
+
+
+def test_row_ranges_a_block_of_rows_at_a_time_equal_the_closed_form(monkeypatch):
+    """Per-row half-widths gathered in blocks of rows equal sqrt(budget·(1/a₀ + uᵀG_K⁻¹u)) computed
+    from the rows in one go with numpy (the ellipsoid's closed form, a mathematical fact)."""
+    from regbench.analysis import ranges
+
+    rng = np.random.default_rng(4)
+    X = rng.standard_normal((97, 5))
+    X[:, 4] = X[:, 0] + X[:, 1]  # set aside: only the kept columns enter
+    mean = X.mean(axis=0)
+    Xc = X - mean
+    G = Xc.T @ Xc
+    kept = [0, 1, 2, 3]
+    RK = np.linalg.cholesky(G[np.ix_(kept, kept)]).T
+    ell = ranges._Ellipsoid(5, kept, [4], RK, np.zeros((4, 1)), 2.5, lambda d: 0.0)
+    monkeypatch.setattr(ranges, "SOLVE_BLOCK", 4 * 4 * 16)  # 16 rows a block: 7 blocks, the last of 1
+    U = Xc[:, kept]
+    expected = np.sqrt(2.5 * (1.0 + np.einsum("ij,ij->i", U @ np.linalg.inv(G[np.ix_(kept, kept)]), U)))
+    np.testing.assert_allclose(ranges._row_half_widths(ell, X, mean), expected, rtol=1e-12)

@@ -197,7 +197,7 @@ class _Ellipsoid:
         self.p = p
         self.kept = np.asarray(kept, dtype=int)
         self.aside = np.asarray(aside, dtype=int)
-        self.RK = RK  # k×k upper triangular, G_K = RKᵀ RK
+        self.RK = np.asfortranarray(RK)  # k×k upper triangular, G_K = RKᵀ RK (as LAPACK reads it)
         self.links = links  # k×a: column a of set-aside = Σ links[:, a] · kept columns (+ const)
         self.budget = float(budget)
         self.quad = quad  # δ -> δᵀ G δ on the full columns (exact excess error)
@@ -268,6 +268,21 @@ def _solve_upper_transposed(R: np.ndarray, B: np.ndarray) -> np.ndarray:
     out = np.empty((k, B.shape[1]))
     for s in range(0, B.shape[1], step):
         out[:, s:s + step] = linalg.solve_triangular(Rf, B[:, s:s + step], trans="T", check_finite=False)
+    return out
+
+
+def _row_half_widths(ell, X, mean):
+    """:meth:`_Ellipsoid.row_half_widths` of every row of ``X`` about ``mean``, a block of rows at a time
+    (the centred kept columns of 100,000 rows, then their solve, were two copies of the design)."""
+    k = ell.kept.size
+    n = X.shape[0]
+    if k == 0:
+        return ell.row_half_widths(np.zeros((n, 0)))
+    step = max(16, SOLVE_BLOCK // (k * k))
+    out = np.empty(n)
+    mk = mean[ell.kept]
+    for s in range(0, n, step):
+        out[s:s + step] = ell.row_half_widths(X[s:s + step, ell.kept] - mk)
     return out
 
 
@@ -637,8 +652,7 @@ def _assemble(ell, columns, target, centre, best, sd, tau, kind, note, approxima
     widest = ()
     if X is not None and mean is not None:
         X = np.asarray(X, float)
-        U = X[:, ell.kept] - np.asarray(mean, float)[ell.kept]
-        row_h = ell.row_half_widths(U)
+        row_h = _row_half_widths(ell, X, np.asarray(mean, float))
         row_c = intercept + X @ centre
         rn = np.asarray(row_numbers if row_numbers is not None else np.arange(1, X.shape[0] + 1), dtype=np.int64)
         widest = _widest(X, mean, sd, columns, rn, row_c, row_h, outcome == "binary")
