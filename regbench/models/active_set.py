@@ -23,6 +23,8 @@ returns None and the caller falls back to coordinate descent.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 #: A column enters when its optimality condition is broken by more than this share of
@@ -129,19 +131,15 @@ def _solve(G, c, l1, l2, beta, usable, size):
 
 def _spd_solve(M, b):
     """``M⁻¹b`` by Cholesky (LAPACK ``posv``), or None when ``M`` is not numerically positive definite."""
-    global _POSV
-    if _POSV is None:
-        _POSV = _posv()
-    _, x, info = _POSV(M, b, lower=0, overwrite_a=0, overwrite_b=0)
+    _, x, info = _posv()(M, b, lower=0, overwrite_a=0, overwrite_b=0)
     if info != 0 or not np.all(np.isfinite(x)):
         return None
     return x
 
 
-_POSV = None
-
-
+@functools.cache
 def _posv():
+    """LAPACK's ``dposv``, looked up once (SciPy loads on first use, not when this module is imported)."""
     from scipy.linalg import lapack
 
     return lapack.dposv
