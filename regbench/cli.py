@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import shlex
 import sys
 from typing import Optional, Sequence
 
@@ -282,6 +283,17 @@ def _with_flags(text: str) -> str:
 _NAME_IT = ("name it among the predictors", "name it in --predictors")
 
 
+def _with_groups_flag(text: str, design, table) -> str:
+    """``text`` with the flag that holds out the groups a column labels, after the core's advice."""
+    from regbench.data.identifiers import group_label_column
+    from regbench.sentences import GROUPS_ADVICE
+
+    if GROUPS_ADVICE not in text:
+        return text
+    g = group_label_column(table, skip=(design.target, design.weights_column, design.no_count_column))
+    return text.replace(GROUPS_ADVICE, f"{GROUPS_ADVICE} (--groups {shlex.quote(g)})", 1) if g else text
+
+
 def _columns_left_out(design, out) -> None:
     """One line per column the default choice of inputs left out as an identifier, and how to use it."""
     for u in design.unusable:
@@ -388,7 +400,8 @@ def cmd_fit(args) -> int:
         _columns_left_out(design, sys.stderr)   # after the result, so a failed write stays one line
     else:
         # The summary's "Columns not used" names each left-out column; here with the flag.
-        sys.stdout.write(fit_summary_text(design, results, classification, table).replace(*_NAME_IT) + "\n")
+        text = fit_summary_text(design, results, classification, table).replace(*_NAME_IT)
+        sys.stdout.write(_with_groups_flag(text, design, table) + "\n")
     return EXIT_OK
 
 
@@ -535,6 +548,11 @@ def cmd_new(args) -> int:
     for column, note, _ in getattr(session.design, "column_notes", ()):
         sys.stdout.write(f"  column '{column}': {note}\n")
     _columns_left_out(session.design, sys.stdout)
+    from regbench.sentences import groups_hint
+
+    hint = groups_hint(session.design, session.table)
+    if hint is not None:
+        sys.stdout.write("  " + _with_groups_flag(hint, session.design, session.table) + "\n")
     return EXIT_OK
 
 

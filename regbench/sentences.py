@@ -13,6 +13,7 @@ from __future__ import annotations
 import json
 import math
 import shlex
+from typing import Optional
 
 import numpy as np
 
@@ -131,6 +132,25 @@ def set_aside_sentence(sa: SetAside) -> str:
             "gives almost the same predictions.")
 
 
+#: The advice on a column that labels groups when single rows were held out (the CLI adds its flag).
+GROUPS_ADVICE = "hold its groups out whole"
+
+
+def groups_hint(design, table) -> Optional[str]:
+    """One sentence when single rows were held out although a text column of ``table`` labels groups of
+    rows (the window's starting rule, :data:`regbench.data.identifiers.GROUPS_RULE`); else None."""
+    if table is None or design.groups_column is not None:
+        return None
+    from regbench.data.identifiers import group_label_column
+
+    g = group_label_column(table, skip=(design.target, design.weights_column, design.no_count_column))
+    if g is None:
+        return None
+    return (f"{g} labels {table.columns[g].distinct} groups of rows, and cross-validation held out single rows; "
+            "rows of one group tend to be alike, so scores on single rows flatter the models: "
+            f"{GROUPS_ADVICE} to judge them on groups they have not seen")
+
+
 def fit_summary_text(design, results, classification=None, table=None) -> str:
     """A plain-text summary of the fit, in the order a reader asks about it.
 
@@ -140,6 +160,9 @@ def fit_summary_text(design, results, classification=None, table=None) -> str:
     """
     binary = getattr(results, "outcome", "numeric") == "binary"
     lines = _summary_data_lines(design)
+    hint = groups_hint(design, table)
+    if hint is not None:
+        lines.extend(["", "Held-out rows", "  " + hint])
     lines.append("")
     lines.extend(_summary_overlap_lines(results))
     lines.append("")

@@ -160,3 +160,20 @@ def test_group_rule_picks_a_repeating_text_label_and_refuses_what_is_not_one():
     # Two labels: the coarser grouping (fewer groups) is the stricter held-out test.
     two = f.assign(site=[f"S{k % 25:02d}" for k in range(len(f))])
     assert group_label_column(table_from_frame(two)) == "site"
+
+
+def test_command_line_says_when_a_column_labels_groups_but_single_rows_were_held_out(tmp_path, capsys):
+    f = _batches()
+    path = tmp_path / "batches.csv"
+    f.to_csv(path, index=False)
+    assert main(["fit", str(path), "--target", "y", "--penalties", "5", "--folds", "3"]) == 0
+    out = capsys.readouterr().out
+    assert "batch labels 30 groups of rows, and cross-validation held out single rows" in out
+    assert "hold its groups out whole (--groups batch)" in out
+    # Held out by batch: nothing to say.
+    assert main(["fit", str(path), "--target", "y", "--groups", "batch", "--penalties", "5", "--folds", "3"]) == 0
+    assert "held out single rows" not in capsys.readouterr().out
+    proj = tmp_path / "b.regbench"
+    assert main(["new", str(path), "--target", "y", "--penalties", "5", "--folds", "3", "--bootstrap", "0",
+                 "-o", str(proj)]) == 0
+    assert "hold its groups out whole (--groups batch)" in capsys.readouterr().out
