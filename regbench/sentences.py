@@ -146,8 +146,8 @@ def groups_hint(design, table) -> Optional[str]:
     g = group_label_column(table, skip=(design.target, design.weights_column, design.no_count_column))
     if g is None:
         return None
-    return (f"{g} labels {table.columns[g].distinct} groups of rows, and cross-validation held out single rows; "
-            "rows of one group tend to be alike, so scores on single rows flatter the models: "
+    return (f"The column {g} labels {table.columns[g].distinct} groups of rows, and cross-validation held out "
+            "single rows; rows of one group tend to be alike, so scores on single rows flatter the models: "
             f"{GROUPS_ADVICE} to judge them on groups they have not seen")
 
 

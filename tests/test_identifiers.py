@@ -177,3 +177,21 @@ def test_command_line_says_when_a_column_labels_groups_but_single_rows_were_held
     assert main(["new", str(path), "--target", "y", "--penalties", "5", "--folds", "3", "--bootstrap", "0",
                  "-o", str(proj)]) == 0
     assert "hold its groups out whole (--groups batch)" in capsys.readouterr().out
+
+
+def test_report_says_when_a_column_labels_groups_but_single_rows_were_held_out(tmp_path):
+    from regbench.project import load_project
+
+    f = _batches()
+    path = tmp_path / "batches.csv"
+    f.to_csv(path, index=False)
+    for extra, said in (([], True), (["--groups", "batch"], False)):
+        proj, html = tmp_path / "b.regbench", tmp_path / "b.html"
+        assert main(["new", str(path), "--target", "y", "--penalties", "5", "--folds", "3", "--bootstrap", "0",
+                     *extra, "-o", str(proj)]) == 0
+        assert main(["report", str(proj), "-o", str(html)]) == 0
+        text = html.read_text(encoding="utf-8")
+        # The report carries no command-line flag: the choice is said in words.
+        assert ('id="groups-hint"' in text) is said
+        assert "--groups" not in text.split('id="groups-hint"')[-1][:400]
+        assert load_project(str(proj)).roles.groups == (None if said else "batch")

@@ -567,12 +567,17 @@ def _rows_counted(session) -> tuple:
 
 
 def _rows_notice(session) -> list:
-    """The one sentence on which rows the row-level views use, and what a row sample cannot show."""
+    """The one sentence on which rows the row-level views use, and what a row sample cannot show; before
+    it, the sentence on a column that labels groups when single rows were held out."""
+    from regbench.sentences import groups_hint
+
+    hint = groups_hint(session.design, session.table) if session.streamed is None else None
+    out = [] if hint is None else [f'<p class="notice" id="groups-hint">{e(hint)}.</p>']
     note = session.row_sample_note
     if note is None:
-        return []
+        return out
     # Stability's line stands in its own section.
-    return [f'<p class="notice" id="row-sample">{e(note)}</p>'] + [
+    return out + [f'<p class="notice" id="row-sample">{e(note)}</p>'] + [
         f'<p class="notice">{e(line)}</p>' for k, line in session.sample_limits().items() if k != "stability"]
 
 
