@@ -200,3 +200,27 @@ def test_csv_direct_route_leaves_other_encodings_to_the_text_readers(tmp_path):
     body.write_bytes("t,y\n20,1.5\n21,caf\xe9\n".encode("latin-1"))
     with pytest.raises(DataError, match=r"body\.csv: not UTF-8 text \(byte \d+, line 3\)"):
         read_table(body)
+
+
+def test_number_columns_count_empty_cells_and_distinct_values_as_numpy_does():
+    """Empty cells, distinct finite values and the coded-category rule of a number column, found from
+    one sort, against numpy's isnan and unique (reference library) over columns mixing NaN, ±inf,
+    ±0, whole numbers and fractions."""
+    rng = np.random.default_rng(11)
+    for _ in range(500):
+        n = int(rng.integers(1, 60))
+        x = rng.integers(-3, 4, n).astype(float) if rng.random() < 0.5 else np.round(rng.normal(size=n), 1)
+        for v in (np.nan, np.inf, -np.inf, -0.0):
+            x[rng.random(n) < 0.3 * rng.random()] = v
+        _, info = reader._type_numeric_column("c", x.copy(), n)
+        missing = int(np.isnan(x).sum())
+        assert info.missing == missing
+        if missing == n:
+            assert info.kind == "empty" and info.distinct == 0
+            continue
+        finite = x[np.isfinite(x)]
+        distinct = np.unique(finite).size  # -0.0 and 0.0 are one value to numpy too
+        assert info.distinct == distinct
+        assert info.coded_categories == bool(
+            finite.size and 2 <= distinct <= reader.CODED_MAX_LEVELS and np.all(finite == np.round(finite))
+            and finite.size >= 2 * distinct)
