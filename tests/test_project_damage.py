@@ -140,3 +140,25 @@ def test_inspect_on_a_damaged_file_exits_2_with_one_line(tmp_path, capsys):
     assert main(["inspect", str(p)]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and err.startswith("regbench inspect: cut.regbench: ")
+
+
+@pytest.mark.parametrize("change,fragment", [
+    ("swap", r"columns\[0\]\.name is 'glasshouse' but table\.parquet has 'bed' there"),
+    ("twice", r"table\.columns names a column of table\.parquet twice"),
+])
+def test_parquet_columns_that_disagree_with_the_session_are_refused_by_name(tmp_path, change, fragment):
+    """The stored table is read a group of columns at a time; its names are still checked one by one
+    against session.json, and a name the Parquet file holds twice is refused before any is read."""
+    import pyarrow.parquet as pq
+
+    m = members()
+    tab = pq.read_table(io.BytesIO(m["table.parquet"]))
+    names = list(tab.column_names)
+    assert names[:2] == ["glasshouse", "bed"]
+    names[:2] = [names[1], names[0]] if change == "swap" else [names[1], names[1]]
+    buf = io.BytesIO()
+    pq.write_table(tab.rename_columns(names), buf)
+    m["table.parquet"] = buf.getvalue()
+    with pytest.raises(ProjectError, match=fragment) as err:
+        load_project(pack(tmp_path, m), compute=False)
+    assert "\n" not in str(err.value)

@@ -86,7 +86,7 @@ def test_parquet_columns_in_groups_of_a_few(tmp_path, monkeypatch):
     frame.to_parquet(path, index=False)
     whole = read_table(path)
     monkeypatch.setattr(reader, "PARQUET_GROUP_BYTES", 8 * 300 * 2)  # two columns per group
-    assert len(reader._column_groups(frame.columns, 300)) == 5
+    assert len(reader.column_groups(frame.columns, 300)) == 5
     parts = read_table(path)
     pd.testing.assert_frame_equal(parts.frame, whole.frame)
     assert dict(parts.columns) == dict(whole.columns)

@@ -786,7 +786,7 @@ def _read_parquet(path, name):
     block = column_block(n, len(numeric))
     slot = {c: k for k, c in enumerate(numeric)}
     data, infos = {}, {}
-    for group in _column_groups(schema.names, n):
+    for group in column_groups(schema.names, n):
         try:
             tab = pf.read(columns=group, use_threads=True)
         except Exception as exc:
@@ -811,7 +811,7 @@ def _read_parquet(path, name):
 PARQUET_GROUP_BYTES = 64 * 2**20
 
 
-def _column_groups(names, n):
+def column_groups(names, n):
     """The columns in file order, in groups of about :data:`PARQUET_GROUP_BYTES` of float64."""
     per = max(1, PARQUET_GROUP_BYTES // (8 * n))
     names = list(names)

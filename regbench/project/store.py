@@ -29,6 +29,7 @@ from regbench import __version__
 from regbench.analysis.stress import STRESS_KINDS
 from regbench.batches import run_pass
 from regbench.data.design import Roles, build_design
+from regbench.data.reader import column_groups
 from regbench.data.table import COLUMN_KINDS, ColumnInfo, Table, column_block, frame_of
 from regbench.errors import DataError, ProjectError
 from regbench.models import ENGINE_VERSION, spec
@@ -430,22 +431,33 @@ def _read_table(ar: _Archive, data: bytes, meta, where="session.json: field tabl
     cols, rows, notes, lines = _table_meta(ar, meta, where, bad)
     _check_parquet_sizes(ar, data, rows, cols, bad)
     try:
-        tab = pq.read_table(pa.BufferReader(data))
+        pf = pq.ParquetFile(pa.BufferReader(data))
+        schema = pf.schema_arrow
     except Exception as exc:  # pyarrow raises several types on damaged data
         raise _unreadable_parquet(ar, exc) from None
-    if tab.num_rows != rows:
-        bad("rows", f"says {rows} but table.parquet holds {tab.num_rows} rows")
-    if tab.num_columns != len(cols):
-        bad("columns", f"lists {len(cols)} columns but table.parquet holds {tab.num_columns}")
+    if len(schema.names) != len(cols):
+        bad("columns", f"lists {len(cols)} columns but table.parquet holds {len(schema.names)}")
+    if len(set(schema.names)) != len(schema.names):
+        bad("columns", "names a column of table.parquet twice")
     infos, data_cols = {}, {}
-    # Number columns land in one block, as the reader puts them, so a design shares their memory.
-    floats = [j for j in range(tab.num_columns) if pa.types.is_float64(tab.schema.field(j).type)]
+    # Number columns land in one block, as the reader puts them, so a design shares their memory; they
+    # are decoded a group at a time, as the reader does, so the table is not held twice.
+    floats = [j for j in range(len(schema.names)) if pa.types.is_float64(schema.field(j).type)]
     block = column_block(rows, len(floats))
     slot = {j: block[:, k] for k, j in enumerate(floats)}
-    for j, c in enumerate(cols):
-        name, values, info = _stored_column(j, c, tab, infos, bad, slot.get(j))
-        data_cols[name], infos[name] = values, info
-    del tab
+    j = 0
+    for group in column_groups(schema.names, rows):
+        try:
+            tab = pf.read(columns=group, use_threads=True)
+        except Exception as exc:  # pyarrow raises several types on damaged data
+            raise _unreadable_parquet(ar, exc) from None
+        if tab.num_rows != rows:
+            bad("rows", f"says {rows} but table.parquet holds {tab.num_rows} rows")
+        for i in range(len(group)):
+            name, values, info = _stored_column(j, cols[j], tab, infos, bad, slot.get(j), at=i)
+            data_cols[name], infos[name] = values, info
+            j += 1
+        del tab
     frame = frame_of(list(data_cols), data_cols, rows)
     return Table(frame=frame, columns=infos, source=meta.get("source", ""), notes=tuple(notes),
                  line_numbers=tuple(lines))
@@ -480,10 +492,11 @@ def _unreadable_parquet(ar, exc) -> ProjectError:
                         f"({type(exc).__name__}: {str(exc)[:200]}); the file is damaged")
 
 
-def _stored_column(j: int, c, tab, infos: dict, bad, out=None):
+def _stored_column(j: int, c, tab, infos: dict, bad, out=None, at=None):
     """Column ``j`` of the stored table: its name, values and :class:`ColumnInfo`, its description
-    checked against itself and against what table.parquet holds there.  A float column's values
-    are written into ``out`` (its place in the table's block) when given."""
+    checked against itself and against what table.parquet holds there (column ``at`` of ``tab``, a
+    group of its columns; ``j`` when None).  A float column's values are written into ``out`` (its
+    place in the table's block) when given."""
     import pyarrow as pa
 
     f = f"columns[{j}]"
@@ -494,8 +507,9 @@ def _stored_column(j: int, c, tab, infos: dict, bad, out=None):
         bad(f + ".name", "must be a non-empty column name")
     if name in infos:
         bad(f + ".name", f"repeats column '{name}'")
-    if tab.column_names[j] != name:
-        bad(f + ".name", f"is '{name}' but table.parquet has '{tab.column_names[j]}' there")
+    at = j if at is None else at
+    if tab.column_names[at] != name:
+        bad(f + ".name", f"is '{name}' but table.parquet has '{tab.column_names[at]}' there")
     kind = c.get("kind")
     if kind not in COLUMN_KINDS:
         bad(f + ".kind", f"is {kind!r}; known kinds are {', '.join(COLUMN_KINDS)}")
@@ -518,7 +532,7 @@ def _stored_column(j: int, c, tab, infos: dict, bad, out=None):
         if not (isinstance(cell, list) and len(cell) == 2 and isinstance(cell[0], int)
                 and not isinstance(cell[0], bool) and cell[0] >= 1 and isinstance(cell[1], str)):
             bad(f"{f}.bad_cells[{i}]", "must be [row number >= 1, text]")
-    arr = tab.column(j)
+    arr = tab.column(at)
     if kind == "categorical":
         if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
             bad(f + ".kind", f"is categorical but table.parquet stores '{name}' as {arr.type}")
